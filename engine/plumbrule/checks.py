@@ -1,0 +1,323 @@
+"""Assumption checks of least squares, each a small function returning a named result.
+
+A check that cannot run returns verdict 'n/a' with the reason instead of raising.
+Thresholds marked "common practice, no source" are rules of thumb of the trade.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .model import FittedModel
+
+OK, WATCH, FAILS, NA = "ok", "watch", "fails", "n/a"
+CHECK_COLUMNS = ["check", "statistic", "p_value", "threshold", "verdict", "note"]
+
+
+@dataclass(frozen=True)
+class Check:
+    check: str
+    statistic: float
+    p_value: float
+    threshold: str
+    verdict: str
+    note: str
+    df: float = float("nan")
+    distribution: str = ""
+    null: str = ""
+
+
+def not_applicable(name: str, why: str, threshold: str = "") -> Check:
+    return Check(name, float("nan"), float("nan"), threshold, NA, why)
+
+
+def _verdict_p(p: float, alpha: float = 0.05) -> str:
+    return OK if p >= alpha else WATCH
+
+
+# --- normality ----------------------------------------------------------
+
+def _moments(e: np.ndarray) -> tuple[float, float]:
+    """Sample skewness and (Pearson) kurtosis with biased moments, as JB uses."""
+    d = e - e.mean()
+    m2 = np.mean(d ** 2)
+    return float(np.mean(d ** 3) / m2 ** 1.5), float(np.mean(d ** 4) / m2 ** 2)
+
+
+def jarque_bera(model: FittedModel) -> Check:
+    """JB = n/6 · (S² + (K−3)²/4) ~ χ²(2) (Jarque and Bera 1980)."""
+    from scipy.stats import chi2
+    e = model.fit.resid
+    s, k = _moments(e)
+    jb = len(e) / 6.0 * (s ** 2 + (k - 3.0) ** 2 / 4.0)
+    p = float(chi2.sf(jb, 2))
+    note = ("Residuals look normal; prediction intervals can be taken as stated." if p >= 0.05 else
+            "Residuals are not normal: estimates stay unbiased, but intervals for a single sale "
+            "may be off; look at the residual plot and the largest residuals.")
+    return Check("Normality: Jarque-Bera", jb, p, "p < 0.05", _verdict_p(p), note, 2, "chi2",
+                 "residuals are normal")
+
+
+def omnibus(model: FittedModel) -> Check:
+    """D'Agostino–Pearson K² = Z(skew)² + Z(kurtosis)² ~ χ²(2) (scipy.stats.normaltest)."""
+    e = model.fit.resid
+    if len(e) < 20:
+        return not_applicable("Normality: omnibus K2", "Needs at least 20 sales (the kurtosis "
+                              "test is unreliable below that).", "p < 0.05")
+    from scipy.stats import normaltest
+    k2, p = normaltest(e)
+    note = ("Skew and tails of the residuals are consistent with normal errors." if p >= 0.05 else
+            "Skew or heavy tails in the residuals: treat the prediction interval as approximate.")
+    return Check("Normality: omnibus K2", float(k2), float(p), "p < 0.05", _verdict_p(p), note,
+                 2, "chi2", "residuals are normal")
+
+
+def skewness(model: FittedModel) -> Check:
+    s, _ = _moments(model.fit.resid)
+    v = OK if abs(s) <= 1 else WATCH
+    note = ("Residuals are roughly symmetric." if v == OK else
+            "Residuals are lopsided: the model over- or under-values a group of sales; a log of "
+            "price often helps.")
+    return Check("Residual skewness", s, float("nan"), "|skew| > 1 (common practice, no source)",
+                 v, note)
+
+
+def kurtosis(model: FittedModel) -> Check:
+    _, k = _moments(model.fit.resid)
+    v = OK if k <= 5 else WATCH
+    note = ("Tails of the residuals are near normal." if v == OK else
+            "Heavy tails: a few sales are far off the model; check them before trusting intervals.")
+    return Check("Residual kurtosis", k, float("nan"),
+                 "kurtosis > 5 (normal = 3; common practice, no source)", v, note)
+
+
+# --- autocorrelation ----------------------------------------------------------
+
+def durbin_watson_stat(e: np.ndarray) -> float:
+    """Σ(eₜ − eₜ₋₁)² / Σeₜ² (Durbin and Watson 1950)."""
+    return float(np.sum(np.diff(e) ** 2) / np.dot(e, e))
+
+
+def _dw_check(name: str, dw: float, order: str) -> Check:
+    if 1.5 <= dw <= 2.5:
+        v, note = OK, f"No sign that neighbouring sales in {order} share errors."
+    elif 1.0 <= dw <= 3.0:
+        v, note = WATCH, (f"Residuals of sales next to each other in {order} are related: "
+                          "a trend or a location effect may be missing from the model.")
+    else:
+        v, note = FAILS, (f"Strong pattern in {order}: standard errors are too small; add the "
+                          "missing trend or location term before using the intervals.")
+    return Check(name, dw, float("nan"), "outside 1.5-2.5 (common practice, no source)", v, note)
+
+
+def durbin_watson_sheet(model: FittedModel) -> Check:
+    return _dw_check("Autocorrelation: Durbin-Watson (sheet order)",
+                     durbin_watson_stat(model.fit.resid), "sheet order")
+
+
+def durbin_watson_date(model: FittedModel) -> Check:
+    date = model.spec.date_column
+    name = "Autocorrelation: Durbin-Watson (date order)"
+    if not date:
+        return not_applicable(name, "Needs a date column.", "outside 1.5-2.5")
+    order = np.argsort(model.data[date].to_numpy(), kind="stable")
+    return _dw_check(name, durbin_watson_stat(model.fit.resid[order]), "sale-date order")
+
+
+# --- constant variance ----------------------------------------------------------
+
+def _projected_r2(model: FittedModel, target: np.ndarray) -> float:
+    """R² of target regressed on the model's design (with a constant), using the stored Q."""
+    t = target - target.mean()
+    tss = float(np.dot(t, t))
+    if tss == 0:
+        return 0.0
+    coef = model.fit.q.T @ t
+    return float(np.dot(coef, coef) / tss)
+
+
+def breusch_pagan(model: FittedModel) -> Check:
+    """Koenker's studentized form: LM = n·R² of e² on the predictors ~ χ²(k) (Koenker 1981)."""
+    from scipy.stats import chi2
+    name = "Constant variance: Breusch-Pagan (Koenker)"
+    k = model.x.shape[1]
+    if not model.spec.intercept:
+        # the auxiliary regression needs a constant: refit e² on [1, X]
+        r2 = _aux_r2(model.fit.resid ** 2, model.x)
+    else:
+        r2 = _projected_r2(model, model.fit.resid ** 2)
+    lm = model.fit.n * r2
+    p = float(chi2.sf(lm, k))
+    return Check(name, lm, p, "p < 0.05", _verdict_p(p), _variance_note(p, model), k, "chi2",
+                 "error variance is constant")
+
+
+def white_special(model: FittedModel) -> Check:
+    """White's test in its special form: n·R² of e² on ŷ and ŷ² ~ χ²(2) (Wooldridge, ch. 8)."""
+    from scipy.stats import chi2
+    f = model.fit.fitted
+    z = (f - f.mean()) / (f.std() or 1.0)
+    lm = model.fit.n * _aux_r2(model.fit.resid ** 2, np.column_stack([z, z ** 2]))
+    p = float(chi2.sf(lm, 2))
+    return Check("Constant variance: White (special form)", lm, p, "p < 0.05", _verdict_p(p),
+                 _variance_note(p, model), 2, "chi2", "error variance is constant")
+
+
+def _variance_note(p: float, model: FittedModel) -> str:
+    if p >= 0.05:
+        return "Spread of errors looks the same for cheap and dear sales; intervals apply evenly."
+    if model.robust_se:
+        return ("Spread of errors changes with the sale: robust standard errors are on, but the "
+                "prediction interval is still too narrow for some subjects and too wide for others.")
+    return ("Spread of errors changes with the sale: use robust standard errors (HC3) and "
+            "consider a log of price; prediction intervals are uneven.")
+
+
+def _aux_r2(target: np.ndarray, z: np.ndarray) -> float:
+    """R² of target on [1, z] by least squares on centred columns."""
+    t = target - target.mean()
+    zc = z - z.mean(axis=0)
+    norms = np.linalg.norm(zc, axis=0)
+    keep = norms > 0
+    if not keep.any() or not np.dot(t, t):
+        return 0.0
+    coef, *_ = np.linalg.lstsq(zc[:, keep] / norms[keep], t, rcond=None)
+    fitted = (zc[:, keep] / norms[keep]) @ coef
+    return float(np.dot(fitted, fitted) / np.dot(t, t))
+
+
+# --- multicollinearity ----------------------------------------------------------
+
+def max_vif(model: FittedModel) -> Check:
+    name = "Multicollinearity: largest VIF"
+    vif = model.fit.vif
+    if model.x.shape[1] < 2:
+        return not_applicable(name, "Needs at least two predictors.", "VIF > 5 watch, > 10 fails")
+    if not model.spec.intercept:
+        return not_applicable(name, "VIF needs an intercept (centred predictors).",
+                              "VIF > 5 watch, > 10 fails")
+    j = int(np.argmax(vif))
+    v = float(vif[j])
+    term = model.encoding.names[j]
+    verdict = OK if v <= 5 else (WATCH if v <= 10 else FAILS)
+    note = ("Predictors are distinct enough for their effects to be read one by one." if verdict == OK
+            else f"'{term}' is largely predicted by the other predictors: its coefficient (and "
+            "any adjustment built on it) is unstable; the estimate for a typical subject is not.")
+    return Check(name, v, float("nan"), "VIF > 5 watch, > 10 fails (common practice, no source)",
+                 verdict, note)
+
+
+def condition_number(model: FittedModel) -> Check:
+    c = model.fit.cond_number
+    verdict = OK if c <= 30 else (WATCH if c <= 100 else FAILS)
+    note = ("The design is well conditioned." if verdict == OK else
+            "Near-dependence among predictors (the constant included): individual coefficients "
+            "are fragile; centring a predictor or dropping a redundant one helps.")
+    return Check("Multicollinearity: condition number", c, float("nan"),
+                 "> 30 watch, > 100 fails (Belsley, Kuh and Welsch 1980)", verdict, note)
+
+
+def correlated_pairs(model: FittedModel, limit: float = 0.8) -> Check:
+    name = "Multicollinearity: correlated predictor pairs"
+    k = model.x.shape[1]
+    if k < 2:
+        return not_applicable(name, "Needs at least two predictors.", f"|r| > {limit}")
+    r = np.corrcoef(model.x, rowvar=False)
+    iu = np.triu_indices(k, 1)
+    vals = np.abs(r[iu])
+    vals = np.nan_to_num(vals)
+    big = np.flatnonzero(vals > limit)
+    names = model.encoding.names
+    if big.size == 0:
+        note = "No two predictors move together closely."
+        verdict = OK
+    else:
+        pairs = [f"'{names[iu[0][i]]}'/'{names[iu[1][i]]}'" for i in big[:3]]
+        more = f" and {big.size - 3} more" if big.size > 3 else ""
+        note = (f"Closely related: {', '.join(pairs)}{more}; their separate effects are hard to "
+                "tell apart.")
+        verdict = WATCH
+    return Check(name, float(big.size), float("nan"),
+                 f"|r| > {limit} (common practice, no source)", verdict, note)
+
+
+# --- linearity ----------------------------------------------------------
+
+def ramsey_reset(model: FittedModel) -> Check:
+    """F test that ŷ² and ŷ³ add nothing to the model (Ramsey 1969)."""
+    from scipy.stats import f as fdist
+    name = "Linearity: Ramsey RESET"
+    fit = model.fit
+    df2 = fit.df_resid - 2
+    if df2 < 1:
+        return not_applicable(name, "Needs at least two more sales than parameters.", "p < 0.05")
+    fv = fit.fitted
+    z = (fv - fv.mean()) / (fv.std() or 1.0)
+    extra = np.column_stack([z ** 2, z ** 3])
+    # Residualise the new columns on the model's design, then regress e on them.
+    if fit.has_intercept:
+        extra = extra - extra.mean(axis=0)
+    extra = extra - fit.q @ (fit.q.T @ extra)
+    extra = extra - fit.q @ (fit.q.T @ extra)   # second pass: orthogonal to working precision
+    coef, *_ = np.linalg.lstsq(extra, fit.resid, rcond=None)
+    gain = float(np.dot(extra @ coef, extra @ coef))
+    ssr_u = fit.ssr - gain
+    fstat = (gain / 2.0) / (ssr_u / df2)
+    p = float(fdist.sf(fstat, 2, df2))
+    note = ("No sign of a curve the model misses." if p >= 0.05 else
+            "The model misses a curve: price may rise less than in proportion to size or age; "
+            "try a log of price or of the size column.")
+    return Check(name, fstat, p, "p < 0.05", _verdict_p(p), note, 2, "F",
+                 "no neglected nonlinearity")
+
+
+# --- influence ----------------------------------------------------------
+
+def cooks_count(model: FittedModel) -> Check:
+    n = model.fit.n
+    d = model.influence.cooks_distance
+    count = int(np.sum(d > 4.0 / n))
+    share = count / n
+    verdict = OK if share <= 0.05 else WATCH
+    note = (f"{count} sales pull the fit noticeably; that is usual for a sample this size."
+            if verdict == OK else
+            f"{count} sales ({share:.0%}) pull the fit: look at them; set one aside only with a "
+            "reason you would defend.")
+    return Check("Influence: Cook's distance > 4/n", float(count), float("nan"),
+                 "more than 5% of sales (common practice, no source)", verdict, note)
+
+
+def max_leverage(model: FittedModel) -> Check:
+    h = model.fit.leverage
+    i = int(np.argmax(h))
+    row = int(model.rows[i])
+    v = float(h[i])
+    verdict = OK if v <= 0.5 else WATCH
+    note = (f"Largest leverage at sheet row {row}; no sale dominates its own estimate."
+            if verdict == OK else
+            f"Sheet row {row} is unlike the other sales and largely sets its own estimate: "
+            "check its data.")
+    return Check("Influence: largest leverage", v, float("nan"), "> 0.5 (Huber 1981)", verdict, note)
+
+
+def studentized_count(model: FittedModel) -> Check:
+    t = model.influence.studentized
+    count = int(np.sum(np.abs(t) > 3))
+    verdict = OK if count == 0 else WATCH
+    note = ("No sale is far off the model." if count == 0 else
+            f"{count} sales are more than 3 standard errors off the model: check them for data "
+            "errors or unusual property before valuing.")
+    return Check("Influence: |studentized residual| > 3", float(count), float("nan"),
+                 "any (common practice, no source)", verdict, note)
+
+
+ALL_CHECKS = (jarque_bera, omnibus, skewness, kurtosis, durbin_watson_sheet, durbin_watson_date,
+              breusch_pagan, white_special, max_vif, condition_number, correlated_pairs,
+              ramsey_reset, cooks_count, max_leverage, studentized_count)
+
+
+def run_checks(model: FittedModel) -> list[Check]:
+    """Every check, in a fixed order."""
+    return [check(model) for check in ALL_CHECKS]

@@ -1,0 +1,112 @@
+"""Command line: ``plumbrule fit|value|run|new|demo``.
+
+Options are generated from the settings registry, so a CLI option, a worksheet
+setting and a Settings-sheet row always share one name (dashes here,
+underscores there). Bad input exits with status 2 and one line on stderr.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from typing import Any, Sequence
+
+from .errors import PlumbError
+from .settings import REGISTRY
+
+FIT_GROUPS = ("model", "screen", "validate")
+
+
+def _add_setting_options(parser: argparse.ArgumentParser, groups: Sequence[str]) -> None:
+    for s in REGISTRY.values():
+        if s.group not in groups:
+            continue
+        flag = "--" + s.name.replace("_", "-")
+        if s.kind == "bool":
+            parser.add_argument(flag, dest=s.name, action="store_true", default=None, help=s.help)
+        else:
+            meta = {"columns": "A,B", "rows": "ROWS", "percentiles": "LOW,HIGH",
+                    "date": "YYYY-MM-DD", "choice": "|".join(s.choices)}.get(s.kind, "VALUE")
+            parser.add_argument(flag, dest=s.name, default=None, metavar=meta, help=s.help)
+
+
+def _settings_from_args(args: argparse.Namespace):
+    from .settings import parse_settings
+    raw = {name: getattr(args, name) for name in REGISTRY if getattr(args, name, None) is not None}
+    return parse_settings(raw)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    from . import __version__
+    parser = argparse.ArgumentParser(
+        prog="plumbrule",
+        description="Hedonic price models for appraisers, inside the spreadsheet.")
+    parser.add_argument("--version", action="version", version=f"plumbrule {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True)
+
+    fit = sub.add_parser("fit", help="Fit the model to a CSV or xlsx sales table.")
+    fit.add_argument("data", metavar="DATA", help="Sales table: .csv or .xlsx")
+    fit.add_argument("--sheet", help="Worksheet of an .xlsx file (default: the first).")
+    fit.add_argument("--json", action="store_true", help="Print one JSON object.")
+    _add_setting_options(fit, FIT_GROUPS)
+    fit.set_defaults(handler=cmd_fit)
+
+    value = sub.add_parser("value", help="Value subject properties with intervals and a grid.")
+    value.add_argument("data", metavar="DATA", help="Sales table: .csv or .xlsx")
+    value.add_argument("--sheet", help="Worksheet of an .xlsx file (default: the first).")
+    value.add_argument("--subjects", required=True, metavar="SUBJECTS",
+                       help="Subject properties: .csv or .xlsx with the sales' columns.")
+    value.add_argument("--json", action="store_true", help="Print one JSON object.")
+    _add_setting_options(value, FIT_GROUPS + ("value",))
+    value.set_defaults(handler=cmd_value)
+
+    demo = sub.add_parser("demo", help="Write the demo (an invented town) and run it.")
+    demo.add_argument("dir", nargs="?", default=".", metavar="DIR",
+                      help="Folder to write into (default: here).")
+    demo.add_argument("--json", action="store_true", help="Print one JSON object.")
+    demo.set_defaults(handler=cmd_demo)
+    return parser
+
+
+def cmd_fit(args: argparse.Namespace) -> int:
+    from .analysis import analyze
+    from .intake import read_table
+    from .render_text import render_analysis
+    settings = _settings_from_args(args)
+    result = analyze(read_table(args.data, sheet=args.sheet), settings)
+    if args.json:
+        from .render_json import analysis_json
+        print(analysis_json(result))
+    else:
+        print(render_analysis(result))
+    return 0
+
+
+def cmd_value(args: argparse.Namespace) -> int:
+    from .valuation_cli import run_value
+    return run_value(args, _settings_from_args(args))
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    from .demo import run_demo
+    return run_demo(args)
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.handler(args) or 0)
+    except PlumbError as err:
+        print(f"plumbrule: {err}", file=sys.stderr)
+        return 2
+    except BrokenPipeError:  # e.g. piped into head
+        return 0
+
+
+def run(argv: Any = None) -> None:  # console-script entry point
+    sys.exit(main(argv))
+
+
+if __name__ == "__main__":
+    run()

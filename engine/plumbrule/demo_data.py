@@ -1,0 +1,99 @@
+"""The demo scenario: invented sales in Quillford, an invented market town.
+
+Every number here is made up. The structure is a plausible hedonic market:
+price rises with living area (less than in proportion), lot size, bathrooms and
+condition, falls with age, differs by neighbourhood, and the market rises
+about 0.4 % a month over the two years of sales. A few sales are unusual on
+purpose (a small hotel, a block of flats, a family transfer) so that
+screening has something to catch. The generator is seeded: the same call
+gives the same sales on every platform (NumPy's PCG64).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+TOWN = "Quillford"
+NEIGHBOURHOODS = ("Millbank", "Old Quay", "Hollins Rise", "Tanner's Green", "Fenby Park")
+_HOOD_EFFECT = {"Millbank": 0.0, "Old Quay": 0.12, "Hollins Rise": 0.22,
+                "Tanner's Green": -0.08, "Fenby Park": 0.05}
+_HOOD_SHARE = (0.30, 0.18, 0.16, 0.22, 0.14)
+CONDITIONS = ("Poor", "Fair", "Average", "Good", "Excellent")
+_CONDITION_EFFECT = {"Poor": -0.18, "Fair": -0.08, "Average": 0.0, "Good": 0.07, "Excellent": 0.15}
+FIRST_SALE = pd.Timestamp("2024-01-03")
+COLUMNS = ["Sale ID", "Sale price", "Living area", "Lot size", "Age", "Bedrooms", "Bathrooms",
+           "Condition", "Neighbourhood", "Sale date", "Notes"]
+
+
+def demo_sales(n: int = 360, seed: int = 7) -> pd.DataFrame:
+    """``n`` ordinary invented sales plus three unusual ones (last rows)."""
+    rng = np.random.default_rng(seed)
+    hood = rng.choice(NEIGHBOURHOODS, size=n, p=_HOOD_SHARE)
+    living = np.round(np.exp(rng.normal(np.log(1650), 0.28, n)) / 10) * 10
+    lot = np.round(np.exp(rng.normal(np.log(7200), 0.35, n)) / 50) * 50
+    age = np.clip(np.round(rng.gamma(2.2, 14.0, n)), 0, 110).astype(int)
+    bedrooms = np.clip(np.round(living / 520 + rng.normal(0, 0.6, n)), 1, 6).astype(int)
+    bathrooms = np.clip(np.round(2 * (living / 900 + rng.normal(0, 0.35, n))) / 2, 1, 4.5)
+    cond_p = np.array([0.05, 0.17, 0.43, 0.25, 0.10])
+    condition = rng.choice(CONDITIONS, size=n, p=cond_p)
+    days = np.sort(rng.integers(0, 730, n))
+    date = FIRST_SALE + pd.to_timedelta(days, unit="D")
+    months = days / (365.2425 / 12)
+    log_price = (np.log(152_000) + 0.62 * np.log(living / 1650) + 0.11 * np.log(lot / 7200)
+                 + 0.045 * (bathrooms - 2) - 0.0042 * age
+                 + np.vectorize(_HOOD_EFFECT.get)(hood) + np.vectorize(_CONDITION_EFFECT.get)(condition)
+                 + 0.004 * months + rng.normal(0, 0.085, n))
+    price = np.round(np.exp(log_price) / 500) * 500
+    frame = pd.DataFrame({
+        "Sale ID": [f"Q-{2400 + i:04d}" for i in range(n)],
+        "Sale price": price, "Living area": living, "Lot size": lot, "Age": age,
+        "Bedrooms": bedrooms, "Bathrooms": bathrooms, "Condition": condition,
+        "Neighbourhood": hood, "Sale date": date, "Notes": "",
+    })
+    unusual = pd.DataFrame([
+        {"Sale ID": "Q-9001", "Sale price": 1_480_000, "Living area": 9800, "Lot size": 21000,
+         "Age": 64, "Bedrooms": 14, "Bathrooms": 12, "Condition": "Average",
+         "Neighbourhood": "Old Quay", "Sale date": pd.Timestamp("2024-09-12"),
+         "Notes": "Small hotel (14 rooms)"},
+        {"Sale ID": "Q-9002", "Sale price": 1_150_000, "Living area": 7400, "Lot size": 9000,
+         "Age": 41, "Bedrooms": 12, "Bathrooms": 8, "Condition": "Fair",
+         "Neighbourhood": "Millbank", "Sale date": pd.Timestamp("2025-03-20"),
+         "Notes": "Block of 6 flats"},
+        {"Sale ID": "Q-9003", "Sale price": 61_000, "Living area": 1720, "Lot size": 7400,
+         "Age": 22, "Bedrooms": 3, "Bathrooms": 2, "Condition": "Good",
+         "Neighbourhood": "Hollins Rise", "Sale date": pd.Timestamp("2025-06-02"),
+         "Notes": "Transfer between relatives"},
+    ])
+    return pd.concat([frame, unusual], ignore_index=True)[COLUMNS]
+
+
+def demo_subjects() -> pd.DataFrame:
+    """One invented subject property to value."""
+    return pd.DataFrame([{
+        "Subject": "14 Lantern Row", "Living area": 1840, "Lot size": 7600, "Age": 18,
+        "Bedrooms": 3, "Bathrooms": 2.5, "Condition": "Good", "Neighbourhood": "Fenby Park",
+        "Sale date": pd.NaT,
+    }])
+
+
+def demo_comps(sales: pd.DataFrame) -> list[int]:
+    """Sheet rows (header = row 1) of four comparables near the subject in Fenby Park."""
+    subj = demo_subjects().iloc[0]
+    ok = sales.index[(sales["Neighbourhood"] == subj["Neighbourhood"])
+                     & (sales["Notes"] == "")]
+    dist = (np.abs(np.log(sales.loc[ok, "Living area"] / subj["Living area"]))
+            + np.abs(sales.loc[ok, "Age"] - subj["Age"]) / 40)
+    best = dist.sort_values(kind="stable").index[:4]
+    return sorted(int(i) + 2 for i in best)
+
+
+DEMO_SETTINGS = {
+    "response": "Sale price",
+    "predictors": "Living area,Lot size,Age,Bathrooms,Condition,Neighbourhood",
+    "categorical": "Condition,Neighbourhood",
+    "reference_levels": "Condition=Average",
+    "log_response": True,
+    "log_predictors": "Living area,Lot size",
+    "date_column": "Sale date",
+}

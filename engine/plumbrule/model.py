@@ -1,0 +1,65 @@
+"""A fitted hedonic model: the encoding, the design it was fitted on, and the fit."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import cached_property
+
+import numpy as np
+import pandas as pd
+
+from .design import Encoding, make_encoding
+from .influence import Influence, influence
+from .ols import OLSFit, fit_ols
+from .spec import ModelSpec
+
+
+@dataclass(frozen=True)
+class FittedModel:
+    """Everything downstream (checks, tables, valuation) reads from this.
+
+    ``data`` holds the clean rows used in the fit (index: sheet rows); ``x`` is
+    their design matrix without the constant column, ``y`` the response on the
+    model scale (logged when the spec says so).
+    """
+
+    spec: ModelSpec
+    encoding: Encoding
+    data: pd.DataFrame
+    x: np.ndarray
+    y: np.ndarray
+    fit: OLSFit
+    robust_se: str | None = None
+    confidence: float = 0.95
+
+    @property
+    def rows(self) -> np.ndarray:
+        return self.data.index.to_numpy()
+
+    @cached_property
+    def influence(self) -> Influence:
+        return influence(self.fit)
+
+    @cached_property
+    def cov(self) -> np.ndarray:
+        """The covariance used for inference: classical, or HC1/HC3 when asked."""
+        if self.robust_se:
+            return self.fit.robust_cov(self.robust_se)
+        return self.fit.cov
+
+    @cached_property
+    def se(self) -> np.ndarray:
+        if self.robust_se:
+            return np.sqrt(np.diag(self.cov))
+        return self.fit.se
+
+
+def fit_model(spec: ModelSpec, data: pd.DataFrame, robust_se: str | None = None,
+              confidence: float = 0.95) -> FittedModel:
+    """Encode ``data`` by ``spec``, fit by least squares, return the model."""
+    encoding = make_encoding(spec, data)
+    x = encoding.design(data)
+    y = encoding.response(data)
+    fit = fit_ols(x, y, encoding.names, intercept=spec.intercept)
+    return FittedModel(spec=spec, encoding=encoding, data=data, x=x, y=y, fit=fit,
+                       robust_se=robust_se, confidence=confidence)

@@ -1,0 +1,320 @@
+"""The one set of setting names shared by the CLI, the worksheet functions and
+the workbook's Settings sheet.
+
+Each setting is declared once in :data:`REGISTRY` with its kind, default and a
+one-line help text. The CLI option is the name with dashes (``--log-response``),
+the worksheet/Settings-sheet name is the name itself (``log_response``).
+:func:`parse_settings` is the single place where raw values (CLI strings, cell
+values, Python objects) become typed values; everything downstream trusts them.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import difflib
+from dataclasses import dataclass, field, fields
+from typing import Any, Mapping
+
+from .errors import SettingError
+
+
+@dataclass(frozen=True)
+class Setting:
+    name: str
+    kind: str          # text, columns, bool, float, int, choice, percentiles, rows, pairs, date
+    default: Any
+    help: str
+    choices: tuple[str, ...] = ()
+    group: str = "model"
+    low: float | None = None      # inclusive bounds for numbers
+    high: float | None = None
+
+
+def _s(*args, **kw) -> Setting:
+    return Setting(*args, **kw)
+
+
+REGISTRY: dict[str, Setting] = {s.name: s for s in [
+    # --- the model --------------------------------------------------------
+    _s("response", "text", None, "Column holding the sale price (the value to explain)."),
+    _s("predictors", "columns", (), "Columns that explain the price, comma-separated."),
+    _s("categorical", "columns", (), "Predictors that are categories (neighbourhood, condition...)."),
+    _s("reference_levels", "pairs", (),
+       "Reference level per category as Column=Level, comma-separated (default: most frequent)."),
+    _s("log_response", "bool", False, "Fit the logarithm of the price (effects become percentages)."),
+    _s("log_predictors", "columns", (), "Predictors to enter as logarithms (values must be positive)."),
+    _s("date_column", "text", None,
+       "Sale-date column: adds a market-conditions trend in months since the earliest sale."),
+    _s("no_intercept", "bool", False, "Fit without an intercept (rarely right for prices)."),
+    _s("robust_se", "choice", None, "Heteroscedasticity-robust standard errors.",
+       choices=("HC1", "HC3")),
+    _s("confidence", "float", 0.95, "Confidence level for intervals, between 0.5 and 0.999.",
+       low=0.5, high=0.999),
+    # --- screening (issue: screening and validation) ----------------------
+    _s("trim_percentiles", "percentiles", None,
+       "Set aside rows outside LOW,HIGH percentiles (e.g. 1,99; 0,99 trims only the top).",
+       group="screen"),
+    _s("trim_columns", "columns", (),
+       "Columns the trim and fence rules look at (default: price and numeric predictors).",
+       group="screen"),
+    _s("iqr_fence", "float", None, "Set aside rows beyond Q1-K*IQR or Q3+K*IQR (1.5 or 3 common).",
+       group="screen", low=0.0),
+    _s("influence_screen", "bool", False,
+       "After a first fit, set aside sales with Cook's D > 4/n or |studentized residual| > 3.",
+       group="screen"),
+    _s("exclude_rows", "rows", (),
+       "Sheet rows to set aside by hand, e.g. 12,40 or 12=family sale,40=auction.", group="screen"),
+    _s("max_excluded_share", "float", 0.10,
+       "A rule removing more than this share of rows raises a watch.", group="screen",
+       low=0.0, high=1.0),
+    # --- validation and ratio study ----------------------------------------
+    _s("holdout", "float", None, "Share of sales held out to test the model (e.g. 0.3).",
+       group="validate", low=0.0, high=0.9),
+    _s("holdout_recent", "bool", False,
+       "Hold out the most recent sales by the date column instead of a random share.",
+       group="validate"),
+    _s("seed", "int", 20240601, "Seed for the random holdout and folds (same seed, same split).",
+       group="validate"),
+    _s("folds", "int", 5, "Folds for cross-validation (0 turns it off).", group="validate",
+       low=0, high=100),
+    _s("ratio_by", "text", None, "Column to stratify the ratio study by (e.g. neighbourhood).",
+       group="validate"),
+    _s("property_class", "choice", "residential", "Which COD target applies.",
+       choices=("residential", "newer-residential", "other"), group="validate"),
+    _s("ratio_trim", "bool", False, "Trim ratios beyond 3*IQR before the ratio study.",
+       group="validate"),
+    # --- valuation ----------------------------------------------------------
+    _s("comps", "rows", (), "Sheet rows of comparable sales (up to 10), e.g. 12,40,57.",
+       group="value"),
+    _s("valuation_date", "date", None, "Date the value is estimated for (default: today).",
+       group="value"),
+    _s("retransform", "choice", "smearing",
+       "Log models: report the mean (smearing or lognormal factor) or the median estimate.",
+       choices=("smearing", "lognormal", "median"), group="value"),
+    _s("comp_weights", "choice", "gross", "Reconciliation weights for comparables.",
+       choices=("gross", "equal"), group="value"),
+    _s("net_adjustment_limit", "float", 0.15, "Flag a comparable whose net adjustment exceeds this share.",
+       group="value", low=0.0),
+    _s("gross_adjustment_limit", "float", 0.25,
+       "Flag a comparable whose gross adjustment exceeds this share.", group="value", low=0.0),
+]}
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Typed, validated settings. Field names are the registry names."""
+
+    response: str | None = None
+    predictors: tuple[str, ...] = ()
+    categorical: tuple[str, ...] = ()
+    reference_levels: tuple[tuple[str, str], ...] = ()
+    log_response: bool = False
+    log_predictors: tuple[str, ...] = ()
+    date_column: str | None = None
+    no_intercept: bool = False
+    robust_se: str | None = None
+    confidence: float = 0.95
+    trim_percentiles: tuple[float, float] | None = None
+    trim_columns: tuple[str, ...] = ()
+    iqr_fence: float | None = None
+    influence_screen: bool = False
+    exclude_rows: tuple[tuple[int, str], ...] = ()
+    max_excluded_share: float = 0.10
+    holdout: float | None = None
+    holdout_recent: bool = False
+    seed: int = 20240601
+    folds: int = 5
+    ratio_by: str | None = None
+    property_class: str = "residential"
+    ratio_trim: bool = False
+    comps: tuple[tuple[int, str], ...] = ()
+    valuation_date: _dt.date | None = None
+    retransform: str = "smearing"
+    comp_weights: str = "gross"
+    net_adjustment_limit: float = 0.15
+    gross_adjustment_limit: float = 0.25
+    extra: tuple = field(default=(), compare=False, repr=False)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain values, for audit stamps and JSON (dates as ISO text)."""
+        out = {}
+        for f in fields(self):
+            if f.name == "extra":
+                continue
+            v = getattr(self, f.name)
+            out[f.name] = v.isoformat() if isinstance(v, _dt.date) else v
+        return out
+
+    def replace(self, **changes) -> "Settings":
+        from dataclasses import replace
+        return replace(self, **changes)
+
+
+_TRUE = {"true", "yes", "y", "1", "on", "x"}
+_FALSE = {"false", "no", "n", "0", "off", ""}
+
+
+def normalise_name(name: Any) -> str:
+    """'Log response ' / 'log-response' → 'log_response'."""
+    return "_".join(str(name).strip().lower().replace("-", " ").split())
+
+
+def parse_settings(raw: Mapping[str, Any] | None = None, **kw) -> Settings:
+    """Validate raw setting values (strings, cell values or Python objects).
+
+    Unknown names, and values a setting cannot take, raise :class:`SettingError`
+    naming the setting and what it accepts. Blank values mean "use the default".
+    """
+    items = dict(raw or {})
+    items.update(kw)
+    typed: dict[str, Any] = {}
+    for key, value in items.items():
+        name = normalise_name(key)
+        if name not in REGISTRY:
+            close = difflib.get_close_matches(name, REGISTRY, n=1)
+            hint = f" Did you mean '{close[0]}'?" if close else ""
+            raise SettingError(f"Setting '{key}' is not one plumbrule knows.{hint}", setting=str(key))
+        if _is_blank(value):
+            continue
+        typed[name] = _convert(REGISTRY[name], value)
+    return Settings(**typed)
+
+
+def _is_blank(value: Any) -> bool:
+    return value is None or (isinstance(value, str) and not value.strip()) or (
+        isinstance(value, float) and value != value)
+
+
+def _convert(s: Setting, value: Any) -> Any:
+    conv = _CONVERTERS[s.kind]
+    return conv(s, value)
+
+
+def _text(s: Setting, v: Any) -> str:
+    return str(v).strip()
+
+
+def _split(v: Any) -> list[str]:
+    if isinstance(v, (list, tuple)):
+        parts = []
+        for item in v:
+            parts.extend(_split(item) if isinstance(item, (list, tuple)) else [item])
+        return [str(p).strip() for p in parts if not _is_blank(p)]
+    return [p.strip() for p in str(v).split(",") if p.strip()]
+
+
+def _columns(s: Setting, v: Any) -> tuple[str, ...]:
+    return tuple(_split(v))
+
+
+def _bool(s: Setting, v: Any) -> bool:
+    if isinstance(v, bool):
+        return v
+    if isinstance(v, (int, float)) and v in (0, 1):
+        return bool(v)
+    text = str(v).strip().lower()
+    if text in _TRUE:
+        return True
+    if text in _FALSE:
+        return False
+    raise SettingError(f"Setting '{s.name}': '{v}' is not TRUE or FALSE. Enter TRUE or FALSE.",
+                       setting=s.name)
+
+
+def _number(s: Setting, v: Any, cast):
+    try:
+        if isinstance(v, bool):
+            raise ValueError
+        x = float(str(v).strip().rstrip("%")) / (100 if str(v).strip().endswith("%") else 1)
+        if cast is int:
+            if x != int(x):
+                raise ValueError
+            x = int(x)
+    except (TypeError, ValueError):
+        kind = "a whole number" if cast is int else "a number"
+        raise SettingError(f"Setting '{s.name}': '{v}' is not {kind}. {s.help}",
+                           setting=s.name) from None
+    lo = "" if s.low is None else s.low
+    hi = "" if s.high is None else s.high
+    if (s.low is not None and x < s.low) or (s.high is not None and x > s.high):
+        raise SettingError(f"Setting '{s.name}': {v} is outside {lo}..{hi}. {s.help}",
+                           setting=s.name)
+    return x
+
+
+def _float(s, v):
+    return _number(s, v, float)
+
+
+def _int(s, v):
+    return _number(s, v, int)
+
+
+def _choice(s: Setting, v: Any) -> str:
+    text = str(v).strip()
+    for c in s.choices:
+        if c.lower() == text.lower():
+            return c
+    raise SettingError(f"Setting '{s.name}': '{v}' is not one of {', '.join(s.choices)}.",
+                       setting=s.name)
+
+
+def _percentiles(s: Setting, v: Any) -> tuple[float, float]:
+    parts = _split(v)
+    try:
+        lo, hi = (float(p) for p in parts)
+    except ValueError:
+        raise SettingError(f"Setting '{s.name}': '{v}' is not two percentiles LOW,HIGH "
+                           "such as 1,99.", setting=s.name) from None
+    if not 0 <= lo < hi <= 100:
+        raise SettingError(f"Setting '{s.name}': need 0 <= LOW < HIGH <= 100, got {lo:g},{hi:g}.",
+                           setting=s.name)
+    return lo, hi
+
+
+def _rows(s: Setting, v: Any) -> tuple[tuple[int, str], ...]:
+    """'12,40' or '12=family sale,40' or [12, 40] → ((12, ''), (40, ''))."""
+    out = []
+    for part in _split(v):
+        row, _, reason = part.partition("=")
+        try:
+            r = float(row.strip())
+            if r != int(r) or r < 1:
+                raise ValueError
+        except ValueError:
+            raise SettingError(f"Setting '{s.name}': '{part}' is not a sheet row number. "
+                               "Enter row numbers such as 12,40.", setting=s.name) from None
+        out.append((int(r), reason.strip()))
+    return tuple(out)
+
+
+def _pairs(s: Setting, v: Any) -> tuple[tuple[str, str], ...]:
+    out = []
+    for part in _split(v):
+        col, eq, level = part.partition("=")
+        if not eq or not col.strip() or not level.strip():
+            raise SettingError(f"Setting '{s.name}': '{part}' is not Column=Level. "
+                               "Enter pairs such as Neighbourhood=Old Town.", setting=s.name)
+        out.append((col.strip(), level.strip()))
+    return tuple(out)
+
+
+def _date(s: Setting, v: Any) -> _dt.date:
+    if isinstance(v, _dt.datetime):
+        return v.date()
+    if isinstance(v, _dt.date):
+        return v
+    if isinstance(v, (int, float)) and not isinstance(v, bool):
+        return (_dt.datetime(1899, 12, 30) + _dt.timedelta(days=float(v))).date()
+    try:
+        return _dt.date.fromisoformat(str(v).strip()[:10])
+    except ValueError:
+        raise SettingError(f"Setting '{s.name}': '{v}' is not a date. Enter YYYY-MM-DD.",
+                           setting=s.name) from None
+
+
+_CONVERTERS = {
+    "text": _text, "columns": _columns, "bool": _bool, "float": _float, "int": _int,
+    "choice": _choice, "percentiles": _percentiles, "rows": _rows, "pairs": _pairs,
+    "date": _date,
+}

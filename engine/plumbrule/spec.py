@@ -1,0 +1,108 @@
+"""What to fit: the model specification, checked against the table's columns."""
+
+from __future__ import annotations
+
+import difflib
+from dataclasses import dataclass
+from typing import Iterable
+
+from .errors import SpecError, quote_list
+from .settings import Settings
+
+
+@dataclass(frozen=True)
+class ModelSpec:
+    """Columns and their roles, with the names matched to the table's headers."""
+
+    response: str
+    predictors: tuple[str, ...]          # user order; the date column is not repeated here
+    categorical: tuple[str, ...] = ()
+    reference_levels: tuple[tuple[str, str], ...] = ()
+    log_response: bool = False
+    log_predictors: tuple[str, ...] = ()
+    date_column: str | None = None
+    intercept: bool = True
+
+    @property
+    def numeric_predictors(self) -> tuple[str, ...]:
+        return tuple(p for p in self.predictors if p not in self.categorical)
+
+    @property
+    def numeric_columns(self) -> tuple[str, ...]:
+        """Columns read as numbers: the response and the numeric predictors."""
+        return (self.response,) + self.numeric_predictors
+
+    @property
+    def used_columns(self) -> tuple[str, ...]:
+        cols = self.numeric_columns + self.categorical
+        return cols + ((self.date_column,) if self.date_column else ())
+
+    def reference_for(self, column: str) -> str | None:
+        return dict(self.reference_levels).get(column)
+
+
+def match_column(name: str, columns: Iterable[str], setting: str) -> str:
+    """The header a user meant: exact, else a unique case-insensitive match."""
+    columns = list(columns)
+    if name in columns:
+        return name
+    folded = [c for c in columns if c.casefold() == name.strip().casefold()]
+    if len(folded) == 1:
+        return folded[0]
+    close = difflib.get_close_matches(name, columns, n=1, cutoff=0.6)
+    hint = f"Did you mean '{close[0]}'?" if close else f"Columns are: {_short_list(columns)}."
+    raise SpecError(f"Setting '{setting}': there is no column '{name}'. {hint}",
+                    setting=setting, column=name)
+
+
+def _short_list(columns: list[str], limit: int = 12) -> str:
+    shown = quote_list(columns[:limit])
+    return shown + (f" and {len(columns) - limit} more" if len(columns) > limit else "")
+
+
+def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
+    """Check the settings' column names against the table and return the spec."""
+    columns = list(columns)
+    if not settings.response:
+        raise SpecError("Setting 'response' is empty. Name the sale-price column.",
+                        setting="response")
+    response = match_column(settings.response, columns, "response")
+    date = match_column(settings.date_column, columns, "date_column") if settings.date_column else None
+    preds = [match_column(p, columns, "predictors") for p in settings.predictors]
+    preds = [p for p in dict.fromkeys(preds) if p != date]
+    if not preds and not date:
+        raise SpecError("Setting 'predictors' is empty. Name at least one column that explains "
+                        "the price.", setting="predictors")
+    if response in preds:
+        raise SpecError(f"Setting 'predictors': '{response}' is the response; it cannot also "
+                        "explain itself. Remove it from the predictors.", setting="predictors",
+                        column=response)
+    cats = _subset(settings.categorical, columns, preds, "categorical")
+    logs = _subset(settings.log_predictors, columns, preds, "log_predictors")
+    both = [c for c in logs if c in cats]
+    if both:
+        raise SpecError(f"Setting 'log_predictors': {quote_list(both)} is categorical; only numeric "
+                        "predictors can be logged.", setting="log_predictors", column=both[0])
+    refs = []
+    for col, level in settings.reference_levels:
+        col = match_column(col, columns, "reference_levels")
+        if col not in cats:
+            raise SpecError(f"Setting 'reference_levels': '{col}' is not a categorical predictor. "
+                            "Add it to 'categorical' or remove the pair.",
+                            setting="reference_levels", column=col)
+        refs.append((col, level))
+    return ModelSpec(response=response, predictors=tuple(preds), categorical=tuple(cats),
+                     reference_levels=tuple(refs), log_response=settings.log_response,
+                     log_predictors=tuple(logs), date_column=date,
+                     intercept=not settings.no_intercept)
+
+
+def _subset(names, columns, preds, setting) -> list[str]:
+    out = []
+    for name in names:
+        col = match_column(name, columns, setting)
+        if col not in preds:
+            raise SpecError(f"Setting '{setting}': '{col}' is not among the predictors. Add it "
+                            "to 'predictors' too.", setting=setting, column=col)
+        out.append(col)
+    return list(dict.fromkeys(out))

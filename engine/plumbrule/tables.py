@@ -1,0 +1,110 @@
+"""Fitted model → the tables users read (our own column names; no rounding)."""
+
+from __future__ import annotations
+
+from dataclasses import asdict
+
+import numpy as np
+import pandas as pd
+
+from .checks import CHECK_COLUMNS, Check
+from .model import FittedModel
+
+COEF_COLUMNS = ["term", "estimate", "std_error", "t", "p_value", "ci_low", "ci_high",
+                "std_beta", "vif"]
+RESIDUAL_COLUMNS = ["row", "actual", "fitted", "residual", "standardized_residual",
+                    "studentized_residual", "leverage", "cooks_distance"]
+
+
+def coefficient_table(model: FittedModel) -> pd.DataFrame:
+    """One row per term. std_beta = estimate × sd(x)/sd(y) on the model scale
+    (for an indicator, sd of the 0/1 column); vif is blank for the intercept."""
+    from scipy.stats import t as tdist
+    fit = model.fit
+    est, se = fit.coef, model.se
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tval = est / se
+    p = 2.0 * tdist.sf(np.abs(tval), fit.df_resid)
+    q = tdist.ppf(0.5 + model.confidence / 2.0, fit.df_resid)
+    sd_x = np.std(model.x, axis=0, ddof=1)
+    sd_y = float(np.std(model.y, ddof=1))
+    slopes = est[int(fit.has_intercept):]
+    std_beta = slopes * sd_x / sd_y if sd_y > 0 else np.full_like(slopes, np.nan)
+    pad = [np.nan] if fit.has_intercept else []
+    return pd.DataFrame({
+        "term": list(fit.names), "estimate": est, "std_error": se, "t": tval, "p_value": p,
+        "ci_low": est - q * se, "ci_high": est + q * se,
+        "std_beta": np.concatenate([pad, std_beta]),
+        "vif": np.concatenate([pad, fit.vif]),
+    })[COEF_COLUMNS]
+
+
+def fit_table(model: FittedModel, n_dropped: int = 0, extra: dict | None = None) -> pd.DataFrame:
+    """One record of model-level figures (response units of the model scale;
+    mape in percent on the price scale)."""
+    from scipy.stats import f as fdist
+    fit = model.fit
+    n, p = fit.n, fit.n_params
+    df_model = p - int(fit.has_intercept)
+    r2 = fit.r_squared
+    adj = 1.0 - (1.0 - r2) * (n - int(fit.has_intercept)) / fit.df_resid
+    f_stat = _f_statistic(model, r2, df_model)
+    f_p = float(fdist.sf(f_stat, df_model, fit.df_resid)) if df_model > 0 else np.nan
+    e = fit.resid
+    loglik = -0.5 * n * (np.log(2.0 * np.pi) + np.log(fit.ssr / n) + 1.0)
+    if model.spec.log_response:
+        ape = np.abs(np.expm1(-e))                      # |exp(ŷ) − price| / price
+    else:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ape = np.abs(e / model.y)
+    mape = 100.0 * float(np.mean(ape)) if np.all(np.isfinite(ape)) else np.nan
+    rec = {
+        "n_used": n, "n_dropped": int(n_dropped), "n_params": p, "df_resid": fit.df_resid,
+        "r_squared": r2, "adj_r_squared": adj, "f_stat": f_stat, "f_p_value": f_p,
+        "resid_std_error": fit.sigma, "rmse": float(np.sqrt(fit.ssr / n)),
+        "mae": float(np.mean(np.abs(e))), "mape": mape, "log_likelihood": loglik,
+        "aic": -2.0 * loglik + 2.0 * p, "bic": -2.0 * loglik + np.log(n) * p,
+        "se_type": model.robust_se or "classical",
+        "response": model.encoding.response_name,
+    }
+    rec.update(extra or {})
+    return pd.DataFrame([rec])
+
+
+def _f_statistic(model: FittedModel, r2: float, df_model: int) -> float:
+    """Overall F: classical from R², or the robust Wald form when robust SEs are on."""
+    fit = model.fit
+    if df_model <= 0:
+        return np.nan
+    if not model.robust_se:
+        return (r2 / df_model) / ((1.0 - r2) / fit.df_resid) if r2 < 1 else np.inf
+    off = int(fit.has_intercept)
+    b = fit.coef[off:]
+    v = model.cov[off:, off:]
+    return float(b @ np.linalg.solve(v, b) / df_model)
+
+
+def checks_table(checks: list[Check]) -> pd.DataFrame:
+    return pd.DataFrame([{k: asdict(c)[k] for k in CHECK_COLUMNS} for c in checks],
+                        columns=CHECK_COLUMNS)
+
+
+def residual_table(model: FittedModel) -> pd.DataFrame:
+    """One row per sale used (sheet row), on the model scale."""
+    fit, infl = model.fit, model.influence
+    return pd.DataFrame({
+        "row": model.rows.astype(np.int64), "actual": model.y, "fitted": fit.fitted,
+        "residual": fit.resid, "standardized_residual": infl.standardized,
+        "studentized_residual": infl.studentized, "leverage": fit.leverage,
+        "cooks_distance": infl.cooks_distance,
+    })[RESIDUAL_COLUMNS]
+
+
+def correlation_table(model: FittedModel) -> pd.DataFrame:
+    """Pearson correlations of the response (model scale) and every design term."""
+    names = [model.encoding.response_name] + model.encoding.names
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = np.corrcoef(np.column_stack([model.y, model.x]), rowvar=False)
+    frame = pd.DataFrame(np.atleast_2d(r), columns=names)
+    frame.insert(0, "term", names)
+    return frame
