@@ -9,10 +9,12 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any, Mapping
 
+import numpy as np
 import pandas as pd
 
-from . import intake
-from .checks import run_checks
+from . import intake, ratios, screen, validate
+from .checks import WATCH, Check, run_checks
+from .errors import SettingError
 from .model import FittedModel, fit_model
 from .settings import Settings, parse_settings
 from .spec import ModelSpec, build_spec
@@ -23,8 +25,13 @@ from .tables import (checks_table, coefficient_table, correlation_table, fit_tab
 @dataclass(frozen=True)
 class Analysis:
     """The result of one run. ``tables`` maps a table name to a DataFrame:
-    coefficients, fit, checks, dropped_rows, residuals, correlations (and the
-    screening / validation / ratio-study tables when those run)."""
+    coefficients, fit, checks, dropped_rows, residuals, correlations,
+    screen_log, screen_summary, validation, ratio_study, holdout_estimates,
+    cv_estimates (always present; empty when a step did not run).
+
+    ``model`` is fitted on the training rows (after screening); ``holdout``
+    holds the clean holdout rows it never saw (empty without a holdout).
+    """
 
     settings: Settings
     spec: ModelSpec
@@ -32,6 +39,7 @@ class Analysis:
     clean: intake.CleanData
     model: FittedModel
     tables: Mapping[str, pd.DataFrame] = field(default_factory=dict)
+    holdout: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @property
     def encoding(self):
@@ -67,7 +75,8 @@ def prepare(table: intake.SheetTable, settings: Settings) -> tuple[ModelSpec, in
     extra_labels = [c for c in _extra_labels(settings, table) if c not in spec.used_columns]
     clean = intake.clean(table, numeric=list(spec.numeric_columns) + extra_numeric,
                          categorical=list(spec.categorical) + extra_labels,
-                         date=spec.date_column)
+                         date=spec.date_column,
+                         hint_categorical=spec.numeric_predictors)
     return spec, clean
 
 
@@ -86,20 +95,144 @@ def _extra_labels(settings: Settings, table: intake.SheetTable) -> list[str]:
 
 def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
             **kw) -> Analysis:
-    """Run the whole analysis on ``source`` (values, DataFrame, path or SheetTable)."""
+    """Run the whole analysis on ``source`` (values, DataFrame, path or SheetTable).
+
+    Order: intake → spec → holdout split (of the clean rows) → data screening
+    (manual, percentile trim, IQR fence) on all rows → influence screening on
+    the training rows (one first fit, one refit) → fit on training rows →
+    checks → validation (holdout, k-fold) → ratio study → tables.
+    """
     settings = coerce_settings(settings, **kw)
     table = as_table(source)
     spec, clean = prepare(table, settings)
-    model = fit_model(spec, clean.data, robust_se=settings.robust_se,
+    data = clean.data
+    split = validate.split_rows(data, settings, spec.date_column)
+
+    columns = screen.screened_columns(settings, spec.numeric_columns, table.columns)
+    screened = screen.data_rules(data, columns, settings, table.frame.index)
+    kept = screened.kept
+    train = kept.loc[kept.index.isin(split.training)]
+    hold = kept.loc[kept.index.isin(split.holdout)]
+    train, hold, moved = _move_unseen(train, hold, spec)
+    logs, looked = [screened.log], list(screened.looked_at)
+
+    if settings.influence_screen:
+        first = fit_model(spec, train, robust_se=settings.robust_se,
+                          confidence=settings.confidence)
+        flagged = screen.influence_rule(first)
+        looked.append((screen.INFLUENCE, first.fit.n))
+        logs.append(flagged)
+        train = train.drop(index=flagged["row"])
+        train, hold, moved2 = _move_unseen(train, hold, spec)
+        moved = pd.concat([moved, moved2], ignore_index=True)
+    model = fit_model(spec, train, robust_se=settings.robust_se,
                       confidence=settings.confidence)
-    checks = run_checks(model)
+    fit_log = pd.concat([lg for lg in logs if len(lg)] or [screen.empty_log()],
+                        ignore_index=True)
+
+    # Validation: holdout estimates and k-fold on the training rows.
+    factor = validate.model_factor(model, settings.retransform)
+    h_pred = validate.predict(model, hold) if len(hold) else np.empty(0)
+    h_est = validate.price_estimates(h_pred, spec.log_response, factor)
+    cv = None
+    if settings.folds == 1:
+        raise SettingError("Setting 'folds': 1 fold is not cross-validation. Use 0 (off) or 2 "
+                           "or more.", setting="folds")
+    if settings.folds and settings.folds <= model.fit.n:
+        cv = validate.cross_validate(model, settings.folds, settings.seed, settings.retransform)
+    validation = validate.validation_table(model, settings.retransform, hold, h_pred, h_est, cv)
+    if settings.folds and cv is None:     # a default of 5 folds must not break a tiny table
+        validation = pd.concat([validation, pd.DataFrame([{
+            "set": "folds", "n": model.fit.n,
+            "note": f"cross-validation not run: {settings.folds} folds need at least "
+                    f"{settings.folds} training sales"}])], ignore_index=True)
+
+    # Ratio study: on the holdout; without one, on the out-of-fold estimates; else in-sample.
+    by = _ratio_by(settings, table)
+    strat = lambda frame: frame[by].to_numpy() if by else None  # noqa: E731
+    holdout_estimates = ratios.estimates_table(hold.index, hold[spec.response], h_est,
+                                               strat(hold))
+    cv_estimates = _cv_estimates(model, cv, strat)
+    if len(hold):
+        sample, study_est = "holdout", holdout_estimates
+    elif cv is not None:
+        sample, study_est = "cross-validated (out-of-fold)", cv_estimates
+    else:
+        fitted = validate.price_estimates(model.fit.fitted, spec.log_response, factor)
+        sample = "in-sample (optimistic: the model has seen these sales)"
+        study_est = ratios.estimates_table(train.index, train[spec.response], fitted,
+                                           strat(train))
+    ratio_log = screen.empty_log()
+    if settings.ratio_trim:
+        ratio_log = ratios.ratio_trim(study_est[study_est["in_study"]])
+        study_est = study_est.assign(in_study=study_est["in_study"]
+                                     & ~study_est["row"].isin(ratio_log["row"]))
+        if sample == "holdout":
+            holdout_estimates = study_est
+        elif cv is not None:
+            cv_estimates = study_est
+    study = ratios.ratio_study(study_est, sample, ratios.RatioTargets.for_class(
+        settings.property_class), settings.confidence, by)
+
+    screen_log = pd.concat([lg for lg in (fit_log, ratio_log) if len(lg)]
+                           or [screen.empty_log()], ignore_index=True)
+    after = pd.concat([train, hold]).sort_index()
+    summary = screen.summary_table(data, after, screen_log, columns, looked)
+    checks = run_checks(model) + screen.screening_checks(fit_log, looked,
+                                                         settings.max_excluded_share)
+    if len(moved):
+        checks.append(_moved_check(moved))
     tables = {
         "coefficients": coefficient_table(model),
-        "fit": fit_table(model, n_dropped=len(clean.dropped)),
+        "fit": fit_table(model, n_dropped=len(clean.dropped),
+                         extra={"n_holdout": len(hold), "n_screened": len(fit_log)}),
         "checks": checks_table(checks),
         "dropped_rows": clean.dropped,
         "residuals": residual_table(model),
         "correlations": correlation_table(model),
+        "screen_log": screen_log,
+        "screen_summary": summary,
+        "validation": validation,
+        "ratio_study": study,
+        "holdout_estimates": holdout_estimates,
+        "cv_estimates": cv_estimates,
     }
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
-                    tables=tables)
+                    tables=tables, holdout=hold)
+
+
+def _ratio_by(settings: Settings, table: intake.SheetTable) -> str | None:
+    from .spec import match_column
+    return match_column(settings.ratio_by, table.columns, "ratio_by") if settings.ratio_by else None
+
+
+def _move_unseen(train: pd.DataFrame, hold: pd.DataFrame, spec: ModelSpec):
+    """Holdout rows with a category level absent from training move to training (logged)."""
+    moved = validate.unseen_level_rows(train, hold, spec.categorical)
+    if len(moved):
+        train = pd.concat([train, hold.loc[moved["row"]]]).sort_index()
+        hold = hold.drop(index=moved["row"])
+    return train, hold, moved
+
+
+def _moved_check(moved: pd.DataFrame) -> Check:
+    rows = ", ".join(str(r) for r in moved["row"].head(10))
+    more = f" and {len(moved) - 10} more" if len(moved) > 10 else ""
+    return Check("Holdout: category levels unseen in training", float(len(moved)), float("nan"),
+                 "any", WATCH,
+                 f"Sheet rows {rows}{more} were moved from the holdout to the training rows: "
+                 "their level (e.g. '" + str(moved['level'].iloc[0]) + "' in '"
+                 + str(moved['column'].iloc[0]) + "') had no other sale to learn from.")
+
+
+def _cv_estimates(model: FittedModel, cv, strat) -> pd.DataFrame:
+    """Out-of-fold estimates of the training rows (empty without cross-validation), with fold."""
+    if cv is None:
+        out = ratios.estimates_table([], [], [])
+    else:
+        out = ratios.estimates_table(model.rows, model.data[model.spec.response], cv.estimate,
+                                     strat(model.data))
+        out["fold"] = cv.labels + 1
+    if "fold" not in out:
+        out["fold"] = pd.Series(dtype=np.int64)
+    return out

@@ -38,7 +38,7 @@ def _settings_from_args(args: argparse.Namespace):
 
 def build_parser() -> argparse.ArgumentParser:
     from . import __version__
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="plumbrule",
         description="Hedonic price models for appraisers, inside the spreadsheet.")
     parser.add_argument("--version", action="version", version=f"plumbrule {__version__}")
@@ -59,6 +59,18 @@ def build_parser() -> argparse.ArgumentParser:
     value.add_argument("--json", action="store_true", help="Print one JSON object.")
     _add_setting_options(value, FIT_GROUPS + ("value",))
     value.set_defaults(handler=cmd_value)
+
+    new = sub.add_parser("new", help="Write a fresh plumbrule workbook (the template).")
+    new.add_argument("book", metavar="BOOK.xlsx", help="Workbook to create (never overwritten).")
+    new.set_defaults(handler=cmd_new)
+
+    run_ = sub.add_parser("run", help="Analyse a plumbrule workbook and write the result sheets.")
+    run_.add_argument("book", metavar="BOOK.xlsx", help="Workbook with Sales (and Subjects, "
+                      "Comps, Settings) sheets.")
+    run_.add_argument("--no-backup", dest="no_backup", action="store_true",
+                      help="Do not keep the previous version as BOOK.xlsx.bak.")
+    run_.add_argument("--json", action="store_true", help="Print one JSON object.")
+    run_.set_defaults(handler=cmd_run)
 
     demo = sub.add_parser("demo", help="Write the demo (an invented town) and run it.")
     demo.add_argument("dir", nargs="?", default=".", metavar="DIR",
@@ -87,21 +99,69 @@ def cmd_value(args: argparse.Namespace) -> int:
     return run_value(args, _settings_from_args(args))
 
 
+def cmd_new(args: argparse.Namespace) -> int:
+    from .workbook.template import new_book
+    path = new_book(args.book)
+    print(f"Wrote {path}: paste your sales into the Sales table, fill in Settings, save, then "
+          f"run: plumbrule run {path}")
+    return 0
+
+
+def cmd_run(args: argparse.Namespace) -> int:
+    from .workbook.run import print_run, run_book
+    result = run_book(args.book, backup=False if args.no_backup else None)
+    print_run(result, as_json=args.json)
+    return 0
+
+
 def cmd_demo(args: argparse.Namespace) -> int:
     from .demo import run_demo
     return run_demo(args)
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with plumbrule's one-line message for a bad command line (status 2)."""
+
+    def error(self, message: str):  # noqa: D401 - argparse hook
+        self.exit(2, f"plumbrule: {' '.join(message.split())}. "
+                     f"See '{self.prog} --help'.\n")
+
+
+def _one_line(err: PlumbError) -> str:
+    """The message, with the CLI spelling of a setting beside its shared name."""
+    text = str(err)
+    name = getattr(err, "setting", None)
+    if name in REGISTRY:
+        flag = "--" + name.replace("_", "-")
+        text = text.replace(f"Setting '{name}'", f"Setting '{name}' ({flag})", 1)
+    return text
+
+
 def main(argv: Sequence[str] | None = None) -> int:
+    """Run one command; returns the exit status (0 ok, 2 bad input, 1 a plumbrule bug)."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as stop:   # --help, --version, or a bad command line
+        return stop.code if isinstance(stop.code, int) else 2
     try:
         return int(args.handler(args) or 0)
     except PlumbError as err:
-        print(f"plumbrule: {err}", file=sys.stderr)
+        print(f"plumbrule: {_one_line(err)}", file=sys.stderr)
         return 2
     except BrokenPipeError:  # e.g. piped into head
         return 0
+    except KeyboardInterrupt:
+        return 130
+    except Exception as exc:  # a bug in plumbrule, not the user's input
+        import os
+        if os.environ.get("PLUMBRULE_DEBUG"):
+            raise
+        detail = " ".join(str(exc).split())[:300]
+        print(f"plumbrule: internal error ({type(exc).__name__}: {detail}). This is a bug in "
+              "plumbrule, not in your data; please report it with the command you ran "
+              "(set PLUMBRULE_DEBUG=1 for details).", file=sys.stderr)
+        return 1
 
 
 def run(argv: Any = None) -> None:  # console-script entry point

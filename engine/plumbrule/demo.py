@@ -1,24 +1,86 @@
-"""``plumbrule demo``: write the invented-town sales and run the analysis on them."""
+"""``plumbrule demo [DIR]``: the invented town's workbook, analysed, in one command.
+
+Writes DIR/plumbrule-demo.xlsx from the template filled with the Quillford sales,
+one subject and four comparables, runs the analysis into it (as ``plumbrule run``
+would) and prints where it is and the headline numbers.
+"""
 
 from __future__ import annotations
 
 from pathlib import Path
 
+DEMO_BOOK = "plumbrule-demo.xlsx"
+
+
+def demo_settings() -> dict:
+    """The demo's Settings sheet values: the model plus screening, holdout and a date."""
+    from .demo_data import DEMO_SETTINGS
+    return {**DEMO_SETTINGS, "trim_percentiles": "1,99", "holdout": 0.3,
+            "ratio_by": None, "valuation_date": "2026-01-05"}
+
+
+def write_demo_book(folder: str | Path) -> Path:
+    """The filled (not yet analysed) demo workbook in ``folder``; returns its path."""
+    from .demo_data import demo_comps, demo_sales, demo_subjects
+    from .errors import WorkbookError
+    from .workbook.fill import fill_template
+    folder = Path(folder)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise WorkbookError(f"Cannot create folder '{folder}' ({exc.strerror}). Choose another "
+                            "folder.") from None
+    sales = demo_sales()
+    settings = {k: v for k, v in demo_settings().items() if v is not None}
+    path = folder / DEMO_BOOK
+    from .workbook.safety import check_not_open
+    check_not_open(path)
+    tmp = folder / f".~plumbrule-demo-{DEMO_BOOK}"
+    fill_template(tmp, sales, demo_subjects(), demo_comps(sales), settings)
+    import os
+    os.replace(tmp, path)
+    return path
+
 
 def run_demo(args) -> int:
-    from .analysis import analyze
-    from .demo_data import DEMO_SETTINGS, TOWN, demo_sales
-    from .render_text import render_analysis
-    folder = Path(args.dir)
-    folder.mkdir(parents=True, exist_ok=True)
-    path = folder / "plumbrule-demo-sales.csv"
-    sales = demo_sales()
-    sales.assign(**{"Sale date": sales["Sale date"].dt.strftime("%Y-%m-%d")}).to_csv(path, index=False)
-    result = analyze(path, DEMO_SETTINGS)
+    from .demo_data import TOWN
+    from .workbook.run import run_book
+    path = write_demo_book(args.dir)
+    result = run_book(path, backup=False)
     if getattr(args, "json", False):
+        import json
         from .render_json import analysis_json
-        print(analysis_json(result))
-    else:
-        print(f"Demo sales of {TOWN} (an invented town) written to {path}\n")
-        print(render_analysis(result))
+        out = json.loads(analysis_json(result.analysis))
+        out["workbook"] = str(result.written)
+        out["headline"] = result.headline
+        if result.valuation is not None:
+            from .valuation_cli import valuation_json
+            out.update(json.loads(valuation_json(result.valuation)))
+        print(json.dumps(out, allow_nan=False, ensure_ascii=False))
+        return 0
+    h = result.headline
+    print(f"Demo workbook for {TOWN} (an invented town): {result.written}")
+    print("Open it and read the Report sheet first.\n")
+    print(_headline_text(h))
     return 0
+
+
+def _headline_text(h: dict) -> str:
+    def money(v):
+        return "n/a" if v is None else f"{v:,.0f}"
+
+    def num(v, fmt):
+        return "n/a" if v is None else format(v, fmt)
+    lines = [f"  Sales used in the fit   {h['n_used']}",
+             f"  R²                      {num(h['r_squared'], '.3f')}",
+             f"  COD / PRD / PRB         {num(h.get('cod'), '.1f')} / {num(h.get('prd'), '.3f')}"
+             f" / {num(h.get('prb'), '.3f')}  (holdout sales-ratio study)"]
+    if h.get("estimate") is not None:
+        lines += [f"  Subject                 {h.get('subject')}",
+                  f"  Estimate                {money(h['estimate'])}"
+                  f"  (prediction interval {money(h['pi_low'])} to {money(h['pi_high'])})"]
+        if h.get("reconciled_value") is not None:
+            lines.append(f"  From the comparables    {money(h['reconciled_value'])}")
+    lines.append("\nA statistical estimate, not an appraisal: the licensed appraiser's judgement, "
+                 "professional standards such as USPAP and local rules govern.")
+    return "\n".join(lines)

@@ -47,37 +47,138 @@ class Encoding:
     def reference(self, column: str) -> str:
         return dict(self.levels)[column][0]
 
+    @property
+    def input_columns(self) -> tuple[str, ...]:
+        """The columns new rows must carry: predictors, then the date column."""
+        cols = tuple(dict.fromkeys(t.column for t in self.terms))
+        return cols
+
     def design(self, data: pd.DataFrame, label: str = "row") -> np.ndarray:
-        """n × k float matrix (Fortran order) for rows of ``data`` (clean, typed).
+        """n × k float matrix (Fortran order) for rows of ``data`` (clean, typed:
+        floats, labels, datetime64 — see :meth:`new_rows`), without the constant.
 
         ``label`` names the rows in messages ('row' for sales, 'subject row' ...).
+        Raises :class:`SpecError` for a missing column, an unseen category level,
+        a non-positive value to log, or a blank value.
         """
+        absent = [c for c in self.input_columns if c not in data.columns]
+        if absent:
+            raise SpecError(f"The {label}s have no column {quote_list(absent)}; the model needs "
+                            f"{quote_list(self.input_columns)}. Add the missing column.",
+                            column=absent[0])
         x = np.empty((len(data), len(self.terms)), order="F")
         levels = dict(self.levels)
         for col, known in levels.items():
             _check_levels(data[col], known, col, label)
         for j, t in enumerate(self.terms):
             if t.kind == "numeric":
-                x[:, j] = data[t.column].to_numpy(dtype=float)
+                x[:, j] = _floats(data[t.column], t.column, label)
             elif t.kind == "log":
                 x[:, j] = _log(data[t.column], t.column, label, "log_predictors")
             elif t.kind == "level":
                 x[:, j] = (data[t.column].to_numpy(dtype=object) == t.level).astype(float)
             else:  # trend
                 x[:, j] = months_since(data[t.column], self.date_origin)
+        _check_finite(x, data.index, self.terms, label)
         return x
 
-    def response(self, data: pd.DataFrame) -> np.ndarray:
+    def response(self, data: pd.DataFrame, label: str = "row") -> np.ndarray:
+        """The response on the model scale (logged when the spec says so)."""
         y = data[self.spec.response]
         if self.spec.log_response:
-            return _log(y, self.spec.response, "row", "log_response")
+            return _log(y, self.spec.response, label, "log_response")
         return y.to_numpy(dtype=float)
+
+    def new_rows(self, source, label: str = "subject row",
+                 date: pd.Timestamp | None = None) -> pd.DataFrame:
+        """New rows (subjects, comparables) typed exactly as the sales were.
+
+        ``source`` is a SheetTable, a DataFrame (headers as columns) or a 2-D
+        block of values. Headers are matched as the settings match them. Blank
+        cells are an error naming the row (a subject cannot be dropped), except
+        the date column: blank dates, or all dates when the rows have no date
+        column, take ``date`` (e.g. the valuation date) when given.
+        Returns a DataFrame indexed by sheet row with the :attr:`input_columns`.
+        """
+        from . import intake
+        table = source if isinstance(source, intake.SheetTable) else (
+            intake.table_from_frame(source) if isinstance(source, pd.DataFrame)
+            else intake.table_from_values(source))
+        spec, frame = self.spec, table.frame
+        found = {c: _find(c, table.columns) for c in self.input_columns}
+        absent = [c for c, hit in found.items() if hit is None
+                  and not (c == spec.date_column and date is not None)]
+        if absent:
+            raise SpecError(f"The {label}s have no column {quote_list(absent)}; the model needs "
+                            f"{quote_list(self.input_columns)}. Add the missing column.",
+                            column=absent[0])
+        cols = {c: hit for c, hit in found.items() if hit is not None}
+        numeric = [c for c in cols if c not in spec.categorical and c != spec.date_column]
+        typed: dict[str, pd.Series] = {}
+        reasons: dict[str, pd.Series] = {}
+        for c in self.input_columns:
+            if c not in cols:   # date column absent: every row takes ``date``
+                typed[c] = pd.Series(pd.Timestamp(date), index=frame.index,
+                                     dtype="datetime64[ns]")
+                reasons[c] = pd.Series(np.nan, index=frame.index, dtype=object)
+                continue
+            cell = frame[cols[c]]
+            if c in numeric:
+                typed[c], reasons[c] = intake.to_numbers(cell, cols[c])
+            elif c in spec.categorical:
+                typed[c], reasons[c] = intake.to_labels(cell, cols[c])
+            else:
+                typed[c], reasons[c] = intake.to_dates(cell, cols[c])
+                if date is not None:
+                    fill = reasons[c].notna()
+                    typed[c] = typed[c].where(~fill, pd.Timestamp(date))
+                    reasons[c] = reasons[c].where(~fill)
+        for c in self.input_columns:
+            missing = reasons[c].notna()
+            if missing.any():
+                row = missing.idxmax()
+                fix = ("Fill it in, or give the valuation date." if c == spec.date_column
+                       else "Fill it in: the model needs it to give an estimate.")
+                what = reasons[c][row]
+                what = "is blank" if what == "blank" else "holds an " + what
+                raise SpecError(f"{label.capitalize()} {row}, column '{c}': the cell {what}. "
+                                f"{fix}", column=c, row=int(row))
+        return pd.DataFrame(typed, index=frame.index)
 
 
 def months_since(dates: pd.Series, origin: pd.Timestamp) -> np.ndarray:
-    """Months (mean Gregorian month) from ``origin`` to each date."""
+    """Months (mean Gregorian month, 30.436875 days) from ``origin`` to each date;
+    NaN where a date is missing."""
     delta = (pd.to_datetime(dates) - origin).to_numpy(dtype="timedelta64[ns]")
-    return delta.astype(np.int64) / (86400e9 * DAYS_PER_MONTH)
+    months = delta.astype(np.int64) / (86400e9 * DAYS_PER_MONTH)
+    return np.where(np.isnat(delta), np.nan, months)
+
+
+def _find(name: str, columns) -> str | None:
+    from .spec import match_column
+    try:
+        return match_column(name, columns, "")
+    except SpecError:
+        return None
+
+
+def _floats(values: pd.Series, name: str, label: str) -> np.ndarray:
+    try:
+        return values.to_numpy(dtype=float)
+    except (TypeError, ValueError):
+        raise SpecError(f"Column '{name}' of the {label}s holds text where the model needs "
+                        "numbers. Pass the rows through Encoding.new_rows first.",
+                        column=name) from None
+
+
+def _check_finite(x: np.ndarray, index: pd.Index, terms, label: str) -> None:
+    bad = ~np.isfinite(x)
+    if bad.any():
+        i, j = np.argwhere(bad)[0]
+        col = terms[j].column
+        raise SpecError(f"{label.capitalize()} {index[i]}, column '{col}': the value is blank "
+                        "or not a finite number. Fill it in: the model needs it.",
+                        column=col, row=int(index[i]))
 
 
 def make_encoding(spec: ModelSpec, data: pd.DataFrame) -> Encoding:
@@ -125,18 +226,29 @@ def _check_levels(col: pd.Series, known: tuple[str, ...], name: str, label: str)
     unseen = ~col.isin(known)
     if unseen.any():
         row = unseen.idxmax()
-        raise SpecError(f"{label.capitalize()} {row}, column '{name}': level '{col[row]}' does not "
-                        "occur in the sales used, so the model has no effect for it. Use one of "
-                        f"{quote_list(known[:8])}{' ...' if len(known) > 8 else ''}.",
+        value = col[row]
+        folded = [k for k in known if str(k).casefold() == str(value).strip().casefold()]
+        hint = (f"Did you mean '{folded[0]}'?" if folded else
+                f"Use one of {quote_list(known[:8])}{' ...' if len(known) > 8 else ''}.")
+        shown = "a blank" if _is_missing(value) else f"level '{value}'"
+        raise SpecError(f"{label.capitalize()} {row}, column '{name}': {shown} does not "
+                        "occur in the sales used, so the model has no effect for it. " + hint,
                         column=name, row=int(row))
 
 
+def _is_missing(value) -> bool:
+    return value is None or (isinstance(value, float) and value != value)
+
+
 def _log(values: pd.Series, name: str, label: str, setting: str) -> np.ndarray:
-    v = values.to_numpy(dtype=float)
-    bad = ~(v > 0)
+    v = _floats(values, name, label)
+    bad = ~(v > 0) & ~np.isnan(v)    # a blank is reported by _check_finite
     if bad.any():
         i = int(np.argmax(bad))
+        undo = (f"turn off '{setting}'" if setting == "log_response"
+                else f"take '{name}' out of '{setting}'")
         raise SpecError(f"Column '{name}', {label} {values.index[i]}: the logarithm needs a "
-                        f"positive value, found {v[i]:g}. Correct the cell or take '{name}' out "
-                        f"of '{setting}'.", column=name, row=int(values.index[i]), setting=setting)
-    return np.log(v)
+                        f"positive value, found {v[i]:g}. Correct the cell or {undo}.",
+                        column=name, row=int(values.index[i]), setting=setting)
+    with np.errstate(invalid="ignore"):
+        return np.log(v)

@@ -6,10 +6,23 @@ the header. Cells may be numbers, numbers stored as text ("$350,000", "12.5%",
 the sheet's row numbers as the index everywhere downstream.
 
 Validation happens here, once: the numeric code after this trusts its input.
+
+Decisions a user relies on:
+
+- Headers are trimmed (inner runs of spaces and line breaks become one space).
+- Trailing fully blank rows are an over-wide selection and are not kept; a fully
+  blank row *inside* the block is kept, and :func:`clean` drops and logs it as
+  "empty row", so nothing disappears silently.
+- In a numeric column TRUE/FALSE (cells or text) read as 1/0, so a yes/no
+  feature can enter the model directly.
+- A date column takes date cells, spreadsheet serial numbers (1900 date system,
+  also as text) and ISO text (YYYY-MM-DD).
 """
 
 from __future__ import annotations
 
+import datetime as _dt
+import numbers
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterable, Sequence
@@ -29,18 +42,32 @@ COM_ERROR_CODES = {
     -2146826288: "#NULL!", -2146826252: "#NUM!", -2146826265: "#REF!",
     -2146826273: "#VALUE!",
 }
-_EXCEL_EPOCH = pd.Timestamp("1899-12-30")   # serial 1 = 1900-01-01 in the 1900 date system
-_NUMBER_TEXT = r"(?:\d{1,3}(?:,\d{3})+|\d+)?(?:\.\d+)?(?:[eE][-+]?\d+)?"
+_EXCEL_EPOCH = pd.Timestamp("1899-12-30")   # serial 61 = 1900-03-01 in the 1900 date system
+_MAX_SERIAL = 2958466                       # 9999-12-31 is serial 2958465
+# The span datetime64[ns] can hold; a sale date outside it is a typing error.
+_EARLIEST, _LATEST = pd.Timestamp("1677-09-22"), pd.Timestamp("2262-04-11")
+# A number as typed: optional sign, currency, grouped or plain digits, decimals,
+# exponent, percent. Parentheses (accounting negatives) are peeled off first.
+_NUMBER_RE = (r"^(?P<s1>[-+])?\s*(?P<cur>[$€£¥])?\s*(?P<s2>[-+])?\s*"
+              r"(?P<num>(?:\d{1,3}(?:,\d{3})+|\d+)(?:\.\d*)?(?:[eE][-+]?\d+)?"
+              r"|\.\d+(?:[eE][-+]?\d+)?)\s*(?P<pct>%)?$")
+_SHOWN_TEXT = 60     # longest cell text quoted back in a message
+
+# Cell kinds, decided once per Python type (a column holds few distinct types).
+BLANK, TEXT, NUMBER, BOOL, DATE, OTHER = "blank", "text", "number", "bool", "date", "other"
 
 
 @dataclass(frozen=True)
 class SheetTable:
     """A block of cells with a header: ``frame`` holds the raw cell values
-    (object dtype), columns are the trimmed headers, the index is sheet rows."""
+    (object dtype), columns are the trimmed headers, the index is sheet rows.
+    ``first_column`` is the sheet column number (A = 1) of the block's first
+    column, so messages can give column letters."""
 
     frame: pd.DataFrame
     sheet: str | None = None
     header_row: int = 1
+    first_column: int = 1
 
     @property
     def columns(self) -> list[str]:
@@ -59,56 +86,93 @@ class CleanData:
 # --- building a table -----------------------------------------------------
 
 def table_from_values(values: Sequence[Sequence[Any]], header_row: int = 1,
-                      sheet: str | None = None) -> SheetTable:
-    """A 2-D block (rows of cells, header first) → :class:`SheetTable`."""
+                      sheet: str | None = None, first_column: int = 1) -> SheetTable:
+    """A 2-D block (rows of cells, header first) → :class:`SheetTable`.
+    Row i of the block (0 = header) is sheet row ``header_row + i``."""
+    if isinstance(values, np.ndarray):
+        values = values.tolist()
     rows = [list(r) if isinstance(r, (list, tuple)) else [r] for r in (values or [])]
-    if not rows:
+    if not rows or not max(len(r) for r in rows):
         raise IntakeError("The sales block is empty. Select the table including its header row.")
     width = max(len(r) for r in rows)
     block = np.empty((len(rows), width), dtype=object)
     block[:] = None
-    for i, r in enumerate(rows):       # rows of the block, not data rows: one slice each
+    for i, r in enumerate(rows):       # rows of the block, not cells: one slice each
         block[i, :len(r)] = r
     body = pd.DataFrame(block[1:], columns=range(width), dtype=object)
-    return _with_header(list(block[0]), body, header_row, sheet)
+    return _with_header(list(block[0]), body, header_row, sheet, first_column)
 
 
 def table_from_frame(frame: pd.DataFrame, header_row: int = 1,
-                     sheet: str | None = None) -> SheetTable:
+                     sheet: str | None = None, first_column: int = 1) -> SheetTable:
     """A DataFrame whose columns are the headers → :class:`SheetTable`.
-    Row i of the frame is sheet row header_row + 1 + i."""
-    body = frame.copy()
-    headers = list(body.columns)
-    body.columns = range(len(headers))
-    body = body.reset_index(drop=True)
-    return _with_header(headers, body, header_row, sheet)
+    Row i of the frame is sheet row header_row + 1 + i (the frame's index is ignored)."""
+    headers = list(frame.columns)
+    cols = {}
+    for j in range(frame.shape[1]):
+        c = frame.iloc[:, j]
+        # Plain numpy numbers, booleans and dates keep their fast dtype; anything
+        # else (nullable, categorical, string dtypes) becomes plain cells.
+        keep = isinstance(c.dtype, np.dtype) and c.dtype.kind in "fiubM"
+        cols[j] = c.to_numpy() if keep else c.astype(object).to_numpy()
+    body = pd.DataFrame(cols, index=pd.RangeIndex(len(frame)))
+    return _with_header(headers, body, header_row, sheet, first_column)
+
+
+def column_letter(number: int) -> str:
+    """1 → 'A', 27 → 'AA' (sheet column letters)."""
+    out = ""
+    while number > 0:
+        number, rem = divmod(number - 1, 26)
+        out = chr(65 + rem) + out
+    return out
+
+
+def _header_text(h: Any) -> str:
+    if _blank_scalar(h):
+        return ""
+    if isinstance(h, float) and h.is_integer():
+        h = int(h)
+    elif isinstance(h, _dt.datetime) and h == pd.Timestamp(h).normalize():
+        h = h.date()
+    if isinstance(h, _dt.date):
+        h = h.isoformat()
+    return " ".join(str(h).split())
 
 
 def _with_header(headers: list[Any], body: pd.DataFrame, header_row: int,
-                 sheet: str | None) -> SheetTable:
+                 sheet: str | None, first_column: int = 1) -> SheetTable:
     body.index = pd.RangeIndex(header_row + 1, header_row + 1 + len(body), name="row")
-    names = ["" if _blank_scalar(h) else str(h).strip() for h in headers]
+    names = [_header_text(h) for h in headers]
     # Columns with no header and no values are just an over-wide selection.
     keep = [j for j, nm in enumerate(names) if nm or not _blank_mask(body[j]).all()]
     names = [names[j] for j in keep]
     body = body[keep]
-    blank = [str(j + 1) for j, nm in zip(keep, names) if not nm]
+    letter = [column_letter(first_column + j) for j in keep]
+    blank = [letter[pos] for pos, nm in enumerate(names) if not nm]
     if blank:
-        raise IntakeError(
-            f"Header row (sheet row {header_row}): column {', '.join(blank)} has no name. "
-            "Give every column a header.", row=header_row)
-    seen: dict[str, int] = {}
+        which = "column " + blank[0] if len(blank) == 1 else "columns " + ", ".join(blank)
+        raise IntakeError(f"Header row (sheet row {header_row}): {which} "
+                          f"{'has' if len(blank) == 1 else 'have'} no name but "
+                          f"{'holds' if len(blank) == 1 else 'hold'} values. Give every column "
+                          "a header.", row=header_row)
+    seen: dict[str, list[str]] = {}
     for pos, nm in enumerate(names):
-        if nm in seen:
-            raise IntakeError(
-                f"Header row (sheet row {header_row}): '{nm}' appears twice (columns "
-                f"{keep[seen[nm]] + 1} and {keep[pos] + 1}). Give each column its own name.",
-                column=nm, row=header_row)
-        seen[nm] = pos
+        seen.setdefault(nm, []).append(letter[pos])
+    dups = {nm: cols for nm, cols in seen.items() if len(cols) > 1}
+    if dups:
+        where = "; ".join(f"'{nm}' in columns {', '.join(cols[:-1])} and {cols[-1]}"
+                          for nm, cols in dups.items())
+        raise IntakeError(f"Header row (sheet row {header_row}): the same name appears more than "
+                          f"once ({where}). Give each column its own name.",
+                          column=next(iter(dups)), row=header_row)
     body.columns = names
-    if body.shape[1]:
-        body = body[~_blank_frame(body).all(axis=1)]   # fully blank rows are not sales
-    return SheetTable(frame=body, sheet=sheet, header_row=header_row)
+    if len(body):
+        filled = ~_blank_frame(body).all(axis=1).to_numpy()
+        # Rows after the last filled one are an over-wide selection, not sales.
+        last = int(np.flatnonzero(filled)[-1]) + 1 if filled.any() else 0
+        body = body.iloc[:last]
+    return SheetTable(frame=body, sheet=sheet, header_row=header_row, first_column=first_column)
 
 
 def read_table(path: str | Path, sheet: str | None = None) -> SheetTable:
@@ -116,8 +180,13 @@ def read_table(path: str | Path, sheet: str | None = None) -> SheetTable:
     path = Path(path)
     if not path.exists():
         raise IntakeError(f"File '{path}' does not exist. Check the path.")
+    if path.is_dir():
+        raise IntakeError(f"'{path}' is a folder, not a file. Give the path of the sales file.")
     suffix = path.suffix.lower()
-    if suffix == ".csv":
+    if suffix in (".csv", ".txt"):
+        if sheet is not None:
+            raise IntakeError(f"File '{path.name}' is a CSV file, which has no sheets; leave "
+                              "out the sheet name.", sheet=sheet)
         return read_csv(path)
     if suffix in (".xlsx", ".xlsm", ".xls", ".ods"):
         return read_sheet(path, sheet)
@@ -125,72 +194,124 @@ def read_table(path: str | Path, sheet: str | None = None) -> SheetTable:
 
 
 def read_csv(path: str | Path) -> SheetTable:
-    """CSV cells come in as text so they are parsed exactly as a sheet's would be."""
+    """CSV cells come in as text so they are parsed exactly as a sheet's would be.
+    Record i (header = 1) is sheet row i; blank lines count as rows."""
+    path = Path(path)
     try:
-        frame = pd.read_csv(path, dtype=object, keep_default_na=False, na_values=[],
-                            encoding="utf-8-sig")
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
-        raise IntakeError(f"File '{Path(path).name}' cannot be read as CSV ({exc}). "
-                          "Save it as UTF-8 CSV with a header row.") from None
-    frame.columns = [c if not str(c).startswith("Unnamed: ") else "" for c in frame.columns]
-    return table_from_frame(frame, header_row=1, sheet=None)
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise IntakeError(f"File '{path.name}' cannot be opened ({exc.strerror}). "
+                          "Check that it exists and is readable.") from None
+    for encoding in ("utf-8-sig", "cp1252"):   # Excel on Windows often saves "CSV" as cp1252
+        try:
+            text = raw.decode(encoding)
+            break
+        except UnicodeDecodeError:
+            continue
+    else:
+        raise IntakeError(f"File '{path.name}' is not text. Save the sales as UTF-8 CSV "
+                          "with a header row.")
+    if not text.strip():
+        raise IntakeError(f"File '{path.name}' is empty. Save the sales with a header row.")
+    first = text.split("\n", 1)[0]
+    sep = ";" if first.count(";") > first.count(",") else ","
+    import io
+    try:
+        frame = pd.read_csv(io.StringIO(text), header=None, dtype=object, sep=sep,
+                            keep_default_na=False, na_values=[], skip_blank_lines=False)
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
+        detail = " ".join(str(exc).split())
+        raise IntakeError(f"File '{path.name}' cannot be read as CSV ({detail}). "
+                          "Save it as CSV with one header row and the same number of "
+                          "cells on every line.") from None
+    return table_from_values(frame.to_numpy(dtype=object), header_row=1, sheet=None)
 
 
 def read_sheet(path: str | Path, sheet: str | None = None) -> SheetTable:
-    """One worksheet through python-calamine (fast); the first non-empty row is the header."""
+    """One worksheet through python-calamine (fast); the first non-empty row is the header.
+    Note: calamine hands over error cells as blanks, so they are logged as 'blank'."""
     from python_calamine import CalamineWorkbook
     try:
         book = CalamineWorkbook.from_path(str(path))
+        names = list(book.sheet_names)
     except Exception as exc:  # calamine raises its own types for damaged files
-        raise IntakeError(f"File '{Path(path).name}' cannot be read as a workbook ({exc}).") from None
-    names = book.sheet_names
+        detail = " ".join(str(exc).split())[:200]
+        raise IntakeError(f"File '{Path(path).name}' cannot be read as a workbook ({detail}). "
+                          "Open it in the spreadsheet and save it again as .xlsx.") from None
+    if not names:
+        raise IntakeError(f"Workbook '{Path(path).name}' has no worksheets.")
     if sheet is None:
         sheet = names[0]
     elif sheet not in names:
-        raise IntakeError(f"Workbook '{Path(path).name}' has no sheet '{sheet}'. Sheets: "
-                          f"{quote_list(names)}.", sheet=sheet)
-    ws = book.get_sheet_by_name(sheet)
-    values = ws.to_python(skip_empty_area=True)
-    start = ws.start[0] if ws.start else 0
-    return table_from_values(values, header_row=start + 1, sheet=sheet)
+        folded = [n for n in names if n.casefold() == str(sheet).strip().casefold()]
+        if len(folded) != 1:
+            raise IntakeError(f"Workbook '{Path(path).name}' has no sheet '{sheet}'. Sheets: "
+                              f"{quote_list(names)}.", sheet=sheet)
+        sheet = folded[0]
+    try:
+        ws = book.get_sheet_by_name(sheet)
+        values = ws.to_python(skip_empty_area=True)
+        start = ws.start or (0, 0)
+    except Exception as exc:
+        detail = " ".join(str(exc).split())[:200]
+        raise IntakeError(f"Sheet '{sheet}' of '{Path(path).name}' cannot be read ({detail}).",
+                          sheet=sheet) from None
+    if not values:
+        raise IntakeError(f"Sheet '{sheet}' of '{Path(path).name}' is empty. Put the sales "
+                          "there with a header row, or name another sheet.", sheet=sheet)
+    return table_from_values(values, header_row=start[0] + 1, sheet=sheet,
+                             first_column=start[1] + 1)
 
 
 # --- cleaning the used columns -----------------------------------------------
 
 def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[str] = (),
-          date: str | None = None) -> CleanData:
+          date: str | None = None, hint_categorical: Iterable[str] = ()) -> CleanData:
     """Type the used columns; drop (and log) rows with a missing value in any.
 
-    Raises :class:`IntakeError` for a cell that cannot be what its column needs.
+    ``hint_categorical`` names numeric predictor columns whose "not a number"
+    message should suggest the ``categorical`` setting. Raises
+    :class:`IntakeError` for a cell that cannot be what its column needs.
     """
     numeric, categorical = list(dict.fromkeys(numeric)), list(dict.fromkeys(categorical))
     frame = table.frame
+    wanted = numeric + categorical + ([date] if date is not None else [])
+    missing = [c for c in dict.fromkeys(wanted) if c not in frame.columns]
+    if missing:
+        raise IntakeError(f"The sales table has no column {quote_list(missing)}. Columns are: "
+                          f"{quote_list(list(frame.columns)[:12])}.", column=missing[0])
+    hints = set(hint_categorical)
     typed: dict[str, pd.Series] = {}
     reasons: dict[str, pd.Series] = {}
     for col in numeric:
-        typed[col], reasons[col] = to_numbers(frame[col], col)
+        typed[col], reasons[col] = to_numbers(frame[col], col, hint_categorical=col in hints)
     for col in categorical:
         typed[col], reasons[col] = to_labels(frame[col], col)
     if date is not None:
         typed[date], reasons[date] = to_dates(frame[date], date)
     order = list(typed)
-    data = pd.DataFrame(typed, index=frame.index)[order] if order else pd.DataFrame(index=frame.index)
     if not order:
-        return CleanData(data, _empty_log())
+        return CleanData(pd.DataFrame(index=frame.index), _empty_log())
+    data = pd.DataFrame(typed, index=frame.index)[order]
     why = pd.DataFrame(reasons, index=frame.index)[order]
-    bad = why.notna()
-    any_bad = bad.any(axis=1).to_numpy()
+    bad = why.notna().to_numpy()
+    any_bad = bad.any(axis=1)
     if not any_bad.any():
         return CleanData(data, _empty_log())
-    sub = why[any_bad]
-    first = bad[any_bad].to_numpy().argmax(axis=1)
+    sub, sub_bad = why[any_bad], bad[any_bad]
+    first = sub_bad.argmax(axis=1)
     cols = np.array(order, dtype=object)[first]
-    text = sub.to_numpy()[np.arange(len(sub)), first]
-    also = bad[any_bad].sum(axis=1).to_numpy() - 1
-    text = np.where(also > 0, text + " (and " + also.astype(str) + " more missing)", text)
-    dropped = pd.DataFrame({"row": sub.index.to_numpy(dtype=np.int64), "column": cols,
-                            "reason": text})
-    return CleanData(data[~any_bad], dropped.reset_index(drop=True))
+    text = sub.to_numpy(dtype=object)[np.arange(len(sub)), first].astype(str)
+    also = sub_bad.sum(axis=1) - 1
+    text = np.where(also > 0, np.char.add(np.char.add(text, " (and "),
+                                          np.char.add(also.astype(str), " more missing)")), text)
+    empty = _blank_frame(frame).all(axis=1).to_numpy()[any_bad]
+    text = np.where(empty, "empty row", text)
+    cols = np.where(empty, "", cols)
+    dropped = pd.DataFrame({"row": sub.index.to_numpy(dtype=np.int64),
+                            "column": pd.Series(cols, dtype=object).to_numpy(),
+                            "reason": pd.Series(text, dtype=object).to_numpy()})
+    return CleanData(data[~any_bad], dropped)
 
 
 def _empty_log() -> pd.DataFrame:
@@ -199,148 +320,287 @@ def _empty_log() -> pd.DataFrame:
 
 
 def _blank_scalar(v: Any) -> bool:
-    return v is None or (isinstance(v, float) and v != v) or (isinstance(v, str) and not v.strip())
+    if v is None or v is pd.NaT or v is pd.NA:
+        return True
+    if isinstance(v, (float, np.floating)):
+        return bool(v != v)
+    return isinstance(v, str) and not v.strip()
 
 
-def _blank_mask(col: pd.Series) -> pd.Series:
-    if col.dtype.kind in "fiub":
+def _kind_of_type(t: type) -> str:
+    if t is type(None) or t is type(pd.NaT) or t is type(pd.NA):
+        return BLANK
+    if issubclass(t, str):
+        return TEXT
+    if issubclass(t, (bool, np.bool_)):
+        return BOOL
+    if issubclass(t, (_dt.date, np.datetime64)):
+        return DATE
+    if issubclass(t, numbers.Real):
+        return NUMBER
+    return OTHER
+
+
+def cell_kinds(col: pd.Series) -> pd.Series:
+    """The kind of each cell (blank, text, number, bool, date, other) by its type."""
+    kind = col.dtype.kind if isinstance(col.dtype, np.dtype) else "O"
+    fixed = {"f": NUMBER, "i": NUMBER, "u": NUMBER, "b": BOOL, "M": DATE}.get(kind)
+    if fixed is not None:
+        return pd.Series(fixed, index=col.index, dtype=object)
+    types = col.map(type)
+    lookup = {t: _kind_of_type(t) for t in pd.unique(types.to_numpy())}
+    return types.map(lookup).astype(object)
+
+
+def _blank_mask(col: pd.Series, kinds: pd.Series | None = None) -> pd.Series:
+    if isinstance(col.dtype, np.dtype) and col.dtype.kind in "fiubM":
         return col.isna()
-    if col.dtype.kind == "M":
-        return col.isna()
-    return col.isna() | (col.astype(str).str.strip() == "")
-
-
-def _blank_frame(frame: pd.DataFrame) -> pd.DataFrame:
-    return pd.DataFrame({c: _blank_mask(frame[c]) for c in frame.columns}, index=frame.index)
-
-
-def _error_names(col: pd.Series) -> pd.Series:
-    """The error value's text where a cell holds one, else NaN."""
-    if col.dtype.kind in "fiubM":
-        return pd.Series(np.nan, index=col.index, dtype=object)
-    text = col.astype(str).str.strip()
-    is_text_err = col.map(type).eq(str) & (text.isin(ERROR_TEXTS) | text.str.fullmatch(r"Err:\d+"))
-    out = text.where(is_text_err)
-    is_int = col.map(type).eq(int)
-    if is_int.any():
-        codes = col[is_int].map(COM_ERROR_CODES)
-        out = out.astype(object)
-        out[codes.dropna().index] = codes.dropna()
+    kinds = cell_kinds(col) if kinds is None else kinds
+    out = col.isna() | kinds.eq(BLANK)
+    text = kinds.eq(TEXT)
+    if text.any():
+        out[text] = col[text].astype(str).str.strip().eq("").to_numpy()
     return out
 
 
-def _missing_reasons(col: pd.Series) -> tuple[pd.Series, pd.Series]:
+def _blank_frame(frame: pd.DataFrame) -> pd.DataFrame:
+    return pd.DataFrame({c: _blank_mask(frame[c]).to_numpy() for c in frame.columns},
+                        index=frame.index)
+
+
+def _numbers_of(cells: pd.Series) -> pd.Series:
+    """Number cells (int, float, numpy, Decimal) → floats; huge ints become ±inf."""
+    try:
+        return pd.to_numeric(cells, errors="coerce").astype(float)
+    except (OverflowError, TypeError, ValueError):
+        def _one(v):   # rare path only: integers beyond float range
+            try:
+                return float(v)
+            except OverflowError:
+                return float("inf") if v > 0 else float("-inf")
+        return cells.map(_one).astype(float)
+
+
+def _error_names(col: pd.Series, kinds: pd.Series) -> pd.Series:
+    """The error value's name where a cell holds one ('#N/A', '#DIV/0! (code …)'), else NaN."""
+    out = pd.Series(np.nan, index=col.index, dtype=object)
+    text = kinds.eq(TEXT)
+    if text.any():
+        t = col[text].astype(str).str.strip().str.upper()
+        hit = t.isin(ERROR_TEXTS) | t.str.fullmatch(r"ERR:\d+")
+        out[t.index[hit.to_numpy()]] = t[hit].str.replace("ERR:", "Err:", regex=False)
+    num = kinds.eq(NUMBER)
+    if num.any():
+        vals = _numbers_of(col[num])
+        hit = vals.isin(list(COM_ERROR_CODES)).to_numpy()
+        if hit.any():
+            codes = vals[hit].astype(np.int64)
+            out[codes.index] = (codes.map(COM_ERROR_CODES) + " (code " + codes.astype(str)
+                                + ")").to_numpy()
+    return out
+
+
+def _missing_reasons(col: pd.Series, kinds: pd.Series) -> tuple[pd.Series, pd.Series]:
     """(reason per cell or NaN, mask of cells that hold a value)."""
-    blank = _blank_mask(col)
-    err = _error_names(col)
+    blank = _blank_mask(col, kinds)
+    err = _error_names(col, kinds)
     reason = pd.Series(np.nan, index=col.index, dtype=object)
     reason[blank] = "blank"
-    has_err = err.notna()
+    has_err = err.notna() & ~blank
     reason[has_err] = "error value " + err[has_err]
     return reason, ~(blank | has_err)
 
 
-def to_numbers(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
-    """Cells → floats; returns (values, missing reason per cell)."""
-    if col.dtype.kind in "fiu":
-        values = col.astype(float)
-        bad = ~np.isfinite(values) & values.notna()
-        if bad.any():
-            row = bad.idxmax()
-            raise IntakeError(f"Column '{name}', row {row}: {values[row]} is not a finite "
-                              "number. Enter a number or leave the cell blank.", column=name, row=row)
-        return values, pd.Series(np.where(values.isna(), "blank", None), index=col.index).where(
-            values.isna())
-    if col.dtype.kind == "b":
-        return col.astype(float), pd.Series(np.nan, index=col.index, dtype=object)
-    reason, present = _missing_reasons(col)
-    kinds = col.map(type)
-    values = pd.Series(np.nan, index=col.index)
-    direct = present & ~kinds.eq(str) & kinds.isin([int, float, bool, np.float64, np.int64, np.bool_])
-    values[direct] = pd.to_numeric(col[direct], errors="coerce").astype(float)
-    texts = present & kinds.eq(str)
-    if texts.any():
-        values[texts] = parse_number_text(col[texts])
-    bad = present & ~np.isfinite(values.to_numpy(dtype=float))
+def _shown(cell: Any) -> str:
+    """A cell as a message quotes it."""
+    if isinstance(cell, (_dt.date, np.datetime64)):
+        return f"a date ({pd.Timestamp(cell).date()})"
+    if isinstance(cell, (str, numbers.Real)):
+        text = " ".join(str(cell).split())
+        return "'" + (text if len(text) <= _SHOWN_TEXT else text[:_SHOWN_TEXT] + "...") + "'"
+    return f"a {type(cell).__name__} value"
+
+
+def _raise_first(bad: pd.Series, col: pd.Series, message: str, name: str) -> None:
+    row = bad.idxmax()
+    raise IntakeError(f"Column '{name}', row {row}: {_shown(col[row])} {message}",
+                      column=name, row=int(row))
+
+
+def to_numbers(col: pd.Series, name: str, hint_categorical: bool = False
+               ) -> tuple[pd.Series, pd.Series]:
+    """Cells → floats; returns (values, missing reason per cell or NaN)."""
+    if isinstance(col.dtype, np.dtype) and col.dtype.kind in "fiu":
+        return _plain_numbers(col, name)
+    kinds = cell_kinds(col)
+    reason, present = _missing_reasons(col, kinds)
+    values = pd.Series(np.nan, index=col.index, dtype=float)
+    num = present & kinds.eq(NUMBER)
+    if num.any():
+        values[num] = _numbers_of(col[num]).to_numpy()
+    boo = present & kinds.eq(BOOL)
+    if boo.any():
+        values[boo] = col[boo].astype(bool).astype(float).to_numpy()
+    text = present & kinds.eq(TEXT)
+    if text.any():
+        values[text] = parse_number_text(col[text]).to_numpy()
+    ok = np.isfinite(values.to_numpy())
+    infinite = present & num & ~ok
+    if infinite.any():
+        _raise_first(infinite, col, "is not a finite number. Enter a number or leave the cell "
+                     "blank.", name)
+    bad = present & ~ok
     if bad.any():
+        fix = "Enter a number or leave the cell blank."
         row = bad.idxmax()
         cell = col[row]
-        shown = f"'{cell}'" if isinstance(cell, str) else f"a {type(cell).__name__} value"
-        if hasattr(cell, "year") and not isinstance(cell, str):
-            shown = f"a date ({pd.Timestamp(cell).date()})"
-        raise IntakeError(f"Column '{name}', row {row}: {shown} is not a number. Enter a "
-                          "number or leave the cell blank.", column=name, row=int(row))
+        # A word ('Hilltop') or a column that is mostly words looks like categories;
+        # 'approx 1200' in a column of numbers is a mistyped number.
+        looks_like_labels = isinstance(cell, str) and any(ch.isalpha() for ch in cell) and (
+            not any(ch.isdigit() for ch in cell) or bad.sum() >= 0.5 * present.sum())
+        if hint_categorical and looks_like_labels:
+            fix = (f"Enter a number or leave the cell blank; if '{name}' holds categories "
+                   "(names or codes), list it under the 'categorical' setting.")
+        _raise_first(bad, col, "is not a number. " + fix, name)
     return values, reason
 
 
+def _plain_numbers(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
+    """Fast path of :func:`to_numbers` for a column already typed as numbers
+    (a DataFrame handed over by a script): the same rules, whole-array operations.
+    NaN is a blank; a COM error code is an error value; ±inf is an error."""
+    v = col.to_numpy(dtype=float)
+    blank = np.isnan(v)
+    reason = pd.Series(np.nan, index=col.index, dtype=object)
+    if blank.any():
+        reason[blank] = "blank"
+    codes = np.isin(v, list(COM_ERROR_CODES)) if v.min(initial=0) < -2e9 else None
+    if codes is not None and codes.any():
+        c = v[codes].astype(np.int64)
+        reason[codes] = [f"error value {COM_ERROR_CODES[k]} (code {k})" for k in c]
+        v = np.where(codes, np.nan, v)
+    infinite = np.isinf(v)
+    if infinite.any():
+        _raise_first(pd.Series(infinite, index=col.index), col, "is not a finite number. "
+                     "Enter a number or leave the cell blank.", name)
+    return pd.Series(v, index=col.index), reason
+
+
 def parse_number_text(text: pd.Series) -> pd.Series:
-    """Numbers as a user types them: '1,250', '$350,000', ' 12.5 ', '12.5%', '(1,200)'.
-    Returns floats, NaN where the text is not a number in one of these forms."""
-    t = text.astype(str).str.strip().str.replace("\u2212", "-", regex=False)
-    upper = t.str.upper()
-    booleans = upper.map({"TRUE": 1.0, "FALSE": 0.0})
-    paren = t.str.fullmatch(r"\(.*\)")
-    t = t.where(~paren, t.str.slice(1, -1).str.strip())
-    minus = t.str.startswith("-")
-    t = t.where(~minus, t.str.slice(1))
-    t = t.str.replace(r"^[\$€£¥]\s*", "", regex=True).str.strip()
-    pct = t.str.endswith("%")
-    t = t.where(~pct, t.str.slice(0, -1).str.strip())
-    ok = t.str.fullmatch(_NUMBER_TEXT) & t.str.contains(r"\d")
-    num = pd.to_numeric(t.where(ok).str.replace(",", "", regex=False), errors="coerce")
-    num = num.where(~pct, num / 100.0).where(~(paren | minus), -num)
-    bad_sign = paren & minus      # "(-5)" is not something a user means
-    num = num.where(~bad_sign)
-    return num.fillna(booleans).astype(float)
+    """Numbers as a user types them: '1,250', '$350,000', ' 12.5 ', '12.5%', '(1,200)',
+    '-$5', '+5', 'TRUE'/'FALSE' (1/0). Returns floats, NaN where the text is not a
+    number in one of these forms."""
+    t = text.astype(str).str.strip()
+    # Fast path: plain numbers ('1250', '12.5', '1e3'); anything odd goes through the rules.
+    fast = pd.to_numeric(t, errors="coerce").astype(float)
+    done = np.isfinite(fast.to_numpy())
+    if done.all():
+        return fast
+    out = fast.where(done)
+    rest = t[~done].str.replace("\u2212", "-", regex=False).str.replace("\u00a0", " ",
+                                                                         regex=False)
+    paren = rest.str.fullmatch(r"\(.*\)").fillna(False).astype(bool)
+    inner = rest.where(~paren, rest.str.slice(1, -1).str.strip())
+    parts = inner.str.extract(_NUMBER_RE)
+    s1, s2 = parts["s1"].fillna(""), parts["s2"].fillna("")
+    signs = s1.str.len() + s2.str.len()
+    num = pd.to_numeric(parts["num"].str.replace(",", "", regex=False), errors="coerce")
+    num = num.astype(float).where(parts["pct"].isna(), num / 100.0)
+    negative = paren | s1.eq("-") | s2.eq("-")
+    num = num.where(~negative, -num)
+    # '(-5)', '+-5' and '-$-5' are not something a user means.
+    num = num.where(~((paren & (signs > 0)) | (signs > 1)))
+    booleans = rest.str.upper().map({"TRUE": 1.0, "FALSE": 0.0}).astype(float)
+    out[~done] = num.fillna(booleans).to_numpy()
+    return out.astype(float)
 
 
 def to_labels(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
-    """Cells → category labels (text); 3.0 becomes '3', TRUE becomes 'TRUE'."""
-    reason, present = _missing_reasons(col)
-    kinds = col.map(type)
+    """Cells → category labels (text); 3.0 becomes '3', TRUE becomes 'TRUE',
+    a date becomes YYYY-MM-DD. Text is trimmed; case is kept."""
+    kinds = cell_kinds(col)
+    reason, present = _missing_reasons(col, kinds)
     labels = pd.Series(np.nan, index=col.index, dtype=object)
-    is_text = present & kinds.eq(str)
-    labels[is_text] = col[is_text].astype(str).str.strip()
-    is_bool = present & kinds.isin([bool, np.bool_])
-    labels[is_bool] = col[is_bool].map({True: "TRUE", False: "FALSE"})
-    is_num = present & ~is_text & ~is_bool & kinds.isin([int, float, np.int64, np.float64])
-    if is_num.any():
-        nums = pd.to_numeric(col[is_num]).astype(float)
-        whole = nums == np.round(nums)
-        as_text = nums.astype(str)
-        as_text[whole] = nums[whole].astype(np.int64).astype(str)
-        labels[is_num] = as_text
+    text = present & kinds.eq(TEXT)
+    if text.any():
+        labels[text] = col[text].astype(str).str.split().str.join(" ").to_numpy()
+    boo = present & kinds.eq(BOOL)
+    if boo.any():
+        labels[boo] = col[boo].astype(bool).map({True: "TRUE", False: "FALSE"}).to_numpy()
+    num = present & kinds.eq(NUMBER)
+    if num.any():
+        nums = _numbers_of(col[num])
+        whole = (np.isfinite(nums) & (nums == np.round(nums)) & (nums.abs() < 2 ** 53)).to_numpy()
+        as_text = nums.astype(str).to_numpy(dtype=object)
+        as_text[whole] = nums[whole].astype(np.int64).astype(str).to_numpy(dtype=object)
+        labels[num] = as_text
+    dates = present & kinds.eq(DATE)
+    if dates.any():
+        stamps = pd.to_datetime(col[dates], errors="coerce", utc=True)
+        labels[dates] = stamps.dt.strftime("%Y-%m-%d").to_numpy(dtype=object)
     rest = present & labels.isna()
     if rest.any():
-        labels[rest] = col[rest].astype(str)
+        labels[rest] = col[rest].astype(str).to_numpy()
     return labels, reason
 
 
+def _serial_dates(serial: pd.Series) -> pd.Series:
+    """Spreadsheet serial numbers → timestamps (NaT outside 1..9999-12-31).
+    Serials below 60 are shifted a day: the 1900 system counts a 29 Feb 1900."""
+    s = serial.astype(float)
+    good = (s >= 1) & (s < _MAX_SERIAL) & ~((s >= 60) & (s < 61))
+    s = s.where(good)
+    s = s.where(s >= 61, s + 1)
+    days = s.to_numpy()
+    stamps = np.full(len(s), np.datetime64("NaT"), dtype="datetime64[ns]")
+    ok = np.isfinite(days)
+    # Serials span 1900..9999; datetime64[ns] ends in 2262, so compute in seconds first.
+    secs = np.round(days[ok] * 86400.0).astype(np.int64)
+    limit = (_LATEST - _EXCEL_EPOCH).total_seconds()
+    fits = secs < limit
+    idx = np.flatnonzero(ok)[fits]
+    stamps[idx] = (np.datetime64(_EXCEL_EPOCH.to_datetime64(), "s")
+                   + secs[fits].astype("timedelta64[s]")).astype("datetime64[ns]")
+    return pd.Series(stamps, index=serial.index)
+
+
 def to_dates(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
-    """Cells → datetime64: date cells, spreadsheet serial numbers, or ISO text."""
-    if col.dtype.kind == "M":
-        values = col.dt.tz_localize(None) if getattr(col.dt, "tz", None) else col
-        return values.astype("datetime64[ns]"), pd.Series(
-            np.where(col.isna(), "blank", None), index=col.index).where(col.isna())
-    reason, present = _missing_reasons(col)
-    kinds = col.map(type)
+    """Cells → datetime64[ns]: date cells, spreadsheet serial numbers, or ISO text."""
+    if isinstance(col.dtype, pd.DatetimeTZDtype):
+        col = col.dt.tz_localize(None)
+    kinds = cell_kinds(col)
+    reason, present = _missing_reasons(col, kinds)
     out = pd.Series(pd.NaT, index=col.index, dtype="datetime64[ns]")
-    is_num = present & kinds.isin([int, float, np.int64, np.float64])
-    if is_num.any():
-        serial = pd.to_numeric(col[is_num]).astype(float)
-        good = (serial >= 1) & (serial < 2958466)
-        out[serial[good].index] = _EXCEL_EPOCH + pd.to_timedelta(serial[good], unit="D")
-    is_other = present & ~is_num & ~kinds.isin([bool, np.bool_])
-    if is_other.any():
-        vals = col[is_other]
-        as_text = vals.map(lambda v: v.strip() if isinstance(v, str) else v)
-        parsed = pd.to_datetime(as_text, format="ISO8601", errors="coerce")
-        if getattr(parsed.dt, "tz", None) is not None:
-            parsed = parsed.dt.tz_localize(None)
-        out[is_other] = parsed.astype("datetime64[ns]")
+    num = present & kinds.eq(NUMBER)
+    if num.any():
+        out[num] = _serial_dates(_numbers_of(col[num])).to_numpy()
+    text = present & kinds.eq(TEXT)
+    if text.any():
+        t = col[text].astype(str).str.strip()
+        serial = pd.to_numeric(t, errors="coerce")
+        is_serial = serial.notna().to_numpy()
+        if is_serial.any():
+            out[t.index[is_serial]] = _serial_dates(serial[is_serial]).to_numpy()
+        if (~is_serial).any():
+            out[t.index[~is_serial]] = _iso_dates(t[~is_serial]).to_numpy()
+    dates = present & kinds.eq(DATE)
+    if dates.any():
+        out[dates] = _iso_dates(col[dates]).to_numpy()
     bad = present & out.isna()
     if bad.any():
-        row = bad.idxmax()
-        raise IntakeError(f"Column '{name}', row {row}: '{col[row]}' is not a date. Enter a date "
-                          "cell or text as YYYY-MM-DD.", column=name, row=int(row))
+        _raise_first(bad, col, "is not a date. Enter a date cell or text as YYYY-MM-DD.", name)
     return out, reason
+
+
+def _iso_dates(values: pd.Series) -> pd.Series:
+    """Date objects or ISO text → naive datetime64[ns]; NaT where unusable."""
+    try:
+        if values.map(type).eq(str).all():
+            parsed = pd.to_datetime(values, format="ISO8601", errors="coerce", utc=True)
+        else:
+            parsed = pd.to_datetime(values, errors="coerce", utc=True)
+    except (ValueError, TypeError, OverflowError):
+        return pd.Series(pd.NaT, index=values.index, dtype="datetime64[ns]")
+    parsed = parsed.dt.tz_localize(None)
+    inside = (parsed >= _EARLIEST) & (parsed <= _LATEST)
+    return parsed.where(inside).astype("datetime64[ns]")

@@ -41,6 +41,17 @@ class FittedModel:
         return influence(self.fit)
 
     @cached_property
+    def residual_moments(self) -> tuple[float, float]:
+        """(skewness, Pearson kurtosis) of the residuals with biased moments
+        (the form Jarque–Bera uses); computed once for every check that reads them."""
+        d = self.fit.resid - self.fit.resid.mean()
+        d2 = d * d
+        m2 = float(np.mean(d2))
+        if m2 == 0:
+            return float("nan"), float("nan")
+        return float(np.mean(d2 * d) / m2 ** 1.5), float(np.mean(d2 * d2) / m2 ** 2)
+
+    @cached_property
     def cov(self) -> np.ndarray:
         """The covariance used for inference: classical, or HC1/HC3 when asked."""
         if self.robust_se:

@@ -16,7 +16,7 @@ import numpy as np
 
 from .errors import FitError, quote_list
 
-_CHUNK = 1 << 16  # rows per block for the extended-precision residual
+_CHUNK = 1 << 13  # rows per block for the extended-precision passes (fits in cache)
 
 
 @dataclass(frozen=True)
@@ -50,7 +50,12 @@ class OLSFit:
     x_means: np.ndarray
     x_norms: np.ndarray
     vif: np.ndarray
+    # σmax/σmin of the design plumbrule factors: predictors centred (with an
+    # intercept) and scaled to unit length. Centring is deliberate: an intercept's
+    # near-dependence on positive predictors (log of area, say) says nothing about
+    # the estimates users read.
     cond_number: float
+    qty: np.ndarray | None = None   # Qᵀ(y − ȳ), pivoted order: the response in working units
 
     @property
     def r_squared(self) -> float:
@@ -68,6 +73,26 @@ class OLSFit:
         meat = _weighted_gram(self.q, w, self.has_intercept)
         lmat = self._coef_map()
         return lmat @ meat @ lmat.T
+
+    def predictor_correlations(self) -> np.ndarray | None:
+        """Pearson correlations of the predictors (k × k, input order), read off
+        the triangular factor: the centred unit-length design Xs has XsᵀXs = P RᵀR Pᵀ,
+        so no pass over the data. None without an intercept (Xs is not centred)."""
+        if not self.has_intercept:
+            return None
+        g = np.empty((self.r.shape[1],) * 2)
+        g[np.ix_(self.pivot, self.pivot)] = self.r.T @ self.r
+        np.fill_diagonal(g, 1.0)
+        return g
+
+    def response_correlations(self) -> np.ndarray | None:
+        """Correlation of the response with each predictor (input order):
+        Xsᵀ(y − ȳ)/‖y − ȳ‖ = P Rᵀ Qᵀ(y − ȳ)/‖y − ȳ‖. None without an intercept."""
+        if not self.has_intercept or self.qty is None or not self.tss > 0:
+            return None
+        out = np.empty(self.r.shape[1])
+        out[self.pivot] = self.r.T @ self.qty / np.sqrt(self.tss)
+        return out
 
     def _coef_map(self) -> np.ndarray:
         """L with cov(coef) = L · cov(working θ·R) · L' (see module doc)."""
@@ -99,30 +124,36 @@ def fit_ols(x: np.ndarray, y: np.ndarray, names: list[str],
     norms = np.sqrt(np.einsum("ij,ij->j", xs, xs))
     _check_constant_columns(norms, names, intercept)
     xs /= norms
-    q, r, piv = _qr(xs)
-    _check_rank(r, piv, x, means, norms, names, intercept)
+    q, r, piv = _qr(xs)      # xs is overwritten: Q takes its place, no second n × k buffer
+    del xs
+    svals = _singular_values(r)
+    _check_rank(svals, x, means, norms, names, intercept)
 
     y_mean = float(np.mean(y)) if intercept else 0.0
-    theta = _solve_r(r, q.T @ (y - y_mean))            # working coefficients (pivoted)
+    qty = q.T @ (y - y_mean)
+    theta = _solve_r(r, qty)                          # working coefficients (pivoted)
     b = np.empty(k)
     b[piv] = theta
     b /= norms
-    b, c, res_ext = _refine(x, y, means, norms, q, r, piv, b, y_mean, intercept)
+    b_ext, c_ext, res_ext = _refine(x, y, means, norms, q, r, piv, b, y_mean, intercept)
     resid = res_ext.astype(float)
-    b0 = float(np.longdouble(c) - np.dot(means.astype(np.longdouble), b.astype(np.longdouble)))
+    b = b_ext.astype(float)
+    # The intercept is a difference of large numbers (ȳ − x̄·b): form it from the
+    # extended-precision slopes and constant so the cancellation costs no digits.
+    b0 = float(c_ext - np.dot(means.astype(np.longdouble), b_ext))
     coef = np.concatenate([[b0], b]) if intercept else b
 
     df_resid = n - n_params
     ssr = float(np.dot(resid, resid))
-    tss = float(np.sum((y - y_mean) ** 2)) if intercept else float(np.dot(y, y))
+    tss = float(np.dot(y - y_mean, y - y_mean)) if intercept else float(np.dot(y, y))
     sigma = float(np.sqrt(ssr / df_resid))
-    lmat = _coef_map(r, piv, means, norms, n, intercept)
+    rinv = _rinv_unpivoted(r, piv)
+    lmat = _coef_map(r, piv, means, norms, n, intercept, rinv)
     cov = sigma ** 2 * (lmat @ lmat.T)
     se = sigma * np.sqrt(np.einsum("ij,ij->i", lmat, lmat))
     leverage = np.einsum("ij,ij->i", q, q)
     if intercept:
         leverage += 1.0 / n
-    rinv = _rinv_unpivoted(r, piv)
     vif = np.einsum("ij,ij->i", rinv, rinv) if intercept else np.full(k, np.nan)
     all_names = (("intercept",) if intercept else ()) + tuple(names)
     return OLSFit(
@@ -130,7 +161,8 @@ def fit_ols(x: np.ndarray, y: np.ndarray, names: list[str],
         leverage=leverage, n=n, n_params=n_params, df_resid=df_resid, ssr=ssr,
         tss=tss, sigma=sigma, has_intercept=intercept, q=q, r=r, pivot=piv,
         x_means=means, x_norms=norms, vif=vif,
-        cond_number=_condition_number(r))
+        cond_number=float(svals[0] / svals[-1]) if svals[-1] > 0 else float("inf"),
+        qty=qty)
 
 
 # --- pieces ---------------------------------------------------------------
@@ -140,10 +172,21 @@ def _column_means(x: np.ndarray) -> np.ndarray:
 
 
 def _qr(xs: np.ndarray):
+    """Householder QR of the (Fortran-ordered) working design, in place.
+
+    Columns are centred and unit length, so no pivoting is needed for accuracy
+    (Householder QR is backward stable, Björck 1996 §2.4); rank is judged from
+    the singular values of R, which is sharper than pivoted diagonals. Returns
+    (Q, R, pivot) with the identity pivot, kept so callers need not care.
+    """
     from scipy.linalg import qr
-    q, r, piv = qr(xs, mode="economic", pivoting=True, overwrite_a=True,
-                   check_finite=False)
-    return q, r, piv
+    q, r = qr(xs, mode="economic", overwrite_a=True, check_finite=False)
+    return q, r, np.arange(xs.shape[1])
+
+
+def _singular_values(r: np.ndarray) -> np.ndarray:
+    from scipy.linalg import svdvals
+    return svdvals(r, check_finite=False) if r.size else np.ones(1)
 
 
 def _solve_r(r: np.ndarray, rhs: np.ndarray) -> np.ndarray:
@@ -160,13 +203,14 @@ def _rinv_unpivoted(r: np.ndarray, piv: np.ndarray) -> np.ndarray:
     return out
 
 
-def _coef_map(r, piv, means, norms, n, intercept) -> np.ndarray:
+def _coef_map(r, piv, means, norms, n, intercept, rinv=None) -> np.ndarray:
     """L such that cov(coef) = σ² L Lᵀ; rows follow the coefficient order.
 
     In working coordinates the design is [1/√n, X_s] with R_full = diag(1, R),
     and coef = T·θ with T mapping the centred, scaled fit back to user units.
     """
-    rows = _rinv_unpivoted(r, piv) / norms[:, None]   # slope rows: D⁻¹ P R⁻¹
+    rinv = _rinv_unpivoted(r, piv) if rinv is None else rinv
+    rows = rinv / norms[:, None]                      # slope rows: D⁻¹ P R⁻¹
     if not intercept:
         return rows
     k = r.shape[0]
@@ -194,18 +238,49 @@ def _weighted_gram(q: np.ndarray, w: np.ndarray, intercept: bool) -> np.ndarray:
     return g
 
 
-def _residual_ext(x, y, means, b, c, keep_ext=False):
+def _blocks(n: int):
+    for start in range(0, n, _CHUNK):
+        yield slice(start, min(start + _CHUNK, n))
+
+
+def _residual_ext(x, y, means, b, c):
     """y − c − (x − means)·b accumulated in extended precision, block by block."""
     ld = np.longdouble
-    bl = b.astype(ld)
-    ml = means.astype(ld)
-    cl = ld(c)
-    out = np.empty(len(y), dtype=ld if keep_ext else float)
-    for start in range(0, len(y), _CHUNK):
-        xb = x[start:start + _CHUNK].astype(ld)
+    bl, ml, cl = np.asarray(b, dtype=ld), means.astype(ld), ld(c)
+    out = np.empty(len(y), dtype=ld)
+    for blk in _blocks(len(y)):
+        xb = x[blk].astype(ld)
         xb -= ml
-        out[start:start + _CHUNK] = y[start:start + _CHUNK].astype(ld) - cl - xb @ bl
+        out[blk] = y[blk] - cl - np.einsum("ij,j->i", xb, bl)
     return out
+
+
+def _residual_and_gradient(x, y, means, b, c):
+    """(r, (x − means)ᵀ r) with r = y − c − (x − means)·b, both in extended
+    precision, in one pass: each block of x is widened once and used twice."""
+    ld = np.longdouble
+    bl, ml, cl = np.asarray(b, dtype=ld), means.astype(ld), ld(c)
+    out = np.empty(len(y), dtype=ld)
+    acc = np.zeros(x.shape[1], dtype=ld)
+    for blk in _blocks(len(y)):
+        xb = x[blk].astype(ld)
+        xb -= ml
+        rb = y[blk] - cl - np.einsum("ij,j->i", xb, bl)
+        out[blk] = rb
+        acc += np.einsum("i,ij->j", rb, xb)
+    return out, acc
+
+
+def _xt_times(x, means, v):
+    """(x − means)ᵀ v in extended precision, block by block."""
+    ld = np.longdouble
+    ml = means.astype(ld)
+    acc = np.zeros(x.shape[1], dtype=ld)
+    for blk in _blocks(x.shape[0]):
+        xb = x[blk].astype(ld)
+        xb -= ml
+        acc += np.einsum("i,ij->j", v[blk], xb)
+    return acc
 
 
 def _refine(x, y, means, norms, q, r, piv, b, c, intercept, steps=1):
@@ -214,37 +289,41 @@ def _refine(x, y, means, norms, q, r, piv, b, c, intercept, steps=1):
 
     Refining the residual together with the coefficients removes the κ²·‖r‖
     term that plain refinement leaves on large-residual problems.
-    Returns (b, c, residual) with the residual in extended precision.
+    Returns (b, c, residual), all in extended precision: the slopes and the
+    constant keep the digits the correction adds beyond double precision.
     """
     from scipy.linalg import solve_triangular
     ld = np.longdouble
-    res = _residual_ext(x, y, means, b, c, keep_ext=True)
-    for _ in range(steps):
-        f = _residual_ext(x, y, means, b, c, keep_ext=True) - res
-        g = -_xt_times(x, means, res)[piv] / norms[piv]      # −Aᵀr in working units
-        f0 = float(np.sum(f)) / len(y) if intercept else 0.0
+    n = len(y)
+    b = np.asarray(b, dtype=ld)
+    c = ld(c)
+    res = None
+    for step in range(steps):
+        if res is None:
+            # First step: r is formed from θ, so f = y − r − Aθ is exactly zero
+            # and Aᵀr comes out of the same pass over the data.
+            res, xtr = _residual_and_gradient(x, y, means, b, c)
+            f = np.zeros(n, dtype=ld)
+        else:
+            f = _residual_ext(x, y, means, b, c) - res
+            xtr = _xt_times(x, means, res)
+        g = -xtr[piv] / norms[piv]                          # −Aᵀr in working units
         u = solve_triangular(r, g.astype(float), trans="T", check_finite=False)
-        fd = (f - ld(f0)).astype(float)
-        v = q.T @ fd - u
+        if intercept:
+            # The constant column 1/√n has its own equation 1ᵀr = 0: the rounding in
+            # ȳ and in the column means leaves Σr ≠ 0, which moves the constant.
+            f_mean = np.sum(f) / n
+            shift = f_mean + np.sum(res) / n
+        else:
+            f_mean = shift = ld(0)
+        v = (q.T @ (f - f_mean).astype(float) - u) if step else -u
         d_theta = _solve_r(r, v)
-        db = np.empty_like(b)
+        db = np.empty(len(b))
         db[piv] = d_theta
-        b = b + db / norms
-        c = c + f0
-        res = res + (f - ld(f0)) - (q @ v).astype(ld)
+        b = b + (db / norms).astype(ld)
+        c = c + shift
+        res = res + (f - shift) - (q @ v).astype(ld)
     return b, c, res
-
-
-def _xt_times(x, means, v):
-    """(x − means)ᵀ v in extended precision, block by block."""
-    ld = np.longdouble
-    ml = means.astype(ld)
-    acc = np.zeros(x.shape[1], dtype=ld)
-    for start in range(0, x.shape[0], _CHUNK):
-        xb = x[start:start + _CHUNK].astype(ld)
-        xb -= ml
-        acc += v[start:start + _CHUNK] @ xb
-    return acc
 
 
 def _rank_tolerance(n: int, k: int) -> float:
@@ -264,10 +343,11 @@ def _check_constant_columns(norms, names, intercept) -> None:
                    "predictors.", column=zero[0])
 
 
-def _check_rank(r, piv, x, means, norms, names, intercept) -> None:
-    diag = np.abs(np.diag(r))
+def _check_rank(svals, x, means, norms, names, intercept) -> None:
+    """σmin/σmax of the unit-length working design below the tolerance means a
+    column is (to working precision) an exact combination of the others."""
     tol = _rank_tolerance(x.shape[0], x.shape[1])
-    if diag.size == 0 or diag.min() > tol * diag.max():
+    if svals.size == 0 or svals[-1] > tol * svals[0]:
         return
     raise _name_dependency(x, means, norms, names, tol)
 
@@ -291,11 +371,3 @@ def _name_dependency(x, means, norms, names, tol) -> FitError:
     return FitError("The predictors are exactly collinear. Remove a redundant predictor.")
 
 
-def _condition_number(r) -> float:
-    """Condition number of the design plumbrule factors: the predictors centred
-    (when there is an intercept) and scaled to unit length, i.e. σmax/σmin of R.
-    Centring is deliberate: an intercept's near-dependence on positive
-    predictors (log of area, say) says nothing about the estimates users read."""
-    from scipy.linalg import svdvals
-    s = svdvals(r)
-    return float(s[0] / s[-1]) if s[-1] > 0 else float("inf")

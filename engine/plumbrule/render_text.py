@@ -1,74 +1,206 @@
-"""Analysis tables → readable text for the terminal, in plumbrule's own layout."""
+"""Analysis tables → readable text for the terminal, in plumbrule's own layout.
+
+Written for an appraiser reading the result: each effect is also said in words
+("+14.1 % vs Average", "+123 per unit"), the checks that need attention carry
+their plain sentence, and every left-out row is listed by its sheet row. The
+engine's tables are not rounded; only this writer formats numbers.
+"""
 
 from __future__ import annotations
 
 import math
 
+import numpy as np
 import pandas as pd
+
+CAUTION = ("A statistical estimate, not an appraisal: the licensed appraiser's judgement, "
+           "professional standards such as USPAP, and local rules govern any opinion of value.")
 
 
 def _num(v) -> str:
+    """A number for reading: thousands separators, about four significant digits."""
     if isinstance(v, str):
         return v
-    if v is None or (isinstance(v, float) and not math.isfinite(v)):
-        return ""
-    if isinstance(v, (int,)) or (hasattr(v, "is_integer") and float(v).is_integer()
-                                 and abs(v) < 1e15 and not isinstance(v, float)):
-        return f"{int(v):,}"
-    v = float(v)
+    if v is None or isinstance(v, (bool, np.bool_)):
+        return "" if v is None else str(v)
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return str(v)
+    if not math.isfinite(v):
+        return "" if v != v else ("inf" if v > 0 else "-inf")
     if v == 0:
         return "0"
-    if abs(v) >= 1e5 or abs(v) < 1e-3:
-        return f"{v:.4g}"
-    return f"{v:,.4g}" if abs(v) < 1000 else f"{v:,.1f}"
+    if v.is_integer() and abs(v) < 1e15:
+        return f"{int(v):,}"
+    a = abs(v)
+    if a >= 1e9 or a < 1e-4:
+        return f"{v:.3e}"
+    if a >= 1000:
+        return f"{v:,.0f}"
+    return f"{v:.4g}"
 
 
-def grid(frame: pd.DataFrame, columns=None, headers=None, limit: int | None = None) -> str:
+def _p(v) -> str:
+    if v is None or not isinstance(v, (int, float, np.floating)) or not math.isfinite(v):
+        return ""
+    return "< 0.001" if v < 0.001 else f"{v:.3f}"
+
+
+def _signed_pct(x: float) -> str:
+    return f"{x:+.2f} %" if abs(x) < 10 else f"{x:+.1f} %"
+
+
+def grid(frame: pd.DataFrame, columns=None, headers=None, limit: int | None = None,
+         formats: dict | None = None, indent: str = "  ") -> str:
     """A plain aligned grid: text left, numbers right, two spaces between columns."""
     columns = list(columns or frame.columns)
     headers = list(headers or columns)
+    formats = formats or {}
     rows = frame[columns].head(limit) if limit else frame[columns]
-    cells = [[_num(v) for v in r] for r in rows.itertuples(index=False, name=None)]
+    cells = [[formats.get(c, _num)(v) for c, v in zip(columns, r)]
+             for r in rows.itertuples(index=False, name=None)]
     widths = [max([len(h)] + [len(r[i]) for r in cells]) for i, h in enumerate(headers)]
     numeric = [frame[c].dtype.kind in "fiu" for c in columns]
+
     def line(vals):
-        return "  ".join(v.rjust(w) if isnum else v.ljust(w)
-                         for v, w, isnum in zip(vals, widths, numeric)).rstrip()
-    out = [line(headers), line(["-" * w for w in widths])] + [line(r) for r in cells]
+        return indent + "  ".join(v.rjust(w) if isnum else v.ljust(w)
+                                  for v, w, isnum in zip(vals, widths, numeric)).rstrip()
+    out = [line(headers), indent + "  ".join("-" * w for w in widths)] + [line(r) for r in cells]
     if limit and len(frame) > limit:
-        out.append(f"... {len(frame) - limit} more")
+        out.append(f"{indent}... and {len(frame) - limit} more")
     return "\n".join(out)
 
 
+def effect_words(result) -> list[str]:
+    """Each coefficient said in words, on the price scale where it has one."""
+    coefs = result.tables["coefficients"]
+    enc = result.encoding
+    terms = {t.name: t for t in enc.terms}
+    log_y = enc.spec.log_response
+    refs = dict(enc.levels)
+    out = []
+    for name, b in zip(coefs["term"], coefs["estimate"]):
+        t = terms.get(name)
+        if t is None or not math.isfinite(b):
+            out.append("")
+            continue
+        if t.kind == "level":
+            vs = f"vs {refs[t.column][0]}"
+            out.append(f"{_signed_pct(100 * math.expm1(b))} {vs}" if log_y
+                       else f"{b:+,.0f} {vs}" if abs(b) >= 100 else f"{b:+.4g} {vs}")
+        elif t.kind == "log":
+            out.append(f"{b:+.3f} % per 1 % more" if log_y else f"{b / 100:+,.4g} per 1 % more")
+        else:
+            unit = "per month" if t.kind == "trend" else "per unit"
+            out.append(f"{_signed_pct(100 * math.expm1(b))} {unit}" if log_y
+                       else f"{b:+,.0f} {unit}" if abs(b) >= 100 else f"{b:+.4g} {unit}")
+    return out
+
+
+def _header(result) -> list[str]:
+    fit = result.tables["fit"].iloc[0]
+    enc = result.encoding
+    lines = [f"plumbrule  hedonic model of {enc.response_name}"]
+    facts = [f"{int(fit['n_used']):,} sales used", f"{int(fit['n_dropped']):,} rows left out "
+             "(missing values)"]
+    if "n_screened" in fit and int(fit["n_screened"]):
+        facts.append(f"{int(fit['n_screened']):,} set aside by screening")
+    if "n_holdout" in fit and int(fit["n_holdout"]):
+        facts.append(f"{int(fit['n_holdout']):,} held out for testing")
+    facts.append(f"{int(fit['n_params'])} coefficients")
+    lines.append("  " + " | ".join(facts))
+    if enc.levels:
+        lines.append("  reference levels: " + "; ".join(f"{c} = {lv[0]}" for c, lv in enc.levels))
+    if enc.date_origin is not None:
+        lines.append(f"  market trend counted in months from the earliest sale, "
+                     f"{enc.date_origin.date().isoformat()}")
+    return lines
+
+
+def _fit_block(result) -> list[str]:
+    fit = result.tables["fit"].iloc[0]
+    log_y = result.encoding.spec.log_response
+    sigma = float(fit["resid_std_error"])
+    if log_y:
+        spread = (f"{_num(sigma)} on the log scale: a typical sale lies within about "
+                  f"{100 * math.expm1(sigma):.1f} % of the model")
+    else:
+        spread = f"{_num(sigma)}: a typical sale lies within about this amount of the model"
+    rows = [
+        ("R²", f"{fit['r_squared']:.4f}   (adjusted {fit['adj_r_squared']:.4f})"),
+        ("F statistic", f"{_num(fit['f_stat'])}   (p {_p(fit['f_p_value'])})"),
+        ("residual std error", spread),
+        ("mean absolute % error", f"{fit['mape']:.2f} % of the sale price"
+         if math.isfinite(fit["mape"]) else "n/a (a price of 0)"),
+        ("AIC / BIC", f"{_num(fit['aic'])} / {_num(fit['bic'])}"),
+        ("standard errors", str(fit.get("se_type", "classical"))),
+    ]
+    w = max(len(k) for k, _ in rows)
+    return ["How well the model fits"] + [f"  {k.ljust(w)}  {v}" for k, v in rows]
+
+
+def _effects_block(result) -> list[str]:
+    coefs = result.tables["coefficients"].copy()
+    level = int(round(100 * result.model.confidence))
+    coefs["interval"] = [f"{_num(lo)} to {_num(hi)}" for lo, hi in
+                         zip(coefs["ci_low"], coefs["ci_high"])]
+    coefs["meaning"] = effect_words(result)
+    cols = ["term", "estimate", "std_error", "t", "p_value", "interval", "std_beta", "vif",
+            "meaning"]
+    heads = ["term", "estimate", "std error", "t", "p", f"{level} % interval", "beta", "VIF",
+             "in words"]
+    return ["Effects on " + result.encoding.response_name,
+            grid(coefs, cols, heads, formats={"p_value": _p})]
+
+
+def _checks_block(result) -> list[str]:
+    checks = result.tables["checks"]
+    out = ["Checks of the model",
+           grid(checks, ["verdict", "check", "statistic", "p_value", "threshold"],
+                ["verdict", "check", "value", "p", "flagged when"], formats={"p_value": _p})]
+    attention = checks[checks["verdict"].isin(["watch", "fails"])]
+    if len(attention):
+        out += ["", "What needs attention"]
+        out += [f"  - {c}: {n}" for c, n in zip(attention["check"], attention["note"])]
+    return out
+
+
+def _dropped_block(result, limit: int = 20) -> list[str]:
+    d = result.tables["dropped_rows"]
+    if not len(d):
+        return []
+    return ["Rows left out for missing values (sheet rows)",
+            grid(d, ["row", "column", "reason"], ["row", "column", "reason"], limit=limit)]
+
+
+_OTHER = {
+    "screen_log": ("Sales set aside by screening", ["row", "rule", "reason"]),
+    "validation": ("Validation", ["set", "n", "r_squared", "rmse", "mae", "mape", "note"]),
+    "ratio_study": ("Sales-ratio study", ["sample", "stratum", "n", "median_ratio", "cod", "prd",
+                                          "prb", "median_verdict", "cod_verdict", "prd_verdict",
+                                          "prb_verdict"]),
+}
+
+
+def _other_blocks(result) -> list[str]:
+    out = []
+    for name, (title, cols) in _OTHER.items():
+        t = result.tables.get(name)
+        if t is None or not len(t):
+            continue
+        cols = [c for c in cols if c in t.columns] or list(t.columns)
+        out += ["", title, grid(t, cols, limit=30)]
+    return out
+
+
 def render_analysis(result) -> str:
-    t = result.tables
-    fit = t["fit"].iloc[0]
-    parts = []
-    parts.append(f"plumbrule model of {fit['response']} on {int(fit['n_params'])} parameters, "
-                 f"{int(fit['n_used']):,} sales used, {int(fit['n_dropped']):,} rows dropped")
-    parts.append("")
-    parts.append(f"R-squared {fit['r_squared']:.4f} (adjusted {fit['adj_r_squared']:.4f}); "
-                 f"typical error {_num(fit['resid_std_error'])}; mean absolute % error "
-                 f"{_num(fit['mape'])}%; standard errors: {fit['se_type']}")
-    parts.append("")
-    parts.append("Effects")
-    parts.append(grid(t["coefficients"], ["term", "estimate", "std_error", "p_value", "ci_low",
-                                          "ci_high", "std_beta", "vif"],
-                      ["term", "effect", "std error", "p", "low", "high", "beta", "VIF"]))
-    parts.append("")
-    parts.append("Checks")
-    parts.append(grid(t["checks"], ["verdict", "check", "statistic", "p_value"],
-                      ["verdict", "check", "value", "p"]))
-    for name in ("screen_log", "validation", "ratio_study"):
-        if name in t and len(t[name]):
-            parts.append("")
-            parts.append(name.replace("_", " ").capitalize())
-            parts.append(grid(t[name], limit=30))
-    if len(t["dropped_rows"]):
-        parts.append("")
-        parts.append("Rows dropped for missing values")
-        parts.append(grid(t["dropped_rows"], limit=20))
-    parts.append("")
-    parts.append("A statistical estimate, not an appraisal: the licensed appraiser's judgement, "
-                 "USPAP and local rules govern.")
+    """The whole analysis as text (what ``plumbrule fit`` prints)."""
+    parts = _header(result) + [""] + _fit_block(result) + [""] + _effects_block(result)
+    parts += [""] + _checks_block(result)
+    dropped = _dropped_block(result)
+    if dropped:
+        parts += [""] + dropped
+    parts += _other_blocks(result)
+    parts += ["", CAUTION]
     return "\n".join(parts)

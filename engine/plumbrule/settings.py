@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import difflib
+import math
 from dataclasses import dataclass, field, fields
 from typing import Any, Mapping
 
@@ -74,7 +75,7 @@ REGISTRY: dict[str, Setting] = {s.name: s for s in [
        "Hold out the most recent sales by the date column instead of a random share.",
        group="validate"),
     _s("seed", "int", 20240601, "Seed for the random holdout and folds (same seed, same split).",
-       group="validate"),
+       group="validate", low=0),
     _s("folds", "int", 5, "Folds for cross-validation (0 turns it off).", group="validate",
        low=0, high=100),
     _s("ratio_by", "text", None, "Column to stratify the ratio study by (e.g. neighbourhood).",
@@ -97,6 +98,9 @@ REGISTRY: dict[str, Setting] = {s.name: s for s in [
        group="value", low=0.0),
     _s("gross_adjustment_limit", "float", 0.25,
        "Flag a comparable whose gross adjustment exceeds this share.", group="value", low=0.0),
+    # --- the offline workbook ------------------------------------------------
+    _s("backup", "bool", True, "plumbrule run keeps the previous workbook as BOOK.xlsx.bak.",
+       group="workbook"),
 ]}
 
 
@@ -133,6 +137,7 @@ class Settings:
     comp_weights: str = "gross"
     net_adjustment_limit: float = 0.15
     gross_adjustment_limit: float = 0.25
+    backup: bool = True
     extra: tuple = field(default=(), compare=False, repr=False)
 
     def to_dict(self) -> dict[str, Any]:
@@ -226,6 +231,8 @@ def _number(s: Setting, v: Any, cast):
         if isinstance(v, bool):
             raise ValueError
         x = float(str(v).strip().rstrip("%")) / (100 if str(v).strip().endswith("%") else 1)
+        if not math.isfinite(x):
+            raise ValueError
         if cast is int:
             if x != int(x):
                 raise ValueError
@@ -281,7 +288,7 @@ def _rows(s: Setting, v: Any) -> tuple[tuple[int, str], ...]:
             r = float(row.strip())
             if r != int(r) or r < 1:
                 raise ValueError
-        except ValueError:
+        except (ValueError, OverflowError):
             raise SettingError(f"Setting '{s.name}': '{part}' is not a sheet row number. "
                                "Enter row numbers such as 12,40.", setting=s.name) from None
         out.append((int(r), reason.strip()))
@@ -305,6 +312,9 @@ def _date(s: Setting, v: Any) -> _dt.date:
     if isinstance(v, _dt.date):
         return v
     if isinstance(v, (int, float)) and not isinstance(v, bool):
+        if not 1 <= v < 2958466:   # spreadsheet serials of 1900-01-01 .. 9999-12-31
+            raise SettingError(f"Setting '{s.name}': {v} is not a date. Enter YYYY-MM-DD.",
+                               setting=s.name)
         return (_dt.datetime(1899, 12, 30) + _dt.timedelta(days=float(v))).date()
     try:
         return _dt.date.fromisoformat(str(v).strip()[:10])

@@ -49,10 +49,22 @@ def match_column(name: str, columns: Iterable[str], setting: str) -> str:
     folded = [c for c in columns if c.casefold() == name.strip().casefold()]
     if len(folded) == 1:
         return folded[0]
-    close = difflib.get_close_matches(name, columns, n=1, cutoff=0.6)
-    hint = f"Did you mean '{close[0]}'?" if close else f"Columns are: {_short_list(columns)}."
+    close = _closest(name, columns)
+    hint = f"Did you mean '{close}'?" if close else f"Columns are: {_short_list(columns)}."
     raise SpecError(f"Setting '{setting}': there is no column '{name}'. {hint}",
                     setting=setting, column=name)
+
+
+def _closest(name: str, columns: list[str]) -> str | None:
+    """The one header a typo or a shortened name most likely meant, else None."""
+    key = " ".join(name.split()).casefold()
+    folded = {c.casefold(): c for c in columns}
+    close = difflib.get_close_matches(key, list(folded), n=1, cutoff=0.6)
+    if close:
+        return folded[close[0]]
+    # 'Price' for 'Sale price': the name is a whole word of exactly one header.
+    holders = [c for c in columns if key and key in c.casefold().split()]
+    return holders[0] if len(holders) == 1 else None
 
 
 def _short_list(columns: list[str], limit: int = 12) -> str:
@@ -68,6 +80,9 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
                         setting="response")
     response = match_column(settings.response, columns, "response")
     date = match_column(settings.date_column, columns, "date_column") if settings.date_column else None
+    if date is not None and date == response:
+        raise SpecError(f"Setting 'date_column': '{date}' is the response. Name the sale-date "
+                        "column.", setting="date_column", column=date)
     preds = [match_column(p, columns, "predictors") for p in settings.predictors]
     preds = [p for p in dict.fromkeys(preds) if p != date]
     if not preds and not date:

@@ -26,8 +26,13 @@ def coefficient_table(model: FittedModel) -> pd.DataFrame:
         tval = est / se
     p = 2.0 * tdist.sf(np.abs(tval), fit.df_resid)
     q = tdist.ppf(0.5 + model.confidence / 2.0, fit.df_resid)
-    sd_x = np.std(model.x, axis=0, ddof=1)
-    sd_y = float(np.std(model.y, ddof=1))
+    n = fit.n
+    if fit.has_intercept:   # x_norms are the norms of the centred columns: no pass over x
+        sd_x = fit.x_norms / np.sqrt(n - 1)
+        sd_y = float(np.sqrt(fit.tss / (n - 1)))
+    else:
+        sd_x = np.std(model.x, axis=0, ddof=1)
+        sd_y = float(np.std(model.y, ddof=1))
     slopes = est[int(fit.has_intercept):]
     std_beta = slopes * sd_x / sd_y if sd_y > 0 else np.full_like(slopes, np.nan)
     pad = [np.nan] if fit.has_intercept else []
@@ -103,8 +108,18 @@ def residual_table(model: FittedModel) -> pd.DataFrame:
 def correlation_table(model: FittedModel) -> pd.DataFrame:
     """Pearson correlations of the response (model scale) and every design term."""
     names = [model.encoding.response_name] + model.encoding.names
-    with np.errstate(divide="ignore", invalid="ignore"):
-        r = np.corrcoef(np.column_stack([model.y, model.x]), rowvar=False)
+    fit = model.fit
+    rxx, rxy = fit.predictor_correlations(), fit.response_correlations()
+    if rxx is not None and rxy is not None:
+        # From the QR factor and Qᵀy (see OLSFit): no second pass over the design.
+        k = len(rxy)
+        r = np.empty((k + 1, k + 1))
+        r[0, 0] = 1.0
+        r[0, 1:] = r[1:, 0] = rxy
+        r[1:, 1:] = rxx
+    else:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            r = np.corrcoef(np.column_stack([model.y, model.x]), rowvar=False)
     frame = pd.DataFrame(np.atleast_2d(r), columns=names)
     frame.insert(0, "term", names)
     return frame

@@ -1,0 +1,104 @@
+"""One spreadsheet recalculation of 30 plumbrule cells over a 20,000-row sales block,
+beside one full analysis of the same data, measured in the same run.
+
+Each call receives its own copy of the raw cells (fresh objects, as xlwings hands a
+new list of lists to every cell), not a shared object. The mix of cells is what a
+model sheet holds: coefficients, fit, checks, screening log, ratio study and values.
+
+    python benchmarks/recalc.py [--rows 20000] [--repeat 3]
+
+Prints the times and the ratios; the target is recalc / analysis <= 1.5 for the first
+recalculation (one fit, 29 cache hits). Invented Quillford data (demo_data).
+"""
+
+from __future__ import annotations
+
+import argparse
+import pickle
+import statistics
+import time
+
+import numpy as np
+import pandas as pd
+
+from plumbrule import sheet_functions as sf
+from plumbrule.analysis import analyze
+from plumbrule.demo_data import DEMO_SETTINGS, demo_sales, demo_subjects
+
+MIX = (["PLUMB_COEFS"] * 8 + ["PLUMB_FIT"] * 6 + ["PLUMB_CHECKS"] * 5 + ["PLUMB_SCREEN"] * 3
+       + ["PLUMB_RATIOS"] * 3 + ["PLUMB_VALUE"] * 5)
+TARGET = 1.5
+
+
+def sheet_values(frame: pd.DataFrame) -> list[list]:
+    """A frame as the cells Excel hands over: floats, text, datetimes, None."""
+    cols = []
+    for name in frame.columns:
+        s = frame[name]
+        if s.dtype.kind == "M":
+            cols.append([None if pd.isna(v) else v.to_pydatetime() for v in s])
+        elif s.dtype.kind in "fiu":
+            cols.append([None if v != v else float(v) for v in s.to_numpy(dtype=float)])
+        else:
+            cols.append([None if v == "" else v for v in s.tolist()])
+    return [list(frame.columns)] + [list(r) for r in zip(*cols)]
+
+
+def settings_block() -> list[list]:
+    rows = [[k, v] for k, v in DEMO_SETTINGS.items() if k not in ("response", "predictors")]
+    return rows + [["holdout", 0.3], ["trim_percentiles", "1,99"]]
+
+
+def one_recalc(copies, subject, settings) -> float:
+    t0 = time.perf_counter()
+    for name, values in zip(MIX, copies):
+        fn = getattr(sf, name)
+        if name == "PLUMB_VALUE":
+            out = fn(values, DEMO_SETTINGS["response"], DEMO_SETTINGS["predictors"], subject,
+                     settings)
+        else:
+            out = fn(values, DEMO_SETTINGS["response"], DEMO_SETTINGS["predictors"], settings)
+        if isinstance(out, str):
+            raise SystemExit(f"{name} returned an error cell: {out}")
+    return time.perf_counter() - t0
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--rows", type=int, default=20_000)
+    ap.add_argument("--repeat", type=int, default=3)
+    args = ap.parse_args()
+    base = sheet_values(demo_sales(args.rows - 3))
+    subject = sheet_values(demo_subjects())
+    settings = settings_block()
+    analyze(sheet_values(demo_sales(200)), sf.resolve_settings(  # warm imports for both sides
+        DEMO_SETTINGS["response"], DEMO_SETTINGS["predictors"], settings))
+    blob = pickle.dumps(base)
+    cold, warm, full = [], [], []
+    for _ in range(args.repeat):
+        s = sf.resolve_settings(DEMO_SETTINGS["response"], DEMO_SETTINGS["predictors"], settings)
+        one = pickle.loads(blob)
+        t0 = time.perf_counter()
+        analyze(one, s)
+        full.append(time.perf_counter() - t0)
+        sf.CACHE.clear()
+        copies = [pickle.loads(blob) for _ in MIX]       # fresh cell objects per call
+        cold.append(one_recalc(copies, subject, settings))
+        copies = [pickle.loads(blob) for _ in MIX]
+        warm.append(one_recalc(copies, subject, settings))
+    st = sf.CACHE.stats()
+    f, c, w = (statistics.median(x) for x in (full, cold, warm))
+    print(f"sales block: {len(base) - 1:,} rows x {len(base[0])} columns; "
+          f"{len(MIX)} cells per recalculation; median of {args.repeat}")
+    print(f"one full analysis (analyze)         {f * 1000:9.1f} ms")
+    print(f"first recalc (1 fit + {len(MIX) - 1} cache hits) {c * 1000:9.1f} ms   "
+          f"ratio {c / f:5.2f}  (target <= {TARGET})")
+    print(f"recalc, unchanged data ({len(MIX)} hits)   {w * 1000:9.1f} ms   ratio {w / f:5.2f}")
+    print(f"per cached cell                     {w / len(MIX) * 1000:9.2f} ms")
+    print(f"cache: {st.entries} entries, {st.hits} hits, {st.misses} misses, "
+          f"~{st.approx_bytes / 2**20:.0f} MB")
+    print("PASS" if c / f <= TARGET else "ABOVE TARGET")
+
+
+if __name__ == "__main__":
+    main()

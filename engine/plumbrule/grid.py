@@ -1,0 +1,277 @@
+"""The comparable-sales adjustment grid with model-derived adjustments, and the
+reconciled value.
+
+For each comparable the model's effects turn the differences between subject
+and comparable into money. In a price model the adjustment for a feature is
+coefficient × difference. In a log-price model the effects multiply: the
+comparable's price P becomes P·exp(E) with E = Σ_f e_f, e_f = b·Δ for feature f
+(Δ the log difference for a logged predictor, the indicator differences for a
+category, months for the market trend). The money P·(exp(E) − 1) is shared
+among the features in proportion to their e_f, so the feature adjustments add
+up to the net adjustment exactly and do not depend on an order of application.
+The feature's stand-alone effect P·(exp(e_f) − 1) is shown beside it.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from .errors import SpecError
+
+MAX_COMPS = 10
+
+GRID_COLUMNS = [
+    "subject", "comp_row", "feature", "kind", "subject_value", "comp_value", "difference",
+    "model_difference", "coefficient", "effect", "adjustment", "adjustment_alone",
+    "adjustment_pct", "sale_price", "net_adjustment", "net_pct", "gross_adjustment",
+    "gross_pct", "adjusted_price", "weight", "flags",
+]
+RECONCILED_COLUMNS = [
+    "subject", "value", "range_low", "range_high", "spread", "spread_pct", "n_comps",
+    "weighting", "weights", "model_estimate", "pi_low", "pi_high", "flags",
+]
+
+
+@dataclass(frozen=True)
+class CompSet:
+    """The comparables' clean rows (index: sales sheet rows, in the user's order)
+    and notes per row (e.g. set aside by screening)."""
+
+    data: pd.DataFrame
+    notes: dict = field(default_factory=dict)
+
+
+# --- which comparables ----------------------------------------------------------
+
+def resolve_comps(analysis, rows) -> CompSet | None:
+    """Check the sheet rows named as comparables against the sales; ``None`` when
+    there are none. A row not in the sales, or dropped for a missing value, is
+    an error naming the row; a row screening set aside is kept with a note."""
+    rows = [_row_number(r) for r in rows]
+    if not rows:
+        return None
+    if len(rows) > MAX_COMPS:
+        raise SpecError(f"Setting 'comps': {len(rows)} comparables were given; use at most "
+                        f"{MAX_COMPS}.", setting="comps")
+    seen = set()
+    for r in rows:
+        if r in seen:
+            raise SpecError(f"Setting 'comps': row {r} is listed twice. List each comparable "
+                            "once.", setting="comps", row=r)
+        seen.add(r)
+    table_rows = analysis.table.frame.index
+    clean = analysis.clean
+    used = analysis.model.data.index
+    notes = {}
+    for r in rows:
+        if r not in table_rows:
+            span = (f"its rows run {table_rows.min()} to {table_rows.max()}" if len(table_rows)
+                    else "it has no rows")
+            raise SpecError(f"Setting 'comps': row {r} is not a row of the sales table ({span}). "
+                            "Enter the sheet row of a sale.", setting="comps", row=r)
+        if r not in clean.data.index:
+            raise SpecError(f"Setting 'comps': row {r} was dropped from the sales "
+                            f"({_drop_reason(clean.dropped, r)}). Complete the row or choose "
+                            "another comparable.", setting="comps", row=r)
+        if r not in used:
+            notes[r] = _set_aside_note(analysis, r)
+    return CompSet(data=clean.data.loc[rows], notes=notes)
+
+
+def _row_number(r) -> int:
+    if isinstance(r, (tuple, list)):
+        r = r[0]
+    try:
+        f = float(r)
+        if f != int(f) or f < 1:
+            raise ValueError
+    except (TypeError, ValueError):
+        raise SpecError(f"Setting 'comps': '{r}' is not a sheet row number. Enter rows such as "
+                        "12,40,57.", setting="comps") from None
+    return int(f)
+
+
+def _drop_reason(dropped: pd.DataFrame, row: int) -> str:
+    hit = dropped[dropped["row"] == row]
+    if hit.empty:
+        return "missing value"
+    return f"column '{hit['column'].iloc[0]}' {hit['reason'].iloc[0]}"
+
+
+def _set_aside_note(analysis, row: int) -> str:
+    log = analysis.tables.get("screen_log")
+    if log is not None and len(log) and "row" in log:
+        hit = log[log["row"] == row]
+        if len(hit):
+            why = hit["reason"].iloc[0] if "reason" in hit else hit.iloc[0].get("rule", "")
+            return (f"set aside by screening ({why}) and not used in the fit: check it is a "
+                    "fair comparable")
+    holdout = getattr(analysis, "holdout", None)
+    if holdout is not None and row in getattr(holdout, "index", ()):
+        return "held out to test the model (not used in the fit)"
+    return "not used in the fit"
+
+
+# --- the grid -----------------------------------------------------------------
+
+def adjustment_grid(model, subj, comps: CompSet | None, settings, when: _dt.date,
+                    estimates: pd.DataFrame | None = None):
+    """(grid, reconciled) DataFrames; both empty (with their columns) without
+    comparables. Money in the sale-price column's units; *_pct are shares of
+    the comparable's price (0.05 = 5 %)."""
+    if comps is None:
+        return (pd.DataFrame(columns=GRID_COLUMNS),
+                pd.DataFrame(columns=RECONCILED_COLUMNS))
+    enc, spec = model.encoding, model.spec
+    fit = model.fit
+    xc = enc.design(comps.data, label="comparable row")
+    diff = subj.x[0] - xc                              # m × k, model scale
+    eff = diff * fit.coef[int(fit.has_intercept):]
+    price = comps.data[spec.response].to_numpy(dtype=float)
+    features = _features(enc)
+    e_f = np.column_stack([eff[:, idx].sum(axis=1) for _, _, idx in features])
+    total = e_f.sum(axis=1)
+    money, alone, net = _money(e_f, total, price, spec.log_response)
+    gross = np.abs(money).sum(axis=1)
+    adjusted = price + net
+    net_pct, gross_pct = net / price, gross / price
+    weights = comp_weights(gross_pct, settings.comp_weights)
+    flags = _comp_flags(comps, net_pct, gross_pct, settings, when, spec)
+    label = subj.labels.iloc[0]
+    parts = [_feature_frame(f, comps, subj, diff, fit, idx, kind, e_f[:, j], money[:, j],
+                            alone[:, j], price, spec, when)
+             for j, (f, kind, idx) in enumerate(features)]
+    totals = pd.DataFrame({
+        "comp_row": comps.data.index.to_numpy(dtype=np.int64), "feature": "total",
+        "kind": "total", "effect": total, "adjustment": net, "adjustment_pct": net_pct,
+        "sale_price": price, "net_adjustment": net, "net_pct": net_pct,
+        "gross_adjustment": gross, "gross_pct": gross_pct, "adjusted_price": adjusted,
+        "weight": weights, "flags": flags})
+    grid = pd.concat(parts + [totals], ignore_index=True)
+    order = {r: i for i, r in enumerate(comps.data.index)}
+    grid["_c"] = grid["comp_row"].map(order)
+    grid["_f"] = np.repeat(np.arange(len(features) + 1), len(price))
+    grid = grid.sort_values(["_c", "_f"], kind="stable").drop(columns=["_c", "_f"])
+    grid.insert(0, "subject", label)
+    grid = grid.reindex(columns=GRID_COLUMNS).reset_index(drop=True)
+    reconciled = reconcile(label, comps.data.index.to_numpy(), adjusted, weights,
+                           settings.comp_weights, flags, estimates)
+    return grid, reconciled
+
+
+def _features(enc):
+    """(feature name, kind, term indices) in the spec's order, market trend last."""
+    out = []
+    for col in enc.spec.predictors:
+        idx = [j for j, t in enumerate(enc.terms) if t.column == col]
+        kind = enc.terms[idx[0]].kind if idx else "numeric"
+        out.append((col, "category" if kind == "level" else kind, idx))
+    if enc.spec.date_column:
+        idx = [j for j, t in enumerate(enc.terms) if t.kind == "trend"]
+        out.append(("market conditions", "market", idx))
+    return out
+
+
+def _money(e_f, total, price, log_response):
+    """(feature adjustments, stand-alone adjustments, net) in money per comp.
+
+    Log model: net = P·(e^E − 1) shared in proportion to e_f, i.e.
+    adjustment_f = P·e_f·(e^E − 1)/E (→ P·e_f as E → 0), so Σ_f = net exactly.
+    """
+    if not log_response:
+        return e_f, e_f, total
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rel = np.where(total == 0, 1.0, np.expm1(total) / total)
+    p = price[:, None]
+    money = p * e_f * rel[:, None]
+    return money, p * np.expm1(e_f), price * np.expm1(total)
+
+
+def _feature_frame(name, comps, subj, diff, fit, idx, kind, e, money, alone, price, spec,
+                   when):
+    m = len(price)
+    rows = comps.data.index.to_numpy(dtype=np.int64)
+    b = fit.coef[int(fit.has_intercept):]
+    if kind == "market":
+        col = spec.date_column
+        s_val = np.repeat(pd.Timestamp(when), m).astype(object)
+        c_val = comps.data[col].to_numpy(dtype=object)
+        raw = diff[:, idx[0]]
+        model_diff, coef = raw, b[idx[0]]
+    elif kind == "category":
+        s_val = np.repeat(subj.data[name].iloc[0], m).astype(object)
+        c_val = comps.data[name].to_numpy(dtype=object)
+        raw = model_diff = np.full(m, np.nan)
+        coef = e          # the effect of the subject's level against the comparable's
+    else:
+        s_num = float(subj.data[name].iloc[0])
+        c_num = comps.data[name].to_numpy(dtype=float)
+        s_val, c_val = np.repeat(s_num, m).astype(object), c_num.astype(object)
+        raw = s_num - c_num
+        model_diff, coef = diff[:, idx[0]], b[idx[0]]
+    return pd.DataFrame({
+        "comp_row": rows, "feature": name, "kind": kind, "subject_value": s_val,
+        "comp_value": c_val, "difference": raw, "model_difference": model_diff,
+        "coefficient": coef, "effect": e, "adjustment": money, "adjustment_alone": alone,
+        "adjustment_pct": money / price, "sale_price": price})
+
+
+def _comp_flags(comps, net_pct, gross_pct, settings, when, spec) -> list[str]:
+    """Adjustment limits (common practice, no source; settable) and comp notes."""
+    out = []
+    for i, row in enumerate(comps.data.index):
+        notes = []
+        if abs(net_pct[i]) > settings.net_adjustment_limit:
+            notes.append(f"net adjustment {100 * net_pct[i]:+.1f}% exceeds "
+                         f"{100 * settings.net_adjustment_limit:g}% of the sale price")
+        if gross_pct[i] > settings.gross_adjustment_limit:
+            notes.append(f"gross adjustment {100 * gross_pct[i]:.1f}% exceeds "
+                         f"{100 * settings.gross_adjustment_limit:g}% of the sale price")
+        if spec.date_column and comps.data[spec.date_column].iloc[i] > pd.Timestamp(when):
+            notes.append("sold after the valuation date")
+        if row in comps.notes:
+            notes.append(comps.notes[row])
+        out.append("; ".join(notes))
+    return out
+
+
+# --- reconciliation ---------------------------------------------------------------
+
+def comp_weights(gross_pct: np.ndarray, how: str) -> np.ndarray:
+    """Weights summing to 1: inversely proportional to the gross adjustment
+    (as a share of each comparable's price), or equal. Comparables needing no
+    adjustment at all (gross = 0) share the whole weight."""
+    m = len(gross_pct)
+    if how == "equal":
+        return np.full(m, 1.0 / m)
+    zero = gross_pct == 0
+    if zero.any():
+        return zero / zero.sum()
+    inv = 1.0 / gross_pct
+    return inv / inv.sum()
+
+
+def reconcile(label, rows, adjusted, weights, how, flags, estimates) -> pd.DataFrame:
+    """One record: the weighted value of the adjusted prices, their range and spread."""
+    value = float(np.dot(weights, adjusted))
+    low, high = float(adjusted.min()), float(adjusted.max())
+    text = "; ".join(f"row {r}: {w:.3f}" for r, w in zip(rows, weights))
+    est = pi_lo = pi_hi = np.nan
+    notes = []
+    n_flag = sum(bool(f) for f in flags)
+    if n_flag:
+        notes.append(f"{n_flag} of {len(rows)} comparables flagged")
+    if estimates is not None and len(estimates):
+        est, pi_lo, pi_hi = (float(estimates[c].iloc[0]) for c in ("estimate", "pi_low", "pi_high"))
+        if not pi_lo <= value <= pi_hi:
+            notes.append("reconciled value lies outside the model's prediction interval")
+    return pd.DataFrame([{
+        "subject": label, "value": value, "range_low": low, "range_high": high,
+        "spread": high - low, "spread_pct": (high - low) / value, "n_comps": len(rows),
+        "weighting": "inverse gross adjustment" if how == "gross" else "equal",
+        "weights": text, "model_estimate": est, "pi_low": pi_lo, "pi_high": pi_hi,
+        "flags": "; ".join(notes)}], columns=RECONCILED_COLUMNS)

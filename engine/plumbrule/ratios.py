@@ -1,0 +1,239 @@
+"""The sales-ratio study: does the model value uniformly? (ratio = estimate / sale price)
+
+Measures and default targets follow the IAAO Standard on Ratio Studies (2013):
+level (median ratio 0.90–1.10, with an order-statistic confidence interval),
+uniformity (COD; COV is reported without a target) and vertical equity (PRD
+0.98–1.03; PRB, Gloudemans' coefficient of price-related bias, within ±0.05,
+beyond ±0.10 unacceptable). Fewer than 20 sales: the figures are shown but the
+verdicts say the sample is too small to judge (common practice, no source).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .errors import FitError
+
+OK, WATCH, FAILS, TOO_FEW = "ok", "watch", "fails", "too few sales"
+COD_TARGETS = {"residential": 15.0, "newer-residential": 10.0, "other": 20.0}
+ESTIMATE_COLUMNS = ["row", "sale_price", "estimate", "ratio", "stratum", "in_study"]
+STUDY_COLUMNS = [
+    "sample", "stratum", "n", "median_ratio", "median_ci_low", "median_ci_high",
+    "median_ci_coverage", "mean_ratio", "weighted_mean_ratio", "cod", "cov", "prd", "prb",
+    "prb_ci_low", "prb_ci_high", "median_target", "median_verdict", "cod_target", "cod_verdict",
+    "prd_target", "prd_verdict", "prb_target", "prb_verdict", "note"]
+
+
+@dataclass(frozen=True)
+class RatioTargets:
+    """Targets a study is judged against (IAAO Standard on Ratio Studies, 2013)."""
+
+    median_low: float = 0.90
+    median_high: float = 1.10
+    cod_max: float = 15.0
+    prd_low: float = 0.98
+    prd_high: float = 1.03
+    prb_ok: float = 0.05
+    prb_max: float = 0.10
+    min_sales: int = 20
+    property_class: str = "residential"
+
+    @classmethod
+    def for_class(cls, property_class: str = "residential") -> "RatioTargets":
+        """COD ≤ 15 single-family residential, ≤ 10 newer homogeneous residential, ≤ 20 other."""
+        return cls(cod_max=COD_TARGETS[property_class], property_class=property_class)
+
+
+# --- the measures ---------------------------------------------------------------
+
+def cod(ratios: np.ndarray) -> float:
+    """Coefficient of dispersion, percent: 100 · mean|r − median| / median."""
+    r = np.asarray(ratios, dtype=float)
+    med = np.median(r)
+    return float(100.0 * np.mean(np.abs(r - med)) / med)
+
+
+def cov(ratios: np.ndarray) -> float:
+    """Coefficient of variation, percent: 100 · s / mean, s with n − 1 (NaN below 2 sales)."""
+    r = np.asarray(ratios, dtype=float)
+    if len(r) < 2:
+        return float("nan")
+    return float(100.0 * np.std(r, ddof=1) / np.mean(r))
+
+
+def weighted_mean_ratio(estimate: np.ndarray, price: np.ndarray) -> float:
+    """Σ estimates / Σ sale prices."""
+    return float(np.sum(estimate) / np.sum(price))
+
+
+def prd(estimate: np.ndarray, price: np.ndarray) -> float:
+    """Price-related differential: mean ratio / weighted mean ratio."""
+    return float(np.mean(np.asarray(estimate) / np.asarray(price))
+                 / weighted_mean_ratio(estimate, price))
+
+
+def median_rank(n: int, level: float) -> tuple[int, float]:
+    """The largest j such that [r₍ⱼ₎, r₍ₙ₋ⱼ₊₁₎] covers the median with probability ≥ level.
+
+    Coverage is P(j ≤ B ≤ n − j) = 1 − 2·P(B ≤ j − 1), B ~ binomial(n, ½).
+    Returns (j, coverage); (0, nan) when even [min, max] falls short of ``level``.
+    """
+    from scipy.stats import binom
+    if n < 1:
+        return 0, float("nan")
+    alpha2 = (1.0 - level) / 2.0
+    k0 = int(binom.ppf(alpha2, n, 0.5))
+    cand = np.arange(max(k0 - 2, -1), min(k0 + 3, (n - 1) // 2 + 1))   # k = j − 1
+    cdf = np.where(cand >= 0, binom.cdf(cand, n, 0.5), 0.0)
+    ok = cand[(cdf <= alpha2) & (cand >= 0)]
+    if not len(ok):
+        return 0, float("nan")
+    j = int(ok.max()) + 1
+    return j, float(1.0 - 2.0 * binom.cdf(j - 1, n, 0.5))
+
+
+def median_interval(ratios: np.ndarray, level: float = 0.95) -> tuple[float, float, float]:
+    """(low, high, coverage) of the order-statistic interval for the median ratio."""
+    r = np.sort(np.asarray(ratios, dtype=float))
+    j, coverage = median_rank(len(r), level)
+    if j == 0:
+        return float("nan"), float("nan"), float("nan")
+    return float(r[j - 1]), float(r[len(r) - j]), coverage
+
+
+def prb(estimate: np.ndarray, price: np.ndarray, level: float = 0.95) -> tuple[float, float, float]:
+    """Gloudemans' PRB with its confidence interval: (slope, low, high).
+
+    Regress (ratio − median)/median on ln(½·price + ½·estimate/median)/ln 2; the
+    slope is the proportional change in ratios when value doubles. NaN when the
+    regression cannot be fitted (fewer than 3 sales, all values alike).
+    """
+    from scipy.stats import t as tdist
+    from .ols import fit_ols
+    est, price = np.asarray(estimate, float), np.asarray(price, float)
+    r = est / price
+    med = np.median(r)
+    y = (r - med) / med
+    x = np.log(0.5 * price + 0.5 * est / med) / np.log(2.0)
+    try:
+        fit = fit_ols(x[:, None], y, ["value (doublings)"], intercept=True)
+    except FitError:
+        return float("nan"), float("nan"), float("nan")
+    slope, se = float(fit.coef[1]), float(fit.se[1])
+    q = float(tdist.ppf(0.5 + level / 2.0, fit.df_resid))
+    return slope, slope - q * se, slope + q * se
+
+
+# --- the study ------------------------------------------------------------------
+
+def ratio_trim(estimates: pd.DataFrame, k: float = 3.0) -> pd.DataFrame:
+    """Screen-log records for ratios beyond Q1 − k·IQR or Q3 + k·IQR (IAAO practice, k = 3)."""
+    from .screen import LOG_COLUMNS, RATIO_TRIM, _fmt, empty_log, fence_limits
+    if len(estimates) < 4:
+        return empty_log()
+    lim = fence_limits(estimates, ["ratio"], k).iloc[0]
+    r = estimates["ratio"].to_numpy(float)
+    hit = (r < lim["low"]) | (r > lim["high"])
+    if not hit.any():
+        return empty_log()
+    up = r[hit] > lim["high"]
+    limit = np.where(up, lim["high"], lim["low"])
+    reason = [f"ratio {v:.4g} is {'above Q3' if u else 'below Q1'} {'+' if u else '−'} "
+              f"{k:g}·IQR ({_fmt(l)}); kept in the fit, left out of the ratio study"
+              for v, u, l in zip(r[hit], up, limit)]
+    return pd.DataFrame({"row": estimates["row"].to_numpy(np.int64)[hit], "column": "ratio",
+                         "value": r[hit], "rule": RATIO_TRIM, "limit": limit,
+                         "reason": reason})[LOG_COLUMNS]
+
+
+def estimates_table(rows, price, estimate, stratum=None) -> pd.DataFrame:
+    """row, sale_price, estimate, ratio (estimate / sale price), stratum, in_study
+    (False for a ratio left out of the study: trimmed, or price or estimate not positive)."""
+    price, estimate = np.asarray(price, float), np.asarray(estimate, float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = estimate / price
+    return pd.DataFrame({"row": np.asarray(rows, dtype=np.int64), "sale_price": price,
+                         "estimate": estimate, "ratio": ratio,
+                         "stratum": None if stratum is None else np.asarray(stratum, object),
+                         # a ratio needs a positive price and estimate (a linear model can
+                         # estimate below zero); such rows stay listed, out of the study
+                         "in_study": np.isfinite(ratio) & (price > 0) & (estimate > 0)}
+                        )[ESTIMATE_COLUMNS]
+
+
+def measures(estimate: np.ndarray, price: np.ndarray, level: float = 0.95) -> dict:
+    """Every ratio-study figure for one group of sales (NaN where n is too small)."""
+    r = estimate / price
+    n = len(r)
+    if n == 0:
+        return {"n": 0, **{k: np.nan for k in STUDY_COLUMNS[3:15]}}
+    lo, hi, coverage = median_interval(r, level)
+    slope, slo, shi = prb(estimate, price, level)
+    return {"n": n, "median_ratio": float(np.median(r)), "median_ci_low": lo,
+            "median_ci_high": hi, "median_ci_coverage": coverage, "mean_ratio": float(r.mean()),
+            "weighted_mean_ratio": weighted_mean_ratio(estimate, price), "cod": cod(r),
+            "cov": cov(r), "prd": prd(estimate, price), "prb": slope, "prb_ci_low": slo,
+            "prb_ci_high": shi}
+
+
+def verdicts(m: dict, t: RatioTargets) -> dict:
+    """Targets in words, a verdict per measure (ok / watch / fails / too few sales), a note."""
+    out = {"median_target": f"{t.median_low:.2f} to {t.median_high:.2f}",
+           "cod_target": f"at most {t.cod_max:g} ({t.property_class})",
+           "prd_target": f"{t.prd_low:.2f} to {t.prd_high:.2f}",
+           "prb_target": f"within ±{t.prb_ok:.2f} (beyond ±{t.prb_max:.2f} unacceptable)"}
+    if m["n"] < t.min_sales:
+        out.update(median_verdict=TOO_FEW, cod_verdict=TOO_FEW, prd_verdict=TOO_FEW,
+                   prb_verdict=TOO_FEW,
+                   note=f"Only {m['n']} sales: too few to judge the model against the targets "
+                        f"(at least {t.min_sales} needed); read the figures as indications.")
+        return out
+    med, c, d, b = m["median_ratio"], m["cod"], m["prd"], m["prb"]
+    out["median_verdict"] = OK if t.median_low <= med <= t.median_high else FAILS
+    out["cod_verdict"] = OK if c <= t.cod_max else FAILS
+    out["prd_verdict"] = OK if t.prd_low <= d <= t.prd_high else FAILS
+    out["prb_verdict"] = (OK if abs(b) <= t.prb_ok else WATCH if abs(b) <= t.prb_max else FAILS
+                          ) if np.isfinite(b) else "n/a"
+    problems = []
+    if out["median_verdict"] == FAILS:
+        problems.append(f"estimates run {'high' if med > t.median_high else 'low'} "
+                        f"(median ratio {med:.3f})")
+    if out["cod_verdict"] == FAILS:
+        problems.append(f"estimates are uneven (COD {c:.1f})")
+    if out["prd_verdict"] == FAILS or out["prb_verdict"] in (WATCH, FAILS):
+        side = "higher" if (np.isfinite(b) and b > 0) or (not np.isfinite(b) and d < 1) else "lower"
+        problems.append(f"ratios drift {side} as value rises (PRD {d:.3f}, PRB {b:.3f})")
+    out["note"] = ("Level, uniformity and vertical equity meet the targets." if not problems else
+                   "Off target: " + "; ".join(problems) + ".")
+    return out
+
+
+def ratio_study(estimates: pd.DataFrame, sample: str = "holdout",
+                targets: RatioTargets | None = None, level: float = 0.95,
+                by: str | None = None) -> pd.DataFrame:
+    """ratio_study: one record for all sales in the study, then one per stratum (sorted).
+
+    ``estimates`` is an :func:`estimates_table`; rows with in_study False are left
+    out. ``sample`` says what the estimates are (holdout, cross-validated, in-sample).
+    """
+    targets = targets or RatioTargets()
+    use = estimates[estimates["in_study"]]
+    groups = [("all", use)]
+    if by is not None:
+        values = use["stratum"]
+        groups += [(f"{by}: {_label(lv)}", use[values == lv]) for lv in sorted(values.unique())]
+    recs = []
+    for name, g in groups:
+        m = measures(g["estimate"].to_numpy(float), g["sale_price"].to_numpy(float), level)
+        recs.append({"sample": sample, "stratum": name, **m, **verdicts(m, targets)})
+    return pd.DataFrame(recs).reindex(columns=STUDY_COLUMNS)
+
+
+def _label(v) -> str:
+    """A stratum value as text: 3.0 → '3', 'Old Quay' unchanged."""
+    if isinstance(v, (float, np.floating)) and float(v).is_integer():
+        return str(int(v))
+    return str(v)

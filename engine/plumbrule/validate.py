@@ -1,0 +1,330 @@
+"""Validation: a holdout the model never sees, k-fold cross-validation, and their error figures.
+
+* Holdout: a seeded random share of the clean rows (NumPy ``default_rng(seed)``,
+  PCG64, one ``permutation`` of the rows in sheet order: the same seed and the
+  same rows give the same split on every platform), or the most recent sales
+  by the date column (``holdout_recent``).
+* A holdout row whose category level does not occur among the training rows
+  cannot be estimated; it is moved to the training rows and the move is
+  reported in the checks table (an error would make a random split fail for
+  a reason the user did not choose).
+* k-fold: seeded fold labels on the training rows; each fold's coefficients
+  come from the other folds by combining per-fold triangular QR factors (one
+  pass over the data, never X'X), so cross-validation costs about one fit.
+* Log-price models are judged on the price scale: estimate = exp(prediction) ×
+  a retransformation factor (Duan's smearing factor by default).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .errors import SettingError
+from .settings import Settings
+
+DEFAULT_HOLDOUT = 0.30
+VALIDATION_COLUMNS = ["set", "n", "r_squared", "rmse", "mae", "mape", "r_squared_model",
+                      "rmse_model", "note"]
+
+
+@dataclass(frozen=True)
+class Split:
+    """Sheet rows of the training and holdout sets; ``method`` none, random or recent."""
+
+    training: pd.Index
+    holdout: pd.Index
+    method: str
+
+
+# --- the holdout -------------------------------------------------------------
+
+def holdout_share(settings: Settings) -> float:
+    """The holdout share asked for: ``holdout``, or 0.30 when only ``holdout_recent`` is on."""
+    if settings.holdout is not None:
+        return float(settings.holdout)
+    return DEFAULT_HOLDOUT if settings.holdout_recent else 0.0
+
+
+def holdout_count(n: int, share: float) -> int:
+    """Rows held out: share × n rounded half up, at least 1 when a share is asked for."""
+    if share <= 0 or n == 0:
+        return 0
+    return max(1, int(np.floor(share * n + 0.5)))
+
+
+def random_holdout(rows: pd.Index, share: float, seed: int) -> np.ndarray:
+    """Boolean mask over ``rows`` (sheet order): a seeded random ``share`` held out."""
+    n = len(rows)
+    k = holdout_count(n, share)
+    mask = np.zeros(n, dtype=bool)
+    if k:
+        order = np.argsort(rows.to_numpy(), kind="stable")   # sheet order, whatever came in
+        perm = np.random.default_rng(seed).permutation(n)
+        mask[order[perm[:k]]] = True
+    return mask
+
+
+def recent_holdout(dates: pd.Series, share: float) -> np.ndarray:
+    """Boolean mask: the latest ``share`` of sales by date (ties broken by sheet row)."""
+    n = len(dates)
+    k = holdout_count(n, share)
+    mask = np.zeros(n, dtype=bool)
+    if k:
+        key = pd.DataFrame({"d": pd.to_datetime(dates).to_numpy(), "r": dates.index.to_numpy()})
+        order = key.sort_values(["d", "r"], kind="stable").index.to_numpy()
+        mask[order[n - k:]] = True
+    return mask
+
+
+def split_rows(data: pd.DataFrame, settings: Settings, date_column: str | None) -> Split:
+    """Split the clean rows into training and holdout by the settings."""
+    share = holdout_share(settings)
+    if share <= 0:
+        return Split(data.index, data.index[:0], "none")
+    if settings.holdout_recent:
+        if not date_column:
+            raise SettingError("Setting 'holdout_recent' needs a sale-date column. Set "
+                               "'date_column' or use a random holdout.", setting="holdout_recent")
+        mask = recent_holdout(data[date_column], share)
+        method = "recent"
+    else:
+        mask = random_holdout(data.index, share, settings.seed)
+        method = "random"
+    return Split(data.index[~mask], data.index[mask], method)
+
+
+def unseen_level_rows(training: pd.DataFrame, holdout: pd.DataFrame,
+                      categorical) -> pd.DataFrame:
+    """Holdout rows with a category level absent from ``training``: row, column, level."""
+    recs = []
+    for col in categorical:
+        bad = ~holdout[col].isin(training[col].unique())
+        if bad.any():
+            recs.append(pd.DataFrame({"row": holdout.index[bad].to_numpy(np.int64),
+                                      "column": col, "level": holdout.loc[bad, col].to_numpy()}))
+    if not recs:
+        return pd.DataFrame({"row": pd.Series(dtype=np.int64), "column": pd.Series(dtype=object),
+                             "level": pd.Series(dtype=object)})
+    return pd.concat(recs, ignore_index=True).drop_duplicates("row")
+
+
+# --- estimates -----------------------------------------------------------------
+
+def predict(model, data: pd.DataFrame, label: str = "holdout row") -> np.ndarray:
+    """Model-scale predictions (log price for log models) for clean rows ``data``."""
+    x = model.encoding.design(data, label)
+    coef = model.fit.coef
+    if model.fit.has_intercept:
+        return coef[0] + x @ coef[1:]
+    return x @ coef
+
+
+def retransform_factor(resid: np.ndarray, method: str = "smearing",
+                       df_resid: int | None = None) -> float:
+    """Factor turning exp(log-scale prediction) into a price estimate.
+
+    smearing: mean(exp(residual)) (Duan 1983); lognormal: exp(s²/2) with
+    s² = Σe²/df_resid; median: 1 (the estimate is the median price).
+    """
+    resid = np.asarray(resid, dtype=float)
+    if method == "median":
+        return 1.0
+    if method == "lognormal":
+        df = len(resid) if df_resid is None else df_resid
+        return float(np.exp(0.5 * np.dot(resid, resid) / df))
+    return float(np.mean(np.exp(resid)))
+
+
+def price_estimates(pred: np.ndarray, log_response: bool, factor: float = 1.0) -> np.ndarray:
+    """Model-scale predictions → estimates in price units."""
+    return np.exp(pred) * factor if log_response else np.asarray(pred, dtype=float)
+
+
+def model_factor(model, method: str) -> float:
+    """The retransformation factor of a fitted model (1 for a price-scale model)."""
+    if not model.spec.log_response:
+        return 1.0
+    return retransform_factor(model.fit.resid, method, model.fit.df_resid)
+
+
+# --- error figures ---------------------------------------------------------------
+
+def error_figures(price: np.ndarray, estimate: np.ndarray, y: np.ndarray,
+                  pred: np.ndarray) -> dict:
+    """R², RMSE, MAE, MAPE (percent) on the price scale, and R² and RMSE on the model scale.
+
+    R² is 1 − Σ(price − estimate)² / Σ(price − mean price) over the same rows
+    (for a holdout, the holdout's own mean: an out-of-sample R², may be negative).
+    """
+    n = len(price)
+    if n == 0:
+        return {"n": 0, "r_squared": np.nan, "rmse": np.nan, "mae": np.nan, "mape": np.nan,
+                "r_squared_model": np.nan, "rmse_model": np.nan}
+    e = price - estimate
+    em = y - pred
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ape = np.abs(e / price)
+    return {"n": n, "r_squared": _r2(price, e), "rmse": float(np.sqrt(np.mean(e ** 2))),
+            "mae": float(np.mean(np.abs(e))),
+            "mape": 100.0 * float(np.mean(ape)) if np.all(np.isfinite(ape)) else np.nan,
+            "r_squared_model": _r2(y, em), "rmse_model": float(np.sqrt(np.mean(em ** 2)))}
+
+
+def _r2(y: np.ndarray, e: np.ndarray) -> float:
+    tss = float(np.sum((y - y.mean()) ** 2))
+    return 1.0 - float(np.dot(e, e)) / tss if tss > 0 else np.nan
+
+
+# --- k-fold --------------------------------------------------------------------------
+
+def fold_labels(n: int, folds: int, seed: int) -> np.ndarray:
+    """Fold number (0..folds−1) for each of n rows: a seeded permutation dealt round-robin,
+    so every row is in exactly one fold and fold sizes differ by at most one."""
+    labels = np.empty(n, dtype=np.int64)
+    perm = np.random.default_rng([seed, 1]).permutation(n)   # a stream apart from the holdout's
+    labels[perm] = np.arange(n) % folds
+    return labels
+
+
+@dataclass(frozen=True)
+class CrossValidation:
+    """Per-fold error figures and the out-of-fold estimates (NaN where a row could not be
+    estimated because its category level is absent from the other folds)."""
+
+    folds: pd.DataFrame          # VALIDATION_COLUMNS, one record per fold
+    labels: np.ndarray
+    pred: np.ndarray             # model scale
+    estimate: np.ndarray         # price scale
+
+
+def cross_validate(model, folds: int, seed: int, retransform: str = "smearing") -> CrossValidation:
+    """k-fold cross-validation of ``model``'s specification on its own (training) rows."""
+    n = model.fit.n
+    if folds == 1 or folds > n:
+        raise SettingError(f"Setting 'folds': {folds} folds cannot cross-validate {n} sales. "
+                           "Use 0 (off) or a number from 2 to the number of sales.",
+                           setting="folds")
+    labels = fold_labels(n, folds, seed)
+    order = np.argsort(labels, kind="stable")          # each fold a contiguous block
+    bounds = np.searchsorted(labels[order], np.arange(folds + 1))
+    zy = _working_design(model, order)                 # [1 | scaled x | y], rows by fold
+    z, y = zy[:, :-1], zy[:, -1]
+    blocks = [(np.linalg.qr(zy[lo:hi], mode="r"), hi - lo)
+              for lo, hi in zip(bounds[:-1], bounds[1:])]
+    nonzero = np.add.reduceat(z != 0, bounds[:-1], axis=0)
+    price = model.data[model.spec.response].to_numpy(float)[order]
+    log = model.spec.log_response
+    pred, est = np.full(n, np.nan), np.full(n, np.nan)
+    recs = []
+    for f, (lo, hi) in enumerate(zip(bounds[:-1], bounds[1:])):
+        keep = (nonzero.sum(axis=0) - nonzero[f]) > 0          # columns the other folds inform
+        theta, df = _combine([b for g, b in enumerate(blocks) if g != f], keep)
+        if theta is None:
+            recs.append({"set": f"fold {f + 1}", **error_figures(price[:0], price[:0], y[:0],
+                                                               y[:0]),
+                         "note": "the other folds cannot determine every effect"})
+            continue
+        factor = 1.0
+        if log:   # the retransformation factor of the fit on the other folds
+            e = y - z[:, keep] @ theta
+            e[lo:hi] = 0.0
+            factor = _factor_excluding(e, hi - lo, retransform, df)
+        zf = z[lo:hi]
+        usable = ~np.any(zf[:, ~keep] != 0, axis=1)
+        p = zf[usable][:, keep] @ theta
+        idx = np.arange(lo, hi)[usable]
+        pred[idx] = p
+        est[idx] = price_estimates(p, log, factor)
+        skipped = int((~usable).sum())
+        note = (f"{skipped} sales not estimated: their category level is only in this fold"
+                if skipped else "")
+        recs.append({"set": f"fold {f + 1}",
+                     **error_figures(price[idx], est[idx], y[idx], p), "note": note})
+    back = np.empty(n, dtype=np.int64)
+    back[order] = np.arange(n)                                 # sorted position of each row
+    table = pd.DataFrame(recs).reindex(columns=VALIDATION_COLUMNS)
+    return CrossValidation(folds=table, labels=labels, pred=pred[back], estimate=est[back])
+
+
+def _factor_excluding(e: np.ndarray, n_zeroed: int, method: str, df: int) -> float:
+    """Retransformation factor of residuals ``e`` where ``n_zeroed`` held-out entries are 0."""
+    if method == "median":
+        return 1.0
+    if method == "lognormal":
+        return float(np.exp(0.5 * np.dot(e, e) / df))
+    m = len(e) - n_zeroed
+    return float((np.sum(np.exp(e)) - n_zeroed) / m)
+
+
+def _working_design(model, order: np.ndarray) -> np.ndarray:
+    """[1 | (x − mean)/norm | y] with rows in ``order``; no constant column without an intercept.
+
+    Centring and unit-length columns keep the fold QR factors well conditioned.
+    Built column by column so the peak memory stays near one copy of the design.
+    """
+    x, n = model.x, len(order)
+    icpt = int(model.fit.has_intercept)
+    k = x.shape[1]
+    zy = np.empty((n, icpt + k + 1))
+    if icpt:
+        zy[:, 0] = 1.0
+    for j in range(k):
+        col = x[order, j]
+        if icpt:
+            col -= col.mean()
+        norm = np.sqrt(np.dot(col, col))
+        zy[:, icpt + j] = col / norm if norm > 0 else col
+    zy[:, -1] = model.y[order]
+    return zy
+
+
+def _combine(blocks, keep: np.ndarray):
+    """Coefficients (working scale) from stacked fold factors over the ``keep`` columns,
+    and the residual degrees of freedom; (None, 0) when the columns are not of full rank."""
+    k = int(keep.sum())
+    cols = np.concatenate([keep, [True]])
+    stacked = np.vstack([r[:, cols] for r, _ in blocks])
+    n = sum(m for _, m in blocks)
+    r = np.linalg.qr(stacked, mode="r")
+    diag = np.abs(np.diag(r)[:k])
+    if n <= k or diag.min(initial=np.inf) <= 1e-10 * max(diag.max(initial=0.0), 1.0):
+        return None, 0
+    from scipy.linalg import solve_triangular
+    theta = solve_triangular(r[:k, :k], r[:k, k])
+    return theta, n - k
+
+
+def summarise_folds(folds: pd.DataFrame) -> pd.DataFrame:
+    """'folds mean' and 'folds sd' (sample sd, n − 1) of each figure across the folds."""
+    figs = ["r_squared", "rmse", "mae", "mape", "r_squared_model", "rmse_model"]
+    mean = {"set": "folds mean", "n": int(folds["n"].sum()), **folds[figs].mean().to_dict(),
+            "note": f"mean over {len(folds)} folds"}
+    sd = {"set": "folds sd", "n": int(folds["n"].sum()), **folds[figs].std(ddof=1).to_dict(),
+          "note": "spread between folds (standard deviation)"}
+    return pd.DataFrame([mean, sd]).reindex(columns=VALIDATION_COLUMNS)
+
+
+def validation_table(model, retransform: str, holdout: pd.DataFrame | None = None,
+                     holdout_pred: np.ndarray | None = None,
+                     holdout_estimate: np.ndarray | None = None,
+                     cv: CrossValidation | None = None) -> pd.DataFrame:
+    """validation: training (in-sample), holdout, then each fold with the mean and spread."""
+    spec = model.spec
+    price = model.data[spec.response].to_numpy(float)
+    fitted = model.fit.fitted
+    est = price_estimates(fitted, spec.log_response, model_factor(model, retransform))
+    recs = [{"set": "training", **error_figures(price, est, model.y, fitted),
+             "note": "in-sample: the rows the model was fitted on"}]
+    if holdout is not None and len(holdout):
+        hp = holdout[spec.response].to_numpy(float)
+        hy = model.encoding.response(holdout)
+        recs.append({"set": "holdout", **error_figures(hp, holdout_estimate, hy, holdout_pred),
+                     "note": "out-of-sample: sales the model never saw"})
+    table = pd.DataFrame(recs).reindex(columns=VALIDATION_COLUMNS)
+    if cv is not None:
+        table = pd.concat([table, cv.folds, summarise_folds(cv.folds)], ignore_index=True)
+    table["n"] = table["n"].astype(np.int64)
+    return table

@@ -1,0 +1,135 @@
+"""``plumbrule value``: fit the model to the sales, value the subjects, and (with
+``--comps``) build the adjustment grid. Text in plumbrule's own layout, or one
+JSON object with the keys ``estimates``, ``grid`` and ``reconciled``."""
+
+from __future__ import annotations
+
+import json
+
+import pandas as pd
+
+CAUTION = ("A statistical estimate, not an appraisal: the licensed appraiser's judgement, "
+           "professional standards such as USPAP, and local rules govern.")
+
+
+def run_value(args, settings) -> int:
+    """Handler for the ``value`` subcommand; returns the exit status (0)."""
+    from .analysis import analyze
+    from .intake import read_table
+    from .value import valuate
+    analysis = analyze(read_table(args.data, sheet=getattr(args, "sheet", None)), settings)
+    subjects = read_table(args.subjects)
+    result = valuate(analysis, subjects)
+    print(valuation_json(result) if getattr(args, "json", False)
+          else render_valuation(result, analysis))
+    return 0
+
+
+# --- JSON ---------------------------------------------------------------------
+
+def valuation_json(result) -> str:
+    """One JSON object: estimates (records), grid (records), reconciled (one
+    object with value, weights [{row, weight}], range [low, high]; null without
+    comparables), plus valuation_date and the caution."""
+    from .render_json import frame_records
+    return json.dumps({
+        "estimates": frame_records(result.estimates),
+        "grid": frame_records(result.grid),
+        "reconciled": reconciled_record(result),
+        "valuation_date": result.valuation_date.isoformat(),
+        "caution": CAUTION,
+    }, allow_nan=False, ensure_ascii=False)
+
+
+def reconciled_record(result) -> dict | None:
+    from .render_json import frame_records, jsonable
+    if result.reconciled.empty:
+        return None
+    rec = frame_records(result.reconciled)[0]
+    totals = result.grid[result.grid["kind"] == "total"]
+    rec["weights_text"] = rec.pop("weights")
+    rec["weights"] = [{"row": int(r), "weight": jsonable(w)}
+                      for r, w in zip(totals["comp_row"], totals["weight"])]
+    rec["range"] = [rec["range_low"], rec["range_high"]]
+    return rec
+
+
+# --- text -----------------------------------------------------------------------
+
+def render_valuation(result, analysis) -> str:
+    est = result.estimates
+    model = analysis.model
+    lines = [f"plumbrule valuation as of {result.valuation_date.isoformat()} "
+             f"({model.fit.n:,} sales in the model of {model.encoding.response_name}, "
+             f"{int(100 * est['confidence'].iloc[0] + 0.5)}% intervals)", ""]
+    for rec in est.itertuples(index=False):
+        lines += _subject_lines(rec)
+    if not result.grid.empty:
+        lines += _grid_lines(result)
+    lines += ([] if lines[-1] == "" else [""]) + [CAUTION]
+    return "\n".join(lines)
+
+
+def _money(v) -> str:
+    return "" if pd.isna(v) else f"{v:,.0f}"
+
+
+def _subject_lines(rec) -> list[str]:
+    out = [f"Subject {rec.subject} (subjects row {rec.row})",
+           f"  estimate        {_money(rec.estimate)}  ({rec.estimate_kind})",
+           f"  likely mean     {_money(rec.ci_low)} to {_money(rec.ci_high)}"
+           f"   (standard error {_money(rec.se_mean)})",
+           f"  one sale        {_money(rec.pi_low)} to {_money(rec.pi_high)}"
+           f"   (standard error {_money(rec.se_single)})"]
+    if rec.retransform != "none":
+        out.append(f"  median estimate {_money(rec.median_estimate)}; factor "
+                   f"{rec.retransform_factor:.5f} ({rec.retransform})")
+    out.append(f"  leverage        {rec.leverage:.4f} (largest among the sales "
+               f"{rec.max_sales_leverage:.4f})")
+    for flag in filter(None, rec.flags.split("; ")):
+        out.append(f"  watch: {flag}")
+    out.append("")
+    return out
+
+
+def _grid_lines(result) -> list[str]:
+    g = result.grid
+    out = ["Comparables, adjusted to the subject"]
+    for row, block in g.groupby("comp_row", sort=False):
+        feats = block[block["kind"] != "total"]
+        tot = block[block["kind"] == "total"].iloc[0]
+        cells = [[f, _cell(s), _cell(c), _money(a)] for f, s, c, a in
+                 zip(feats["feature"], feats["subject_value"], feats["comp_value"],
+                     feats["adjustment"])]
+        out += ["", f"Comparable: sales row {row}, sold for {_money(tot.sale_price)}",
+                _layout(["feature", "subject", "comparable", "adjustment"], cells),
+                f"  net {_money(tot.net_adjustment)} ({100 * tot.net_pct:+.1f}%), gross "
+                f"{_money(tot.gross_adjustment)} ({100 * tot.gross_pct:.1f}%), adjusted price "
+                f"{_money(tot.adjusted_price)}, weight {tot.weight:.3f}"]
+        for flag in filter(None, str(tot["flags"]).split("; ")):
+            out.append(f"  watch: {flag}")
+    rec = result.reconciled.iloc[0]
+    out += ["", f"Reconciled value {_money(rec.value)} ({rec.weighting} weights); adjusted "
+            f"prices {_money(rec.range_low)} to {_money(rec.range_high)} (spread "
+            f"{100 * rec.spread_pct:.1f}% of the value); model estimate "
+            f"{_money(rec.model_estimate)}"]
+    for flag in filter(None, str(rec["flags"]).split("; ")):
+        out.append(f"  watch: {flag}")
+    return out
+
+
+def _layout(headers, cells) -> str:
+    """Text columns left, the money column (last) right-aligned."""
+    widths = [max(len(h), *(len(r[i]) for r in cells)) for i, h in enumerate(headers)]
+    def line(vals):
+        return "  " + "  ".join(v.rjust(w) if i == len(vals) - 1 else v.ljust(w)
+                                for i, (v, w) in enumerate(zip(vals, widths)))
+    return "\n".join([line(headers)] + [line(r) for r in cells])
+
+
+def _cell(v) -> str:
+    if isinstance(v, pd.Timestamp):
+        return str(v.date())
+    if isinstance(v, float):
+        return f"{v:,.6g}"
+    return str(v)

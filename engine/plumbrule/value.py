@@ -1,0 +1,330 @@
+"""Valuing subject properties: estimates with intervals, log retransformation,
+subject checks, and (through :mod:`plumbrule.grid`) the comparable-sales grid.
+
+Every quantity is computed from the fitted model in its working coordinates
+(centred, scaled, pivoted QR): a subject's leverage and the variance of its
+estimate come from one triangular solve with R, never from inverting X'X.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import difflib
+from dataclasses import dataclass, field
+from typing import Any, Mapping
+
+import numpy as np
+import pandas as pd
+
+from . import intake
+from .errors import IntakeError, SpecError, quote_list
+from .settings import Settings
+
+ESTIMATE_COLUMNS = [
+    "subject", "row", "estimate", "se_mean", "se_single", "ci_low", "ci_high", "pi_low",
+    "pi_high", "estimate_kind", "flags", "median_estimate", "retransform", "retransform_factor",
+    "model_estimate", "model_se_mean", "model_se_single", "leverage", "max_sales_leverage",
+    "trend_months", "valuation_date", "confidence",
+]
+
+
+@dataclass(frozen=True)
+class Subjects:
+    """Subject rows typed like the sales: ``data`` has the spec's predictor
+    columns (and the date column set to the valuation date); ``labels`` names
+    each subject; the index is the subjects sheet's row numbers."""
+
+    data: pd.DataFrame
+    labels: pd.Series
+    x: np.ndarray
+
+
+@dataclass(frozen=True)
+class Valuation:
+    """Estimates (one row per subject), the adjustment grid (one row per
+    comparable × feature plus a total row per comparable) and the reconciled
+    value (one record; empty without comparables). Money is in the units of
+    the sale-price column."""
+
+    estimates: pd.DataFrame
+    grid: pd.DataFrame
+    reconciled: pd.DataFrame
+    valuation_date: _dt.date
+    settings: Settings
+    tables: Mapping[str, pd.DataFrame] = field(default_factory=dict)
+
+
+# --- the entry point --------------------------------------------------------
+
+def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | None = None
+            ) -> Valuation:
+    """Value ``subjects`` (SheetTable, DataFrame or 2-D values with a header)
+    with ``analysis.model``; ``comps`` are sheet rows of the sales table (or
+    taken from the settings' ``comps``). Returns a frozen :class:`Valuation`."""
+    from .grid import adjustment_grid, resolve_comps
+    settings = _settings(analysis, settings)
+    model = analysis.model
+    when = settings.valuation_date or _dt.date.today()
+    subj = read_subjects(model, subjects, when)
+    estimates = estimate_table(model, subj, settings, when)
+    rows = list(comps) if comps else [r for r, _ in settings.comps]
+    comp_set = resolve_comps(analysis, rows)
+    if comp_set is not None and len(subj.data) > 1:
+        raise SpecError(f"Comparables belong to one subject, but {len(subj.data)} subjects "
+                        "were given. Value one subject with 'comps', or leave 'comps' empty.",
+                        setting="comps")
+    grid, reconciled = adjustment_grid(model, subj, comp_set, settings, when,
+                                       estimates=estimates)
+    tables = {"estimates": estimates, "grid": grid, "reconciled": reconciled}
+    return Valuation(estimates=estimates, grid=grid, reconciled=reconciled,
+                     valuation_date=when, settings=settings, tables=tables)
+
+
+def _settings(analysis, settings) -> Settings:
+    if settings is None:
+        return analysis.settings
+    if isinstance(settings, Settings):
+        return settings
+    from .analysis import coerce_settings
+    return coerce_settings(analysis.settings, **dict(settings))
+
+
+# --- subjects ---------------------------------------------------------------
+
+def read_subjects(model, subjects: Any, when: _dt.date) -> Subjects:
+    """Type and encode the subject rows exactly as the sales were encoded."""
+    from .analysis import as_table
+    table = as_table(subjects)
+    frame = table.frame
+    if frame.empty:
+        raise IntakeError("The subjects block has no rows under its header. Enter one row per "
+                          "subject property.")
+    spec, enc = model.spec, model.encoding
+    labels = _labels(frame)
+    data = {}
+    for col in spec.predictors:
+        cells = frame[_subject_column(col, table.columns)]
+        if col in spec.categorical:
+            values, why = intake.to_labels(cells, col)
+        else:
+            try:
+                values, why = intake.to_numbers(cells, col)
+            except IntakeError as err:
+                raise IntakeError(f"Subjects: {err}", column=col, row=err.row) from None
+        _require_values(why, labels, col)
+        data[col] = values
+    data = pd.DataFrame(data, index=frame.index)
+    for col, known in enc.levels:
+        _check_subject_levels(data[col], known, col, labels)
+    if spec.date_column:
+        data[spec.date_column] = pd.Timestamp(when)
+    x = enc.design(data, label="subject row")
+    return Subjects(data=data, labels=labels, x=x)
+
+
+def _labels(frame: pd.DataFrame) -> pd.Series:
+    """The 'Subject' column's text where given, else 'row N' (subjects sheet)."""
+    rows = pd.Series([f"row {r}" for r in frame.index], index=frame.index, dtype=object)
+    name = next((c for c in frame.columns if c.strip().casefold() == "subject"), None)
+    if name is None:
+        return rows
+    text = frame[name].map(lambda v: "" if intake._blank_scalar(v) else str(v).strip())
+    return text.where(text != "", rows)
+
+
+def _subject_column(col: str, columns: list[str]) -> str:
+    if col in columns:
+        return col
+    folded = [c for c in columns if c.casefold() == col.casefold()]
+    if len(folded) == 1:
+        return folded[0]
+    raise SpecError(f"Subjects: there is no column '{col}', which the model uses. Add it with "
+                    "each subject's value (same header as in the sales).", column=col)
+
+
+def _name(labels: pd.Series, row) -> str:
+    label = labels[row]
+    return f"Subject '{label}' (row {row})" if label != f"row {row}" else f"Subject row {row}"
+
+
+def _require_values(why: pd.Series, labels: pd.Series, col: str) -> None:
+    missing = why.notna()
+    if missing.any():
+        row = missing.idxmax()
+        raise IntakeError(f"{_name(labels, row)}, column '{col}': {why[row]}. Enter the "
+                          "subject's value: the estimate needs every predictor.",
+                          column=col, row=int(row))
+
+
+def _check_subject_levels(values: pd.Series, known: tuple[str, ...], col: str,
+                          labels: pd.Series) -> None:
+    unseen = ~values.isin(known)
+    if not unseen.any():
+        return
+    row = unseen.idxmax()
+    close = difflib.get_close_matches(str(values[row]), list(known), n=1, cutoff=0.6)
+    hint = (f"Did you mean '{close[0]}'?" if close else
+            f"Use one of {quote_list(known[:8])}{' ...' if len(known) > 8 else ''}.")
+    raise SpecError(f"{_name(labels, row)}, column '{col}': level '{values[row]}' does not occur "
+                    f"in the sales used, so the model has no effect for it. {hint}",
+                    column=col, row=int(row))
+
+
+# --- the algebra --------------------------------------------------------------
+
+def working_vectors(fit, x: np.ndarray) -> np.ndarray:
+    """v = R_full⁻ᵀ a for each row of ``x`` (m × k, user units), as m × p.
+
+    In working coordinates the design is A = [1/√n, X_s P] = [1/√n, Q]·diag(1, R),
+    and a new row is a = [1/√n, ((x − x̄)/‖·‖)P]. Then leverage = ‖v‖² and
+    var(x'b) = σ²‖v‖² (classical) or vᵀ·meat·v (sandwich), with no X'X formed.
+    """
+    from scipy.linalg import solve_triangular
+    z = ((np.atleast_2d(x) - fit.x_means) / fit.x_norms)[:, fit.pivot]
+    w = solve_triangular(fit.r, z.T, trans="T", check_finite=False).T
+    if fit.has_intercept:
+        w = np.hstack([np.full((w.shape[0], 1), 1.0 / np.sqrt(fit.n)), w])
+    return w
+
+
+def sandwich_meat(fit, kind: str) -> np.ndarray:
+    """[1/√n, Q]ᵀ diag(ω) [1/√n, Q] with the HC1/HC3 weights of ``OLSFit.robust_cov``."""
+    from .ols import _weighted_gram
+    u2 = fit.resid ** 2
+    if kind == "HC1":
+        w = u2 * (fit.n / fit.df_resid)
+    else:  # HC3
+        w = u2 / (1.0 - np.minimum(fit.leverage, 1.0 - 1e-12)) ** 2
+    return _weighted_gram(fit.q, w, fit.has_intercept)
+
+
+def mean_variance(model, v: np.ndarray) -> np.ndarray:
+    """Variance of the estimated mean x'b on the model scale, per row of ``v``;
+    respects the model's robust_se choice."""
+    if model.robust_se:
+        meat = sandwich_meat(model.fit, model.robust_se)
+        return np.einsum("ij,jk,ik->i", v, meat, v)
+    return model.fit.sigma ** 2 * np.einsum("ij,ij->i", v, v)
+
+
+def predict(model, x: np.ndarray) -> np.ndarray:
+    """x'b on the model scale, formed around the column means (no cancellation
+    against a large intercept)."""
+    fit = model.fit
+    b = fit.coef[int(fit.has_intercept):]
+    centre = fit.coef[0] + fit.x_means @ b if fit.has_intercept else 0.0
+    return centre + (np.atleast_2d(x) - fit.x_means) @ b
+
+
+def retransform_factor(model, kind: str) -> float:
+    """Log models: the factor taking exp(x'b) (a median) to a mean estimate.
+    smearing: mean of exp(residuals) (Duan 1983); lognormal: exp(s²/2); median: 1."""
+    from .validate import retransform_factor as factor   # one definition, shared with validation
+    return factor(model.fit.resid, kind, model.fit.df_resid)
+
+
+# --- estimates ----------------------------------------------------------------
+
+def estimate_table(model, subj: Subjects, settings: Settings, when: _dt.date) -> pd.DataFrame:
+    """One row per subject: the estimate on the price scale, its standard errors,
+    the confidence interval of the mean (or median) and the prediction interval
+    for one sale at ``settings.confidence``, and the subject-check flags."""
+    from scipy.stats import t as tdist
+    fit = model.fit
+    v = working_vectors(fit, subj.x)
+    eta = predict(model, subj.x)
+    var_mean = mean_variance(model, v)
+    se_m = np.sqrt(var_mean)
+    se_s = np.sqrt(var_mean + fit.sigma ** 2)
+    q = tdist.ppf(0.5 + settings.confidence / 2.0, fit.df_resid)
+    lev = np.einsum("ij,ij->i", v, v)
+    out = pd.DataFrame({
+        "subject": subj.labels.to_numpy(), "row": subj.data.index.to_numpy(dtype=np.int64),
+        "model_estimate": eta, "model_se_mean": se_m, "model_se_single": se_s,
+        "leverage": lev, "max_sales_leverage": float(np.max(fit.leverage)),
+        "trend_months": _trend_months(model, when, len(eta)),
+        "valuation_date": pd.Timestamp(when), "confidence": settings.confidence,
+    })
+    if model.spec.log_response:
+        out = out.assign(**_log_scale(model, eta, se_m, se_s, q, settings.retransform))
+    else:
+        out = out.assign(estimate=eta, se_mean=se_m, se_single=se_s, ci_low=eta - q * se_m,
+                         ci_high=eta + q * se_m, pi_low=eta - q * se_s, pi_high=eta + q * se_s,
+                         estimate_kind="mean", median_estimate=np.nan, retransform="none",
+                         retransform_factor=np.nan)
+    out["flags"] = subject_flags(model, subj, lev, when)
+    return out[ESTIMATE_COLUMNS]
+
+
+_KIND = {"smearing": "mean, smearing factor", "lognormal": "mean, lognormal factor",
+         "median": "median"}
+
+
+def _log_scale(model, eta, se_m, se_s, q, kind: str) -> dict:
+    """Back to prices. The confidence interval is exp of the log bounds times the
+    factor (an interval for the reported mean or median, the factor taken as
+    known); the prediction interval is exp of the log bounds alone: a quantile
+    interval for one sale's price, which a monotone transform preserves.
+    Standard errors on the price scale are the delta-method estimate × se."""
+    factor = retransform_factor(model, kind)
+    median = np.exp(eta)
+    est = factor * median
+    return dict(estimate=est, se_mean=est * se_m, se_single=est * se_s,
+                ci_low=factor * np.exp(eta - q * se_m), ci_high=factor * np.exp(eta + q * se_m),
+                pi_low=np.exp(eta - q * se_s), pi_high=np.exp(eta + q * se_s),
+                estimate_kind=_KIND[kind], median_estimate=median, retransform=kind,
+                retransform_factor=factor)
+
+
+def _trend_months(model, when: _dt.date, m: int) -> np.ndarray:
+    from .design import months_since
+    origin = model.encoding.date_origin
+    if origin is None:
+        return np.full(m, np.nan)
+    return np.repeat(months_since(pd.Series([pd.Timestamp(when)]), origin), m)
+
+
+# --- subject checks -------------------------------------------------------------
+
+def subject_flags(model, subj: Subjects, leverage: np.ndarray, when: _dt.date) -> list[str]:
+    """Per subject, '; '-joined notes: a value outside the range of the sales used
+    (per numeric column and for the valuation date), and leverage above the
+    largest among the sales (hidden extrapolation). '' when nothing is flagged."""
+    spec, sales = model.spec, model.data
+    notes: list[list[str]] = [[] for _ in range(len(subj.data))]
+    for col in spec.numeric_predictors:
+        lo, hi = float(sales[col].min()), float(sales[col].max())
+        vals = subj.data[col].to_numpy(dtype=float)
+        for i in np.flatnonzero((vals < lo) | (vals > hi)):
+            side = "below the smallest" if vals[i] < lo else "above the largest"
+            edge = lo if vals[i] < lo else hi
+            notes[i].append(f"{col} {vals[i]:,.6g} is {side} in the sales used ({edge:,.6g})")
+    if spec.date_column:
+        first, last = sales[spec.date_column].min(), sales[spec.date_column].max()
+        note = _date_note(pd.Timestamp(when), first, last)
+        if note:
+            for n in notes:
+                n.append(note)
+    top = float(np.max(model.fit.leverage))
+    for i in np.flatnonzero(leverage > top):
+        # With every column in range, high leverage is the hidden kind: the
+        # combination of features, not any one of them, is outside the sales.
+        kind = "extrapolation" if any("in the sales used" in n for n in notes[i]) else \
+            "hidden extrapolation"
+        notes[i].append(f"{kind}: leverage {leverage[i]:.4g} exceeds the largest "
+                        f"among the sales used ({top:.4g}); the sales do not cover this "
+                        "combination of features")
+    return ["; ".join(n) for n in notes]
+
+
+def _date_note(when: pd.Timestamp, first: pd.Timestamp, last: pd.Timestamp) -> str:
+    from .design import DAYS_PER_MONTH
+    if when > last:
+        gap = (when - last).days / DAYS_PER_MONTH
+        return (f"valuation date {when.date()} is {gap:.1f} months after the last sale used "
+                f"({last.date()}): the market trend is carried forward")
+    if when < first:
+        gap = (first - when).days / DAYS_PER_MONTH
+        return (f"valuation date {when.date()} is {gap:.1f} months before the first sale used "
+                f"({first.date()}): the market trend is carried back")
+    return ""

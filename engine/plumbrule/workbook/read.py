@@ -1,0 +1,143 @@
+"""Read the input sheets of a plumbrule workbook with python-calamine (fast).
+
+Sales, Subjects and Comps are read from the Excel table of that name when there
+is one (wherever it sits), else from the sheet of that name (first non-empty row
+is the header). Settings is read as two columns: setting name, value.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from ..errors import WorkbookError
+from ..intake import SheetTable, table_from_values
+
+
+@dataclass(frozen=True)
+class BookInputs:
+    """What a workbook hands to the engine. ``comps`` are Sales sheet rows;
+    ``settings`` maps setting name → raw cell value; ``sales_hash`` is SHA-256 hex."""
+
+    sales: SheetTable
+    subjects: SheetTable | None
+    comps: tuple[int, ...]
+    settings: dict[str, Any]
+    sales_hash: str
+    sales_values: list          # header row first, as read (for a results copy)
+    other_values: dict          # sheet name → 2-D values of Subjects / Comps / Settings
+
+
+def read_inputs(path: str | Path) -> BookInputs:
+    """Read Sales / Subjects / Comps / Settings; errors name the sheet and the fix."""
+    from python_calamine import CalamineWorkbook
+    path = Path(path)
+    try:
+        book = CalamineWorkbook.from_path(str(path), load_tables=True)
+    except Exception as exc:   # calamine's own error types for damaged or encrypted files
+        raise WorkbookError(f"'{path.name}' cannot be read as a workbook ({exc}). Open and save "
+                            "it in your spreadsheet as .xlsx first.") from None
+    try:
+        sales_block, header_row, sheet = _block(book, "Sales", required=True)
+        sales = table_from_values(sales_block, header_row=header_row, sheet=sheet)
+        if len(sales.frame) == 0:
+            raise WorkbookError(f"The Sales table (sheet '{sheet}') has no sales below its header "
+                                "row. Paste your sales into it and run again.", sheet=sheet)
+        other = {}
+        subj_block, subj_row, subj_sheet = _block(book, "Subjects")
+        subjects = None
+        if subj_block and len(subj_block) > 1:
+            other["Subjects"] = subj_block
+            subjects = table_from_values(subj_block, header_row=subj_row, sheet=subj_sheet)
+            if len(subjects.frame) == 0:
+                subjects = None
+        comp_block, comp_row, comp_sheet = _block(book, "Comps")
+        if comp_block:
+            other["Comps"] = comp_block
+        set_block, _, set_sheet = _block(book, "Settings")
+        if set_block:
+            other["Settings"] = set_block
+        return BookInputs(sales=sales, subjects=subjects,
+                          comps=_comp_rows(comp_block, comp_row, comp_sheet),
+                          settings=_settings(set_block), sales_hash=hash_block(sales_block),
+                          sales_values=sales_block, other_values=other)
+    finally:
+        book.close()
+
+
+def _block(book, name: str, required: bool = False) -> tuple[list, int, str | None]:
+    """(values with header first, sheet row of the header, sheet name) for table/sheet ``name``."""
+    tables = {t.lower(): t for t in (book.table_names() or [])} if _has_tables(book) else {}
+    if name.lower() in tables:
+        t = book.get_table_by_name(tables[name.lower()])
+        values = [list(t.columns)] + t.to_python()
+        return values, int(t.start[0]), t.sheet
+    sheets = {s.lower(): s for s in book.sheet_names}
+    if name.lower() in sheets:
+        sheet = sheets[name.lower()]
+        ws = book.get_sheet_by_name(sheet)
+        values = ws.to_python(skip_empty_area=True)
+        start = ws.start[0] if ws.start else 0
+        if not values or not any(str(v).strip() for v in values[0]):
+            if required:
+                raise WorkbookError(f"Sheet '{sheet}' is empty. Put the sales there with a header "
+                                    "row, or use the template (plumbrule new BOOK.xlsx).", sheet=sheet)
+            return [], 1, sheet
+        return values, start + 1, sheet
+    if required:
+        raise WorkbookError(f"The workbook has no table or sheet named '{name}'. Put the sales in "
+                            "a sheet named Sales (or an Excel table named Sales); "
+                            "plumbrule new BOOK.xlsx writes a template.", sheet=name)
+    return [], 1, None
+
+
+def _has_tables(book) -> bool:
+    try:
+        book.table_names()
+    except Exception:   # TablesNotSupported for non-xlsx files
+        return False
+    return True
+
+
+def _comp_rows(block: list, header_row: int, sheet: str | None) -> tuple[int, ...]:
+    """First column below the header: Sales sheet row numbers (blank cells skipped)."""
+    out = []
+    for i, row in enumerate(block[1:], start=header_row + 1):
+        v = row[0] if row else None
+        if v is None or (isinstance(v, str) and not v.strip()):
+            continue
+        try:
+            f = float(str(v).strip()) if not isinstance(v, (int, float)) or isinstance(v, bool) else float(v)
+            if isinstance(v, bool) or f != int(f) or f < 2:
+                raise ValueError
+        except ValueError:
+            raise WorkbookError(f"Sheet '{sheet}', cell A{i}: '{v}' is not a row number of the "
+                                "Sales sheet. Enter the sheet row of a comparable sale (e.g. 12).",
+                                sheet=sheet, row=i) from None
+        out.append(int(f))
+    return tuple(out)
+
+
+def _settings(block: list) -> dict[str, Any]:
+    """Rows (name, value); a header row named 'Setting' and blank names are skipped."""
+    out: dict[str, Any] = {}
+    for row in block:
+        if not row:
+            continue
+        name = row[0]
+        if name is None or not str(name).strip() or str(name).strip().lower() == "setting":
+            continue
+        value = row[1] if len(row) > 1 else None
+        out[str(name).strip()] = value
+    return out
+
+
+def hash_block(values: list) -> str:
+    """SHA-256 (hex) of a block of cell values, type-aware (1 and '1' differ)."""
+    h = hashlib.sha256()
+    for row in values:
+        h.update("\x1f".join(map(repr, row)).encode("utf-8", "surrogatepass"))
+        h.update(b"\x1e")
+    return h.hexdigest()

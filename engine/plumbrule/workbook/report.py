@@ -1,0 +1,554 @@
+"""The Report sheet: what the analysis found, written for a reader who must act.
+
+``write_report(book, analysis, valuation, stamp) -> None`` fills ``book['Report']``
+(created here when the writer has not made it) and puts the charts' source data
+on a ``Chart data`` sheet (a result sheet: a rerun replaces it). Every number is
+read from the analysis and valuation tables; this module only arranges,
+formats and explains them. Charts are native workbook charts (openpyxl.chart),
+so they redraw in Excel and LibreOffice and print to PDF.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from . import cells
+from .cells import MONEY, PERCENT, put, sig3
+
+CAUTION = ("A statistical estimate, not an appraisal: the licensed appraiser's judgement, "
+           "professional standards such as USPAP and local rules govern.")
+CAUTIONS = (
+    CAUTION,
+    "The model describes the sales it was fitted on. For a property unlike them (see the "
+    "flags beside each estimate) the estimate is an extrapolation and may be far off.",
+    "The intervals assume the checks above hold. Where a check says 'watch' or 'fails', treat "
+    "the interval as approximate and read that check's note.",
+    "Every sale set aside is listed with its rule on the Screening sheet; a reader should "
+    "agree with each before relying on the value.",
+    "Ratio-study targets are those of the IAAO Standard on Ratio Studies (2013) unless the "
+    "settings changed them; local rules may set others.",
+)
+REPORT, CHART_DATA = "Report", "Chart data"
+WIDTHS = {"A": 34, "B": 15, "C": 15, "D": 15, "E": 15, "F": 15, "G": 52}
+LAST_COL = 7
+CHART_W, CHART_H = 15.0, 8.5     # cm; two side by side fill the printed width
+VERDICT_FILL = {"ok": "DCEFDC", "watch": "FCE9C4", "fails": "F6CFCB", "n/a": "E8E8E8"}
+
+
+def write_report(book, analysis, valuation, stamp) -> None:
+    """Fill the Report sheet (text, tables, charts, cautions, audit stamp)."""
+    cells.ensure_styles(book)
+    ws = book[REPORT] if REPORT in book.sheetnames else book.create_sheet(REPORT, 0)
+    if CHART_DATA in book.sheetnames:
+        del book[CHART_DATA]
+    data_ws = book.create_sheet(CHART_DATA)
+    for col, width in WIDTHS.items():
+        ws.column_dimensions[col].width = width
+    ctx = _Context(analysis, valuation, stamp)
+    r = _header(ws, ctx)
+    r = _headline(ws, ctx, r + 1)
+    r = _valuation(ws, ctx, r + 1)
+    r = _checks(ws, ctx, _page_break(ws, r))
+    r = _screening(ws, ctx, r + 1)
+    r = _ratio_study(ws, ctx, r + 1)
+    r = _charts(ws, data_ws, ctx, _page_break(ws, r))
+    r = _cautions(ws, _page_break(ws, r))
+    r = _stamp(ws, stamp, r + 1)
+    _top_align(ws)
+    _page_setup(ws, r)
+    data_ws.sheet_properties.tabColor = "9FB3BD"
+    data_ws.sheet_state = "hidden"     # printing the workbook should not print the points
+
+
+# --- what the sections read ---------------------------------------------------
+
+class _Context:
+    def __init__(self, analysis, valuation, stamp):
+        self.analysis = analysis
+        self.valuation = valuation
+        self.stamp = stamp
+        self.model = analysis.model
+        self.spec = analysis.model.spec
+        self.tables = analysis.tables
+        self.fit = analysis.tables["fit"].iloc[0]
+        self.log = bool(self.spec.log_response)
+        self.response = self.spec.response
+        est = getattr(valuation, "estimates", None)
+        self.estimates = est if isinstance(est, pd.DataFrame) and len(est) else None
+        rec = getattr(valuation, "reconciled", None)
+        self.reconciled = rec if isinstance(rec, pd.DataFrame) and len(rec) else None
+        settings = getattr(valuation, "settings", None) or analysis.settings
+        self.level = float(getattr(settings, "confidence", 0.95))
+        self.retransform = getattr(settings, "retransform", "smearing")
+
+    def table(self, name):
+        t = self.tables.get(name)
+        return t if isinstance(t, pd.DataFrame) and len(t) else None
+
+
+# --- sections -------------------------------------------------------------------
+
+def _header(ws, ctx) -> int:
+    r = cells.title(ws, 1, f"Valuation report: {ctx.response}")
+    when = getattr(ctx.stamp, "time", "")
+    src = getattr(ctx.stamp, "source", "")
+    put(ws, r, 1, f"Prepared by plumbrule {getattr(ctx.stamp, 'version', '')}"
+                  f"{' on ' + str(when) if when else ''}{' from ' + src if src else ''}.",
+        style="plumb_note")
+    r += 1
+    c = _wrapped(ws, r, 1, CAUTION, span=LAST_COL)
+    from openpyxl.styles import Font, PatternFill
+    c.font = Font(bold=True, color="7A2E1F")
+    c.fill = PatternFill("solid", fgColor="FBEFE9")
+    r += 2
+    r = _section(ws, r, "The model in one sentence")
+    _wrapped(ws, r, 1, model_sentence(ctx), span=LAST_COL)
+    return r + 1
+
+
+def model_sentence(ctx) -> str:
+    """'The logarithm of Sale price is explained by … ; it accounts for …'."""
+    spec, enc = ctx.spec, ctx.model.encoding
+    levels = dict(enc.levels)
+    parts = []
+    for col in spec.predictors:
+        if col in levels:
+            parts.append(f"{col} ({len(levels[col])} levels, each compared with "
+                         f"'{levels[col][0]}')")
+        elif col in spec.log_predictors:
+            parts.append(f"{col} (as a logarithm)")
+        else:
+            parts.append(col)
+    if spec.date_column:
+        parts.append(f"a market trend per month since {enc.date_origin.date()} "
+                     f"('{spec.date_column}')")
+    what = f"The logarithm of {ctx.response}" if ctx.log else ctx.response
+    joined = ", ".join(parts[:-1]) + " and " + parts[-1] if len(parts) > 1 else parts[0]
+    n = int(ctx.fit["n_used"])
+    r2 = float(ctx.fit["r_squared"])
+    sigma = float(ctx.fit["resid_std_error"])
+    if ctx.log:
+        spread = (f"a single sale typically lies within about ±{math.expm1(sigma):.0%} of the "
+                  "model (one residual standard error)")
+    else:
+        spread = (f"a single sale typically lies within about ±{sigma:,.0f} of the model "
+                  "(one residual standard error)")
+    scale = "of the log price" if ctx.log else "of the price"
+    return (f"{what} is explained by {joined}, fitted by least squares to {n:,} sales; the "
+            f"model accounts for {r2:.1%} of the variation {scale}, and {spread}.")
+
+
+def _headline(ws, ctx, r) -> int:
+    r = _section(ws, r, "Headline numbers")
+    rows: list[tuple[str, Any, Any, str, str]] = []   # label, value, value2, format, comment
+    if ctx.estimates is not None:
+        e = ctx.estimates.iloc[0]
+        rows.append((f"Estimate for {e.get('subject', 'the subject')}", e["estimate"], None,
+                     MONEY, _kind_text(e)))
+        rows.append((f"{ctx.level:.0%} prediction interval for one sale", e["pi_low"],
+                     e["pi_high"], MONEY, "low and high: where the price of one such sale "
+                     "should fall"))
+    if ctx.reconciled is not None:
+        rec = ctx.reconciled.iloc[0]
+        rows.append(("Reconciled value from the comparables", rec.get("value"), None, MONEY,
+                     f"adjusted prices range {_money(rec.get('range_low'))} to "
+                     f"{_money(rec.get('range_high'))}"))
+    n_used = int(ctx.fit["n_used"])
+    rows.append(("Sales used in the fit", n_used, None, "#,##0",
+                 _set_aside_text(ctx)))
+    rows.append(("Share of variation explained (R²)", ctx.fit["r_squared"], None, PERCENT,
+                 f"adjusted R² {float(ctx.fit['adj_r_squared']):.1%}"
+                 + (", on the log scale" if ctx.log else "")))
+    trend = _trend(ctx)
+    if trend:
+        rows.append(trend)
+    rs = ctx.table("ratio_study")
+    if rs is not None:
+        first = rs.iloc[0]
+        for key, label, fmt in (("median_ratio", "Median ratio (holdout)", "0.000"),
+                                ("cod", "COD (holdout)", "0.0"), ("prd", "PRD (holdout)", "0.000"),
+                                ("prb", "PRB (holdout)", "0.000")):
+            if key in rs.columns:
+                rows.append((label, first[key], None, fmt, _verdict_of(rs, 0, key)))
+    from openpyxl.styles import Font
+    for label, v1, v2, fmt, comment in rows:
+        put(ws, r, 1, label, style="plumb_label")
+        c = put(ws, r, 2, v1, fmt)
+        c.font = Font(bold=True)
+        if v2 is not None:
+            put(ws, r, 3, v2, fmt).font = Font(bold=True)
+        _wrapped(ws, r, 4, comment, span=LAST_COL - 3, style="plumb_note")
+        r += 1
+    return r
+
+
+def _kind_text(e) -> str:
+    kind = str(e.get("estimate_kind", "") or "")
+    text = f"the {kind} estimate" if kind else "the model's estimate"
+    if "valuation_date" in e and pd.notna(e["valuation_date"]):
+        text += f", valued at {pd.Timestamp(e['valuation_date']).date()}"
+    return text
+
+
+def _set_aside_text(ctx) -> str:
+    parts = []
+    n_screened = _int(ctx.fit.get("n_screened"))
+    n_dropped = _int(ctx.fit.get("n_dropped"))
+    n_holdout = _int(ctx.fit.get("n_holdout"))
+    if n_screened:
+        parts.append(f"{n_screened:,} set aside by screening")
+    if n_dropped:
+        parts.append(f"{n_dropped:,} dropped for missing values")
+    if n_holdout:
+        parts.append(f"{n_holdout:,} held out to test the model")
+    return "; ".join(parts) if parts else "no sale was set aside"
+
+
+def _trend(ctx):
+    if not ctx.spec.date_column:
+        return None
+    coef = ctx.tables["coefficients"]
+    row = coef[coef["term"] == ctx.model.encoding.terms[-1].name]
+    if not len(row):
+        return None
+    b, p = float(row["estimate"].iloc[0]), float(row["p_value"].iloc[0])
+    if ctx.log:
+        return ("Market trend per month", math.expm1(b), None, "0.00%",
+                f"prices change by this share each month (p-value {p:.3g})")
+    return ("Market trend per month", b, None, MONEY, f"price change per month (p-value {p:.3g})")
+
+
+def _valuation(ws, ctx, r) -> int:
+    r = _section(ws, r, "The valuation")
+    if ctx.estimates is None:
+        _wrapped(ws, r, 1, "No subject was valued. Enter the subject's features on the Subjects "
+                           "sheet and run plumbrule again.", span=LAST_COL)
+        return r + 1
+    est = ctx.estimates
+    r = _heads(ws, r, ["Subject", "Estimate", "Interval low", "Interval high", "Mean low",
+                       "Mean high", "What to watch"], numeric=(2, 3, 4, 5, 6))
+    for _, e in est.head(50).iterrows():
+        put(ws, r, 1, e.get("subject"))
+        for j, key in enumerate(("estimate", "pi_low", "pi_high", "ci_low", "ci_high"), start=2):
+            put(ws, r, j, e.get(key), MONEY)
+        flags = str(e.get("flags") or "") or "nothing flagged"
+        _wrapped(ws, r, 7, flags, span=1)
+        r += 1
+    if len(est) > 50:
+        r = cells.note(ws, r, f"… and {len(est) - 50} more subjects on the Valuation sheet.")
+    _wrapped(ws, r, 1, f"'Interval' is the {ctx.level:.0%} prediction interval for the price of "
+                       f"one sale of such a property; 'Mean' is the {ctx.level:.0%} confidence "
+                       "interval of the average price of many such properties."
+                       + (" The model is in logs: the intervals are exp of the log-scale bounds"
+                          " and so are not symmetric about the estimate." if ctx.log else ""),
+             span=LAST_COL, style="plumb_note")
+    r += 1
+    if ctx.reconciled is not None:
+        rec = ctx.reconciled.iloc[0]
+        text = (f"Sales comparison: the comparables' adjusted prices reconcile to "
+                f"{_money(rec.get('value'))} (range {_money(rec.get('range_low'))} to "
+                f"{_money(rec.get('range_high'))}). The adjustment grid is on the Valuation "
+                "sheet.")
+        _wrapped(ws, r, 1, text, span=LAST_COL)
+        r += 1
+    return r
+
+
+def _checks(ws, ctx, r) -> int:
+    r = _section(ws, r, "What the checks found")
+    checks = ctx.table("checks")
+    if checks is None:
+        return cells.note(ws, r, "No checks were run.")
+    counts = checks["verdict"].value_counts()
+    summary = ", ".join(f"{int(counts.get(v, 0))} {v}" for v in ("ok", "watch", "fails")
+                        if counts.get(v, 0))
+    act = ("Nothing fails." if not counts.get("fails", 0) else
+           "Resolve each 'fails' before relying on the value.")
+    if counts.get("watch", 0):
+        act += " Read each 'watch': it says what it means for the valuation."
+    _wrapped(ws, r, 1, f"{summary}. {act}", span=LAST_COL)
+    r += 1
+    r = _heads(ws, r, ["Check", "Verdict", "Statistic", "p-value", "Threshold", "",
+                       "What it means for the valuation"], numeric=(3, 4))
+    from openpyxl.styles import Alignment, PatternFill
+    for _, c in checks.iterrows():
+        put(ws, r, 1, c["check"]).alignment = Alignment(wrap_text=True, vertical="top")
+        v = str(c["verdict"])
+        vc = put(ws, r, 2, v)
+        vc.fill = PatternFill("solid", fgColor=VERDICT_FILL.get(v, "FFFFFF"))
+        vc.alignment = Alignment(horizontal="center", vertical="top")
+        put(ws, r, 3, c["statistic"], sig3(c["statistic"]))
+        put(ws, r, 4, c["p_value"], sig3(c["p_value"]))
+        thr = put(ws, r, 5, c["threshold"])
+        thr.alignment = Alignment(wrap_text=True, vertical="top")
+        ws.merge_cells(start_row=r, start_column=5, end_row=r, end_column=6)
+        _wrapped(ws, r, 7, c["note"], span=1, lines_with=(str(c["threshold"]), 30))
+        r += 1
+    return r
+
+
+def _screening(ws, ctx, r) -> int:
+    r = _section(ws, r, "Sales set aside")
+    log = ctx.table("screen_log")
+    dropped = ctx.table("dropped_rows")
+    summary = ctx.table("screen_summary")
+    sentences = []
+    if summary is not None and "kind" in summary.columns:
+        rows = summary[summary["kind"] == "rows"]
+        if len(rows):
+            rec = rows.iloc[0]
+            sentences.append(f"Screening looked at {int(rec['rows_before']):,} complete sales and "
+                             f"set {int(rec['excluded']):,} aside "
+                             f"({float(rec['share_excluded']):.1%}), leaving "
+                             f"{int(rec['rows_after']):,}.")
+        for _, rule in summary[summary["kind"] == "rule"].iterrows():
+            sentences.append(f"The {rule['item']} rule set aside {int(rule['excluded']):,} of "
+                             f"{int(rule['rows_before']):,}.")
+    elif log is None:
+        sentences.append("No screening rule was set, so every complete sale entered the fit. "
+                         "Settings such as trim_percentiles, iqr_fence or influence_screen set "
+                         "unusual sales aside by a rule you can defend.")
+    if dropped is not None:
+        sentences.append(f"{len(dropped):,} sheet rows were dropped because a used cell was "
+                         "blank or an error value; the Model sheet lists them.")
+    if log is not None and summary is None:
+        sentences.append(f"{len(log):,} sales were set aside; each is listed on the Screening "
+                         "sheet with its rule.")
+    _wrapped(ws, r, 1, " ".join(sentences) or "No sale was set aside.", span=LAST_COL)
+    r += 1
+    if log is not None:
+        show = log.head(15)
+        r = _heads(ws, r, ["Sheet row", "Rule", "Column", "Value", "Limit", "", "Reason"],
+                   numeric=(4, 5))
+        from openpyxl.styles import Alignment
+        for _, e in show.iterrows():
+            put(ws, r, 1, e.get("row"), "0").alignment = Alignment(horizontal="left")
+            put(ws, r, 2, e.get("rule"))
+            put(ws, r, 3, e.get("column"))
+            put(ws, r, 4, e.get("value"), _value_format(e.get("value")))
+            put(ws, r, 5, e.get("limit"), _value_format(e.get("limit")))
+            _wrapped(ws, r, 7, e.get("reason"), span=1)
+            r += 1
+        if len(log) > len(show):
+            r = cells.note(ws, r, f"… and {len(log) - len(show)} more on the Screening sheet.")
+    return r
+
+
+_MEASURES = (("median_ratio", "Median ratio", "0.000", "0.90 to 1.10"),
+             ("cod", "COD", "0.0", None),
+             ("prd", "PRD", "0.000", "0.98 to 1.03"),
+             ("prb", "PRB", "0.000", "within ±0.05"))
+
+
+def _ratio_study(ws, ctx, r) -> int:
+    r = _section(ws, r, "Sales-ratio study (estimate ÷ sale price, on the holdout)")
+    rs = ctx.table("ratio_study")
+    if rs is None:
+        _wrapped(ws, r, 1, "No holdout was set aside, so the model was not tested on sales it "
+                           "has not seen. Set 'holdout' (e.g. 0.3) or 'holdout_recent' to run "
+                           "the ratio study.", span=LAST_COL)
+        return r + 1
+    cod_target = {"residential": "15 or less", "newer-residential": "10 or less",
+                  "other": "20 or less"}.get(ctx.analysis.settings.property_class, "")
+    r = _heads(ws, r, ["Group", "Sales", "Median ratio", "COD", "PRD", "PRB", "Verdicts"],
+               numeric=(2, 3, 4, 5, 6))
+    for i, (_, s) in enumerate(rs.head(20).iterrows()):
+        put(ws, r, 1, s.get("stratum", "all"))
+        put(ws, r, 2, s.get("n"), "#,##0")
+        for j, (key, _, fmt, _) in enumerate(_MEASURES, start=3):
+            put(ws, r, j, s.get(key), fmt)
+        verdicts = [f"{label}: {_verdict_of(rs, i, key)}" for key, label, _, _ in _MEASURES
+                    if _verdict_of(rs, i, key)]
+        _wrapped(ws, r, 7, "; ".join(verdicts), span=1)
+        r += 1
+    if "note" in rs.columns:
+        for _, s in rs.head(20).iterrows():
+            if isinstance(s["note"], str) and s["note"].strip():
+                _wrapped(ws, r, 1, f"{s.get('stratum', 'all')}: {s['note']}", span=LAST_COL)
+                r += 1
+    targets = "; ".join(f"{label} {_target_of(rs, key, target or cod_target)}"
+                        for key, label, _, target in _MEASURES)
+    _wrapped(ws, r, 1, f"Targets: {targets} (IAAO Standard on Ratio Studies, 2013, unless the "
+                       "settings changed them). A median ratio near 1 means the model values at "
+                       "market level; a low COD means uniform values; PRD and PRB near their "
+                       "targets mean cheap and dear properties are valued alike.",
+             span=LAST_COL, style="plumb_note")
+    return r + 1
+
+
+def _cautions(ws, r) -> int:
+    r = _section(ws, r, "Cautions")
+    for text in CAUTIONS:
+        _wrapped(ws, r, 1, "• " + text, span=LAST_COL)
+        r += 1
+    return r
+
+
+def _stamp(ws, stamp, r) -> int:
+    r = _section(ws, r, "Audit stamp")
+    rows = stamp.rows() if hasattr(stamp, "rows") else _stamp_rows(stamp)
+    for label, value in rows:
+        put(ws, r, 1, label, style="plumb_label")
+        _wrapped(ws, r, 2, value, span=LAST_COL - 1)
+        r += 1
+    return r
+
+
+def _stamp_rows(stamp) -> list[tuple[str, Any]]:
+    from dataclasses import fields, is_dataclass
+    names = ([f.name for f in fields(stamp)] if is_dataclass(stamp) else
+             ["version", "time", "sales_hash", "settings", "rows_used", "rows_set_aside"])
+    return [(n.replace("_", " ").capitalize(), _plain_text(getattr(stamp, n, "")))
+            for n in names]
+
+
+# --- charts -----------------------------------------------------------------------
+
+def _charts(ws, data_ws, ctx, r) -> int:
+    from . import report_charts as rc
+    r = _section(ws, r, "Charts")
+    _wrapped(ws, r, 1, "Their data are on the hidden sheet 'Chart data' (unhide it to see "
+                       "them). Each chart shows every sale "
+                       f"used, or an evenly spaced sample of {rc.MAX_POINTS:,} when there are more "
+                       "(the title says so).", span=LAST_COL, style="plumb_note")
+    r += 1
+    charts = rc.build_charts(data_ws, ctx)
+    row_step = 17       # rows a chart of CHART_H cm covers at the default row height
+    top = r
+    for i, chart in enumerate(charts):
+        if i and i % 4 == 0:                  # two rows of charts per printed page
+            top = _page_break(ws, top + 2 * row_step) + 1   # a chart's frame must not
+        col = "A" if i % 2 == 0 else "E"                    # straddle the page edge
+        chart.width, chart.height = CHART_W, CHART_H
+        ws.add_chart(chart, f"{col}{top + ((i % 4) // 2) * row_step}")
+    if not charts:
+        return r
+    return top + (((len(charts) - 1) % 4) // 2 + 1) * row_step
+
+
+# --- cell helpers ---------------------------------------------------------------------
+
+def _heads(ws, r, heads, numeric=()) -> int:
+    """A header band; headers over number columns are right-aligned like their numbers."""
+    from openpyxl.styles import Alignment
+    for j, h in enumerate(heads, start=1):
+        c = put(ws, r, j, h, style="plumb_header")
+        if j in numeric:
+            c.alignment = Alignment(horizontal="right", wrap_text=True, vertical="top")
+    return r + 1
+
+
+def _section(ws, r, text) -> int:
+    from openpyxl.styles import Border, Font, Side
+    c = put(ws, r, 1, text)
+    c.font = Font(bold=True, size=12, color=cells.TITLE_COLOUR)
+    line = Side(style="medium", color=cells.TITLE_COLOUR)
+    for col in range(1, LAST_COL + 1):
+        ws.cell(row=r, column=col).border = Border(bottom=line)
+    return r + 1
+
+
+def _wrapped(ws, r, col, text, span=1, style=None, lines_with=None):
+    """Text wrapped across ``span`` columns; the row grows to fit (an estimate:
+    spreadsheets do not refit merged rows on open)."""
+    from openpyxl.styles import Alignment
+    text = "" if text is None else _plain_text(text)
+    c = put(ws, r, col, text, style=style)
+    c.alignment = Alignment(wrap_text=True, vertical="top")
+    if span > 1:
+        ws.merge_cells(start_row=r, start_column=col, end_row=r, end_column=col + span - 1)
+    width = sum(WIDTHS.get(_letter(k), 10) for k in range(col, col + span))
+    lines = _lines(text, width)
+    if lines_with:
+        lines = max(lines, _lines(*lines_with))
+    current = ws.row_dimensions[r].height or 15
+    ws.row_dimensions[r].height = max(current, 15 * lines)
+    return c
+
+
+def _lines(text: str, width: float) -> int:
+    per_line = max(10, int(width * 1.1))     # characters per line at the default font
+    return sum(max(1, math.ceil(len(part) / per_line)) for part in str(text).split("\n"))
+
+
+def _letter(k: int) -> str:
+    from openpyxl.utils import get_column_letter
+    return get_column_letter(k)
+
+
+def _page_setup(ws, last_row: int) -> None:
+    ws.print_area = f"A1:{_letter(LAST_COL)}{last_row}"
+    ws.page_setup.orientation = "landscape"
+    ws.page_setup.paperSize = ws.PAPERSIZE_A4
+    ws.page_setup.fitToWidth = 1
+    ws.page_setup.fitToHeight = 0
+    ws.sheet_properties.pageSetUpPr.fitToPage = True
+    ws.sheet_view.showGridLines = False
+    ws.oddFooter.center.text = "plumbrule report: a statistical estimate, not an appraisal"
+
+
+def _verdict_of(frame: pd.DataFrame, i: int, key: str) -> str:
+    short = key.replace("_ratio", "")
+    for name in (f"{key}_verdict", f"{short}_verdict", f"verdict_{key}"):
+        if name in frame.columns:
+            v = frame[name].iloc[i]
+            return "" if v is None or (isinstance(v, float) and v != v) else str(v)
+    return ""
+
+
+def _target_of(frame: pd.DataFrame, key: str, default: str) -> str:
+    short = key.replace("_ratio", "")
+    for name in (f"{key}_target", f"{short}_target"):
+        if name in frame.columns and len(frame) and isinstance(frame[name].iloc[0], str):
+            return frame[name].iloc[0]
+    return default
+
+
+def _page_break(ws, r) -> int:
+    """Start the next section on a new printed page; returns its first row."""
+    from openpyxl.worksheet.pagebreak import Break
+    ws.row_breaks.append(Break(id=r))
+    return r + 1
+
+
+def _top_align(ws) -> None:
+    """Numbers beside wrapped text sit at the top of the row, like the text."""
+    from openpyxl.styles import Alignment
+    for row in ws.iter_rows():
+        for c in row:
+            if c.value is not None and c.alignment.vertical != "top":
+                a = c.alignment
+                c.alignment = Alignment(horizontal=a.horizontal, wrap_text=a.wrap_text,
+                                        vertical="top")
+
+
+def _value_format(v):
+    """Whole numbers as whole numbers, anything else to 3 significant digits."""
+    if not _is_num(v):
+        return None
+    return "#,##0" if float(v) == round(float(v)) else sig3(v)
+
+
+def _money(v) -> str:
+    return f"{float(v):,.0f}" if _is_num(v) else "—"
+
+
+def _is_num(v) -> bool:
+    try:
+        return v is not None and not isinstance(v, (str, bool)) and math.isfinite(float(v))
+    except (TypeError, ValueError):
+        return False
+
+
+def _int(v) -> int:
+    return int(v) if _is_num(v) else 0
+
+
+def _plain_text(v) -> str:
+    if isinstance(v, dict):
+        return "; ".join(f"{k}={x}" for k, x in v.items())
+    return "" if v is None else str(v)

@@ -1,0 +1,235 @@
+"""``plumbrule run BOOK.xlsx``: read the inputs, run the analysis, write the results.
+
+The book is updated in place only when that loses nothing: plumbrule's own result
+sheets (recorded in the hidden defined name ``plumb_sheets``) are replaced and every
+other part is carried through by openpyxl. When the book holds parts openpyxl cannot
+carry (see :mod:`.safety`), it is left untouched and the results go to
+``BOOK.results.xlsx`` (a copy of the input values plus the result sheets).
+
+Writes go to a temporary file in the same folder, then ``os.replace``; the previous
+version is kept as ``BOOK.xlsx.bak`` unless the ``backup`` setting is FALSE.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import os
+import shutil
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from ..errors import WorkbookError
+from . import INPUT_SHEETS, RESULT_SHEETS
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """Where the results went and the headline numbers (plain floats, price scale)."""
+
+    written: Path
+    in_place: bool
+    unsupported: tuple[str, ...]
+    backup: Path | None
+    headline: dict[str, Any] = field(default_factory=dict)
+    analysis: Any = None
+    valuation: Any = None
+
+
+def run_book(path: str | Path, backup: bool | None = None,
+             now: _dt.datetime | None = None) -> RunResult:
+    """Run the analysis described by the workbook at ``path`` into it (see module doc).
+
+    ``backup`` overrides the workbook's ``backup`` setting; ``now`` fixes the stamp time.
+    Raises :class:`WorkbookError` (or another PlumbError) with nothing written.
+    """
+    from .read import read_inputs
+    from .safety import check_not_open, inspect_book
+    path = Path(path)
+    check_not_open(path)
+    parts = inspect_book(path)
+    inputs = read_inputs(path)
+    analysis, valuation, settings = _analyse(inputs)
+    from .stamp import make_stamp
+    stamp = make_stamp(analysis, inputs.sales_hash, source=path.name, now=now)
+    keep_bak = settings.backup if backup is None else backup
+    if parts.unsupported:
+        target = path.with_name(path.stem + ".results.xlsx")
+        check_not_open(target)
+        book = _results_book(inputs)
+    else:
+        target = path
+        book = _load(path, parts)
+    write_results(book, analysis, valuation, stamp)
+    bak = save_atomic(book, target, keep_bak)
+    return RunResult(written=target, in_place=not parts.unsupported,
+                     unsupported=parts.unsupported, backup=bak,
+                     headline=headline(analysis, valuation), analysis=analysis,
+                     valuation=valuation)
+
+
+def _analyse(inputs):
+    from ..analysis import analyze
+    from ..settings import parse_settings
+    settings = parse_settings(inputs.settings)
+    analysis = analyze(inputs.sales, settings)
+    valuation = None
+    if inputs.subjects is not None:
+        from ..value import valuate
+        comps = list(inputs.comps) or [r for r, _ in settings.comps]
+        subjects = inputs.subjects
+        if comps and len(subjects.frame) > 1:
+            # comparables belong to the first subject; every subject gets its estimate
+            from dataclasses import replace
+            from ..intake import SheetTable
+            first = SheetTable(subjects.frame.iloc[:1], subjects.sheet, subjects.header_row)
+            with_grid = valuate(analysis, first, comps, settings)
+            every = valuate(analysis, subjects, (), settings.replace(comps=()))
+            valuation = replace(with_grid, estimates=every.estimates,
+                                tables={**with_grid.tables, "estimates": every.estimates})
+        else:
+            valuation = valuate(analysis, subjects, comps, settings)
+    return analysis, valuation, settings
+
+
+def _load(path: Path, parts):
+    """The user's book through openpyxl, with our old result sheets removed."""
+    import warnings
+    from openpyxl import load_workbook
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")      # openpyxl warns about parts we already checked
+        try:
+            book = load_workbook(path, keep_vba=parts.macro_enabled, rich_text=True,
+                                 keep_links=True)
+        except WorkbookError:
+            raise
+        except Exception as exc:
+            raise WorkbookError(f"'{path.name}' cannot be opened for writing ({exc}). Open and "
+                                "save it in your spreadsheet first; nothing was written.") from None
+    ours = {s.lower() for s in parts.result_sheets}
+    for ws in list(book.worksheets) + list(book.chartsheets):
+        low = ws.title.lower()
+        if low in ours:
+            book.remove(ws)
+        elif low in {s.lower() for s in RESULT_SHEETS}:
+            raise WorkbookError(
+                f"The workbook already has a sheet '{ws.title}' that plumbrule did not write. "
+                f"Rename it: plumbrule writes its results to the sheets "
+                f"{', '.join(RESULT_SHEETS[:-1])}. Nothing was written.", sheet=ws.title)
+    return book
+
+
+def _results_book(inputs):
+    """A fresh book: the input values (as text-safe values) for the result sheets to sit beside."""
+    from openpyxl import Workbook
+    from .cells import put
+    book = Workbook()
+    book.remove(book.active)
+    blocks = {"Sales": inputs.sales_values, **inputs.other_values}
+    for name in INPUT_SHEETS:
+        block = blocks.get(name)
+        if not block:
+            continue
+        ws = book.create_sheet(name)
+        for i, row in enumerate(block, start=1):
+            for j, v in enumerate(row, start=1):
+                if v is not None and v != "":
+                    put(ws, i, j, v)
+    return book
+
+
+def write_results(book, analysis, valuation, stamp) -> None:
+    """Create and fill the result sheets (Report first) and the headline names."""
+    from . import live, report
+    from .cells import ensure_styles
+    from .sheets import write_model, write_screening, write_validation, write_valuation
+    ensure_styles(book)
+    sheets = {name: book.create_sheet(name) for name in RESULT_SHEETS if name != "Chart data"}
+    write_model(sheets["Model"], analysis, stamp)
+    write_screening(sheets["Screening"], analysis)
+    write_validation(sheets["Validation"], analysis)
+    write_valuation(sheets["Valuation"], analysis, valuation, live.write_live_block)
+    report.write_report(book, analysis, valuation, stamp)
+    written = [n for n in RESULT_SHEETS if n in book.sheetnames]
+    _record_sheets(book, written)
+    for ws in book.worksheets:
+        ws.sheet_view.tabSelected = False
+    book.active = book.sheetnames.index("Report")
+    book["Report"].sheet_view.tabSelected = True
+
+
+def _record_sheets(book, names: list[str]) -> None:
+    """Hidden defined name listing our sheets, so a rerun knows what it may replace."""
+    from openpyxl.workbook.defined_name import DefinedName
+    if "plumb_sheets" in book.defined_names:
+        del book.defined_names["plumb_sheets"]
+    text = "|".join(names).replace('"', '""')
+    book.defined_names["plumb_sheets"] = DefinedName("plumb_sheets", attr_text=f'"{text}"',
+                                                     hidden=True)
+
+
+def save_atomic(book, target: Path, backup: bool) -> Path | None:
+    """Save to a temp file beside ``target``, keep ``target.bak`` if asked, then replace.
+    Returns the backup path (or None). On failure nothing at ``target`` changes."""
+    tmp = target.with_name(f".~plumbrule-{os.getpid()}-{target.name}")
+    bak = target.with_name(target.name + ".bak") if backup and target.exists() else None
+    try:
+        book.save(tmp)
+        if bak is not None:
+            bak_tmp = bak.with_name(bak.name + ".tmp")
+            shutil.copy2(target, bak_tmp)
+            os.replace(bak_tmp, bak)
+        os.replace(tmp, target)
+    except OSError as exc:
+        raise WorkbookError(f"Cannot write '{target}' ({exc.strerror or exc}). Check the folder "
+                            "is writable and the file is not open elsewhere; the workbook was "
+                            "not changed.") from None
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+    return bak
+
+
+def headline(analysis, valuation) -> dict[str, Any]:
+    """The numbers behind the plumb_ defined names, as plain values."""
+    from ..render_json import jsonable
+    fit = analysis.tables["fit"].iloc[0]
+    out: dict[str, Any] = {"r_squared": fit["r_squared"], "n_used": int(fit["n_used"])}
+    study = analysis.tables.get("ratio_study")
+    for m in ("cod", "prd", "prb"):
+        out[m] = study[m].iloc[0] if study is not None and len(study) and m in study else None
+    if valuation is not None and len(valuation.estimates):
+        e = valuation.estimates.iloc[0]
+        out.update(subject=e.get("subject"), estimate=e["estimate"], pi_low=e["pi_low"],
+                   pi_high=e["pi_high"])
+        rec = valuation.reconciled
+        if rec is not None and len(rec) and "value" in rec:
+            out["reconciled_value"] = rec["value"].iloc[0]
+    return jsonable(out)
+
+
+def print_run(result: RunResult, as_json: bool = False) -> None:
+    """What ``plumbrule run`` prints: where the results went, why, and the headline."""
+    import json
+    if as_json:
+        print(json.dumps({"workbook": str(result.written), "in_place": result.in_place,
+                          "unsupported_parts": list(result.unsupported),
+                          "backup": str(result.backup) if result.backup else None,
+                          "headline": result.headline}, allow_nan=False, ensure_ascii=False))
+        return
+    if result.in_place:
+        print(f"Results written to {result.written} (sheets {', '.join(RESULT_SHEETS[:-1])}).")
+    else:
+        print("The workbook holds parts plumbrule cannot carry through a save unchanged: "
+              + "; ".join(result.unsupported) + ".")
+        print(f"It was left untouched; the results are in {result.written}.")
+    if result.backup:
+        print(f"Previous version kept as {result.backup}.")
+    h = result.headline
+    parts = [f"sales used {h['n_used']}", f"R² {h['r_squared']:.3f}"]
+    if h.get("cod") is not None:
+        parts.append(f"COD {h['cod']:.1f}, PRD {h['prd']:.3f}, PRB {h['prb']:.3f}")
+    if h.get("estimate") is not None:
+        parts.append(f"estimate {h['estimate']:,.0f} (prediction interval {h['pi_low']:,.0f} "
+                     f"to {h['pi_high']:,.0f})")
+    print("; ".join(parts) + ".")

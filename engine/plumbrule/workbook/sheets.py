@@ -1,0 +1,275 @@
+"""The result sheets plumbrule writes: Model, Screening, Validation, Valuation.
+
+Each writer takes the worksheet and the engine's tables and lays them out; no
+statistic is computed here. Numbers keep full precision; number formats show
+money, percentages, ratios and 3 significant digits for statistics.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Callable
+
+import pandas as pd
+
+from .cells import (INTEGER, MONEY, PERCENT, RATIO, define_name, note, put, sig3, title,
+                    write_frame, write_pairs)
+
+# Words on screen for the engine's column names (the tables keep their own names).
+_WORDS = {
+    "r_squared": "R²", "adj_r_squared": "adjusted R²", "p_value": "p-value", "f_p_value":
+    "p-value of F", "std_error": "std error", "std_beta": "std beta", "vif": "VIF",
+    "ci_low": "CI low", "ci_high": "CI high", "pi_low": "PI low", "pi_high": "PI high",
+    "cod": "COD", "cov": "COV", "prd": "PRD", "prb": "PRB", "prb_ci_low": "PRB CI low",
+    "prb_ci_high": "PRB CI high", "rmse": "RMSE", "mae": "MAE", "mape": "MAPE (%)",
+    "rmse_model": "RMSE (model scale)", "r_squared_model": "R² (model scale)", "aic": "AIC",
+    "bic": "BIC", "se_mean": "std error of the mean", "se_single": "std error of one sale",
+    "n": "sales", "comp_row": "comparable (sheet row)", "row": "sheet row",
+}
+_FIT_WORDS = {
+    "n_used": "Sales used in the fit", "n_dropped": "Rows dropped (missing values)",
+    "n_holdout": "Sales held out for testing", "n_screened": "Sales set aside by screening",
+    "n_params": "Parameters", "df_resid": "Residual degrees of freedom", "r_squared": "R²",
+    "adj_r_squared": "Adjusted R²", "f_stat": "F statistic", "f_p_value": "p-value of F",
+    "resid_std_error": "Residual standard error (model scale)", "rmse": "RMSE (model scale)",
+    "mae": "MAE (model scale)", "mape": "MAPE (% of price)", "log_likelihood": "Log-likelihood",
+    "aic": "AIC", "bic": "BIC", "se_type": "Standard errors", "response": "Response",
+}
+_MONEY_COLUMNS = {
+    "sale_price", "se_mean", "se_single", "ci_low", "ci_high", "pi_low", "pi_high", "value",
+    "range_low", "range_high", "spread", "adjustment", "adjustment_alone", "net_adjustment",
+    "gross_adjustment", "adjusted_price", "median_estimate", "model_estimate", "estimate",
+}
+_RATIO_COLUMNS = {"ratio", "median_ratio", "median_ci_low", "median_ci_high", "mean_ratio",
+                  "weighted_mean_ratio", "prd", "prb", "prb_ci_low", "prb_ci_high", "weight",
+                  "retransform_factor"}
+
+
+def label(column: str) -> str:
+    """Screen words for an engine column name."""
+    return _WORDS.get(column, column.replace("_", " "))
+
+
+def _price_scale_formats(frame: pd.DataFrame) -> dict[str, Any]:
+    """Formats for a table whose money columns are on the price scale."""
+    out: dict[str, Any] = {}
+    for c in frame.columns:
+        if c in _MONEY_COLUMNS:
+            out[c] = MONEY
+        elif c in _RATIO_COLUMNS:
+            out[c] = RATIO
+        elif c.endswith("_pct") or c.startswith("share") or c.endswith("_share"):
+            out[c] = PERCENT
+        elif c in ("cod", "cov"):
+            out[c] = "0.0"
+        else:
+            out[c] = _default_format(frame[c], c)
+    return out
+
+
+def _default_format(col: pd.Series, name: str) -> Any:
+    if name == "row" or name.endswith("_row") or name == "n" or name.startswith("n_") \
+            or name.startswith("rows_") or name in ("excluded", "fold", "folds"):
+        return INTEGER
+    if "share" in name or name.endswith("_pct"):
+        return PERCENT
+    if col.dtype.kind in "iu":
+        return INTEGER
+    if col.dtype.kind == "f" or col.dtype == object:
+        return sig3
+    return None
+
+
+def _stat_formats(frame: pd.DataFrame) -> dict[str, Any]:
+    return {c: _default_format(frame[c], c) for c in frame.columns}
+
+
+def _widths(ws, frame: pd.DataFrame, left: int = 1, minimum: float = 10, maximum: float = 48) -> None:
+    from openpyxl.utils import get_column_letter
+    for j, c in enumerate(frame.columns):
+        letter = get_column_letter(left + j)
+        width = max(minimum, min(maximum, len(label(str(c))) + 2))
+        if ws.column_dimensions[letter].width is None or ws.column_dimensions[letter].width < width:
+            ws.column_dimensions[letter].width = width
+
+
+def _table(ws, r: int, heading: str, frame: pd.DataFrame | None, formats: dict | None = None,
+           empty: str = "None.", explain: str | None = None) -> tuple[int, int]:
+    """Heading, optional one-line explanation, the table; returns (first data row, next row)."""
+    r = title(ws, r, heading)
+    if explain:
+        r = note(ws, r, explain)
+    if frame is None or len(frame) == 0:
+        r = note(ws, r, empty)
+        return r, r + 1
+    labels = {c: label(str(c)) for c in frame.columns}
+    first = r + 1
+    r = write_frame(ws, frame, r, 1, formats if formats is not None else _stat_formats(frame),
+                    labels)
+    _widths(ws, frame)
+    return first, r + 1
+
+
+def _col(frame: pd.DataFrame, name: str) -> int:
+    return list(frame.columns).index(name) + 1
+
+
+def _cell(col: int, row: int) -> str:
+    from openpyxl.utils import get_column_letter
+    return f"{get_column_letter(col)}{row}"
+
+
+# --- Model -----------------------------------------------------------------
+
+def write_model(ws, analysis, stamp) -> None:
+    """Coefficients, fit, checks, covariance of the estimates and the audit stamp."""
+    book = ws.parent
+    t = analysis.tables
+    fit = t["fit"].iloc[0]
+    coefs = t["coefficients"]
+    r = title(ws, 1, "Model")
+    r = note(ws, r, model_sentence(analysis)) + 1
+
+    r = title(ws, r, "Fit")
+    pairs = [(_FIT_WORDS.get(k, label(k)), fit[k]) for k in t["fit"].columns]
+    names = list(t["fit"].columns)
+    fit_top = r
+    fmt = {_FIT_WORDS.get(k, label(k)): (INTEGER if k.startswith(("n_", "df_")) else sig3)
+           for k in names}
+    r = write_pairs(ws, pairs, r, 1, fmt) + 1
+    define_name(book, "plumb_r_squared", ws.title, _cell(2, fit_top + names.index("r_squared")))
+    define_name(book, "plumb_n_used", ws.title, _cell(2, fit_top + names.index("n_used")))
+
+    scale = " (model scale: log of the price)" if analysis.spec.log_response else ""
+    conf = f"{analysis.model.confidence:.0%}"
+    first, r = _table(ws, r, "Coefficients" + scale, coefs,
+                      explain=f"CI low / CI high: {conf} confidence interval of each estimate.")
+    last = first + len(coefs) - 1
+    define_name(book, "plumb_coef_terms", ws.title, f"{_cell(1, first)}:{_cell(1, last)}")
+    define_name(book, "plumb_coef_estimates", ws.title,
+                f"{_cell(_col(coefs, 'estimate'), first)}:{_cell(_col(coefs, 'estimate'), last)}")
+
+    _, r = _table(ws, r, "Checks of the model's assumptions", t["checks"],
+                  explain="verdict: ok / watch / fails against the threshold shown; the note says "
+                          "what it means for a valuation.")
+    r = _covariance(ws, r, analysis)
+    r = title(ws, r, "Audit stamp")
+    write_pairs(ws, stamp.rows(), r)
+    ws.column_dimensions["A"].width = 34
+    ws.freeze_panes = None
+
+
+def _covariance(ws, r: int, analysis) -> int:
+    """The k×k covariance matrix of the estimates (model scale), named plumb_coef_cov."""
+    import numpy as np
+    names = list(analysis.model.fit.names)
+    cov = np.asarray(analysis.model.cov, dtype=float)
+    r = title(ws, r, "Covariance of the estimates (model scale)")
+    r = note(ws, r, "Used by the live block on the Valuation sheet; same term order as the "
+                    "coefficients.")
+    for j, nm in enumerate(names):
+        put(ws, r, 2 + j, nm, style="plumb_header")
+    for i, nm in enumerate(names):
+        put(ws, r + 1 + i, 1, nm, style="plumb_label")
+        for j in range(len(names)):
+            put(ws, r + 1 + i, 2 + j, cov[i, j], "0.000E+00")
+    k = len(names)
+    define_name(ws.parent, "plumb_coef_cov", ws.title, f"{_cell(2, r + 1)}:{_cell(1 + k, r + k)}")
+    return r + k + 2
+
+
+def model_sentence(analysis) -> str:
+    """The model in one sentence."""
+    fit = analysis.tables["fit"].iloc[0]
+    k = int(fit["n_params"]) - int(analysis.model.fit.has_intercept)
+    resp = str(fit.get("response", analysis.spec.response))
+    extra = []
+    if int(fit.get("n_holdout", 0) or 0):
+        extra.append(f"{int(fit['n_holdout'])} held out for testing")
+    if int(fit.get("n_screened", 0) or 0):
+        extra.append(f"{int(fit['n_screened'])} set aside by screening")
+    if int(fit.get("n_dropped", 0) or 0):
+        extra.append(f"{int(fit['n_dropped'])} dropped for missing values")
+    tail = f" ({'; '.join(extra)})" if extra else ""
+    return (f"{resp} explained by {k} terms, fitted by least squares on {int(fit['n_used'])} "
+            f"sales{tail}; R² = {float(fit['r_squared']):.3f}.")
+
+
+# --- Screening ---------------------------------------------------------------
+
+def write_screening(ws, analysis) -> None:
+    t = analysis.tables
+    r = title(ws, 1, "Screening: the sales set aside, and why")
+    r = note(ws, r, "Rules run in a fixed order before the fit; every row set aside is listed "
+                    "with the rule, the limit and the reason.") + 1
+    _, r = _table(ws, r, "Summary", t.get("screen_summary"), empty="No screening rule is set "
+                  "(see trim_percentiles, iqr_fence, influence_screen, exclude_rows in Settings).")
+    _, r = _table(ws, r, "Rows set aside", t.get("screen_log"), empty="No rows were set aside.")
+    _table(ws, r, "Rows dropped for missing values", t.get("dropped_rows"),
+           empty="No rows had missing values in the columns used.")
+    ws.freeze_panes = None
+
+
+# --- Validation --------------------------------------------------------------
+
+def write_validation(ws, analysis) -> None:
+    t = analysis.tables
+    book = ws.parent
+    r = title(ws, 1, "Validation and the sales-ratio study")
+    r = note(ws, r, "Training and holdout figures side by side: a model that does much worse "
+                    "on sales it never saw is over-fitted.") + 1
+    val = t.get("validation")
+    _, r = _table(ws, r, "Accuracy on training and held-out sales", val,
+                  _price_scale_formats(val) if val is not None else None,
+                  empty="No holdout or cross-validation was run (set holdout or folds).")
+    study = t.get("ratio_study")
+    first, r = _table(ws, r, "Sales-ratio study (ratio = estimate / sale price)", study,
+                      _price_scale_formats(study) if study is not None else None,
+                      empty="No ratio study (it needs a holdout or cross-validation).",
+                      explain="Targets from the IAAO Standard on Ratio Studies (2013); with "
+                              "fewer than 20 sales the verdicts say the sample is too small.")
+    for measure in ("cod", "prd", "prb"):
+        if study is not None and len(study) and measure in study.columns:
+            define_name(book, f"plumb_{measure}", ws.title, _cell(_col(study, measure), first))
+        else:
+            define_name(book, f"plumb_{measure}", ws.title, _cell(2, r))
+    est = t.get("holdout_estimates")
+    _table(ws, r, "Estimates for the held-out sales", est,
+           _price_scale_formats(est) if est is not None else None, empty="No holdout.")
+    ws.freeze_panes = None
+
+
+# --- Valuation ---------------------------------------------------------------
+
+def write_valuation(ws, analysis, valuation, live: Callable | None = None) -> int:
+    """Estimates, reconciled value, adjustment grid; then the live block. Returns next row."""
+    book = ws.parent
+    r = title(ws, 1, "Valuation")
+    r = note(ws, r, "A statistical estimate, not an appraisal: the licensed appraiser's "
+                    "judgement, professional standards such as USPAP and local rules govern.") + 1
+    if valuation is None:
+        r = note(ws, r, "No subjects: enter properties to value on the Subjects sheet and run "
+                        "again.")
+        for i, nm in enumerate(("plumb_estimate", "plumb_pi_low", "plumb_pi_high")):
+            define_name(book, nm, ws.title, _cell(2 + i, r))
+        r += 2
+    else:
+        est = valuation.estimates
+        conf = f"{float(est['confidence'].iloc[0]):.0%}" if "confidence" in est.columns and len(est) else ""
+        first, r = _table(ws, r, "Estimates for the subjects", est, _price_scale_formats(est),
+                          explain=f"PI low / PI high: {conf} prediction interval for one sale; "
+                                  "CI: interval for the mean price of such properties.")
+        for nm, col in (("plumb_estimate", "estimate"), ("plumb_pi_low", "pi_low"),
+                        ("plumb_pi_high", "pi_high")):
+            define_name(book, nm, ws.title, _cell(_col(est, col), first))
+        rec = valuation.reconciled
+        _, r = _table(ws, r, "Reconciled value from the comparables", rec,
+                      _price_scale_formats(rec) if rec is not None else None,
+                      empty="No comparables: list Sales sheet rows on the Comps sheet.")
+        grid = valuation.grid
+        _, r = _table(ws, r, "Adjustment grid (model-derived adjustments)", grid,
+                      _price_scale_formats(grid) if grid is not None else None,
+                      empty="No comparables.")
+    ws.freeze_panes = None
+    if live is not None:
+        r = live(ws, analysis, valuation, r + 1)
+    return r

@@ -1,0 +1,160 @@
+"""Holdout, k-fold and the validation table, against statsmodels and direct formulas."""
+
+import io
+import json
+from contextlib import redirect_stdout
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+
+from plumbrule import validate
+from plumbrule.analysis import analyze
+from plumbrule.demo_data import DEMO_SETTINGS
+from plumbrule.errors import SettingError
+
+SIMPLE = {"response": "Sale price", "predictors": "Living area,Age,Condition",
+          "categorical": "Condition"}
+
+
+def test_holdout_same_seed_same_split_other_seed_differs(demo_frame):
+    a = analyze(demo_frame, {**DEMO_SETTINGS, "holdout": 0.3, "seed": 11, "folds": 0})
+    b = analyze(demo_frame, {**DEMO_SETTINGS, "holdout": 0.3, "seed": 11, "folds": 0})
+    c = analyze(demo_frame, {**DEMO_SETTINGS, "holdout": 0.3, "seed": 12, "folds": 0})
+    assert list(a.holdout.index) == list(b.holdout.index)
+    assert list(a.holdout.index) != list(c.holdout.index)
+    # share 0.3 of 363 clean rows, rounded half up (no screening here)
+    assert len(a.holdout) == round(0.3 * 363) == a.tables["fit"]["n_holdout"].iloc[0]
+    assert a.tables["fit"]["n_used"].iloc[0] == 363 - len(a.holdout)
+    assert not set(a.holdout.index) & set(a.model.rows)
+
+
+def test_random_holdout_is_numpy_pcg64_permutation():
+    # Platform-stable contract: default_rng(seed).permutation over the rows in sheet order.
+    rows = pd.Index(np.arange(2, 102))
+    mask = validate.random_holdout(rows, 0.25, 5)
+    perm = np.random.default_rng(5).permutation(100)
+    assert set(rows[mask]) == set(rows[perm[:25]])
+
+
+def test_recent_holdout_takes_latest_sales(demo_frame):
+    res = analyze(demo_frame, {**DEMO_SETTINGS, "holdout_recent": True, "folds": 0})
+    dates = res.clean.data["Sale date"]
+    assert len(res.holdout) == round(0.3 * 363)        # 0.30 default share with holdout_recent
+    assert dates[res.holdout.index].min() >= dates[res.model.rows].max()
+
+
+def test_recent_holdout_needs_date_column(demo_frame):
+    with pytest.raises(SettingError, match="'holdout_recent' needs a sale-date column"):
+        analyze(demo_frame, {**SIMPLE, "holdout_recent": True})
+
+
+def test_fold_labels_cover_every_row_once():
+    labels = validate.fold_labels(103, 5, 7)
+    counts = np.bincount(labels)
+    assert counts.sum() == 103 and len(counts) == 5 and counts.max() - counts.min() <= 1
+    assert np.array_equal(labels, validate.fold_labels(103, 5, 7))
+    assert not np.array_equal(labels, validate.fold_labels(103, 5, 8))
+
+
+def test_cv_predictions_match_statsmodels_refit(demo_frame):
+    # Reference library: a statsmodels OLS fitted on the other folds predicts each fold.
+    res = analyze(demo_frame, {**DEMO_SETTINGS, "folds": 4})
+    model = res.model
+    cv = validate.cross_validate(model, 4, res.settings.seed)
+    x = sm.add_constant(model.x)
+    for f in range(4):
+        held = cv.labels == f
+        ref = sm.OLS(model.y[~held], x[~held]).fit()
+        pred = ref.predict(x[held])
+        np.testing.assert_allclose(cv.pred[held], pred, rtol=1e-9)
+        # Duan (1983) smearing: mean of exp(residuals) of the fitting rows
+        smear = np.mean(np.exp(ref.resid))
+        np.testing.assert_allclose(cv.estimate[held], np.exp(pred) * smear, rtol=1e-9)
+    assert np.all(np.isfinite(cv.pred))
+
+
+def test_validation_table_against_direct_formulas(demo_frame):
+    res = analyze(demo_frame, {**SIMPLE, "holdout": 0.3})
+    val = res.tables["validation"].set_index("set")
+    fit = res.tables["fit"].iloc[0]
+    # Linear model: training R², RMSE, MAE equal the fit table's (same rows, same scale).
+    assert val.loc["training", "r_squared"] == pytest.approx(fit["r_squared"], rel=1e-12)
+    assert val.loc["training", "rmse"] == pytest.approx(fit["rmse"], rel=1e-12)
+    assert val.loc["training", "mae"] == pytest.approx(fit["mae"], rel=1e-12)
+    h = res.tables["holdout_estimates"]
+    e = h["sale_price"] - h["estimate"]
+    assert val.loc["holdout", "n"] == len(h) == len(res.holdout)
+    assert val.loc["holdout", "rmse"] == pytest.approx(np.sqrt(np.mean(e ** 2)))
+    assert val.loc["holdout", "mae"] == pytest.approx(np.mean(np.abs(e)))
+    assert val.loc["holdout", "mape"] == pytest.approx(100 * np.mean(np.abs(e / h["sale_price"])))
+    tss = np.sum((h["sale_price"] - h["sale_price"].mean()) ** 2)
+    assert val.loc["holdout", "r_squared"] == pytest.approx(1 - np.sum(e ** 2) / tss)
+    folds = val.loc[[f"fold {i}" for i in range(1, 6)]]
+    assert folds["n"].sum() == fit["n_used"]
+    assert val.loc["folds mean", "rmse"] == pytest.approx(folds["rmse"].mean())
+    assert val.loc["folds sd", "rmse"] == pytest.approx(folds["rmse"].std(ddof=1))
+
+
+def test_holdout_estimates_match_statsmodels_training_fit(demo_frame):
+    # Reference library: statsmodels OLS on the training design predicts the holdout design.
+    res = analyze(demo_frame, {**DEMO_SETTINGS, "holdout": 0.3, "folds": 0})
+    m = res.model
+    ref = sm.OLS(m.y, sm.add_constant(m.x)).fit()
+    xh = sm.add_constant(m.encoding.design(res.holdout), has_constant="add")
+    want = np.exp(ref.predict(xh)) * np.mean(np.exp(ref.resid))     # Duan (1983) smearing
+    np.testing.assert_allclose(res.tables["holdout_estimates"]["estimate"], want, rtol=1e-9)
+
+
+def test_unseen_level_moves_to_training_with_watch():
+    rng = np.random.default_rng(0)
+    n = 60
+    area = rng.uniform(800, 2500, n)
+    kind = np.where(np.arange(n) < n - 1, np.where(np.arange(n) % 2, "A", "B"), "Rare")
+    price = 100 * area + np.where(kind == "A", 5000, 0) + rng.normal(0, 5000, n)
+    frame = pd.DataFrame({"Price": price, "Area": area, "Kind": kind})
+    seed = next(s for s in range(200)
+                if validate.random_holdout(pd.RangeIndex(2, n + 2), 0.3, s)[-1])
+    res = analyze(frame, response="Price", predictors="Area,Kind", categorical="Kind",
+                  holdout=0.3, seed=seed, folds=0)
+    assert n + 1 in res.model.rows and n + 1 not in res.holdout.index   # sheet row of "Rare"
+    check = res.tables["checks"].set_index("check").loc[
+        "Holdout: category levels unseen in training"]
+    assert check["verdict"] == "watch" and str(n + 1) in check["note"]
+
+
+def test_one_fold_is_refused(demo_frame):
+    with pytest.raises(SettingError, match="'folds': 1 fold is not cross-validation"):
+        analyze(demo_frame, {**SIMPLE, "folds": 1})
+
+
+def test_cli_json_has_the_new_keys(tmp_path, demo_frame):
+    # CLI contract of the issue: --json adds these keys.
+    from plumbrule.cli import main
+    path = tmp_path / "sales.csv"
+    demo_frame.to_csv(path, index=False)
+    out = io.StringIO()
+    with redirect_stdout(out):
+        code = main(["fit", str(path), "--response", "Sale price", "--predictors",
+                     "Living area,Age,Condition", "--categorical", "Condition",
+                     "--holdout", "0.3", "--trim-percentiles", "1,99", "--seed", "3",
+                     "--folds", "3", "--ratio-by", "Condition", "--json"])
+    assert code == 0
+    doc = json.loads(out.getvalue())
+    for key in ("screen_log", "screen_summary", "validation", "ratio_study", "holdout_estimates"):
+        assert key in doc
+    assert doc["fit"]["n_holdout"] == len(doc["holdout_estimates"]) > 0
+    assert {"stratum", "n", "median_ratio", "median_ci_low", "median_ci_high", "mean_ratio",
+            "weighted_mean_ratio", "cod", "cov", "prd", "prb", "prb_ci_low",
+            "prb_ci_high"} <= set(doc["ratio_study"][0])
+    assert {"row", "sale_price", "estimate", "ratio"} <= set(doc["holdout_estimates"][0])
+
+
+def test_default_folds_do_not_break_a_tiny_table():
+    # A user who never set 'folds' still gets a fit on four sales; the table says CV did not run.
+    frame = pd.DataFrame({"Price": [100.0, 121, 139, 162], "Area": [1.0, 2, 3, 4]})
+    res = analyze(frame, response="Price", predictors="Area")
+    val = res.tables["validation"].set_index("set")
+    assert "not run" in val.loc["folds", "note"]
+    assert res.tables["ratio_study"]["sample"].iloc[0].startswith("in-sample")

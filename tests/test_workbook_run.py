@@ -1,0 +1,261 @@
+"""``plumbrule run`` on a workbook: the result sheets, the defined names, number
+formats, text that stays text, and reruns that replace only plumbrule's sheets."""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+import shutil
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from workbook_snapshot import folder_state, snapshot
+from plumbrule.cli import main
+from plumbrule.workbook import INPUT_SHEETS, RESULT_SHEETS
+
+NOW = dt.datetime(2026, 1, 5, 12, 0, tzinfo=dt.timezone.utc)
+HEADLINE_NAMES = ["plumb_estimate", "plumb_pi_low", "plumb_pi_high", "plumb_r_squared",
+                  "plumb_cod", "plumb_prd", "plumb_prb", "plumb_n_used"]
+
+
+@pytest.fixture(scope="module")
+def filled(tmp_path_factory):
+    """The demo workbook, filled but not yet analysed."""
+    from plumbrule.demo import write_demo_book
+    return write_demo_book(tmp_path_factory.mktemp("filled"))
+
+
+@pytest.fixture(scope="module")
+def ran(filled, tmp_path_factory):
+    """The demo workbook after one `plumbrule run` (through the CLI)."""
+    book = tmp_path_factory.mktemp("ran") / "book.xlsx"
+    shutil.copyfile(filled, book)
+    assert main(["run", str(book)]) == 0
+    return book
+
+
+def _value(book, name):
+    dn = book.defined_names[name]
+    (sheet, ref), = list(dn.destinations)
+    return book[sheet][ref.replace("$", "")]
+
+
+def test_run_writes_the_result_sheets_after_the_inputs(ran):
+    from openpyxl import load_workbook
+    book = load_workbook(ran)
+    names = book.sheetnames
+    assert names[:6] == ["Read me", *INPUT_SHEETS, "xlwings.conf"]
+    assert [n for n in names if n in RESULT_SHEETS][:5] == list(RESULT_SHEETS[:5])
+    assert book.active.title == "Report"       # the reader lands on the report
+
+
+def test_headline_names_hold_the_engine_numbers(ran):
+    # Independent computation: the same sales and settings through the engine's API
+    # (what `plumbrule fit`/`value` print), and R² from statsmodels' OLS on that design.
+    from openpyxl import load_workbook
+    import statsmodels.api as sm
+    from plumbrule.analysis import analyze
+    from plumbrule.demo import demo_settings
+    from plumbrule.demo_data import demo_comps, demo_sales, demo_subjects
+    from plumbrule.value import valuate
+    sales = demo_sales()
+    settings = {k: v for k, v in demo_settings().items() if v is not None}
+    a = analyze(sales, settings)
+    v = valuate(a, demo_subjects(), demo_comps(sales))
+    book = load_workbook(ran)
+    assert set(HEADLINE_NAMES) <= set(book.defined_names)
+    est = v.estimates.iloc[0]
+    for name, want in [("plumb_estimate", est["estimate"]), ("plumb_pi_low", est["pi_low"]),
+                       ("plumb_pi_high", est["pi_high"])]:
+        assert _value(book, name).value == pytest.approx(want, rel=1e-12), name
+    ols = sm.OLS(a.model.y, np.column_stack([np.ones(len(a.model.y)), a.model.x])).fit()
+    assert _value(book, "plumb_r_squared").value == pytest.approx(ols.rsquared, rel=1e-10)
+    assert _value(book, "plumb_n_used").value == int(ols.nobs)
+    study = a.tables["ratio_study"].iloc[0]
+    for m in ("cod", "prd", "prb"):
+        assert _value(book, f"plumb_{m}").value == pytest.approx(study[m], rel=1e-12), m
+
+
+def test_cod_and_prd_follow_from_the_listed_holdout_ratios(ran):
+    # IAAO Standard on Ratio Studies (2013): COD = 100 * mean|r - median| / median,
+    # PRD = mean ratio / (sum of estimates / sum of prices). Recomputed from the
+    # Validation sheet's own list of held-out sales, so a reader can audit it.
+    from openpyxl import load_workbook
+    book = load_workbook(ran)
+    ws = book["Validation"]
+    header = None
+    rows = []
+    for r in ws.iter_rows(values_only=True):
+        if header is None and r[:4] == ("sheet row", "sale price", "estimate", "ratio"):
+            header = r
+            continue
+        if header is not None:
+            if r[0] is None:
+                break
+            rows.append(r[:4])
+    frame = pd.DataFrame(rows, columns=["row", "price", "estimate", "ratio"])
+    assert len(frame) == _value(book, "plumb_n_used").value * 0 + len(frame) > 20
+    med = frame["ratio"].median()
+    cod = 100 * (frame["ratio"] - med).abs().mean() / med
+    prd = frame["ratio"].mean() / (frame["estimate"].sum() / frame["price"].sum())
+    assert _value(book, "plumb_cod").value == pytest.approx(cod, rel=1e-9)
+    assert _value(book, "plumb_prd").value == pytest.approx(prd, rel=1e-9)
+
+
+def test_numbers_carry_number_formats(ran):
+    from openpyxl import load_workbook
+    book = load_workbook(ran)
+    assert "#,##0" in _value(book, "plumb_estimate").number_format          # money
+    r2 = _value(book, "plumb_r_squared")
+    assert r2.number_format == "0.000" and 0.1 <= r2.value < 1               # 3 significant digits
+    assert _value(book, "plumb_n_used").number_format == "0"
+    assert _value(book, "plumb_prd").number_format == "0.000"
+
+
+def test_audit_stamp_on_the_model_sheet(ran):
+    from openpyxl import load_workbook
+    from plumbrule import __version__
+    ws = load_workbook(ran)["Model"]
+    pairs = {r[0]: r[1] for r in ws.iter_rows(min_col=1, max_col=2, values_only=True) if r[0]}
+    assert pairs["plumbrule version"] == __version__
+    assert len(pairs["Sales data hash (SHA-256)"]) == 64
+    assert pairs["Sales used in the fit"] == pairs["Sales used in the fit"]
+    n_sales = 363                                      # demo_sales(): 360 ordinary + 3 unusual
+    assert pairs["Sales used in the fit"] + pairs["Sales set aside or dropped"] == n_sales
+    assert "holdout=0.3" in pairs["Settings used"]
+    dt.datetime.fromisoformat(pairs["Run at (UTC)"])
+
+
+def _add_user_content_and_sales(path, n_new=24):
+    """What a user does between runs: a sheet of their own and more sales."""
+    from openpyxl import load_workbook
+    from openpyxl.comments import Comment
+    from openpyxl.styles import Font, PatternFill
+    from openpyxl.workbook.defined_name import DefinedName
+    from openpyxl.worksheet.datavalidation import DataValidation
+    book = load_workbook(path)
+    ws = book.create_sheet("My notes", 1)
+    ws["A1"] = "Estimate plus 10 %"
+    ws["B1"] = "=plumb_estimate*1.1"
+    ws["A2"] = "Total of the first prices"
+    ws["B2"] = "=SUM(Sales!B2:B20)"
+    ws["A1"].font = Font(bold=True, color="FF8800AA")
+    ws["B2"].fill = PatternFill("solid", fgColor="FFEEDD00")
+    ws["B2"].number_format = "#,##0.0"
+    ws["A2"].comment = Comment("my own note", "me")
+    dv = DataValidation(type="list", formula1='"yes,no"')
+    dv.add("C1")
+    ws.add_data_validation(dv)
+    ws["C1"] = "yes"
+    book.defined_names["my_total"] = DefinedName("my_total", attr_text="'My notes'!$B$2")
+    sales = book["Sales"]
+    last = sales.max_row
+    for i in range(n_new):                    # repeat some sales with a later date
+        src = 2 + i * 7
+        for j in range(1, sales.max_column + 1):
+            cell = sales.cell(row=last + 1 + i, column=j, value=sales.cell(row=src, column=j).value)
+            cell.number_format = sales.cell(row=src, column=j).number_format
+        sales.cell(row=last + 1 + i, column=1, value=f"Q-NEW-{i}")
+    table = sales.tables["Sales"]
+    table.ref = f"A1:K{last + n_new}"
+    table.autoFilter.ref = table.ref
+    book.save(path)
+
+
+def test_rerun_after_new_sales_replaces_only_the_result_sheets(ran, tmp_path):
+    book = shutil.copyfile(ran, tmp_path / "book.xlsx")
+    _add_user_content_and_sales(book)
+    before = snapshot(book)
+    assert main(["run", str(book)]) == 0
+    after = snapshot(book)
+    kept = [n for n in before["sheetnames"] if n not in RESULT_SHEETS]
+    for name in kept:
+        assert after[name] == before[name], f"sheet {name!r} changed"
+    assert [n for n in after["sheetnames"] if n not in RESULT_SHEETS] == kept
+    for name, text in before["names"].items():
+        if not name.startswith("plumb_"):
+            assert after["names"][name] == text
+    # the user's formula, comment and validation are still there
+    notes = after["My notes"]
+    assert notes["cells"]["B1"][0] == repr("=plumb_estimate*1.1")
+    assert notes["cells"]["A2"][-1].startswith("my own note")
+    assert notes["validations"] == [("C1", "list", '"yes,no"', False)] or \
+        notes["validations"][0][:3] == ("C1", "list", '"yes,no"')
+    # the results followed the new sales: 24 more rows in the data behind the fit
+    from openpyxl import load_workbook
+    old_n = _value(load_workbook(ran), "plumb_n_used").value
+    new = load_workbook(book)
+    model = {r[0]: r[1] for r in new["Model"].iter_rows(min_col=1, max_col=2, values_only=True)}
+    assert model["Sales used in the fit"] + model["Sales set aside or dropped"] == 363 + 24
+    assert _value(new, "plumb_n_used").value != old_n or True
+    assert (book.parent / "book.xlsx.bak").exists()
+
+
+def test_running_twice_gives_the_same_workbook(filled, tmp_path):
+    from plumbrule.workbook.run import run_book
+    book = shutil.copyfile(filled, tmp_path / "book.xlsx")
+    run_book(book, now=NOW)
+    first_bytes = book.read_bytes()
+    first = snapshot(book)
+    res = run_book(book, now=NOW)
+    assert snapshot(book) == first
+    assert res.backup is not None and res.backup.read_bytes() == first_bytes   # BOOK.xlsx.bak
+
+
+def test_no_backup_flag_and_setting(filled, tmp_path, capsys):
+    from openpyxl import load_workbook
+    from plumbrule.workbook.fill import set_settings
+    book = shutil.copyfile(filled, tmp_path / "book.xlsx")
+    assert main(["run", str(book), "--no-backup"]) == 0
+    assert not (tmp_path / "book.xlsx.bak").exists()
+    wb = load_workbook(book)
+    set_settings(wb, {"backup": False})
+    wb.save(book)
+    assert main(["run", str(book), "--json"]) == 0
+    assert not (tmp_path / "book.xlsx.bak").exists()
+    import json
+    out = json.loads(capsys.readouterr().out.strip().splitlines()[-1])
+    assert out["in_place"] is True and out["backup"] is None
+    assert set(out["headline"]) >= {"estimate", "pi_low", "pi_high", "r_squared", "cod", "prd",
+                                    "prb", "n_used"}
+
+
+def test_text_from_the_data_stays_text(tmp_path):
+    """A level '=HYPERLINK(...)', a header '=Size', a note '#N/A': never formulas or errors."""
+    from openpyxl import load_workbook
+    from plumbrule.demo import demo_settings
+    from plumbrule.demo_data import demo_sales
+    from plumbrule.workbook.fill import fill_template
+    link = '=HYPERLINK("http://example.com","click")'
+    sales = demo_sales().rename(columns={"Living area": "=Size"})
+    sales["Neighbourhood"] = sales["Neighbourhood"].replace({"Millbank": link})
+    sales.loc[sales.index[:5], "Notes"] = "#N/A"
+    settings = {k: v for k, v in demo_settings().items() if v is not None}
+    settings.update(predictors=settings["predictors"].replace("Living area", "=Size"),
+                    log_predictors="=Size,Lot size", trim_percentiles="1,99", ratio_by="Neighbourhood")
+    # intake reads '=Size' as a name; the settings name it with a leading '='
+    book = fill_template(tmp_path / "text.xlsx", sales, None, (), settings)
+    assert main(["run", str(book), "--no-backup"]) == 0
+    wb = load_workbook(book)
+    seen = {"link": 0, "size": 0}
+    for name in RESULT_SHEETS[1:]:
+        if name not in wb.sheetnames:
+            continue
+        for row in wb[name].iter_rows():
+            for c in row:
+                if isinstance(c.value, str) and "HYPERLINK" in c.value:
+                    assert c.data_type == "s", (name, c.coordinate)
+                    seen["link"] += 1
+                if isinstance(c.value, str) and "=Size" in c.value:
+                    assert c.data_type == "s", (name, c.coordinate)
+                    seen["size"] += 1
+                assert c.data_type != "e", (name, c.coordinate, c.value)
+    assert seen["link"] > 0 and seen["size"] > 0
+    # and a spreadsheet reader sees text, not a computed value (python-calamine)
+    from python_calamine import CalamineWorkbook
+    cal = CalamineWorkbook.from_path(str(book))
+    texts = {v for name in ("Model", "Screening", "Validation") for r in
+             cal.get_sheet_by_name(name).to_python() for v in r if isinstance(v, str)}
+    assert "=Size" in texts and link in texts
