@@ -191,3 +191,17 @@ def test_ratio_trim_reported_in_screen_log(demo_frame):
     assert res.tables["ratio_study"]["n"].iloc[0] == int(hold["in_study"].sum())
     # a ratio trim does not change the fit: n_screened counts only fit rules
     assert res.tables["fit"]["n_screened"].iloc[0] == len(log) - len(trimmed)
+
+
+def test_regressive_estimates_show_in_prd_and_prb():
+    # Fact of the trade (IAAO 2013, from memory): when estimates are pulled towards the middle
+    # (cheap sales over-valued, dear ones under-valued) PRD rises above 1 and PRB turns negative.
+    rng = np.random.default_rng(9)
+    price = np.exp(rng.normal(12, 0.4, 400))
+    est = np.exp(12 + 0.7 * (np.log(price) - 12) + rng.normal(0, 0.05, 400))
+    rec = ratios.ratio_study(ratios.estimates_table(np.arange(400), price, est)).iloc[0]
+    assert rec["prd"] > 1.03 and rec["prd_verdict"] == "fails"
+    assert rec["prb_ci_high"] < -0.10 and rec["prb_verdict"] == "fails"
+    fair = ratios.ratio_study(ratios.estimates_table(
+        np.arange(400), price, price * np.exp(rng.normal(0, 0.05, 400)))).iloc[0]
+    assert fair["prb_ci_low"] < 0 < fair["prb_ci_high"] and fair["prd_verdict"] == "ok"

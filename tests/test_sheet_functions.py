@@ -173,8 +173,17 @@ def test_ratios_without_holdout_use_cross_validation(sales_cells):
     assert out == expected_cells(ref.tables["ratio_study"])
 
 
-def test_ratios_without_holdout_or_folds_say_what_to_set(sales_cells):
-    out = call(sf.PLUMB_RATIOS, sales_cells, RESPONSE, PREDICTORS, MODEL + [["folds", 0]])
+def test_ratios_without_holdout_or_folds_follow_the_engine(sales_cells):
+    block = MODEL + [["folds", 0]]
+    out = call(sf.PLUMB_RATIOS, sales_cells, RESPONSE, PREDICTORS, block)
+    ref = analyze([list(r) for r in sales_cells], dict(DEMO_SETTINGS, folds=0))
+    assert out == expected_cells(ref.tables["ratio_study"])
+
+
+def test_an_empty_ratio_study_says_what_to_set():
+    from types import SimpleNamespace
+    empty = SimpleNamespace(tables={"ratio_study": pd.DataFrame()})
+    out = sf.cell_safe(sf.ratio_table)(empty)
     assert isinstance(out, str) and out.startswith("plumbrule: ") and "holdout" in out
 
 
@@ -414,3 +423,32 @@ def test_cache_is_bounded_by_count_and_memory():
     for i in range(3):
         small.get_or_compute([["x"], [float(i)]], "k", lambda rows: np.zeros(1000))
     assert small.stats().entries == 1                  # always keeps the newest one
+
+
+# --- the demo workbook's own ranges, as the worked session in docs/excel.md uses them ----
+
+def test_the_worked_session_on_the_demo_workbook(tmp_path):
+    """Sales[#All], Subjects[#All], Comps[Sales row] and Settings[#All] as cells, read back
+    from the demo workbook by python-calamine (blank cells arrive as '', dates as dates)."""
+    from python_calamine import CalamineWorkbook
+    from plumbrule.demo import write_demo_book
+    book = CalamineWorkbook.from_path(str(write_demo_book(tmp_path)))
+
+    def block(name):
+        return book.get_sheet_by_name(name).to_python(skip_empty_area=True)
+    sales, subjects, comps, settings = (block(n) for n in ("Sales", "Subjects", "Comps",
+                                                           "Settings"))
+    assert settings[0][:2] == ["Setting", "Value"] and len(settings[0]) == 4
+    comp_rows = [[r[0]] for r in comps[1:]]
+    # The reference: the engine on the same cells, with the Settings sheet's filled values.
+    raw = {r[0]: r[1] for r in settings[1:] if r[1] not in ("", None)}
+    ref = analyze([list(r) for r in sales], raw)
+    out = sf.PLUMB_COEFS([list(r) for r in sales], "", "", settings)
+    assert out == expected_cells(ref.tables["coefficients"])
+    assert sf.CACHE.stats().misses == 1
+    val = valuate(ref, subjects, comps=[int(r[0]) for r in comp_rows])
+    assert sf.PLUMB_GRID(sales, "", "", subjects, comp_rows, settings) == \
+        expected_cells(val.grid)
+    assert sf.PLUMB_VALUE(sales, "", "", subjects, settings) == \
+        expected_cells(valuate(ref, subjects).estimates)
+    assert sf.CACHE.stats().misses == 1       # one fit behind every cell of the session

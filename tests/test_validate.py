@@ -158,3 +158,13 @@ def test_default_folds_do_not_break_a_tiny_table():
     val = res.tables["validation"].set_index("set")
     assert "not run" in val.loc["folds", "note"]
     assert res.tables["ratio_study"]["sample"].iloc[0].startswith("in-sample")
+
+
+def test_cv_estimates_cover_every_training_row_once(demo_frame):
+    res = analyze(demo_frame, {**DEMO_SETTINGS, "holdout": 0.3, "folds": 4})
+    cv = res.tables["cv_estimates"]
+    assert sorted(cv["row"]) == sorted(res.model.rows)          # each training row exactly once
+    assert set(cv["fold"]) == {1, 2, 3, 4}
+    val = res.tables["validation"].set_index("set")
+    assert [val.loc[f"fold {f}", "n"] for f in range(1, 5)] == list(
+        cv["fold"].value_counts().sort_index())

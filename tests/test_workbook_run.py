@@ -48,7 +48,8 @@ def test_run_writes_the_result_sheets_after_the_inputs(ran):
     names = book.sheetnames
     assert names[:6] == ["Read me", *INPUT_SHEETS, "xlwings.conf"]
     assert [n for n in names if n in RESULT_SHEETS][:5] == list(RESULT_SHEETS[:5])
-    assert book.active.title == "Report"       # the reader lands on the report
+    assert book.active.title == "Read me"      # the user's choice of tab is not changed
+    assert not any(ws.sheet_view.tabSelected for ws in book.worksheets if ws.title != "Read me")
 
 
 def test_headline_names_hold_the_engine_numbers(ran):
@@ -96,7 +97,7 @@ def test_cod_and_prd_follow_from_the_listed_holdout_ratios(ran):
                 break
             rows.append(r[:4])
     frame = pd.DataFrame(rows, columns=["row", "price", "estimate", "ratio"])
-    assert len(frame) == _value(book, "plumb_n_used").value * 0 + len(frame) > 20
+    assert len(frame) > 20
     med = frame["ratio"].median()
     cod = 100 * (frame["ratio"] - med).abs().mean() / med
     prd = frame["ratio"].mean() / (frame["estimate"].sum() / frame["price"].sum())
@@ -121,7 +122,6 @@ def test_audit_stamp_on_the_model_sheet(ran):
     pairs = {r[0]: r[1] for r in ws.iter_rows(min_col=1, max_col=2, values_only=True) if r[0]}
     assert pairs["plumbrule version"] == __version__
     assert len(pairs["Sales data hash (SHA-256)"]) == 64
-    assert pairs["Sales used in the fit"] == pairs["Sales used in the fit"]
     n_sales = 363                                      # demo_sales(): 360 ordinary + 3 unusual
     assert pairs["Sales used in the fit"] + pairs["Sales set aside or dropped"] == n_sales
     assert "holdout=0.3" in pairs["Settings used"]
@@ -181,15 +181,16 @@ def test_rerun_after_new_sales_replaces_only_the_result_sheets(ran, tmp_path):
     notes = after["My notes"]
     assert notes["cells"]["B1"][0] == repr("=plumb_estimate*1.1")
     assert notes["cells"]["A2"][-1].startswith("my own note")
-    assert notes["validations"] == [("C1", "list", '"yes,no"', False)] or \
-        notes["validations"][0][:3] == ("C1", "list", '"yes,no"')
+    assert [v[:3] for v in notes["validations"]] == [("C1", "list", '"yes,no"')]
     # the results followed the new sales: 24 more rows in the data behind the fit
     from openpyxl import load_workbook
-    old_n = _value(load_workbook(ran), "plumb_n_used").value
-    new = load_workbook(book)
-    model = {r[0]: r[1] for r in new["Model"].iter_rows(min_col=1, max_col=2, values_only=True)}
-    assert model["Sales used in the fit"] + model["Sales set aside or dropped"] == 363 + 24
-    assert _value(new, "plumb_n_used").value != old_n or True
+
+    def stamp(path):
+        ws = load_workbook(path)["Model"]
+        return {r[0]: r[1] for r in ws.iter_rows(min_col=1, max_col=2, values_only=True)}
+    old, new = stamp(ran), stamp(book)
+    assert new["Sales used in the fit"] + new["Sales set aside or dropped"] == 363 + 24
+    assert new["Sales data hash (SHA-256)"] != old["Sales data hash (SHA-256)"]
     assert (book.parent / "book.xlsx.bak").exists()
 
 

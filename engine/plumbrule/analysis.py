@@ -14,7 +14,7 @@ import pandas as pd
 
 from . import intake, ratios, screen, validate
 from .checks import WATCH, Check, run_checks
-from .errors import SettingError
+from .errors import FitError, SettingError
 from .model import FittedModel, fit_model
 from .settings import Settings, parse_settings
 from .spec import ModelSpec, build_spec
@@ -103,81 +103,23 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     checks → validation (holdout, k-fold) → ratio study → tables.
     """
     settings = coerce_settings(settings, **kw)
-    table = as_table(source)
-    spec, clean = prepare(table, settings)
-    data = clean.data
-    split = validate.split_rows(data, settings, spec.date_column)
-
-    columns = screen.screened_columns(settings, spec.numeric_columns, table.columns)
-    screened = screen.data_rules(data, columns, settings, table.frame.index)
-    kept = screened.kept
-    train = kept.loc[kept.index.isin(split.training)]
-    hold = kept.loc[kept.index.isin(split.holdout)]
-    train, hold, moved = _move_unseen(train, hold, spec)
-    logs, looked = [screened.log], list(screened.looked_at)
-
-    if settings.influence_screen:
-        first = fit_model(spec, train, robust_se=settings.robust_se,
-                          confidence=settings.confidence)
-        flagged = screen.influence_rule(first)
-        looked.append((screen.INFLUENCE, first.fit.n))
-        logs.append(flagged)
-        train = train.drop(index=flagged["row"])
-        train, hold, moved2 = _move_unseen(train, hold, spec)
-        moved = pd.concat([moved, moved2], ignore_index=True)
-    model = fit_model(spec, train, robust_se=settings.robust_se,
-                      confidence=settings.confidence)
-    fit_log = pd.concat([lg for lg in logs if len(lg)] or [screen.empty_log()],
-                        ignore_index=True)
-
-    # Validation: holdout estimates and k-fold on the training rows.
-    factor = validate.model_factor(model, settings.retransform)
-    h_pred = validate.predict(model, hold) if len(hold) else np.empty(0)
-    h_est = validate.price_estimates(h_pred, spec.log_response, factor)
-    cv = None
     if settings.folds == 1:
         raise SettingError("Setting 'folds': 1 fold is not cross-validation. Use 0 (off) or 2 "
                            "or more.", setting="folds")
-    if settings.folds and settings.folds <= model.fit.n:
-        cv = validate.cross_validate(model, settings.folds, settings.seed, settings.retransform)
-    validation = validate.validation_table(model, settings.retransform, hold, h_pred, h_est, cv)
-    if settings.folds and cv is None:     # a default of 5 folds must not break a tiny table
-        validation = pd.concat([validation, pd.DataFrame([{
-            "set": "folds", "n": model.fit.n,
-            "note": f"cross-validation not run: {settings.folds} folds need at least "
-                    f"{settings.folds} training sales"}])], ignore_index=True)
-
-    # Ratio study: on the holdout; without one, on the out-of-fold estimates; else in-sample.
-    by = _ratio_by(settings, table)
-    strat = lambda frame: frame[by].to_numpy() if by else None  # noqa: E731
-    holdout_estimates = ratios.estimates_table(hold.index, hold[spec.response], h_est,
-                                               strat(hold))
-    cv_estimates = _cv_estimates(model, cv, strat)
-    if len(hold):
-        sample, study_est = "holdout", holdout_estimates
-    elif cv is not None:
-        sample, study_est = "cross-validated (out-of-fold)", cv_estimates
-    else:
-        fitted = validate.price_estimates(model.fit.fitted, spec.log_response, factor)
-        sample = "in-sample (optimistic: the model has seen these sales)"
-        study_est = ratios.estimates_table(train.index, train[spec.response], fitted,
-                                           strat(train))
-    ratio_log = screen.empty_log()
-    if settings.ratio_trim:
-        ratio_log = ratios.ratio_trim(study_est[study_est["in_study"]])
-        study_est = study_est.assign(in_study=study_est["in_study"]
-                                     & ~study_est["row"].isin(ratio_log["row"]))
-        if sample == "holdout":
-            holdout_estimates = study_est
-        elif cv is not None:
-            cv_estimates = study_est
-    study = ratios.ratio_study(study_est, sample, ratios.RatioTargets.for_class(
-        settings.property_class), settings.confidence, by)
+    table = as_table(source)
+    spec, clean = prepare(table, settings)
+    columns = screen.screened_columns(settings, spec.numeric_columns, table.columns)
+    train, hold, fit_log, looked, moved = _screen_and_split(clean.data, spec, settings, table,
+                                                            columns)
+    model = fit_model(spec, train, robust_se=settings.robust_se,
+                      confidence=settings.confidence)
+    validation, h_est, cv = _validate(model, hold, settings)
+    study, holdout_estimates, cv_estimates, ratio_log = _ratio_tables(
+        model, hold, h_est, cv, settings, _ratio_by(settings, table))
 
     screen_log = pd.concat([lg for lg in (fit_log, ratio_log) if len(lg)]
                            or [screen.empty_log()], ignore_index=True)
     after = pd.concat([train, hold]).sort_index()
-    summary = screen.summary_table(data, after, screen_log, columns, looked)
     checks = run_checks(model) + screen.screening_checks(fit_log, looked,
                                                          settings.max_excluded_share)
     if len(moved):
@@ -191,7 +133,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         "residuals": residual_table(model),
         "correlations": correlation_table(model),
         "screen_log": screen_log,
-        "screen_summary": summary,
+        "screen_summary": screen.summary_table(clean.data, after, screen_log, columns, looked),
         "validation": validation,
         "ratio_study": study,
         "holdout_estimates": holdout_estimates,
@@ -199,6 +141,92 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     }
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
                     tables=tables, holdout=hold)
+
+
+def _screen_and_split(data: pd.DataFrame, spec: ModelSpec, settings: Settings,
+                      table: intake.SheetTable, columns: tuple[str, ...]):
+    """Split, then screen: (training rows, holdout rows, fit log, rows each rule examined,
+    holdout rows moved to training)."""
+    split = validate.split_rows(data, settings, spec.date_column)
+    screened = screen.data_rules(data, columns, settings, table.frame.index)
+    kept = screened.kept
+    train = kept.loc[kept.index.isin(split.training)]
+    hold = kept.loc[kept.index.isin(split.holdout)]
+    train, hold, moved = _move_unseen(train, hold, spec)
+    logs, looked = [screened.log], list(screened.looked_at)
+    _enough(train, hold, screened.log)
+    if settings.influence_screen:
+        first = fit_model(spec, train, robust_se=settings.robust_se,
+                          confidence=settings.confidence)
+        flagged = screen.influence_rule(first)
+        looked.append((screen.INFLUENCE, first.fit.n))
+        logs.append(flagged)
+        train = train.drop(index=flagged["row"])
+        train, hold, moved2 = _move_unseen(train, hold, spec)
+        moved = pd.concat([moved, moved2], ignore_index=True)
+    fit_log = pd.concat([lg for lg in logs if len(lg)] or [screen.empty_log()],
+                        ignore_index=True)
+    return train, hold, fit_log, looked, moved
+
+
+def _validate(model: FittedModel, hold: pd.DataFrame, settings: Settings):
+    """(validation table, holdout estimates on the price scale, CrossValidation or None)."""
+    factor = validate.model_factor(model, settings.retransform)
+    h_pred = validate.predict(model, hold) if len(hold) else np.empty(0)
+    h_est = validate.price_estimates(h_pred, model.spec.log_response, factor)
+    cv = None
+    if settings.folds and settings.folds <= model.fit.n:
+        cv = validate.cross_validate(model, settings.folds, settings.seed, settings.retransform)
+    table = validate.validation_table(model, settings.retransform, hold, h_pred, h_est, cv)
+    if settings.folds and cv is None:     # a default of 5 folds must not break a tiny table
+        table = pd.concat([table, pd.DataFrame([{
+            "set": "folds", "n": model.fit.n,
+            "note": f"cross-validation not run: {settings.folds} folds need at least "
+                    f"{settings.folds} training sales"}])], ignore_index=True)
+    return table, h_est, cv
+
+
+def _ratio_tables(model: FittedModel, hold: pd.DataFrame, h_est: np.ndarray, cv,
+                  settings: Settings, by: str | None):
+    """The ratio study on the holdout; without one on the out-of-fold estimates; with
+    neither in-sample (labelled optimistic). Returns (ratio_study, holdout_estimates,
+    cv_estimates, ratio-trim log)."""
+    spec = model.spec
+    strat = (lambda frame: frame[by].to_numpy()) if by else (lambda frame: None)
+    holdout_estimates = ratios.estimates_table(hold.index, hold[spec.response], h_est,
+                                               strat(hold))
+    cv_estimates = _cv_estimates(model, cv, strat)
+    if len(hold):
+        sample, study_est = "holdout", holdout_estimates
+    elif cv is not None:
+        sample, study_est = "cross-validated (out-of-fold)", cv_estimates
+    else:
+        fitted = validate.price_estimates(model.fit.fitted, spec.log_response,
+                                          validate.model_factor(model, settings.retransform))
+        sample = "in-sample (optimistic: the model has seen these sales)"
+        study_est = ratios.estimates_table(model.rows, model.data[spec.response], fitted,
+                                           strat(model.data))
+    ratio_log = screen.empty_log()
+    if settings.ratio_trim:
+        ratio_log = ratios.ratio_trim(study_est[study_est["in_study"]])
+        study_est = study_est.assign(in_study=study_est["in_study"]
+                                     & ~study_est["row"].isin(ratio_log["row"]))
+        if len(hold):
+            holdout_estimates = study_est
+        elif cv is not None:
+            cv_estimates = study_est
+    targets = ratios.RatioTargets.for_class(settings.property_class)
+    study = ratios.ratio_study(study_est, sample, targets, settings.confidence, by)
+    return study, holdout_estimates, cv_estimates, ratio_log
+
+
+def _enough(train: pd.DataFrame, hold: pd.DataFrame, log: pd.DataFrame) -> None:
+    """Say why when the holdout and screening leave too few sales to fit anything."""
+    if len(train) >= 3 or (not len(hold) and not len(log)):
+        return   # without holdout or screening the fit's own message is the clearer one
+    raise FitError(f"Only {len(train)} sales remain to fit the model after holding out "
+                   f"{len(hold)} and screening out {len(log)}. Use a smaller 'holdout' or "
+                   "loosen the screening settings.", setting="holdout" if len(hold) else None)
 
 
 def _ratio_by(settings: Settings, table: intake.SheetTable) -> str | None:

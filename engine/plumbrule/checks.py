@@ -149,12 +149,26 @@ def breusch_pagan(model: FittedModel) -> Check:
 def white_special(model: FittedModel) -> Check:
     """White's test in its special form: n·R² of e² on ŷ and ŷ² ~ χ²(2) (Wooldridge, ch. 8)."""
     from scipy.stats import chi2
-    z = _standardized(model.fit.fitted)
-    zz = np.empty((len(z), 2), order="F")
-    zz[:, 0] = z
-    np.multiply(z, z, out=zz[:, 1])
-    e = model.fit.resid
-    lm = model.fit.n * _aux_r2(e * e, zz)
+    z = _standardized(model.fit.fitted)        # mean 0, unit variance: ŷ² stays tame
+    w = z * z
+    w -= w.mean()
+    t = model.fit.resid * model.fit.resid
+    t -= t.mean()
+    tss = float(np.dot(t, t))
+    # R² of t on [1, z, w] from the 2 × 2 normal equations of the centred columns,
+    # scaled to unit length (vectors only: no n × 2 copies on large tables).
+    cols = (z, w)
+    norms = np.sqrt([np.dot(c, c) for c in cols])
+    keep = [i for i in range(2) if norms[i] > 0]
+    if not keep or not tss:
+        r2 = 0.0
+    else:
+        gram = np.array([[np.dot(cols[i], cols[j]) / (norms[i] * norms[j]) for j in keep]
+                         for i in keep])
+        zt = np.array([np.dot(cols[i], t) / norms[i] for i in keep])
+        coef, *_ = np.linalg.lstsq(gram, zt, rcond=1e-10)
+        r2 = float(np.dot(zt, coef)) / tss
+    lm = model.fit.n * r2
     p = float(chi2.sf(lm, 2))
     return Check("Constant variance: White (special form)", lm, p, "p < 0.05", _verdict_p(p),
                  _variance_note(p, model), 2, "chi2", "error variance is constant")
@@ -274,6 +288,7 @@ def ramsey_reset(model: FittedModel) -> Check:
     extra = np.empty((fit.n, 2), order="F")
     np.multiply(z, z, out=extra[:, 0])
     np.multiply(extra[:, 0], z, out=extra[:, 1])
+    del z
     # Residualise the new columns on the model's design, then regress e on them.
     if fit.has_intercept:
         extra -= extra.mean(axis=0)
@@ -289,7 +304,9 @@ def ramsey_reset(model: FittedModel) -> Check:
         return not_applicable(name, "The fitted values take too few distinct values for "
                               "their powers to test anything.", "p < 0.05")
     df2 = fit.df_resid - df1
-    gain = _explained_share(extra[:, keep] / after[keep], fit.resid)
+    extra = extra[:, keep] if df1 < 2 else extra
+    extra /= after[keep]
+    gain = _explained_share(extra, fit.resid)
     ssr_u = fit.ssr - gain
     fstat = (gain / df1) / (ssr_u / df2)
     p = float(fdist.sf(fstat, df1, df2))

@@ -115,7 +115,7 @@ def table_from_frame(frame: pd.DataFrame, header_row: int = 1,
         # else (nullable, categorical, string dtypes) becomes plain cells.
         keep = isinstance(c.dtype, np.dtype) and c.dtype.kind in "fiubM"
         cols[j] = c.to_numpy() if keep else c.astype(object).to_numpy()
-    body = pd.DataFrame(cols, index=pd.RangeIndex(len(frame)))
+    body = pd.DataFrame(cols, index=pd.RangeIndex(len(frame)), copy=False)  # views, no copy
     return _with_header(headers, body, header_row, sheet, first_column)
 
 
@@ -292,8 +292,8 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     order = list(typed)
     if not order:
         return CleanData(pd.DataFrame(index=frame.index), _empty_log())
-    data = pd.DataFrame(typed, index=frame.index)[order]
-    why = pd.DataFrame(reasons, index=frame.index)[order]
+    data = pd.DataFrame(typed, index=frame.index, copy=False)[order]
+    why = pd.DataFrame(reasons, index=frame.index, copy=False)[order]
     bad = why.notna().to_numpy()
     any_bad = bad.any(axis=1)
     if not any_bad.any():
@@ -417,6 +417,8 @@ def _shown(cell: Any) -> str:
         return f"a date ({pd.Timestamp(cell).date()})"
     if isinstance(cell, (str, numbers.Real)):
         text = " ".join(str(cell).split())
+        if not text.isprintable() or not text:   # show invisible characters as escapes
+            text = str(cell).encode("unicode_escape").decode("ascii")
         return "'" + (text if len(text) <= _SHOWN_TEXT else text[:_SHOWN_TEXT] + "...") + "'"
     return f"a {type(cell).__name__} value"
 
@@ -471,11 +473,15 @@ def _plain_numbers(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     NaN is a blank; a COM error code is an error value; ±inf is an error."""
     v = col.to_numpy(dtype=float)
     blank = np.isnan(v)
-    reason = pd.Series(np.nan, index=col.index, dtype=object)
+    codes = np.isin(v, list(COM_ERROR_CODES)) if (v < -2e9).any() else None
+    has_codes = codes is not None and bool(codes.any())
+    # Nothing missing: an all-NaN float column says "no reason" as well as object
+    # NaNs do, at a fraction of the cost on large frames.
+    reason = pd.Series(np.nan, index=col.index,
+                       dtype=object if blank.any() or has_codes else float)
     if blank.any():
         reason[blank] = "blank"
-    codes = np.isin(v, list(COM_ERROR_CODES)) if v.min(initial=0) < -2e9 else None
-    if codes is not None and codes.any():
+    if has_codes:
         c = v[codes].astype(np.int64)
         reason[codes] = [f"error value {COM_ERROR_CODES[k]} (code {k})" for k in c]
         v = np.where(codes, np.nan, v)
@@ -483,7 +489,7 @@ def _plain_numbers(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     if infinite.any():
         _raise_first(pd.Series(infinite, index=col.index), col, "is not a finite number. "
                      "Enter a number or leave the cell blank.", name)
-    return pd.Series(v, index=col.index), reason
+    return pd.Series(v, index=col.index, copy=False), reason
 
 
 def parse_number_text(text: pd.Series) -> pd.Series:
@@ -587,6 +593,10 @@ def to_dates(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     if dates.any():
         out[dates] = _iso_dates(col[dates]).to_numpy()
     bad = present & out.isna()
+    far = bad & kinds.eq(DATE)
+    if far.any() and far.idxmax() == bad.idxmax():
+        _raise_first(far, col, f"is outside the dates plumbrule can use ({_EARLIEST.date()} to "
+                     f"{_LATEST.date()}). Correct the date.", name)
     if bad.any():
         _raise_first(bad, col, "is not a date. Enter a date cell or text as YYYY-MM-DD.", name)
     return out, reason

@@ -15,8 +15,6 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .errors import FitError
-
 OK, WATCH, FAILS, TOO_FEW = "ok", "watch", "fails", "too few sales"
 COD_TARGETS = {"residential": 15.0, "newer-residential": 10.0, "other": 20.0}
 ESTIMATE_COLUMNS = ["row", "sale_price", "estimate", "ratio", "stratum", "in_study"]
@@ -49,10 +47,10 @@ class RatioTargets:
 
 # --- the measures ---------------------------------------------------------------
 
-def cod(ratios: np.ndarray) -> float:
+def cod(ratios: np.ndarray, median: float | None = None) -> float:
     """Coefficient of dispersion, percent: 100 · mean|r − median| / median."""
     r = np.asarray(ratios, dtype=float)
-    med = np.median(r)
+    med = np.median(r) if median is None else median
     return float(100.0 * np.mean(np.abs(r - med)) / med)
 
 
@@ -104,7 +102,8 @@ def median_interval(ratios: np.ndarray, level: float = 0.95) -> tuple[float, flo
     return float(r[j - 1]), float(r[len(r) - j]), coverage
 
 
-def prb(estimate: np.ndarray, price: np.ndarray, level: float = 0.95) -> tuple[float, float, float]:
+def prb(estimate: np.ndarray, price: np.ndarray, level: float = 0.95,
+        median: float | None = None) -> tuple[float, float, float]:
     """Gloudemans' PRB with its confidence interval: (slope, low, high).
 
     Regress (ratio − median)/median on ln(½·price + ½·estimate/median)/ln 2; the
@@ -112,18 +111,21 @@ def prb(estimate: np.ndarray, price: np.ndarray, level: float = 0.95) -> tuple[f
     regression cannot be fitted (fewer than 3 sales, all values alike).
     """
     from scipy.stats import t as tdist
-    from .ols import fit_ols
     est, price = np.asarray(estimate, float), np.asarray(price, float)
     r = est / price
-    med = np.median(r)
+    med = float(np.median(r)) if median is None else median
     y = (r - med) / med
     x = np.log(0.5 * price + 0.5 * est / med) / np.log(2.0)
-    try:
-        fit = fit_ols(x[:, None], y, ["value (doublings)"], intercept=True)
-    except FitError:
+    n = len(x)
+    # One predictor: the centred two-pass formulas are the QR solution (R = ‖x − x̄‖).
+    xc, yc = x - x.mean(), y - y.mean()
+    sxx = float(np.dot(xc, xc))
+    if n < 3 or not sxx > 1e-24 * max(float(np.dot(x, x)), 1e-300):
         return float("nan"), float("nan"), float("nan")
-    slope, se = float(fit.coef[1]), float(fit.se[1])
-    q = float(tdist.ppf(0.5 + level / 2.0, fit.df_resid))
+    slope = float(np.dot(xc, yc)) / sxx
+    e = yc - slope * xc
+    se = float(np.sqrt(np.dot(e, e) / (n - 2) / sxx))
+    q = float(tdist.ppf(0.5 + level / 2.0, n - 2))
     return slope, slope - q * se, slope + q * se
 
 
@@ -171,10 +173,11 @@ def measures(estimate: np.ndarray, price: np.ndarray, level: float = 0.95) -> di
     if n == 0:
         return {"n": 0, **{k: np.nan for k in STUDY_COLUMNS[3:15]}}
     lo, hi, coverage = median_interval(r, level)
-    slope, slo, shi = prb(estimate, price, level)
-    return {"n": n, "median_ratio": float(np.median(r)), "median_ci_low": lo,
+    med = float(np.median(r))
+    slope, slo, shi = prb(estimate, price, level, med)
+    return {"n": n, "median_ratio": med, "median_ci_low": lo,
             "median_ci_high": hi, "median_ci_coverage": coverage, "mean_ratio": float(r.mean()),
-            "weighted_mean_ratio": weighted_mean_ratio(estimate, price), "cod": cod(r),
+            "weighted_mean_ratio": weighted_mean_ratio(estimate, price), "cod": cod(r, med),
             "cov": cov(r), "prd": prd(estimate, price), "prb": slope, "prb_ci_low": slo,
             "prb_ci_high": shi}
 

@@ -236,8 +236,9 @@ def five_numbers(data: pd.DataFrame, columns: Sequence[str]) -> pd.DataFrame:
     cols = list(columns)
     if not len(data):
         return pd.DataFrame(np.nan, index=cols, columns=list(SUMMARY_STATS))
-    q = data[cols].quantile([0.0, 0.25, 0.5, 0.75, 1.0]).T
-    q.columns = ["min", "q1", "median", "q3", "max"]
+    # numpy's default percentile is the same linear interpolation as pandas' quantile, faster
+    q = pd.DataFrame([np.percentile(data[c].to_numpy(float), [0, 25, 50, 75, 100]) for c in cols],
+                     index=cols, columns=["min", "q1", "median", "q3", "max"])
     iqr = q["q3"] - q["q1"]
     q["fence_low_1_5"], q["fence_high_1_5"] = q["q1"] - 1.5 * iqr, q["q3"] + 1.5 * iqr
     q["fence_low_3"], q["fence_high_3"] = q["q1"] - 3.0 * iqr, q["q3"] + 3.0 * iqr
@@ -261,7 +262,8 @@ def summary_table(before: pd.DataFrame, after: pd.DataFrame, log: pd.DataFrame,
         k = int(counts.get(rule, 0))
         recs.append({"kind": "rule", "item": rule, "rows_before": n, "rows_after": n - k,
                      "excluded": k, "share_excluded": k / n if n else np.nan})
-    b, a = five_numbers(before, columns), five_numbers(after, columns)
+    b = five_numbers(before, columns)
+    a = b if len(after) == len(before) else five_numbers(after, columns)  # after ⊆ before
     per_col = fit_log["column"].value_counts()
     for c in columns:
         rec = {"kind": "column", "item": c, "rows_before": len(before), "rows_after": len(after),

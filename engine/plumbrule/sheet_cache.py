@@ -17,11 +17,11 @@ too, so a sheet full of cells pointing at bad data recalculates fast.
 from __future__ import annotations
 
 import hashlib
-from operator import itemgetter
 import threading
 from collections import OrderedDict
 from dataclasses import dataclass
-from typing import Any, Callable, Hashable, Sequence
+from operator import itemgetter
+from typing import Any, Callable, Hashable
 
 DEFAULT_MAX_ENTRIES = 16
 DEFAULT_MAX_BYTES = 512 * 2**20
@@ -79,7 +79,15 @@ def type_guard(rows: list[list[Any]]) -> tuple:
     columns, cells = [], []
     for j in range(width.pop()):
         col = list(map(itemgetter(j), rows))
-        hits = [i for i, flag in enumerate(map(_zero_or_one, col)) if flag]
+        try:                                    # list.count compares in C: 0 == 0.0 == False
+            if not (col.count(0) or col.count(1)):
+                continue
+        except Exception:                       # an exotic cell: look at each one
+            pass
+        try:
+            hits = [i for i, v in enumerate(col) if v == 0 or v == 1]
+        except Exception:
+            hits = [i for i, flag in enumerate(map(_zero_or_one, col)) if flag]
         if len(hits) * 4 > len(col):
             columns.append((j, list(map(type, col))))
         elif hits:

@@ -469,11 +469,11 @@ def screen_table(analysis):
 @cell_safe
 def PLUMB_RATIOS(sales, response, predictors, settings=None):
     """Sales-ratio study (holdout sales, or cross-validated estimates without a holdout): median ratio and interval, COD, PRD, PRB, each with its target and verdict."""
-    table = ratio_table(analysis_for(sales, response, predictors, settings))
-    return table
+    return ratio_table(analysis_for(sales, response, predictors, settings))
 
 
 def ratio_table(analysis):
+    """The engine's ratio study; an empty one says which setting makes one."""
     table = analysis.tables.get("ratio_study")
     if table is None or len(table) == 0:
         raise SettingError("The sales-ratio study needs holdout sales or cross-validation. "
@@ -510,6 +510,7 @@ def PLUMB_GRID(sales, response, predictors, subject, comps, settings=None):
 
 
 def _grid(valuation):
+    """The valuation, provided it has a grid (comparables were given)."""
     if valuation.grid is None or len(valuation.grid) == 0:
         raise SettingError("The adjustment grid needs comparables: give their sheet rows in "
                            "the comps argument (e.g. 12,40,57) or the setting comps.",

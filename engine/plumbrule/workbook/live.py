@@ -107,6 +107,14 @@ def write_live_block(ws, analysis, valuation, anchor_row: int, subjects=None) ->
         r += 1
     r += 1
 
+    # The results sit right under the inputs (a reader sees the value move); the
+    # numbers they are computed from follow below.
+    res_top = r
+    n_checks = sum(1 for col in inputs if col in levels)
+    r = res_top + 8 + n_checks + 1
+    w.text(r, 1, "How the spreadsheet computes it", bold=True)
+    r += 1
+
     # --- the model's numbers, then the term table with the design row -----
     consts = _constants(analysis, valuation, model, level)
     labels = [("t quantile", consts["t"], f"two-sided {level:.0%}, {model.fit.df_resid} "
@@ -149,7 +157,8 @@ def write_live_block(ws, analysis, valuation, anchor_row: int, subjects=None) ->
         ws.cell(row=row, column=4).number_format = "0.00E+00"
         for j in range(k):
             w.value(row, 5 + j, float(cov[i, j]), fmt="0.00E+00")
-    r = last + 2
+    end = last + 1
+    r = res_top
 
     # --- results -----------------------------------------------------------
     lp = f"SUMPRODUCT($B${first}:$B${last},{x_range})"
@@ -207,7 +216,7 @@ def write_live_block(ws, analysis, valuation, anchor_row: int, subjects=None) ->
     ws.column_dimensions["A"].width = max(ws.column_dimensions["A"].width or 0, 38)
     ws.column_dimensions["B"].width = max(ws.column_dimensions["B"].width or 0, 16)
     ws.column_dimensions["C"].width = max(ws.column_dimensions["C"].width or 0, 30)
-    return r + 1
+    return end + 1
 
 
 # --- what goes into the cells -----------------------------------------------

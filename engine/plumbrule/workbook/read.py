@@ -28,6 +28,7 @@ class BookInputs:
     sales_hash: str
     sales_values: list          # header row first, as read (for a results copy)
     other_values: dict          # sheet name → 2-D values of Subjects / Comps / Settings
+    other_rows: dict            # sheet name → sheet row of that block's first row
 
 
 def read_inputs(path: str | Path) -> BookInputs:
@@ -45,24 +46,24 @@ def read_inputs(path: str | Path) -> BookInputs:
         if len(sales.frame) == 0:
             raise WorkbookError(f"The Sales table (sheet '{sheet}') has no sales below its header "
                                 "row. Paste your sales into it and run again.", sheet=sheet)
-        other = {}
+        other, other_rows = {}, {}
         subj_block, subj_row, subj_sheet = _block(book, "Subjects")
         subjects = None
         if subj_block and len(subj_block) > 1:
-            other["Subjects"] = subj_block
+            other["Subjects"], other_rows["Subjects"] = subj_block, subj_row
             subjects = table_from_values(subj_block, header_row=subj_row, sheet=subj_sheet)
             if len(subjects.frame) == 0:
                 subjects = None
         comp_block, comp_row, comp_sheet = _block(book, "Comps")
         if comp_block:
-            other["Comps"] = comp_block
-        set_block, _, set_sheet = _block(book, "Settings")
+            other["Comps"], other_rows["Comps"] = comp_block, comp_row
+        set_block, set_row, set_sheet = _block(book, "Settings")
         if set_block:
-            other["Settings"] = set_block
+            other["Settings"], other_rows["Settings"] = set_block, set_row
         return BookInputs(sales=sales, subjects=subjects,
                           comps=_comp_rows(comp_block, comp_row, comp_sheet),
                           settings=_settings(set_block), sales_hash=hash_block(sales_block),
-                          sales_values=sales_block, other_values=other)
+                          sales_values=sales_block, other_values=other, other_rows=other_rows)
     finally:
         book.close()
 

@@ -169,11 +169,12 @@ def _headline(ws, ctx, r) -> int:
     rs = ctx.table("ratio_study")
     if rs is not None:
         first = rs.iloc[0]
-        for key, label, fmt in (("median_ratio", "Median ratio (holdout)", "0.000"),
-                                ("cod", "COD (holdout)", "0.0"), ("prd", "PRD (holdout)", "0.000"),
-                                ("prb", "PRB (holdout)", "0.000")):
+        where = _sample_text(first)
+        for key, label, fmt in (("median_ratio", "Median ratio", "0.000"), ("cod", "COD", "0.0"),
+                                ("prd", "PRD", "0.000"), ("prb", "PRB", "0.000")):
             if key in rs.columns:
-                rows.append((label, first[key], None, fmt, _verdict_of(rs, 0, key)))
+                rows.append((f"{label} ({where})", first[key], None, fmt,
+                             _verdict_of(rs, 0, key)))
     from openpyxl.styles import Font
     for label, v1, v2, fmt, comment in rows:
         put(ws, r, 1, label, style="plumb_label")
@@ -345,13 +346,22 @@ _MEASURES = (("median_ratio", "Median ratio", "0.000", "0.90 to 1.10"),
 
 
 def _ratio_study(ws, ctx, r) -> int:
-    r = _section(ws, r, "Sales-ratio study (estimate ÷ sale price, on the holdout)")
+    r = _section(ws, r, "Sales-ratio study (estimate ÷ sale price)")
     rs = ctx.table("ratio_study")
     if rs is None:
-        _wrapped(ws, r, 1, "No holdout was set aside, so the model was not tested on sales it "
-                           "has not seen. Set 'holdout' (e.g. 0.3) or 'holdout_recent' to run "
-                           "the ratio study.", span=LAST_COL)
+        _wrapped(ws, r, 1, "No ratio study was run: the model was not tested on sales it has "
+                           "not seen. Set 'holdout' (e.g. 0.3), 'holdout_recent' or 'folds' to "
+                           "run it.", span=LAST_COL)
         return r + 1
+    where = _sample_text(rs.iloc[0])
+    if where == "holdout":
+        text = "Ratios of sales held out of the fit: the model never saw them."
+    else:
+        text = ("No holdout was set aside; the ratios use cross-validated estimates (each sale "
+                "valued by a model fitted without it). A holdout of recent sales is the stricter "
+                "test in a moving market.")
+    _wrapped(ws, r, 1, text, span=LAST_COL)
+    r += 1
     cod_target = {"residential": "15 or less", "newer-residential": "10 or less",
                   "other": "20 or less"}.get(ctx.analysis.settings.property_class, "")
     r = _heads(ws, r, ["Group", "Sales", "Median ratio", "COD", "PRD", "PRB", "Verdicts"],
@@ -437,6 +447,8 @@ def _heads(ws, r, heads, numeric=()) -> int:
     from openpyxl.styles import Alignment
     for j, h in enumerate(heads, start=1):
         c = put(ws, r, j, h, style="plumb_header")
+        if j == LAST_COL:
+            c.alignment = Alignment(wrap_text=True, vertical="top", indent=1)
         if j in numeric:
             c.alignment = Alignment(horizontal="right", wrap_text=True, vertical="top")
     return r + 1
@@ -458,7 +470,8 @@ def _wrapped(ws, r, col, text, span=1, style=None, lines_with=None):
     from openpyxl.styles import Alignment
     text = "" if text is None else _plain_text(text)
     c = put(ws, r, col, text, style=style)
-    c.alignment = Alignment(wrap_text=True, vertical="top")
+    # the last column holds notes beside right-aligned numbers: indent them a little
+    c.alignment = Alignment(wrap_text=True, vertical="top", indent=1 if col == LAST_COL else 0)
     if span > 1:
         ws.merge_cells(start_row=r, start_column=col, end_row=r, end_column=col + span - 1)
     width = sum(WIDTHS.get(_letter(k), 10) for k in range(col, col + span))
@@ -523,7 +536,13 @@ def _top_align(ws) -> None:
             if c.value is not None and c.alignment.vertical != "top":
                 a = c.alignment
                 c.alignment = Alignment(horizontal=a.horizontal, wrap_text=a.wrap_text,
-                                        vertical="top")
+                                        indent=a.indent, vertical="top")
+
+
+def _sample_text(rec) -> str:
+    """'holdout' or 'cross-validated': which estimates the ratio study used."""
+    sample = str(rec.get("sample", "holdout") or "holdout")
+    return "holdout" if sample.startswith("holdout") else "cross-validated"
 
 
 def _value_format(v):

@@ -48,24 +48,49 @@ def run_book(path: str | Path, backup: bool | None = None,
     path = Path(path)
     check_not_open(path)
     parts = inspect_book(path)
+    _check_names(parts)
     inputs = read_inputs(path)
     analysis, valuation, settings = _analyse(inputs)
     from .stamp import make_stamp
     stamp = make_stamp(analysis, inputs.sales_hash, source=path.name, now=now)
     keep_bak = settings.backup if backup is None else backup
-    if parts.unsupported:
+    in_place = not parts.unsupported
+    book = _result_book(inputs, with_sales=not in_place)
+    write_results(book, analysis, valuation, stamp)
+    if in_place:
+        target = path
+        for ws in book.worksheets:          # the user's choice of tab stays
+            ws.sheet_view.tabSelected = False
+        from .graft import graft
+        names = [n for n in RESULT_SHEETS if n in book.sheetnames]
+        data = _to_bytes(book)
+        bak = write_atomic(target, lambda tmp: graft(path, data, tmp, parts.result_sheets, names),
+                           keep_bak)
+    else:
         target = path.with_name(path.stem + ".results.xlsx")
         check_not_open(target)
-        book = _results_book(inputs)
-    else:
-        target = path
-        book = _load(path, parts)
-    write_results(book, analysis, valuation, stamp)
-    bak = save_atomic(book, target, keep_bak)
-    return RunResult(written=target, in_place=not parts.unsupported,
-                     unsupported=parts.unsupported, backup=bak,
-                     headline=headline(analysis, valuation), analysis=analysis,
+        bak = write_atomic(target, book.save, keep_bak)
+    return RunResult(written=target, in_place=in_place, unsupported=parts.unsupported,
+                     backup=bak, headline=headline(analysis, valuation), analysis=analysis,
                      valuation=valuation)
+
+
+def _to_bytes(book) -> bytes:
+    import io
+    buf = io.BytesIO()
+    book.save(buf)
+    return buf.getvalue()
+
+
+def _check_names(parts) -> None:
+    """A sheet of the user's with one of our result sheets' names is never replaced."""
+    ours = {s.lower() for s in parts.result_sheets}
+    for name in parts.sheets:
+        if name.lower() in {s.lower() for s in RESULT_SHEETS} and name.lower() not in ours:
+            raise WorkbookError(
+                f"The workbook already has a sheet '{name}' that plumbrule did not write. "
+                f"Rename it: plumbrule writes its results to the sheets "
+                f"{', '.join(RESULT_SHEETS)}. Nothing was written.", sheet=name)
 
 
 def _analyse(inputs):
@@ -92,46 +117,26 @@ def _analyse(inputs):
     return analysis, valuation, settings
 
 
-def _load(path: Path, parts):
-    """The user's book through openpyxl, with our old result sheets removed."""
-    import warnings
-    from openpyxl import load_workbook
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")      # openpyxl warns about parts we already checked
-        try:
-            book = load_workbook(path, keep_vba=parts.macro_enabled, rich_text=True,
-                                 keep_links=True)
-        except WorkbookError:
-            raise
-        except Exception as exc:
-            raise WorkbookError(f"'{path.name}' cannot be opened for writing ({exc}). Open and "
-                                "save it in your spreadsheet first; nothing was written.") from None
-    ours = {s.lower() for s in parts.result_sheets}
-    for ws in list(book.worksheets) + list(book.chartsheets):
-        low = ws.title.lower()
-        if low in ours:
-            book.remove(ws)
-        elif low in {s.lower() for s in RESULT_SHEETS}:
-            raise WorkbookError(
-                f"The workbook already has a sheet '{ws.title}' that plumbrule did not write. "
-                f"Rename it: plumbrule writes its results to the sheets "
-                f"{', '.join(RESULT_SHEETS[:-1])}. Nothing was written.", sheet=ws.title)
-    return book
-
-
-def _results_book(inputs):
-    """A fresh book: the input values (as text-safe values) for the result sheets to sit beside."""
+def _result_book(inputs, with_sales: bool):
+    """A fresh workbook holding the input values (text-safe, at their sheet rows), for the
+    result sheets to be written beside. Only the result sheets are grafted into the
+    user's book; with ``with_sales`` it is the BOOK.results.xlsx copy itself."""
     from openpyxl import Workbook
     from .cells import put
     book = Workbook()
     book.remove(book.active)
-    blocks = {"Sales": inputs.sales_values, **inputs.other_values}
+    blocks = dict(inputs.other_values)
+    rows = dict(inputs.other_rows)
+    if with_sales:
+        blocks["Sales"] = inputs.sales_values
+        rows["Sales"] = inputs.sales.header_row
     for name in INPUT_SHEETS:
         block = blocks.get(name)
         if not block:
             continue
         ws = book.create_sheet(name)
-        for i, row in enumerate(block, start=1):
+        top = rows.get(name, 1)
+        for i, row in enumerate(block, start=top):
             for j, v in enumerate(row, start=1):
                 if v is not None and v != "":
                     put(ws, i, j, v)
@@ -168,13 +173,14 @@ def _record_sheets(book, names: list[str]) -> None:
                                                      hidden=True)
 
 
-def save_atomic(book, target: Path, backup: bool) -> Path | None:
-    """Save to a temp file beside ``target``, keep ``target.bak`` if asked, then replace.
-    Returns the backup path (or None). On failure nothing at ``target`` changes."""
+def write_atomic(target: Path, write, backup: bool) -> Path | None:
+    """``write(tmp)`` a temp file beside ``target``, keep ``target.bak`` if asked, then
+    ``os.replace``. Returns the backup path (or None). On failure ``target`` is unchanged
+    and the temp file is removed."""
     tmp = target.with_name(f".~plumbrule-{os.getpid()}-{target.name}")
     bak = target.with_name(target.name + ".bak") if backup and target.exists() else None
     try:
-        book.save(tmp)
+        write(tmp)
         if bak is not None:
             bak_tmp = bak.with_name(bak.name + ".tmp")
             shutil.copy2(target, bak_tmp)

@@ -101,6 +101,8 @@ def _read_me(ws) -> None:
     from .cells import put, TITLE_COLOUR
     ws.column_dimensions["A"].width = 110
     for i, (text, kind) in enumerate(READ_ME, start=1):
+        if not text:
+            continue
         cell = put(ws, i, 1, text)
         if kind == "title":
             cell.style = "plumb_title"
