@@ -79,6 +79,25 @@ def linear_book(tmp_path_factory):
     return path, run_book(path, backup=False)
 
 
+@pytest.fixture(scope="module")
+def results_copy_book(tmp_path_factory):
+    """A book with a part openpyxl cannot carry (sparklines): plumbrule leaves it alone
+    and writes BOOK.results.xlsx, the other kind of result workbook."""
+    from workbook_snapshot import rezip, sheet_part
+    from plumbrule.demo import write_demo_book
+    from plumbrule.workbook.run import run_book
+    folder = tmp_path_factory.mktemp("copy")
+    src = write_demo_book(folder)
+    ext = ('<extLst><ext uri="{05C60535-1F16-4fd2-B633-F4F36F0B64E0}" xmlns:x14="http://'
+           'schemas.microsoft.com/office/spreadsheetml/2009/9/main"><x14:sparklineGroups/>'
+           '</ext></extLst>')
+    book = rezip(src, folder / "book.xlsx", replace={sheet_part(src, "Sales"): lambda d: d.replace(
+        b"</worksheet>", (ext + "</worksheet>").encode())})
+    result = run_book(book, backup=False)
+    assert result.written.name == "book.results.xlsx"
+    return result.written, result
+
+
 def test_template_opens_and_converts(office, tmp_path):
     from plumbrule.workbook.template import packaged_template
     out = office(packaged_template(), "xlsx", tmp_path)
@@ -87,12 +106,19 @@ def test_template_opens_and_converts(office, tmp_path):
         assert sheet in wb.sheetnames
 
 
-@pytest.mark.parametrize("which", ["demo_book", "linear_book"])
+@pytest.mark.parametrize("which", ["demo_book", "linear_book", "results_copy_book"])
 def test_live_formulas_equal_the_engine_after_recalculation(which, office, tmp_path, request):
     path, result = request.getfixturevalue(which)
     out = office(path, "xlsx", tmp_path)
     wb = openpyxl.load_workbook(out, data_only=True)
     assert {"Report", "Model", "Valuation"} <= set(wb.sheetnames)   # nothing lost in repair
+    formulas = openpyxl.load_workbook(path)["Valuation"]
+    computed = wb["Valuation"]
+    for row in formulas.iter_rows():
+        for c in row:
+            if c.data_type == "f":                 # every live formula got a proper value
+                v = computed[c.coordinate].value
+                assert isinstance(v, (int, float)) or v == "ok", (c.coordinate, c.value, v)
     engine = result.valuation.estimates.iloc[0]
     for live, static in PAIRS:
         got, want = _named(wb, live), _named(wb, static)
@@ -143,3 +169,17 @@ def test_report_exports_to_pdf_with_its_charts(demo_book, office, tmp_path):
                     "-dFirstPage=1", "-dLastPage=1", f"-sOutputFile={png}", str(pdf)],
                    check=True, timeout=240)
     assert png.stat().st_size > 1000
+
+
+def test_libreoffice_keeps_every_report_chart(demo_book, office, tmp_path):
+    import re
+    import zipfile
+    path, _ = demo_book
+
+    def charts(book):
+        with zipfile.ZipFile(book) as z:
+            return sorted(n for n in z.namelist()
+                          if re.fullmatch(r"xl/charts/[\w-]*chart\d+\.xml", n))
+    before = charts(path)
+    assert len(before) >= 8                     # 4 model charts + a box plot per screened column
+    assert len(charts(office(path, "xlsx", tmp_path))) == len(before)

@@ -177,3 +177,28 @@ def test_block_reads_the_subject_from_the_subjects_sheet(demo):
     assert _input_cell(ws, "Living area").value == 1840.0     # text number typed as the engine did
     got = _named(wb, "plumb_live_estimate", Evaluator(ws))
     assert got == pytest.approx(valuation.estimates["estimate"].iloc[0], rel=1e-12)
+
+
+def test_no_intercept_median_retransform_block_equals_statsmodels():
+    """Log price through the origin, median estimate (factor 1): exp(x0·b) and the
+    exp'd observation interval of statsmodels' get_prediction on the same design."""
+    rng = np.random.default_rng(21)
+    n = 90
+    area = rng.uniform(800, 2500, n)
+    rooms = rng.integers(2, 7, n).astype(float)
+    price = np.exp(1.55 * np.log(area) + 0.05 * rooms + rng.normal(0, 0.1, n))
+    sales = pd.DataFrame({"Price": price, "Area": area, "Rooms": rooms})
+    analysis = analyze(sales, response="Price", predictors="Area,Rooms", log_response=True,
+                       log_predictors="Area", no_intercept=True, retransform="median")
+    subject = pd.DataFrame({"Area": [1300.0], "Rooms": [4.0]})
+    valuation = valuate(analysis, subject)
+    wb, ws, _ = _book(analysis, valuation, subjects=subject)
+    got = [_named(wb, n, Evaluator(ws)) for n in live.NAMES]
+    model = analysis.model
+    res = sm.OLS(model.y, model.x).fit()                      # no constant column
+    x0 = np.array([[np.log(1300.0), 4.0]])
+    f = res.get_prediction(x0).summary_frame(alpha=0.05)
+    want = np.exp([f["mean"].iloc[0], f["obs_ci_lower"].iloc[0], f["obs_ci_upper"].iloc[0]])
+    np.testing.assert_allclose(got, want, rtol=1e-9)
+    e = valuation.estimates.iloc[0]
+    np.testing.assert_allclose(got, [e["estimate"], e["pi_low"], e["pi_high"]], rtol=1e-12)

@@ -96,3 +96,33 @@ def test_more_digits_than_reference_libraries(name):
     mine = min_digits(ours(ref), ref)
     assert mine >= min_digits(numpy_lstsq(ref), ref)
     assert mine >= min_digits(statsmodels_ols(ref), ref)
+
+
+@pytest.mark.parametrize("name", ORDER)
+def test_certified_digits_stacked(name, monkeypatch):
+    # The same NIST data stacked m times (m·n rows) has the same certified
+    # coefficients and R²; SEs scale by √((n−p)/(mn−p)) and the residual SD by
+    # √(m(n−p)/(mn−p)) (exact consequences of the certified values). Stacked, the
+    # tables are large enough for the Cholesky-QR path of plumbrule.ols, which
+    # must keep the same digits; Filip is too ill-conditioned for it and must
+    # take the Householder path.
+    import plumbrule.ols as ols
+    used = []
+    real = ols._cholesky_qr2
+
+    def spy(xs):
+        out = real(xs)
+        used.append(out is not None)
+        return out
+    monkeypatch.setattr(ols, "_cholesky_qr2", spy)
+    ref = load(name)
+    m = 1000 if len(ref.y) > 10 else 2000
+    n, p = len(ref.y), len(ref.coef)
+    x, y = np.tile(ref.x, (m, 1)), np.tile(ref.y, m)
+    fit = fit_ols(x, y, [f"x{j + 1}" for j in range(x.shape[1])], intercept=ref.intercept)
+    need = REQUIRED[name]
+    assert lre(fit.coef, ref.coef).min() >= need
+    assert lre(fit.se, ref.se * np.sqrt((n - p) / (m * n - p))).min() >= need
+    assert lre(fit.sigma, ref.resid_sd * np.sqrt(m * (n - p) / (m * n - p))).min() >= need
+    assert lre(fit.r_squared, ref.r_squared).min() >= need
+    assert used == [name != "Filip"]      # Cholesky QR taken, or declined for Filip

@@ -303,3 +303,12 @@ def test_no_intercept_fit_matches_statsmodels():
     assert f["r_squared"] == pytest.approx(ref.rsquared, rel=RTOL)    # uncentred R²
     assert f["f_stat"] == pytest.approx(ref.fvalue, rel=RTOL)
     assert f["aic"] == pytest.approx(ref.aic, rel=RTOL)
+
+
+def test_robust_f_is_blank_when_the_robust_covariance_is_singular():
+    # An exact fit has all residuals 0, so the HC1 covariance is the zero matrix and
+    # the robust Wald F is undefined: a blank (NaN), not a crash (behaviour users rely on).
+    x = np.arange(1.0, 9.0)
+    frame = pd.DataFrame({"Price": 1000 + 50 * x, "Area": x, "Lot": x ** 2})
+    a = analyze(frame, response="Price", predictors="Area,Lot", robust_se="HC1", folds=0)
+    assert np.isnan(a.tables["fit"]["f_stat"].iloc[0])

@@ -232,3 +232,19 @@ def test_text_from_the_data_is_never_a_formula():
             for c in row:
                 if isinstance(c.value, str) and re.match(r"[=#]", c.value):
                     assert c.data_type == "s", (ws.title, c.coordinate, c.value)
+
+
+def test_a_failing_check_is_put_before_the_reader_first():
+    """Two nearly equal predictors: VIF far above 10, which the checks mark 'fails'
+    (VIF > 10 fails: common practice, no source); the report lists it first."""
+    rng = np.random.default_rng(4)
+    n = 120
+    a = rng.normal(1500, 300, n)
+    b = a + rng.normal(0, 10, n)
+    sales = pd.DataFrame({"Price": 50 * a + 50 * b + rng.normal(0, 9000, n), "A": a, "B": b})
+    analysis = analyze(sales, response="Price", predictors="A,B")
+    vif = analysis.tables["coefficients"]["vif"].max()
+    assert vif > 10
+    ws = _write(analysis, None)["Report"]
+    first = _find(ws, "Before relying on the value").offset(1, 0).value
+    assert first.startswith("• Multicollinearity: largest VIF fails")

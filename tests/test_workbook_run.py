@@ -4,14 +4,13 @@ formats, text that stays text, and reruns that replace only plumbrule's sheets."
 from __future__ import annotations
 
 import datetime as dt
-import math
 import shutil
 
 import numpy as np
 import pandas as pd
 import pytest
 
-from workbook_snapshot import folder_state, snapshot
+from workbook_snapshot import snapshot
 from plumbrule.cli import main
 from plumbrule.workbook import INPUT_SHEETS, RESULT_SHEETS
 
@@ -260,3 +259,61 @@ def test_text_from_the_data_stays_text(tmp_path):
     texts = {v for name in ("Model", "Screening", "Validation") for r in
              cal.get_sheet_by_name(name).to_python() for v in r if isinstance(v, str)}
     assert "=Size" in texts and link in texts
+
+
+def _parts(path):
+    import zipfile
+    with zipfile.ZipFile(path) as z:
+        return {n: z.read(n) for n in z.namelist()}
+
+
+EDITED = {"[Content_Types].xml", "xl/workbook.xml", "xl/_rels/workbook.xml.rels", "xl/styles.xml"}
+
+
+def test_every_other_part_of_the_book_is_copied_byte_for_byte(filled, tmp_path):
+    """Only the four parts that list sheets, names and formats are edited; the rest of
+    the user's package (sheets, tables, theme, properties) is carried unchanged."""
+    from plumbrule.workbook.run import run_book
+    book = shutil.copyfile(filled, tmp_path / "book.xlsx")
+    before = _parts(book)
+    run_book(book, backup=False, now=NOW)
+    after = _parts(book)
+    for name, data in before.items():
+        if name not in EDITED and not name.endswith("calcChain.xml"):
+            assert after[name] == data, name
+    # a rerun changes nothing but the time stamp: same parts, same bytes, styles do not grow
+    run_book(book, backup=False, now=NOW)
+    assert _parts(book) == after
+
+
+@pytest.mark.spreadsheet
+def test_a_book_saved_by_libreoffice_is_updated_and_still_opens(filled, tmp_path):
+    """A book written by another program (LibreOffice Calc: shared strings, its own
+    styles and prefixes) keeps its data, and LibreOffice opens the updated file."""
+    import subprocess
+    soffice = shutil.which("soffice") or shutil.which("libreoffice")
+    if soffice is None:
+        pytest.skip("LibreOffice is not installed")
+    from python_calamine import CalamineWorkbook
+    src = tmp_path / "src"
+    src.mkdir()
+    shutil.copyfile(filled, src / "book.xlsx")
+    profile = f"-env:UserInstallation=file://{tmp_path / 'profile'}"
+
+    def convert(path, out):
+        subprocess.run([soffice, "--headless", "--norestore", profile, "--convert-to", "xlsx",
+                        "--outdir", str(out), str(path)], check=True, capture_output=True,
+                       timeout=180)
+        return out / path.name
+    lo = convert(src / "book.xlsx", tmp_path / "lo")
+    values = {n: CalamineWorkbook.from_path(str(lo)).get_sheet_by_name(n).to_python()
+              for n in ("Sales", "Settings", "Subjects")}
+    assert main(["run", str(lo), "--no-backup"]) == 0
+    cal = CalamineWorkbook.from_path(str(lo))
+    for name, block in values.items():
+        assert cal.get_sheet_by_name(name).to_python() == block, name
+    again = convert(lo, tmp_path / "lo2")
+    from openpyxl import load_workbook
+    wb = load_workbook(again, data_only=True)
+    assert _value(wb, "plumb_n_used").value > 100
+    assert "Model" in wb.sheetnames and "Sales" in wb.sheetnames

@@ -192,11 +192,11 @@ def test_user_sheet_with_a_result_sheet_name_is_not_replaced(book, capsys):
 
 
 def test_a_failed_save_leaves_the_book_as_it_was(book, monkeypatch, capsys):
-    from openpyxl.workbook.workbook import Workbook
+    import plumbrule.workbook.graft as graft
 
-    def broken_save(self, filename):
-        with open(filename, "wb") as fh:
+    def broken_graft(user, data, out, *args):
+        with open(out, "wb") as fh:          # half a file, then the disk fills up
             fh.write(b"partial")
         raise OSError(28, "No space left on device")
-    monkeypatch.setattr(Workbook, "save", broken_save)
+    monkeypatch.setattr(graft, "graft", broken_graft)
     _refused(book, capsys, "No space left", "not changed")

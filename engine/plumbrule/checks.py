@@ -289,24 +289,13 @@ def ramsey_reset(model: FittedModel) -> Check:
     np.multiply(z, z, out=extra[:, 0])
     np.multiply(extra[:, 0], z, out=extra[:, 1])
     del z
-    # Residualise the new columns on the model's design, then regress e on them.
     if fit.has_intercept:
         extra -= extra.mean(axis=0)
-    before = np.sqrt(np.einsum("ij,ij->j", extra, extra))
-    for _ in range(2):   # second pass: orthogonal to working precision
-        # np.dot: numpy's matmul of a Fortran-ordered Q by a C-ordered small
-        # matrix misses BLAS and is 10-20x slower at a million rows.
-        extra -= np.dot(fit.q, fit.q.T @ extra)
-    after = np.sqrt(np.einsum("ij,ij->j", extra, extra))
-    keep = after > 1e-8 * np.maximum(before, 1e-300)
-    df1 = int(keep.sum())
+    gain, df1 = _reset_gain(fit, extra)
     if df1 == 0:
         return not_applicable(name, "The fitted values take too few distinct values for "
                               "their powers to test anything.", "p < 0.05")
     df2 = fit.df_resid - df1
-    extra = extra[:, keep] if df1 < 2 else extra
-    extra /= after[keep]
-    gain = _explained_share(extra, fit.resid)
     ssr_u = fit.ssr - gain
     fstat = (gain / df1) / (ssr_u / df2)
     p = float(fdist.sf(fstat, df1, df2))
@@ -315,6 +304,37 @@ def ramsey_reset(model: FittedModel) -> Check:
             "try a log of price or of the size column.")
     return Check(name, fstat, p, "p < 0.05", _verdict_p(p), note, df1, "F",
                  "no neglected nonlinearity")
+
+
+def _reset_gain(fit, w: np.ndarray) -> tuple[float, int]:
+    """(‖projection of e on the part of w orthogonal to the design‖², its df).
+
+    One pass: from Qᵀ[w, e] and wᵀ[w, e] the orthogonal part's normal equations
+    are wᵀw − (Qᵀw)ᵀ(Qᵀw) and wᵀe − (Qᵀw)ᵀQᵀe. When w lies almost inside the
+    design (that difference keeps < 1e-6 of wᵀw, so the subtraction would cost
+    digits) the columns are residualised explicitly instead, twice.
+    """
+    e = fit.resid
+    qw, qe = fit.q.T @ w, fit.q.T @ e       # k × 2 and k: no n-row temporaries
+    gram, we = w.T @ w, w.T @ e
+    before = np.diag(gram).copy()
+    g_perp = gram - qw.T @ qw
+    rhs = we - qw.T @ qe
+    after = np.diag(g_perp)
+    if np.all(after > 1e-6 * before):
+        d = np.sqrt(after)
+        coef, *_ = np.linalg.lstsq(g_perp / np.outer(d, d), rhs / d, rcond=1e-10)
+        return float(np.dot(rhs / d, coef)), w.shape[1]
+    w = w.copy(order="F")
+    for _ in range(2):   # second pass: orthogonal to working precision
+        # np.dot: numpy's matmul of a Fortran-ordered Q by a C-ordered small
+        # matrix misses BLAS and is 10-20x slower at a million rows.
+        w -= np.dot(fit.q, fit.q.T @ w)
+    norms = np.sqrt(np.einsum("ij,ij->j", w, w))
+    keep = norms > 1e-8 * np.sqrt(np.maximum(before, 1e-300))
+    if not keep.any():
+        return 0.0, 0
+    return _explained_share(w[:, keep] / norms[keep], e), int(keep.sum())
 
 
 # --- influence ----------------------------------------------------------

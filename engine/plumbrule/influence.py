@@ -26,10 +26,23 @@ def influence(fit: OLSFit) -> Influence:
     e, h = fit.resid, fit.leverage
     with np.errstate(divide="ignore", invalid="ignore"):
         one_minus_h = np.where(h < 1.0 - 1e-12, 1.0 - h, np.nan)
-        s2 = fit.sigma ** 2
-        standardized = e / np.sqrt(s2 * one_minus_h)
+        standardized = e / np.sqrt(one_minus_h)
+        standardized /= fit.sigma                        # e / (s·√(1−h))
         df = fit.df_resid - 1
-        s2_loo = (fit.ssr - e ** 2 / one_minus_h) / df if df > 0 else np.full_like(e, np.nan)
-        studentized = e / np.sqrt(np.where(s2_loo > 0, s2_loo, np.nan) * one_minus_h)
-        cooks = standardized ** 2 * h / (one_minus_h * fit.n_params)
+        if df > 0:
+            # s²₍ᵢ₎ = (SSR − e²/(1−h)) / (ν − 1), formed in place to spare n-row copies
+            s2_loo = standardized * standardized
+            s2_loo *= -fit.sigma ** 2
+            s2_loo += fit.ssr
+            s2_loo /= df
+            s2_loo[~(s2_loo > 0)] = np.nan
+            studentized = standardized * fit.sigma
+            studentized /= np.sqrt(s2_loo)
+            del s2_loo
+        else:
+            studentized = np.full_like(e, np.nan)
+        cooks = standardized * standardized
+        cooks *= h
+        cooks /= one_minus_h
+        cooks /= fit.n_params
     return Influence(standardized, studentized, cooks)

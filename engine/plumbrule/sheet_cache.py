@@ -16,6 +16,7 @@ too, so a sheet full of cells pointing at bad data recalculates fast.
 
 from __future__ import annotations
 
+import datetime as _dt
 import hashlib
 import threading
 from collections import OrderedDict
@@ -42,10 +43,12 @@ class CacheStats:
     max_bytes: int
 
 
-def as_rows(values: Any) -> list[list[Any]]:
+def as_rows(values: Any, trust: bool = False) -> list[list[Any]]:
     """The block as a list of row lists (what xlwings hands over with ndim=2).
-    A scalar becomes a 1×1 block; a flat list one row."""
-    if isinstance(values, list) and values and set(map(type, values)) == {list}:
+    A scalar becomes a 1×1 block; a flat list one row. With ``trust``, a list whose
+    first row is a list is taken as it is (a look-up: ``==`` rejects anything else)."""
+    if type(values) is list and values and type(values[0]) is list and (
+            trust or set(map(type, values)) == {list}):
         return values
     if isinstance(values, (list, tuple)):
         if values and not any(isinstance(r, (list, tuple)) for r in values):
@@ -60,9 +63,11 @@ def fingerprint(rows: list[list[Any]], extra: Hashable = ()) -> bytes:
     n = len(rows)
     picks = sorted({0, n - 1, *range(0, n, max(1, n // _SAMPLE_ROWS))}) if n else []
     h = hashlib.blake2b(digest_size=16)
-    h.update(repr((n, [len(rows[i]) for i in picks], extra)).encode("utf-8", "replace"))
+    widths = [len(rows[i]) if type(rows[i]) is list else -1 for i in picks]
+    h.update(repr((n, widths, extra)).encode("utf-8", "replace"))
     for i in picks:
-        h.update(repr([(type(v).__name__, v) for v in rows[i]]).encode("utf-8", "replace"))
+        row = rows[i] if type(rows[i]) is list else [rows[i]]
+        h.update(repr([(type(v).__name__, v) for v in row]).encode("utf-8", "replace"))
     return h.digest()
 
 
@@ -79,20 +84,27 @@ def type_guard(rows: list[list[Any]]) -> tuple:
     columns, cells = [], []
     for j in range(width.pop()):
         col = list(map(itemgetter(j), rows))
-        try:                                    # list.count compares in C: 0 == 0.0 == False
-            if not (col.count(0) or col.count(1)):
-                continue
-        except Exception:                       # an exotic cell: look at each one
-            pass
-        try:
-            hits = [i for i, v in enumerate(col) if v == 0 or v == 1]
-        except Exception:
-            hits = [i for i, flag in enumerate(map(_zero_or_one, col)) if flag]
+        if set(map(type, col)) <= _NEVER_ZERO_OR_ONE:
+            continue                            # text, blanks and dates only
+        hits = _zero_one_positions(col)
         if len(hits) * 4 > len(col):
             columns.append((j, list(map(type, col))))
         elif hits:
             cells.append((j, hits, [type(col[i]) for i in hits]))
     return ("columns", (columns, cells))
+
+
+_NEVER_ZERO_OR_ONE = frozenset({str, type(None), _dt.datetime, _dt.date})
+
+
+def _zero_one_positions(col: list[Any]) -> list[int]:
+    """Rows of ``col`` whose cell equals 0 or 1 (a superset is harmless)."""
+    import numpy as np
+    try:                                        # numbers, bools and blanks: vectorised
+        a = np.array(col, dtype=float)
+        return np.flatnonzero((a == 0) | (a == 1)).tolist()
+    except (TypeError, ValueError):
+        return [i for i, flag in enumerate(map(_zero_or_one, col)) if flag]
 
 
 def _zero_or_one(v: Any) -> bool:
@@ -135,11 +147,11 @@ def approx_size(obj: Any, _depth: int = 0) -> int:
     import pandas as pd
     if isinstance(obj, np.ndarray):
         return int(obj.nbytes) + (64 * obj.size if obj.dtype == object else 0)
-    if isinstance(obj, (pd.DataFrame, pd.Series)):
-        frame = obj.to_frame() if isinstance(obj, pd.Series) else obj
-        size = int(frame.memory_usage(index=True, deep=False).sum())
-        n_obj = sum(len(frame) for dt in frame.dtypes if dt == object)
-        return size + 64 * n_obj
+    if isinstance(obj, pd.Series):
+        return 8 * len(obj) + (64 * len(obj) if obj.dtype == object else 0)
+    if isinstance(obj, pd.DataFrame):            # 8 bytes a cell, 64 more for an object
+        n_obj = sum(1 for dt in obj.dtypes if dt == object)
+        return 8 * len(obj) * (obj.shape[1] + 1) + 64 * len(obj) * n_obj
     if _depth >= 3 or obj is None or isinstance(obj, (str, bytes, int, float, bool)):
         return 0
     if isinstance(obj, dict):
@@ -196,19 +208,23 @@ class SheetCache:
     def get_or_compute(self, values: Any, key: Hashable, compute: Callable[[list], Any],
                        cache_errors: tuple[type[BaseException], ...] = ()) -> Any:
         """``compute(rows)`` once per distinct (block, key); the cached result after."""
-        rows = as_rows(values)
+        rows = as_rows(values, trust=True)
         fp = fingerprint(rows, key)
         with self._lock:
             for slot in range(_CANDIDATES):
                 entry = self._entries.get((fp, slot))
-                if entry is not None and entry.key == key and same_cells(rows, entry.rows, entry.guard):
+                if (entry is not None and entry.key == key
+                        and same_cells(rows, entry.rows, entry.guard)):
                     self._entries.move_to_end((fp, slot))
                     self._hits += 1
                     if entry.error is not None:
                         raise entry.error.with_traceback(None)
                     return entry.value
             self._misses += 1
-        stored = [list(r) for r in rows]     # our own copy: the caller may change its list
+        norm = as_rows(rows)
+        if norm is not rows:                 # tuples or a flat list: key the normal form
+            rows, fp = norm, fingerprint(norm, key)
+        stored = list(map(list, rows))       # our own copy: the caller may change its list
         try:
             value, error = compute(stored), None
         except cache_errors as exc:

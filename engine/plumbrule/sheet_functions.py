@@ -153,8 +153,14 @@ def record_cells(frame, label: str = "measure") -> list[list[Any]]:
     return [[label, "value"]] + [[text_cell(str(k)), cell(v)] for k, v in rec.items()]
 
 
+class Cells(list):
+    """Rows already turned into cells (a cached rendering): passed through as is."""
+
+
 def to_cells(result: Any) -> Any:
     """Whatever a function body returns → cells (a table, or one cell)."""
+    if type(result) is Cells:
+        return list(result)
     if hasattr(result, "iloc") and hasattr(result, "columns"):
         return frame_cells(result)
     if isinstance(result, list):
@@ -312,12 +318,20 @@ def resolve_settings(response: Any, predictors: Any, settings: Any):
 class _Fitted:
     """A cached analysis and the valuations made from it (bounded)."""
 
-    __slots__ = ("analysis", "valuations")
+    __slots__ = ("analysis", "valuations", "rendered")
     MAX_VALUATIONS = 32
 
     def __init__(self, analysis) -> None:
         self.analysis = analysis
         self.valuations: dict = {}
+        self.rendered: dict = {}
+
+    def cells(self, name: str, build: Callable) -> Cells:
+        """``build(analysis)`` as cells, rendered once; fresh row lists per call."""
+        done = self.rendered.get(name)
+        if done is None:
+            done = self.rendered[name] = to_cells(build(self.analysis))
+        return Cells(list(r) for r in done) if isinstance(done, list) else done
 
 
 def _model_settings(s):
@@ -342,6 +356,11 @@ def fitted(sales: Any, response: Any, predictors: Any, settings: Any) -> tuple[_
                                   lambda rows: _Fitted(analyze(rows, m)),
                                   cache_errors=(PlumbError,))
     return holder, s
+
+
+def model_cells(name: str, build: Callable, sales, response, predictors, settings) -> Cells:
+    """The cells of one analysis table (``build(analysis)``), cached with the fit."""
+    return fitted(sales, response, predictors, settings)[0].cells(name, build)
 
 
 def analysis_for(sales, response, predictors, settings=None):
@@ -398,7 +417,8 @@ def _table(analysis, name: str):
 @cell_safe
 def PLUMB_COEFS(sales, response, predictors, settings=None):
     """Coefficient table of the hedonic model: term, estimate, std_error, t, p_value, ci_low, ci_high, std_beta, vif. One row per term; spills."""
-    return _table(analysis_for(sales, response, predictors, settings), "coefficients")
+    return model_cells("coefficients", lambda a: _table(a, "coefficients"),
+                       sales, response, predictors, settings)
 
 
 @xw.func(category=CATEGORY, call_in_wizard=False)
@@ -410,7 +430,8 @@ def PLUMB_COEFS(sales, response, predictors, settings=None):
 @cell_safe
 def PLUMB_FIT(sales, response, predictors, settings=None):
     """Fit statistics of the model in two columns, measure and value: rows used and set aside, R², adjusted R², F, RMSE, MAE, MAPE, AIC, BIC…"""
-    return record_cells(_table(analysis_for(sales, response, predictors, settings), "fit"))
+    return model_cells("fit", lambda a: record_cells(_table(a, "fit")),
+                       sales, response, predictors, settings)
 
 
 @xw.func(category=CATEGORY, call_in_wizard=False)
@@ -422,7 +443,8 @@ def PLUMB_FIT(sales, response, predictors, settings=None):
 @cell_safe
 def PLUMB_CHECKS(sales, response, predictors, settings=None):
     """Assumption checks of least squares, one row each: statistic, p_value, threshold, verdict (ok / watch / fails) and what it means for a valuation."""
-    return _table(analysis_for(sales, response, predictors, settings), "checks")
+    return model_cells("checks", lambda a: _table(a, "checks"),
+                       sales, response, predictors, settings)
 
 
 SCREEN_COLUMNS = ["row", "column", "value", "rule", "limit", "reason"]
@@ -437,7 +459,7 @@ SCREEN_COLUMNS = ["row", "column", "value", "rule", "limit", "reason"]
 @cell_safe
 def PLUMB_SCREEN(sales, response, predictors, settings=None):
     """The sales set aside, one row each: sheet row, column, value, rule, limit and reason (screening rules and rows with missing values)."""
-    return screen_table(analysis_for(sales, response, predictors, settings))
+    return model_cells("screen", screen_table, sales, response, predictors, settings)
 
 
 def screen_table(analysis):
@@ -469,7 +491,7 @@ def screen_table(analysis):
 @cell_safe
 def PLUMB_RATIOS(sales, response, predictors, settings=None):
     """Sales-ratio study (holdout sales, or cross-validated estimates without a holdout): median ratio and interval, COD, PRD, PRB, each with its target and verdict."""
-    return ratio_table(analysis_for(sales, response, predictors, settings))
+    return model_cells("ratios", ratio_table, sales, response, predictors, settings)
 
 
 def ratio_table(analysis):

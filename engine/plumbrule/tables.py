@@ -86,7 +86,12 @@ def _f_statistic(model: FittedModel, r2: float, df_model: int) -> float:
     off = int(fit.has_intercept)
     b = fit.coef[off:]
     v = model.cov[off:, off:]
-    return float(b @ np.linalg.solve(v, b) / df_model)
+    try:
+        return float(b @ np.linalg.solve(v, b) / df_model)
+    except np.linalg.LinAlgError:
+        # A singular robust covariance (residuals zero where they carry the
+        # information, e.g. an exact fit) leaves the Wald test undefined.
+        return float("nan")
 
 
 def checks_table(checks: list[Check]) -> pd.DataFrame:

@@ -124,7 +124,8 @@ def write_frame(ws, frame, top: int, left: int = 1, formats: Formats | None = No
     """Write a DataFrame with a header row at (top, left); returns the next free row.
 
     ``formats`` maps a column to a number format or to a function value → format
-    (e.g. :func:`sig3`). ``labels`` renames headers on screen.
+    (e.g. :func:`sig3`). ``labels`` renames headers on screen. Cells are built
+    directly (one style array per number format), the same values :func:`put` writes.
     """
     formats = formats or {}
     labels = labels or {}
@@ -135,13 +136,56 @@ def write_frame(ws, frame, top: int, left: int = 1, formats: Formats | None = No
             put(ws, r, left + j, labels.get(c, c), style="plumb_header")
         r += 1
     body = frame if max_rows is None else frame.iloc[:max_rows]
-    columns = [body[c].tolist() for c in cols]
+    styles = _StyleCache(ws)
     for j, c in enumerate(cols):
         fmt = formats.get(c)
-        for i, v in enumerate(columns[j]):
-            f = fmt(v) if callable(fmt) else fmt
-            put(ws, r + i, left + j, v, f)
+        _write_column(ws, body[c].tolist(), r, left + j, fmt, styles)
     return r + len(body)
+
+
+class _StyleCache:
+    """One openpyxl style array per number format (what ``cell.number_format = f`` makes)."""
+
+    def __init__(self, ws):
+        self.ws = ws
+        self.arrays: dict[str | None, Any] = {}
+
+    def get(self, fmt: str | None):
+        if fmt not in self.arrays:
+            from openpyxl.cell.cell import Cell
+            probe = Cell(self.ws)
+            if fmt:
+                probe.number_format = fmt
+            self.arrays[fmt] = probe._style
+        return self.arrays[fmt]
+
+
+def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache) -> None:
+    from copy import copy
+    from openpyxl.cell.cell import Cell
+    cells = ws._cells
+    fixed = None if callable(fmt) else fmt
+    for i, v in enumerate(values):
+        v = plain(v)
+        if v is None:
+            continue
+        if isinstance(v, str):
+            kind, v = "s", clean_text(v)[:32767]
+        elif isinstance(v, bool):
+            kind = "b"
+        elif isinstance(v, (int, float)):
+            kind = "n"
+        elif isinstance(v, (_dt.datetime, _dt.date, _dt.time)):
+            put(ws, top + i, col, v, fixed if not callable(fmt) else None)
+            continue
+        else:
+            kind, v = "s", clean_text(str(v))[:32767]
+        f = fmt(v) if callable(fmt) else fixed
+        cell = Cell(ws, row=top + i, column=col)
+        cell._value = v
+        cell.data_type = kind
+        cell._style = copy(styles.get(f if kind in "nb" or not callable(fmt) else None))
+        cells[(top + i, col)] = cell
 
 
 def write_pairs(ws, pairs: Sequence[tuple[str, Any]], top: int, left: int = 1,

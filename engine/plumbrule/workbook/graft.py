@@ -23,7 +23,7 @@ import zipfile
 from dataclasses import dataclass
 from typing import Iterable
 
-from .safety import _content_types, _parse, _rels
+from .safety import _content_types, _rels
 
 _NS_MAIN = "http://schemas.openxmlformats.org/spreadsheetml/2006/main"
 _NS_R = "http://schemas.openxmlformats.org/officeDocument/2006/relationships"
@@ -122,7 +122,7 @@ def graft(user_path, result_bytes: bytes, out_path, replace: Iterable[str],
         for old, new in new_parts.items():
             data = rz.read(old)
             if r.types.get(old, "").endswith("worksheet+xml"):
-                data = _restyle_sheet(data, style_map["xf"])
+                data = _restyle_sheet(data, style_map["xf"], style_map["dxf"])
             elif r.types.get(old, "").endswith("table+xml"):
                 table_id += 1
                 data = re.sub(rb'(<table\b[^>]*?\bid=")(\d+)(")',
@@ -134,7 +134,7 @@ def graft(user_path, result_bytes: bytes, out_path, replace: Iterable[str],
         out[style_map["part"]] = style_map["data"]
 
         # workbook.xml, its rels and the content types
-        rid_base = _free_rid(u)
+        rid_base = _free_rid(u, {s["rid"] for s in removed})
         new_sheets = []
         next_id = max([s["sheetId"] for s in kept] + [0]) + 1
         for i, name in enumerate(wanted):
@@ -151,14 +151,12 @@ def graft(user_path, result_bytes: bytes, out_path, replace: Iterable[str],
                                                  new_parts, r.types, u.types)
 
         with zipfile.ZipFile(out_path, "w", zipfile.ZIP_DEFLATED) as oz:
-            written = set()
             for info in uz.infolist():
                 name = info.filename
                 if name in drop:
                     continue
                 data = out.pop(name) if name in out else uz.read(name)
                 oz.writestr(_info(info), data)
-                written.add(name)
             for name, data in out.items():
                 oz.writestr(_info(zipfile.ZipInfo(name)), data)
 
@@ -180,11 +178,16 @@ def _max_table_id(u: _Pkg, drop: set[str]) -> int:
     return best
 
 
-def _free_rid(u: _Pkg) -> int:
+def _free_rid(u: _Pkg, freed: set[str]) -> int:
+    """First n such that rIdPlumb{n}.. are free (ids of replaced sheets count as free)."""
+    taken = set(u.rels) - freed
     n = 1
-    while f"rIdPlumb{n}" in u.rels:
+    while any(f"rIdPlumb{n + i}" in taken for i in range(len(RESULT_SHEETS_MAX))):
         n += 1
     return n
+
+
+RESULT_SHEETS_MAX = range(16)
 
 
 def _retarget(data: bytes, old_part: str, mapping: dict[str, str]) -> bytes:
@@ -357,7 +360,7 @@ def _edit_types(data: bytes, drop: set[str], out: dict, new_parts, r_types, u_ty
 
 _CONTAINERS = ("numFmts", "fonts", "fills", "borders", "cellXfs")
 _ITEM = {"numFmts": "numFmt", "fonts": "font", "fills": "fill", "borders": "border",
-         "cellXfs": "xf"}
+         "cellXfs": "xf", "dxfs": "dxf"}
 
 
 def _items(text: str, container: str, p: str = "") -> tuple[list[str], re.Match | None]:
@@ -414,7 +417,10 @@ def _merge_styles(u: _Pkg, r: _Pkg) -> dict:
             new_xfs.append(_with_prefix(xf, "xf", p, ns))
         xf_map[i] = canon[key]
     text = _append(text, "cellXfs", p, new_xfs, before=("cellStyles",))
-    return {"part": u_part, "data": text.encode("utf-8"), "xf": xf_map}
+    # differential formats (conditional formatting) keep their own list
+    dxf_map, text = _merge_list(text, rtext, "dxfs", p, ns,
+                                before=("tableStyles", "colors", "extLst"), tail=True)
+    return {"part": u_part, "data": text.encode("utf-8"), "xf": xf_map, "dxf": dxf_map}
 
 
 def _canon(el: str) -> str:
@@ -435,7 +441,8 @@ def _sub_id(el: str, attr: str, fn) -> str:
     return re.sub(r'\b%s="(\d+)"' % attr, lambda m: f'{attr}="{fn(int(m.group(1)))}"', el, 1)
 
 
-def _merge_list(text: str, rtext: str, container: str, p: str, ns: str):
+def _merge_list(text: str, rtext: str, container: str, p: str, ns: str, before=(),
+                tail: bool = False):
     u_items, _ = _items(text, container, re.escape(p))
     canon = {}
     for i, el in enumerate(u_items):
@@ -447,11 +454,13 @@ def _merge_list(text: str, rtext: str, container: str, p: str, ns: str):
             canon[key] = len(u_items) + len(new)
             new.append(_with_prefix(el, _ITEM[container], p, ns))
         mapping[i] = canon[key]
-    return mapping, _append(text, container, p, new)
+    return mapping, _append(text, container, p, new, before=before, tail=tail)
 
 
-def _append(text: str, container: str, p: str, items: list[str], before=()) -> str:
-    """Append ``items`` to a container element, fixing its count (creating it if absent)."""
+def _append(text: str, container: str, p: str, items: list[str], before=(),
+            tail: bool = False) -> str:
+    """Append ``items`` to a container element, fixing its count (creating it if absent,
+    before the first of ``before`` present, else at the end of the stylesheet if ``tail``)."""
     if not items:
         return text
     pe = re.escape(p)
@@ -462,6 +471,9 @@ def _append(text: str, container: str, p: str, items: list[str], before=()) -> s
             mb = re.search(r"<%s%s\b" % (pe, b), text)
             if mb:
                 return text[:mb.start()] + block + text[mb.start():]
+        end = text.rfind(f"</{p}styleSheet>")
+        if tail and end >= 0:
+            return text[:end] + block + text[end:]
         raise ValueError(f"styles.xml has no place for {container}")
     count = len(_items(text, container, pe)[0]) + len(items)
     attrs = re.sub(r'\s*count="\d+"', "", m.group(1))
@@ -475,11 +487,15 @@ def _append(text: str, container: str, p: str, items: list[str], before=()) -> s
     return text[:pos] + "".join(items) + text[pos:]
 
 
-def _restyle_sheet(data: bytes, xf_map: dict[int, int]) -> bytes:
-    """Point a result sheet's cells, rows and columns at the merged cell formats."""
+def _restyle_sheet(data: bytes, xf_map: dict[int, int], dxf_map: dict[int, int]) -> bytes:
+    """Point a result sheet's cells, rows, columns and conditional formats at the merged
+    formats."""
     def fix_s(m):
         return m.group(1) + str(xf_map.get(int(m.group(2)), 0)).encode() + b'"'
     data = re.sub(rb'(<c\b[^>]*?\bs=")(\d+)"', fix_s, data)
     data = re.sub(rb'(<row\b[^>]*?\bs=")(\d+)"', fix_s, data)
     data = re.sub(rb'(<col\b[^>]*?\bstyle=")(\d+)"', fix_s, data)
+    if dxf_map:
+        data = re.sub(rb'(<cfRule\b[^>]*?\bdxfId=")(\d+)"', lambda m: m.group(1) + str(
+            dxf_map.get(int(m.group(2)), 0)).encode() + b'"', data)
     return data

@@ -54,7 +54,7 @@ def write_live_block(ws, analysis, valuation, anchor_row: int, subjects=None) ->
     model = analysis.model
     enc = model.encoding
     spec = model.spec
-    subject = _first_subject(analysis, valuation, subjects, ws.parent)
+    subject, origin = _first_subject(analysis, valuation, subjects, ws.parent)
     level = _confidence(analysis, valuation)
     w = _Writer(ws)
     r = anchor_row
@@ -63,6 +63,9 @@ def write_live_block(ws, analysis, valuation, anchor_row: int, subjects=None) ->
     w.text(r, 1, "Change a yellow cell and the spreadsheet recomputes the estimate and its "
                  f"{level:.0%} prediction interval itself, from the coefficients and covariance "
                  "written below; no Python is needed.", italic=True)
+    if origin:
+        r += 1
+        w.text(r, 1, origin, italic=True)
     r += 2
     for c, head in enumerate(("Feature", "Value", "How the model uses it", "Choices"), start=1):
         w.text(r, c, head, bold=True, fill=_HEAD_FILL)
@@ -165,14 +168,8 @@ def write_live_block(ws, analysis, valuation, anchor_row: int, subjects=None) ->
     quad = f"SUMPRODUCT({x_range},$D${first}:$D${last})"
     t, sigma, factor = addr["t quantile"], addr["Residual standard error (sigma)"], \
         addr["Retransformation factor"]
-    rows = [("Model prediction (model scale)", f"={lp}", "0.000000", "x0 · coefficients")]
-    lp_cell = _abs(r, 2)
-    rows.append(("Standard error of the mean estimate", f"=SQRT(MAX({quad},0))", "0.000000",
-                 "sqrt(x0' Cov x0)"))
-    se_mean = _abs(r + 1, 2)
-    rows.append(("Standard error for one sale", f"=SQRT({sigma}^2+MAX({quad},0))", "0.000000",
-                 "sqrt(sigma² + x0' Cov x0)"))
-    se_one = _abs(r + 2, 2)
+    # rows: the estimate and its intervals first, then the pieces they are built from
+    lp_cell, se_mean, se_one = _abs(r + 5, 2), _abs(r + 6, 2), _abs(r + 7, 2)
     log = spec.log_response
     if log:
         est = f"=EXP({lp_cell})*{factor}"
@@ -185,13 +182,18 @@ def write_live_block(ws, analysis, valuation, anchor_row: int, subjects=None) ->
         clo, chi = f"={lp_cell}-{t}*{se_mean}", f"={lp_cell}+{t}*{se_mean}"
         note = "the model prediction"
     engine = _engine_figures(valuation)
-    rows += [("Estimate", est, _MONEY, note + engine.get("estimate", "")),
-             ("Prediction interval for one sale, low", lo, _MONEY,
-              ("exp of the lower log bound" if log else "") + engine.get("pi_low", "")),
-             ("Prediction interval for one sale, high", hi, _MONEY,
-              ("exp of the upper log bound" if log else "") + engine.get("pi_high", "")),
-             ("Confidence interval of the mean, low", clo, _MONEY, ""),
-             ("Confidence interval of the mean, high", chi, _MONEY, "")]
+    rows = [("Estimate", est, _MONEY, note + engine.get("estimate", "")),
+            ("Prediction interval for one sale, low", lo, _MONEY,
+             ("exp of the lower log bound" if log else "") + engine.get("pi_low", "")),
+            ("Prediction interval for one sale, high", hi, _MONEY,
+             ("exp of the upper log bound" if log else "") + engine.get("pi_high", "")),
+            ("Confidence interval of the mean, low", clo, _MONEY, ""),
+            ("Confidence interval of the mean, high", chi, _MONEY, ""),
+            ("Model prediction (model scale)", f"={lp}", "0.000000", "x0 · coefficients"),
+            ("Standard error of the mean estimate", f"=SQRT(MAX({quad},0))", "0.000000",
+             "sqrt(x0' Cov x0)"),
+            ("Standard error for one sale", f"=SQRT({sigma}^2+MAX({quad},0))", "0.000000",
+             "sqrt(sigma² + x0' Cov x0)")]
     cells = {}
     for label, formula, fmt, note in rows:
         big = label in ("Estimate",)
@@ -304,8 +306,9 @@ def _estimates(valuation):
     return est if isinstance(est, pd.DataFrame) else None
 
 
-def _first_subject(analysis, valuation, subjects, book=None) -> dict:
-    """Feature values of the first subject as a plain dict (column → value): from
+def _first_subject(analysis, valuation, subjects, book=None) -> tuple[dict, str]:
+    """Feature values of the first subject (column → value) and a note when they are
+    not a subject's. From
     ``subjects``, ``valuation.subjects``, the workbook's Subjects sheet (the row the
     valuation names), else the first sale used."""
     cols = list(analysis.spec.predictors)
@@ -315,9 +318,11 @@ def _first_subject(analysis, valuation, subjects, book=None) -> dict:
         if frame is not None and len(frame) and any(c in frame.columns for c in cols):
             frame = _typed(analysis, valuation, frame)
             row = frame.iloc[0]
-            return {c: row[c] for c in cols if c in frame.columns}
+            return {c: row[c] for c in cols if c in frame.columns}, ""
     first = analysis.model.data.iloc[0]
-    return {c: first[c] for c in cols}
+    return {c: first[c] for c in cols}, (
+        f"No subject was valued, so the cells start from the first sale used (sheet row "
+        f"{analysis.model.data.index[0]}). Enter the property you want to value.")
 
 
 def _subject_from_book(book, analysis, valuation):

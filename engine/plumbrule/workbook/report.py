@@ -13,7 +13,6 @@ from __future__ import annotations
 import math
 from typing import Any
 
-import numpy as np
 import pandas as pd
 
 from . import cells
@@ -51,6 +50,7 @@ def write_report(book, analysis, valuation, stamp) -> None:
     ctx = _Context(analysis, valuation, stamp)
     r = _header(ws, ctx)
     r = _headline(ws, ctx, r + 1)
+    r = _before_relying(ws, ctx, r + 1)
     r = _valuation(ws, ctx, r + 1)
     r = _checks(ws, ctx, _page_break(ws, r))
     r = _screening(ws, ctx, r + 1)
@@ -187,6 +187,54 @@ def _headline(ws, ctx, r) -> int:
     return r
 
 
+def _before_relying(ws, ctx, r) -> int:
+    """The points a reader must look at before using the value, most serious first."""
+    r = _section(ws, r, "Before relying on the value")
+    items = attention_items(ctx)
+    if not items:
+        items = ["Nothing is flagged: no check fails or asks for a look, the subject lies "
+                 "within the sales used, and the ratio study meets its targets."]
+    for text in items:
+        _wrapped(ws, r, 1, "• " + text, span=LAST_COL)
+        r += 1
+    return r
+
+
+def attention_items(ctx, limit: int = 8) -> list[str]:
+    """Plain sentences: failed checks, then subject flags, ratio-study measures off
+    target, and checks marked 'watch' (at most ``limit``, with a pointer to the rest)."""
+    fails, watch, other = [], [], []
+    checks = ctx.table("checks")
+    if checks is not None:
+        for _, c in checks.iterrows():
+            if c["verdict"] == "fails":
+                fails.append(f"{c['check']} fails: {c['note']}")
+            elif c["verdict"] == "watch":
+                watch.append(f"{c['check']} (watch): {c['note']}")
+    if ctx.estimates is not None:
+        for _, e in ctx.estimates.head(5).iterrows():
+            if _flags(e):
+                other.append(f"Subject {e.get('subject')}: {_flags(e)}.")
+    rs = ctx.table("ratio_study")
+    if rs is not None:
+        first = rs.iloc[0]
+        off = [f"{label} {_verdict_of(rs, 0, key)}" for key, label, _, _ in _MEASURES
+               if _verdict_of(rs, 0, key) not in ("", "ok")]
+        if off:
+            note = first.get("note") if isinstance(first.get("note"), str) else ""
+            other.append(f"Ratio study ({_sample_text(first)}): {', '.join(off)}. {note}".strip())
+    items = fails + other + watch
+    if len(items) > limit:
+        rest = len(items) - (limit - 1)
+        items = items[:limit - 1] + [f"… and {rest} more points under 'What the checks found'."]
+    return items
+
+
+def _flags(e) -> str:
+    v = e.get("flags")
+    return v.strip() if isinstance(v, str) else ""
+
+
 def _kind_text(e) -> str:
     kind = str(e.get("estimate_kind", "") or "")
     text = f"the {kind} estimate" if kind else "the model's estimate"
@@ -236,7 +284,7 @@ def _valuation(ws, ctx, r) -> int:
         put(ws, r, 1, e.get("subject"))
         for j, key in enumerate(("estimate", "pi_low", "pi_high", "ci_low", "ci_high"), start=2):
             put(ws, r, j, e.get(key), MONEY)
-        flags = str(e.get("flags") or "") or "nothing flagged"
+        flags = _flags(e) or "nothing flagged"
         _wrapped(ws, r, 7, flags, span=1)
         r += 1
     if len(est) > 50:
@@ -276,6 +324,7 @@ def _checks(ws, ctx, r) -> int:
     r = _heads(ws, r, ["Check", "Verdict", "Statistic", "p-value", "Threshold", "",
                        "What it means for the valuation"], numeric=(3, 4))
     from openpyxl.styles import Alignment, PatternFill
+    ws.cell(row=r - 1, column=5).alignment = Alignment(horizontal="left", indent=2)
     for _, c in checks.iterrows():
         put(ws, r, 1, c["check"]).alignment = Alignment(wrap_text=True, vertical="top")
         v = str(c["verdict"])
@@ -285,7 +334,7 @@ def _checks(ws, ctx, r) -> int:
         put(ws, r, 3, c["statistic"], sig3(c["statistic"]))
         put(ws, r, 4, c["p_value"], sig3(c["p_value"]))
         thr = put(ws, r, 5, c["threshold"])
-        thr.alignment = Alignment(wrap_text=True, vertical="top")
+        thr.alignment = Alignment(horizontal="left", wrap_text=True, vertical="top", indent=2)
         ws.merge_cells(start_row=r, start_column=5, end_row=r, end_column=6)
         _wrapped(ws, r, 7, c["note"], span=1, lines_with=(str(c["threshold"]), 30))
         r += 1
@@ -309,6 +358,11 @@ def _screening(ws, ctx, r) -> int:
         for _, rule in summary[summary["kind"] == "rule"].iterrows():
             sentences.append(f"The {rule['item']} rule set aside {int(rule['excluded']):,} of "
                              f"{int(rule['rows_before']):,}.")
+        per_col = summary[(summary["kind"] == "column") & (summary["excluded"] > 0)]
+        if len(per_col):
+            parts = [f"{c['item']} {int(c['excluded']):,}" for _, c in per_col.iterrows()]
+            sentences.append("Sales set aside by the column that caught them: "
+                             + ", ".join(parts) + ".")
     elif log is None:
         sentences.append("No screening rule was set, so every complete sale entered the fit. "
                          "Settings such as trim_percentiles, iqr_fence or influence_screen set "
@@ -448,7 +502,7 @@ def _heads(ws, r, heads, numeric=()) -> int:
     for j, h in enumerate(heads, start=1):
         c = put(ws, r, j, h, style="plumb_header")
         if j == LAST_COL:
-            c.alignment = Alignment(wrap_text=True, vertical="top", indent=1)
+            c.alignment = Alignment(horizontal="left", wrap_text=True, vertical="top", indent=2)
         if j in numeric:
             c.alignment = Alignment(horizontal="right", wrap_text=True, vertical="top")
     return r + 1
@@ -470,8 +524,9 @@ def _wrapped(ws, r, col, text, span=1, style=None, lines_with=None):
     from openpyxl.styles import Alignment
     text = "" if text is None else _plain_text(text)
     c = put(ws, r, col, text, style=style)
-    # the last column holds notes beside right-aligned numbers: indent them a little
-    c.alignment = Alignment(wrap_text=True, vertical="top", indent=1 if col == LAST_COL else 0)
+    # notes beside right-aligned numbers: indent them so the two do not touch
+    c.alignment = Alignment(horizontal="left", wrap_text=True, vertical="top",
+                            indent=2 if col > 1 else 0)
     if span > 1:
         ws.merge_cells(start_row=r, start_column=col, end_row=r, end_column=col + span - 1)
     width = sum(WIDTHS.get(_letter(k), 10) for k in range(col, col + span))

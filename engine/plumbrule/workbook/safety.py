@@ -1,5 +1,12 @@
 """Checks made before a workbook is touched.
 
+plumbrule updates a book by grafting its result sheets into the package (graft.py),
+so every part of the user's file is carried byte for byte. The parts listed as
+unsupported here are the ones the workbook contract names (what an openpyxl load and
+save would lose: pictures, shapes, text boxes, charts not ours, sparklines and other
+sheet extensions, slicers, pivot tables, form controls...); for those the book is
+left untouched and the results go to BOOK.results.xlsx (conservative by design).
+
 * :func:`check_not_open` — an owner lock file beside the book means a spreadsheet has it open.
 * :func:`inspect_book` — the file is a zip package with a workbook part (not an
   encrypted or legacy file), every XML part is free of DTDs and entity declarations
@@ -58,11 +65,6 @@ _EXT_NAMES = {
     "FCE2AD5D-F65C-4FA6-A056-5C36A1767C68": "data model",
     "BBE1A952-AA13-448E-AADC-164F8A28A991": "slicers", "46BE6895-7355-4A93-B00E-2C351335B9C9": "slicers",
     "876F7934-8845-4945-9796-88D515C7AA90": "pivot caches", "841E416B-1EF1-43B6-AB56-02D37102CBD5": "pivot caches",
-}
-# Workbook-level extensions that only carry display preferences; losing them is harmless.
-_HARMLESS_WORKBOOK_EXT = {
-    "140A7094-0E35-4892-8432-C4D2E57EDEB5", "B58B0392-4F1F-4190-BB64-5DF3571DCE5F",
-    "79F54976-1DA5-4618-B147-4CDE4B953A38",
 }
 # Sheet elements openpyxl's reader drops (after </sheetData>).
 _SHEET_DROPPED = {
@@ -239,6 +241,9 @@ def _inspect(z: zipfile.ZipFile, path: Path) -> BookParts:
         if name.endswith((".xml", ".rels", ".vml")) or ctype.endswith("xml"):
             _check_prolog(z, name)
     wb_xml = z.read(main)
+    if b"purl.oclc.org/ooxml/spreadsheetml" in wb_xml:
+        raise WorkbookError(f"'{path.name}' is saved as Strict Open XML. Save it as an ordinary "
+                            "Excel Workbook (.xlsx) and run again.")
     wb = _parse(wb_xml, main)
     wb_rels = _rels(z, main)
     sheets: list[tuple[str, str]] = []
@@ -255,12 +260,9 @@ def _inspect(z: zipfile.ZipFile, path: Path) -> BookParts:
         if name in ours:
             owned.add(part)
             _reachable(z, part, owned)
-    for uri in _EXT_URI.findall(wb_xml):
-        u = uri.decode().upper()
-        if u not in _HARMLESS_WORKBOOK_EXT:
-            found.append(_EXT_NAMES.get(u, f"workbook extension {{{u}}}"))
-    if b"customWorkbookViews" in wb_xml:
-        found.append("custom views")
+    # Workbook-level extensions (x15 settings, LibreOffice's calc settings...) are kept:
+    # xl/workbook.xml is edited textually, never re-serialised. Slicer and pivot caches
+    # they point to are parts of their own and are caught below.
     for name, part in sheets:
         if name in ours or part not in z.NameToInfo:
             continue

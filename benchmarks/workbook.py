@@ -1,0 +1,85 @@
+"""``plumbrule run`` beside a bare openpyxl load-and-save of the same workbook.
+
+    python benchmarks/workbook.py            # 1,000, 10,000 and 100,000 sales
+    python benchmarks/workbook.py 1000 10000 # chosen sizes
+
+Each workbook is the template filled with invented Quillford sales (demo_data,
+scaled up), one subject and four comparables, with the demo's settings (log model,
+percentile trim, 30 % holdout, 5-fold cross-validation). Timed in one process, side
+by side, best of a few repeats (one at 100,000):
+
+* bare      openpyxl.load_workbook(book) + save(copy): what any openpyxl-based
+            updater pays just to carry the book through;
+* run       plumbrule's run_book on a fresh copy (read with calamine, analysis,
+            valuation, result sheets, graft into the book, atomic replace);
+* rerun     the same on a book that already holds results (the everyday case);
+* cli       `plumbrule run` as a subprocess (adds interpreter start and imports).
+
+Targets (issue 6): run <= 3 s at 10,000 rows, and run <= 1.3 x bare.
+"""
+
+from __future__ import annotations
+
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+
+def build(folder: Path, n: int) -> Path:
+    from plumbrule.demo import demo_settings
+    from plumbrule.demo_data import demo_comps, demo_sales, demo_subjects
+    from plumbrule.workbook.fill import fill_template
+    sales = demo_sales(n - 3)             # + the three unusual sales
+    settings = {k: v for k, v in demo_settings().items() if v is not None}
+    return fill_template(folder / f"sales-{n}.xlsx", sales, demo_subjects(), demo_comps(sales),
+                         settings)
+
+
+def best(fn, repeats: int) -> float:
+    times = []
+    for _ in range(repeats):
+        t = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t)
+    return min(times)
+
+
+def bare(book: Path, out: Path) -> None:
+    from openpyxl import load_workbook
+    load_workbook(book).save(out)
+
+
+def main(sizes) -> None:
+    from plumbrule.workbook.run import run_book
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        warm = build(folder, 1000)          # imports and first-call costs out of the timings
+        run_book(shutil.copyfile(warm, folder / "warm.xlsx"), backup=False)
+        print(f"{'sales':>8} {'bare s':>8} {'run s':>8} {'rerun s':>8} {'cli s':>8} "
+              f"{'run/bare':>9} {'rerun/bare':>11}")
+        for n in sizes:
+            book = build(folder, n)
+            reps = 3 if n <= 10_000 else 1
+            t_bare = best(lambda: bare(book, folder / "bare.xlsx"), reps)
+            work = folder / "work.xlsx"
+
+            def fresh():
+                shutil.copyfile(book, work)
+                t = time.perf_counter()
+                run_book(work, backup=False)
+                return time.perf_counter() - t
+            t_run = min(fresh() for _ in range(reps))
+            t_rerun = best(lambda: run_book(work, backup=False), reps)
+            t = time.perf_counter()
+            subprocess.run([sys.executable, "-m", "plumbrule", "run", str(work), "--no-backup"],
+                           check=True, capture_output=True)
+            t_cli = time.perf_counter() - t
+            print(f"{n:>8,} {t_bare:8.2f} {t_run:8.2f} {t_rerun:8.2f} {t_cli:8.2f} "
+                  f"{t_run / t_bare:9.2f} {t_rerun / t_bare:11.2f}", flush=True)
+
+
+if __name__ == "__main__":
+    main([int(a) for a in sys.argv[1:]] or [1_000, 10_000, 100_000])
