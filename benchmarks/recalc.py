@@ -5,7 +5,7 @@ Each call receives its own copy of the raw cells (fresh objects, as xlwings hand
 new list of lists to every cell), not a shared object. The mix of cells is what a
 model sheet holds: coefficients, fit, checks, screening log, ratio study and values.
 
-    python benchmarks/recalc.py [--rows 20000] [--repeat 3] [--cpu]
+    python benchmarks/recalc.py [--rows 20000] [--repeat 5] [--cpu]
 
 Prints the times and the ratios; the target is recalc / analysis <= 1.5 for the first
 recalculation (one fit, 29 cache hits). Invented Quillford data (demo_data).
@@ -14,6 +14,7 @@ recalculation (one fit, 29 cache hits). Invented Quillford data (demo_data).
 from __future__ import annotations
 
 import argparse
+import gc
 import pickle
 import statistics
 import time
@@ -70,7 +71,7 @@ def one_recalc(blob: bytes, subject, settings) -> float:
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--rows", type=int, default=20_000)
-    ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--repeat", type=int, default=5)
     ap.add_argument("--cpu", action="store_true",
                     help="time with process CPU time instead of wall-clock time")
     args = ap.parse_args()
@@ -87,12 +88,15 @@ def main() -> None:
     for _ in range(args.repeat):
         s = sf.resolve_settings(DEMO_SETTINGS["response"], DEMO_SETTINGS["predictors"], settings)
         one = pickle.loads(blob)
+        gc.collect()                                    # each side starts from a clean heap
         t0 = CLOCK()
         analyze(one, s)
         full.append(CLOCK() - t0)
         del one
         sf.CACHE.clear()
+        gc.collect()
         cold.append(one_recalc(blob, subject, settings))
+        gc.collect()
         warm.append(one_recalc(blob, subject, settings))
     st = sf.CACHE.stats()
     f, c, w = (min(x) for x in (full, cold, warm))      # best of N: the least disturbed run

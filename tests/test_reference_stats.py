@@ -305,10 +305,49 @@ def test_no_intercept_fit_matches_statsmodels():
     assert f["aic"] == pytest.approx(ref.aic, rel=RTOL)
 
 
-def test_robust_f_is_blank_when_the_robust_covariance_is_singular():
-    # An exact fit has all residuals 0, so the HC1 covariance is the zero matrix and
-    # the robust Wald F is undefined: a blank (NaN), not a crash (behaviour users rely on).
-    x = np.arange(1.0, 9.0)
-    frame = pd.DataFrame({"Price": 1000 + 50 * x, "Area": x, "Lot": x ** 2})
-    a = analyze(frame, response="Price", predictors="Area,Lot", robust_se="HC1", folds=0)
+def test_robust_se_blank_for_a_level_with_one_sale():
+    # A category level with a single sale: that sale has leverage 1 and residual 0,
+    # so HC1/HC3 would report a near-zero SE ("exact" effect) — misleading. Behaviour
+    # a user relies on: such coefficients get no robust SE (NaN) and the robust F is
+    # blank; the others match statsmodels HC1 (its rows with h = 1 add e² = 0).
+    rng = np.random.default_rng(1)
+    frame = pd.DataFrame({"Price": rng.normal(3e5, 3e4, 8), "Area": rng.uniform(50, 150, 8),
+                          "Hood": ["North"] * 6 + ["Mill", "Quay"]})
+    a = analyze(frame, response="Price", predictors="Area,Hood", categorical="Hood",
+                robust_se="HC1", folds=0)
+    c = a.tables["coefficients"].set_index("term")
+    assert c.loc[["Hood: Mill", "Hood: Quay"], "std_error"].isna().all()
+    ref = sm.OLS(a.model.y, sm.add_constant(a.model.x)).fit(cov_type="HC1")   # statsmodels
+    np.testing.assert_allclose(c.loc[["intercept", "Area"], "std_error"], ref.bse[:2], rtol=1e-6)
     assert np.isnan(a.tables["fit"]["f_stat"].iloc[0])
+
+
+def test_reset_not_applicable_when_fitted_values_take_two_values():
+    # One yes/no predictor: ŷ takes two values, so ŷ² and ŷ³ are in the model's span.
+    rng = np.random.default_rng(5)
+    frame = pd.DataFrame({"Price": rng.normal(3e5, 3e4, 40), "Pool": np.arange(40) % 2})
+    a = analyze(frame, response="Price", predictors="Pool", folds=0)
+    assert row(a, "Linearity: Ramsey RESET")["verdict"] == "n/a"
+
+
+def test_gvif_for_a_categorical_predictor():
+    # Generalized VIF (Fox and Monette 1992, JASA 87: GVIF = det R11 · det R22 / det R),
+    # computed here from numpy.corrcoef of the design, reported as GVIF^(1/df); it
+    # must not depend on which level is the reference (their paper's point).
+    from plumbrule.checks import collinearity_by_predictor
+    data = generated_sales()
+    got = {}
+    for ref_level in ("North", "Heath"):
+        a = analyze(data, GENERATED, reference_levels=f"Hood={ref_level}")
+        corr = np.corrcoef(a.model.x, rowvar=False)
+        names = a.model.encoding.names
+        block = [i for i, nm in enumerate(names) if nm.startswith("Hood: ")]
+        rest = [i for i in range(len(names)) if i not in block]
+        gvif = (np.linalg.det(corr[np.ix_(block, block)]) * np.linalg.det(corr[np.ix_(rest, rest)])
+                / np.linalg.det(corr))
+        per = dict(collinearity_by_predictor(a.model))
+        assert per["Hood"] == pytest.approx(gvif ** (1 / len(block)), rel=1e-9)
+        assert per["Area"] == pytest.approx(variance_inflation_factor(
+            sm.add_constant(a.model.x), names.index("Area") + 1), rel=1e-8)
+        got[ref_level] = per["Hood"]
+    assert got["North"] == pytest.approx(got["Heath"], rel=1e-9)

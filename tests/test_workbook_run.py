@@ -317,3 +317,61 @@ def test_a_book_saved_by_libreoffice_is_updated_and_still_opens(filled, tmp_path
     wb = load_workbook(again, data_only=True)
     assert _value(wb, "plumb_n_used").value > 100
     assert "Model" in wb.sheetnames and "Sales" in wb.sheetnames
+
+
+def test_moved_result_sheets_and_local_names_survive_a_rerun(ran, tmp_path):
+    """A user who drags Report to the front, sets a print area on Sales and leaves Sales
+    as the active tab finds all three as they were (sheet-local names follow their sheet)."""
+    from openpyxl import load_workbook
+    from plumbrule.workbook.run import run_book
+    book = shutil.copyfile(ran, tmp_path / "book.xlsx")
+    wb = load_workbook(book)
+    wb.move_sheet("Report", offset=-wb.sheetnames.index("Report"))
+    wb["Sales"].print_area = "A1:D20"
+    for ws in wb.worksheets:
+        ws.sheet_view.tabSelected = ws.title == "Sales"
+    wb.active = wb.sheetnames.index("Sales")
+    wb.save(book)
+    run_book(book, backup=False)
+    wb = load_workbook(book)
+    assert wb.sheetnames[:6] == ["Read me", *INPUT_SHEETS, "xlwings.conf"]
+    assert wb.active.title == "Sales"
+    assert wb["Sales"].print_area == "'Sales'!$A$1:$D$20"
+    assert "Report" in wb.sheetnames
+
+
+def test_a_bad_cell_in_the_sales_is_named_and_nothing_is_written(filled, tmp_path, capsys):
+    from openpyxl import load_workbook
+    from workbook_snapshot import folder_state
+    book = shutil.copyfile(filled, tmp_path / "book.xlsx")
+    wb = load_workbook(book)
+    wb["Sales"]["C17"] = "approx 1200"           # Living area, sheet row 17
+    wb.save(book)
+    before = folder_state(tmp_path)
+    assert main(["run", str(book)]) == 2
+    err = capsys.readouterr().err
+    assert "'Living area', row 17" in err and "approx 1200" in err
+    assert folder_state(tmp_path) == before
+
+
+def test_a_plain_sales_sheet_without_a_table_works(tmp_path):
+    """No Excel tables at all: Sales is read from the sheet (first non-empty row is the
+    header) and Settings from its first two columns."""
+    from openpyxl import Workbook
+    from plumbrule.demo_data import DEMO_SETTINGS, demo_sales
+    from plumbrule.workbook.run import run_book
+    sales = demo_sales()
+    wb = Workbook()
+    ws = wb.active
+    ws.title = "Sales"
+    ws.append(list(sales.columns))
+    for row in sales.itertuples(index=False):
+        ws.append([v.to_pydatetime() if hasattr(v, "to_pydatetime") else v for v in row])
+    st = wb.create_sheet("Settings")
+    for k, v in DEMO_SETTINGS.items():
+        st.append([k, v])
+    book = tmp_path / "plain.xlsx"
+    wb.save(book)
+    res = run_book(book, backup=False)
+    assert res.in_place and res.headline["n_used"] == len(sales)
+    assert res.valuation is None                      # no Subjects sheet: nothing to value

@@ -217,23 +217,52 @@ def _explained_share(z: np.ndarray, t: np.ndarray) -> float:
 
 # --- multicollinearity ----------------------------------------------------------
 
+def collinearity_by_predictor(model: FittedModel) -> list[tuple[str, float]]:
+    """(predictor, VIF-comparable value) per predictor as the user named it.
+
+    A numeric predictor (or the date trend) has its VIF. A categorical predictor
+    enters as several indicator columns whose VIFs depend on the reference level
+    (a rare reference inflates them all), so it gets the generalized VIF
+    GVIF = det(R₁₁)·det(R₂₂)/det(R) of its block (Fox and Monette 1992, JASA 87),
+    reported as GVIF^(1/df) — on the VIF scale, and the same for any reference.
+    """
+    fit, terms = model.fit, model.encoding.terms
+    corr = fit.predictor_correlations()
+    out, done = [], set()
+    for j, t in enumerate(terms):
+        if t.kind != "level":
+            out.append((t.name, float(fit.vif[j])))
+            continue
+        if t.column in done:
+            continue
+        done.add(t.column)
+        block = [i for i, u in enumerate(terms) if u.kind == "level" and u.column == t.column]
+        if len(block) == 1 or corr is None:
+            out.append((t.column, float(fit.vif[block[0]])))
+            continue
+        rest = [i for i in range(len(terms)) if i not in block]
+        logdet = lambda m: np.linalg.slogdet(m)[1] if m.size else 0.0  # noqa: E731
+        log_gvif = (logdet(corr[np.ix_(block, block)]) + logdet(corr[np.ix_(rest, rest)])
+                    - logdet(corr))
+        out.append((t.column, float(np.exp(log_gvif / len(block)))))
+    return out
+
+
 def max_vif(model: FittedModel) -> Check:
     name = "Multicollinearity: largest VIF"
-    vif = model.fit.vif
+    threshold = ("VIF > 5 watch, > 10 fails (common practice, no source); a categorical "
+                 "predictor by GVIF^(1/df) (Fox and Monette 1992)")
     if model.x.shape[1] < 2:
-        return not_applicable(name, "Needs at least two predictors.", "VIF > 5 watch, > 10 fails")
+        return not_applicable(name, "Needs at least two predictors.", threshold)
     if not model.spec.intercept:
-        return not_applicable(name, "VIF needs an intercept (centred predictors).",
-                              "VIF > 5 watch, > 10 fails")
-    j = int(np.argmax(vif))
-    v = float(vif[j])
-    term = model.encoding.names[j]
+        return not_applicable(name, "VIF needs an intercept (centred predictors).", threshold)
+    per = collinearity_by_predictor(model)
+    term, v = max(per, key=lambda tv: tv[1])
     verdict = OK if v <= 5 else (WATCH if v <= 10 else FAILS)
     note = ("Predictors are distinct enough for their effects to be read one by one." if verdict == OK
             else f"'{term}' is largely predicted by the other predictors: its coefficient (and "
             "any adjustment built on it) is unstable; the estimate for a typical subject is not.")
-    return Check(name, v, float("nan"), "VIF > 5 watch, > 10 fails (common practice, no source)",
-                 verdict, note)
+    return Check(name, v, float("nan"), threshold, verdict, note)
 
 
 def condition_number(model: FittedModel) -> Check:
@@ -289,9 +318,10 @@ def ramsey_reset(model: FittedModel) -> Check:
     np.multiply(z, z, out=extra[:, 0])
     np.multiply(extra[:, 0], z, out=extra[:, 1])
     del z
+    raw = np.einsum("ij,ij->j", extra, extra)      # size before centring: the yardstick
     if fit.has_intercept:
         extra -= extra.mean(axis=0)
-    gain, df1 = _reset_gain(fit, extra)
+    gain, df1 = _reset_gain(fit, extra, raw)
     if df1 == 0:
         return not_applicable(name, "The fitted values take too few distinct values for "
                               "their powers to test anything.", "p < 0.05")
@@ -306,13 +336,15 @@ def ramsey_reset(model: FittedModel) -> Check:
                  "no neglected nonlinearity")
 
 
-def _reset_gain(fit, w: np.ndarray) -> tuple[float, int]:
+def _reset_gain(fit, w: np.ndarray, raw: np.ndarray) -> tuple[float, int]:
     """(‖projection of e on the part of w orthogonal to the design‖², its df).
 
     One pass: from Qᵀ[w, e] and wᵀ[w, e] the orthogonal part's normal equations
     are wᵀw − (Qᵀw)ᵀ(Qᵀw) and wᵀe − (Qᵀw)ᵀQᵀe. When w lies almost inside the
     design (that difference keeps < 1e-6 of wᵀw, so the subtraction would cost
-    digits) the columns are residualised explicitly instead, twice.
+    digits) the columns are residualised explicitly instead, twice, and a column
+    with nothing but rounding left (relative to ``raw``, its size before centring)
+    is dropped from the test.
     """
     e = fit.resid
     qw, qe = fit.q.T @ w, fit.q.T @ e       # k × 2 and k: no n-row temporaries
@@ -321,7 +353,7 @@ def _reset_gain(fit, w: np.ndarray) -> tuple[float, int]:
     g_perp = gram - qw.T @ qw
     rhs = we - qw.T @ qe
     after = np.diag(g_perp)
-    if np.all(after > 1e-6 * before):
+    if np.all(after > 1e-6 * before) and np.all(before > 1e-12 * raw):
         d = np.sqrt(after)
         coef, *_ = np.linalg.lstsq(g_perp / np.outer(d, d), rhs / d, rcond=1e-10)
         return float(np.dot(rhs / d, coef)), w.shape[1]
@@ -331,7 +363,7 @@ def _reset_gain(fit, w: np.ndarray) -> tuple[float, int]:
         # matrix misses BLAS and is 10-20x slower at a million rows.
         w -= np.dot(fit.q, fit.q.T @ w)
     norms = np.sqrt(np.einsum("ij,ij->j", w, w))
-    keep = norms > 1e-8 * np.sqrt(np.maximum(before, 1e-300))
+    keep = norms ** 2 > 1e-16 * raw       # what is left is more than rounding
     if not keep.any():
         return 0.0, 0
     return _explained_share(w[:, keep] / norms[keep], e), int(keep.sum())
@@ -390,12 +422,14 @@ def studentized_count(model: FittedModel) -> Check:
     from scipy.stats import t as tdist
     t = model.influence.studentized
     n, df = model.fit.n, model.fit.df_resid - 1
-    count = int(np.sum(np.abs(t) > 3))
-    finite = t[np.isfinite(t)]
-    if df < 1 or finite.size == 0:
+    a = np.abs(t)
+    count = int(np.count_nonzero(a > 3))
+    np.nan_to_num(a, copy=False, nan=-1.0)        # blanks (leverage 1) never the largest
+    i = int(np.argmax(a)) if a.size else 0
+    if df < 1 or not a.size or a[i] < 0:
         return not_applicable("Influence: |studentized residual| > 3",
                               "Needs at least two more sales than parameters.")
-    i = int(np.nanargmax(np.abs(t)))
+    del a
     p = float(min(1.0, n * 2.0 * tdist.sf(abs(t[i]), df)))
     verdict = OK if p >= 0.05 else WATCH
     expected = n * 2.0 * tdist.sf(3.0, df)

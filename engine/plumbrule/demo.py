@@ -51,7 +51,7 @@ def run_demo(args) -> int:
         import json
         from .render_json import analysis_json
         out = json.loads(analysis_json(result.analysis))
-        out["workbook"] = str(result.written)
+        out["workbook"] = str(result.written.resolve())
         out["headline"] = result.headline
         if result.valuation is not None:
             from .valuation_cli import valuation_json
@@ -59,7 +59,7 @@ def run_demo(args) -> int:
         print(json.dumps(out, allow_nan=False, ensure_ascii=False))
         return 0
     h = result.headline
-    print(f"Demo workbook for {TOWN} (an invented town): {result.written}")
+    print(f"Demo workbook for {TOWN} (an invented town): {result.written.resolve()}")
     print("Open it and read the Report sheet first.\n")
     print(_headline_text(h))
     return 0

@@ -25,24 +25,27 @@ def influence(fit: OLSFit) -> Influence:
     """
     e, h = fit.resid, fit.leverage
     with np.errstate(divide="ignore", invalid="ignore"):
-        one_minus_h = np.where(h < 1.0 - 1e-12, 1.0 - h, np.nan)
-        standardized = e / np.sqrt(one_minus_h)
+        root = np.where(h < 1.0 - 1e-12, 1.0 - h, np.nan)
+        np.sqrt(root, out=root)                          # √(1−h), blank where h = 1
+        standardized = e / root
         standardized /= fit.sigma                        # e / (s·√(1−h))
         df = fit.df_resid - 1
         if df > 0:
             # s²₍ᵢ₎ = (SSR − e²/(1−h)) / (ν − 1), formed in place to spare n-row copies
-            s2_loo = standardized * standardized
-            s2_loo *= -fit.sigma ** 2
-            s2_loo += fit.ssr
-            s2_loo /= df
-            s2_loo[~(s2_loo > 0)] = np.nan
+            work = standardized * standardized
+            work *= -fit.sigma ** 2
+            work += fit.ssr
+            work /= df
+            work[~(work > 0)] = np.nan
+            np.sqrt(work, out=work)                      # s₍ᵢ₎
             studentized = standardized * fit.sigma
-            studentized /= np.sqrt(s2_loo)
-            del s2_loo
+            studentized /= work
+            del work
         else:
             studentized = np.full_like(e, np.nan)
-        cooks = standardized * standardized
+        cooks = standardized * standardized              # r² h / (p (1−h))
         cooks *= h
-        cooks /= one_minus_h
+        root *= root
+        cooks /= root
         cooks /= fit.n_params
     return Influence(standardized, studentized, cooks)

@@ -65,15 +65,30 @@ class OLSFit:
     def robust_cov(self, kind: str) -> np.ndarray:
         """Heteroscedasticity-consistent covariance, ``kind`` 'HC1' or 'HC3'."""
         u2 = self.resid ** 2
+        alone = self.leverage >= 1.0 - 1e-10     # a sale that alone fixes a parameter
         if kind == "HC1":
             w = u2 * (self.n / self.df_resid)
         elif kind == "HC3":
-            w = u2 / (1.0 - np.minimum(self.leverage, 1.0 - 1e-12)) ** 2
+            w = u2 / (1.0 - np.where(alone, 0.0, self.leverage)) ** 2
         else:  # pragma: no cover - validated at the edge
             raise ValueError(kind)
+        w[alone] = 0.0
         meat = _weighted_gram(self.q, w, self.has_intercept)
         lmat = self._coef_map()
-        return lmat @ meat @ lmat.T
+        cov = lmat @ meat @ lmat.T
+        if alone.any():
+            # Such a sale's residual is 0 by construction, so the robust variance of
+            # every coefficient it moves would be understated (a one-sale level would
+            # look exact): those coefficients get no robust variance (NaN).
+            rows = self.q[alone]
+            if self.has_intercept:
+                rows = np.column_stack([np.full(len(rows), 1.0 / np.sqrt(self.n)), rows])
+            sens = lmat @ rows.T
+            scale = np.sqrt(np.einsum("ij,ij->i", lmat, lmat))[:, None]
+            moved = np.any(np.abs(sens) > 1e-8 * scale, axis=1)
+            cov[moved, :] = np.nan
+            cov[:, moved] = np.nan
+        return cov
 
     def predictor_correlations(self) -> np.ndarray | None:
         """Pearson correlations of the predictors (k × k, input order), read off
@@ -131,7 +146,10 @@ def fit_ols(x: np.ndarray, y: np.ndarray, names: list[str],
     _check_rank(svals, x, means, norms, names, intercept)
 
     y_mean = float(np.mean(y)) if intercept else 0.0
-    qty = q.T @ (y - y_mean)
+    yc = y - y_mean if intercept else y
+    qty = q.T @ yc
+    tss = float(np.dot(yc, yc))
+    del yc
     theta = _solve_r(r, qty)                          # working coefficients (pivoted)
     b = np.empty(k)
     b[piv] = theta
@@ -151,7 +169,6 @@ def fit_ols(x: np.ndarray, y: np.ndarray, names: list[str],
 
     df_resid = n - n_params
     ssr = float(np.dot(resid, resid))
-    tss = float(np.dot(y - y_mean, y - y_mean)) if intercept else float(np.dot(y, y))
     sigma = float(np.sqrt(ssr / df_resid))
     rinv = _rinv_unpivoted(r, piv)
     lmat = _coef_map(r, piv, means, norms, n, intercept, rinv)
@@ -341,7 +358,9 @@ def _refine_double(x, y, means, norms, q, r, piv, b, c, intercept, cond):
     ld = np.longdouble
     n = len(y)
     c_shift = float(ld(c) - np.dot(means.astype(ld), b.astype(ld)))
-    res = y - c_shift - np.dot(x, b)
+    res = np.dot(x, b)
+    np.subtract(y, res, out=res)
+    res -= c_shift
     col_norms = np.sqrt(norms ** 2 + n * means ** 2) if intercept else norms
     bound = np.finfo(float).eps * (np.sqrt(np.dot(y, y)) + np.sqrt(n) * abs(c_shift)
                                    + float(np.dot(col_norms, np.abs(b))))

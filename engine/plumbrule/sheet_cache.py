@@ -78,7 +78,7 @@ def type_guard(rows: list[list[Any]]) -> tuple:
     not '1'). Only cells equal to 0 or 1 can hide such a swap, so the guard
     keeps their positions and types: whole columns when they are common.
     """
-    width = {len(r) for r in rows}
+    width = set(map(len, rows))
     if len(width) != 1:                         # ragged block: keep every row's types
         return ("rows", [list(map(type, r)) for r in rows])
     columns, cells = [], []
@@ -98,11 +98,13 @@ _NEVER_ZERO_OR_ONE = frozenset({str, type(None), _dt.datetime, _dt.date})
 
 
 def _zero_one_positions(col: list[Any]) -> list[int]:
-    """Rows of ``col`` whose cell equals 0 or 1 (a superset is harmless)."""
+    """Rows of ``col`` whose cell equals 0 or 1 (a superset is harmless). The first
+    cell (the header) is looked at alone so a numeric body stays vectorised."""
     import numpy as np
+    head = [0] if _zero_or_one(col[0]) else []
     try:                                        # numbers, bools and blanks: vectorised
-        a = np.array(col, dtype=float)
-        return np.flatnonzero((a == 0) | (a == 1)).tolist()
+        a = np.array(col[1:], dtype=float)
+        return head + (np.flatnonzero((a == 0) | (a == 1)) + 1).tolist()
     except (TypeError, ValueError):
         return [i for i, flag in enumerate(map(_zero_or_one, col)) if flag]
 

@@ -58,7 +58,8 @@ CACHE = SheetCache()
 # Argument help shown in Excel's function wizard (each under 255 characters).
 DOC_SALES = ("The sales table with its header row, e.g. Sales[#All]. One row per sale; "
              "row numbers count the header as row 1.")
-DOC_RESPONSE = "Header of the sale-price column, e.g. \"Sale price\" (blank: the settings' response)."
+DOC_RESPONSE = ("Header of the sale-price column, e.g. \"Sale price\" "
+                "(blank: the settings' response).")
 DOC_PREDICTORS = ("Headers of the columns that explain the price: comma-separated text "
                   "(\"Living area,Lot size,Age\") or a range of header cells.")
 DOC_SETTINGS = ("Optional two-column range: setting name, value (e.g. log_response, TRUE). "
@@ -140,7 +141,8 @@ def frame_cells(frame) -> list[list[Any]]:
     out.extend(map(list, zip(*cols)) if cols else ([] for _ in range(body_rows)))
     if cut:
         note = [None] * len(columns)
-        note[0] = text_cell(f"\u2026 {cut + 1} more rows not shown (a sheet holds {MAX_ROWS:,} rows)")
+        note[0] = text_cell(f"\u2026 {cut + 1} more rows not shown "
+                            f"(a sheet holds {MAX_ROWS:,} rows)")
         out.append(note)
     return out
 
@@ -416,7 +418,8 @@ def _table(analysis, name: str):
 @xw.ret(transpose=False)
 @cell_safe
 def PLUMB_COEFS(sales, response, predictors, settings=None):
-    """Coefficient table of the hedonic model: term, estimate, std_error, t, p_value, ci_low, ci_high, std_beta, vif. One row per term; spills."""
+    ("Coefficient table of the hedonic model: term, estimate, std_error, t, p_value, ci_low, "
+     "ci_high, std_beta, vif. One row per term; spills.")
     return model_cells("coefficients", lambda a: _table(a, "coefficients"),
                        sales, response, predictors, settings)
 
@@ -429,7 +432,8 @@ def PLUMB_COEFS(sales, response, predictors, settings=None):
 @xw.ret(transpose=False)
 @cell_safe
 def PLUMB_FIT(sales, response, predictors, settings=None):
-    """Fit statistics of the model in two columns, measure and value: rows used and set aside, R², adjusted R², F, RMSE, MAE, MAPE, AIC, BIC…"""
+    ("Fit statistics of the model in two columns, measure and value: rows used and set aside, "
+     "R², adjusted R², F, RMSE, MAE, MAPE, AIC, BIC…")
     return model_cells("fit", lambda a: record_cells(_table(a, "fit")),
                        sales, response, predictors, settings)
 
@@ -442,7 +446,8 @@ def PLUMB_FIT(sales, response, predictors, settings=None):
 @xw.ret(transpose=False)
 @cell_safe
 def PLUMB_CHECKS(sales, response, predictors, settings=None):
-    """Assumption checks of least squares, one row each: statistic, p_value, threshold, verdict (ok / watch / fails) and what it means for a valuation."""
+    ("Assumption checks of least squares, one row each: statistic, p_value, threshold, verdict"
+     " (ok / watch / fails) and what it means for a valuation.")
     return model_cells("checks", lambda a: _table(a, "checks"),
                        sales, response, predictors, settings)
 
@@ -458,7 +463,8 @@ SCREEN_COLUMNS = ["row", "column", "value", "rule", "limit", "reason"]
 @xw.ret(transpose=False)
 @cell_safe
 def PLUMB_SCREEN(sales, response, predictors, settings=None):
-    """The sales set aside, one row each: sheet row, column, value, rule, limit and reason (screening rules and rows with missing values)."""
+    ("The sales set aside, one row each: sheet row, column, value, rule, limit and reason "
+     "(screening rules and rows with missing values).")
     return model_cells("screen", screen_table, sales, response, predictors, settings)
 
 
@@ -490,7 +496,8 @@ def screen_table(analysis):
 @xw.ret(transpose=False)
 @cell_safe
 def PLUMB_RATIOS(sales, response, predictors, settings=None):
-    """Sales-ratio study (holdout sales, or cross-validated estimates without a holdout): median ratio and interval, COD, PRD, PRB, each with its target and verdict."""
+    ("Sales-ratio study (holdout sales, or cross-validated estimates without a holdout): "
+     "median ratio and interval, COD, PRD, PRB, each with its target and verdict.")
     return model_cells("ratios", ratio_table, sales, response, predictors, settings)
 
 
@@ -513,7 +520,8 @@ def ratio_table(analysis):
 @xw.ret(transpose=False)
 @cell_safe
 def PLUMB_VALUE(sales, response, predictors, subject, settings=None):
-    """Estimated value of each subject on the price scale, with confidence and prediction intervals and flags. A statistical estimate, not an appraisal."""
+    ("Estimated value of each subject on the price scale, with confidence and prediction "
+     "intervals and flags. A statistical estimate, not an appraisal.")
     return valuation_for(sales, response, predictors, subject, None, settings).estimates
 
 
@@ -527,7 +535,8 @@ def PLUMB_VALUE(sales, response, predictors, subject, settings=None):
 @xw.ret(transpose=False)
 @cell_safe
 def PLUMB_GRID(sales, response, predictors, subject, comps, settings=None):
-    """Adjustment grid: for each comparable and feature the subject and comp values, the model-derived adjustment, market-conditions, net and gross totals."""
+    ("Adjustment grid: for each comparable and feature the subject and comp values, the model-"
+     "derived adjustment, market-conditions, net and gross totals.")
     return _grid(valuation_for(sales, response, predictors, subject, comps, settings)).grid
 
 
@@ -550,7 +559,8 @@ def _grid(valuation):
 @xw.ret(transpose=False)
 @cell_safe
 def PLUMB_RECONCILE(sales, response, predictors, subject, comps, settings=None):
-    """Reconciled value from the adjustment grid in two columns, measure and value: value, range, spread and the weights given to each comparable."""
+    ("Reconciled value from the adjustment grid in two columns, measure and value: value, "
+     "range, spread and the weights given to each comparable.")
     valuation = _grid(valuation_for(sales, response, predictors, subject, comps, settings))
     return record_cells(valuation.reconciled)
 
@@ -559,7 +569,8 @@ def PLUMB_RECONCILE(sales, response, predictors, subject, comps, settings=None):
 @xw.ret(transpose=False)
 @cell_safe
 def PLUMB_INFO():
-    """plumbrule version, Python and library versions, and the state of the fit cache (entries, hits, misses, memory), as two columns: item, value."""
+    ("plumbrule version, Python and library versions, and the state of the fit cache (entries,"
+     " hits, misses, memory), as two columns: item, value.")
     return info_rows()
 
 

@@ -57,17 +57,21 @@ def fit_table(model: FittedModel, n_dropped: int = 0, extra: dict | None = None)
     f_p = float(fdist.sf(f_stat, df_model, fit.df_resid)) if df_model > 0 else np.nan
     e = fit.resid
     loglik = -0.5 * n * (np.log(2.0 * np.pi) + np.log(fit.ssr / n) + 1.0)
+    ape = np.abs(e)
+    mae = float(np.mean(ape))
     if model.spec.log_response:
-        ape = np.abs(np.expm1(-e))                      # |exp(ŷ) − price| / price
+        np.negative(e, out=ape)
+        np.expm1(ape, out=ape)                          # (exp(ŷ) − price) / price
     else:
         with np.errstate(divide="ignore", invalid="ignore"):
-            ape = np.abs(e / model.y)
+            np.divide(e, model.y, out=ape)
+    np.abs(ape, out=ape)
     mape = 100.0 * float(np.mean(ape)) if np.all(np.isfinite(ape)) else np.nan
     rec = {
         "n_used": n, "n_dropped": int(n_dropped), "n_params": p, "df_resid": fit.df_resid,
         "r_squared": r2, "adj_r_squared": adj, "f_stat": f_stat, "f_p_value": f_p,
         "resid_std_error": fit.sigma, "rmse": float(np.sqrt(fit.ssr / n)),
-        "mae": float(np.mean(np.abs(e))), "mape": mape, "log_likelihood": loglik,
+        "mae": mae, "mape": mape, "log_likelihood": loglik,
         "aic": -2.0 * loglik + 2.0 * p, "bic": -2.0 * loglik + np.log(n) * p,
         "se_type": model.robust_se or "classical",
         "response": model.encoding.response_name,
@@ -86,12 +90,19 @@ def _f_statistic(model: FittedModel, r2: float, df_model: int) -> float:
     off = int(fit.has_intercept)
     b = fit.coef[off:]
     v = model.cov[off:, off:]
-    try:
-        return float(b @ np.linalg.solve(v, b) / df_model)
-    except np.linalg.LinAlgError:
-        # A singular robust covariance (residuals zero where they carry the
-        # information, e.g. an exact fit) leaves the Wald test undefined.
+    # Undefined when a coefficient has no robust variance (a sale alone fixes it)
+    # or the robust covariance is singular to working precision.
+    if not np.all(np.isfinite(v)):
         return float("nan")
+    d = np.sqrt(np.diag(v))
+    if not np.all(d > 0):
+        return float("nan")
+    corr = v / np.outer(d, d)
+    eig = np.linalg.eigvalsh(corr)
+    if not eig[0] > 1e-12 * eig[-1]:
+        return float("nan")
+    z = b / d
+    return float(z @ np.linalg.solve(corr, z) / df_model)
 
 
 def checks_table(checks: list[Check]) -> pd.DataFrame:

@@ -9,15 +9,22 @@ read.py      read Sales / Subjects / Comps / Settings with python-calamine
 stamp.py     the audit stamp (:class:`~plumbrule.workbook.stamp.Stamp`)
 cells.py     writing values safely (text stays text) and number formats
 sheets.py    the Model, Screening, Validation and Valuation sheets
-run.py       ``plumbrule run``: read → analyze → valuate → write → atomic replace
+graft.py     put the result sheets into the user's package (every other part byte for byte)
+fill.py      fill a copy of the template (demo, tests, benchmark)
+run.py       ``plumbrule run``: read → analyze → valuate → write → graft → atomic replace
 report.py    (helper E2) the Report sheet with native charts
 live.py      (helper E2) the "try a subject" live-formula block on the Valuation sheet
 
 Interface between the writer (run.py / sheets.py) and report.py / live.py
 -----------------------------------------------------------------------
-Order of a run: the old result sheets are removed; the sheets named in
-:data:`RESULT_SHEETS` are created in that order (Report first, empty); Model,
-Screening, Validation and Valuation are filled; then
+The result sheets are written into a fresh openpyxl Workbook (``book``) that also
+holds stand-in copies of the Subjects, Comps and Settings sheets (values only, at
+their original sheet rows; no Sales sheet unless the run writes BOOK.results.xlsx).
+Only the sheets named in :data:`RESULT_SHEETS` are then grafted into the user's file
+(graft.py): anything written elsewhere in ``book`` is discarded, the user's active tab
+is kept, and formulas may refer to the user's sheets by name. Order: the sheets of
+RESULT_SHEETS are created in that order (Report first, empty); Model, Screening,
+Validation and Valuation are filled; then
 
 * ``live.write_live_block(ws, analysis, valuation, anchor_row) -> int`` is called with
   ``ws`` = the Valuation worksheet and ``anchor_row`` = the first free row below the

@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import datetime as _dt
-import hashlib
-import json
 from dataclasses import dataclass, field
 from typing import Any, Mapping
 
@@ -50,28 +48,6 @@ class Stamp:
             ("Sales set aside or dropped", self.rows_set_aside),
             ("Settings used", self.settings_text()),
         ]
-
-
-def hash_values(header: list, frame) -> str:
-    """SHA-256 of the header and every cell (type-tagged text), row by row."""
-    h = hashlib.sha256()
-    h.update(json.dumps([str(c) for c in header], ensure_ascii=False).encode())
-    for col in frame.columns:
-        values = frame[col].map(_tag).to_numpy()
-        h.update(("\x1f".join(values) + "\x1e").encode("utf-8", "surrogatepass"))
-    return h.hexdigest()
-
-
-def _tag(v: Any) -> str:
-    if v is None or (isinstance(v, float) and v != v):
-        return ""
-    if isinstance(v, bool):
-        return "b:" + str(v)
-    if isinstance(v, (int, float)):
-        return "n:" + repr(float(v))
-    if isinstance(v, (_dt.datetime, _dt.date)):
-        return "d:" + v.isoformat()
-    return "s:" + str(v)
 
 
 def make_stamp(analysis, sales_hash: str, source: str = "",
