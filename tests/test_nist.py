@@ -99,22 +99,12 @@ def test_more_digits_than_reference_libraries(name):
 
 
 @pytest.mark.parametrize("name", ORDER)
-def test_certified_digits_stacked(name, monkeypatch):
+def test_certified_digits_stacked(name):
     # The same NIST data stacked m times (m·n rows) has the same certified
     # coefficients and R²; SEs scale by √((n−p)/(mn−p)) and the residual SD by
     # √(m(n−p)/(mn−p)) (exact consequences of the certified values). Stacked, the
-    # tables are large enough for the Cholesky-QR path of plumbrule.ols, which
-    # must keep the same digits; Filip is too ill-conditioned for it and must
-    # take the Householder path.
-    import plumbrule.ols as ols
-    used = []
-    real = ols._cholesky_qr2
-
-    def spy(xs):
-        out = real(xs)
-        used.append(out is not None)
-        return out
-    monkeypatch.setattr(ols, "_cholesky_qr2", spy)
+    # tables are large (tens of thousands of rows), where rounding in the column
+    # means and in the refinement passes grows with n: the digits must hold.
     ref = load(name)
     m = 1000 if len(ref.y) > 10 else 2000
     n, p = len(ref.y), len(ref.coef)
@@ -125,4 +115,3 @@ def test_certified_digits_stacked(name, monkeypatch):
     assert lre(fit.se, ref.se * np.sqrt((n - p) / (m * n - p))).min() >= need
     assert lre(fit.sigma, ref.resid_sd * np.sqrt(m * (n - p) / (m * n - p))).min() >= need
     assert lre(fit.r_squared, ref.r_squared).min() >= need
-    assert used == [name != "Filip"]      # Cholesky QR taken, or declined for Filip

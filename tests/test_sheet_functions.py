@@ -452,3 +452,17 @@ def test_the_worked_session_on_the_demo_workbook(tmp_path):
     assert sf.PLUMB_VALUE(sales, "", "", subjects, settings) == \
         expected_cells(valuate(ref, subjects).estimates)
     assert sf.CACHE.stats().misses == 1       # one fit behind every cell of the session
+
+
+def test_true_and_one_read_alike_in_a_numeric_column(sales_cells):
+    # Intake reads TRUE as 1 in a column used as a number, so the cache may reuse the
+    # fit; the engine itself confirms the swapped block gives the same table.
+    cells = [list(r) for r in sales_cells]
+    g = cells[0].index("Garage")
+    preds = PREDICTORS + ",Garage"
+    first = sf.PLUMB_COEFS([list(r) for r in cells], RESPONSE, preds, MODEL)
+    cells[4][g] = 1.0 if cells[4][g] is True else 0.0
+    again = sf.PLUMB_COEFS([list(r) for r in cells], RESPONSE, preds, MODEL)
+    assert sf.CACHE.stats().misses == 1 and again == first
+    ref = analyze(cells, dict(DEMO_SETTINGS, predictors=preds))
+    assert again == expected_cells(ref.tables["coefficients"])

@@ -341,15 +341,47 @@ def _kind_of_type(t: type) -> str:
     return OTHER
 
 
+_KINDS = [BLANK, TEXT, NUMBER, BOOL, DATE, OTHER]
+
+
+def _kind_series(codes, index) -> pd.Series:
+    # Categorical: comparing a million kinds to one is a cheap integer comparison.
+    return pd.Series(pd.Categorical.from_codes(np.asarray(codes, dtype=np.int8), _KINDS),
+                     index=index)
+
+
 def cell_kinds(col: pd.Series) -> pd.Series:
     """The kind of each cell (blank, text, number, bool, date, other) by its type."""
     kind = col.dtype.kind if isinstance(col.dtype, np.dtype) else "O"
     fixed = {"f": NUMBER, "i": NUMBER, "u": NUMBER, "b": BOOL, "M": DATE}.get(kind)
     if fixed is not None:
-        return pd.Series(fixed, index=col.index, dtype=object)
+        return _kind_series(np.full(len(col), _KINDS.index(fixed)), col.index)
+    # One C-level pass usually settles it; mixed columns are classified per type.
+    inferred = pd.api.types.infer_dtype(col, skipna=False)
+    fixed = {"string": TEXT, "floating": NUMBER, "integer": NUMBER,
+             "mixed-integer-float": NUMBER, "boolean": BOOL}.get(inferred)
+    if fixed is not None and (fixed == NUMBER or not col.isna().any()):
+        return _kind_series(np.full(len(col), _KINDS.index(fixed)), col.index)
     types = col.map(type)
-    lookup = {t: _kind_of_type(t) for t in pd.unique(types.to_numpy())}
-    return types.map(lookup).astype(object)
+    lookup = {t: _KINDS.index(_kind_of_type(t)) for t in pd.unique(types.to_numpy())}
+    return _kind_series(types.map(lookup).to_numpy(), col.index)
+
+
+def on_uniques(text: pd.Series, fn, skip_numbers: bool = False) -> pd.Series:
+    """``fn`` (Series of distinct strings → Series) applied once per distinct value and
+    spread back over ``text``. Sales columns repeat values (neighbourhoods, dates), and
+    pandas string methods cost per element. With ``skip_numbers`` plain numbers (which
+    are neither blank nor an error) get NaN without being looked at."""
+    codes, uniq = pd.factorize(text.to_numpy(dtype=object))
+    u = pd.Series(uniq, dtype=object)
+    if skip_numbers:
+        plain = np.isfinite(pd.to_numeric(u, errors="coerce").to_numpy(dtype=float))
+        res = pd.Series(np.nan, index=u.index, dtype=object)
+        if (~plain).any():
+            res[~plain] = fn(u[~plain]).to_numpy(dtype=object)
+    else:
+        res = fn(u)
+    return pd.Series(res.to_numpy(dtype=object)[codes], index=text.index)
 
 
 def _blank_mask(col: pd.Series, kinds: pd.Series | None = None) -> pd.Series:
@@ -359,7 +391,9 @@ def _blank_mask(col: pd.Series, kinds: pd.Series | None = None) -> pd.Series:
     out = col.isna() | kinds.eq(BLANK)
     text = kinds.eq(TEXT)
     if text.any():
-        out[text] = col[text].astype(str).str.strip().eq("").to_numpy()
+        blank = on_uniques(col[text], lambda u: u.astype(str).str.strip().eq(""),
+                           skip_numbers=True)
+        out[text] = out[text].to_numpy() | blank.eq(True).to_numpy()
     return out
 
 
@@ -386,9 +420,13 @@ def _error_names(col: pd.Series, kinds: pd.Series) -> pd.Series:
     out = pd.Series(np.nan, index=col.index, dtype=object)
     text = kinds.eq(TEXT)
     if text.any():
-        t = col[text].astype(str).str.strip().str.upper()
-        hit = t.isin(ERROR_TEXTS) | t.str.fullmatch(r"ERR:\d+")
-        out[t.index[hit.to_numpy()]] = t[hit].str.replace("ERR:", "Err:", regex=False)
+        def names(u: pd.Series) -> pd.Series:
+            t = u.astype(str).str.strip().str.upper()
+            hit = t.isin(ERROR_TEXTS) | t.str.fullmatch(r"ERR:\d+")
+            return t.str.replace("ERR:", "Err:", regex=False).where(hit)
+        found = on_uniques(col[text], names, skip_numbers=True)
+        hit = found.notna().to_numpy()
+        out[found.index[hit]] = found[hit].to_numpy()
     num = kinds.eq(NUMBER)
     if num.any():
         vals = _numbers_of(col[num])
@@ -496,15 +534,22 @@ def parse_number_text(text: pd.Series) -> pd.Series:
     """Numbers as a user types them: '1,250', '$350,000', ' 12.5 ', '12.5%', '(1,200)',
     '-$5', '+5', 'TRUE'/'FALSE' (1/0). Returns floats, NaN where the text is not a
     number in one of these forms."""
-    t = text.astype(str).str.strip()
-    # Fast path: plain numbers ('1250', '12.5', '1e3'); anything odd goes through the rules.
-    fast = pd.to_numeric(t, errors="coerce").astype(float)
+    # Fast path, on the raw cells: plain numbers ('1250', ' 12.5 ', '1e3'); anything odd
+    # goes through the rules, once per distinct text.
+    fast = pd.to_numeric(text.to_numpy(dtype=object), errors="coerce")
+    fast = pd.Series(np.asarray(fast, dtype=float), index=text.index)
     done = np.isfinite(fast.to_numpy())
     if done.all():
         return fast
     out = fast.where(done)
-    rest = t[~done].str.replace("\u2212", "-", regex=False).str.replace("\u00a0", " ",
-                                                                         regex=False)
+    out[~done] = on_uniques(text[~done], _parse_formatted).to_numpy(dtype=float)
+    return out.astype(float)
+
+
+def _parse_formatted(text: pd.Series) -> pd.Series:
+    """The rules of :func:`parse_number_text` for text that is not a plain number."""
+    rest = (text.astype(str).str.strip().str.replace("\u2212", "-", regex=False)
+            .str.replace("\u00a0", " ", regex=False))
     paren = rest.str.fullmatch(r"\(.*\)").fillna(False).astype(bool)
     inner = rest.where(~paren, rest.str.slice(1, -1).str.strip())
     parts = inner.str.extract(_NUMBER_RE)
@@ -517,8 +562,7 @@ def parse_number_text(text: pd.Series) -> pd.Series:
     # '(-5)', '+-5' and '-$-5' are not something a user means.
     num = num.where(~((paren & (signs > 0)) | (signs > 1)))
     booleans = rest.str.upper().map({"TRUE": 1.0, "FALSE": 0.0}).astype(float)
-    out[~done] = num.fillna(booleans).to_numpy()
-    return out.astype(float)
+    return num.fillna(booleans).astype(float)
 
 
 def to_labels(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
@@ -529,7 +573,8 @@ def to_labels(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     labels = pd.Series(np.nan, index=col.index, dtype=object)
     text = present & kinds.eq(TEXT)
     if text.any():
-        labels[text] = col[text].astype(str).str.split().str.join(" ").to_numpy()
+        labels[text] = on_uniques(col[text], lambda u: u.astype(str).str.split().str.join(" ")
+                                  ).to_numpy()
     boo = present & kinds.eq(BOOL)
     if boo.any():
         labels[boo] = col[boo].astype(bool).map({True: "TRUE", False: "FALSE"}).to_numpy()
@@ -574,6 +619,9 @@ def to_dates(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     """Cells → datetime64[ns]: date cells, spreadsheet serial numbers, or ISO text."""
     if isinstance(col.dtype, pd.DatetimeTZDtype):
         col = col.dt.tz_localize(None)
+    if isinstance(col.dtype, np.dtype) and col.dtype.kind == "M":   # already dates
+        values = col.astype("datetime64[ns]")
+        return values, pd.Series("blank", index=col.index, dtype=object).where(values.isna())
     kinds = cell_kinds(col)
     reason, present = _missing_reasons(col, kinds)
     out = pd.Series(pd.NaT, index=col.index, dtype="datetime64[ns]")
@@ -582,13 +630,18 @@ def to_dates(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
         out[num] = _serial_dates(_numbers_of(col[num])).to_numpy()
     text = present & kinds.eq(TEXT)
     if text.any():
-        t = col[text].astype(str).str.strip()
-        serial = pd.to_numeric(t, errors="coerce")
-        is_serial = serial.notna().to_numpy()
-        if is_serial.any():
-            out[t.index[is_serial]] = _serial_dates(serial[is_serial]).to_numpy()
-        if (~is_serial).any():
-            out[t.index[~is_serial]] = _iso_dates(t[~is_serial]).to_numpy()
+        def text_dates(u: pd.Series) -> pd.Series:
+            t = u.astype(str).str.strip()
+            serial = pd.to_numeric(t, errors="coerce")
+            is_serial = serial.notna().to_numpy()
+            got = pd.Series(pd.NaT, index=t.index, dtype="datetime64[ns]")
+            if is_serial.any():
+                got[is_serial] = _serial_dates(serial[is_serial]).to_numpy()
+            if (~is_serial).any():
+                got[~is_serial] = _iso_dates(t[~is_serial]).to_numpy()
+            return got
+        out[text] = pd.to_datetime(on_uniques(col[text], text_dates)).to_numpy(
+            dtype="datetime64[ns]")
     dates = present & kinds.eq(DATE)
     if dates.any():
         out[dates] = _iso_dates(col[dates]).to_numpy()

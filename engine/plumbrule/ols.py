@@ -1,9 +1,11 @@
 """The least-squares core: centred and scaled Householder QR, rank, covariance, leverage.
 
 The fit is computed in *working coordinates*: each predictor column is centred
-(when there is an intercept) and scaled to unit length, then factored by a
-column-pivoted Householder QR (LAPACK ``geqp3``). Coefficients get one step of
-iterative refinement with the residual accumulated in extended precision.
+(when there is an intercept) and scaled to unit length, then factored by
+Householder QR (LAPACK ``geqrf``); the singular values of R reveal the rank.
+Coefficients get one step of iterative refinement of the augmented system,
+with the residual accumulated in extended precision whenever double precision
+could cost digits.
 Standard errors come from the inverse of the triangular factor, never from
 inverting X'X. All results are mapped back to the user's units at the end.
 """
@@ -16,7 +18,6 @@ import numpy as np
 
 from .errors import FitError, quote_list
 
-_CHOLESKY_QR_ROWS = 4096   # from this many rows, try Cholesky QR (see _qr)
 _CHUNK = 1 << 13  # rows per block for the extended-precision passes (fits in cache)
 
 
@@ -194,48 +195,17 @@ def _column_means(x: np.ndarray) -> np.ndarray:
 
 
 def _qr(xs: np.ndarray):
-    """QR of the (Fortran-ordered) working design, in place: Q takes xs's memory.
+    """Householder QR of the (Fortran-ordered) working design, in place: Q takes
+    xs's memory (LAPACK geqrf/orgqr; backward stable, Björck 1996 §2.4).
 
     Columns are centred and unit length, so no pivoting is needed for accuracy;
-    rank is judged from the singular values of R, sharper than pivoted diagonals.
-    A well-conditioned design (the usual one) is factored by Cholesky QR twice
-    (level-3 BLAS, several times faster than Householder for few columns, and
-    as accurate when κ² · n · k · ε ≤ 1/64 — Yamamoto, Nakatsukasa, Yanagisawa and
-    Fukaya 2015); any other by Householder QR (LAPACK geqrf/orgqr; backward stable,
-    Björck 1996 §2.4). Returns (Q, R, pivot) with the identity pivot.
+    rank is judged from the singular values of R (see :func:`_check_rank`),
+    which reveal it more sharply than pivoted diagonals. Returns (Q, R, pivot)
+    with the identity pivot.
     """
-    n, k = xs.shape
-    if k and n >= _CHOLESKY_QR_ROWS:      # small tables: Householder costs nothing
-        out = _cholesky_qr2(xs)
-        if out is not None:
-            return out
     from scipy.linalg import qr
     q, r = qr(xs, mode="economic", overwrite_a=True, check_finite=False)
-    return q, r, np.arange(k)
-
-
-def _cholesky_qr2(xs: np.ndarray):
-    """CholeskyQR2 in place, or None (xs untouched) when the design is too ill
-    conditioned for it to be as accurate as Householder."""
-    from scipy.linalg import blas
-    n, k = xs.shape
-    gram = _full_gram(blas.dsyrk(1.0, xs, trans=1))
-    eig = np.linalg.eigvalsh(gram)
-    if not eig[0] > 0 or (eig[-1] / eig[0]) * n * k * np.finfo(float).eps > 1.0 / 64:
-        return None
-    try:
-        r1 = np.linalg.cholesky(gram).T
-        q = blas.dtrsm(1.0, r1, xs, side=1, lower=0, overwrite_b=1)
-        r2 = np.linalg.cholesky(_full_gram(blas.dsyrk(1.0, q, trans=1))).T
-    except np.linalg.LinAlgError:   # pragma: no cover - excluded by the κ test above
-        return None
-    q = blas.dtrsm(1.0, r2, q, side=1, lower=0, overwrite_b=1)
-    return q, r2 @ r1, np.arange(k)
-
-
-def _full_gram(upper: np.ndarray) -> np.ndarray:
-    """Symmetric matrix from the upper triangle dsyrk fills."""
-    return np.triu(upper) + np.triu(upper, 1).T
+    return q, r, np.arange(xs.shape[1])
 
 
 def _singular_values(r: np.ndarray) -> np.ndarray:

@@ -26,7 +26,7 @@ from typing import Any, Callable, Hashable
 
 DEFAULT_MAX_ENTRIES = 16
 DEFAULT_MAX_BYTES = 512 * 2**20
-_SAMPLE_ROWS = 16           # rows mixed into the fingerprint (first, last and spread)
+_SAMPLE_ROWS = 8            # rows mixed into the fingerprint (first, last and spread)
 _CANDIDATES = 4             # entries compared for one fingerprint before giving up
 
 
@@ -71,18 +71,21 @@ def fingerprint(rows: list[list[Any]], extra: Hashable = ()) -> bytes:
     return h.digest()
 
 
-def type_guard(rows: list[list[Any]]) -> tuple:
+def type_guard(rows: list[list[Any]], loose: frozenset = frozenset()) -> tuple:
     """What :func:`same_cells` must check beyond ``==`` for this block.
 
     ``==`` treats TRUE, 1 and 1.0 alike; intake does not (a category 'TRUE' is
     not '1'). Only cells equal to 0 or 1 can hide such a swap, so the guard
-    keeps their positions and types: whole columns when they are common.
+    keeps their positions and types: whole columns when they are common. Columns in
+    ``loose`` (indices the result reads as numbers, where TRUE is 1) are left out.
     """
     width = set(map(len, rows))
     if len(width) != 1:                         # ragged block: keep every row's types
         return ("rows", [list(map(type, r)) for r in rows])
     columns, cells = [], []
     for j in range(width.pop()):
+        if j in loose:
+            continue
         col = list(map(itemgetter(j), rows))
         if set(map(type, col)) <= _NEVER_ZERO_OR_ONE:
             continue                            # text, blanks and dates only
@@ -126,6 +129,8 @@ def same_cells(rows: list[list[Any]], stored: list[list[Any]], guard: tuple) -> 
     if kind == "rows":
         return all(list(map(type, r)) == t for r, t in zip(rows, parts))
     columns, cells = parts
+    if list(map(type, rows[0])) != list(map(type, stored[0])):   # the header row, always
+        return False
     return (all(list(map(type, map(itemgetter(j), map(rows.__getitem__, hits)))) == t
                 for j, hits, t in cells)
             and all(list(map(type, map(itemgetter(j), rows))) == t for j, t in columns))
@@ -175,9 +180,9 @@ def approx_size(obj: Any, _depth: int = 0) -> int:
 class _Entry:
     __slots__ = ("key", "rows", "guard", "value", "error", "nbytes")
 
-    def __init__(self, key, rows, value, error, nbytes):
+    def __init__(self, key, rows, value, error, nbytes, loose=frozenset()):
         self.key, self.rows, self.value, self.error = key, rows, value, error
-        self.guard = type_guard(rows)
+        self.guard = type_guard(rows, loose)
         self.nbytes = nbytes
 
 
@@ -208,8 +213,12 @@ class SheetCache:
                               self._bytes, self.max_entries, self.max_bytes)
 
     def get_or_compute(self, values: Any, key: Hashable, compute: Callable[[list], Any],
-                       cache_errors: tuple[type[BaseException], ...] = ()) -> Any:
-        """``compute(rows)`` once per distinct (block, key); the cached result after."""
+                       cache_errors: tuple[type[BaseException], ...] = (),
+                       loose_columns: Callable[[Any, list], frozenset] | None = None) -> Any:
+        """``compute(rows)`` once per distinct (block, key); the cached result after.
+
+        ``loose_columns(result, rows)`` may name the column indices whose cells the result
+        reads as numbers (TRUE and 1 alike), which the type check then skips."""
         rows = as_rows(values, trust=True)
         fp = fingerprint(rows, key)
         with self._lock:
@@ -232,7 +241,9 @@ class SheetCache:
         except cache_errors as exc:
             value, error = None, exc
         nbytes = approx_size(stored) + (approx_size(value) if value is not None else 256)
-        self._store(fp, _Entry(key, stored, value, error, nbytes))
+        loose = (loose_columns(value, stored) if loose_columns and error is None
+                 else frozenset())
+        self._store(fp, _Entry(key, stored, value, error, nbytes, loose))
         if error is not None:
             raise error.with_traceback(None)
         return value

@@ -345,19 +345,44 @@ def _model_settings(s):
                         if f.name in REGISTRY and REGISTRY[f.name].group == "value"})
 
 
+_PARSED: dict = {}          # (response, predictors, settings cells) → (settings, model settings)
+
+
+def _parsed(response: Any, predictors: Any, settings: Any):
+    """resolve_settings and _model_settings, remembered for the small argument blocks."""
+    key = small_key((response, predictors, settings))
+    hit = _PARSED.get(key)
+    if hit is None:
+        s = resolve_settings(response, predictors, settings)
+        if len(_PARSED) >= 64:
+            _PARSED.pop(next(iter(_PARSED)))
+        hit = _PARSED[key] = (s, _model_settings(s))
+    return hit
+
+
 def fitted(sales: Any, response: Any, predictors: Any, settings: Any) -> tuple[_Fitted, Any]:
     """The analysis for these cells and arguments (one fit per distinct content)."""
     from .analysis import analyze
-    s = resolve_settings(response, predictors, settings)
-    m = _model_settings(s)
+    s, m = _parsed(response, predictors, settings)
     if _blank(sales) or not isinstance(sales, (list, tuple)):
         from .errors import IntakeError
         raise IntakeError("Argument 'sales': select the sales table including its header row, "
                           "e.g. Sales[#All].")
     holder = CACHE.get_or_compute(sales, ("analysis", m),
                                   lambda rows: _Fitted(analyze(rows, m)),
-                                  cache_errors=(PlumbError,))
+                                  cache_errors=(PlumbError,), loose_columns=_numeric_columns)
     return holder, s
+
+
+def _numeric_columns(holder: _Fitted, rows: list) -> frozenset:
+    """Block column indices the analysis reads only as numbers: intake reads TRUE as 1
+    there, so a TRUE/1 swap cannot change the result. Label and date columns, and
+    columns the analysis does not read, keep the strict type check."""
+    spec = holder.analysis.spec
+    labels = set(spec.categorical) | {spec.date_column, holder.analysis.settings.ratio_by}
+    numeric = set(spec.numeric_columns) - labels
+    return frozenset(j for j, h in enumerate(rows[0])
+                     if isinstance(h, str) and h.strip() in numeric)
 
 
 def model_cells(name: str, build: Callable, sales, response, predictors, settings) -> Cells:

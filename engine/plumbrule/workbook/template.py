@@ -66,11 +66,35 @@ READ_ME = [
 
 
 def build_template(path: str | Path) -> Path:
-    """Write the template workbook to ``path``; returns the path."""
-    book = template_book()
+    """Write the template workbook to ``path``; returns the path. The bytes depend only
+    on the code (fixed document times and zip entry dates), so rebuilding an unchanged
+    template leaves the committed file unchanged."""
+    import io
+    buf = io.BytesIO()
+    template_book().save(buf)
     path = Path(path)
-    book.save(path)
+    path.write_bytes(_deterministic(buf.getvalue()))
     return path
+
+
+def _deterministic(data: bytes) -> bytes:
+    import io
+    import re
+    import zipfile
+    stamp = _FIXED_TIME.strftime("%Y-%m-%dT%H:%M:%SZ").encode()
+    out = io.BytesIO()
+    with zipfile.ZipFile(io.BytesIO(data)) as zin, \
+            zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as zout:
+        for info in zin.infolist():
+            part = zin.read(info.filename)
+            if info.filename == "docProps/core.xml":   # openpyxl stamps 'modified' at save
+                part = re.sub(rb"(<dcterms:modified[^>]*>)[^<]*(</dcterms:modified>)",
+                              rb"\g<1>" + stamp + rb"\g<2>", part)
+            entry = zipfile.ZipInfo(info.filename, date_time=(1980, 1, 1, 0, 0, 0))
+            entry.compress_type = zipfile.ZIP_DEFLATED
+            entry.external_attr = info.external_attr
+            zout.writestr(entry, part)
+    return out.getvalue()
 
 
 def template_book():
