@@ -273,6 +273,9 @@ def test_arguments_override_the_settings_range(sales_cells):
     (RESPONSE, "Age", [["seed"]], r"^plumbrule: The settings range needs two columns"),
     (RESPONSE, "Age", [[None, 0.3]], r"^plumbrule: Settings range, line 1: the value '0.3' "
                                      r"has no setting name"),
+    (RESPONSE, "Age", [["#N/A", 0.3]], r"^plumbrule: Settings range, line 1: the name cell "
+                                       r"holds the error value #N/A"),
+    (RESPONSE, "Age", [["Log Respons", True]], r"^plumbrule: Setting 'Log Respons' is not one"),
 ])
 def test_bad_arguments_give_one_line_in_one_cell(sales_cells, response, predictors, settings,
                                                  expected):

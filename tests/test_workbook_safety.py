@@ -200,3 +200,27 @@ def test_a_failed_save_leaves_the_book_as_it_was(book, monkeypatch, capsys):
         raise OSError(28, "No space left on device")
     monkeypatch.setattr(graft, "graft", broken_graft)
     _refused(book, capsys, "No space left", "not changed")
+
+
+def test_missing_file(tmp_path, capsys):
+    assert main(["run", str(tmp_path / "nope.xlsx")]) == 2
+    assert "does not exist" in capsys.readouterr().err
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_a_book_saved_from_a_spreadsheet_during_the_run_is_kept(book, monkeypatch, capsys):
+    """If the user saves the book while plumbrule runs, their save wins; nothing written."""
+    import os
+    import plumbrule.workbook.graft as graft
+    real = graft.graft
+
+    def graft_while_user_saves(user, data, out, *args):
+        real(user, data, out, *args)
+        st = os.stat(user)
+        os.utime(user, ns=(st.st_atime_ns, st.st_mtime_ns + 5_000_000_000))
+    monkeypatch.setattr(graft, "graft", graft_while_user_saves)
+    original = book.read_bytes()
+    assert main(["run", str(book)]) == 2
+    assert "changed while plumbrule was running" in capsys.readouterr().err
+    assert book.read_bytes() == original
+    assert sorted(p.name for p in book.parent.iterdir()) == ["book.xlsx"]

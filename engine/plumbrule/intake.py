@@ -144,8 +144,10 @@ def _with_header(headers: list[Any], body: pd.DataFrame, header_row: int,
                  sheet: str | None, first_column: int = 1) -> SheetTable:
     body.index = pd.RangeIndex(header_row + 1, header_row + 1 + len(body), name="row")
     names = [_header_text(h) for h in headers]
+    blank_cells = _blank_frame(body) if len(body) else None
     # Columns with no header and no values are just an over-wide selection.
-    keep = [j for j, nm in enumerate(names) if nm or not _blank_mask(body[j]).all()]
+    keep = [j for j, nm in enumerate(names)
+            if nm or (blank_cells is not None and not blank_cells[j].all())]
     names = [names[j] for j in keep]
     body = body[keep]
     letter = [column_letter(first_column + j) for j in keep]
@@ -168,7 +170,7 @@ def _with_header(headers: list[Any], body: pd.DataFrame, header_row: int,
                           column=next(iter(dups)), row=header_row)
     body.columns = names
     if len(body):
-        filled = ~_blank_frame(body).all(axis=1).to_numpy()
+        filled = ~blank_cells[keep].all(axis=1).to_numpy()
         # Rows after the last filled one are an over-wide selection, not sales.
         last = int(np.flatnonzero(filled)[-1]) + 1 if filled.any() else 0
         body = body.iloc[:last]
@@ -305,7 +307,7 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     also = sub_bad.sum(axis=1) - 1
     text = np.where(also > 0, np.char.add(np.char.add(text, " (and "),
                                           np.char.add(also.astype(str), " more missing)")), text)
-    empty = _blank_frame(frame).all(axis=1).to_numpy()[any_bad]
+    empty = _blank_frame(frame[any_bad]).all(axis=1).to_numpy()
     text = np.where(empty, "empty row", text)
     cols = np.where(empty, "", cols)
     dropped = pd.DataFrame({"row": sub.index.to_numpy(dtype=np.int64),

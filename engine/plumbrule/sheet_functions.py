@@ -257,7 +257,7 @@ _HEADER_NAMES = {"setting", "settings", "name", "option"}
 def settings_arg(block: Any) -> dict[str, Any]:
     """A two-column range (setting name, value) → raw settings, checked for
     error values, names without values and names given twice."""
-    from .settings import normalise_name
+    from .settings import REGISTRY, normalise_name
     raw: dict[str, Any] = {}
     if isinstance(block, dict):                        # from Python: {name: value}
         block = [[k, v] for k, v in block.items()]
@@ -276,6 +276,9 @@ def settings_arg(block: Any) -> dict[str, Any]:
         if len(row) < 2:
             raise SettingError("The settings range needs two columns: setting name and value. "
                                "Select both columns.")
+        if _error_value(name):
+            raise SettingError(f"Settings range, line {i}: the name cell holds the error "
+                               f"value {_error_value(name)}. Enter a setting name.")
         key = normalise_name(name)
         if i == 1 and key in _HEADER_NAMES:
             continue                                   # a header row above the settings
@@ -286,7 +289,7 @@ def settings_arg(block: Any) -> dict[str, Any]:
         if key in raw:
             raise SettingError(f"Setting '{name}' appears twice in the settings range. "
                                "Keep one line for it.", setting=key)
-        raw[key] = value
+        raw[key if key in REGISTRY else str(name).strip()] = value   # unknown: as typed
     return raw
 
 

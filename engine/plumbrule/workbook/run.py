@@ -44,9 +44,11 @@ def run_book(path: str | Path, backup: bool | None = None,
     Raises :class:`WorkbookError` (or another PlumbError) with nothing written.
     """
     from .read import read_inputs
-    from .safety import check_not_open, inspect_book
+    from .safety import check_is_file, check_not_open, inspect_book
     path = Path(path)
     check_not_open(path)
+    check_is_file(path)
+    seen = _signature(path)
     parts = inspect_book(path)
     _check_names(parts)
     inputs = read_inputs(path)
@@ -64,8 +66,11 @@ def run_book(path: str | Path, backup: bool | None = None,
         from .graft import graft
         names = [n for n in RESULT_SHEETS if n in book.sheetnames]
         data = _to_bytes(book)
-        bak = write_atomic(target, lambda tmp: graft(path, data, tmp, parts.result_sheets, names),
-                           keep_bak)
+
+        def write(tmp):
+            graft(path, data, tmp, parts.result_sheets, names)
+            _still_the_same(path, seen)     # opened and saved meanwhile? keep theirs
+        bak = write_atomic(target, write, keep_bak)
     else:
         target = path.with_name(path.stem + ".results.xlsx")
         check_not_open(target)
@@ -73,6 +78,19 @@ def run_book(path: str | Path, backup: bool | None = None,
     return RunResult(written=target, in_place=in_place, unsupported=parts.unsupported,
                      backup=bak, headline=headline(analysis, valuation), analysis=analysis,
                      valuation=valuation)
+
+
+def _signature(path: Path) -> tuple[int, int]:
+    st = path.stat()
+    return st.st_mtime_ns, st.st_size
+
+
+def _still_the_same(path: Path, seen: tuple[int, int]) -> None:
+    from .safety import check_not_open
+    check_not_open(path)
+    if _signature(path) != seen:
+        raise WorkbookError(f"'{path.name}' changed while plumbrule was running (saved from "
+                            "a spreadsheet?). Nothing was written; run again.")
 
 
 def _to_bytes(book) -> bytes:

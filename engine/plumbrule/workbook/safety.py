@@ -263,12 +263,17 @@ def _inspect(z: zipfile.ZipFile, path: Path) -> BookParts:
     # Workbook-level extensions (x15 settings, LibreOffice's calc settings...) are kept:
     # xl/workbook.xml is edited textually, never re-serialised. Slicer and pivot caches
     # they point to are parts of their own and are caught below.
+    described: set[str] = set()          # parts already named through their sheet
     for name, part in sheets:
         if name in ours or part not in z.NameToInfo:
             continue
         found.extend(f"{what} (sheet '{name}')" for what in _sheet_losses(z, part))
+        for kind, target in _rels(z, part).values():
+            if kind == "drawing":
+                described.add(target)
+                _reachable(z, target, described)
     for name, ctype in types.items():
-        if name in owned or name == main or ctype in CARRIED:
+        if name in owned or name in described or name == main or ctype in CARRIED:
             continue
         if ctype in VBA_TYPES and macro:
             continue
