@@ -117,6 +117,26 @@ def test_text_in_a_numeric_predictor_hints_at_the_categorical_setting():
     assert "\n" not in str(err.value)
 
 
+def test_mistyped_number_in_a_predictor_keeps_the_exact_shape():
+    # 'approx 1200' in a column of numbers is a mistyped number, not a category: the message
+    # is exactly the one quoted in issue 2 §2, even for a predictor.
+    values = [["Sale price", "Living area"]] + [[100000 + 7 * i * i, 1000 + 10 * i]
+                                                for i in range(15)]
+    values.append([120000, "approx 1200"])          # sheet row 17
+    with pytest.raises(IntakeError, match=r"^Column 'Living area', row 17: 'approx 1200' is not "
+                                          r"a number\. Enter a number or leave the cell "
+                                          r"blank\.$"):
+        analyze(values, response="Sale price", predictors="Living area", folds=0)
+
+
+def test_a_column_of_coded_labels_gets_the_categorical_hint():
+    values = [["Price", "Area", "Zone"], [100, 10, "Zone 1"], [120, 12, "Zone 2"],
+              [130, 14, "Zone 1"], [150, 15, "Zone 3"]]
+    with pytest.raises(IntakeError, match=r"Column 'Zone', row 2: 'Zone 1' is not a number\..*"
+                                          r"list it under the 'categorical' setting"):
+        analyze(values, response="Price", predictors="Area,Zone", folds=0)
+
+
 def test_text_in_the_response_gets_no_categorical_hint():
     values = [["Price", "Area"], [100, 10], ["call agent", 12], [130, 14], [150, 15]]
     with pytest.raises(IntakeError, match=r"^Column 'Price', row 3: 'call agent' is not a "
@@ -289,6 +309,19 @@ def test_a_cell_that_is_not_a_date_is_named(cell, shown):
     with pytest.raises(IntakeError, match=rf"^Column 'Sale date', row 3: {shown} is not a date\. "
                        r"Enter a date cell or text as YYYY-MM-DD\.$"):
         clean(t, date="Sale date")
+
+
+def test_a_date_beyond_what_can_be_held_is_named():
+    t = table_from_values([["Sold"], [dt.date(2024, 1, 1)], [dt.date(2993, 11, 19)]])
+    with pytest.raises(IntakeError, match=r"^Column 'Sold', row 3: a date \(2993-11-19\) is "
+                                          r"outside the dates plumbrule can use \(1677-09-22 to "
+                                          r"2262-04-11\)\. Correct the date\.$"):
+        clean(t, date="Sold")
+
+
+def test_invisible_characters_are_shown_escaped():
+    with pytest.raises(IntakeError, match=r"row 2: '\\u200b' is not a number"):
+        clean(table_from_values([["A"], ["\u200b"]]), numeric=["A"])
 
 
 def test_blank_and_error_dates_are_dropped_and_logged():

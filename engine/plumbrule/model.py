@@ -65,6 +65,17 @@ class FittedModel:
         return self.fit.se
 
 
+    def predict(self, x: np.ndarray) -> np.ndarray:
+        """x'b on the model scale (log price for log models) for design rows ``x``,
+        formed around the column means so nothing cancels against a large intercept."""
+        fit = self.fit
+        if not fit.has_intercept:
+            return np.atleast_2d(x) @ fit.coef
+        b = fit.coef[1:]
+        centre = fit.coef[0] + fit.x_means @ b
+        return centre + (np.atleast_2d(x) - fit.x_means) @ b
+
+
 def fit_model(spec: ModelSpec, data: pd.DataFrame, robust_se: str | None = None,
               confidence: float = 0.95) -> FittedModel:
     """Encode ``data`` by ``spec``, fit by least squares, return the model."""

@@ -115,11 +115,7 @@ def unseen_level_rows(training: pd.DataFrame, holdout: pd.DataFrame,
 
 def predict(model, data: pd.DataFrame, label: str = "holdout row") -> np.ndarray:
     """Model-scale predictions (log price for log models) for clean rows ``data``."""
-    x = model.encoding.design(data, label)
-    coef = model.fit.coef
-    if model.fit.has_intercept:
-        return coef[0] + x @ coef[1:]
-    return x @ coef
+    return model.predict(model.encoding.design(data, label))
 
 
 def retransform_factor(resid: np.ndarray, method: str = "smearing",

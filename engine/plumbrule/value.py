@@ -207,15 +207,6 @@ def mean_variance(model, v: np.ndarray) -> np.ndarray:
     return model.fit.sigma ** 2 * np.einsum("ij,ij->i", v, v)
 
 
-def predict(model, x: np.ndarray) -> np.ndarray:
-    """x'b on the model scale, formed around the column means (no cancellation
-    against a large intercept)."""
-    fit = model.fit
-    b = fit.coef[int(fit.has_intercept):]
-    centre = fit.coef[0] + fit.x_means @ b if fit.has_intercept else 0.0
-    return centre + (np.atleast_2d(x) - fit.x_means) @ b
-
-
 def retransform_factor(model, kind: str) -> float:
     """Log models: the factor taking exp(x'b) (a median) to a mean estimate.
     smearing: mean of exp(residuals) (Duan 1983); lognormal: exp(s²/2); median: 1."""
@@ -232,7 +223,7 @@ def estimate_table(model, subj: Subjects, settings: Settings, when: _dt.date) ->
     from scipy.stats import t as tdist
     fit = model.fit
     v = working_vectors(fit, subj.x)
-    eta = predict(model, subj.x)
+    eta = model.predict(subj.x)
     var_mean = mean_variance(model, v)
     se_m = np.sqrt(var_mean)
     se_s = np.sqrt(var_mean + fit.sigma ** 2)
