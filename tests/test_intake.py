@@ -443,5 +443,24 @@ def test_xlsx_first_sheet_by_default_and_missing_sheets(workbook):
         read_table(workbook, sheet="Empty")
 
 
+def test_xlsx_error_cells_are_logged_as_error_values(tmp_path):
+    # The fast reader hands over error cells as blanks; the log must still say which error.
+    import openpyxl
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.append(["Price", "Area"])
+    ws.append([100000, 1000])
+    ws.append([110000, 1100])
+    cell = ws.cell(3, 2)
+    cell.value, cell.data_type = "#DIV/0!", "e"     # an error cell, as a spreadsheet saves it
+    ws.append([None, 1200])
+    path = tmp_path / "errors.xlsx"
+    wb.save(path)
+    cd = clean(read_table(path), numeric=["Price", "Area"])
+    assert cd.dropped.to_dict("records") == [
+        {"row": 3, "column": "Area", "reason": "error value #DIV/0!"},
+        {"row": 4, "column": "Price", "reason": "blank"}]
+
+
 def test_every_intake_error_is_a_plumb_error():
     assert issubclass(IntakeError, PlumbError) and issubclass(IntakeError, ValueError)

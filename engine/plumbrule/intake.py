@@ -261,8 +261,55 @@ def read_sheet(path: str | Path, sheet: str | None = None) -> SheetTable:
     if not values:
         raise IntakeError(f"Sheet '{sheet}' of '{Path(path).name}' is empty. Put the sales "
                           "there with a header row, or name another sheet.", sheet=sheet)
+    if Path(path).suffix.lower() in (".xlsx", ".xlsm"):
+        _restore_error_cells(values, _xlsx_error_cells(path, sheet), start)
     return table_from_values(values, header_row=start[0] + 1, sheet=sheet,
                              first_column=start[1] + 1)
+
+
+def _restore_error_cells(values: list, errors: list, start) -> None:
+    """Put error values back where calamine handed over blanks, so the dropped-row log
+    says '#N/A' rather than 'blank'."""
+    for row, col, text in errors:
+        i, j = row - 1 - start[0], col - 1 - start[1]
+        if 0 <= i < len(values) and 0 <= j < len(values[i]) and _blank_scalar(values[i][j]):
+            values[i][j] = text
+
+
+def _xlsx_error_cells(path, sheet: str) -> list[tuple[int, int, str]]:
+    """(sheet row, column number, error text) of each error cell of ``sheet``, read from
+    the workbook's XML; [] when there are none or the parts cannot be found."""
+    import re
+    import zipfile
+    from defusedxml import ElementTree
+    try:
+        with zipfile.ZipFile(path) as z:
+            ns = {"m": "http://schemas.openxmlformats.org/spreadsheetml/2006/main",
+                  "r": "http://schemas.openxmlformats.org/officeDocument/2006/relationships"}
+            book = ElementTree.fromstring(z.read("xl/workbook.xml"))
+            rid = next((el.get(f"{{{ns['r']}}}id") for el in book.iterfind("m:sheets/m:sheet", ns)
+                        if el.get("name") == sheet), None)
+            rels = ElementTree.fromstring(z.read("xl/_rels/workbook.xml.rels"))
+            target = next((el.get("Target") for el in rels if el.get("Id") == rid), None)
+            if target is None:
+                return []
+            part = target.lstrip("/") if target.startswith("/") else "xl/" + target
+            xml = z.read(part).decode("utf-8", errors="replace")
+    except Exception:   # the values are still read; only the reason text is less precise
+        return []
+    if 't="e"' not in xml:
+        return []
+    out = []
+    for attrs, body in re.findall(r'<c\b([^>]*\bt="e"[^>]*)>(.*?)</c>', xml, flags=re.S):
+        ref = re.search(r'\br="([A-Z]+)(\d+)"', attrs)
+        val = re.search(r"<v>([^<]*)</v>", body)
+        if ref and val:
+            letters, row = ref.groups()
+            col = 0
+            for ch in letters:
+                col = col * 26 + ord(ch) - 64
+            out.append((int(row), col, val.group(1)))
+    return out
 
 
 # --- cleaning the used columns -----------------------------------------------

@@ -128,7 +128,8 @@ def _fit_block(result) -> list[str]:
     else:
         spread = f"{_num(sigma)}: a typical sale lies within about this amount of the model"
     rows = [
-        ("R²", f"{fit['r_squared']:.4f}   (adjusted {fit['adj_r_squared']:.4f})"),
+        ("R²", f"{fit['r_squared']:.4f}   (adjusted {fit['adj_r_squared']:.4f})"
+         + ("" if result.encoding.spec.intercept else "; no intercept, so measured from zero")),
         ("F statistic", f"{_num(fit['f_stat'])}   (p {_p(fit['f_p_value'])})"),
         ("residual std error", spread),
         ("mean absolute % error", f"{fit['mape']:.2f} % of the sale price"
