@@ -12,3 +12,11 @@ sys.path.insert(0, str(ROOT / "engine"))
 def demo_frame():
     from plumbrule.demo_data import demo_sales
     return demo_sales()
+
+
+def _foreign_labels():
+    lines = (ROOT / "tests" / "reference" / "foreign_labels.txt").read_text(encoding="utf-8")
+    return tuple(l.strip() for l in lines.splitlines() if l.strip() and not l.startswith("#"))
+
+
+FOREIGN_LABELS = _foreign_labels()

@@ -27,11 +27,7 @@ from plumbrule.workbook.stamp import make_stamp
 
 SETTINGS = {**DEMO_SETTINGS, "valuation_date": "2026-01-15", "trim_percentiles": "1,99",
             "holdout": 0.3}
-# Labels of other programs' printed output that our report must not carry (brief; labels.md).
-FOREIGN = ("Summary output", "Regression statistics", "Multiple R", "R Square", "Observations",
-           "Significance F", "t Stat", "Lower 95%", "Upper 95%", "Residual output",
-           "Probability output", "Dep. Variable", "Df Residuals", "Prob (F-statistic)",
-           "Cond. No.")
+from conftest import FOREIGN_LABELS as FOREIGN  # tests/reference/foreign_labels.txt
 
 
 def _write(analysis, valuation):
@@ -116,10 +112,10 @@ def test_check_statistics_show_three_significant_digits(demo):
     checks = analysis.tables["checks"]
     for _, c in checks.iterrows():
         cell = _find(ws, c["check"])
-        stat = cell.offset(0, 2)
+        shown = cell.offset(0, 2)
         if np.isfinite(c["statistic"]):
-            assert stat.value == c["statistic"]
-            assert stat.number_format == sig3(c["statistic"])
+            assert shown.value == c["statistic"]
+            assert shown.number_format == sig3(c["statistic"])
         assert cell.offset(0, 1).value == c["verdict"]
         assert cell.offset(0, 6).value == c["note"]
     # sig3 shows 3 significant digits: 1.39 → '0.00', 14.6 → '0.0', 0.0716 → '0.0000'

@@ -231,7 +231,8 @@ def read_csv(path: str | Path) -> SheetTable:
 
 def read_sheet(path: str | Path, sheet: str | None = None) -> SheetTable:
     """One worksheet through python-calamine (fast); the first non-empty row is the header.
-    Note: calamine hands over error cells as blanks, so they are logged as 'blank'."""
+    Calamine hands over error cells as blanks; for .xlsx/.xlsm their error text is put
+    back from the sheet's XML (for .xls/.ods they are logged as 'blank')."""
     from python_calamine import CalamineWorkbook
     try:
         book = CalamineWorkbook.from_path(str(path))

@@ -46,4 +46,13 @@ def analysis_json(result, extra: Mapping[str, Any] | None = None) -> str:
         recs = frame_records(table)
         out[name] = recs[0] if name == "fit" and recs else recs
     out.update(jsonable(dict(extra or {})))
-    return json.dumps(out, allow_nan=False, ensure_ascii=False)
+    return json.dumps(out, allow_nan=False, ensure_ascii=False, default=_fallback)
+
+
+def _fallback(value: Any) -> Any:
+    """Anything json cannot write natively (numpy dates, Decimal ...) as its plain form."""
+    if isinstance(value, np.datetime64):
+        return None if np.isnat(value) else pd.Timestamp(value).isoformat()
+    if isinstance(value, np.ndarray):
+        return [jsonable(v) for v in value.tolist()]
+    return str(value)
