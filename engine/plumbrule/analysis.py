@@ -119,7 +119,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
 
     screen_log = pd.concat([lg for lg in (fit_log, ratio_log) if len(lg)]
                            or [screen.empty_log()], ignore_index=True)
-    after = pd.concat([train, hold]).sort_index()
+    after = pd.concat([train, hold]).sort_index() if len(hold) else train
     checks = run_checks(model) + screen.screening_checks(fit_log, looked,
                                                          settings.max_excluded_share)
     if len(moved):
@@ -150,8 +150,11 @@ def _screen_and_split(data: pd.DataFrame, spec: ModelSpec, settings: Settings,
     split = validate.split_rows(data, settings, spec.date_column)
     screened = screen.data_rules(data, columns, settings, table.frame.index)
     kept = screened.kept
-    train = kept.loc[kept.index.isin(split.training)]
-    hold = kept.loc[kept.index.isin(split.holdout)]
+    if len(split.holdout):
+        train = kept.loc[kept.index.isin(split.training)]
+        hold = kept.loc[kept.index.isin(split.holdout)]
+    else:   # no holdout: every kept row trains (no copy of the whole table)
+        train, hold = kept, kept.iloc[:0]
     train, hold, moved = _move_unseen(train, hold, spec)
     logs, looked = [screened.log], list(screened.looked_at)
     _enough(train, hold, screened.log)

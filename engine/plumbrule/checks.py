@@ -11,6 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .model import FittedModel
+from .vectors import dot
 
 OK, WATCH, FAILS, NA = "ok", "watch", "fails", "n/a"
 CHECK_COLUMNS = ["check", "statistic", "p_value", "threshold", "verdict", "note"]
@@ -89,7 +90,7 @@ def kurtosis(model: FittedModel) -> Check:
 
 def durbin_watson_stat(e: np.ndarray) -> float:
     """Σ(eₜ − eₜ₋₁)² / Σeₜ² (Durbin and Watson 1950)."""
-    return float(np.sum(np.diff(e) ** 2) / np.dot(e, e))
+    return float(np.sum(np.diff(e) ** 2) / dot(e, e))
 
 
 def _dw_check(name: str, dw: float, order: str) -> Check:
@@ -123,7 +124,7 @@ def durbin_watson_date(model: FittedModel) -> Check:
 def _projected_r2(model: FittedModel, target: np.ndarray) -> float:
     """R² of target regressed on the model's design (with a constant), using the stored Q."""
     t = target - target.mean()
-    tss = float(np.dot(t, t))
+    tss = dot(t, t)
     if tss == 0:
         return 0.0
     coef = model.fit.q.T @ t
@@ -154,18 +155,20 @@ def white_special(model: FittedModel) -> Check:
     w -= w.mean()
     t = model.fit.resid * model.fit.resid
     t -= t.mean()
-    tss = float(np.dot(t, t))
+    tss = dot(t, t)
     # R² of t on [1, z, w] from the 2 × 2 normal equations of the centred columns,
-    # scaled to unit length (vectors only: no n × 2 copies on large tables).
+    # scaled to unit length (vectors only: no n × 2 copies on large tables; each
+    # of the five products over n rows formed once).
     cols = (z, w)
-    norms = np.sqrt([np.dot(c, c) for c in cols])
+    prods = {(0, 0): dot(z, z), (0, 1): dot(z, w), (1, 1): dot(w, w)}
+    prods[1, 0] = prods[0, 1]
+    norms = np.sqrt([prods[0, 0], prods[1, 1]])
     keep = [i for i in range(2) if norms[i] > 0]
     if not keep or not tss:
         r2 = 0.0
     else:
-        gram = np.array([[np.dot(cols[i], cols[j]) / (norms[i] * norms[j]) for j in keep]
-                         for i in keep])
-        zt = np.array([np.dot(cols[i], t) / norms[i] for i in keep])
+        gram = np.array([[prods[i, j] / (norms[i] * norms[j]) for j in keep] for i in keep])
+        zt = np.array([dot(cols[i], t) / norms[i] for i in keep])
         coef, *_ = np.linalg.lstsq(gram, zt, rcond=1e-10)
         r2 = float(np.dot(zt, coef)) / tss
     lm = model.fit.n * r2
@@ -177,7 +180,7 @@ def white_special(model: FittedModel) -> Check:
 def _standardized(v: np.ndarray) -> np.ndarray:
     """(v − mean)/sd, so powers of fitted prices stay in a safe range."""
     d = v - v.mean()
-    sd = float(np.sqrt(np.dot(d, d) / len(d)))
+    sd = float(np.sqrt(dot(d, d) / len(d)))
     return d / sd if sd > 0 else d
 
 
@@ -197,7 +200,7 @@ def _aux_r2(target: np.ndarray, z: np.ndarray) -> float:
     small normal equations are well conditioned unless z's columns nearly repeat
     each other; lstsq on them then cuts the repeated direction (rcond 1e-10)."""
     t = target - target.mean()
-    tss = float(np.dot(t, t))
+    tss = dot(t, t)
     zc = z - z.mean(axis=0)
     norms = np.sqrt(np.einsum("ij,ij->j", zc, zc))
     keep = norms > 0
@@ -314,13 +317,17 @@ def ramsey_reset(model: FittedModel) -> Check:
     if df2 < 1:
         return not_applicable(name, "Needs at least two more sales than parameters.", "p < 0.05")
     z = _standardized(fit.fitted)
-    extra = np.empty((fit.n, 2), order="F")
+    # [ŷ², ŷ³, e] side by side, so one product with Q and one Gram matrix serve
+    # the test (each a single pass over the n rows)
+    extra = np.empty((fit.n, 3), order="F")
     np.multiply(z, z, out=extra[:, 0])
     np.multiply(extra[:, 0], z, out=extra[:, 1])
+    extra[:, 2] = fit.resid
     del z
-    raw = np.einsum("ij,ij->j", extra, extra)      # size before centring: the yardstick
+    powers = extra[:, :2]
+    raw = np.einsum("ij,ij->j", powers, powers)    # size before centring: the yardstick
     if fit.has_intercept:
-        extra -= extra.mean(axis=0)
+        powers -= powers.mean(axis=0)
     gain, df1 = _reset_gain(fit, extra, raw)
     if df1 == 0:
         return not_applicable(name, "The fitted values take too few distinct values for "
@@ -336,8 +343,9 @@ def ramsey_reset(model: FittedModel) -> Check:
                  "no neglected nonlinearity")
 
 
-def _reset_gain(fit, w: np.ndarray, raw: np.ndarray) -> tuple[float, int]:
-    """(‖projection of e on the part of w orthogonal to the design‖², its df).
+def _reset_gain(fit, we_cols: np.ndarray, raw: np.ndarray) -> tuple[float, int]:
+    """(‖projection of e on the part of w orthogonal to the design‖², its df);
+    ``we_cols`` is [w, e] (n × 3, w the two centred powers of ŷ).
 
     One pass: from Qᵀ[w, e] and wᵀ[w, e] the orthogonal part's normal equations
     are wᵀw − (Qᵀw)ᵀ(Qᵀw) and wᵀe − (Qᵀw)ᵀQᵀe. When w lies almost inside the
@@ -346,9 +354,10 @@ def _reset_gain(fit, w: np.ndarray, raw: np.ndarray) -> tuple[float, int]:
     with nothing but rounding left (relative to ``raw``, its size before centring)
     is dropped from the test.
     """
-    e = fit.resid
-    qw, qe = fit.q.T @ w, fit.q.T @ e       # k × 2 and k: no n-row temporaries
-    gram, we = w.T @ w, w.T @ e
+    e, w = fit.resid, we_cols[:, :2]
+    qm, mm = fit.q.T @ we_cols, we_cols.T @ we_cols     # k × 3 and 3 × 3: no n-row temporaries
+    qw, qe = qm[:, :2], qm[:, 2]
+    gram, we = mm[:2, :2], mm[:2, 2]
     before = np.diag(gram).copy()
     g_perp = gram - qw.T @ qw
     rhs = we - qw.T @ qe

@@ -17,6 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import FitError, quote_list
+from .vectors import dot
 
 _CHUNK = 1 << 13  # rows per block for the extended-precision passes (fits in cache)
 
@@ -149,7 +150,7 @@ def fit_ols(x: np.ndarray, y: np.ndarray, names: list[str],
     y_mean = float(np.mean(y)) if intercept else 0.0
     yc = y - y_mean if intercept else y
     qty = q.T @ yc
-    tss = float(np.dot(yc, yc))
+    tss = dot(yc, yc)
     del yc
     theta = _solve_r(r, qty)                          # working coefficients (pivoted)
     b = np.empty(k)
@@ -169,7 +170,7 @@ def fit_ols(x: np.ndarray, y: np.ndarray, names: list[str],
     coef = np.concatenate([[b0], b]) if intercept else b
 
     df_resid = n - n_params
-    ssr = float(np.dot(resid, resid))
+    ssr = dot(resid, resid)
     sigma = float(np.sqrt(ssr / df_resid))
     rinv = _rinv_unpivoted(r, piv)
     lmat = _coef_map(r, piv, means, norms, n, intercept, rinv)
@@ -332,9 +333,9 @@ def _refine_double(x, y, means, norms, q, r, piv, b, c, intercept, cond):
     np.subtract(y, res, out=res)
     res -= c_shift
     col_norms = np.sqrt(norms ** 2 + n * means ** 2) if intercept else norms
-    bound = np.finfo(float).eps * (np.sqrt(np.dot(y, y)) + np.sqrt(n) * abs(c_shift)
+    bound = np.finfo(float).eps * (np.sqrt(dot(y, y)) + np.sqrt(n) * abs(c_shift)
                                    + float(np.dot(col_norms, np.abs(b))))
-    rnorm = float(np.sqrt(np.dot(res, res)))
+    rnorm = float(np.sqrt(dot(res, res)))
     if not np.isfinite(cond) or cond * bound > _DOUBLE_OK * rnorm:
         return None
     shift = float(np.mean(res)) if intercept else 0.0

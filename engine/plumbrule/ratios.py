@@ -15,6 +15,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from .quantiles import median_sorted
+from .vectors import dot
+
 OK, WATCH, FAILS, TOO_FEW = "ok", "watch", "fails", "too few sales"
 COD_TARGETS = {"residential": 15.0, "newer-residential": 10.0, "other": 20.0}
 ESTIMATE_COLUMNS = ["row", "sale_price", "estimate", "ratio", "stratum", "in_study"]
@@ -95,7 +98,10 @@ def median_rank(n: int, level: float) -> tuple[int, float]:
 
 def median_interval(ratios: np.ndarray, level: float = 0.95) -> tuple[float, float, float]:
     """(low, high, coverage) of the order-statistic interval for the median ratio."""
-    r = np.sort(np.asarray(ratios, dtype=float))
+    return _interval_sorted(np.sort(np.asarray(ratios, dtype=float)), level)
+
+
+def _interval_sorted(r: np.ndarray, level: float) -> tuple[float, float, float]:
     j, coverage = median_rank(len(r), level)
     if j == 0:
         return float("nan"), float("nan"), float("nan")
@@ -114,17 +120,28 @@ def prb(estimate: np.ndarray, price: np.ndarray, level: float = 0.95,
     est, price = np.asarray(estimate, float), np.asarray(price, float)
     r = est / price
     med = float(np.median(r)) if median is None else median
-    y = (r - med) / med
-    x = np.log(0.5 * price + 0.5 * est / med) / np.log(2.0)
+    # Formed in place (same operations, same order, so the same numbers): the
+    # study runs on every sale in-sample, where each n-row temporary counts.
+    y = r
+    y -= med
+    y /= med                                          # (r − med)/med
+    x = 0.5 * est
+    x /= med
+    x += 0.5 * price
+    np.log(x, out=x)
+    x /= np.log(2.0)                                  # log₂(½·price + ½·est/med)
     n = len(x)
+    size = dot(x, x)
     # One predictor: the centred two-pass formulas are the QR solution (R = ‖x − x̄‖).
-    xc, yc = x - x.mean(), y - y.mean()
-    sxx = float(np.dot(xc, xc))
-    if n < 3 or not sxx > 1e-24 * max(float(np.dot(x, x)), 1e-300):
+    x -= x.mean()
+    y -= y.mean()
+    sxx = dot(x, x)
+    if n < 3 or not sxx > 1e-24 * max(size, 1e-300):
         return float("nan"), float("nan"), float("nan")
-    slope = float(np.dot(xc, yc)) / sxx
-    e = yc - slope * xc
-    se = float(np.sqrt(np.dot(e, e) / (n - 2) / sxx))
+    slope = dot(x, y) / sxx
+    x *= slope
+    y -= x                                            # the residuals
+    se = float(np.sqrt(dot(y, y) / (n - 2) / sxx))
     q = float(tdist.ppf(0.5 + level / 2.0, n - 2))
     return slope, slope - q * se, slope + q * se
 
@@ -157,13 +174,15 @@ def estimates_table(rows, price, estimate, stratum=None) -> pd.DataFrame:
     price, estimate = np.asarray(price, float), np.asarray(estimate, float)
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = estimate / price
+    # copy=False: the columns are fresh arrays or the caller's (pandas copy-on-write
+    # keeps those safe), so a million-sale table costs no second copy
     return pd.DataFrame({"row": np.asarray(rows, dtype=np.int64), "sale_price": price,
                          "estimate": estimate, "ratio": ratio,
                          "stratum": None if stratum is None else np.asarray(stratum, object),
                          # a ratio needs a positive price and estimate (a linear model can
                          # estimate below zero); such rows stay listed, out of the study
-                         "in_study": np.isfinite(ratio) & (price > 0) & (estimate > 0)}
-                        )[ESTIMATE_COLUMNS]
+                         "in_study": np.isfinite(ratio) & (price > 0) & (estimate > 0)},
+                        columns=ESTIMATE_COLUMNS, copy=False)
 
 
 def measures(estimate: np.ndarray, price: np.ndarray, level: float = 0.95) -> dict:
@@ -172,14 +191,16 @@ def measures(estimate: np.ndarray, price: np.ndarray, level: float = 0.95) -> di
     n = len(r)
     if n == 0:
         return {"n": 0, **{k: np.nan for k in STUDY_COLUMNS[3:15]}}
-    lo, hi, coverage = median_interval(r, level)
-    med = float(np.median(r))
+    s = np.sort(r)                  # one sort gives the median and its interval
+    med = median_sorted(s)
+    lo, hi, coverage = _interval_sorted(s, level)
+    del s
     slope, slo, shi = prb(estimate, price, level, med)
+    mean, wmr = float(r.mean()), weighted_mean_ratio(estimate, price)
     return {"n": n, "median_ratio": med, "median_ci_low": lo,
-            "median_ci_high": hi, "median_ci_coverage": coverage, "mean_ratio": float(r.mean()),
-            "weighted_mean_ratio": weighted_mean_ratio(estimate, price), "cod": cod(r, med),
-            "cov": cov(r), "prd": prd(estimate, price), "prb": slope, "prb_ci_low": slo,
-            "prb_ci_high": shi}
+            "median_ci_high": hi, "median_ci_coverage": coverage, "mean_ratio": mean,
+            "weighted_mean_ratio": wmr, "cod": cod(r, med), "cov": cov(r),
+            "prd": mean / wmr, "prb": slope, "prb_ci_low": slo, "prb_ci_high": shi}
 
 
 def verdicts(m: dict, t: RatioTargets) -> dict:
@@ -223,14 +244,18 @@ def ratio_study(estimates: pd.DataFrame, sample: str = "holdout",
     out. ``sample`` says what the estimates are (holdout, cross-validated, in-sample).
     """
     targets = targets or RatioTargets()
-    use = estimates[estimates["in_study"]]
-    groups = [("all", use)]
+    # numpy columns of the sales in the study: no copy of the whole table
+    keep = estimates["in_study"].to_numpy(bool)
+    est = estimates["estimate"].to_numpy(float)[keep]
+    price = estimates["sale_price"].to_numpy(float)[keep]
+    groups = [("all", slice(None))]
     if by is not None:
-        values = use["stratum"]
-        groups += [(f"{by}: {_label(lv)}", use[values == lv]) for lv in sorted(values.unique())]
+        values = estimates["stratum"][keep]
+        groups += [(f"{by}: {_label(lv)}", (values == lv).to_numpy())
+                   for lv in sorted(values.unique())]
     recs = []
     for name, g in groups:
-        m = measures(g["estimate"].to_numpy(float), g["sale_price"].to_numpy(float), level)
+        m = measures(est[g], price[g], level)
         recs.append({"sample": sample, "stratum": name, **m, **verdicts(m, targets)})
     return pd.DataFrame(recs).reindex(columns=STUDY_COLUMNS)
 

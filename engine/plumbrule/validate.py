@@ -24,6 +24,7 @@ import pandas as pd
 
 from .errors import SettingError
 from .settings import Settings
+from .vectors import dot
 
 DEFAULT_HOLDOUT = 0.30
 VALIDATION_COLUMNS = ["set", "n", "r_squared", "rmse", "mae", "mape", "r_squared_model",
@@ -130,7 +131,7 @@ def retransform_factor(resid: np.ndarray, method: str = "smearing",
         return 1.0
     if method == "lognormal":
         df = len(resid) if df_resid is None else df_resid
-        return float(np.exp(0.5 * np.dot(resid, resid) / df))
+        return float(np.exp(0.5 * dot(resid, resid) / df))
     return float(np.mean(np.exp(resid)))
 
 
@@ -160,18 +161,22 @@ def error_figures(price: np.ndarray, estimate: np.ndarray, y: np.ndarray,
         return {"n": 0, "r_squared": np.nan, "rmse": np.nan, "mae": np.nan, "mape": np.nan,
                 "r_squared_model": np.nan, "rmse_model": np.nan}
     e = price - estimate
-    em = y - pred
     with np.errstate(divide="ignore", invalid="ignore"):
         ape = np.abs(e / price)
-    return {"n": n, "r_squared": _r2(price, e), "rmse": float(np.sqrt(np.mean(e ** 2))),
-            "mae": float(np.mean(np.abs(e))),
+    r2, rmse = _r2(price, e), float(np.sqrt(np.mean(e ** 2)))
+    if y is price and pred is estimate:   # a price-scale model: the same figures, computed once
+        r2_model, rmse_model = r2, rmse
+    else:
+        em = y - pred
+        r2_model, rmse_model = _r2(y, em), float(np.sqrt(np.mean(em ** 2)))
+    return {"n": n, "r_squared": r2, "rmse": rmse, "mae": float(np.mean(np.abs(e))),
             "mape": 100.0 * float(np.mean(ape)) if np.all(np.isfinite(ape)) else np.nan,
-            "r_squared_model": _r2(y, em), "rmse_model": float(np.sqrt(np.mean(em ** 2)))}
+            "r_squared_model": r2_model, "rmse_model": rmse_model}
 
 
 def _r2(y: np.ndarray, e: np.ndarray) -> float:
     tss = float(np.sum((y - y.mean()) ** 2))
-    return 1.0 - float(np.dot(e, e)) / tss if tss > 0 else np.nan
+    return 1.0 - dot(e, e) / tss if tss > 0 else np.nan
 
 
 # --- k-fold --------------------------------------------------------------------------
@@ -250,7 +255,7 @@ def _factor_excluding(e: np.ndarray, n_zeroed: int, method: str, df: int) -> flo
     if method == "median":
         return 1.0
     if method == "lognormal":
-        return float(np.exp(0.5 * np.dot(e, e) / df))
+        return float(np.exp(0.5 * dot(e, e) / df))
     m = len(e) - n_zeroed
     return float((np.sum(np.exp(e)) - n_zeroed) / m)
 
@@ -271,7 +276,7 @@ def _working_design(model, order: np.ndarray) -> np.ndarray:
         col = x[order, j]
         if icpt:
             col -= col.mean()
-        norm = np.sqrt(np.dot(col, col))
+        norm = np.sqrt(dot(col, col))
         zy[:, icpt + j] = col / norm if norm > 0 else col
     zy[:, -1] = model.y[order]
     return zy
@@ -312,7 +317,8 @@ def validation_table(model, retransform: str, holdout: pd.DataFrame | None = Non
     price = model.data[spec.response].to_numpy(float)
     fitted = model.fit.fitted
     est = price_estimates(fitted, spec.log_response, model_factor(model, retransform))
-    recs = [{"set": "training", **error_figures(price, est, model.y, fitted),
+    y = model.y if spec.log_response else price        # equal arrays on the price scale
+    recs = [{"set": "training", **error_figures(price, est, y, fitted),
              "note": "in-sample: the rows the model was fitted on"}]
     if holdout is not None and len(holdout):
         hp = holdout[spec.response].to_numpy(float)
