@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .model import FittedModel
-from .vectors import dot
+from .vectors import dot, gram, q_times
 
 OK, WATCH, FAILS, NA = "ok", "watch", "fails", "n/a"
 CHECK_COLUMNS = ["check", "statistic", "p_value", "threshold", "verdict", "note"]
@@ -59,12 +59,38 @@ def omnibus(model: FittedModel) -> Check:
     if len(e) < 20:
         return not_applicable("Normality: omnibus K2", "Needs at least 20 sales (the kurtosis "
                               "test is unreliable below that).", "p < 0.05")
-    from scipy.stats import normaltest
-    k2, p = normaltest(e)
+    from scipy.stats import chi2
+    k2 = _dagostino_k2(len(e), *model.residual_moments)
+    p = float(chi2.sf(k2, 2))
     note = ("Skew and tails of the residuals are consistent with normal errors." if p >= 0.05 else
             "Skew or heavy tails in the residuals: treat the prediction interval as approximate.")
     return Check("Normality: omnibus K2", float(k2), float(p), "p < 0.05", _verdict_p(p), note,
                  2, "chi2", "residuals are normal")
+
+
+def _dagostino_k2(n: int, skew: float, kurt: float) -> float:
+    """K² from the biased skewness and Pearson kurtosis already computed for the model:
+    D'Agostino's skewness Z (1970) and Anscombe and Glynn's kurtosis Z (1983), the
+    formulas of scipy.stats.skewtest/kurtosistest, without two more passes over e."""
+    y = skew * np.sqrt((n + 1) * (n + 3) / (6.0 * (n - 2)))
+    beta2 = 3.0 * (n**2 + 27 * n - 70) * (n + 1) * (n + 3) / ((n - 2.0) * (n + 5) * (n + 7)
+                                                               * (n + 9))
+    w2 = -1 + np.sqrt(2 * (beta2 - 1))
+    delta, alpha = 1 / np.sqrt(0.5 * np.log(w2)), np.sqrt(2.0 / (w2 - 1))
+    y = 1.0 if y == 0 else y
+    z_skew = delta * np.log(y / alpha + np.sqrt((y / alpha) ** 2 + 1))
+    mean_b2 = 3.0 * (n - 1) / (n + 1)
+    var_b2 = 24.0 * n * (n - 2) * (n - 3) / ((n + 1) * (n + 1.0) * (n + 3) * (n + 5))
+    x = (kurt - mean_b2) / var_b2 ** 0.5
+    root_b1 = (6.0 * (n * n - 5 * n + 2) / ((n + 7) * (n + 9))
+               * (6.0 * (n + 3) * (n + 5) / (n * (n - 2) * (n - 3))) ** 0.5)
+    a = 6.0 + 8.0 / root_b1 * (2.0 / root_b1 + (1 + 4.0 / root_b1 ** 2) ** 0.5)
+    denom = 1 + x * (2 / (a - 4.0)) ** 0.5
+    if denom == 0:
+        return float("nan")
+    term2 = np.sign(denom) * ((1 - 2.0 / a) / abs(denom)) ** (1 / 3)
+    z_kurt = (1 - 2 / (9.0 * a) - term2) / (2 / (9.0 * a)) ** 0.5
+    return float(z_skew ** 2 + z_kurt ** 2)
 
 
 def skewness(model: FittedModel) -> Check:
@@ -160,16 +186,15 @@ def white_special(model: FittedModel) -> Check:
     # scaled to unit length (vectors only: no n × 2 copies on large tables; each
     # of the five products over n rows formed once).
     cols = (z, w)
-    prods = {(0, 0): dot(z, z), (0, 1): dot(z, w), (1, 1): dot(w, w)}
-    prods[1, 0] = prods[0, 1]
-    norms = np.sqrt([prods[0, 0], prods[1, 1]])
+    prods = gram(cols)
+    norms = np.sqrt(np.diag(prods))
     keep = [i for i in range(2) if norms[i] > 0]
     if not keep or not tss:
         r2 = 0.0
     else:
-        gram = np.array([[prods[i, j] / (norms[i] * norms[j]) for j in keep] for i in keep])
+        g = np.array([[prods[i, j] / (norms[i] * norms[j]) for j in keep] for i in keep])
         zt = np.array([dot(cols[i], t) / norms[i] for i in keep])
-        coef, *_ = np.linalg.lstsq(gram, zt, rcond=1e-10)
+        coef, *_ = np.linalg.lstsq(g, zt, rcond=1e-10)
         r2 = float(np.dot(zt, coef)) / tss
     lm = model.fit.n * r2
     p = float(chi2.sf(lm, 2))
@@ -181,7 +206,9 @@ def _standardized(v: np.ndarray) -> np.ndarray:
     """(v − mean)/sd, so powers of fitted prices stay in a safe range."""
     d = v - v.mean()
     sd = float(np.sqrt(dot(d, d) / len(d)))
-    return d / sd if sd > 0 else d
+    if sd > 0:
+        d /= sd
+    return d
 
 
 def _variance_note(p: float, model: FittedModel) -> str:
@@ -212,9 +239,9 @@ def _aux_r2(target: np.ndarray, z: np.ndarray) -> float:
 
 def _explained_share(z: np.ndarray, t: np.ndarray) -> float:
     """‖P_z t‖² for unit-length columns z, from the small Gram system (one pass)."""
-    gram = z.T @ z
+    g = z.T @ z
     zt = z.T @ t
-    coef, *_ = np.linalg.lstsq(gram, zt, rcond=1e-10)
+    coef, *_ = np.linalg.lstsq(g, zt, rcond=1e-10)
     return float(np.dot(zt, coef))
 
 
@@ -317,17 +344,13 @@ def ramsey_reset(model: FittedModel) -> Check:
     if df2 < 1:
         return not_applicable(name, "Needs at least two more sales than parameters.", "p < 0.05")
     z = _standardized(fit.fitted)
-    # [ŷ², ŷ³, e] side by side, so one product with Q and one Gram matrix serve
-    # the test (each a single pass over the n rows)
-    extra = np.empty((fit.n, 3), order="F")
+    extra = np.empty((fit.n, 2), order="F")
     np.multiply(z, z, out=extra[:, 0])
     np.multiply(extra[:, 0], z, out=extra[:, 1])
-    extra[:, 2] = fit.resid
     del z
-    powers = extra[:, :2]
-    raw = np.einsum("ij,ij->j", powers, powers)    # size before centring: the yardstick
+    raw = np.einsum("ij,ij->j", extra, extra)      # size before centring: the yardstick
     if fit.has_intercept:
-        powers -= powers.mean(axis=0)
+        extra -= extra.mean(axis=0)
     gain, df1 = _reset_gain(fit, extra, raw)
     if df1 == 0:
         return not_applicable(name, "The fitted values take too few distinct values for "
@@ -343,9 +366,8 @@ def ramsey_reset(model: FittedModel) -> Check:
                  "no neglected nonlinearity")
 
 
-def _reset_gain(fit, we_cols: np.ndarray, raw: np.ndarray) -> tuple[float, int]:
-    """(‖projection of e on the part of w orthogonal to the design‖², its df);
-    ``we_cols`` is [w, e] (n × 3, w the two centred powers of ŷ).
+def _reset_gain(fit, w: np.ndarray, raw: np.ndarray) -> tuple[float, int]:
+    """(‖projection of e on the part of w orthogonal to the design‖², its df).
 
     One pass: from Qᵀ[w, e] and wᵀ[w, e] the orthogonal part's normal equations
     are wᵀw − (Qᵀw)ᵀ(Qᵀw) and wᵀe − (Qᵀw)ᵀQᵀe. When w lies almost inside the
@@ -354,12 +376,13 @@ def _reset_gain(fit, we_cols: np.ndarray, raw: np.ndarray) -> tuple[float, int]:
     with nothing but rounding left (relative to ``raw``, its size before centring)
     is dropped from the test.
     """
-    e, w = fit.resid, we_cols[:, :2]
-    qm, mm = fit.q.T @ we_cols, we_cols.T @ we_cols     # k × 3 and 3 × 3: no n-row temporaries
+    e = fit.resid
+    cols = (w[:, 0], w[:, 1], e)
+    qm, mm = q_times(fit.q, cols), gram(cols)      # k × 3 and 3 × 3: no n-row temporaries
     qw, qe = qm[:, :2], qm[:, 2]
-    gram, we = mm[:2, :2], mm[:2, 2]
-    before = np.diag(gram).copy()
-    g_perp = gram - qw.T @ qw
+    g_w, we = mm[:2, :2], mm[:2, 2]
+    before = np.diag(g_w).copy()
+    g_perp = g_w - qw.T @ qw
     rhs = we - qw.T @ qe
     after = np.diag(g_perp)
     if np.all(after > 1e-6 * before) and np.all(before > 1e-12 * raw):
@@ -399,7 +422,7 @@ def cooks_count(model: FittedModel) -> Check:
         note = (f"{count} sales pass 4/n, about what ordinary scatter gives; none moves the "
                 "estimates on its own.")
     elif big:
-        row = int(model.rows[int(np.nanargmax(d))])
+        row = int(model.data.index[int(np.nanargmax(d))])
         note = (f"{big} sale(s) move the estimates on their own (largest at sheet row {row}): "
                 "check the data; set one aside only with a reason you would defend.")
     else:
@@ -413,7 +436,7 @@ def cooks_count(model: FittedModel) -> Check:
 def max_leverage(model: FittedModel) -> Check:
     h = model.fit.leverage
     i = int(np.argmax(h))
-    row = int(model.rows[i])
+    row = int(model.data.index[i])   # one label, not the whole index as an array
     v = float(h[i])
     verdict = OK if v <= 0.5 else WATCH
     note = (f"Largest leverage at sheet row {row}; no sale dominates its own estimate."
@@ -442,7 +465,7 @@ def studentized_count(model: FittedModel) -> Check:
     p = float(min(1.0, n * 2.0 * tdist.sf(abs(t[i]), df)))
     verdict = OK if p >= 0.05 else WATCH
     expected = n * 2.0 * tdist.sf(3.0, df)
-    row = int(model.rows[i])
+    row = int(model.data.index[i])
     if verdict == OK:
         note = (f"{count} sales beyond 3 standard errors (about {expected:.1f} expected by "
                 "chance); no sale is further off than chance allows.")

@@ -12,6 +12,7 @@ from .design import Encoding, make_encoding
 from .influence import Influence, influence
 from .ols import OLSFit, fit_ols
 from .spec import ModelSpec
+from .vectors import dot
 
 
 @dataclass(frozen=True)
@@ -49,7 +50,8 @@ class FittedModel:
         m2 = float(np.mean(d2))
         if m2 == 0:
             return float("nan"), float("nan")
-        return float(np.mean(d2 * d) / m2 ** 1.5), float(np.mean(d2 * d2) / m2 ** 2)
+        n = len(d)   # third and fourth moments as products: no more n-row temporaries
+        return dot(d2, d) / n / m2 ** 1.5, dot(d2, d2) / n / m2 ** 2
 
     @cached_property
     def cov(self) -> np.ndarray:

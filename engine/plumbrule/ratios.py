@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .quantiles import median_sorted
+from .quantiles import order_stats
 from .vectors import dot
 
 OK, WATCH, FAILS, TOO_FEW = "ok", "watch", "fails", "too few sales"
@@ -54,7 +54,9 @@ def cod(ratios: np.ndarray, median: float | None = None) -> float:
     """Coefficient of dispersion, percent: 100 · mean|r − median| / median."""
     r = np.asarray(ratios, dtype=float)
     med = np.median(r) if median is None else median
-    return float(100.0 * np.mean(np.abs(r - med)) / med)
+    d = r - med
+    np.abs(d, out=d)
+    return float(100.0 * np.mean(d) / med)
 
 
 def cov(ratios: np.ndarray) -> float:
@@ -98,14 +100,23 @@ def median_rank(n: int, level: float) -> tuple[int, float]:
 
 def median_interval(ratios: np.ndarray, level: float = 0.95) -> tuple[float, float, float]:
     """(low, high, coverage) of the order-statistic interval for the median ratio."""
-    return _interval_sorted(np.sort(np.asarray(ratios, dtype=float)), level)
+    return median_and_interval(np.asarray(ratios, dtype=float), level)[1:]
 
 
-def _interval_sorted(r: np.ndarray, level: float) -> tuple[float, float, float]:
-    j, coverage = median_rank(len(r), level)
+def median_and_interval(r: np.ndarray, level: float = 0.95):
+    """(median, low, high, coverage): the median ratio (as ``np.median``) and its
+    order-statistic interval, from one selection of the order statistics they need."""
+    n = len(r)
+    if n == 0:
+        return (float("nan"),) * 4
+    j, coverage = median_rank(n, level)
+    mid = [(n - 1) // 2, n // 2]
+    ranks = sorted({*mid, *([j - 1, n - j] if j else [])})
+    at = dict(zip(ranks, order_stats(r, np.array(ranks))))
+    med = float(at[mid[0]]) if n % 2 else float(np.mean([at[mid[0]], at[mid[1]]]))
     if j == 0:
-        return float("nan"), float("nan"), float("nan")
-    return float(r[j - 1]), float(r[len(r) - j]), coverage
+        return med, float("nan"), float("nan"), float("nan")
+    return med, float(at[j - 1]), float(at[n - j]), coverage
 
 
 def prb(estimate: np.ndarray, price: np.ndarray, level: float = 0.95,
@@ -116,10 +127,16 @@ def prb(estimate: np.ndarray, price: np.ndarray, level: float = 0.95,
     slope is the proportional change in ratios when value doubles. NaN when the
     regression cannot be fitted (fewer than 3 sales, all values alike).
     """
-    from scipy.stats import t as tdist
     est, price = np.asarray(estimate, float), np.asarray(price, float)
     r = est / price
     med = float(np.median(r)) if median is None else median
+    return _prb(est, price, r, med, level)
+
+
+def _prb(est: np.ndarray, price: np.ndarray, r: np.ndarray, med: float,
+         level: float) -> tuple[float, float, float]:
+    """:func:`prb` from the ratios ``r`` = est/price (overwritten) and their median."""
+    from scipy.stats import t as tdist
     # Formed in place (same operations, same order, so the same numbers): the
     # study runs on every sale in-sample, where each n-row temporary counts.
     y = r
@@ -178,11 +195,17 @@ def estimates_table(rows, price, estimate, stratum=None) -> pd.DataFrame:
     # keeps those safe), so a million-sale table costs no second copy
     return pd.DataFrame({"row": np.asarray(rows, dtype=np.int64), "sale_price": price,
                          "estimate": estimate, "ratio": ratio,
-                         "stratum": None if stratum is None else np.asarray(stratum, object),
+                         "stratum": _no_strata(len(price)) if stratum is None
+                         else np.asarray(stratum, object),
                          # a ratio needs a positive price and estimate (a linear model can
                          # estimate below zero); such rows stay listed, out of the study
                          "in_study": np.isfinite(ratio) & (price > 0) & (estimate > 0)},
                         columns=ESTIMATE_COLUMNS, copy=False)
+
+
+def _no_strata(n: int) -> pd.Series:
+    """A column of None; as a typed Series pandas need not scan a million Nones for a type."""
+    return pd.Series(np.empty(n, dtype=object), dtype=object, copy=False)
 
 
 def measures(estimate: np.ndarray, price: np.ndarray, level: float = 0.95) -> dict:
@@ -191,16 +214,13 @@ def measures(estimate: np.ndarray, price: np.ndarray, level: float = 0.95) -> di
     n = len(r)
     if n == 0:
         return {"n": 0, **{k: np.nan for k in STUDY_COLUMNS[3:15]}}
-    s = np.sort(r)                  # one sort gives the median and its interval
-    med = median_sorted(s)
-    lo, hi, coverage = _interval_sorted(s, level)
-    del s
-    slope, slo, shi = prb(estimate, price, level, med)
+    med, lo, hi, coverage = median_and_interval(r, level)
     mean, wmr = float(r.mean()), weighted_mean_ratio(estimate, price)
-    return {"n": n, "median_ratio": med, "median_ci_low": lo,
-            "median_ci_high": hi, "median_ci_coverage": coverage, "mean_ratio": mean,
-            "weighted_mean_ratio": wmr, "cod": cod(r, med), "cov": cov(r),
-            "prd": mean / wmr, "prb": slope, "prb_ci_low": slo, "prb_ci_high": shi}
+    out = {"n": n, "median_ratio": med, "median_ci_low": lo,
+           "median_ci_high": hi, "median_ci_coverage": coverage, "mean_ratio": mean,
+           "weighted_mean_ratio": wmr, "cod": cod(r, med), "cov": cov(r), "prd": mean / wmr}
+    slope, slo, shi = _prb(estimate, price, r, med, level)     # last: it works in r's place
+    return {**out, "prb": slope, "prb_ci_low": slo, "prb_ci_high": shi}
 
 
 def verdicts(m: dict, t: RatioTargets) -> dict:

@@ -26,7 +26,7 @@ import pandas as pd
 
 from .checks import OK, WATCH, Check
 from .errors import SettingError
-from .quantiles import from_sorted
+from .quantiles import quantiles
 from .settings import Settings
 
 MANUAL, TRIM, FENCE, INFLUENCE, RATIO_TRIM = (
@@ -238,8 +238,9 @@ def five_numbers(data: pd.DataFrame, columns: Sequence[str]) -> pd.DataFrame:
     cols = list(columns)
     if not len(data):
         return pd.DataFrame(np.nan, index=cols, columns=list(SUMMARY_STATS))
-    # One sort per column; the same linear interpolation as pandas' quantile (see quantiles.py)
-    q = pd.DataFrame([from_sorted(np.sort(data[c].to_numpy(float)), FIVE) for c in cols],
+    # By selection, not np.percentile's slower multi-pivot partition; the same linear
+    # interpolation as pandas' quantile, bit for bit (see quantiles.py)
+    q = pd.DataFrame([quantiles(data[c].to_numpy(float), FIVE) for c in cols],
                      index=cols, columns=["min", "q1", "median", "q3", "max"])
     iqr = q["q3"] - q["q1"]
     q["fence_low_1_5"], q["fence_high_1_5"] = q["q1"] - 1.5 * iqr, q["q3"] + 1.5 * iqr

@@ -116,7 +116,7 @@ def residual_table(model: FittedModel) -> pd.DataFrame:
     million-row table costs no second copy."""
     fit, infl = model.fit, model.influence
     return pd.DataFrame({
-        "row": model.rows.astype(np.int64), "actual": model.y, "fitted": fit.fitted,
+        "row": model.rows.astype(np.int64, copy=False), "actual": model.y, "fitted": fit.fitted,
         "residual": fit.resid, "standardized_residual": infl.standardized,
         "studentized_residual": infl.studentized, "leverage": fit.leverage,
         "cooks_distance": infl.cooks_distance,

@@ -161,21 +161,33 @@ def error_figures(price: np.ndarray, estimate: np.ndarray, y: np.ndarray,
         return {"n": 0, "r_squared": np.nan, "rmse": np.nan, "mae": np.nan, "mape": np.nan,
                 "r_squared_model": np.nan, "rmse_model": np.nan}
     e = price - estimate
+    work = np.empty_like(e)               # one scratch array for the n-row steps
     with np.errstate(divide="ignore", invalid="ignore"):
-        ape = np.abs(e / price)
-    r2, rmse = _r2(price, e), float(np.sqrt(np.mean(e ** 2)))
+        np.divide(e, price, out=work)
+    np.abs(work, out=work)
+    mape = 100.0 * float(np.mean(work)) if np.isfinite(work).all() else np.nan
+    r2, rmse = _r2(price, e, work), _rms(e, work)
+    np.abs(e, out=work)
+    mae = float(np.mean(work))
     if y is price and pred is estimate:   # a price-scale model: the same figures, computed once
         r2_model, rmse_model = r2, rmse
     else:
         em = y - pred
-        r2_model, rmse_model = _r2(y, em), float(np.sqrt(np.mean(em ** 2)))
-    return {"n": n, "r_squared": r2, "rmse": rmse, "mae": float(np.mean(np.abs(e))),
-            "mape": 100.0 * float(np.mean(ape)) if np.all(np.isfinite(ape)) else np.nan,
+        r2_model, rmse_model = _r2(y, em, work), _rms(em, work)
+    return {"n": n, "r_squared": r2, "rmse": rmse, "mae": mae, "mape": mape,
             "r_squared_model": r2_model, "rmse_model": rmse_model}
 
 
-def _r2(y: np.ndarray, e: np.ndarray) -> float:
-    tss = float(np.sum((y - y.mean()) ** 2))
+def _rms(e: np.ndarray, work: np.ndarray) -> float:
+    np.multiply(e, e, out=work)
+    return float(np.sqrt(np.mean(work)))
+
+
+def _r2(y: np.ndarray, e: np.ndarray, work: np.ndarray | None = None) -> float:
+    work = np.empty_like(y) if work is None else work
+    np.subtract(y, y.mean(), out=work)
+    work *= work
+    tss = float(np.sum(work))
     return 1.0 - dot(e, e) / tss if tss > 0 else np.nan
 
 
