@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import datetime as _dt
 import json
-import math
 from typing import Any, Mapping
 
-import numpy as np
 import pandas as pd
+
+from .plain import plain_value
 
 
 def jsonable(value: Any) -> Any:
@@ -19,17 +19,9 @@ def jsonable(value: Any) -> Any:
         return {str(k): jsonable(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
         return [jsonable(v) for v in value]
-    if isinstance(value, (np.bool_, bool)):
-        return bool(value)
-    if isinstance(value, (np.integer,)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        v = float(value)
-        return v if math.isfinite(v) else None
-    if isinstance(value, (pd.Timestamp, _dt.date)):
+    value = plain_value(value)
+    if isinstance(value, (_dt.date, _dt.time)):
         return value.isoformat()
-    if value is pd.NaT or (value is not None and not isinstance(value, str) and pd.isna(value)):
-        return None
     return value
 
 
@@ -50,9 +42,8 @@ def analysis_json(result, extra: Mapping[str, Any] | None = None) -> str:
 
 
 def _fallback(value: Any) -> Any:
-    """Anything json cannot write natively (numpy dates, Decimal ...) as its plain form."""
-    if isinstance(value, np.datetime64):
-        return None if np.isnat(value) else pd.Timestamp(value).isoformat()
-    if isinstance(value, np.ndarray):
-        return [jsonable(v) for v in value.tolist()]
-    return str(value)
+    """Anything json cannot write natively (arrays, Decimal ...) as its plain form."""
+    if hasattr(value, "tolist"):
+        return jsonable(value.tolist())
+    value = jsonable(value)
+    return value if isinstance(value, (int, float, str, bool, type(None))) else str(value)

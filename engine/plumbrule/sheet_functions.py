@@ -20,11 +20,11 @@ from __future__ import annotations
 
 import datetime as _dt
 import functools
-import math
 from typing import Any, Callable
 
 from . import __version__
 from .errors import PlumbError, SettingError
+from .plain import plain_value
 from .sheet_cache import SheetCache, small_key
 
 try:   # without Excel (Linux, macOS, CI) these decorators only mark the functions
@@ -79,39 +79,16 @@ def text_cell(text: str) -> str:
 
 def cell(v: Any) -> Any:
     """One engine value → what a cell can hold: float, bool, text, datetime or None."""
-    import numpy as np
-    if v is None:
-        return None
-    if isinstance(v, (bool, np.bool_)):
-        return bool(v)
-    if isinstance(v, (int, float, np.integer, np.floating)):
-        x = float(v)
-        return x if math.isfinite(x) else None          # NaN/inf: an empty cell, never 0
     if isinstance(v, str):
         return text_cell(v)
-    if isinstance(v, (np.datetime64, _dt.date)) or type(v).__name__ in ("Timestamp", "NaTType"):
-        return _date_cell(v)
     if isinstance(v, (list, tuple, set, frozenset)):
         return text_cell("; ".join(str(p) for p in v if p is not None and p != ""))
-    try:
-        import pandas as pd
-        if pd.isna(v):
-            return None
-    except (TypeError, ValueError):
-        pass
-    return text_cell(str(v))
-
-
-def _date_cell(v: Any) -> Any:
-    import pandas as pd
-    if isinstance(v, _dt.date) and not isinstance(v, _dt.datetime):
+    v = plain_value(v)                                   # NaN/inf/NaT: an empty cell, never 0
+    if v is None or isinstance(v, (bool, float, _dt.date, _dt.time)):
         return v
-    ts = pd.Timestamp(v)
-    if pd.isna(ts):
-        return None
-    if ts.tzinfo is not None:
-        ts = ts.tz_localize(None)
-    return ts.to_pydatetime()
+    if isinstance(v, int):
+        return float(v)
+    return text_cell(str(v))
 
 
 def frame_cells(frame) -> list[list[Any]]:

@@ -14,6 +14,8 @@ from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 
+from ..plain import plain_value
+
 MONEY = '#,##0;-#,##0'
 MONEY_CENTS = '#,##0.00;-#,##0.00'
 PERCENT = '0.0%'
@@ -46,24 +48,7 @@ def sig3(value: Any) -> str | None:
 
 def plain(value: Any) -> Any:
     """A cell value: numpy scalars unwrapped; NaN, ±inf, NaT and None → None (blank)."""
-    if value is None:
-        return None
-    if isinstance(value, (bool, np.bool_)):
-        return bool(value)
-    if isinstance(value, (np.integer,)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        v = float(value)
-        return v if math.isfinite(v) else None
-    if isinstance(value, int):
-        return value
-    if hasattr(value, "to_pydatetime"):        # pandas Timestamp / NaT
-        return None if value != value else value.to_pydatetime()
-    if isinstance(value, np.datetime64):
-        return None if np.isnat(value) else value.astype("datetime64[us]").item()
-    if isinstance(value, (_dt.datetime, _dt.date, _dt.time)):
-        return value
-    return value
+    return plain_value(value)
 
 
 _ILLEGAL = None
