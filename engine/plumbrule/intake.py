@@ -343,11 +343,12 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     if not order:
         return CleanData(pd.DataFrame(index=frame.index), _empty_log())
     data = pd.DataFrame(typed, index=frame.index, copy=False)[order]
-    why = pd.DataFrame(reasons, index=frame.index, copy=False)[order]
-    bad = why.notna().to_numpy()
-    any_bad = bad.any(axis=1)
-    if not any_bad.any():
+    masks = {c: r.notna().to_numpy() for c, r in reasons.items()}
+    if not any(m.any() for m in masks.values()):      # the usual case: nothing to log
         return CleanData(data, _empty_log())
+    why = pd.DataFrame(reasons, index=frame.index, copy=False)[order]
+    bad = np.column_stack([masks[c] for c in order])
+    any_bad = bad.any(axis=1)
     sub, sub_bad = why[any_bad], bad[any_bad]
     first = sub_bad.argmax(axis=1)
     cols = np.array(order, dtype=object)[first]
@@ -560,11 +561,16 @@ def _plain_numbers(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     (a DataFrame handed over by a script): the same rules, whole-array operations.
     NaN is a blank; a COM error code is an error value; ±inf is an error."""
     v = col.to_numpy(dtype=float)
+    finite = np.isfinite(v)
+    if finite.all() and not v.min(initial=0.0) < -2e9:
+        # Nothing missing, no COM error codes (all below -2e9): the usual scripted
+        # frame. A read-only all-NaN view says "no reason" without filling n cells.
+        reason = pd.Series(np.broadcast_to(np.float64(np.nan), v.shape), index=col.index,
+                           copy=False)
+        return pd.Series(v, index=col.index, copy=False), reason
     blank = np.isnan(v)
     codes = np.isin(v, list(COM_ERROR_CODES)) if (v < -2e9).any() else None
     has_codes = codes is not None and bool(codes.any())
-    # Nothing missing: an all-NaN float column says "no reason" as well as object
-    # NaNs do, at a fraction of the cost on large frames.
     reason = pd.Series(np.nan, index=col.index,
                        dtype=object if blank.any() or has_codes else float)
     if blank.any():
