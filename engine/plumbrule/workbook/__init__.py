@@ -12,8 +12,8 @@ sheets.py    the Model, Screening, Validation and Valuation sheets
 graft.py     put the result sheets into the user's package (every other part byte for byte)
 fill.py      fill a copy of the template (demo, tests, benchmark)
 run.py       ``plumbrule run``: read → analyze → valuate → write → graft → atomic replace
-report.py    (helper E2) the Report sheet with native charts
-live.py      (helper E2) the "try a subject" live-formula block on the Valuation sheet
+report.py    the Report sheet with native charts
+live.py      the "try a subject" live-formula block on the Valuation sheet
 
 Interface between the writer (run.py / sheets.py) and report.py / live.py
 -----------------------------------------------------------------------

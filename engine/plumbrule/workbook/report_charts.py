@@ -1,4 +1,4 @@
-"""Native workbook charts for the Report sheet (helper E2, with report.py).
+"""Native workbook charts for the Report sheet (drawn for report.py).
 
 Each chart's source data is written to the 'Chart data' sheet as a small block
 (a title row, a header row, then the points) and the chart refers to it, so the
