@@ -64,10 +64,11 @@ class OLSFit:
     def r_squared(self) -> float:
         return 1.0 - self.ssr / self.tss if self.tss > 0 else float("nan")
 
-    def robust_cov(self, kind: str) -> np.ndarray:
-        """Heteroscedasticity-consistent covariance, ``kind`` 'HC1' or 'HC3'."""
+    def robust_meat(self, kind: str) -> np.ndarray:
+        """[1/√n, Q]ᵀ diag(ω) [1/√n, Q] with the HC1 or HC3 weights ω: the middle of
+        the sandwich in working coordinates (for coefficients and for new rows)."""
         u2 = self.resid ** 2
-        alone = self.leverage >= 1.0 - 1e-10     # a sale that alone fixes a parameter
+        alone = self._alone
         if kind == "HC1":
             w = u2 * (self.n / self.df_resid)
         elif kind == "HC3":
@@ -75,7 +76,16 @@ class OLSFit:
         else:  # pragma: no cover - validated at the edge
             raise ValueError(kind)
         w[alone] = 0.0
-        meat = _weighted_gram(self.q, w, self.has_intercept)
+        return _weighted_gram(self.q, w, self.has_intercept)
+
+    @property
+    def _alone(self) -> np.ndarray:
+        return self.leverage >= 1.0 - 1e-10     # a sale that alone fixes a parameter
+
+    def robust_cov(self, kind: str) -> np.ndarray:
+        """Heteroscedasticity-consistent covariance, ``kind`` 'HC1' or 'HC3'."""
+        alone = self._alone
+        meat = self.robust_meat(kind)
         lmat = self._coef_map()
         cov = lmat @ meat @ lmat.T
         if alone.any():

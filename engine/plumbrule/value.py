@@ -19,6 +19,7 @@ import pandas as pd
 from . import intake
 from .errors import IntakeError, SpecError, quote_list
 from .settings import Settings
+from .validate import model_factor
 
 ESTIMATE_COLUMNS = [
     "subject", "row", "estimate", "se_mean", "se_single", "ci_low", "ci_high", "pi_low",
@@ -187,31 +188,13 @@ def working_vectors(fit, x: np.ndarray) -> np.ndarray:
     return w
 
 
-def sandwich_meat(fit, kind: str) -> np.ndarray:
-    """[1/√n, Q]ᵀ diag(ω) [1/√n, Q] with the HC1/HC3 weights of ``OLSFit.robust_cov``."""
-    from .ols import _weighted_gram
-    u2 = fit.resid ** 2
-    if kind == "HC1":
-        w = u2 * (fit.n / fit.df_resid)
-    else:  # HC3
-        w = u2 / (1.0 - np.minimum(fit.leverage, 1.0 - 1e-12)) ** 2
-    return _weighted_gram(fit.q, w, fit.has_intercept)
-
-
 def mean_variance(model, v: np.ndarray) -> np.ndarray:
     """Variance of the estimated mean x'b on the model scale, per row of ``v``;
     respects the model's robust_se choice."""
     if model.robust_se:
-        meat = sandwich_meat(model.fit, model.robust_se)
+        meat = model.fit.robust_meat(model.robust_se)
         return np.einsum("ij,jk,ik->i", v, meat, v)
     return model.fit.sigma ** 2 * np.einsum("ij,ij->i", v, v)
-
-
-def retransform_factor(model, kind: str) -> float:
-    """Log models: the factor taking exp(x'b) (a median) to a mean estimate.
-    smearing: mean of exp(residuals) (Duan 1983); lognormal: exp(s²/2); median: 1."""
-    from .validate import retransform_factor as factor   # one definition, shared with validation
-    return factor(model.fit.resid, kind, model.fit.df_resid)
 
 
 # --- estimates ----------------------------------------------------------------
@@ -257,7 +240,7 @@ def _log_scale(model, eta, se_m, se_s, q, kind: str) -> dict:
     known); the prediction interval is exp of the log bounds alone: a quantile
     interval for one sale's price, which a monotone transform preserves.
     Standard errors on the price scale are the delta-method estimate × se."""
-    factor = retransform_factor(model, kind)
+    factor = model_factor(model, kind)
     median = np.exp(eta)
     est = factor * median
     return dict(estimate=est, se_mean=est * se_m, se_single=est * se_s,

@@ -232,8 +232,8 @@ def _factor(ctx) -> float:
         f = est["retransform_factor"].iloc[0]
         if f is not None and math.isfinite(float(f)):
             return float(f)
-    from ..value import retransform_factor
-    return retransform_factor(ctx.model, ctx.retransform)
+    from ..validate import model_factor
+    return model_factor(ctx.model, ctx.retransform)
 
 
 def _sample(n: int):
