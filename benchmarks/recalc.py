@@ -21,9 +21,9 @@ import time
 
 import pandas as pd
 
-from plumbrule import sheet_functions as sf
+from plumbrule.excel import functions as sf
 from plumbrule.analysis import analyze
-from plumbrule.demo_data import DEMO_SETTINGS, demo_sales, demo_subjects
+from plumbrule.demo.town import DEMO_SETTINGS, demo_sales, demo_subjects
 
 MIX = (["PLUMB_COEFS"] * 8 + ["PLUMB_FIT"] * 6 + ["PLUMB_CHECKS"] * 5 + ["PLUMB_SCREEN"] * 3
        + ["PLUMB_RATIOS"] * 3 + ["PLUMB_VALUE"] * 5)

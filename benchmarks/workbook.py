@@ -29,8 +29,8 @@ from pathlib import Path
 
 
 def build(folder: Path, n: int) -> Path:
-    from plumbrule.demo import demo_settings
-    from plumbrule.demo_data import demo_comps, demo_sales, demo_subjects
+    from plumbrule.cli.demo import demo_settings
+    from plumbrule.demo.town import demo_comps, demo_sales, demo_subjects
     from plumbrule.workbook.fill import fill_template
     sales = demo_sales(n - 3)             # + the three unusual sales
     settings = {k: v for k, v in demo_settings().items() if v is not None}

@@ -10,7 +10,7 @@ sys.path.insert(0, str(ROOT / "engine"))
 
 @pytest.fixture(scope="session")
 def demo_frame():
-    from plumbrule.demo_data import demo_sales
+    from plumbrule.demo.town import demo_sales
     return demo_sales()
 
 

@@ -17,7 +17,7 @@ import statsmodels.api as sm
 from scipy.stats import t as tdist
 
 from plumbrule import cli
-from plumbrule.demo_data import demo_sales
+from plumbrule.demo.town import demo_sales
 
 COEF_KEYS = ["term", "estimate", "std_error", "t", "p_value", "ci_low", "ci_high", "std_beta",
              "vif"]

@@ -15,8 +15,8 @@ import pytest
 
 from plumbrule.analysis import analyze
 from plumbrule.errors import SpecError
-from plumbrule.model import fit_model
-from plumbrule.value import valuate
+from plumbrule.model.fitted import fit_model
+from plumbrule.valuation.estimates import valuate
 
 DAYS = 365.2425 / 12      # the mean Gregorian month plumbrule's trend is measured in
 

@@ -51,7 +51,7 @@ def _named(wb, name):
 @pytest.fixture(scope="module")
 def demo_book(tmp_path_factory):
     """The demo workbook through the real run path (plumbrule demo = fill + run)."""
-    from plumbrule.demo import write_demo_book
+    from plumbrule.cli.demo import write_demo_book
     from plumbrule.workbook.run import run_book
     folder = tmp_path_factory.mktemp("demo")
     path = write_demo_book(folder)
@@ -84,7 +84,7 @@ def results_copy_book(tmp_path_factory):
     """A book with a part openpyxl cannot carry (sparklines): plumbrule leaves it alone
     and writes BOOK.results.xlsx, the other kind of result workbook."""
     from workbook_snapshot import rezip, sheet_part
-    from plumbrule.demo import write_demo_book
+    from plumbrule.cli.demo import write_demo_book
     from plumbrule.workbook.run import run_book
     folder = tmp_path_factory.mktemp("copy")
     src = write_demo_book(folder)
@@ -128,8 +128,8 @@ def test_live_formulas_equal_the_engine_after_recalculation(which, office, tmp_p
 
 
 def test_changed_feature_recalculates_to_the_engine_value(demo_book, office, tmp_path):
-    from plumbrule.demo_data import demo_subjects
-    from plumbrule.value import valuate
+    from plumbrule.demo.town import demo_subjects
+    from plumbrule.valuation.estimates import valuate
     path, result = demo_book
     wb = openpyxl.load_workbook(path)
     ws = wb["Valuation"]

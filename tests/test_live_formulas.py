@@ -17,8 +17,8 @@ import statsmodels.api as sm
 
 from formula_eval import Evaluator
 from plumbrule.analysis import analyze
-from plumbrule.demo_data import DEMO_SETTINGS, demo_sales, demo_subjects
-from plumbrule.value import valuate
+from plumbrule.demo.town import DEMO_SETTINGS, demo_sales, demo_subjects
+from plumbrule.valuation.estimates import valuate
 from plumbrule.workbook import live
 
 VDATE = "2026-01-15"

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from nist_reference import ORDER, digits, load, lre
-from plumbrule.ols import fit_ols
+from plumbrule.model.ols import fit_ols
 
 REQUIRED = {"Norris": 9, "Pontius": 9, "NoInt1": 9, "NoInt2": 9, "Longley": 9,
             "Wampler1": 9, "Wampler2": 9, "Wampler3": 9, "Filip": 7, "Wampler4": 8,

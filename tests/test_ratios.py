@@ -20,7 +20,7 @@ from scipy.stats import binom, t as tdist
 
 from plumbrule import ratios
 from plumbrule.analysis import analyze
-from plumbrule.demo_data import DEMO_SETTINGS
+from plumbrule.demo.town import DEMO_SETTINGS
 
 # Hand example: five sales, ratios 0.9, 1.0, 1.1, 0.9, 1.1 (hand-computed figures below).
 S = np.array([100.0, 200.0, 300.0, 400.0, 500.0])

@@ -334,7 +334,7 @@ def test_gvif_for_a_categorical_predictor():
     # Generalized VIF (Fox and Monette 1992, JASA 87: GVIF = det R11 · det R22 / det R),
     # computed here from numpy.corrcoef of the design, reported as GVIF^(1/df); it
     # must not depend on which level is the reference (their paper's point).
-    from plumbrule.checks import collinearity_by_predictor
+    from plumbrule.diagnostics.checks import collinearity_by_predictor
     data = generated_sales()
     got = {}
     for ref_level in ("North", "Heath"):

@@ -19,8 +19,8 @@ from openpyxl.chart import BarChart, ScatterChart
 from scipy.stats import norm
 
 from plumbrule.analysis import analyze
-from plumbrule.demo_data import DEMO_SETTINGS, demo_comps, demo_sales, demo_subjects
-from plumbrule.value import valuate
+from plumbrule.demo.town import DEMO_SETTINGS, demo_comps, demo_sales, demo_subjects
+from plumbrule.valuation.estimates import valuate
 from plumbrule.workbook import report
 from plumbrule.workbook.cells import MONEY, PERCENT, sig3
 from plumbrule.workbook.stamp import make_stamp

@@ -6,9 +6,9 @@ import pytest
 import statsmodels.api as sm
 from statsmodels.stats.outliers_influence import OLSInfluence
 
-from plumbrule import screen
+from plumbrule import screening as screen
 from plumbrule.analysis import analyze
-from plumbrule.demo_data import DEMO_SETTINGS
+from plumbrule.demo.town import DEMO_SETTINGS
 from plumbrule.errors import SettingError
 
 COLS = ["Sale price", "Living area", "Lot size", "Age", "Bathrooms"]   # response + numeric preds

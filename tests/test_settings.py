@@ -12,7 +12,7 @@ import math
 
 import pytest
 
-from plumbrule.cli import build_parser
+from plumbrule.cli.main import build_parser
 from plumbrule.errors import SettingError
 from plumbrule.settings import REGISTRY, Settings, normalise_name, parse_settings
 

@@ -18,12 +18,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from plumbrule import sheet_functions as sf
+from plumbrule.excel import functions as sf
 from plumbrule.analysis import analyze
-from plumbrule.demo_data import DEMO_SETTINGS, demo_comps, demo_sales, demo_subjects
+from plumbrule.demo.town import DEMO_SETTINGS, demo_comps, demo_sales, demo_subjects
 from plumbrule.intake import COM_ERROR_CODES
-from plumbrule.sheet_cache import SheetCache
-from plumbrule.value import valuate
+from plumbrule.excel.cache import SheetCache
+from plumbrule.valuation.estimates import valuate
 
 RESPONSE = DEMO_SETTINGS["response"]
 PREDICTORS = DEMO_SETTINGS["predictors"]
@@ -434,7 +434,7 @@ def test_the_worked_session_on_the_demo_workbook(tmp_path):
     """Sales[#All], Subjects[#All], Comps[Sales row] and Settings[#All] as cells, read back
     from the demo workbook by python-calamine (blank cells arrive as '', dates as dates)."""
     from python_calamine import CalamineWorkbook
-    from plumbrule.demo import write_demo_book
+    from plumbrule.cli.demo import write_demo_book
     book = CalamineWorkbook.from_path(str(write_demo_book(tmp_path)))
 
     def block(name):

@@ -4,7 +4,7 @@ import numpy as np
 import statsmodels.api as sm
 
 from plumbrule.analysis import analyze
-from plumbrule.demo_data import DEMO_SETTINGS
+from plumbrule.demo.town import DEMO_SETTINGS
 
 
 def test_demo_coefficients_match_statsmodels(demo_frame):

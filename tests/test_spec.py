@@ -13,10 +13,10 @@ import pytest
 import statsmodels.api as sm
 
 from plumbrule.analysis import analyze
-from plumbrule.design import DAYS_PER_MONTH, make_encoding, months_since
+from plumbrule.model.design import DAYS_PER_MONTH, make_encoding, months_since
 from plumbrule.errors import SpecError
 from plumbrule.settings import parse_settings
-from plumbrule.spec import build_spec, match_column
+from plumbrule.model.spec import build_spec, match_column
 
 COLUMNS = ["Sale price", "Living area", "Lot size", "Age", "Condition", "Neighbourhood",
            "Sale date"]

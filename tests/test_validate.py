@@ -9,9 +9,9 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from plumbrule import validate
+from plumbrule import validation as validate
 from plumbrule.analysis import analyze
-from plumbrule.demo_data import DEMO_SETTINGS
+from plumbrule.demo.town import DEMO_SETTINGS
 from plumbrule.errors import SettingError
 
 SIMPLE = {"response": "Sale price", "predictors": "Living area,Age,Condition",
@@ -131,7 +131,7 @@ def test_one_fold_is_refused(demo_frame):
 
 def test_cli_json_has_the_new_keys(tmp_path, demo_frame):
     # CLI contract of the issue: --json adds these keys.
-    from plumbrule.cli import main
+    from plumbrule.cli.main import main
     path = tmp_path / "sales.csv"
     demo_frame.to_csv(path, index=False)
     out = io.StringIO()

@@ -15,9 +15,9 @@ import pytest
 import statsmodels.api as sm
 
 from plumbrule.analysis import analyze
-from plumbrule.design import DAYS_PER_MONTH
+from plumbrule.model.design import DAYS_PER_MONTH
 from plumbrule.errors import IntakeError, PlumbError, SpecError
-from plumbrule.value import valuate
+from plumbrule.valuation.estimates import valuate
 
 HOODS = ("North", "South", "East")
 
@@ -355,7 +355,7 @@ def test_valuation_is_frozen_with_its_tables(gen):
 
 @pytest.fixture(scope="module")
 def files(tmp_path_factory):
-    from plumbrule.demo_data import demo_comps, demo_sales, demo_subjects
+    from plumbrule.demo.town import demo_comps, demo_sales, demo_subjects
     folder = tmp_path_factory.mktemp("value")
     sales = demo_sales()
     sales.assign(**{"Sale date": sales["Sale date"].dt.strftime("%Y-%m-%d")}).to_csv(
@@ -372,7 +372,7 @@ DEMO_ARGS = ["--response", "Sale price", "--predictors",
 
 
 def test_cli_json_contract(files, capsys):
-    from plumbrule.cli import main
+    from plumbrule.cli.main import main
     folder, comps = files
     rc = main(["value", str(folder / "sales.csv"), *DEMO_ARGS, "--subjects",
                str(folder / "subjects.csv"), "--comps", ",".join(map(str, comps)), "--json"])
@@ -391,7 +391,7 @@ def test_cli_json_contract(files, capsys):
 
 
 def test_cli_text_and_bad_comp(files, capsys):
-    from plumbrule.cli import main
+    from plumbrule.cli.main import main
     folder, comps = files
     rc = main(["value", str(folder / "sales.csv"), *DEMO_ARGS, "--subjects",
                str(folder / "subjects.csv"), "--comps", ",".join(map(str, comps))])

@@ -23,7 +23,8 @@ import types
 
 import pytest
 
-MODULE = "plumbrule.sheet_functions"
+MODULE = "plumbrule.sheet_functions"   # the path users write in xlwings.conf
+IMPL = "plumbrule.excel.functions"
 
 # VBA keywords and reserved identifiers, from the VBA language reference (Microsoft's
 # "Keywords summary" and the reserved-identifier lists of the VBA language
@@ -94,16 +95,23 @@ def registered(monkeypatch):
     monkeypatch.setattr(xlwings, "arg", udfs.xlarg)
     monkeypatch.setattr(xlwings, "ret", udfs.xlret)
     saved = sys.modules.pop(MODULE, None)
+    saved_impl = sys.modules.pop(IMPL, None)
     try:
         module = importlib.import_module(MODULE)
         yield udfs, module
     finally:
         sys.modules.pop(MODULE, None)
+        sys.modules.pop(IMPL, None)
         if saved is not None:
             sys.modules[MODULE] = saved
+        if saved_impl is not None:
+            sys.modules[IMPL] = saved_impl
         import plumbrule
         if saved is not None:
             plumbrule.sheet_functions = saved
+        if saved_impl is not None:
+            import plumbrule.excel
+            plumbrule.excel.functions = saved_impl
         sys.modules.pop("xlwings.udfs", None)
 
 

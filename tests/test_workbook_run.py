@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 
 from workbook_snapshot import snapshot
-from plumbrule.cli import main
+from plumbrule.cli.main import main
 from plumbrule.workbook import INPUT_SHEETS, RESULT_SHEETS
 
 NOW = dt.datetime(2026, 1, 5, 12, 0, tzinfo=dt.timezone.utc)
@@ -22,7 +22,7 @@ HEADLINE_NAMES = ["plumb_estimate", "plumb_pi_low", "plumb_pi_high", "plumb_r_sq
 @pytest.fixture(scope="module")
 def filled(tmp_path_factory):
     """The demo workbook, filled but not yet analysed."""
-    from plumbrule.demo import write_demo_book
+    from plumbrule.cli.demo import write_demo_book
     return write_demo_book(tmp_path_factory.mktemp("filled"))
 
 
@@ -57,9 +57,9 @@ def test_headline_names_hold_the_engine_numbers(ran):
     from openpyxl import load_workbook
     import statsmodels.api as sm
     from plumbrule.analysis import analyze
-    from plumbrule.demo import demo_settings
-    from plumbrule.demo_data import demo_comps, demo_sales, demo_subjects
-    from plumbrule.value import valuate
+    from plumbrule.cli.demo import demo_settings
+    from plumbrule.demo.town import demo_comps, demo_sales, demo_subjects
+    from plumbrule.valuation.estimates import valuate
     sales = demo_sales()
     settings = {k: v for k, v in demo_settings().items() if v is not None}
     a = analyze(sales, settings)
@@ -225,8 +225,8 @@ def test_no_backup_flag_and_setting(filled, tmp_path, capsys):
 def test_text_from_the_data_stays_text(tmp_path):
     """A level '=HYPERLINK(...)', a header '=Size', a note '#N/A': never formulas or errors."""
     from openpyxl import load_workbook
-    from plumbrule.demo import demo_settings
-    from plumbrule.demo_data import demo_sales
+    from plumbrule.cli.demo import demo_settings
+    from plumbrule.demo.town import demo_sales
     from plumbrule.workbook.fill import fill_template
     link = '=HYPERLINK("http://example.com","click")'
     sales = demo_sales().rename(columns={"Living area": "=Size"})
@@ -358,7 +358,7 @@ def test_a_plain_sales_sheet_without_a_table_works(tmp_path):
     """No Excel tables at all: Sales is read from the sheet (first non-empty row is the
     header) and Settings from its first two columns."""
     from openpyxl import Workbook
-    from plumbrule.demo_data import DEMO_SETTINGS, demo_sales
+    from plumbrule.demo.town import DEMO_SETTINGS, demo_sales
     from plumbrule.workbook.run import run_book
     sales = demo_sales()
     wb = Workbook()

@@ -9,13 +9,13 @@ import zipfile
 import pytest
 
 from workbook_snapshot import folder_state, rezip, sheet_part, snapshot
-from plumbrule.cli import main
+from plumbrule.cli.main import main
 from plumbrule.workbook import RESULT_SHEETS
 
 
 @pytest.fixture(scope="module")
 def filled(tmp_path_factory):
-    from plumbrule.demo import write_demo_book
+    from plumbrule.cli.demo import write_demo_book
     return write_demo_book(tmp_path_factory.mktemp("filled"))
 
 

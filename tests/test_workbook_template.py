@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from workbook_snapshot import snapshot
-from plumbrule.cli import main
+from plumbrule.cli.main import main
 from plumbrule.settings import REGISTRY, parse_settings
 from plumbrule.workbook.template import (SALES_COLUMNS, TEMPLATE_NAME, TEMPLATE_VALUES,
                                          build_template, packaged_template)

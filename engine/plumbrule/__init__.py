@@ -2,10 +2,10 @@
 
 __version__ = "0.1.0"
 
-from .errors import PlumbError  # noqa: E402,F401
+from plumbrule.errors import PlumbError  # noqa: E402,F401
 
 
 def analyze(*args, **kwargs):
     """Run the full analysis; see :func:`plumbrule.analysis.analyze`."""
-    from .analysis import analyze as _analyze
+    from plumbrule.analysis import analyze as _analyze
     return _analyze(*args, **kwargs)

@@ -1,3 +1,3 @@
-from .cli import run
+from plumbrule.cli.main import run
 
 run()

@@ -12,13 +12,15 @@ from typing import Any, Mapping
 import numpy as np
 import pandas as pd
 
-from . import intake, ratios, screen, validate
-from .checks import WATCH, Check, run_checks
-from .errors import FitError, SettingError
-from .model import FittedModel, fit_model
-from .settings import Settings, parse_settings
-from .spec import ModelSpec, build_spec
-from .tables import (checks_table, coefficient_table, correlation_table, fit_table,
+from plumbrule import intake, ratios
+from plumbrule import screening as screen
+from plumbrule import validation as validate
+from plumbrule.diagnostics.checks import WATCH, Check, run_checks
+from plumbrule.errors import FitError, SettingError
+from plumbrule.model.fitted import FittedModel, fit_model
+from plumbrule.settings import Settings, parse_settings
+from plumbrule.model.spec import ModelSpec, build_spec
+from plumbrule.diagnostics.tables import (checks_table, coefficient_table, correlation_table, fit_table,
                      residual_table)
 
 
@@ -82,12 +84,12 @@ def prepare(table: intake.SheetTable, settings: Settings) -> tuple[ModelSpec, in
 
 def _extra_numeric(settings: Settings, table: intake.SheetTable) -> list[str]:
     """Columns outside the model that screening reads as numbers."""
-    from .spec import match_column
+    from plumbrule.model.spec import match_column
     return [match_column(c, table.columns, "trim_columns") for c in settings.trim_columns]
 
 
 def _extra_labels(settings: Settings, table: intake.SheetTable) -> list[str]:
-    from .spec import match_column
+    from plumbrule.model.spec import match_column
     if settings.ratio_by:
         return [match_column(settings.ratio_by, table.columns, "ratio_by")]
     return []
@@ -233,7 +235,7 @@ def _enough(train: pd.DataFrame, hold: pd.DataFrame, log: pd.DataFrame) -> None:
 
 
 def _ratio_by(settings: Settings, table: intake.SheetTable) -> str | None:
-    from .spec import match_column
+    from plumbrule.model.spec import match_column
     return match_column(settings.ratio_by, table.columns, "ratio_by") if settings.ratio_by else None
 
 

@@ -15,8 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .quantiles import order_stats
-from .vectors import dot
+from plumbrule.numeric.quantiles import order_stats
+from plumbrule.numeric.vectors import dot
 
 OK, WATCH, FAILS, TOO_FEW = "ok", "watch", "fails", "too few sales"
 COD_TARGETS = {"residential": 15.0, "newer-residential": 10.0, "other": 20.0}
@@ -167,7 +167,7 @@ def _prb(est: np.ndarray, price: np.ndarray, r: np.ndarray, med: float,
 
 def ratio_trim(estimates: pd.DataFrame, k: float = 3.0) -> pd.DataFrame:
     """Screen-log records for ratios beyond Q1 − k·IQR or Q3 + k·IQR (IAAO practice, k = 3)."""
-    from .screen import LOG_COLUMNS, RATIO_TRIM, _fmt, empty_log, fence_limits
+    from plumbrule.screening import LOG_COLUMNS, RATIO_TRIM, _fmt, empty_log, fence_limits
     if len(estimates) < 4:
         return empty_log()
     lim = fence_limits(estimates, ["ratio"], k).iloc[0]

@@ -16,7 +16,7 @@ import math
 from dataclasses import dataclass, field, fields
 from typing import Any, Mapping
 
-from .errors import SettingError
+from plumbrule.errors import SettingError
 
 
 @dataclass(frozen=True)

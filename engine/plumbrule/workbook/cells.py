@@ -14,7 +14,7 @@ from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 
-from ..plain import plain_value
+from plumbrule.render.plain import plain_value
 
 MONEY = '#,##0;-#,##0'
 MONEY_CENTS = '#,##0.00;-#,##0.00'

@@ -13,7 +13,7 @@ def fill_template(dest: str | Path, sales: pd.DataFrame, subjects: pd.DataFrame 
                   comps: Sequence[int] = (), settings: Mapping[str, Any] | None = None) -> Path:
     """Write the template filled with these inputs to ``dest`` (overwrites); returns it."""
     from openpyxl import load_workbook
-    from .template import packaged_template
+    from plumbrule.workbook.template import packaged_template
     book = load_workbook(packaged_template())
     _fill_table(book["Sales"], "Sales", sales)
     if subjects is not None and len(subjects):
@@ -32,7 +32,7 @@ def fill_template(dest: str | Path, sales: pd.DataFrame, subjects: pd.DataFrame 
 def _fill_table(ws, name: str, frame: pd.DataFrame) -> None:
     """Header + rows from row 1, and the Excel table resized to hold them."""
     from openpyxl.utils import get_column_letter
-    from .cells import put
+    from plumbrule.workbook.cells import put
     formats = {j: ws.cell(row=2, column=j).number_format for j in range(1, ws.max_column + 1)}
     old_width = ws.max_column
     for j, col in enumerate(frame.columns, start=1):
@@ -57,8 +57,8 @@ def _fill_table(ws, name: str, frame: pd.DataFrame) -> None:
 
 def set_settings(book, settings: Mapping[str, Any]) -> None:
     """Put values into column B of the Settings sheet, by setting name (column A)."""
-    from ..settings import normalise_name
-    from .cells import put
+    from plumbrule.settings import normalise_name
+    from plumbrule.workbook.cells import put
     ws = book["Settings"]
     where = {normalise_name(ws.cell(row=r, column=1).value): r
              for r in range(2, ws.max_row + 1) if ws.cell(row=r, column=1).value}

@@ -23,7 +23,7 @@ import zipfile
 from dataclasses import dataclass
 from typing import Iterable
 
-from .safety import _content_types, _rels
+from plumbrule.workbook.safety import _content_types, _rels
 
 _NS_MAIN = "http://schemas.openxmlformats.org/spreadsheetml/2006/main"
 _NS_R = "http://schemas.openxmlformats.org/officeDocument/2006/relationships"

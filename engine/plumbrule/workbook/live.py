@@ -26,8 +26,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from ..design import DAYS_PER_MONTH
-from .cells import DATE as _DATE, MONEY as _MONEY
+from plumbrule.model.design import DAYS_PER_MONTH
+from plumbrule.workbook.cells import DATE as _DATE, MONEY as _MONEY
 
 NAMES = ("plumb_live_estimate", "plumb_live_pi_low", "plumb_live_pi_high")
 
@@ -348,9 +348,9 @@ def _subject_from_book(book, analysis, valuation):
 def _typed(analysis, valuation, frame: pd.DataFrame) -> pd.DataFrame:
     """Subject cells typed exactly as the valuation typed them (text numbers, case of
     column names); the frame as given when that is not possible."""
-    from ..errors import PlumbError
+    from plumbrule.errors import PlumbError
     try:
-        from ..value import read_subjects
+        from plumbrule.valuation.estimates import read_subjects
         when = _valuation_date(analysis, valuation)
         return read_subjects(analysis.model, frame.iloc[:1], when).data
     except (PlumbError, ImportError, KeyError, TypeError, ValueError):
@@ -433,7 +433,7 @@ def _level_list(ws, target: str, first: str, last: str, col: str) -> None:
 
 
 def _define_names(ws, live: LiveCells) -> None:
-    from .cells import define_name
+    from plumbrule.workbook.cells import define_name
     for name, cell in zip(NAMES, (live.estimate, live.pi_low, live.pi_high)):
         define_name(ws.parent, name, ws.title, cell.replace("$", ""))
 
@@ -446,7 +446,7 @@ class _Writer:
 
     def text(self, row, col, value, bold=False, italic=False, size=None, fill=None):
         from openpyxl.styles import Font, PatternFill
-        from .cells import put
+        from plumbrule.workbook.cells import put
         cell = put(self.ws, row, col, "" if value is None else str(value))   # text stays text
         if bold or italic or size:
             cell.font = Font(bold=bold, italic=italic, size=size)
@@ -456,7 +456,7 @@ class _Writer:
 
     def value(self, row, col, value, fmt=None, fill=None):
         from openpyxl.styles import PatternFill
-        from .cells import put
+        from plumbrule.workbook.cells import put
         cell = put(self.ws, row, col, value, fmt)
         if fill:
             cell.fill = PatternFill("solid", fgColor=fill)

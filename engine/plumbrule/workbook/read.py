@@ -12,8 +12,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from ..errors import WorkbookError
-from ..intake import SheetTable, table_from_values
+from plumbrule.errors import WorkbookError
+from plumbrule.intake import SheetTable, table_from_values
 
 
 @dataclass(frozen=True)

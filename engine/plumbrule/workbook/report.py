@@ -15,8 +15,8 @@ from typing import Any
 
 import pandas as pd
 
-from . import cells
-from .cells import MONEY, PERCENT, put, sig3
+from plumbrule.workbook import cells
+from plumbrule.workbook.cells import MONEY, PERCENT, put, sig3
 
 CAUTION = ("A statistical estimate, not an appraisal: the licensed appraiser's judgement, "
            "professional standards such as USPAP and local rules govern.")
@@ -473,7 +473,7 @@ def _stamp_rows(stamp) -> list[tuple[str, Any]]:
 # --- charts -----------------------------------------------------------------------
 
 def _charts(ws, data_ws, ctx, r) -> int:
-    from . import report_charts as rc
+    from plumbrule.workbook import report_charts as rc
     r = _section(ws, r, "Charts")
     _wrapped(ws, r, 1, "Their data are on the hidden sheet 'Chart data' (unhide it to see "
                        "them). Each chart shows every sale "

@@ -19,7 +19,7 @@ import math
 
 import numpy as np
 
-from .cells import put
+from plumbrule.workbook.cells import put
 
 MAX_POINTS = 2000
 BLUE, ORANGE, GREY, DARK, RED = "2F6690", "D98324", "8A9BA8", "1F3A4D", "B23A48"
@@ -232,7 +232,7 @@ def _factor(ctx) -> float:
         f = est["retransform_factor"].iloc[0]
         if f is not None and math.isfinite(float(f)):
             return float(f)
-    from ..validate import model_factor
+    from plumbrule.validation import model_factor
     return model_factor(ctx.model, ctx.retransform)
 
 

@@ -19,8 +19,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from ..errors import WorkbookError
-from . import INPUT_SHEETS, RESULT_SHEETS
+from plumbrule.errors import WorkbookError
+from plumbrule.workbook import INPUT_SHEETS, RESULT_SHEETS
 
 
 @dataclass(frozen=True)
@@ -43,8 +43,8 @@ def run_book(path: str | Path, backup: bool | None = None,
     ``backup`` overrides the workbook's ``backup`` setting; ``now`` fixes the stamp time.
     Raises :class:`WorkbookError` (or another PlumbError) with nothing written.
     """
-    from .read import read_inputs
-    from .safety import check_is_file, check_not_open, inspect_book
+    from plumbrule.workbook.read import read_inputs
+    from plumbrule.workbook.safety import check_is_file, check_not_open, inspect_book
     path = Path(path)
     check_not_open(path)
     check_is_file(path)
@@ -53,7 +53,7 @@ def run_book(path: str | Path, backup: bool | None = None,
     _check_names(parts)
     inputs = read_inputs(path)
     analysis, valuation, settings = _analyse(inputs)
-    from .stamp import make_stamp
+    from plumbrule.workbook.stamp import make_stamp
     stamp = make_stamp(analysis, inputs.sales_hash, source=path.name, now=now)
     keep_bak = settings.backup if backup is None else backup
     in_place = not parts.unsupported
@@ -63,7 +63,7 @@ def run_book(path: str | Path, backup: bool | None = None,
         target = path
         for ws in book.worksheets:          # the user's choice of tab stays
             ws.sheet_view.tabSelected = False
-        from .graft import graft
+        from plumbrule.workbook.graft import graft
         names = [n for n in RESULT_SHEETS if n in book.sheetnames]
         data = _to_bytes(book)
 
@@ -86,7 +86,7 @@ def _signature(path: Path) -> tuple[int, int]:
 
 
 def _still_the_same(path: Path, seen: tuple[int, int]) -> None:
-    from .safety import check_not_open
+    from plumbrule.workbook.safety import check_not_open
     check_not_open(path)
     if _signature(path) != seen:
         raise WorkbookError(f"'{path.name}' changed while plumbrule was running (saved from "
@@ -112,19 +112,19 @@ def _check_names(parts) -> None:
 
 
 def _analyse(inputs):
-    from ..analysis import analyze
-    from ..settings import parse_settings
+    from plumbrule.analysis import analyze
+    from plumbrule.settings import parse_settings
     settings = parse_settings(inputs.settings)
     analysis = analyze(inputs.sales, settings)
     valuation = None
     if inputs.subjects is not None:
-        from ..value import valuate
+        from plumbrule.valuation.estimates import valuate
         comps = list(inputs.comps) or [r for r, _ in settings.comps]
         subjects = inputs.subjects
         if comps and len(subjects.frame) > 1:
             # comparables belong to the first subject; every subject gets its estimate
             from dataclasses import replace
-            from ..intake import SheetTable
+            from plumbrule.intake import SheetTable
             first = SheetTable(subjects.frame.iloc[:1], subjects.sheet, subjects.header_row)
             with_grid = valuate(analysis, first, comps, settings)
             every = valuate(analysis, subjects, (), settings.replace(comps=()))
@@ -140,7 +140,7 @@ def _result_book(inputs, with_sales: bool):
     result sheets to be written beside. Only the result sheets are grafted into the
     user's book; with ``with_sales`` it is the BOOK.results.xlsx copy itself."""
     from openpyxl import Workbook
-    from .cells import put
+    from plumbrule.workbook.cells import put
     book = Workbook()
     book.remove(book.active)
     blocks = dict(inputs.other_values)
@@ -163,9 +163,9 @@ def _result_book(inputs, with_sales: bool):
 
 def write_results(book, analysis, valuation, stamp) -> None:
     """Create and fill the result sheets (Report first) and the headline names."""
-    from . import live, report
-    from .cells import ensure_styles
-    from .sheets import write_model, write_screening, write_validation, write_valuation
+    from plumbrule.workbook import live, report
+    from plumbrule.workbook.cells import ensure_styles
+    from plumbrule.workbook.sheets import write_model, write_screening, write_validation, write_valuation
     ensure_styles(book)
     sheets = {name: book.create_sheet(name) for name in RESULT_SHEETS if name != "Chart data"}
     write_model(sheets["Model"], analysis, stamp)
@@ -216,7 +216,7 @@ def write_atomic(target: Path, write, backup: bool) -> Path | None:
 
 def headline(analysis, valuation) -> dict[str, Any]:
     """The numbers behind the plumb_ defined names, as plain values."""
-    from ..render_json import jsonable
+    from plumbrule.render.json import jsonable
     fit = analysis.tables["fit"].iloc[0]
     out: dict[str, Any] = {"r_squared": fit["r_squared"], "n_used": int(fit["n_used"])}
     study = analysis.tables.get("ratio_study")

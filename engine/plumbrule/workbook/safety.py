@@ -24,7 +24,7 @@ import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ..errors import WorkbookError
+from plumbrule.errors import WorkbookError
 
 _CFB_MAGIC = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"   # OLE compound file: encrypted xlsx or .xls
 _CT = "application/vnd.openxmlformats-officedocument."

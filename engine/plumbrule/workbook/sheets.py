@@ -11,7 +11,7 @@ from typing import Any, Callable
 
 import pandas as pd
 
-from .cells import (INTEGER, MONEY, PERCENT, RATIO, define_name, note, put, sig3, title,
+from plumbrule.workbook.cells import (INTEGER, MONEY, PERCENT, RATIO, define_name, note, put, sig3, title,
                     write_frame, write_pairs)
 
 # Words on screen for the engine's column names (the tables keep their own names).

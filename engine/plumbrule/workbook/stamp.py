@@ -54,7 +54,7 @@ def make_stamp(analysis, sales_hash: str, source: str = "",
                now: _dt.datetime | None = None) -> Stamp:
     """Stamp for ``analysis``: rows used = rows in the fit; set aside = screened,
     dropped (missing values) and held-out rows."""
-    from .. import __version__
+    from plumbrule import __version__
     now = now or _dt.datetime.now(_dt.timezone.utc)
     fit = analysis.tables["fit"].iloc[0]
     used = int(fit["n_used"])

@@ -12,7 +12,7 @@ from __future__ import annotations
 import datetime as _dt
 from pathlib import Path
 
-from ..errors import WorkbookError
+from plumbrule.errors import WorkbookError
 
 TEMPLATE_NAME = "plumbrule-template.xlsx"
 SALES_COLUMNS = ["Sale ID", "Sale price", "Living area", "Lot size", "Age", "Bedrooms",
@@ -100,7 +100,7 @@ def _deterministic(data: bytes) -> bytes:
 def template_book():
     """The template as an openpyxl Workbook (not saved)."""
     from openpyxl import Workbook
-    from .cells import ensure_styles
+    from plumbrule.workbook.cells import ensure_styles
     book = Workbook()
     ensure_styles(book)
     book.remove(book.active)
@@ -122,7 +122,7 @@ def template_book():
 
 def _read_me(ws) -> None:
     from openpyxl.styles import Alignment, Font
-    from .cells import put, TITLE_COLOUR
+    from plumbrule.workbook.cells import put, TITLE_COLOUR
     ws.column_dimensions["A"].width = 110
     for i, (text, kind) in enumerate(READ_ME, start=1):
         if not text:
@@ -141,7 +141,7 @@ def _table(ws, name: str, columns: list[str], widths: dict[str, float],
     """Header row 1 and one blank data row, as an Excel table ``name``."""
     from openpyxl.utils import get_column_letter
     from openpyxl.worksheet.table import Table, TableStyleInfo
-    from .cells import put
+    from plumbrule.workbook.cells import put
     for j, col in enumerate(columns, start=1):
         put(ws, 1, j, col)
         letter = get_column_letter(j)
@@ -156,7 +156,7 @@ def _table(ws, name: str, columns: list[str], widths: dict[str, float],
 
 
 def _sales(ws) -> None:
-    from .cells import DATE, MONEY
+    from plumbrule.workbook.cells import DATE, MONEY
     _table(ws, "Sales", SALES_COLUMNS,
            {"Sale ID": 10, "Sale price": 13, "Condition": 11, "Neighbourhood": 16,
             "Sale date": 12, "Notes": 30},
@@ -176,8 +176,8 @@ def _settings(ws) -> None:
     from openpyxl.utils import get_column_letter
     from openpyxl.worksheet.datavalidation import DataValidation
     from openpyxl.worksheet.table import Table, TableStyleInfo
-    from ..settings import REGISTRY
-    from .cells import put
+    from plumbrule.settings import REGISTRY
+    from plumbrule.workbook.cells import put
     for j, col in enumerate(SETTINGS_COLUMNS, start=1):
         put(ws, 1, j, col)
     bools = DataValidation(type="list", formula1='"TRUE,FALSE"', allow_blank=True)
@@ -228,7 +228,7 @@ def _default_text(s) -> str:
 
 
 def _xlwings_conf(ws) -> None:
-    from .cells import put
+    from plumbrule.workbook.cells import put
     # xlwings reads key/value pairs from columns A and B of a sheet with this name.
     put(ws, 1, 1, "UDF MODULES")
     put(ws, 1, 2, "plumbrule.sheet_functions")

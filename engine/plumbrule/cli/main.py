@@ -11,8 +11,8 @@ import argparse
 import sys
 from typing import Any, Sequence
 
-from .errors import PlumbError
-from .settings import REGISTRY
+from plumbrule.errors import PlumbError
+from plumbrule.settings import REGISTRY
 
 FIT_GROUPS = ("model", "screen", "validate")
 
@@ -31,13 +31,13 @@ def _add_setting_options(parser: argparse.ArgumentParser, groups: Sequence[str])
 
 
 def _settings_from_args(args: argparse.Namespace):
-    from .settings import parse_settings
+    from plumbrule.settings import parse_settings
     raw = {name: getattr(args, name) for name in REGISTRY if getattr(args, name, None) is not None}
     return parse_settings(raw)
 
 
 def build_parser() -> argparse.ArgumentParser:
-    from . import __version__
+    from plumbrule import __version__
     parser = _Parser(
         prog="plumbrule",
         description="Hedonic price models for appraisers, inside the spreadsheet.")
@@ -81,13 +81,13 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def cmd_fit(args: argparse.Namespace) -> int:
-    from .analysis import analyze
-    from .intake import read_table
-    from .render_text import render_analysis
+    from plumbrule.analysis import analyze
+    from plumbrule.intake import read_table
+    from plumbrule.render.text import render_analysis
     settings = _settings_from_args(args)
     result = analyze(read_table(args.data, sheet=args.sheet), settings)
     if args.json:
-        from .render_json import analysis_json
+        from plumbrule.render.json import analysis_json
         print(analysis_json(result))
     else:
         print(render_analysis(result))
@@ -95,12 +95,12 @@ def cmd_fit(args: argparse.Namespace) -> int:
 
 
 def cmd_value(args: argparse.Namespace) -> int:
-    from .valuation_cli import run_value
+    from plumbrule.cli.value import run_value
     return run_value(args, _settings_from_args(args))
 
 
 def cmd_new(args: argparse.Namespace) -> int:
-    from .workbook.template import new_book
+    from plumbrule.workbook.template import new_book
     path = new_book(args.book)
     print(f"Wrote {path}: paste your sales into the Sales table, fill in Settings, save, then "
           f"run: plumbrule run {path}")
@@ -108,14 +108,14 @@ def cmd_new(args: argparse.Namespace) -> int:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from .workbook.run import print_run, run_book
+    from plumbrule.workbook.run import print_run, run_book
     result = run_book(args.book, backup=False if args.no_backup else None)
     print_run(result, as_json=args.json)
     return 0
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    from .demo import run_demo
+    from plumbrule.cli.demo import run_demo
     return run_demo(args)
 
 

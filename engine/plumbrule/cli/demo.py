@@ -14,16 +14,16 @@ DEMO_BOOK = "plumbrule-demo.xlsx"
 
 def demo_settings() -> dict:
     """The demo's Settings sheet values: the model plus screening, holdout and a date."""
-    from .demo_data import DEMO_SETTINGS
+    from plumbrule.demo.town import DEMO_SETTINGS
     return {**DEMO_SETTINGS, "trim_percentiles": "1,99", "holdout": 0.3,
             "ratio_by": None, "valuation_date": "2026-01-05"}
 
 
 def write_demo_book(folder: str | Path) -> Path:
     """The filled (not yet analysed) demo workbook in ``folder``; returns its path."""
-    from .demo_data import demo_comps, demo_sales, demo_subjects
-    from .errors import WorkbookError
-    from .workbook.fill import fill_template
+    from plumbrule.demo.town import demo_comps, demo_sales, demo_subjects
+    from plumbrule.errors import WorkbookError
+    from plumbrule.workbook.fill import fill_template
     folder = Path(folder)
     try:
         folder.mkdir(parents=True, exist_ok=True)
@@ -33,7 +33,7 @@ def write_demo_book(folder: str | Path) -> Path:
     sales = demo_sales()
     settings = {k: v for k, v in demo_settings().items() if v is not None}
     path = folder / DEMO_BOOK
-    from .workbook.safety import check_not_open
+    from plumbrule.workbook.safety import check_not_open
     check_not_open(path)
     tmp = folder / f".~plumbrule-demo-{DEMO_BOOK}"
     fill_template(tmp, sales, demo_subjects(), demo_comps(sales), settings)
@@ -43,18 +43,18 @@ def write_demo_book(folder: str | Path) -> Path:
 
 
 def run_demo(args) -> int:
-    from .demo_data import TOWN
-    from .workbook.run import run_book
+    from plumbrule.demo.town import TOWN
+    from plumbrule.workbook.run import run_book
     path = write_demo_book(args.dir)
     result = run_book(path, backup=False)
     if getattr(args, "json", False):
         import json
-        from .render_json import analysis_json
+        from plumbrule.render.json import analysis_json
         out = json.loads(analysis_json(result.analysis))
         out["workbook"] = str(result.written.resolve())
         out["headline"] = result.headline
         if result.valuation is not None:
-            from .valuation_cli import valuation_json
+            from plumbrule.cli.value import valuation_json
             out.update(json.loads(valuation_json(result.valuation)))
         print(json.dumps(out, allow_nan=False, ensure_ascii=False))
         return 0

@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .ols import OLSFit
+from plumbrule.model.ols import OLSFit
 
 
 @dataclass(frozen=True)

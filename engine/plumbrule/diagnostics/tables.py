@@ -7,8 +7,8 @@ from dataclasses import asdict
 import numpy as np
 import pandas as pd
 
-from .checks import CHECK_COLUMNS, Check
-from .model import FittedModel
+from plumbrule.diagnostics.checks import CHECK_COLUMNS, Check
+from plumbrule.model.fitted import FittedModel
 
 COEF_COLUMNS = ["term", "estimate", "std_error", "t", "p_value", "ci_low", "ci_high",
                 "std_beta", "vif"]

@@ -24,10 +24,10 @@ from typing import Iterable, Sequence
 import numpy as np
 import pandas as pd
 
-from .checks import OK, WATCH, Check
-from .errors import SettingError
-from .quantiles import quantiles
-from .settings import Settings
+from plumbrule.diagnostics.checks import OK, WATCH, Check
+from plumbrule.errors import SettingError
+from plumbrule.numeric.quantiles import quantiles
+from plumbrule.settings import Settings
 
 MANUAL, TRIM, FENCE, INFLUENCE, RATIO_TRIM = (
     "manual", "percentile trim", "IQR fence", "influence", "ratio trim")
@@ -63,7 +63,7 @@ def screened_columns(settings: Settings, numeric_columns: Sequence[str],
     """The columns trim and fence look at: ``trim_columns`` or the response and numeric predictors."""
     if not settings.trim_columns:
         return tuple(numeric_columns)
-    from .spec import match_column
+    from plumbrule.model.spec import match_column
     return tuple(dict.fromkeys(match_column(c, columns, "trim_columns")
                                for c in settings.trim_columns))
 

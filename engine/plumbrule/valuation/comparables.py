@@ -20,7 +20,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .errors import SpecError
+from plumbrule.errors import SpecError
 
 MAX_COMPS = 10
 

@@ -8,11 +8,11 @@ from functools import cached_property
 import numpy as np
 import pandas as pd
 
-from .design import Encoding, make_encoding
-from .influence import Influence, influence
-from .ols import OLSFit, fit_ols
-from .spec import ModelSpec
-from .vectors import dot
+from plumbrule.model.design import Encoding, make_encoding
+from plumbrule.model.influence import Influence, influence
+from plumbrule.model.ols import OLSFit, fit_ols
+from plumbrule.model.spec import ModelSpec
+from plumbrule.numeric.vectors import dot
 
 
 @dataclass(frozen=True)

@@ -10,8 +10,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .model import FittedModel
-from .vectors import dot, gram, q_times
+from plumbrule.model.fitted import FittedModel
+from plumbrule.numeric.vectors import dot, gram, q_times
 
 OK, WATCH, FAILS, NA = "ok", "watch", "fails", "n/a"
 CHECK_COLUMNS = ["check", "statistic", "p_value", "threshold", "verdict", "note"]

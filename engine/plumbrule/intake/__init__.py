@@ -30,7 +30,7 @@ from typing import Any, Iterable, Sequence
 import numpy as np
 import pandas as pd
 
-from .errors import IntakeError, quote_list
+from plumbrule.errors import IntakeError, quote_list
 
 ERROR_TEXTS = frozenset({
     "#N/A", "#VALUE!", "#DIV/0!", "#REF!", "#NAME?", "#NUM!", "#NULL!", "#SPILL!",

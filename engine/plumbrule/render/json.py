@@ -8,7 +8,7 @@ from typing import Any, Mapping
 
 import pandas as pd
 
-from .plain import plain_value
+from plumbrule.render.plain import plain_value
 
 
 def jsonable(value: Any) -> Any:

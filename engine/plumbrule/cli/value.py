@@ -14,9 +14,9 @@ CAUTION = ("A statistical estimate, not an appraisal: the licensed appraiser's j
 
 def run_value(args, settings) -> int:
     """Handler for the ``value`` subcommand; returns the exit status (0)."""
-    from .analysis import analyze
-    from .intake import read_table
-    from .value import valuate
+    from plumbrule.analysis import analyze
+    from plumbrule.intake import read_table
+    from plumbrule.valuation.estimates import valuate
     analysis = analyze(read_table(args.data, sheet=getattr(args, "sheet", None)), settings)
     subjects = read_table(args.subjects)
     result = valuate(analysis, subjects)
@@ -31,7 +31,7 @@ def valuation_json(result) -> str:
     """One JSON object: estimates (records), grid (records), reconciled (one
     object with value, weights [{row, weight}], range [low, high]; null without
     comparables), plus valuation_date and the caution."""
-    from .render_json import frame_records
+    from plumbrule.render.json import frame_records
     return json.dumps({
         "estimates": frame_records(result.estimates),
         "grid": frame_records(result.grid),
@@ -42,7 +42,7 @@ def valuation_json(result) -> str:
 
 
 def reconciled_record(result) -> dict | None:
-    from .render_json import frame_records, jsonable
+    from plumbrule.render.json import frame_records, jsonable
     if result.reconciled.empty:
         return None
     rec = frame_records(result.reconciled)[0]

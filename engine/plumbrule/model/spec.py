@@ -6,8 +6,8 @@ import difflib
 from dataclasses import dataclass
 from typing import Iterable
 
-from .errors import SpecError, quote_list
-from .settings import Settings
+from plumbrule.errors import SpecError, quote_list
+from plumbrule.settings import Settings
 
 
 @dataclass(frozen=True)

@@ -16,8 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import FitError, quote_list
-from .vectors import dot
+from plumbrule.errors import FitError, quote_list
+from plumbrule.numeric.vectors import dot
 
 _CHUNK = 1 << 13  # rows per block for the extended-precision passes (fits in cache)
 

@@ -12,8 +12,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .errors import SpecError, quote_list
-from .spec import ModelSpec
+from plumbrule.errors import SpecError, quote_list
+from plumbrule.model.spec import ModelSpec
 
 DAYS_PER_MONTH = 365.2425 / 12.0   # mean Gregorian month, so a trend is "per month"
 
@@ -100,7 +100,7 @@ class Encoding:
         column, take ``date`` (e.g. the valuation date) when given.
         Returns a DataFrame indexed by sheet row with the :attr:`input_columns`.
         """
-        from . import intake
+        from plumbrule import intake
         table = source if isinstance(source, intake.SheetTable) else (
             intake.table_from_frame(source) if isinstance(source, pd.DataFrame)
             else intake.table_from_values(source))
@@ -155,7 +155,7 @@ def months_since(dates: pd.Series, origin: pd.Timestamp) -> np.ndarray:
 
 
 def _find(name: str, columns) -> str | None:
-    from .spec import match_column
+    from plumbrule.model.spec import match_column
     try:
         return match_column(name, columns, "")
     except SpecError:

@@ -16,10 +16,10 @@ from typing import Any, Mapping
 import numpy as np
 import pandas as pd
 
-from . import intake
-from .errors import IntakeError, SpecError, quote_list
-from .settings import Settings
-from .validate import model_factor
+from plumbrule import intake
+from plumbrule.errors import IntakeError, SpecError, quote_list
+from plumbrule.settings import Settings
+from plumbrule.validation import model_factor
 
 ESTIMATE_COLUMNS = [
     "subject", "row", "estimate", "se_mean", "se_single", "ci_low", "ci_high", "pi_low",
@@ -62,7 +62,7 @@ def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | No
     """Value ``subjects`` (SheetTable, DataFrame or 2-D values with a header)
     with ``analysis.model``; ``comps`` are sheet rows of the sales table (or
     taken from the settings' ``comps``). Returns a frozen :class:`Valuation`."""
-    from .grid import adjustment_grid, resolve_comps
+    from plumbrule.valuation.comparables import adjustment_grid, resolve_comps
     settings = _settings(analysis, settings)
     model = analysis.model
     when = settings.valuation_date or _dt.date.today()
@@ -86,7 +86,7 @@ def _settings(analysis, settings) -> Settings:
         return analysis.settings
     if isinstance(settings, Settings):
         return settings
-    from .analysis import coerce_settings
+    from plumbrule.analysis import coerce_settings
     return coerce_settings(analysis.settings, **dict(settings))
 
 
@@ -94,7 +94,7 @@ def _settings(analysis, settings) -> Settings:
 
 def read_subjects(model, subjects: Any, when: _dt.date) -> Subjects:
     """Type and encode the subject rows exactly as the sales were encoded."""
-    from .analysis import as_table
+    from plumbrule.analysis import as_table
     table = as_table(subjects)
     frame = table.frame
     if frame.empty:
@@ -251,7 +251,7 @@ def _log_scale(model, eta, se_m, se_s, q, kind: str) -> dict:
 
 
 def _trend_months(model, when: _dt.date, m: int) -> np.ndarray:
-    from .design import months_since
+    from plumbrule.model.design import months_since
     origin = model.encoding.date_origin
     if origin is None:
         return np.full(m, np.nan)
@@ -292,7 +292,7 @@ def subject_flags(model, subj: Subjects, leverage: np.ndarray, when: _dt.date) -
 
 
 def _date_note(when: pd.Timestamp, first: pd.Timestamp, last: pd.Timestamp) -> str:
-    from .design import DAYS_PER_MONTH
+    from plumbrule.model.design import DAYS_PER_MONTH
     if when > last:
         gap = (when - last).days / DAYS_PER_MONTH
         return (f"valuation date {when.date()} is {gap:.1f} months after the last sale used "

@@ -22,9 +22,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .errors import SettingError
-from .settings import Settings
-from .vectors import dot
+from plumbrule.errors import SettingError
+from plumbrule.settings import Settings
+from plumbrule.numeric.vectors import dot
 
 DEFAULT_HOLDOUT = 0.30
 VALIDATION_COLUMNS = ["set", "n", "r_squared", "rmse", "mae", "mape", "r_squared_model",
