@@ -1,7 +1,7 @@
-"""Reader for the NIST StRD linear least-squares files (../shared/reference/nist/).
+"""Reader for the NIST StRD linear least-squares files (tests/reference/nist/).
 
 Source: NIST/ITL Statistical Reference Datasets, Linear Least Squares Regression
-(public domain; provenance in ../shared/reference/nist/PROVENANCE.md). Each
+(public domain; provenance in tests/reference/nist/PROVENANCE.md). Each
 file's header gives the line ranges of its certified values and of its data;
 we read those ranges rather than fixed offsets.
 
@@ -16,7 +16,7 @@ from pathlib import Path
 
 import numpy as np
 
-NIST_DIR = Path(__file__).resolve().parents[1].parent / "shared" / "reference" / "nist"
+NIST_DIR = Path(__file__).resolve().parent / "reference" / "nist"
 
 # Model of each set, from the files' own "Model:" headers: polynomial degree in x,
 # or None for Longley's six separate predictors; and whether there is an intercept.

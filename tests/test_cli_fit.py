@@ -1,4 +1,5 @@
-"""`plumbrule fit`: the command-line contract of issue 2 §6, exercised through a real
+"""`plumbrule fit`: the command-line contract (options, exit codes, the
+--json keys scripts rely on), exercised through a real
 subprocess and through cli.main().
 
 Sources: the contract itself (options, JSON keys, exit status 2 with one line on
@@ -25,7 +26,7 @@ FIT_KEYS = ["n_used", "n_dropped", "n_params", "df_resid", "r_squared", "adj_r_s
             "f_stat", "f_p_value", "resid_std_error", "rmse", "mae", "mape", "log_likelihood",
             "aic", "bic"]
 CHECK_KEYS = ["check", "statistic", "p_value", "threshold", "verdict", "note"]
-from conftest import FOREIGN_LABELS as FOREIGN  # tests/reference/foreign_labels.txt
+from foreign_labels import FOREIGN_LABELS as FOREIGN  # tests/reference/foreign_labels.txt
 
 
 @pytest.fixture(scope="module")

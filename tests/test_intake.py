@@ -1,6 +1,6 @@
 """Intake: what a spreadsheet hands over becomes a typed table and a log of dropped rows.
 
-Source for the behaviour: the intake contract of issue 2 §2 (headers, numbers stored
+Source for the behaviour: plumbrule's intake contract (docs/methods.md, "Intake": headers, numbers stored
 as text, error values, dropped-row log, sheet row numbers) — users' scripts and the
 worksheet functions rely on it. Spreadsheet facts used below (from memory, checkable
 in any spreadsheet): in the 1900 date system DATE(2024,1,1) = 45292, serial 1 is
@@ -96,7 +96,7 @@ def test_text_that_is_not_a_number_is_rejected(text):
 
 
 def test_not_a_number_message_has_the_exact_shape():
-    # The message shape is quoted in issue 2 §2.
+    # The message shape users and their scripts rely on: column, row, value, fix.
     values = [["Sale price", "Living area"]] + [[100000 + i, 1000 + i] for i in range(15)]
     values.append([120000, "approx 1200"])          # sheet row 17
     table = table_from_values(values)
@@ -119,7 +119,7 @@ def test_text_in_a_numeric_predictor_hints_at_the_categorical_setting():
 
 def test_mistyped_number_in_a_predictor_keeps_the_exact_shape():
     # 'approx 1200' in a column of numbers is a mistyped number, not a category: the message
-    # is exactly the one quoted in issue 2 §2, even for a predictor.
+    # keeps the same one-line shape, even for a predictor.
     values = [["Sale price", "Living area"]] + [[100000 + 7 * i * i, 1000 + 10 * i]
                                                 for i in range(15)]
     values.append([120000, "approx 1200"])          # sheet row 17

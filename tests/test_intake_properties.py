@@ -1,6 +1,7 @@
 """Property tests: whatever block of cells a spreadsheet hands over, plumbrule either
-analyses it or answers with one of its own one-line input errors (issue 2 §7: "random
-blocks of spreadsheet values never raise anything but our own input errors"), and
+analyses it or answers with one of its own one-line input errors (the
+intake contract: random blocks of spreadsheet values never raise anything but our own
+input errors), and
 numbers typed the way users type them read back as the number meant.
 
 Spreadsheet facts used (from memory): serial 1 is 1900-01-01 and serial 61 is

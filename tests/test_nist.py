@@ -1,6 +1,6 @@
 """NIST StRD linear least squares: certified digits of every estimate.
 
-Source: NIST/ITL Statistical Reference Datasets (../shared/reference/nist/*.dat,
+Source: NIST/ITL Statistical Reference Datasets (tests/reference/nist/*.dat,
 certified values inside each file). Accuracy is measured as the log relative
 error LRE = −log10(|estimate − certified| / |certified|), capped at 15; where
 the certified value is 0 (Wampler1: residual SD and every standard deviation,
@@ -61,7 +61,7 @@ def min_digits(result, ref) -> float:
 
 @pytest.mark.parametrize("name", ORDER)
 def test_certified_digits(name):
-    # Source: the certified values in ../shared/reference/nist/<name>.dat
+    # Source: the certified values in tests/reference/nist/<name>.dat
     ref = load(name)
     coef, se, sd, r2 = ours(ref)
     need = REQUIRED[name]

@@ -27,7 +27,7 @@ from plumbrule.workbook.stamp import make_stamp
 
 SETTINGS = {**DEMO_SETTINGS, "valuation_date": "2026-01-15", "trim_percentiles": "1,99",
             "holdout": 0.3}
-from conftest import FOREIGN_LABELS as FOREIGN  # tests/reference/foreign_labels.txt
+from foreign_labels import FOREIGN_LABELS as FOREIGN  # tests/reference/foreign_labels.txt
 
 
 def _write(analysis, valuation):

@@ -2,7 +2,7 @@
 raw values (CLI text, cell values, Python objects) become typed values or a one-line
 SettingError naming the setting.
 
-Source for the behaviour: issue 2 §6 (CLI options) and the settings contract in the
+Source for the behaviour: the CLI options and the settings contract in the
 brief (REGISTRY names, dashes on the CLI, underscores on sheets). Spreadsheet fact
 (from memory): serial 45292 is 2024-01-01 in the 1900 date system.
 """

@@ -1,7 +1,8 @@
 """Model spec and design: columns and roles, indicators with a named reference level,
 logs, the market-conditions trend, the intercept, and re-applying the encoding to new rows.
 
-Sources: the spec contract of issue 2 §3; the encoded design is checked against an
+Sources: the spec contract (which columns play which role, matched to the
+headers); the encoded design is checked against an
 independent construction with pandas.get_dummies / numpy and fitted with statsmodels OLS
 (reference library). The month length is the mean Gregorian month, 365.2425 / 12 =
 30.436875 days (the Gregorian calendar's 400-year cycle has 146097 days).

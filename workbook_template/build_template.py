@@ -2,28 +2,21 @@
 
     python workbook_template/build_template.py
 
-Writes workbook_template/plumbrule-template.xlsx and the copy shipped inside the
-package (engine/plumbrule/templates/). The layout lives in
-engine/plumbrule/workbook/template.py; tests/test_workbook_template.py checks that
-both committed files match what it builds.
+Writes the one committed template, the file shipped inside the package
+(engine/plumbrule/templates/plumbrule-template.xlsx), which ``plumbrule new`` copies.
+The layout lives in engine/plumbrule/workbook/template.py;
+tests/test_workbook_template.py checks that the committed file matches what it builds.
 """
 
 from __future__ import annotations
 
-import shutil
-from pathlib import Path
-
-from plumbrule.workbook.template import TEMPLATE_NAME, build_template, packaged_template
-
-HERE = Path(__file__).resolve().parent
+from plumbrule.workbook.template import build_template, packaged_template
 
 
 def main() -> None:
-    out = build_template(HERE / TEMPLATE_NAME)
     packaged = packaged_template()
     packaged.parent.mkdir(parents=True, exist_ok=True)
-    shutil.copyfile(out, packaged)
-    print(f"wrote {out}\nwrote {packaged}")
+    print(f"wrote {build_template(packaged)}")
 
 
 if __name__ == "__main__":

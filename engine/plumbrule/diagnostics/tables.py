@@ -123,6 +123,17 @@ def residual_table(model: FittedModel) -> pd.DataFrame:
     }, copy=False)[RESIDUAL_COLUMNS]
 
 
+def normal_scores(z: np.ndarray) -> pd.DataFrame:
+    """The points of a normal quantile plot: the finite values of ``z`` in ascending order
+    (``ordered``) beside the standard normal quantile at Blom's plotting position
+    (i − 3/8)/(n + 1/4) (``normal_quantile``; Blom 1958). Both in the units of ``z``."""
+    from scipy.stats import norm
+    z = np.sort(z[np.isfinite(z)])
+    n = len(z)
+    theo = norm.ppf((np.arange(1, n + 1) - 0.375) / (n + 0.25))
+    return pd.DataFrame({"normal_quantile": theo, "ordered": z})
+
+
 def correlation_table(model: FittedModel) -> pd.DataFrame:
     """Pearson correlations of the response (model scale) and every design term."""
     names = [model.encoding.response_name] + model.encoding.names

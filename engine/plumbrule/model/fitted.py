@@ -67,6 +67,12 @@ class FittedModel:
         return self.fit.se
 
 
+    def t_quantile(self, level: float) -> float:
+        """The two-sided Student t quantile for a ``level`` interval (e.g. 0.95) on the
+        residual degrees of freedom: the multiplier of every interval this model reports."""
+        from scipy.stats import t as tdist
+        return float(tdist.ppf(0.5 + level / 2.0, self.fit.df_resid))
+
     def predict(self, x: np.ndarray) -> np.ndarray:
         """x'b on the model scale (log price for log models) for design rows ``x``,
         formed around the column means so nothing cancels against a large intercept."""

@@ -236,9 +236,8 @@ def _design_formula(term, inputs, level_cells) -> str:
 
 
 def _constants(analysis, valuation, model, level) -> dict:
-    from scipy.stats import t as tdist
     sigma = float(model.fit.sigma)
-    out = {"t": float(tdist.ppf(0.5 + level / 2.0, model.fit.df_resid)), "sigma": sigma,
+    out = {"t": model.t_quantile(level), "sigma": sigma,
            "factor": 1.0, "factor_note": "1: the model is in prices"}
     if model.spec.log_response:
         out["factor"], out["factor_note"] = _factor(analysis, valuation, model)

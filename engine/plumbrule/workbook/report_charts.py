@@ -83,13 +83,13 @@ def residuals_vs_estimate(book, ctx):
 def normal_quantiles(book, ctx):
     """Theoretical normal quantiles (Blom positions (i − 3/8)/(n + 1/4)) against the
     ordered standardized residuals."""
-    from scipy.stats import norm
-    z = ctx.tables["residuals"]["standardized_residual"].to_numpy(float)
-    z = np.sort(z[np.isfinite(z)])
-    n = len(z)
+    from plumbrule.diagnostics.tables import normal_scores
+    scores = normal_scores(ctx.tables["residuals"]["standardized_residual"].to_numpy(float))
+    n = len(scores)
     if n < 3:
         return None
-    theo = norm.ppf((np.arange(1, n + 1) - 0.375) / (n + 0.25))
+    theo = scores["normal_quantile"].to_numpy()
+    z = scores["ordered"].to_numpy()
     idx, note = _sample(n)
     cols = book.block("Normal quantile plot" + note,
                       ["Normal quantile", "Standardized residual"], [theo[idx], z[idx]])

@@ -1,10 +1,9 @@
 """Build the plumbrule template workbook, and copy it for ``plumbrule new``.
 
 The template is built by code (so it can be reviewed and rebuilt) and the built
-file is committed twice: workbook_template/plumbrule-template.xlsx for people,
-engine/plumbrule/templates/plumbrule-template.xlsx inside the package for
-``plumbrule new`` and ``plumbrule demo``. tests/test_workbook_template.py checks
-both match what :func:`build_template` makes.
+file is committed once, inside the package (engine/plumbrule/templates/), for
+``plumbrule new`` and ``plumbrule demo``; ``plumbrule new BOOK.xlsx`` gives a user their
+copy. tests/test_workbook_template.py checks it matches what :func:`build_template` makes.
 """
 
 from __future__ import annotations
