@@ -1,0 +1,409 @@
+"""Typing spreadsheet cells: numbers typed as text, error values, blanks, booleans, dates.
+
+Each function takes one column (a Series of what the sheet handed over) and returns typed
+values beside the reason a cell could not be read; nothing here drops a row.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import numbers
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from plumbrule.errors import IntakeError
+
+
+ERROR_TEXTS = frozenset({
+    "#N/A", "#VALUE!", "#DIV/0!", "#REF!", "#NAME?", "#NUM!", "#NULL!", "#SPILL!",
+    "#CALC!", "#GETTING_DATA", "#FIELD!", "#BLOCKED!", "#CONNECT!", "#BUSY!", "#UNKNOWN!",
+})
+
+
+# What a COM bridge passes for an error cell (xlwings on Windows): 0x800A07xx codes.
+COM_ERROR_CODES = {
+    -2146826281: "#DIV/0!", -2146826246: "#N/A", -2146826259: "#NAME?",
+    -2146826288: "#NULL!", -2146826252: "#NUM!", -2146826265: "#REF!",
+    -2146826273: "#VALUE!",
+}
+
+
+_EXCEL_EPOCH = pd.Timestamp("1899-12-30")   # serial 61 = 1900-03-01 in the 1900 date system
+
+
+_MAX_SERIAL = 2958466                       # 9999-12-31 is serial 2958465
+
+
+# The span datetime64[ns] can hold; a sale date outside it is a typing error.
+_EARLIEST, _LATEST = pd.Timestamp("1677-09-22"), pd.Timestamp("2262-04-11")
+
+
+# A number as typed: optional sign, currency, grouped or plain digits, decimals,
+# exponent, percent. Parentheses (accounting negatives) are peeled off first.
+_NUMBER_RE = (r"^(?P<s1>[-+])?\s*(?P<cur>[$€£¥])?\s*(?P<s2>[-+])?\s*"
+              r"(?P<num>(?:\d{1,3}(?:,\d{3})+|\d+)(?:\.\d*)?(?:[eE][-+]?\d+)?"
+              r"|\.\d+(?:[eE][-+]?\d+)?)\s*(?P<pct>%)?$")
+
+
+_SHOWN_TEXT = 60     # longest cell text quoted back in a message
+
+
+# Cell kinds, decided once per Python type (a column holds few distinct types).
+BLANK, TEXT, NUMBER, BOOL, DATE, OTHER = "blank", "text", "number", "bool", "date", "other"
+
+
+def _blank_scalar(v: Any) -> bool:
+    if v is None or v is pd.NaT or v is pd.NA:
+        return True
+    if isinstance(v, (float, np.floating)):
+        return bool(v != v)
+    return isinstance(v, str) and not v.strip()
+
+
+def _kind_of_type(t: type) -> str:
+    if t is type(None) or t is type(pd.NaT) or t is type(pd.NA):
+        return BLANK
+    if issubclass(t, str):
+        return TEXT
+    if issubclass(t, (bool, np.bool_)):
+        return BOOL
+    if issubclass(t, (_dt.date, np.datetime64)):
+        return DATE
+    if issubclass(t, numbers.Real):
+        return NUMBER
+    return OTHER
+
+
+_KINDS = [BLANK, TEXT, NUMBER, BOOL, DATE, OTHER]
+
+
+def _kind_series(codes, index) -> pd.Series:
+    # Categorical: comparing a million kinds to one is a cheap integer comparison.
+    return pd.Series(pd.Categorical.from_codes(np.asarray(codes, dtype=np.int8), _KINDS),
+                     index=index)
+
+
+def cell_kinds(col: pd.Series) -> pd.Series:
+    """The kind of each cell (blank, text, number, bool, date, other) by its type."""
+    kind = col.dtype.kind if isinstance(col.dtype, np.dtype) else "O"
+    fixed = {"f": NUMBER, "i": NUMBER, "u": NUMBER, "b": BOOL, "M": DATE}.get(kind)
+    if fixed is not None:
+        return _kind_series(np.full(len(col), _KINDS.index(fixed)), col.index)
+    # One C-level pass usually settles it; mixed columns are classified per type.
+    inferred = pd.api.types.infer_dtype(col, skipna=False)
+    fixed = {"string": TEXT, "floating": NUMBER, "integer": NUMBER,
+             "mixed-integer-float": NUMBER, "boolean": BOOL}.get(inferred)
+    if fixed is not None and (fixed == NUMBER or not col.isna().any()):
+        return _kind_series(np.full(len(col), _KINDS.index(fixed)), col.index)
+    types = col.map(type)
+    lookup = {t: _KINDS.index(_kind_of_type(t)) for t in pd.unique(types.to_numpy())}
+    return _kind_series(types.map(lookup).to_numpy(), col.index)
+
+
+def on_uniques(text: pd.Series, fn, skip_numbers: bool = False) -> pd.Series:
+    """``fn`` (Series of distinct strings → Series) applied once per distinct value and
+    spread back over ``text``. Sales columns repeat values (neighbourhoods, dates), and
+    pandas string methods cost per element. With ``skip_numbers`` plain numbers (which
+    are neither blank nor an error) get NaN without being looked at."""
+    codes, uniq = pd.factorize(text.to_numpy(dtype=object))
+    u = pd.Series(uniq, dtype=object)
+    if skip_numbers:
+        plain = np.isfinite(pd.to_numeric(u, errors="coerce").to_numpy(dtype=float))
+        res = pd.Series(np.nan, index=u.index, dtype=object)
+        if (~plain).any():
+            res[~plain] = fn(u[~plain]).to_numpy(dtype=object)
+    else:
+        res = fn(u)
+    return pd.Series(res.to_numpy(dtype=object)[codes], index=text.index)
+
+
+def _blank_mask(col: pd.Series, kinds: pd.Series | None = None) -> pd.Series:
+    if isinstance(col.dtype, np.dtype) and col.dtype.kind in "fiubM":
+        return col.isna()
+    kinds = cell_kinds(col) if kinds is None else kinds
+    out = col.isna() | kinds.eq(BLANK)
+    text = kinds.eq(TEXT)
+    if text.any():
+        blank = on_uniques(col[text], lambda u: u.astype(str).str.strip().eq(""),
+                           skip_numbers=True)
+        out[text] = out[text].to_numpy() | blank.eq(True).to_numpy()
+    return out
+
+
+def _blank_frame(frame: pd.DataFrame) -> pd.DataFrame:
+    return pd.DataFrame({c: _blank_mask(frame[c]).to_numpy() for c in frame.columns},
+                        index=frame.index)
+
+
+def _numbers_of(cells: pd.Series) -> pd.Series:
+    """Number cells (int, float, numpy, Decimal) → floats; huge ints become ±inf."""
+    try:
+        return pd.to_numeric(cells, errors="coerce").astype(float)
+    except (OverflowError, TypeError, ValueError):
+        def _one(v):   # rare path only: integers beyond float range
+            try:
+                return float(v)
+            except OverflowError:
+                return float("inf") if v > 0 else float("-inf")
+        return cells.map(_one).astype(float)
+
+
+def _error_names(col: pd.Series, kinds: pd.Series) -> pd.Series:
+    """The error value's name where a cell holds one ('#N/A', '#DIV/0! (code …)'), else NaN."""
+    out = pd.Series(np.nan, index=col.index, dtype=object)
+    text = kinds.eq(TEXT)
+    if text.any():
+        def names(u: pd.Series) -> pd.Series:
+            t = u.astype(str).str.strip().str.upper()
+            hit = t.isin(ERROR_TEXTS) | t.str.fullmatch(r"ERR:\d+")
+            return t.str.replace("ERR:", "Err:", regex=False).where(hit)
+        found = on_uniques(col[text], names, skip_numbers=True)
+        hit = found.notna().to_numpy()
+        out[found.index[hit]] = found[hit].to_numpy()
+    num = kinds.eq(NUMBER)
+    if num.any():
+        vals = _numbers_of(col[num])
+        hit = vals.isin(list(COM_ERROR_CODES)).to_numpy()
+        if hit.any():
+            codes = vals[hit].astype(np.int64)
+            out[codes.index] = (codes.map(COM_ERROR_CODES) + " (code " + codes.astype(str)
+                                + ")").to_numpy()
+    return out
+
+
+def _missing_reasons(col: pd.Series, kinds: pd.Series) -> tuple[pd.Series, pd.Series]:
+    """(reason per cell or NaN, mask of cells that hold a value)."""
+    blank = _blank_mask(col, kinds)
+    err = _error_names(col, kinds)
+    reason = pd.Series(np.nan, index=col.index, dtype=object)
+    reason[blank] = "blank"
+    has_err = err.notna() & ~blank
+    reason[has_err] = "error value " + err[has_err]
+    return reason, ~(blank | has_err)
+
+
+def _shown(cell: Any) -> str:
+    """A cell as a message quotes it."""
+    if isinstance(cell, (_dt.date, np.datetime64)):
+        return f"a date ({pd.Timestamp(cell).date()})"
+    if isinstance(cell, (str, numbers.Real)):
+        text = " ".join(str(cell).split())
+        if not text.isprintable() or not text:   # show invisible characters as escapes
+            text = str(cell).encode("unicode_escape").decode("ascii")
+        return "'" + (text if len(text) <= _SHOWN_TEXT else text[:_SHOWN_TEXT] + "...") + "'"
+    return f"a {type(cell).__name__} value"
+
+
+def _raise_first(bad: pd.Series, col: pd.Series, message: str, name: str) -> None:
+    row = bad.idxmax()
+    raise IntakeError(f"Column '{name}', row {row}: {_shown(col[row])} {message}",
+                      column=name, row=int(row))
+
+
+def to_numbers(col: pd.Series, name: str, hint_categorical: bool = False
+               ) -> tuple[pd.Series, pd.Series]:
+    """Cells → floats; returns (values, missing reason per cell or NaN)."""
+    if isinstance(col.dtype, np.dtype) and col.dtype.kind in "fiu":
+        return _plain_numbers(col, name)
+    kinds = cell_kinds(col)
+    reason, present = _missing_reasons(col, kinds)
+    values = pd.Series(np.nan, index=col.index, dtype=float)
+    num = present & kinds.eq(NUMBER)
+    if num.any():
+        values[num] = _numbers_of(col[num]).to_numpy()
+    boo = present & kinds.eq(BOOL)
+    if boo.any():
+        values[boo] = col[boo].astype(bool).astype(float).to_numpy()
+    text = present & kinds.eq(TEXT)
+    if text.any():
+        values[text] = parse_number_text(col[text]).to_numpy()
+    ok = np.isfinite(values.to_numpy())
+    infinite = present & num & ~ok
+    if infinite.any():
+        _raise_first(infinite, col, "is not a finite number. Enter a number or leave the cell "
+                     "blank.", name)
+    bad = present & ~ok
+    if bad.any():
+        fix = "Enter a number or leave the cell blank."
+        row = bad.idxmax()
+        cell = col[row]
+        # A word ('Hilltop') or a column that is mostly words looks like categories;
+        # 'approx 1200' in a column of numbers is a mistyped number.
+        looks_like_labels = isinstance(cell, str) and any(ch.isalpha() for ch in cell) and (
+            not any(ch.isdigit() for ch in cell) or bad.sum() >= 0.5 * present.sum())
+        if hint_categorical and looks_like_labels:
+            fix = (f"Enter a number or leave the cell blank; if '{name}' holds categories "
+                   "(names or codes), list it under the 'categorical' setting.")
+        _raise_first(bad, col, "is not a number. " + fix, name)
+    return values, reason
+
+
+def _plain_numbers(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
+    """Fast path of :func:`to_numbers` for a column already typed as numbers
+    (a DataFrame handed over by a script): the same rules, whole-array operations.
+    NaN is a blank; a COM error code is an error value; ±inf is an error."""
+    v = col.to_numpy(dtype=float)
+    finite = np.isfinite(v)
+    if finite.all() and not v.min(initial=0.0) < -2e9:
+        # Nothing missing, no COM error codes (all below -2e9): the usual scripted
+        # frame. A read-only all-NaN view says "no reason" without filling n cells.
+        reason = pd.Series(np.broadcast_to(np.float64(np.nan), v.shape), index=col.index,
+                           copy=False)
+        return pd.Series(v, index=col.index, copy=False), reason
+    blank = np.isnan(v)
+    codes = np.isin(v, list(COM_ERROR_CODES)) if (v < -2e9).any() else None
+    has_codes = codes is not None and bool(codes.any())
+    reason = pd.Series(np.nan, index=col.index,
+                       dtype=object if blank.any() or has_codes else float)
+    if blank.any():
+        reason[blank] = "blank"
+    if has_codes:
+        c = v[codes].astype(np.int64)
+        reason[codes] = [f"error value {COM_ERROR_CODES[k]} (code {k})" for k in c]
+        v = np.where(codes, np.nan, v)
+    infinite = np.isinf(v)
+    if infinite.any():
+        _raise_first(pd.Series(infinite, index=col.index), col, "is not a finite number. "
+                     "Enter a number or leave the cell blank.", name)
+    return pd.Series(v, index=col.index, copy=False), reason
+
+
+def parse_number_text(text: pd.Series) -> pd.Series:
+    """Numbers as a user types them: '1,250', '$350,000', ' 12.5 ', '12.5%', '(1,200)',
+    '-$5', '+5', 'TRUE'/'FALSE' (1/0). Returns floats, NaN where the text is not a
+    number in one of these forms."""
+    # Fast path, on the raw cells: plain numbers ('1250', ' 12.5 ', '1e3'); anything odd
+    # goes through the rules, once per distinct text.
+    fast = pd.to_numeric(text.to_numpy(dtype=object), errors="coerce")
+    fast = pd.Series(np.asarray(fast, dtype=float), index=text.index)
+    done = np.isfinite(fast.to_numpy())
+    if done.all():
+        return fast
+    out = fast.where(done)
+    out[~done] = on_uniques(text[~done], _parse_formatted).to_numpy(dtype=float)
+    return out.astype(float)
+
+
+def _parse_formatted(text: pd.Series) -> pd.Series:
+    """The rules of :func:`parse_number_text` for text that is not a plain number."""
+    rest = (text.astype(str).str.strip().str.replace("\u2212", "-", regex=False)
+            .str.replace("\u00a0", " ", regex=False))
+    paren = rest.str.fullmatch(r"\(.*\)").fillna(False).astype(bool)
+    inner = rest.where(~paren, rest.str.slice(1, -1).str.strip())
+    parts = inner.str.extract(_NUMBER_RE)
+    s1, s2 = parts["s1"].fillna(""), parts["s2"].fillna("")
+    signs = s1.str.len() + s2.str.len()
+    num = pd.to_numeric(parts["num"].str.replace(",", "", regex=False), errors="coerce")
+    num = num.astype(float).where(parts["pct"].isna(), num / 100.0)
+    negative = paren | s1.eq("-") | s2.eq("-")
+    num = num.where(~negative, -num)
+    # '(-5)', '+-5' and '-$-5' are not something a user means.
+    num = num.where(~((paren & (signs > 0)) | (signs > 1)))
+    booleans = rest.str.upper().map({"TRUE": 1.0, "FALSE": 0.0}).astype(float)
+    return num.fillna(booleans).astype(float)
+
+
+def to_labels(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
+    """Cells → category labels (text); 3.0 becomes '3', TRUE becomes 'TRUE',
+    a date becomes YYYY-MM-DD. Text is trimmed; case is kept."""
+    kinds = cell_kinds(col)
+    reason, present = _missing_reasons(col, kinds)
+    labels = pd.Series(np.nan, index=col.index, dtype=object)
+    text = present & kinds.eq(TEXT)
+    if text.any():
+        labels[text] = on_uniques(col[text], lambda u: u.astype(str).str.split().str.join(" ")
+                                  ).to_numpy()
+    boo = present & kinds.eq(BOOL)
+    if boo.any():
+        labels[boo] = col[boo].astype(bool).map({True: "TRUE", False: "FALSE"}).to_numpy()
+    num = present & kinds.eq(NUMBER)
+    if num.any():
+        nums = _numbers_of(col[num])
+        whole = (np.isfinite(nums) & (nums == np.round(nums)) & (nums.abs() < 2 ** 53)).to_numpy()
+        as_text = nums.astype(str).to_numpy(dtype=object)
+        as_text[whole] = nums[whole].astype(np.int64).astype(str).to_numpy(dtype=object)
+        labels[num] = as_text
+    dates = present & kinds.eq(DATE)
+    if dates.any():
+        stamps = pd.to_datetime(col[dates], errors="coerce", utc=True)
+        labels[dates] = stamps.dt.strftime("%Y-%m-%d").to_numpy(dtype=object)
+    rest = present & labels.isna()
+    if rest.any():
+        labels[rest] = col[rest].astype(str).to_numpy()
+    return labels, reason
+
+
+def _serial_dates(serial: pd.Series) -> pd.Series:
+    """Spreadsheet serial numbers → timestamps (NaT outside 1..9999-12-31).
+    Serials below 60 are shifted a day: the 1900 system counts a 29 Feb 1900."""
+    s = serial.astype(float)
+    good = (s >= 1) & (s < _MAX_SERIAL) & ~((s >= 60) & (s < 61))
+    s = s.where(good)
+    s = s.where(s >= 61, s + 1)
+    days = s.to_numpy()
+    stamps = np.full(len(s), np.datetime64("NaT"), dtype="datetime64[ns]")
+    ok = np.isfinite(days)
+    # Serials span 1900..9999; datetime64[ns] ends in 2262, so compute in seconds first.
+    secs = np.round(days[ok] * 86400.0).astype(np.int64)
+    limit = (_LATEST - _EXCEL_EPOCH).total_seconds()
+    fits = secs < limit
+    idx = np.flatnonzero(ok)[fits]
+    stamps[idx] = (np.datetime64(_EXCEL_EPOCH.to_datetime64(), "s")
+                   + secs[fits].astype("timedelta64[s]")).astype("datetime64[ns]")
+    return pd.Series(stamps, index=serial.index)
+
+
+def to_dates(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
+    """Cells → datetime64[ns]: date cells, spreadsheet serial numbers, or ISO text."""
+    if isinstance(col.dtype, pd.DatetimeTZDtype):
+        col = col.dt.tz_localize(None)
+    if isinstance(col.dtype, np.dtype) and col.dtype.kind == "M":   # already dates
+        values = col.astype("datetime64[ns]")
+        return values, pd.Series("blank", index=col.index, dtype=object).where(values.isna())
+    kinds = cell_kinds(col)
+    reason, present = _missing_reasons(col, kinds)
+    out = pd.Series(pd.NaT, index=col.index, dtype="datetime64[ns]")
+    num = present & kinds.eq(NUMBER)
+    if num.any():
+        out[num] = _serial_dates(_numbers_of(col[num])).to_numpy()
+    text = present & kinds.eq(TEXT)
+    if text.any():
+        def text_dates(u: pd.Series) -> pd.Series:
+            t = u.astype(str).str.strip()
+            serial = pd.to_numeric(t, errors="coerce")
+            is_serial = serial.notna().to_numpy()
+            got = pd.Series(pd.NaT, index=t.index, dtype="datetime64[ns]")
+            if is_serial.any():
+                got[is_serial] = _serial_dates(serial[is_serial]).to_numpy()
+            if (~is_serial).any():
+                got[~is_serial] = _iso_dates(t[~is_serial]).to_numpy()
+            return got
+        out[text] = pd.to_datetime(on_uniques(col[text], text_dates)).to_numpy(
+            dtype="datetime64[ns]")
+    dates = present & kinds.eq(DATE)
+    if dates.any():
+        out[dates] = _iso_dates(col[dates]).to_numpy()
+    bad = present & out.isna()
+    far = bad & kinds.eq(DATE)
+    if far.any() and far.idxmax() == bad.idxmax():
+        _raise_first(far, col, f"is outside the dates plumbrule can use ({_EARLIEST.date()} to "
+                     f"{_LATEST.date()}). Correct the date.", name)
+    if bad.any():
+        _raise_first(bad, col, "is not a date. Enter a date cell or text as YYYY-MM-DD.", name)
+    return out, reason
+
+
+def _iso_dates(values: pd.Series) -> pd.Series:
+    """Date objects or ISO text → naive datetime64[ns]; NaT where unusable."""
+    try:
+        if values.map(type).eq(str).all():
+            parsed = pd.to_datetime(values, format="ISO8601", errors="coerce", utc=True)
+        else:
+            parsed = pd.to_datetime(values, errors="coerce", utc=True)
+    except (ValueError, TypeError, OverflowError):
+        return pd.Series(pd.NaT, index=values.index, dtype="datetime64[ns]")
+    parsed = parsed.dt.tz_localize(None)
+    inside = (parsed >= _EARLIEST) & (parsed <= _LATEST)
+    return parsed.where(inside).astype("datetime64[ns]")

@@ -1,0 +1,124 @@
+"""A block of sheet values → a :class:`SheetTable` with trimmed headers and the sheet's row
+numbers as its index (the header row found, trailing blank rows left off).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+from dataclasses import dataclass
+from typing import Any, Sequence
+
+import numpy as np
+import pandas as pd
+
+from plumbrule.errors import IntakeError
+from plumbrule.intake.cells import _blank_frame, _blank_scalar
+
+
+@dataclass(frozen=True)
+class SheetTable:
+    """A block of cells with a header: ``frame`` holds the raw cell values
+    (object dtype), columns are the trimmed headers, the index is sheet rows.
+    ``first_column`` is the sheet column number (A = 1) of the block's first
+    column, so messages can give column letters."""
+
+    frame: pd.DataFrame
+    sheet: str | None = None
+    header_row: int = 1
+    first_column: int = 1
+
+    @property
+    def columns(self) -> list[str]:
+        return list(self.frame.columns)
+
+
+def table_from_values(values: Sequence[Sequence[Any]], header_row: int = 1,
+                      sheet: str | None = None, first_column: int = 1) -> SheetTable:
+    """A 2-D block (rows of cells, header first) → :class:`SheetTable`.
+    Row i of the block (0 = header) is sheet row ``header_row + i``."""
+    if isinstance(values, np.ndarray):
+        values = values.tolist()
+    rows = [list(r) if isinstance(r, (list, tuple)) else [r] for r in (values or [])]
+    if not rows or not max(len(r) for r in rows):
+        raise IntakeError("The sales block is empty. Select the table including its header row.")
+    width = max(len(r) for r in rows)
+    block = np.empty((len(rows), width), dtype=object)
+    block[:] = None
+    for i, r in enumerate(rows):       # rows of the block, not cells: one slice each
+        block[i, :len(r)] = r
+    body = pd.DataFrame(block[1:], columns=range(width), dtype=object)
+    return _with_header(list(block[0]), body, header_row, sheet, first_column)
+
+
+def table_from_frame(frame: pd.DataFrame, header_row: int = 1,
+                     sheet: str | None = None, first_column: int = 1) -> SheetTable:
+    """A DataFrame whose columns are the headers → :class:`SheetTable`.
+    Row i of the frame is sheet row header_row + 1 + i (the frame's index is ignored)."""
+    headers = list(frame.columns)
+    cols = {}
+    for j in range(frame.shape[1]):
+        c = frame.iloc[:, j]
+        # Plain numpy numbers, booleans and dates keep their fast dtype; anything
+        # else (nullable, categorical, string dtypes) becomes plain cells.
+        keep = isinstance(c.dtype, np.dtype) and c.dtype.kind in "fiubM"
+        cols[j] = c.to_numpy() if keep else c.astype(object).to_numpy()
+    body = pd.DataFrame(cols, index=pd.RangeIndex(len(frame)), copy=False)  # views, no copy
+    return _with_header(headers, body, header_row, sheet, first_column)
+
+
+def column_letter(number: int) -> str:
+    """1 → 'A', 27 → 'AA' (sheet column letters)."""
+    out = ""
+    while number > 0:
+        number, rem = divmod(number - 1, 26)
+        out = chr(65 + rem) + out
+    return out
+
+
+def _header_text(h: Any) -> str:
+    if _blank_scalar(h):
+        return ""
+    if isinstance(h, float) and h.is_integer():
+        h = int(h)
+    elif isinstance(h, _dt.datetime) and h == pd.Timestamp(h).normalize():
+        h = h.date()
+    if isinstance(h, _dt.date):
+        h = h.isoformat()
+    return " ".join(str(h).split())
+
+
+def _with_header(headers: list[Any], body: pd.DataFrame, header_row: int,
+                 sheet: str | None, first_column: int = 1) -> SheetTable:
+    body.index = pd.RangeIndex(header_row + 1, header_row + 1 + len(body), name="row")
+    names = [_header_text(h) for h in headers]
+    blank_cells = _blank_frame(body) if len(body) else None
+    # Columns with no header and no values are just an over-wide selection.
+    keep = [j for j, nm in enumerate(names)
+            if nm or (blank_cells is not None and not blank_cells[j].all())]
+    names = [names[j] for j in keep]
+    body = body[keep]
+    letter = [column_letter(first_column + j) for j in keep]
+    blank = [letter[pos] for pos, nm in enumerate(names) if not nm]
+    if blank:
+        which = "column " + blank[0] if len(blank) == 1 else "columns " + ", ".join(blank)
+        raise IntakeError(f"Header row (sheet row {header_row}): {which} "
+                          f"{'has' if len(blank) == 1 else 'have'} no name but "
+                          f"{'holds' if len(blank) == 1 else 'hold'} values. Give every column "
+                          "a header.", row=header_row)
+    seen: dict[str, list[str]] = {}
+    for pos, nm in enumerate(names):
+        seen.setdefault(nm, []).append(letter[pos])
+    dups = {nm: cols for nm, cols in seen.items() if len(cols) > 1}
+    if dups:
+        where = "; ".join(f"'{nm}' in columns {', '.join(cols[:-1])} and {cols[-1]}"
+                          for nm, cols in dups.items())
+        raise IntakeError(f"Header row (sheet row {header_row}): the same name appears more than "
+                          f"once ({where}). Give each column its own name.",
+                          column=next(iter(dups)), row=header_row)
+    body.columns = names
+    if len(body):
+        filled = ~blank_cells[keep].all(axis=1).to_numpy()
+        # Rows after the last filled one are an over-wide selection, not sales.
+        last = int(np.flatnonzero(filled)[-1]) + 1 if filled.any() else 0
+        body = body.iloc[:last]
+    return SheetTable(frame=body, sheet=sheet, header_row=header_row, first_column=first_column)
