@@ -81,6 +81,6 @@ def _headline_text(h: dict) -> str:
                   f"  (prediction interval {money(h['pi_low'])} to {money(h['pi_high'])})"]
         if h.get("reconciled_value") is not None:
             lines.append(f"  From the comparables    {money(h['reconciled_value'])}")
-    lines.append("\nA statistical estimate, not an appraisal: the licensed appraiser's judgement, "
-                 "professional standards such as USPAP and local rules govern.")
+    from plumbrule.render.wording import CAUTION
+    lines.append("\n" + CAUTION)
     return "\n".join(lines)

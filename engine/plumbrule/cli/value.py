@@ -8,8 +8,7 @@ import json
 
 import pandas as pd
 
-CAUTION = ("A statistical estimate, not an appraisal: the licensed appraiser's judgement, "
-           "professional standards such as USPAP, and local rules govern.")
+from plumbrule.render.wording import CAUTION
 
 
 def run_value(args, settings) -> int:

@@ -13,8 +13,7 @@ import math
 import numpy as np
 import pandas as pd
 
-CAUTION = ("A statistical estimate, not an appraisal: the licensed appraiser's judgement, "
-           "professional standards such as USPAP, and local rules govern any opinion of value.")
+from plumbrule.render.wording import CAUTION
 
 
 def _num(v) -> str:

@@ -135,7 +135,7 @@ def adjustment_grid(model, subj, comps: CompSet | None, settings, when: _dt.date
     features = _features(enc)
     e_f = np.column_stack([eff[:, idx].sum(axis=1) for _, _, idx in features])
     total = e_f.sum(axis=1)
-    money, alone, net = _money(e_f, total, price, spec.log_response)
+    money, alone, net = _adjustments_in_money(e_f, total, price, spec.log_response)
     gross = np.abs(money).sum(axis=1)
     adjusted = price + net
     net_pct, gross_pct = net / price, gross / price
@@ -176,7 +176,7 @@ def _features(enc):
     return out
 
 
-def _money(e_f, total, price, log_response):
+def _adjustments_in_money(e_f, total, price, log_response):
     """(feature adjustments, stand-alone adjustments, net) in money per comp.
 
     Log model: net = P·(e^E − 1) shared in proportion to e_f, i.e.

@@ -18,8 +18,7 @@ import pandas as pd
 from plumbrule.workbook import cells
 from plumbrule.workbook.cells import MONEY, PERCENT, put, sig3
 
-CAUTION = ("A statistical estimate, not an appraisal: the licensed appraiser's judgement, "
-           "professional standards such as USPAP and local rules govern.")
+from plumbrule.render.wording import CAUTION
 CAUTIONS = (
     CAUTION,
     "The model describes the sales it was fitted on. For a property unlike them (see the "

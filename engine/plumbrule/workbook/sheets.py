@@ -11,6 +11,7 @@ from typing import Any, Callable
 
 import pandas as pd
 
+from plumbrule.render.wording import CAUTION
 from plumbrule.workbook.cells import (INTEGER, MONEY, PERCENT, RATIO, define_name, note, put, sig3, title,
                     write_frame, write_pairs)
 
@@ -244,8 +245,7 @@ def write_valuation(ws, analysis, valuation, live: Callable | None = None) -> in
     """Estimates, reconciled value, adjustment grid; then the live block. Returns next row."""
     book = ws.parent
     r = title(ws, 1, "Valuation")
-    r = note(ws, r, "A statistical estimate, not an appraisal: the licensed appraiser's "
-                    "judgement, professional standards such as USPAP and local rules govern.") + 1
+    r = note(ws, r, CAUTION) + 1
     if valuation is None:
         r = note(ws, r, "No subjects: enter properties to value on the Subjects sheet and run "
                         "again.")

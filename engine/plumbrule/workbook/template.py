@@ -12,6 +12,7 @@ import datetime as _dt
 from pathlib import Path
 
 from plumbrule.errors import WorkbookError
+from plumbrule.render.wording import CAUTION
 
 TEMPLATE_NAME = "plumbrule-template.xlsx"
 SALES_COLUMNS = ["Sale ID", "Sale price", "Living area", "Lot size", "Age", "Bedrooms",
@@ -49,9 +50,7 @@ READ_ME = [
      "are replaced, the previous file is kept as .bak.", "text"),
     ("", "text"),
     ("Cautions", "heading"),
-    ("A statistical estimate is not an appraisal. The licensed appraiser's judgement, "
-     "professional standards such as USPAP and local rules govern any opinion of value.",
-     "text"),
+    (CAUTION, "text"),
     ("The model is only as good as the sales behind it: check the sales set aside, the "
      "checks on the Model sheet and the ratio study before relying on a value.", "text"),
     ("A subject unlike the sales used (outside their range, or an unusual combination of "
