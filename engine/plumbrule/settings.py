@@ -17,6 +17,7 @@ from dataclasses import dataclass, field, fields
 from typing import Any, Mapping
 
 from plumbrule.errors import SettingError
+from plumbrule.intake.cells import is_blank
 
 
 @dataclass(frozen=True)
@@ -179,15 +180,10 @@ def parse_settings(raw: Mapping[str, Any] | None = None, **kw) -> Settings:
             close = difflib.get_close_matches(name, REGISTRY, n=1)
             hint = f" Did you mean '{close[0]}'?" if close else ""
             raise SettingError(f"Setting '{key}' is not one plumbrule knows.{hint}", setting=str(key))
-        if _is_blank(value):
+        if is_blank(value):
             continue
         typed[name] = _convert(REGISTRY[name], value)
     return Settings(**typed)
-
-
-def _is_blank(value: Any) -> bool:
-    return value is None or (isinstance(value, str) and not value.strip()) or (
-        isinstance(value, float) and value != value)
 
 
 def _convert(s: Setting, value: Any) -> Any:
@@ -204,7 +200,7 @@ def _split(v: Any) -> list[str]:
         parts = []
         for item in v:
             parts.extend(_split(item) if isinstance(item, (list, tuple)) else [item])
-        return [str(p).strip() for p in parts if not _is_blank(p)]
+        return [str(p).strip() for p in parts if not is_blank(p)]
     return [p.strip() for p in str(v).split(",") if p.strip()]
 
 

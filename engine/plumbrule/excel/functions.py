@@ -23,6 +23,7 @@ import functools
 from typing import Any, Callable
 
 from plumbrule import __version__
+from plumbrule.intake.cells import is_blank
 from plumbrule.errors import PlumbError, SettingError
 from plumbrule.render.plain import plain_value
 from plumbrule.excel.cache import SheetCache, small_key
@@ -185,11 +186,6 @@ def _flat(value: Any) -> list[Any]:
     return [value]
 
 
-def _blank(v: Any) -> bool:
-    return v is None or (isinstance(v, str) and not v.strip()) or (
-        isinstance(v, float) and v != v)
-
-
 def _error_value(v: Any) -> str | None:
     from plumbrule.intake import COM_ERROR_CODES, ERROR_TEXTS
     if isinstance(v, str) and v.strip() in ERROR_TEXTS:
@@ -200,7 +196,7 @@ def _error_value(v: Any) -> str | None:
 
 
 def _cells_given(value: Any, what: str) -> list[Any]:
-    cells = [v for v in _flat(value) if not _blank(v)]
+    cells = [v for v in _flat(value) if not is_blank(v)]
     for v in cells:
         err = _error_value(v)
         if err:
@@ -238,15 +234,15 @@ def settings_arg(block: Any) -> dict[str, Any]:
     raw: dict[str, Any] = {}
     if isinstance(block, dict):                        # from Python: {name: value}
         block = [[k, v] for k, v in block.items()]
-    if _blank(block):
+    if is_blank(block):
         return raw
     rows = block if isinstance(block, list) and all(isinstance(r, list) for r in block) else [
         _flat(block)]
     for i, row in enumerate(rows, start=1):
         name = row[0] if row else None
         value = row[1] if len(row) > 1 else None
-        if _blank(name):
-            if not _blank(value):
+        if is_blank(name):
+            if not is_blank(value):
                 raise SettingError(f"Settings range, line {i}: the value '{value}' has no "
                                    "setting name. Put the name in the first column.")
             continue
@@ -344,7 +340,7 @@ def fitted(sales: Any, response: Any, predictors: Any, settings: Any) -> tuple[_
     """The analysis for these cells and arguments (one fit per distinct content)."""
     from plumbrule.analysis import analyze
     s, m = _parsed(response, predictors, settings)
-    if _blank(sales) or not isinstance(sales, (list, tuple)):
+    if is_blank(sales) or not isinstance(sales, (list, tuple)):
         from plumbrule.errors import IntakeError
         raise IntakeError("Argument 'sales': select the sales table including its header row, "
                           "e.g. Sales[#All].")
@@ -382,7 +378,7 @@ def valuation_for(sales, response, predictors, subject, comps, settings):
     comp_rows = comps_arg(comps)
     if comp_rows is None:
         comp_rows = tuple(r for r, _ in s.comps)
-    if _blank(subject):
+    if is_blank(subject):
         from plumbrule.errors import IntakeError
         raise IntakeError("Argument 'subject': select the subject rows including their "
                           "header row.")

@@ -40,7 +40,7 @@ from plumbrule.intake.cells import (  # noqa: F401
     _SHOWN_TEXT,
     _blank_frame,
     _blank_mask,
-    _blank_scalar,
+    is_blank,
     _error_names,
     _iso_dates,
     _kind_of_type,

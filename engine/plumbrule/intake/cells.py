@@ -54,7 +54,9 @@ _SHOWN_TEXT = 60     # longest cell text quoted back in a message
 BLANK, TEXT, NUMBER, BOOL, DATE, OTHER = "blank", "text", "number", "bool", "date", "other"
 
 
-def _blank_scalar(v: Any) -> bool:
+def is_blank(v: Any) -> bool:
+    """True for a cell a user sees as empty: None, NaN, NaT, NA or text of only spaces.
+    The one blank-cell test of the package."""
     if v is None or v is pd.NaT or v is pd.NA:
         return True
     if isinstance(v, (float, np.floating)):

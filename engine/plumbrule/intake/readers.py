@@ -8,7 +8,7 @@ from pathlib import Path
 import pandas as pd
 
 from plumbrule.errors import IntakeError, quote_list
-from plumbrule.intake.cells import _blank_scalar
+from plumbrule.intake.cells import is_blank
 from plumbrule.intake.table import SheetTable, table_from_values
 
 
@@ -108,7 +108,7 @@ def _restore_error_cells(values: list, errors: list, start) -> None:
     says '#N/A' rather than 'blank'."""
     for row, col, text in errors:
         i, j = row - 1 - start[0], col - 1 - start[1]
-        if 0 <= i < len(values) and 0 <= j < len(values[i]) and _blank_scalar(values[i][j]):
+        if 0 <= i < len(values) and 0 <= j < len(values[i]) and is_blank(values[i][j]):
             values[i][j] = text
 
 

@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 
 from plumbrule.errors import IntakeError
-from plumbrule.intake.cells import _blank_frame, _blank_scalar
+from plumbrule.intake.cells import _blank_frame, is_blank
 
 
 @dataclass(frozen=True)
@@ -76,7 +76,7 @@ def column_letter(number: int) -> str:
 
 
 def _header_text(h: Any) -> str:
-    if _blank_scalar(h):
+    if is_blank(h):
         return ""
     if isinstance(h, float) and h.is_integer():
         h = int(h)

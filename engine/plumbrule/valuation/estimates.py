@@ -129,7 +129,7 @@ def _labels(frame: pd.DataFrame) -> pd.Series:
     name = next((c for c in frame.columns if c.strip().casefold() == "subject"), None)
     if name is None:
         return rows
-    text = frame[name].map(lambda v: "" if intake._blank_scalar(v) else str(v).strip())
+    text = frame[name].map(lambda v: "" if intake.is_blank(v) else str(v).strip())
     return text.where(text != "", rows)
 
 

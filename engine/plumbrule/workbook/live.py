@@ -26,6 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from plumbrule.intake.cells import is_blank
 from plumbrule.model.design import DAYS_PER_MONTH
 from plumbrule.workbook.cells import DATE as _DATE, MONEY as _MONEY
 
@@ -79,7 +80,7 @@ def write_live_block(ws, analysis, valuation, anchor_row: int, subjects=None) ->
         cell = ws.cell(row=r, column=2)
         if col in levels:
             value = subject.get(col)
-            value = levels[col][0] if _blank(value) else str(value)
+            value = levels[col][0] if is_blank(value) else str(value)
             w.text(r, 2, value, fill=_INPUT_FILL)
             w.text(r, 3, f"category; '{levels[col][0]}' is the reference level")
             w.text(r, 4, "pick one:", italic=True)
@@ -394,10 +395,6 @@ def _number(v):
     except (TypeError, ValueError):
         return None
     return None if x != x else x
-
-
-def _blank(v) -> bool:
-    return v is None or (isinstance(v, float) and v != v) or (isinstance(v, str) and not v.strip())
 
 
 def _number_format(col: pd.Series) -> str:
