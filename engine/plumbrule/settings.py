@@ -17,7 +17,7 @@ from dataclasses import dataclass, field, fields
 from typing import Any, Mapping
 
 from plumbrule.errors import SettingError
-from plumbrule.intake.cells import is_blank
+from plumbrule.intake.cells import error_text, is_blank
 
 
 @dataclass(frozen=True)
@@ -324,3 +324,44 @@ _CONVERTERS = {
     "choice": _choice, "percentiles": _percentiles, "rows": _rows, "pairs": _pairs,
     "date": _date,
 }
+
+
+_HEADER_NAMES = {"setting", "settings", "name", "option"}
+
+
+def settings_from_rows(rows: list, where: str = "Settings range", first_line: int = 1
+                       ) -> dict[str, Any]:
+    """Rows of (setting name, value[, anything]) → raw settings {name: value}, the one parser of
+    a settings block (worksheet functions' range, the workbook's Settings sheet). A header row
+    ('Setting', 'Name', …) and blank lines are skipped; error values, values without a name and
+    names given twice are errors naming the ``where`` and line (``first_line`` is the first
+    row's number). Known names are normalised; unknown ones are kept as typed, for
+    :func:`parse_settings` to reject with a suggestion."""
+    raw: dict[str, Any] = {}
+    for i, row in enumerate(rows, start=first_line):
+        row = list(row) if row is not None else []
+        name = row[0] if row else None
+        value = row[1] if len(row) > 1 else None
+        if is_blank(name):
+            if not is_blank(value):
+                raise SettingError(f"{where}, line {i}: the value '{value}' has no "
+                                   "setting name. Put the name in the first column.")
+            continue
+        if len(row) < 2:
+            raise SettingError(f"The {where.lower()} needs two columns: setting name and value. "
+                               "Select both columns.")
+        if error_text(name):
+            raise SettingError(f"{where}, line {i}: the name cell holds the error "
+                               f"value {error_text(name)}. Enter a setting name.")
+        key = normalise_name(name)
+        if i == first_line and key in _HEADER_NAMES:
+            continue                                   # a header row above the settings
+        err = error_text(value)
+        if err:
+            raise SettingError(f"Setting '{name}': the cell holds the error value {err}. "
+                               "Enter a value or leave it blank.", setting=key)
+        if key in raw:
+            raise SettingError(f"Setting '{name}' appears twice in the {where.lower()}. "
+                               "Keep one line for it.", setting=key)
+        raw[key if key in REGISTRY else str(name).strip()] = value   # unknown: as typed
+    return raw

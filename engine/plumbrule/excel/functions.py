@@ -23,7 +23,7 @@ import functools
 from typing import Any, Callable
 
 from plumbrule import __version__
-from plumbrule.intake.cells import is_blank
+from plumbrule.intake.cells import error_text, is_blank
 from plumbrule.errors import PlumbError, SettingError
 from plumbrule.render.plain import plain_value
 from plumbrule.excel.cache import SheetCache, small_key
@@ -187,12 +187,7 @@ def _flat(value: Any) -> list[Any]:
 
 
 def _error_value(v: Any) -> str | None:
-    from plumbrule.intake import COM_ERROR_CODES, ERROR_TEXTS
-    if isinstance(v, str) and v.strip() in ERROR_TEXTS:
-        return v.strip()
-    if type(v) is int and v in COM_ERROR_CODES:
-        return COM_ERROR_CODES[v]
-    return None
+    return error_text(v)
 
 
 def _cells_given(value: Any, what: str) -> list[Any]:
@@ -224,46 +219,17 @@ def predictors_arg(value: Any) -> tuple[str, ...] | None:
     return tuple(str(c).strip() for c in cells)
 
 
-_HEADER_NAMES = {"setting", "settings", "name", "option"}
-
-
 def settings_arg(block: Any) -> dict[str, Any]:
-    """A two-column range (setting name, value) → raw settings, checked for
-    error values, names without values and names given twice."""
-    from plumbrule.settings import REGISTRY, normalise_name
-    raw: dict[str, Any] = {}
+    """A two-column range (setting name, value) → raw settings (see
+    :func:`plumbrule.settings.settings_from_rows`)."""
+    from plumbrule.settings import settings_from_rows
     if isinstance(block, dict):                        # from Python: {name: value}
         block = [[k, v] for k, v in block.items()]
     if is_blank(block):
-        return raw
+        return {}
     rows = block if isinstance(block, list) and all(isinstance(r, list) for r in block) else [
         _flat(block)]
-    for i, row in enumerate(rows, start=1):
-        name = row[0] if row else None
-        value = row[1] if len(row) > 1 else None
-        if is_blank(name):
-            if not is_blank(value):
-                raise SettingError(f"Settings range, line {i}: the value '{value}' has no "
-                                   "setting name. Put the name in the first column.")
-            continue
-        if len(row) < 2:
-            raise SettingError("The settings range needs two columns: setting name and value. "
-                               "Select both columns.")
-        if _error_value(name):
-            raise SettingError(f"Settings range, line {i}: the name cell holds the error "
-                               f"value {_error_value(name)}. Enter a setting name.")
-        key = normalise_name(name)
-        if i == 1 and key in _HEADER_NAMES:
-            continue                                   # a header row above the settings
-        err = _error_value(value)
-        if err:
-            raise SettingError(f"Setting '{name}': the cell holds the error value {err}. "
-                               "Enter a value or leave it blank.", setting=key)
-        if key in raw:
-            raise SettingError(f"Setting '{name}' appears twice in the settings range. "
-                               "Keep one line for it.", setting=key)
-        raw[key if key in REGISTRY else str(name).strip()] = value   # unknown: as typed
-    return raw
+    return settings_from_rows(rows)
 
 
 def comps_arg(value: Any) -> tuple[int, ...] | None:

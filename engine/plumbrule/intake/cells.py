@@ -54,6 +54,16 @@ _SHOWN_TEXT = 60     # longest cell text quoted back in a message
 BLANK, TEXT, NUMBER, BOOL, DATE, OTHER = "blank", "text", "number", "bool", "date", "other"
 
 
+def error_text(v: Any) -> str | None:
+    """The spreadsheet error a single cell holds ('#N/A', '#DIV/0!', …), as text, whether it
+    arrived as text or as a COM error code; None for any other cell."""
+    if isinstance(v, str) and v.strip() in ERROR_TEXTS:
+        return v.strip()
+    if type(v) is int and v in COM_ERROR_CODES:
+        return COM_ERROR_CODES[v]
+    return None
+
+
 def is_blank(v: Any) -> bool:
     """True for a cell a user sees as empty: None, NaN, NaT, NA or text of only spaces.
     The one blank-cell test of the package."""

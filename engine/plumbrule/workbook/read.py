@@ -13,6 +13,7 @@ from pathlib import Path
 from typing import Any
 
 from plumbrule.errors import WorkbookError
+from plumbrule.settings import settings_from_rows
 from plumbrule.intake import SheetTable, table_from_values
 
 
@@ -62,7 +63,7 @@ def read_inputs(path: str | Path) -> BookInputs:
             other["Settings"], other_rows["Settings"] = set_block, set_row
         return BookInputs(sales=sales, subjects=subjects,
                           comps=_comp_rows(comp_block, comp_row, comp_sheet),
-                          settings=_settings(set_block), sales_hash=hash_block(sales_block),
+                          settings=settings_from_rows(set_block, where="Settings sheet"), sales_hash=hash_block(sales_block),
                           sales_values=sales_block, other_values=other, other_rows=other_rows)
     finally:
         book.close()
@@ -119,20 +120,6 @@ def _comp_rows(block: list, header_row: int, sheet: str | None) -> tuple[int, ..
                                 sheet=sheet, row=i) from None
         out.append(int(f))
     return tuple(out)
-
-
-def _settings(block: list) -> dict[str, Any]:
-    """Rows (name, value); a header row named 'Setting' and blank names are skipped."""
-    out: dict[str, Any] = {}
-    for row in block:
-        if not row:
-            continue
-        name = row[0]
-        if name is None or not str(name).strip() or str(name).strip().lower() == "setting":
-            continue
-        value = row[1] if len(row) > 1 else None
-        out[str(name).strip()] = value
-    return out
 
 
 def hash_block(values: list) -> str:
