@@ -129,3 +129,26 @@ def test_settings_are_frozen():
     with pytest.raises(AttributeError):
         s.confidence = 0.5
     assert s.replace(confidence=0.8).confidence == 0.8 and math.isclose(s.confidence, 0.9)
+
+
+# --- the one settings-block parser (worksheet range and Settings sheet alike) -------------
+
+def test_settings_block_skips_the_header_and_blank_lines_and_keeps_extra_columns():
+    from plumbrule.settings import settings_from_rows
+    rows = [["Setting", "Value", "Default", "What it does"],
+            ["Log response", True, False, "text"],
+            [None, None, None, None],
+            ["folds", 5, 5, "text"]]
+    assert settings_from_rows(rows, where="Settings sheet") == {"log_response": True, "folds": 5}
+
+
+@pytest.mark.parametrize("rows,match", [
+    ([["folds", 5], ["Folds", 3]], r"Setting 'Folds' appears twice in the settings sheet"),
+    ([["folds", "#N/A"]], r"Setting 'folds': the cell holds the error value #N/A"),
+    ([["folds", -2146826246]], r"error value #N/A"),          # the COM code Excel passes
+    ([[None, 7]], r"Settings sheet, line 1: the value '7' has no setting name"),
+])
+def test_settings_block_errors_name_the_line_and_the_fix(rows, match):
+    from plumbrule.settings import settings_from_rows
+    with pytest.raises(SettingError, match=match):
+        settings_from_rows(rows, where="Settings sheet")
