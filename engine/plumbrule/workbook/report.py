@@ -415,8 +415,9 @@ def _ratio_study(ws, ctx, r) -> int:
                 "test in a moving market.")
     _wrapped(ws, r, 1, text, span=LAST_COL)
     r += 1
-    cod_target = {"residential": "15 or less", "newer-residential": "10 or less",
-                  "other": "20 or less"}.get(ctx.analysis.settings.property_class, "")
+    from plumbrule.ratios import COD_TARGETS
+    cod_max = COD_TARGETS.get(ctx.analysis.settings.property_class)
+    cod_target = "" if cod_max is None else f"{cod_max:g} or less"
     r = _heads(ws, r, ["Group", "Sales", "Median ratio", "COD", "PRD", "PRB", "Verdicts"],
                numeric=(2, 3, 4, 5, 6))
     for i, (_, s) in enumerate(rs.head(20).iterrows()):
