@@ -42,7 +42,7 @@ def sheet_values(frame: pd.DataFrame) -> list[list]:
             cols.append([None if v != v else float(v) for v in s.to_numpy(dtype=float)])
         else:
             cols.append([None if v == "" else v for v in s.tolist()])
-    return [list(frame.columns)] + [list(r) for r in zip(*cols)]
+    return [list(frame.columns)] + [list(r) for r in zip(*cols, strict=False)]
 
 
 def settings_block() -> list[list]:

@@ -14,6 +14,7 @@ import sys
 import numpy as np
 import pandas as pd
 import pytest
+from foreign_labels import FOREIGN_LABELS as FOREIGN  # tests/reference/foreign_labels.txt
 import statsmodels.api as sm
 from scipy.stats import t as tdist
 
@@ -26,7 +27,6 @@ FIT_KEYS = ["n_used", "n_dropped", "n_params", "df_resid", "r_squared", "adj_r_s
             "f_stat", "f_p_value", "resid_std_error", "rmse", "mae", "mape", "log_likelihood",
             "aic", "bic"]
 CHECK_KEYS = ["check", "statistic", "p_value", "threshold", "verdict", "note"]
-from foreign_labels import FOREIGN_LABELS as FOREIGN  # tests/reference/foreign_labels.txt
 
 
 @pytest.fixture(scope="module")

@@ -1,6 +1,7 @@
 """Intake: what a spreadsheet hands over becomes a typed table and a log of dropped rows.
 
-Source for the behaviour: plumbrule's intake contract (docs/methods.md, "Intake": headers, numbers stored
+Source for the behaviour: plumbrule's intake contract (docs/methods.md, "Intake": headers,
+numbers stored
 as text, error values, dropped-row log, sheet row numbers) — users' scripts and the
 worksheet functions rely on it. Spreadsheet facts used below (from memory, checkable
 in any spreadsheet): in the 1900 date system DATE(2024,1,1) = 45292, serial 1 is

@@ -13,7 +13,6 @@ PRB (Gloudemans 2011, adopted in the 2013 standard; from memory): regress
 import math
 
 import numpy as np
-import pandas as pd
 import pytest
 import statsmodels.api as sm
 from scipy.stats import binom, t as tdist
@@ -46,12 +45,12 @@ def test_weighted_mean_and_prd_hand_example():
 def test_prb_hand_example_against_written_out_slope():
     # Gloudemans' PRB written out with plain sums (simple regression slope and its t interval).
     med = 1.0
-    x = [math.log(0.5 * s + 0.5 * a / med) / math.log(2) for s, a in zip(S, A)]
-    y = [(a / s - med) / med for s, a in zip(S, A)]
+    x = [math.log(0.5 * s + 0.5 * a / med) / math.log(2) for s, a in zip(S, A, strict=False)]
+    y = [(a / s - med) / med for s, a in zip(S, A, strict=False)]
     xb, yb = sum(x) / 5, sum(y) / 5
     sxx = sum((v - xb) ** 2 for v in x)
-    slope = sum((u - xb) * (v - yb) for u, v in zip(x, y)) / sxx
-    ssr = sum((v - yb - slope * (u - xb)) ** 2 for u, v in zip(x, y))
+    slope = sum((u - xb) * (v - yb) for u, v in zip(x, y, strict=False)) / sxx
+    ssr = sum((v - yb - slope * (u - xb)) ** 2 for u, v in zip(x, y, strict=False))
     half = tdist.ppf(0.975, 3) * math.sqrt(ssr / 3 / sxx)
     got = ratios.prb(A, S, 0.95)
     assert got == pytest.approx((slope, slope - half, slope + half), rel=1e-10)

@@ -89,7 +89,9 @@ def test_vif(case):
     want = [variance_inflation_factor(x, j) for j in range(1, x.shape[1])]
     np.testing.assert_allclose(a.tables["coefficients"]["vif"][1:], want, rtol=1e-8)
     assert np.isnan(a.tables["coefficients"]["vif"][0])
-    assert row(a, "Multicollinearity: largest VIF")["statistic"] == pytest.approx(max(want), rel=1e-8)
+    assert row(a, "Multicollinearity: largest VIF")["statistic"] == pytest.approx(
+        max(want), rel=1e-8
+    )
 
 
 def test_fit_table(case):

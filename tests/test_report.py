@@ -14,6 +14,7 @@ import numpy as np
 import openpyxl
 import pandas as pd
 import pytest
+from foreign_labels import FOREIGN_LABELS as FOREIGN  # tests/reference/foreign_labels.txt
 import statsmodels.api as sm
 from openpyxl.chart import BarChart, ScatterChart
 from scipy.stats import norm
@@ -27,7 +28,6 @@ from plumbrule.workbook.stamp import make_stamp
 
 SETTINGS = {**DEMO_SETTINGS, "valuation_date": "2026-01-15", "trim_percentiles": "1,99",
             "holdout": 0.3}
-from foreign_labels import FOREIGN_LABELS as FOREIGN  # tests/reference/foreign_labels.txt
 
 
 def _write(analysis, valuation):

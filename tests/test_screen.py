@@ -62,7 +62,7 @@ def _independent_log(data, cols, lo, hi, skip=()):
 
 
 def _as_tuples(log):
-    return list(zip(log["row"], log["column"], log["value"], log["limit"]))
+    return list(zip(log["row"], log["column"], log["value"], log["limit"], strict=False))
 
 
 def _assert_same_log(got, want):

@@ -154,7 +154,7 @@ def test_screen_lists_rules_and_missing_rows(sales_cells, settings_cells, engine
     assert header[:6] == ["row", "column", "value", "rule", "limit", "reason"]
     rows = {(r[0], r[header.index("rule")]) for r in out[1:]}
     log = engine.tables["screen_log"]
-    assert {(float(r), rule) for r, rule in zip(log["row"], log["rule"])} <= rows
+    assert {(float(r), rule) for r, rule in zip(log["row"], log["rule"], strict=False)} <= rows
     assert (6.0, "missing value") in rows and (10.0, "missing value") in rows
     assert len(out) - 1 == len(log) + 2
     assert [r[0] for r in out[1:]] == sorted(r[0] for r in out[1:])

@@ -137,8 +137,11 @@ def test_reference_ties_break_alphabetically():
 
 
 def test_unknown_reference_level_is_named(sales):
-    with pytest.raises(SpecError, match=r"^Setting 'reference_levels': 'Condition' has no level "
-                                        r"'Excellent'\. Levels are: 'Average', 'Fair' and 'Good'\.$"):
+    with pytest.raises(
+        SpecError,
+        match=r"^Setting 'reference_levels': 'Condition' has no level "
+        r"'Excellent'\. Levels are: 'Average', 'Fair' and 'Good'\.$",
+    ):
         analyze(sales, dict(FULL, reference_levels="Condition=Excellent"))
 
 

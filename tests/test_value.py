@@ -17,7 +17,7 @@ import statsmodels.api as sm
 
 from plumbrule.analysis import analyze
 from plumbrule.model.design import DAYS_PER_MONTH
-from plumbrule.errors import IntakeError, PlumbError, SpecError
+from plumbrule.errors import IntakeError, SpecError
 from plumbrule.valuation.estimates import valuate
 
 HOODS = ("North", "South", "East")
@@ -258,7 +258,7 @@ def _exact_leverage(x, x0):
         for r in range(p):
             if r != c and a[r][c] != 0:
                 f = a[r][c] / a[c][c]
-                a[r] = [u - f * v for u, v in zip(a[r], a[c])]
+                a[r] = [u - f * v for u, v in zip(a[r], a[c], strict=False)]
     return float(sum(x0[j] * a[j][p] / a[j][j] for j in range(p)))
 
 

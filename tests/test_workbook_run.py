@@ -233,8 +233,12 @@ def test_text_from_the_data_stays_text(tmp_path):
     sales["Neighbourhood"] = sales["Neighbourhood"].replace({"Millbank": link})
     sales.loc[sales.index[:5], "Notes"] = "#N/A"
     settings = {k: v for k, v in demo_settings().items() if v is not None}
-    settings.update(predictors=settings["predictors"].replace("Living area", "=Size"),
-                    log_predictors="=Size,Lot size", trim_percentiles="1,99", ratio_by="Neighbourhood")
+    settings.update(
+        predictors=settings["predictors"].replace("Living area", "=Size"),
+        log_predictors="=Size,Lot size",
+        trim_percentiles="1,99",
+        ratio_by="Neighbourhood",
+    )
     # intake reads '=Size' as a name; the settings name it with a leading '='
     book = fill_template(tmp_path / "text.xlsx", sales, None, (), settings)
     assert main(["run", str(book), "--no-backup"]) == 0

@@ -3,7 +3,6 @@ sheets are what the Read me promises; ``plumbrule new`` copies it safely."""
 
 from __future__ import annotations
 
-from pathlib import Path
 
 import pytest
 

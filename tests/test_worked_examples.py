@@ -24,7 +24,7 @@ def printed(value: float, text: str, units: float = 0.5) -> bool:
 
 
 def assert_printed(values, texts, units: float = 0.5):
-    for v, t in zip(values, texts):
+    for v, t in zip(values, texts, strict=False):
         assert printed(float(v), t, units), (v, t)
 
 

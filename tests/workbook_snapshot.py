@@ -83,7 +83,9 @@ def sheet_part(path, sheet):
         wb = z.read("xl/workbook.xml").decode()
         rels = z.read("xl/_rels/workbook.xml.rels").decode()
     rid = re.search(r'<sheet [^>]*name="%s"[^>]*r:id="(rId\d+)"' % re.escape(sheet), wb).group(1)
-    target = re.search(r'Id="%s"[^>]*Target="([^"]+)"|Target="([^"]+)"[^>]*Id="%s"' % (rid, rid), rels)
+    target = re.search(
+        r'Id="%s"[^>]*Target="([^"]+)"|Target="([^"]+)"[^>]*Id="%s"' % (rid, rid), rels
+    )
     t = target.group(1) or target.group(2)
     return t.lstrip("/") if t.startswith("/") else "xl/" + t
 

@@ -20,8 +20,13 @@ from plumbrule.errors import FitError, SettingError
 from plumbrule.model.fitted import FittedModel, fit_model
 from plumbrule.settings import Settings, parse_settings
 from plumbrule.model.spec import ModelSpec, build_spec
-from plumbrule.diagnostics.tables import (checks_table, coefficient_table, correlation_table, fit_table,
-                     residual_table)
+from plumbrule.diagnostics.tables import (
+    checks_table,
+    coefficient_table,
+    correlation_table,
+    fit_table,
+    residual_table,
+)
 
 
 @dataclass(frozen=True)

@@ -112,7 +112,7 @@ def median_and_interval(r: np.ndarray, level: float = 0.95):
     j, coverage = median_rank(n, level)
     mid = [(n - 1) // 2, n // 2]
     ranks = sorted({*mid, *([j - 1, n - j] if j else [])})
-    at = dict(zip(ranks, order_stats(r, np.array(ranks))))
+    at = dict(zip(ranks, order_stats(r, np.array(ranks)), strict=False))
     med = float(at[mid[0]]) if n % 2 else float(np.mean([at[mid[0]], at[mid[1]]]))
     if j == 0:
         return med, float("nan"), float("nan"), float("nan")
@@ -178,8 +178,8 @@ def ratio_trim(estimates: pd.DataFrame, k: float = 3.0) -> pd.DataFrame:
     up = r[hit] > lim["high"]
     limit = np.where(up, lim["high"], lim["low"])
     reason = [f"ratio {v:.4g} is {'above Q3' if u else 'below Q1'} {'+' if u else '−'} "
-              f"{k:g}·IQR ({_fmt(l)}); kept in the fit, left out of the ratio study"
-              for v, u, l in zip(r[hit], up, limit)]
+              f"{k:g}·IQR ({_fmt(lim_v)}); kept in the fit, left out of the ratio study"
+              for v, u, lim_v in zip(r[hit], up, limit, strict=False)]
     return pd.DataFrame({"row": estimates["row"].to_numpy(np.int64)[hit], "column": "ratio",
                          "value": r[hit], "rule": RATIO_TRIM, "limit": limit,
                          "reason": reason})[LOG_COLUMNS]

@@ -60,7 +60,8 @@ def empty_log() -> pd.DataFrame:
 
 def screened_columns(settings: Settings, numeric_columns: Sequence[str],
                      columns: Iterable[str]) -> tuple[str, ...]:
-    """The columns trim and fence look at: ``trim_columns`` or the response and numeric predictors."""
+    """The columns trim and fence look at: ``trim_columns``, or else the response and the
+    numeric predictors."""
     if not settings.trim_columns:
         return tuple(numeric_columns)
     from plumbrule.model.spec import match_column
@@ -144,7 +145,7 @@ def outside_rule(data: pd.DataFrame, limits: pd.DataFrame, rule: str,
     reason = [f"{c} {_fmt(x)} is {'above' if up else 'below'} "
               f"{high_label if up else low_label} ({_fmt(lim)})"
               + (f"; {m} more column{'s' if m > 1 else ''} outside too" if m else "")
-              for c, x, up, lim, m in zip(col, value, is_high, limit, more)]
+              for c, x, up, lim, m in zip(col, value, is_high, limit, more, strict=False)]
     return pd.DataFrame({"row": data.index[hit].to_numpy(np.int64), "column": col,
                          "value": value, "rule": rule, "limit": limit,
                          "reason": reason})[LOG_COLUMNS]
@@ -203,7 +204,7 @@ def influence_rule(model) -> pd.DataFrame:
     reason = [(f"Cook's distance {c:.3g} is above 4/n ({c_lim:.3g})" if a else "")
               + ("; " if a and b else "")
               + (f"studentized residual {t:.3g} is beyond ±3" if b else "")
-              for a, b, c, t in zip(bc, bt, cooks[hit], stud[hit])]
+              for a, b, c, t in zip(bc, bt, cooks[hit], stud[hit], strict=False)]
     return pd.DataFrame({"row": model.rows[hit].astype(np.int64), "column": col, "value": value,
                          "rule": INFLUENCE, "limit": limit, "reason": reason})[LOG_COLUMNS]
 

@@ -36,73 +36,218 @@ def _s(*args, **kw) -> Setting:
     return Setting(*args, **kw)
 
 
-REGISTRY: dict[str, Setting] = {s.name: s for s in [
-    # --- the model --------------------------------------------------------
-    _s("response", "text", None, "Column holding the sale price (the value to explain)."),
-    _s("predictors", "columns", (), "Columns that explain the price, comma-separated."),
-    _s("categorical", "columns", (), "Predictors that are categories (neighbourhood, condition...)."),
-    _s("reference_levels", "pairs", (),
-       "Reference level per category as Column=Level, comma-separated (default: most frequent)."),
-    _s("log_response", "bool", False, "Fit the logarithm of the price (effects become percentages)."),
-    _s("log_predictors", "columns", (), "Predictors to enter as logarithms (values must be positive)."),
-    _s("date_column", "text", None,
-       "Sale-date column: adds a market-conditions trend in months since the earliest sale."),
-    _s("no_intercept", "bool", False, "Fit without an intercept (rarely right for prices)."),
-    _s("robust_se", "choice", None, "Heteroscedasticity-robust standard errors.",
-       choices=("HC1", "HC3")),
-    _s("confidence", "float", 0.95, "Confidence level for intervals, between 0.5 and 0.999.",
-       low=0.5, high=0.999),
-    # --- screening (issue: screening and validation) ----------------------
-    _s("trim_percentiles", "percentiles", None,
-       "Set aside rows outside LOW,HIGH percentiles (e.g. 1,99; 0,99 trims only the top).",
-       group="screen"),
-    _s("trim_columns", "columns", (),
-       "Columns the trim and fence rules look at (default: price and numeric predictors).",
-       group="screen"),
-    _s("iqr_fence", "float", None, "Set aside rows beyond Q1-K*IQR or Q3+K*IQR (1.5 or 3 common).",
-       group="screen", low=0.0),
-    _s("influence_screen", "bool", False,
-       "After a first fit, set aside sales with Cook's D > 4/n or |studentized residual| > 3.",
-       group="screen"),
-    _s("exclude_rows", "rows", (),
-       "Sheet rows to set aside by hand, e.g. 12,40 or 12=family sale,40=auction.", group="screen"),
-    _s("max_excluded_share", "float", 0.10,
-       "A rule removing more than this share of rows raises a watch.", group="screen",
-       low=0.0, high=1.0),
-    # --- validation and ratio study ----------------------------------------
-    _s("holdout", "float", None, "Share of sales held out to test the model (e.g. 0.3).",
-       group="validate", low=0.0, high=0.9),
-    _s("holdout_recent", "bool", False,
-       "Hold out the most recent sales by the date column instead of a random share.",
-       group="validate"),
-    _s("seed", "int", 20240601, "Seed for the random holdout and folds (same seed, same split).",
-       group="validate", low=0),
-    _s("folds", "int", 5, "Folds for cross-validation (0 turns it off).", group="validate",
-       low=0, high=100),
-    _s("ratio_by", "text", None, "Column to stratify the ratio study by (e.g. neighbourhood).",
-       group="validate"),
-    _s("property_class", "choice", "residential", "Which COD target applies.",
-       choices=("residential", "newer-residential", "other"), group="validate"),
-    _s("ratio_trim", "bool", False, "Trim ratios beyond 3*IQR before the ratio study.",
-       group="validate"),
-    # --- valuation ----------------------------------------------------------
-    _s("comps", "rows", (), "Sheet rows of comparable sales (up to 10), e.g. 12,40,57.",
-       group="value"),
-    _s("valuation_date", "date", None, "Date the value is estimated for (default: today).",
-       group="value"),
-    _s("retransform", "choice", "smearing",
-       "Log models: report the mean (smearing or lognormal factor) or the median estimate.",
-       choices=("smearing", "lognormal", "median"), group="value"),
-    _s("comp_weights", "choice", "gross", "Reconciliation weights for comparables.",
-       choices=("gross", "equal"), group="value"),
-    _s("net_adjustment_limit", "float", 0.15, "Flag a comparable whose net adjustment exceeds this share.",
-       group="value", low=0.0),
-    _s("gross_adjustment_limit", "float", 0.25,
-       "Flag a comparable whose gross adjustment exceeds this share.", group="value", low=0.0),
-    # --- the offline workbook ------------------------------------------------
-    _s("backup", "bool", True, "plumbrule run keeps the previous workbook as BOOK.xlsx.bak.",
-       group="workbook"),
-]}
+REGISTRY: dict[str, Setting] = {
+    s.name: s
+    for s in [
+        # --- the model --------------------------------------------------------
+        _s("response", "text", None, "Column holding the sale price (the value to explain)."),
+        _s("predictors", "columns", (), "Columns that explain the price, comma-separated."),
+        _s(
+            "categorical",
+            "columns",
+            (),
+            "Predictors that are categories (neighbourhood, condition...).",
+        ),
+        _s(
+            "reference_levels",
+            "pairs",
+            (),
+            "Reference level per category as Column=Level, comma-separated "
+            "(default: most frequent).",
+        ),
+        _s(
+            "log_response",
+            "bool",
+            False,
+            "Fit the logarithm of the price (effects become percentages).",
+        ),
+        _s(
+            "log_predictors",
+            "columns",
+            (),
+            "Predictors to enter as logarithms (values must be positive).",
+        ),
+        _s(
+            "date_column",
+            "text",
+            None,
+            "Sale-date column: adds a market-conditions trend in months since the earliest sale.",
+        ),
+        _s("no_intercept", "bool", False, "Fit without an intercept (rarely right for prices)."),
+        _s(
+            "robust_se",
+            "choice",
+            None,
+            "Heteroscedasticity-robust standard errors.",
+            choices=("HC1", "HC3"),
+        ),
+        _s(
+            "confidence",
+            "float",
+            0.95,
+            "Confidence level for intervals, between 0.5 and 0.999.",
+            low=0.5,
+            high=0.999,
+        ),
+        # --- screening (issue: screening and validation) ----------------------
+        _s(
+            "trim_percentiles",
+            "percentiles",
+            None,
+            "Set aside rows outside LOW,HIGH percentiles (e.g. 1,99; 0,99 trims only the top).",
+            group="screen",
+        ),
+        _s(
+            "trim_columns",
+            "columns",
+            (),
+            "Columns the trim and fence rules look at (default: price and numeric predictors).",
+            group="screen",
+        ),
+        _s(
+            "iqr_fence",
+            "float",
+            None,
+            "Set aside rows beyond Q1-K*IQR or Q3+K*IQR (1.5 or 3 common).",
+            group="screen",
+            low=0.0,
+        ),
+        _s(
+            "influence_screen",
+            "bool",
+            False,
+            "After a first fit, set aside sales with Cook's D > 4/n or |studentized residual| > 3.",
+            group="screen",
+        ),
+        _s(
+            "exclude_rows",
+            "rows",
+            (),
+            "Sheet rows to set aside by hand, e.g. 12,40 or 12=family sale,40=auction.",
+            group="screen",
+        ),
+        _s(
+            "max_excluded_share",
+            "float",
+            0.10,
+            "A rule removing more than this share of rows raises a watch.",
+            group="screen",
+            low=0.0,
+            high=1.0,
+        ),
+        # --- validation and ratio study ----------------------------------------
+        _s(
+            "holdout",
+            "float",
+            None,
+            "Share of sales held out to test the model (e.g. 0.3).",
+            group="validate",
+            low=0.0,
+            high=0.9,
+        ),
+        _s(
+            "holdout_recent",
+            "bool",
+            False,
+            "Hold out the most recent sales by the date column instead of a random share.",
+            group="validate",
+        ),
+        _s(
+            "seed",
+            "int",
+            20240601,
+            "Seed for the random holdout and folds (same seed, same split).",
+            group="validate",
+            low=0,
+        ),
+        _s(
+            "folds",
+            "int",
+            5,
+            "Folds for cross-validation (0 turns it off).",
+            group="validate",
+            low=0,
+            high=100,
+        ),
+        _s(
+            "ratio_by",
+            "text",
+            None,
+            "Column to stratify the ratio study by (e.g. neighbourhood).",
+            group="validate",
+        ),
+        _s(
+            "property_class",
+            "choice",
+            "residential",
+            "Which COD target applies.",
+            choices=("residential", "newer-residential", "other"),
+            group="validate",
+        ),
+        _s(
+            "ratio_trim",
+            "bool",
+            False,
+            "Trim ratios beyond 3*IQR before the ratio study.",
+            group="validate",
+        ),
+        # --- valuation ----------------------------------------------------------
+        _s(
+            "comps",
+            "rows",
+            (),
+            "Sheet rows of comparable sales (up to 10), e.g. 12,40,57.",
+            group="value",
+        ),
+        _s(
+            "valuation_date",
+            "date",
+            None,
+            "Date the value is estimated for (default: today).",
+            group="value",
+        ),
+        _s(
+            "retransform",
+            "choice",
+            "smearing",
+            "Log models: report the mean (smearing or lognormal factor) or the median estimate.",
+            choices=("smearing", "lognormal", "median"),
+            group="value",
+        ),
+        _s(
+            "comp_weights",
+            "choice",
+            "gross",
+            "Reconciliation weights for comparables.",
+            choices=("gross", "equal"),
+            group="value",
+        ),
+        _s(
+            "net_adjustment_limit",
+            "float",
+            0.15,
+            "Flag a comparable whose net adjustment exceeds this share.",
+            group="value",
+            low=0.0,
+        ),
+        _s(
+            "gross_adjustment_limit",
+            "float",
+            0.25,
+            "Flag a comparable whose gross adjustment exceeds this share.",
+            group="value",
+            low=0.0,
+        ),
+        # --- the offline workbook ------------------------------------------------
+        _s(
+            "backup",
+            "bool",
+            True,
+            "plumbrule run keeps the previous workbook as BOOK.xlsx.bak.",
+            group="workbook",
+        ),
+    ]
+}
 
 
 @dataclass(frozen=True)
@@ -179,7 +324,9 @@ def parse_settings(raw: Mapping[str, Any] | None = None, **kw) -> Settings:
         if name not in REGISTRY:
             close = difflib.get_close_matches(name, REGISTRY, n=1)
             hint = f" Did you mean '{close[0]}'?" if close else ""
-            raise SettingError(f"Setting '{key}' is not one plumbrule knows.{hint}", setting=str(key))
+            raise SettingError(
+                f"Setting '{key}' is not one plumbrule knows.{hint}", setting=str(key)
+            )
         if is_blank(value):
             continue
         typed[name] = _convert(REGISTRY[name], value)
@@ -197,7 +344,7 @@ def _text(s: Setting, v: Any) -> str:
 
 def _split(v: Any) -> list[str]:
     if isinstance(v, (list, tuple)):
-        parts = []
+        parts: list[Any] = []
         for item in v:
             parts.extend(_split(item) if isinstance(item, (list, tuple)) else [item])
         return [str(p).strip() for p in parts if not is_blank(p)]

@@ -226,13 +226,13 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing") 
     zy = _working_design(model, order)                 # [1 | scaled x | y], rows by fold
     z, y = zy[:, :-1], zy[:, -1]
     blocks = [(np.linalg.qr(zy[lo:hi], mode="r"), hi - lo)
-              for lo, hi in zip(bounds[:-1], bounds[1:])]
+              for lo, hi in zip(bounds[:-1], bounds[1:], strict=False)]
     nonzero = np.add.reduceat(z != 0, bounds[:-1], axis=0)
     price = model.data[model.spec.response].to_numpy(float)[order]
     log = model.spec.log_response
     pred, est = np.full(n, np.nan), np.full(n, np.nan)
     recs = []
-    for f, (lo, hi) in enumerate(zip(bounds[:-1], bounds[1:])):
+    for f, (lo, hi) in enumerate(zip(bounds[:-1], bounds[1:], strict=False)):
         keep = (nonzero.sum(axis=0) - nonzero[f]) > 0          # columns the other folds inform
         theta, df = _combine([b for g, b in enumerate(blocks) if g != f], keep)
         if theta is None:

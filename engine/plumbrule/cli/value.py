@@ -48,7 +48,7 @@ def reconciled_record(result) -> dict | None:
     totals = result.grid[result.grid["kind"] == "total"]
     rec["weights_text"] = rec.pop("weights")
     rec["weights"] = [{"row": int(r), "weight": jsonable(w)}
-                      for r, w in zip(totals["comp_row"], totals["weight"])]
+                      for r, w in zip(totals["comp_row"], totals["weight"], strict=False)]
     rec["range"] = [rec["range_low"], rec["range_high"]]
     return rec
 
@@ -99,7 +99,7 @@ def _grid_lines(result) -> list[str]:
         tot = block[block["kind"] == "total"].iloc[0]
         cells = [[f, _cell(s), _cell(c), _money(a)] for f, s, c, a in
                  zip(feats["feature"], feats["subject_value"], feats["comp_value"],
-                     feats["adjustment"])]
+                     feats["adjustment"], strict=False)]
         out += ["", f"Comparable: sales row {row}, sold for {_money(tot.sale_price)}",
                 _layout(["feature", "subject", "comparable", "adjustment"], cells),
                 f"  net {_money(tot.net_adjustment)} ({100 * tot.net_pct:+.1f}%), gross "
@@ -122,7 +122,7 @@ def _layout(headers, cells) -> str:
     widths = [max(len(h), *(len(r[i]) for r in cells)) for i, h in enumerate(headers)]
     def line(vals):
         return "  " + "  ".join(v.rjust(w) if i == len(vals) - 1 else v.ljust(w)
-                                for i, (v, w) in enumerate(zip(vals, widths)))
+                                for i, (v, w) in enumerate(zip(vals, widths, strict=False)))
     return "\n".join([line(headers)] + [line(r) for r in cells])
 
 

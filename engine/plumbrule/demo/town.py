@@ -40,10 +40,17 @@ def demo_sales(n: int = 360, seed: int = 7) -> pd.DataFrame:
     days = np.sort(rng.integers(0, 730, n))
     date = FIRST_SALE + pd.to_timedelta(days, unit="D")
     months = days / (365.2425 / 12)
-    log_price = (np.log(152_000) + 0.62 * np.log(living / 1650) + 0.11 * np.log(lot / 7200)
-                 + 0.045 * (bathrooms - 2) - 0.0042 * age
-                 + np.vectorize(_HOOD_EFFECT.get)(hood) + np.vectorize(_CONDITION_EFFECT.get)(condition)
-                 + 0.004 * months + rng.normal(0, 0.085, n))
+    log_price = (
+        np.log(152_000)
+        + 0.62 * np.log(living / 1650)
+        + 0.11 * np.log(lot / 7200)
+        + 0.045 * (bathrooms - 2)
+        - 0.0042 * age
+        + np.vectorize(_HOOD_EFFECT.get)(hood)
+        + np.vectorize(_CONDITION_EFFECT.get)(condition)
+        + 0.004 * months
+        + rng.normal(0, 0.085, n)
+    )
     price = np.round(np.exp(log_price) / 500) * 500
     frame = pd.DataFrame({
         "Sale ID": [f"Q-{2400 + i:04d}" for i in range(n)],

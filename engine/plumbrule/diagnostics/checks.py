@@ -215,8 +215,10 @@ def _variance_note(p: float, model: FittedModel) -> str:
     if p >= 0.05:
         return "Spread of errors looks the same for cheap and dear sales; intervals apply evenly."
     if model.robust_se:
-        return ("Spread of errors changes with the sale: robust standard errors are on, but the "
-                "prediction interval is still too narrow for some subjects and too wide for others.")
+        return (
+            "Spread of errors changes with the sale: robust standard errors are on, but the "
+            "prediction interval is still too narrow for some subjects and too wide for others."
+        )
     return ("Spread of errors changes with the sale: use robust standard errors (HC3) and "
             "consider a log of price; prediction intervals are uneven.")
 
@@ -289,9 +291,12 @@ def max_vif(model: FittedModel) -> Check:
     per = collinearity_by_predictor(model)
     term, v = max(per, key=lambda tv: tv[1])
     verdict = OK if v <= 5 else (WATCH if v <= 10 else FAILS)
-    note = ("Predictors are distinct enough for their effects to be read one by one." if verdict == OK
-            else f"'{term}' is largely predicted by the other predictors: its coefficient (and "
-            "any adjustment built on it) is unstable; the estimate for a typical subject is not.")
+    note = (
+        "Predictors are distinct enough for their effects to be read one by one."
+        if verdict == OK
+        else f"'{term}' is largely predicted by the other predictors: its coefficient (and "
+        "any adjustment built on it) is unstable; the estimate for a typical subject is not."
+    )
     return Check(name, v, float("nan"), threshold, verdict, note)
 
 
@@ -443,7 +448,9 @@ def max_leverage(model: FittedModel) -> Check:
             if verdict == OK else
             f"Sheet row {row} is unlike the other sales and largely sets its own estimate: "
             "check its data.")
-    return Check("Influence: largest leverage", v, float("nan"), "> 0.5 (Huber 1981)", verdict, note)
+    return Check(
+        "Influence: largest leverage", v, float("nan"), "> 0.5 (Huber 1981)", verdict, note
+    )
 
 
 def studentized_count(model: FittedModel) -> Check:

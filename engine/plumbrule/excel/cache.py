@@ -130,7 +130,7 @@ def same_cells(rows: list[list[Any]], stored: list[list[Any]], guard: tuple) -> 
         return False
     kind, parts = guard
     if kind == "rows":
-        return all(list(map(type, r)) == t for r, t in zip(rows, parts))
+        return all(list(map(type, r)) == t for r, t in zip(rows, parts, strict=False))
     columns, cells = parts
     if list(map(type, rows[0])) != list(map(type, stored[0])):   # the header row, always
         return False
@@ -160,7 +160,7 @@ def approx_size(obj: Any, _depth: int = 0) -> int:
     if isinstance(obj, pd.Series):
         return 8 * len(obj) + (64 * len(obj) if obj.dtype == object else 0)
     if isinstance(obj, pd.DataFrame):            # 8 bytes a cell, 64 more for an object
-        n_obj = sum(1 for dt in obj.dtypes if dt == object)
+        n_obj = sum(1 for dt in obj.dtypes if dt.kind == "O")
         return 8 * len(obj) * (obj.shape[1] + 1) + 64 * len(obj) * n_obj
     if _depth >= 3 or obj is None or isinstance(obj, (str, bytes, int, float, bool)):
         return 0

@@ -116,7 +116,7 @@ def frame_cells(frame) -> list[list[Any]]:
         else:
             cols.append([cell(v) for v in s.tolist()])
     out = [[text_cell(str(c)) for c in columns]]
-    out.extend(map(list, zip(*cols)) if cols else ([] for _ in range(body_rows)))
+    out.extend(map(list, zip(*cols, strict=False)) if cols else ([] for _ in range(body_rows)))
     if cut:
         note = [None] * len(columns)
         note[0] = text_cell(f"\u2026 {cut + 1} more rows not shown "

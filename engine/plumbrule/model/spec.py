@@ -79,7 +79,9 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
         raise SpecError("Setting 'response' is empty. Name the sale-price column.",
                         setting="response")
     response = match_column(settings.response, columns, "response")
-    date = match_column(settings.date_column, columns, "date_column") if settings.date_column else None
+    date = (
+        match_column(settings.date_column, columns, "date_column") if settings.date_column else None
+    )
     if date is not None and date == response:
         raise SpecError(f"Setting 'date_column': '{date}' is the response. Name the sale-date "
                         "column.", setting="date_column", column=date)
@@ -96,8 +98,12 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
     logs = _subset(settings.log_predictors, columns, preds, "log_predictors")
     both = [c for c in logs if c in cats]
     if both:
-        raise SpecError(f"Setting 'log_predictors': {quote_list(both)} is categorical; only numeric "
-                        "predictors can be logged.", setting="log_predictors", column=both[0])
+        raise SpecError(
+            f"Setting 'log_predictors': {quote_list(both)} is categorical; only numeric "
+            "predictors can be logged.",
+            setting="log_predictors",
+            column=both[0],
+        )
     refs = []
     for col, level in settings.reference_levels:
         col = match_column(col, columns, "reference_levels")

@@ -27,7 +27,7 @@ def jsonable(value: Any) -> Any:
 
 def frame_records(frame: pd.DataFrame) -> list[dict[str, Any]]:
     cols = [str(c) for c in frame.columns]
-    return [dict(zip(cols, (jsonable(v) for v in row)))
+    return [dict(zip(cols, (jsonable(v) for v in row), strict=False))
             for row in frame.itertuples(index=False, name=None)]
 
 

@@ -57,14 +57,20 @@ def grid(frame: pd.DataFrame, columns=None, headers=None, limit: int | None = No
     headers = list(headers or columns)
     formats = formats or {}
     rows = frame[columns].head(limit) if limit else frame[columns]
-    cells = [[formats.get(c, _num)(v) for c, v in zip(columns, r)]
+    cells = [[formats.get(c, _num)(v) for c, v in zip(columns, r, strict=False)]
              for r in rows.itertuples(index=False, name=None)]
     widths = [max([len(h)] + [len(r[i]) for r in cells]) for i, h in enumerate(headers)]
     numeric = [frame[c].dtype.kind in "fiu" for c in columns]
 
     def line(vals):
-        return indent + "  ".join(v.rjust(w) if isnum else v.ljust(w)
-                                  for v, w, isnum in zip(vals, widths, numeric)).rstrip()
+        return (
+            indent
+            + "  ".join(
+                v.rjust(w) if isnum else v.ljust(w)
+                for v, w, isnum in zip(vals, widths, numeric, strict=False)
+            ).rstrip()
+        )
+
     out = [line(headers), indent + "  ".join("-" * w for w in widths)] + [line(r) for r in cells]
     if limit and len(frame) > limit:
         out.append(f"{indent}... and {len(frame) - limit} more")
@@ -79,7 +85,7 @@ def effect_words(result) -> list[str]:
     log_y = enc.spec.log_response
     refs = dict(enc.levels)
     out = []
-    for name, b in zip(coefs["term"], coefs["estimate"]):
+    for name, b in zip(coefs["term"], coefs["estimate"], strict=False):
         t = terms.get(name)
         if t is None or not math.isfinite(b):
             out.append("")
@@ -144,7 +150,7 @@ def _effects_block(result) -> list[str]:
     coefs = result.tables["coefficients"].copy()
     level = int(round(100 * result.model.confidence))
     coefs["interval"] = [f"{_num(lo)} to {_num(hi)}" for lo, hi in
-                         zip(coefs["ci_low"], coefs["ci_high"])]
+                         zip(coefs["ci_low"], coefs["ci_high"], strict=False)]
     coefs["meaning"] = effect_words(result)
     cols = ["term", "estimate", "std_error", "t", "p_value", "interval", "std_beta", "vif",
             "meaning"]
@@ -162,7 +168,9 @@ def _checks_block(result) -> list[str]:
     attention = checks[checks["verdict"].isin(["watch", "fails"])]
     if len(attention):
         out += ["", "What needs attention"]
-        out += [f"  - {c}: {n}" for c, n in zip(attention["check"], attention["note"])]
+        out += [
+            f"  - {c}: {n}" for c, n in zip(attention["check"], attention["note"], strict=False)
+        ]
     return out
 
 

@@ -259,7 +259,7 @@ def reconcile(label, rows, adjusted, weights, how, flags, estimates) -> pd.DataF
     """One record: the weighted value of the adjusted prices, their range and spread."""
     value = float(np.dot(weights, adjusted))
     low, high = float(adjusted.min()), float(adjusted.max())
-    text = "; ".join(f"row {r}: {w:.3f}" for r, w in zip(rows, weights))
+    text = "; ".join(f"row {r}: {w:.3f}" for r, w in zip(rows, weights, strict=False))
     est = pi_lo = pi_hi = np.nan
     notes = []
     n_flag = sum(bool(f) for f in flags)

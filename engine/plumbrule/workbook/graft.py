@@ -125,8 +125,12 @@ def graft(user_path, result_bytes: bytes, out_path, replace: Iterable[str],
                 data = _restyle_sheet(data, style_map["xf"], style_map["dxf"])
             elif r.types.get(old, "").endswith("table+xml"):
                 table_id += 1
-                data = re.sub(rb'(<table\b[^>]*?\bid=")(\d+)(")',
-                              lambda m: m.group(1) + str(table_id).encode() + m.group(3), data, 1)
+                data = re.sub(
+                    rb'(<table\b[^>]*?\bid=")(\d+)(")',
+                    lambda m, tid=table_id: m.group(1) + str(tid).encode() + m.group(3),
+                    data,
+                    count=1,
+                )
             out[new] = data
             rel = _rels_part(old)
             if rel in rz.NameToInfo:
@@ -229,7 +233,7 @@ def _edit_workbook(data: bytes, r_data: bytes, u_sheets, kept, new_sheets, r_ord
         f'<{p}sheet{rdecl} name="{_escape(s["name"])}" sheetId="{s["sheetId"]}"'
         + (f' state="{s["state"]}"' if s["state"] else "") + f' {rp}:id="{s["rid"]}"/>'
         for s in new_sheets)
-    text = re.sub(r"</%ssheets>" % re.escape(p), lambda m: add + m.group(0), text, 1)
+    text = re.sub(r"</%ssheets>" % re.escape(p), lambda m: add + m.group(0), text, count=1)
     # 2. defined names: drop ours and those local to removed sheets; remap local indices
     old_index = {i: s for i, s in enumerate(u_sheets)}
     new_index = {s["name"]: i for i, s in enumerate(kept)}
@@ -246,7 +250,9 @@ def _edit_workbook(data: bytes, r_data: bytes, u_sheets, kept, new_sheets, r_ord
             sheet = old_index.get(int(local))
             if sheet is None or sheet not in kept:
                 return ""
-            return re.sub(r'localSheetId="\d+"', f'localSheetId="{new_index[sheet["name"]]}"', el, 1)
+            return re.sub(
+                r'localSheetId="\d+"', f'localSheetId="{new_index[sheet["name"]]}"', el, count=1
+            )
         if name in ours or name == "plumb_sheets":
             return ""
         return el
@@ -259,17 +265,23 @@ def _edit_workbook(data: bytes, r_data: bytes, u_sheets, kept, new_sheets, r_ord
             name = r_order[int(local)]
             if name not in new_index or name not in {s["name"] for s in new_sheets}:
                 continue
-            el = re.sub(r'localSheetId="\d+"', f'localSheetId="{new_index[name]}"', el, 1)
+            el = re.sub(r'localSheetId="\d+"', f'localSheetId="{new_index[name]}"', el, count=1)
         mine.append(el if not p else _prefixed(el, p))
     block = "".join(mine)
     if re.search(r"</%sdefinedNames>" % re.escape(p), text):
-        text = re.sub(r"</%sdefinedNames>" % re.escape(p), lambda m: block + m.group(0), text, 1)
+        text = re.sub(
+            r"</%sdefinedNames>" % re.escape(p), lambda m: block + m.group(0), text, count=1
+        )
     elif re.search(r"<%sdefinedNames\s*/>" % re.escape(p), text):
         text = re.sub(r"<%sdefinedNames\s*/>" % re.escape(p),
-                      lambda m: f"<{p}definedNames>{block}</{p}definedNames>", text, 1)
+                      lambda m: f"<{p}definedNames>{block}</{p}definedNames>", text, count=1)
     elif block:
-        text = re.sub(r"</%ssheets>" % re.escape(p),
-                      lambda m: m.group(0) + f"<{p}definedNames>{block}</{p}definedNames>", text, 1)
+        text = re.sub(
+            r"</%ssheets>" % re.escape(p),
+            lambda m: m.group(0) + f"<{p}definedNames>{block}</{p}definedNames>",
+            text,
+            count=1,
+        )
     text = re.sub(r"<(\w+:)?definedNames>\s*</\1?definedNames>", "", text)
     # 3. the active tab and the first visible tab follow their sheets
     text = _remap_views(text, u_sheets, kept, new_index)
@@ -434,11 +446,11 @@ def _with_prefix(el: str, item: str, p: str, ns: str) -> str:
     if not p:
         return el
     # our elements are unprefixed: declare the main namespace as their default
-    return re.sub(r"^<%s\b" % item, f"<{item}{ns}", el, 1)
+    return re.sub(r"^<%s\b" % item, f"<{item}{ns}", el, count=1)
 
 
 def _sub_id(el: str, attr: str, fn) -> str:
-    return re.sub(r'\b%s="(\d+)"' % attr, lambda m: f'{attr}="{fn(int(m.group(1)))}"', el, 1)
+    return re.sub(r'\b%s="(\d+)"' % attr, lambda m: f'{attr}="{fn(int(m.group(1)))}"', el, count=1)
 
 
 def _merge_list(text: str, rtext: str, container: str, p: str, ns: str, before=(),

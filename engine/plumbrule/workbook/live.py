@@ -430,7 +430,7 @@ def _level_list(ws, target: str, first: str, last: str, col: str) -> None:
 
 def _define_names(ws, live: LiveCells) -> None:
     from plumbrule.workbook.cells import define_name
-    for name, cell in zip(NAMES, (live.estimate, live.pi_low, live.pi_high)):
+    for name, cell in zip(NAMES, (live.estimate, live.pi_low, live.pi_high), strict=False):
         define_name(ws.parent, name, ws.title, cell.replace("$", ""))
 
 

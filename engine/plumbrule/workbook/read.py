@@ -61,10 +61,16 @@ def read_inputs(path: str | Path) -> BookInputs:
         set_block, set_row, set_sheet = _block(book, "Settings")
         if set_block:
             other["Settings"], other_rows["Settings"] = set_block, set_row
-        return BookInputs(sales=sales, subjects=subjects,
-                          comps=_comp_rows(comp_block, comp_row, comp_sheet),
-                          settings=settings_from_rows(set_block, where="Settings sheet"), sales_hash=hash_block(sales_block),
-                          sales_values=sales_block, other_values=other, other_rows=other_rows)
+        return BookInputs(
+            sales=sales,
+            subjects=subjects,
+            comps=_comp_rows(comp_block, comp_row, comp_sheet),
+            settings=settings_from_rows(set_block, where="Settings sheet"),
+            sales_hash=hash_block(sales_block),
+            sales_values=sales_block,
+            other_values=other,
+            other_rows=other_rows,
+        )
     finally:
         book.close()
 
@@ -84,8 +90,11 @@ def _block(book, name: str, required: bool = False) -> tuple[list, int, str | No
         start = ws.start[0] if ws.start else 0
         if not values or not any(str(v).strip() for v in values[0]):
             if required:
-                raise WorkbookError(f"Sheet '{sheet}' is empty. Put the sales there with a header "
-                                    "row, or use the template (plumbrule new BOOK.xlsx).", sheet=sheet)
+                raise WorkbookError(
+                    f"Sheet '{sheet}' is empty. Put the sales there with a header "
+                    "row, or use the template (plumbrule new BOOK.xlsx).",
+                    sheet=sheet,
+                )
             return [], 1, sheet
         return values, start + 1, sheet
     if required:
@@ -111,7 +120,11 @@ def _comp_rows(block: list, header_row: int, sheet: str | None) -> tuple[int, ..
         if v is None or (isinstance(v, str) and not v.strip()):
             continue
         try:
-            f = float(str(v).strip()) if not isinstance(v, (int, float)) or isinstance(v, bool) else float(v)
+            f = (
+                float(str(v).strip())
+                if not isinstance(v, (int, float)) or isinstance(v, bool)
+                else float(v)
+            )
             if isinstance(v, bool) or f != int(f) or f < 2:
                 raise ValueError
         except ValueError:

@@ -37,12 +37,11 @@ def build_charts(ws, ctx) -> list:
 # --- the charts -------------------------------------------------------------------
 
 def estimate_vs_price(book, ctx):
-    from openpyxl.chart import ScatterChart
     price, est = _training_prices(ctx)
     idx, note = _sample(len(price))
     cols = book.block("Estimate against sale price" + note,
                       ["Sale price (sales used)", "Estimate"], [price[idx], est[idx]])
-    chart = _scatter(f"Estimate against sale price{note}", f"Sale price", "Estimate")
+    chart = _scatter(f"Estimate against sale price{note}", "Sale price", "Estimate")
     chart.series.append(_points(book.ref(cols[1]), book.ref(cols[0]), "Sales used", BLUE))
     lo, hi = float(min(price.min(), est.min())), float(max(price.max(), est.max()))
     hold = ctx.table("holdout_estimates")
@@ -255,7 +254,7 @@ class _Blocks:
         c0 = self.next_col
         put(self.ws, 1, c0, title, style="plumb_label")
         out = []
-        for j, (h, values) in enumerate(zip(headers, columns)):
+        for j, (h, values) in enumerate(zip(headers, columns, strict=False)):
             col = c0 + j
             put(self.ws, 2, col, h, style="plumb_header")
             for i, v in enumerate(values):

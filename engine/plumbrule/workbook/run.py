@@ -165,7 +165,13 @@ def write_results(book, analysis, valuation, stamp) -> None:
     """Create and fill the result sheets (Report first) and the headline names."""
     from plumbrule.workbook import live, report
     from plumbrule.workbook.cells import ensure_styles
-    from plumbrule.workbook.sheets import write_model, write_screening, write_validation, write_valuation
+    from plumbrule.workbook.sheets import (
+        write_model,
+        write_screening,
+        write_validation,
+        write_valuation,
+    )
+
     ensure_styles(book)
     sheets = {name: book.create_sheet(name) for name in RESULT_SHEETS if name != "Chart data"}
     write_model(sheets["Model"], analysis, stamp)

@@ -32,39 +32,72 @@ _SS = _CT + "spreadsheetml."
 
 # Content types openpyxl reads and writes back faithfully (or regenerates harmlessly).
 CARRIED = {
-    _SS + "sheet.main+xml", "application/vnd.ms-excel.sheet.macroEnabled.main+xml",
-    _SS + "worksheet+xml", _SS + "styles+xml", _SS + "sharedStrings+xml", _SS + "table+xml",
-    _SS + "comments+xml", _SS + "calcChain+xml", _SS + "externalLink+xml",
-    _CT + "theme+xml", _CT + "vmlDrawing", "application/vnd.openxmlformats-package.core-properties+xml",
-    _CT + "extended-properties+xml", _CT + "custom-properties+xml",
+    _SS + "sheet.main+xml",
+    "application/vnd.ms-excel.sheet.macroEnabled.main+xml",
+    _SS + "worksheet+xml",
+    _SS + "styles+xml",
+    _SS + "sharedStrings+xml",
+    _SS + "table+xml",
+    _SS + "comments+xml",
+    _SS + "calcChain+xml",
+    _SS + "externalLink+xml",
+    _CT + "theme+xml",
+    _CT + "vmlDrawing",
+    "application/vnd.openxmlformats-package.core-properties+xml",
+    _CT + "extended-properties+xml",
+    _CT + "custom-properties+xml",
     "application/vnd.openxmlformats-package.relationships+xml",
-    _SS + "printerSettings", "application/xml",
+    _SS + "printerSettings",
+    "application/xml",
 }
-VBA_TYPES = {"application/vnd.ms-office.vbaProject", "application/vnd.ms-office.vbaProjectSignature"}
+VBA_TYPES = {
+    "application/vnd.ms-office.vbaProject",
+    "application/vnd.ms-office.vbaProjectSignature",
+}
 _FRIENDLY_TYPES = [
     ("drawing+xml", "pictures, shapes, text boxes or charts"),
-    ("chartsheet", "chart sheets"), ("drawingml.chart", "charts"), ("chartStyle", "charts"),
-    ("chartColorStyle", "charts"), ("pivotTable", "pivot tables"), ("pivotCache", "pivot caches"),
-    ("slicer", "slicers"), ("timeline", "timelines"), ("ctrlProps", "form controls"),
-    ("activeX", "ActiveX controls"), ("oleObject", "embedded objects"), ("package", "embedded objects"),
-    ("threadedComment", "threaded comments"), ("person", "threaded comments"),
-    ("connections", "data connections"), ("queryTable", "query tables"),
-    ("sheetMetadata", "dynamic-array formula metadata"), ("rdRichValue", "pictures in cells"),
-    ("richData", "pictures in cells"), ("customXml", "custom XML data"),
-    ("revision", "shared-workbook revisions"), ("image/", "pictures"), ("model", "data model"),
-    ("webextension", "add-in task panes"), ("dialogsheet", "dialog sheets"),
-    ("macrosheet", "Excel 4 macro sheets"), ("volatileDependencies", "volatile dependencies"),
+    ("chartsheet", "chart sheets"),
+    ("drawingml.chart", "charts"),
+    ("chartStyle", "charts"),
+    ("chartColorStyle", "charts"),
+    ("pivotTable", "pivot tables"),
+    ("pivotCache", "pivot caches"),
+    ("slicer", "slicers"),
+    ("timeline", "timelines"),
+    ("ctrlProps", "form controls"),
+    ("activeX", "ActiveX controls"),
+    ("oleObject", "embedded objects"),
+    ("package", "embedded objects"),
+    ("threadedComment", "threaded comments"),
+    ("person", "threaded comments"),
+    ("connections", "data connections"),
+    ("queryTable", "query tables"),
+    ("sheetMetadata", "dynamic-array formula metadata"),
+    ("rdRichValue", "pictures in cells"),
+    ("richData", "pictures in cells"),
+    ("customXml", "custom XML data"),
+    ("revision", "shared-workbook revisions"),
+    ("image/", "pictures"),
+    ("model", "data model"),
+    ("webextension", "add-in task panes"),
+    ("dialogsheet", "dialog sheets"),
+    ("macrosheet", "Excel 4 macro sheets"),
+    ("volatileDependencies", "volatile dependencies"),
 ]
 # Extensions (extLst) named for the user; every sheet-level extension is a part openpyxl drops.
 _EXT_NAMES = {
     "05C60535-1F16-4FD2-B633-F4F36F0B64E0": "sparklines",
-    "78C0D931-6437-407D-A8EE-F0AAD7539E65": "data bars, icon sets or other newer conditional formats",
+    "78C0D931-6437-407D-A8EE-F0AAD7539E65":
+        "data bars, icon sets or other newer conditional formats",
     "CCE6A557-97BC-4B89-ADB6-D9C93CAAB3DF": "data validations that use other sheets",
-    "A8765BA9-456A-4DAB-B4F3-ACF838C121DE": "slicers", "3A4CF648-6AED-40F4-86FF-DC5316D8AED3": "slicers",
+    "A8765BA9-456A-4DAB-B4F3-ACF838C121DE": "slicers",
+    "3A4CF648-6AED-40F4-86FF-DC5316D8AED3": "slicers",
     "7E03D99C-DC04-49D9-9315-930204A7B6E9": "timelines",
     "FCE2AD5D-F65C-4FA6-A056-5C36A1767C68": "data model",
-    "BBE1A952-AA13-448E-AADC-164F8A28A991": "slicers", "46BE6895-7355-4A93-B00E-2C351335B9C9": "slicers",
-    "876F7934-8845-4945-9796-88D515C7AA90": "pivot caches", "841E416B-1EF1-43B6-AB56-02D37102CBD5": "pivot caches",
+    "BBE1A952-AA13-448E-AADC-164F8A28A991": "slicers",
+    "46BE6895-7355-4A93-B00E-2C351335B9C9": "slicers",
+    "876F7934-8845-4945-9796-88D515C7AA90": "pivot caches",
+    "841E416B-1EF1-43B6-AB56-02D37102CBD5": "pivot caches",
 }
 # Sheet elements openpyxl's reader drops (after </sheetData>).
 _SHEET_DROPPED = {
@@ -185,12 +218,19 @@ def _rels(z: zipfile.ZipFile, part: str) -> dict[str, tuple[str, str]]:
 
 def _content_types(z: zipfile.ZipFile) -> dict[str, str]:
     if "[Content_Types].xml" not in z.NameToInfo:
-        raise WorkbookError("The file is a zip archive but not a workbook (no [Content_Types].xml). "
-                            "Save it from your spreadsheet as an Excel workbook (.xlsx).")
+        raise WorkbookError(
+            "The file is a zip archive but not a workbook (no [Content_Types].xml). "
+            "Save it from your spreadsheet as an Excel workbook (.xlsx)."
+        )
     root = _parse(z.read("[Content_Types].xml"), "[Content_Types].xml")
     ns = "{http://schemas.openxmlformats.org/package/2006/content-types}"
-    defaults = {d.get("Extension", "").lower(): d.get("ContentType", "") for d in root.iter(ns + "Default")}
-    overrides = {o.get("PartName", "").lstrip("/"): o.get("ContentType", "") for o in root.iter(ns + "Override")}
+    defaults = {
+        d.get("Extension", "").lower(): d.get("ContentType", "") for d in root.iter(ns + "Default")
+    }
+    overrides = {
+        o.get("PartName", "").lstrip("/"): o.get("ContentType", "")
+        for o in root.iter(ns + "Override")
+    }
     types = {}
     for name in z.namelist():
         if name.endswith("/"):

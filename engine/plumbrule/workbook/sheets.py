@@ -12,8 +12,19 @@ from typing import Any, Callable
 import pandas as pd
 
 from plumbrule.render.wording import CAUTION
-from plumbrule.workbook.cells import (INTEGER, MONEY, PERCENT, RATIO, define_name, note, put, sig3, title,
-                    write_frame, write_pairs)
+from plumbrule.workbook.cells import (
+    INTEGER,
+    MONEY,
+    PERCENT,
+    RATIO,
+    define_name,
+    note,
+    put,
+    sig3,
+    title,
+    write_frame,
+    write_pairs,
+)
 
 # Words on screen for the engine's column names (the tables keep their own names).
 _WORDS = {
@@ -84,7 +95,9 @@ def _stat_formats(frame: pd.DataFrame) -> dict[str, Any]:
     return {c: _default_format(frame[c], c) for c in frame.columns}
 
 
-def _widths(ws, frame: pd.DataFrame, left: int = 1, minimum: float = 10, maximum: float = 48) -> None:
+def _widths(
+    ws, frame: pd.DataFrame, left: int = 1, minimum: float = 10, maximum: float = 48
+) -> None:
     from openpyxl.utils import get_column_letter
     for j, c in enumerate(frame.columns):
         letter = get_column_letter(left + j)
@@ -254,7 +267,11 @@ def write_valuation(ws, analysis, valuation, live: Callable | None = None) -> in
         r += 2
     else:
         est = valuation.estimates
-        conf = f"{float(est['confidence'].iloc[0]):.0%}" if "confidence" in est.columns and len(est) else ""
+        conf = (
+            f"{float(est['confidence'].iloc[0]):.0%}"
+            if "confidence" in est.columns and len(est)
+            else ""
+        )
         first, r = _table(ws, r, "Estimates for the subjects", est, _price_scale_formats(est),
                           explain=f"PI low / PI high: {conf} prediction interval for one sale; "
                                   "CI: interval for the mean price of such properties.")

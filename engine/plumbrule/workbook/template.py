@@ -208,10 +208,12 @@ def _settings(ws) -> None:
         ws.add_data_validation(dv)
     bools.showErrorMessage = True
     last = len(REGISTRY) + 1
-    table = Table(displayName="Settings", ref=f"A1:{get_column_letter(len(SETTINGS_COLUMNS))}{last}")
+    table = Table(
+        displayName="Settings", ref=f"A1:{get_column_letter(len(SETTINGS_COLUMNS))}{last}"
+    )
     table.tableStyleInfo = TableStyleInfo(name="TableStyleLight9", showRowStripes=True)
     ws.add_table(table)
-    for letter, width in zip("ABCD", (24, 40, 14, 80)):
+    for letter, width in zip("ABCD", (24, 40, 14, 80), strict=False):
         ws.column_dimensions[letter].width = width
     ws.freeze_panes = "A2"
 
