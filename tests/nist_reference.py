@@ -5,7 +5,7 @@ Source: NIST/ITL Statistical Reference Datasets, Linear Least Squares Regression
 file's header gives the line ranges of its certified values and of its data;
 we read those ranges rather than fixed offsets.
 
-Shared by tests/test_nist.py and benchmarks/nist_digits.py.
+Shared by tests/model/test_nist.py and benchmarks/nist_digits.py.
 """
 
 from __future__ import annotations

@@ -1,7 +1,7 @@
 """The "try a subject" block: its native formulas give the engine's valuation.
 
 The formulas are evaluated in Python by tests/formula_eval.py (spreadsheet
-semantics of the few functions the block uses); tests/test_libreoffice.py checks
+semantics of the few functions the block uses); tests/workbook/test_libreoffice.py checks
 the same cells in a real spreadsheet. References: statsmodels OLS
 get_prediction().summary_frame() (reference library) for the estimate and the
 prediction interval; plumbrule.value.valuate for the engine's own figures.
