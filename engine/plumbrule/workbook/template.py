@@ -3,7 +3,7 @@
 The template is built by code (so it can be reviewed and rebuilt) and the built
 file is committed once, inside the package (engine/plumbrule/templates/), for
 ``plumbrule new`` and ``plumbrule demo``; ``plumbrule new BOOK.xlsx`` gives a user their
-copy. tests/test_workbook_template.py checks it matches what :func:`build_template` makes.
+copy. tests/workbook/test_workbook_template.py checks it matches what :func:`build_template` makes.
 """
 
 from __future__ import annotations
