@@ -25,7 +25,7 @@ import threading
 from collections import OrderedDict
 from dataclasses import dataclass
 from operator import itemgetter
-from typing import Any, Callable, Hashable
+from typing import Any, Callable, Hashable, Iterable
 
 DEFAULT_MAX_ENTRIES = 16
 DEFAULT_MAX_BYTES = 512 * 2**20
@@ -164,6 +164,7 @@ def approx_size(obj: Any, _depth: int = 0) -> int:
         return 8 * len(obj) * (obj.shape[1] + 1) + 64 * len(obj) * n_obj
     if _depth >= 3 or obj is None or isinstance(obj, (str, bytes, int, float, bool)):
         return 0
+    items: Iterable[Any]
     if isinstance(obj, dict):
         items = obj.values()
     elif isinstance(obj, (list, tuple)):
