@@ -161,9 +161,9 @@ def test_ratio_trim_uses_three_iqr_fence_of_ratios():
 
 def test_analysis_ratio_study_on_holdout(demo_frame):
     res = analyze(demo_frame, {**DEMO_SETTINGS, "holdout": 0.3, "ratio_by": "Neighbourhood"})
-    study, hold = res.tables["ratio_study"], res.tables["holdout_estimates"]
+    study, hold = res.tables.ratio_study, res.tables.holdout_estimates
     assert study["sample"].iloc[0] == "holdout"
-    assert study["n"].iloc[0] == len(hold) == res.tables["fit"]["n_holdout"].iloc[0]
+    assert study["n"].iloc[0] == len(hold) == res.tables.fit["n_holdout"].iloc[0]
     assert study["n"].iloc[1:].sum() == study["n"].iloc[0]
     # ratio = estimate / sale price, median as numpy computes it
     np.testing.assert_allclose(hold["ratio"], hold["estimate"] / hold["sale_price"])
@@ -172,24 +172,24 @@ def test_analysis_ratio_study_on_holdout(demo_frame):
 
 def test_without_holdout_study_is_labelled(demo_frame):
     res = analyze(demo_frame, {**DEMO_SETTINGS, "folds": 0})
-    assert res.tables["ratio_study"]["sample"].iloc[0].startswith("in-sample")
-    assert len(res.tables["holdout_estimates"]) == 0
+    assert res.tables.ratio_study["sample"].iloc[0].startswith("in-sample")
+    assert len(res.tables.holdout_estimates) == 0
     res = analyze(demo_frame, DEMO_SETTINGS)
-    assert res.tables["ratio_study"]["sample"].iloc[0].startswith("cross-validated")
+    assert res.tables.ratio_study["sample"].iloc[0].startswith("cross-validated")
 
 
 def test_ratio_trim_reported_in_screen_log(demo_frame):
     res = analyze(demo_frame, {**DEMO_SETTINGS, "holdout": 0.3, "ratio_trim": True,
                                "predictors": "Living area,Condition", "log_predictors": "",
                                "categorical": "Condition"})
-    log = res.tables["screen_log"]
+    log = res.tables.screen_log
     trimmed = log[log["rule"] == "ratio trim"]
-    hold = res.tables["holdout_estimates"]
+    hold = res.tables.holdout_estimates
     assert 364 in set(trimmed["row"])     # the demo's family transfer (61,000) is in the holdout
     assert set(trimmed["row"]) == set(hold.loc[~hold["in_study"], "row"])
-    assert res.tables["ratio_study"]["n"].iloc[0] == int(hold["in_study"].sum())
+    assert res.tables.ratio_study["n"].iloc[0] == int(hold["in_study"].sum())
     # a ratio trim does not change the fit: n_screened counts only fit rules
-    assert res.tables["fit"]["n_screened"].iloc[0] == len(log) - len(trimmed)
+    assert res.tables.fit["n_screened"].iloc[0] == len(log) - len(trimmed)
 
 
 def test_regressive_estimates_show_in_prd_and_prb():

@@ -34,7 +34,7 @@ def test_percentile_tail_off(demo_frame):
     lim = screen.percentile_limits(data, COLS, 0, 99)
     assert np.all(np.isneginf(lim["low"]))
     res = analyze(demo_frame, {**DEMO_SETTINGS, "trim_percentiles": "0,99"})
-    log = res.tables["screen_log"]
+    log = res.tables.screen_log
     assert len(log) > 0 and (log["value"] > log["limit"]).all()
 
 
@@ -76,10 +76,10 @@ def test_trim_log_agrees_row_for_row(demo_frame):
     data = _clean(demo_frame)
     lo, hi = np.percentile(data[COLS].to_numpy(float), [1, 99], axis=0)
     res = analyze(demo_frame, {**DEMO_SETTINGS, "trim_percentiles": "1,99"})
-    log = res.tables["screen_log"]
+    log = res.tables.screen_log
     assert set(log["rule"]) == {"percentile trim"}
     _assert_same_log(_as_tuples(log), _independent_log(data, COLS, lo, hi))
-    assert res.tables["fit"]["n_used"].iloc[0] == len(data) - len(log)
+    assert res.tables.fit["n_used"].iloc[0] == len(data) - len(log)
 
 
 def test_manual_then_fence_order_and_log(demo_frame):
@@ -89,7 +89,7 @@ def test_manual_then_fence_order_and_log(demo_frame):
     lo, hi = q1 - 3 * (q3 - q1), q3 + 3 * (q3 - q1)
     res = analyze(demo_frame, {**DEMO_SETTINGS, "iqr_fence": 3,
                                "exclude_rows": "362=small hotel,40"})
-    log = res.tables["screen_log"]
+    log = res.tables.screen_log
     manual = log[log["rule"] == "manual"]
     assert list(manual["row"]) == [40, 362]
     assert list(manual["reason"]) == ["set aside by hand (no reason given)", "small hotel"]
@@ -101,7 +101,7 @@ def test_manual_then_fence_order_and_log(demo_frame):
 def test_trim_columns_limits_the_rule(demo_frame):
     res = analyze(demo_frame, {**DEMO_SETTINGS, "trim_percentiles": "5,95",
                                "trim_columns": "living area"})
-    log = res.tables["screen_log"]
+    log = res.tables.screen_log
     assert set(log["column"]) == {"Living area"}
     data = _clean(demo_frame)["Living area"]
     lo, hi = np.percentile(data, [5, 95])
@@ -124,11 +124,11 @@ def test_influence_rule_matches_statsmodels(demo_frame):
     flagged = first.rows[(infl.cooks_distance[0] > 4 / n)
                          | (np.abs(infl.resid_studentized_external) > 3)]
     res = analyze(demo_frame, {**DEMO_SETTINGS, "influence_screen": True, "folds": 0})
-    log = res.tables["screen_log"]
+    log = res.tables.screen_log
     assert set(log["rule"]) == {"influence"} and len(flagged) > 0
     assert list(log["row"]) == list(flagged)
-    assert res.tables["fit"]["n_used"].iloc[0] == n - len(flagged)
-    assert res.tables["fit"]["n_screened"].iloc[0] == len(flagged)
+    assert res.tables.fit["n_used"].iloc[0] == n - len(flagged)
+    assert res.tables.fit["n_screened"].iloc[0] == len(flagged)
     cooks = log[log["column"] == "Cook's distance"]
     np.testing.assert_allclose(cooks["value"],
                                infl.cooks_distance[0][np.isin(first.rows, cooks["row"])],
@@ -138,23 +138,23 @@ def test_influence_rule_matches_statsmodels(demo_frame):
 def test_watch_when_rule_removes_more_than_ten_percent(demo_frame):
     # 10 % default share (issue setting max_excluded_share; common practice, no source).
     res = analyze(demo_frame, {**DEMO_SETTINGS, "trim_percentiles": "5,95"})
-    checks = res.tables["checks"].set_index("check")
-    share = (res.tables["screen_log"]["rule"] == "percentile trim").sum() / len(_clean(demo_frame))
+    checks = res.tables.checks.set_index("check")
+    share = (res.tables.screen_log["rule"] == "percentile trim").sum() / len(_clean(demo_frame))
     assert share > 0.10
     assert checks.loc["Screening: percentile trim", "verdict"] == "watch"
     assert checks.loc["Screening: percentile trim", "statistic"] == pytest.approx(share)
     ok = analyze(demo_frame, {**DEMO_SETTINGS, "trim_percentiles": "5,95",
-                              "max_excluded_share": 0.5}).tables["checks"].set_index("check")
+                              "max_excluded_share": 0.5}).tables.checks.set_index("check")
     assert ok.loc["Screening: percentile trim", "verdict"] == "ok"
-    mild = analyze(demo_frame, {**DEMO_SETTINGS, "iqr_fence": 3}).tables["checks"]
+    mild = analyze(demo_frame, {**DEMO_SETTINGS, "iqr_fence": 3}).tables.checks
     assert mild.set_index("check").loc["Screening: IQR fence", "verdict"] == "ok"
 
 
 def test_screen_summary_box_plot_numbers(demo_frame):
     data = _clean(demo_frame)
     res = analyze(demo_frame, {**DEMO_SETTINGS, "trim_percentiles": "1,99", "iqr_fence": 1.5})
-    summ = res.tables["screen_summary"].set_index("item")
-    log = res.tables["screen_log"]
+    summ = res.tables.screen_summary.set_index("item")
+    log = res.tables.screen_log
     after = data.drop(index=log["row"])
     assert summ.loc["all rows", "rows_before"] == len(data)
     assert summ.loc["all rows", "rows_after"] == len(after)
@@ -175,8 +175,8 @@ def test_screen_summary_box_plot_numbers(demo_frame):
 
 def test_no_screening_leaves_tables_empty_but_present(demo_frame):
     res = analyze(demo_frame, {**DEMO_SETTINGS, "folds": 0})
-    assert list(res.tables["screen_log"].columns) == screen.LOG_COLUMNS
-    assert len(res.tables["screen_log"]) == 0
-    assert res.tables["fit"]["n_screened"].iloc[0] == 0
-    summ = res.tables["screen_summary"]
+    assert list(res.tables.screen_log.columns) == screen.LOG_COLUMNS
+    assert len(res.tables.screen_log) == 0
+    assert res.tables.fit["n_screened"].iloc[0] == 0
+    summ = res.tables.screen_summary
     assert set(summ.loc[summ["kind"] == "column", "item"]) == set(COLS)

@@ -25,8 +25,8 @@ def test_holdout_same_seed_same_split_other_seed_differs(demo_frame):
     assert list(a.holdout.index) == list(b.holdout.index)
     assert list(a.holdout.index) != list(c.holdout.index)
     # share 0.3 of 363 clean rows, rounded half up (no screening here)
-    assert len(a.holdout) == round(0.3 * 363) == a.tables["fit"]["n_holdout"].iloc[0]
-    assert a.tables["fit"]["n_used"].iloc[0] == 363 - len(a.holdout)
+    assert len(a.holdout) == round(0.3 * 363) == a.tables.fit["n_holdout"].iloc[0]
+    assert a.tables.fit["n_used"].iloc[0] == 363 - len(a.holdout)
     assert not set(a.holdout.index) & set(a.model.rows)
 
 
@@ -77,13 +77,13 @@ def test_cv_predictions_match_statsmodels_refit(demo_frame):
 
 def test_validation_table_against_direct_formulas(demo_frame):
     res = analyze(demo_frame, {**SIMPLE, "holdout": 0.3})
-    val = res.tables["validation"].set_index("set")
-    fit = res.tables["fit"].iloc[0]
+    val = res.tables.validation.set_index("set")
+    fit = res.tables.fit.iloc[0]
     # Linear model: training R², RMSE, MAE equal the fit table's (same rows, same scale).
     assert val.loc["training", "r_squared"] == pytest.approx(fit["r_squared"], rel=1e-12)
     assert val.loc["training", "rmse"] == pytest.approx(fit["rmse"], rel=1e-12)
     assert val.loc["training", "mae"] == pytest.approx(fit["mae"], rel=1e-12)
-    h = res.tables["holdout_estimates"]
+    h = res.tables.holdout_estimates
     e = h["sale_price"] - h["estimate"]
     assert val.loc["holdout", "n"] == len(h) == len(res.holdout)
     assert val.loc["holdout", "rmse"] == pytest.approx(np.sqrt(np.mean(e ** 2)))
@@ -104,7 +104,7 @@ def test_holdout_estimates_match_statsmodels_training_fit(demo_frame):
     ref = sm.OLS(m.y, sm.add_constant(m.x)).fit()
     xh = sm.add_constant(m.encoding.design(res.holdout), has_constant="add")
     want = np.exp(ref.predict(xh)) * np.mean(np.exp(ref.resid))     # Duan (1983) smearing
-    np.testing.assert_allclose(res.tables["holdout_estimates"]["estimate"], want, rtol=1e-9)
+    np.testing.assert_allclose(res.tables.holdout_estimates["estimate"], want, rtol=1e-9)
 
 
 def test_unseen_level_moves_to_training_with_watch():
@@ -119,7 +119,7 @@ def test_unseen_level_moves_to_training_with_watch():
     res = analyze(frame, response="Price", predictors="Area,Kind", categorical="Kind",
                   holdout=0.3, seed=seed, folds=0)
     assert n + 1 in res.model.rows and n + 1 not in res.holdout.index   # sheet row of "Rare"
-    check = res.tables["checks"].set_index("check").loc[
+    check = res.tables.checks.set_index("check").loc[
         "Holdout: category levels unseen in training"]
     assert check["verdict"] == "watch" and str(n + 1) in check["note"]
 
@@ -155,16 +155,16 @@ def test_default_folds_do_not_break_a_tiny_table():
     # A user who never set 'folds' still gets a fit on four sales; the table says CV did not run.
     frame = pd.DataFrame({"Price": [100.0, 121, 139, 162], "Area": [1.0, 2, 3, 4]})
     res = analyze(frame, response="Price", predictors="Area")
-    val = res.tables["validation"].set_index("set")
+    val = res.tables.validation.set_index("set")
     assert "not run" in val.loc["folds", "note"]
-    assert res.tables["ratio_study"]["sample"].iloc[0].startswith("in-sample")
+    assert res.tables.ratio_study["sample"].iloc[0].startswith("in-sample")
 
 
 def test_cv_estimates_cover_every_training_row_once(demo_frame):
     res = analyze(demo_frame, {**DEMO_SETTINGS, "holdout": 0.3, "folds": 4})
-    cv = res.tables["cv_estimates"]
+    cv = res.tables.cv_estimates
     assert sorted(cv["row"]) == sorted(res.model.rows)          # each training row exactly once
     assert set(cv["fold"]) == {1, 2, 3, 4}
-    val = res.tables["validation"].set_index("set")
+    val = res.tables.validation.set_index("set")
     assert [val.loc[f"fold {f}", "n"] for f in range(1, 5)] == list(
         cv["fold"].value_counts().sort_index())

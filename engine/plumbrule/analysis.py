@@ -6,8 +6,8 @@ worksheet functions, workbook) renders its ``tables`` and never computes.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
-from typing import Any, Mapping
+from dataclasses import dataclass, field, fields
+from typing import Any, Iterator, Mapping
 
 import numpy as np
 import pandas as pd
@@ -18,6 +18,7 @@ from plumbrule import validation as validate
 from plumbrule.diagnostics.checks import WATCH, Check, run_checks
 from plumbrule.errors import FitError, SettingError
 from plumbrule.model.fitted import FittedModel, fit_model
+from plumbrule.model.retransform import price_estimates
 from plumbrule.settings import Settings, parse_settings
 from plumbrule.model.spec import ModelSpec, build_spec
 from plumbrule.diagnostics.tables import (
@@ -30,11 +31,48 @@ from plumbrule.diagnostics.tables import (
 
 
 @dataclass(frozen=True)
+class AnalysisTables:
+    """The tables of one run, each a DataFrame, always present (empty when a step did not
+    run). Field order is the order of the JSON output."""
+
+    coefficients: pd.DataFrame
+    fit: pd.DataFrame
+    checks: pd.DataFrame
+    dropped_rows: pd.DataFrame
+    residuals: pd.DataFrame
+    correlations: pd.DataFrame
+    screen_log: pd.DataFrame
+    screen_summary: pd.DataFrame
+    validation: pd.DataFrame
+    ratio_study: pd.DataFrame
+    holdout_estimates: pd.DataFrame
+    cv_estimates: pd.DataFrame
+
+    @classmethod
+    def names(cls) -> tuple[str, ...]:
+        return tuple(f.name for f in fields(cls))
+
+    def items(self) -> Iterator[tuple[str, pd.DataFrame]]:
+        """(name, table) pairs in field order."""
+        return ((name, getattr(self, name)) for name in self.names())
+
+    def table(self, name: str) -> pd.DataFrame:
+        """The table called ``name``; an unknown name is a :class:`SettingError` listing them."""
+        if name not in self.names():
+            raise SettingError(f"There is no table '{name}'. Tables: {', '.join(self.names())}.",
+                               setting="table")
+        return getattr(self, name)
+
+    @property
+    def set_aside(self) -> pd.DataFrame:
+        """Every sale left out of the fit, one row per sale and reason: the screening log
+        plus the rows intake dropped for missing values (rule 'missing value')."""
+        return screen.set_aside_table(self.screen_log, self.dropped_rows)
+
+
+@dataclass(frozen=True)
 class Analysis:
-    """The result of one run. ``tables`` maps a table name to a DataFrame:
-    coefficients, fit, checks, dropped_rows, residuals, correlations,
-    screen_log, screen_summary, validation, ratio_study, holdout_estimates,
-    cv_estimates (always present; empty when a step did not run).
+    """The result of one run: :class:`AnalysisTables` in ``tables``.
 
     ``model`` is fitted on the training rows (after screening); ``holdout``
     holds the clean holdout rows it never saw (empty without a holdout).
@@ -45,7 +83,7 @@ class Analysis:
     table: intake.SheetTable
     clean: intake.CleanData
     model: FittedModel
-    tables: Mapping[str, pd.DataFrame] = field(default_factory=dict)
+    tables: AnalysisTables
     holdout: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @property
@@ -131,21 +169,21 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
                                                          settings.max_excluded_share)
     if len(moved):
         checks.append(_moved_check(moved))
-    tables = {
-        "coefficients": coefficient_table(model),
-        "fit": fit_table(model, n_dropped=len(clean.dropped),
-                         extra={"n_holdout": len(hold), "n_screened": len(fit_log)}),
-        "checks": checks_table(checks),
-        "dropped_rows": clean.dropped,
-        "residuals": residual_table(model),
-        "correlations": correlation_table(model),
-        "screen_log": screen_log,
-        "screen_summary": screen.summary_table(clean.data, after, screen_log, columns, looked),
-        "validation": validation,
-        "ratio_study": study,
-        "holdout_estimates": holdout_estimates,
-        "cv_estimates": cv_estimates,
-    }
+    tables = AnalysisTables(
+        coefficients=coefficient_table(model),
+        fit=fit_table(model, n_dropped=len(clean.dropped),
+                      extra={"n_holdout": len(hold), "n_screened": len(fit_log)}),
+        checks=checks_table(checks),
+        dropped_rows=clean.dropped,
+        residuals=residual_table(model),
+        correlations=correlation_table(model),
+        screen_log=screen_log,
+        screen_summary=screen.summary_table(clean.data, after, screen_log, columns, looked),
+        validation=validation,
+        ratio_study=study,
+        holdout_estimates=holdout_estimates,
+        cv_estimates=cv_estimates,
+    )
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
                     tables=tables, holdout=hold)
 
@@ -181,9 +219,9 @@ def _screen_and_split(data: pd.DataFrame, spec: ModelSpec, settings: Settings,
 
 def _validate(model: FittedModel, hold: pd.DataFrame, settings: Settings):
     """(validation table, holdout estimates on the price scale, CrossValidation or None)."""
-    factor = validate.model_factor(model, settings.retransform)
+    factor = model.retransform_factor(settings.retransform)
     h_pred = validate.predict(model, hold) if len(hold) else np.empty(0)
-    h_est = validate.price_estimates(h_pred, model.spec.log_response, factor)
+    h_est = price_estimates(h_pred, model.spec.log_response, factor)
     cv = None
     if settings.folds and settings.folds <= model.fit.n:
         cv = validate.cross_validate(model, settings.folds, settings.seed, settings.retransform)
@@ -211,8 +249,7 @@ def _ratio_tables(model: FittedModel, hold: pd.DataFrame, h_est: np.ndarray, cv,
     elif cv is not None:
         sample, study_est = "cross-validated (out-of-fold)", cv_estimates
     else:
-        fitted = validate.price_estimates(model.fit.fitted, spec.log_response,
-                                          validate.model_factor(model, settings.retransform))
+        fitted = model.fitted_prices(settings.retransform)
         sample = "in-sample (optimistic: the model has seen these sales)"
         study_est = ratios.estimates_table(model.rows, model.data[spec.response], fitted,
                                            strat(model.data))

@@ -58,6 +58,21 @@ def empty_log() -> pd.DataFrame:
                          "limit": pd.Series(dtype=float), "reason": pd.Series(dtype=object)})
 
 
+MISSING = "missing value"
+
+
+def set_aside_table(log: pd.DataFrame, dropped: pd.DataFrame) -> pd.DataFrame:
+    """The screening log (LOG_COLUMNS) plus the rows intake dropped for missing values that
+    the log does not already list (rule 'missing value'), in sheet-row order."""
+    extra = dropped[~dropped["row"].isin(log["row"])]
+    if not len(extra):
+        return log
+    extra = pd.DataFrame({"row": extra["row"], "column": extra["column"], "value": None,
+                          "rule": MISSING, "limit": None, "reason": extra["reason"]})
+    out = pd.concat([log.astype(object), extra[LOG_COLUMNS].astype(object)], ignore_index=True)
+    return out.sort_values("row", kind="stable", ignore_index=True)
+
+
 def screened_columns(settings: Settings, numeric_columns: Sequence[str],
                      columns: Iterable[str]) -> tuple[str, ...]:
     """The columns trim and fence look at: ``trim_columns``, or else the response and the

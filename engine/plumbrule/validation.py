@@ -24,6 +24,7 @@ import pandas as pd
 
 from plumbrule.errors import SettingError
 from plumbrule.settings import Settings
+from plumbrule.model.retransform import price_estimates, retransform_factor
 from plumbrule.numeric.vectors import dot
 
 DEFAULT_HOLDOUT = 0.30
@@ -117,34 +118,6 @@ def unseen_level_rows(training: pd.DataFrame, holdout: pd.DataFrame,
 def predict(model, data: pd.DataFrame, label: str = "holdout row") -> np.ndarray:
     """Model-scale predictions (log price for log models) for clean rows ``data``."""
     return model.predict(model.encoding.design(data, label))
-
-
-def retransform_factor(resid: np.ndarray, method: str = "smearing",
-                       df_resid: int | None = None) -> float:
-    """Factor turning exp(log-scale prediction) into a price estimate.
-
-    smearing: mean(exp(residual)) (Duan 1983); lognormal: exp(s²/2) with
-    s² = Σe²/df_resid; median: 1 (the estimate is the median price).
-    """
-    resid = np.asarray(resid, dtype=float)
-    if method == "median":
-        return 1.0
-    if method == "lognormal":
-        df = len(resid) if df_resid is None else df_resid
-        return float(np.exp(0.5 * dot(resid, resid) / df))
-    return float(np.mean(np.exp(resid)))
-
-
-def price_estimates(pred: np.ndarray, log_response: bool, factor: float = 1.0) -> np.ndarray:
-    """Model-scale predictions → estimates in price units."""
-    return np.exp(pred) * factor if log_response else np.asarray(pred, dtype=float)
-
-
-def model_factor(model, method: str) -> float:
-    """The retransformation factor of a fitted model (1 for a price-scale model)."""
-    if not model.spec.log_response:
-        return 1.0
-    return retransform_factor(model.fit.resid, method, model.fit.df_resid)
 
 
 # --- error figures ---------------------------------------------------------------
@@ -243,8 +216,7 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing") 
         factor = 1.0
         if log:   # the retransformation factor of the fit on the other folds
             e = y - z[:, keep] @ theta
-            e[lo:hi] = 0.0
-            factor = _factor_excluding(e, hi - lo, retransform, df)
+            factor = retransform_factor(np.concatenate([e[:lo], e[hi:]]), retransform, df)
         zf = z[lo:hi]
         usable = ~np.any(zf[:, ~keep] != 0, axis=1)
         p = zf[usable][:, keep] @ theta
@@ -260,16 +232,6 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing") 
     back[order] = np.arange(n)                                 # sorted position of each row
     table = pd.DataFrame(recs).reindex(columns=VALIDATION_COLUMNS)
     return CrossValidation(folds=table, labels=labels, pred=pred[back], estimate=est[back])
-
-
-def _factor_excluding(e: np.ndarray, n_zeroed: int, method: str, df: int) -> float:
-    """Retransformation factor of residuals ``e`` where ``n_zeroed`` held-out entries are 0."""
-    if method == "median":
-        return 1.0
-    if method == "lognormal":
-        return float(np.exp(0.5 * dot(e, e) / df))
-    m = len(e) - n_zeroed
-    return float((np.sum(np.exp(e)) - n_zeroed) / m)
 
 
 def _working_design(model, order: np.ndarray) -> np.ndarray:
@@ -328,7 +290,7 @@ def validation_table(model, retransform: str, holdout: pd.DataFrame | None = Non
     spec = model.spec
     price = model.data[spec.response].to_numpy(float)
     fitted = model.fit.fitted
-    est = price_estimates(fitted, spec.log_response, model_factor(model, retransform))
+    est = price_estimates(fitted, spec.log_response, model.retransform_factor(retransform))
     y = model.y if spec.log_response else price        # equal arrays on the price scale
     recs = [{"set": "training", **error_figures(price, est, y, fitted),
              "note": "in-sample: the rows the model was fitted on"}]

@@ -11,7 +11,7 @@ def test_demo_coefficients_match_statsmodels(demo_frame):
     res = analyze(demo_frame, DEMO_SETTINGS)
     x = sm.add_constant(res.model.x)
     ref = sm.OLS(res.model.y, x).fit()
-    coefs = res.tables["coefficients"]
+    coefs = res.tables.coefficients
     np.testing.assert_allclose(coefs["estimate"], ref.params, rtol=1e-9)
     np.testing.assert_allclose(coefs["std_error"], ref.bse, rtol=1e-9)
-    assert res.tables["fit"]["n_used"].iloc[0] == len(demo_frame)
+    assert res.tables.fit["n_used"].iloc[0] == len(demo_frame)

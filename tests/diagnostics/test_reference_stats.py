@@ -59,12 +59,12 @@ def case(request):
 
 
 def row(a, name):
-    return a.tables["checks"].set_index("check").loc[name]
+    return a.tables.checks.set_index("check").loc[name]
 
 
 def test_coefficients_and_ci(case):
     a, ref, _ = case
-    c = a.tables["coefficients"]
+    c = a.tables.coefficients
     # statsmodels OLS params / bse / tvalues / pvalues / conf_int(0.05)
     np.testing.assert_allclose(c["estimate"], ref.params, rtol=RTOL)
     np.testing.assert_allclose(c["std_error"], ref.bse, rtol=RTOL)
@@ -80,15 +80,15 @@ def test_std_beta(case):
     # Econometrics, sec. 6.1 "beta coefficients"), computed here from statsmodels' params.
     a, ref, x = case
     want = ref.params[1:] * x[:, 1:].std(axis=0, ddof=1) / a.model.y.std(ddof=1)
-    np.testing.assert_allclose(a.tables["coefficients"]["std_beta"][1:], want, rtol=RTOL)
+    np.testing.assert_allclose(a.tables.coefficients["std_beta"][1:], want, rtol=RTOL)
 
 
 def test_vif(case):
     # statsmodels variance_inflation_factor on the design with its constant column
     a, _, x = case
     want = [variance_inflation_factor(x, j) for j in range(1, x.shape[1])]
-    np.testing.assert_allclose(a.tables["coefficients"]["vif"][1:], want, rtol=1e-8)
-    assert np.isnan(a.tables["coefficients"]["vif"][0])
+    np.testing.assert_allclose(a.tables.coefficients["vif"][1:], want, rtol=1e-8)
+    assert np.isnan(a.tables.coefficients["vif"][0])
     assert row(a, "Multicollinearity: largest VIF")["statistic"] == pytest.approx(
         max(want), rel=1e-8
     )
@@ -96,7 +96,7 @@ def test_vif(case):
 
 def test_fit_table(case):
     a, ref, _ = case
-    f = a.tables["fit"].iloc[0]
+    f = a.tables.fit.iloc[0]
     # statsmodels rsquared, rsquared_adj, fvalue, f_pvalue, llf, aic, bic, scale
     assert f["r_squared"] == pytest.approx(ref.rsquared, rel=RTOL)
     assert f["adj_r_squared"] == pytest.approx(ref.rsquared_adj, rel=RTOL)
@@ -185,7 +185,7 @@ def test_ramsey_reset_does_not_depend_on_price_units():
 def test_residual_table(case):
     a, ref, _ = case
     infl = OLSInfluence(ref)                                # statsmodels OLSInfluence
-    t = a.tables["residuals"]
+    t = a.tables.residuals
     np.testing.assert_allclose(t["fitted"], ref.fittedvalues, rtol=1e-12)
     np.testing.assert_allclose(t["residual"], ref.resid, rtol=1e-7, atol=1e-9 * ref.resid.std())
     np.testing.assert_allclose(t["leverage"], infl.hat_matrix_diag, rtol=1e-9)
@@ -214,10 +214,10 @@ def test_robust_standard_errors():
     for kind in ("HC1", "HC3"):
         a = analyze(data, GENERATED, robust_se=kind)
         ref = sm.OLS(a.model.y, sm.add_constant(a.model.x)).fit(cov_type=kind)  # statsmodels
-        c = a.tables["coefficients"]
+        c = a.tables.coefficients
         np.testing.assert_allclose(c["std_error"], ref.bse, rtol=1e-8)
         np.testing.assert_allclose(c["t"], ref.tvalues, rtol=1e-8)
-        f = a.tables["fit"].iloc[0]
+        f = a.tables.fit.iloc[0]
         # robust Wald F of all slopes = 0 (statsmodels fvalue under a robust cov_type)
         assert f["f_stat"] == pytest.approx(float(ref.fvalue), rel=1e-7)
         assert f["se_type"] == kind
@@ -235,7 +235,7 @@ def test_condition_number_of_centred_scaled_design(case):
 def test_correlation_table_and_pairs(case):
     a, _, _ = case
     m = np.corrcoef(np.column_stack([a.model.y, a.model.x]), rowvar=False)   # numpy corrcoef
-    got = a.tables["correlations"].drop(columns="term").to_numpy()
+    got = a.tables.correlations.drop(columns="term").to_numpy()
     np.testing.assert_allclose(got, m, rtol=1e-10, atol=1e-12)
     k = a.model.x.shape[1]
     pairs = int(np.sum(np.abs(m[1:, 1:][np.triu_indices(k, 1)]) > 0.8))
@@ -285,23 +285,23 @@ def test_categorical_levels_use_a_reference_not_a_rank_error():
     # the design is full rank (the dummy-variable trap is avoided, not reported).
     data = generated_sales(200)
     a = analyze(data, response="Price", predictors="Area,Hood", categorical="Hood", folds=0)
-    terms = list(a.tables["coefficients"]["term"])
+    terms = list(a.tables.coefficients["term"])
     assert terms == ["intercept", "Area", "Hood: Heath", "Hood: Mill", "Hood: Quay"]
     assert a.model.encoding.reference("Hood") == "North"       # the most frequent level
     dummies = pd.get_dummies(data["Hood"])[["Heath", "Mill", "Quay"]].to_numpy(float)
     ref = sm.OLS(data["Price"].to_numpy(), sm.add_constant(
         np.column_stack([data["Area"], dummies]))).fit()       # statsmodels, same coding
-    np.testing.assert_allclose(a.tables["coefficients"]["estimate"], ref.params, rtol=1e-9)
+    np.testing.assert_allclose(a.tables.coefficients["estimate"], ref.params, rtol=1e-9)
 
 
 def test_no_intercept_fit_matches_statsmodels():
     data = generated_sales(150)
     a = analyze(data, response="Price", predictors="Area,Lot,Age", no_intercept=True, folds=0)
     ref = sm.OLS(a.model.y, a.model.x).fit()                   # statsmodels, no constant
-    c = a.tables["coefficients"]
+    c = a.tables.coefficients
     np.testing.assert_allclose(c["estimate"], ref.params, rtol=RTOL)
     np.testing.assert_allclose(c["std_error"], ref.bse, rtol=RTOL)
-    f = a.tables["fit"].iloc[0]
+    f = a.tables.fit.iloc[0]
     assert f["r_squared"] == pytest.approx(ref.rsquared, rel=RTOL)    # uncentred R²
     assert f["f_stat"] == pytest.approx(ref.fvalue, rel=RTOL)
     assert f["aic"] == pytest.approx(ref.aic, rel=RTOL)
@@ -317,11 +317,11 @@ def test_robust_se_blank_for_a_level_with_one_sale():
                           "Hood": ["North"] * 6 + ["Mill", "Quay"]})
     a = analyze(frame, response="Price", predictors="Area,Hood", categorical="Hood",
                 robust_se="HC1", folds=0)
-    c = a.tables["coefficients"].set_index("term")
+    c = a.tables.coefficients.set_index("term")
     assert c.loc[["Hood: Mill", "Hood: Quay"], "std_error"].isna().all()
     ref = sm.OLS(a.model.y, sm.add_constant(a.model.x)).fit(cov_type="HC1")   # statsmodels
     np.testing.assert_allclose(c.loc[["intercept", "Area"], "std_error"], ref.bse[:2], rtol=1e-6)
-    assert np.isnan(a.tables["fit"]["f_stat"].iloc[0])
+    assert np.isnan(a.tables.fit["f_stat"].iloc[0])
 
 
 def test_reset_not_applicable_when_fitted_values_take_two_values():

@@ -222,12 +222,12 @@ def test_dropped_rows_reach_the_analysis_tables():
     rows[5][1] = "#N/A"        # sheet row 6
     rows[9][0] = None          # sheet row 10
     res = analyze(rows, response="Price", predictors="Area", folds=0)
-    assert res.tables["dropped_rows"].to_dict("records") == [
+    assert res.tables.dropped_rows.to_dict("records") == [
         {"row": 6, "column": "Area", "reason": "error value #N/A"},
         {"row": 10, "column": "Price", "reason": "blank"}]
-    assert res.tables["fit"]["n_dropped"].iloc[0] == 2
-    assert res.tables["fit"]["n_used"].iloc[0] == 18
-    assert 6 not in res.tables["residuals"]["row"].tolist()
+    assert res.tables.fit["n_dropped"].iloc[0] == 2
+    assert res.tables.fit["n_used"].iloc[0] == 18
+    assert 6 not in res.tables.residuals["row"].tolist()
 
 
 def test_interior_empty_row_is_logged_trailing_ones_are_selection():

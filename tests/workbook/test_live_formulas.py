@@ -24,11 +24,11 @@ from plumbrule.workbook import live
 VDATE = "2026-01-15"
 
 
-def _book(analysis, valuation, **kw):
+def _book(analysis, valuation):
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.title = "Valuation"
-    nxt = live.write_live_block(ws, analysis, valuation, 4, **kw)
+    nxt = live.write_live_block(ws, analysis, valuation, 4)
     return wb, ws, nxt
 
 
@@ -76,7 +76,7 @@ def _statsmodels_prediction(model, x0, cov_type="nonrobust"):
 
 def test_log_model_block_equals_engine_and_statsmodels(demo):
     analysis, valuation = demo
-    wb, ws, _ = _book(analysis, valuation, subjects=demo_subjects())
+    wb, ws, _ = _book(analysis, valuation)
     ev = Evaluator(ws)
     e = valuation.estimates.iloc[0]
     got = [_named(wb, n, ev) for n in live.NAMES]
@@ -94,7 +94,7 @@ def test_log_model_block_equals_engine_and_statsmodels(demo):
 
 def test_changing_a_feature_moves_the_value_as_the_engine_says(demo):
     analysis, valuation = demo
-    wb, ws, _ = _book(analysis, valuation, subjects=demo_subjects())
+    wb, ws, _ = _book(analysis, valuation)
     _input_cell(ws, "Condition").value = "Excellent"
     _input_cell(ws, "Living area").value = 2100
     _input_cell(ws, "Valuation date").value = dt.datetime(2025, 6, 30)
@@ -109,7 +109,7 @@ def test_changing_a_feature_moves_the_value_as_the_engine_says(demo):
 
 def test_robust_linear_block_uses_the_robust_covariance(robust_linear):
     analysis, valuation, subject = robust_linear
-    wb, ws, _ = _book(analysis, valuation, subjects=subject)
+    wb, ws, _ = _book(analysis, valuation)
     ev = Evaluator(ws)
     got = [_named(wb, n, ev) for n in live.NAMES]
     e = valuation.estimates.iloc[0]
@@ -125,7 +125,7 @@ def test_robust_linear_block_uses_the_robust_covariance(robust_linear):
 
 def test_block_uses_only_functions_both_spreadsheets_evaluate(demo):
     analysis, valuation = demo
-    wb, ws, _ = _book(analysis, valuation, subjects=demo_subjects())
+    wb, ws, _ = _book(analysis, valuation)
     import re
     used = set()
     for row in ws.iter_rows():
@@ -139,7 +139,7 @@ def test_block_uses_only_functions_both_spreadsheets_evaluate(demo):
 
 def test_categories_get_a_drop_down_of_levels_and_text_stays_text(robust_linear):
     analysis, valuation, subject = robust_linear
-    wb, ws, _ = _book(analysis, valuation, subjects=subject)
+    wb, ws, _ = _book(analysis, valuation)
     cell = _input_cell(ws, "Hood")
     assert cell.value == "South" and cell.data_type == "s"
     lists = [dv for dv in ws.data_validations.dataValidation if dv.type == "list"]
@@ -163,18 +163,17 @@ def test_without_subjects_the_block_starts_from_the_first_sale(demo):
     assert got == pytest.approx(ref.estimates["estimate"].iloc[0], rel=1e-12)
 
 
-def test_block_reads_the_subject_from_the_subjects_sheet(demo):
-    """The run path passes no subjects: the block finds the valued row on 'Subjects'."""
-    analysis, valuation = demo
+def test_block_starts_from_the_subject_as_the_engine_typed_it(demo):
+    """A subject typed with a text number ('1,840') starts the block at 1840, the value the
+    engine valued; the block's estimate is the engine's."""
+    analysis, _ = demo
+    frame = demo_subjects().drop(columns=["Sale date"]).astype(object)
+    frame.loc[frame.index[0], "Living area"] = "1,840"
+    valuation = valuate(analysis, frame)
     wb = openpyxl.Workbook()
-    subj = wb.active
-    subj.title = "Subjects"
-    frame = demo_subjects().drop(columns=["Sale date"])
-    subj.append(list(frame.columns))
-    subj.append(["14 Lantern Row", "1,840", 7600, 18, 3, 2.5, "Good", "Fenby Park"])
-    ws = wb.create_sheet("Valuation")
+    ws = wb.active
     live.write_live_block(ws, analysis, valuation, 1)
-    assert _input_cell(ws, "Living area").value == 1840.0     # text number typed as the engine did
+    assert _input_cell(ws, "Living area").value == 1840.0
     got = _named(wb, "plumb_live_estimate", Evaluator(ws))
     assert got == pytest.approx(valuation.estimates["estimate"].iloc[0], rel=1e-12)
 
@@ -192,7 +191,7 @@ def test_no_intercept_median_retransform_block_equals_statsmodels():
                        log_predictors="Area", no_intercept=True, retransform="median")
     subject = pd.DataFrame({"Area": [1300.0], "Rooms": [4.0]})
     valuation = valuate(analysis, subject)
-    wb, ws, _ = _book(analysis, valuation, subjects=subject)
+    wb, ws, _ = _book(analysis, valuation)
     got = [_named(wb, n, Evaluator(ws)) for n in live.NAMES]
     model = analysis.model
     res = sm.OLS(model.y, model.x).fit()                      # no constant column

@@ -88,8 +88,8 @@ def test_model_sentence_names_every_predictor_and_the_fit(demo):
     for col in analysis.spec.predictors:
         assert col in sentence
     assert "logarithm of Sale price" in sentence
-    assert f"{int(analysis.tables['fit']['n_used'].iloc[0]):,} sales" in sentence
-    assert f"{analysis.tables['fit']['r_squared'].iloc[0]:.1%}" in sentence
+    assert f"{int(analysis.tables.fit['n_used'].iloc[0]):,} sales" in sentence
+    assert f"{analysis.tables.fit['r_squared'].iloc[0]:.1%}" in sentence
 
 
 def test_headline_numbers_carry_money_and_percent_formats(demo):
@@ -103,13 +103,13 @@ def test_headline_numbers_carry_money_and_percent_formats(demo):
     assert pi.offset(0, 2).value == valuation.estimates["pi_high"].iloc[0]
     r2 = _find(ws, "Share of variation explained (R²)").offset(0, 1)
     assert r2.number_format == PERCENT
-    assert r2.value == analysis.tables["fit"]["r_squared"].iloc[0]     # unrounded
+    assert r2.value == analysis.tables.fit["r_squared"].iloc[0]     # unrounded
 
 
 def test_check_statistics_show_three_significant_digits(demo):
     analysis, _, wb = demo
     ws = wb["Report"]
-    checks = analysis.tables["checks"]
+    checks = analysis.tables.checks
     for _, c in checks.iterrows():
         cell = _find(ws, c["check"])
         shown = cell.offset(0, 2)
@@ -131,7 +131,7 @@ def test_charts_are_native_with_the_expected_series(demo):
                           "Normal quantile plot of residuals",
                           "Standardized coefficients (blue raises the price, red lowers it)"]
     assert isinstance(charts[0], ScatterChart) and isinstance(charts[3], BarChart)
-    screened = analysis.tables["screen_summary"]
+    screened = analysis.tables.screen_summary
     cols = screened.loc[screened["kind"] == "column", "item"].tolist()
     assert titles[4:] == [f"{c}: before and after screening" for c in cols]
     names = [[s.tx.v for s in c.series] for c in charts]
@@ -159,10 +159,10 @@ def test_normal_quantile_plot_uses_blom_positions(demo):
     analysis, _, wb = demo
     s = wb["Report"]._charts[2].series[0]
     theo, z = _values(wb, s.xVal.numRef.f), _values(wb, s.yVal.numRef.f)
-    n = len(analysis.tables["residuals"])
+    n = len(analysis.tables.residuals)
     i = np.arange(1, n + 1)
     np.testing.assert_allclose(theo, norm.ppf((i - 0.375) / (n + 0.25)), rtol=1e-12)
-    np.testing.assert_array_equal(z, np.sort(analysis.tables["residuals"]
+    np.testing.assert_array_equal(z, np.sort(analysis.tables.residuals
                                              ["standardized_residual"]))
 
 
@@ -170,7 +170,7 @@ def test_standardized_coefficient_bars_follow_the_table(demo):
     analysis, _, wb = demo
     chart = wb["Report"]._charts[3]
     vals = _values(wb, chart.series[0].val.numRef.f)
-    coef = analysis.tables["coefficients"].dropna(subset=["std_beta"])
+    coef = analysis.tables.coefficients.dropna(subset=["std_beta"])
     np.testing.assert_allclose(np.sort(vals), np.sort(coef["std_beta"]), rtol=1e-15)
     assert list(np.abs(vals)) == sorted(np.abs(vals))            # largest drawn at the top
     red = {p.idx for p in chart.series[0].dPt}
@@ -185,7 +185,7 @@ def test_box_plot_traces_pandas_five_numbers_before_and_after(demo):
     sales = demo_sales()["Sale price"]
     q = sales.quantile([0, 0.25, 0.5, 0.75, 1]).to_numpy()
     assert sorted(set(before)) == sorted(set(q))
-    kept = sales.drop(index=[r - 2 for r in analysis.tables["screen_log"]["row"]])
+    kept = sales.drop(index=[r - 2 for r in analysis.tables.screen_log["row"]])
     assert sorted(set(after)) == sorted(set(kept.quantile([0, 0.25, 0.5, 0.75, 1])))
     iqr = q[3] - q[1]
     fences = _values(wb, chart.series[2].xVal.numRef.f)
@@ -207,7 +207,7 @@ def test_large_books_plot_an_even_sample_and_say_so():
     assert len(_values(wb, scatter.series[0].xVal.numRef.f)) == 2000
     qq = _values(wb, charts[2].series[0].yVal.numRef.f)
     assert len(qq) == 2000 and np.all(np.diff(qq) >= 0)
-    ordered = np.sort(analysis.tables["residuals"]["standardized_residual"])
+    ordered = np.sort(analysis.tables.residuals["standardized_residual"])
     assert qq[0] == ordered[0] and qq[-1] == ordered[-1]           # the extremes are kept
     text = "\n".join(_texts(wb["Report"]))
     assert "No subject was valued" in text
@@ -239,7 +239,7 @@ def test_a_failing_check_is_put_before_the_reader_first():
     b = a + rng.normal(0, 10, n)
     sales = pd.DataFrame({"Price": 50 * a + 50 * b + rng.normal(0, 9000, n), "A": a, "B": b})
     analysis = analyze(sales, response="Price", predictors="A,B")
-    vif = analysis.tables["coefficients"]["vif"].max()
+    vif = analysis.tables.coefficients["vif"].max()
     assert vif > 10
     ws = _write(analysis, None)["Report"]
     first = _find(ws, "Before relying on the value").offset(1, 0).value

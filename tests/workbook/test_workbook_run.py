@@ -73,7 +73,7 @@ def test_headline_names_hold_the_engine_numbers(ran):
     ols = sm.OLS(a.model.y, np.column_stack([np.ones(len(a.model.y)), a.model.x])).fit()
     assert _value(book, "plumb_r_squared").value == pytest.approx(ols.rsquared, rel=1e-10)
     assert _value(book, "plumb_n_used").value == int(ols.nobs)
-    study = a.tables["ratio_study"].iloc[0]
+    study = a.tables.ratio_study.iloc[0]
     for m in ("cod", "prd", "prb"):
         assert _value(book, f"plumb_{m}").value == pytest.approx(study[m], rel=1e-12), m
 

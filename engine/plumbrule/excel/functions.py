@@ -366,11 +366,7 @@ def valuation_for(sales, response, predictors, subject, comps, settings):
 
 
 def _table(analysis, name: str):
-    table = analysis.tables.get(name)
-    if table is None:
-        raise PlumbError(f"This engine has no '{name}' table yet. Update plumbrule "
-                         "(pip install -U plumbrule).")
-    return table
+    return analysis.tables.table(name)
 
 
 # Argument help per parameter name; every model function takes a subset of these.
@@ -425,8 +421,6 @@ def PLUMB_CHECKS(sales, response, predictors, settings=None):
                        sales, response, predictors, settings)
 
 
-SCREEN_COLUMNS = ["row", "column", "value", "rule", "limit", "reason"]
-
 
 @sheet_function
 def PLUMB_SCREEN(sales, response, predictors, settings=None):
@@ -436,23 +430,8 @@ def PLUMB_SCREEN(sales, response, predictors, settings=None):
 
 
 def screen_table(analysis):
-    """The screening log, plus rows intake dropped for missing values that the log
-    does not already list (rule 'missing value'), in sheet-row order."""
-    import pandas as pd
-    log = analysis.tables.get("screen_log")
-    log = pd.DataFrame(columns=SCREEN_COLUMNS) if log is None else log
-    dropped = analysis.tables.get("dropped_rows")
-    if dropped is not None and len(dropped):
-        extra = dropped[~dropped["row"].isin(log["row"])] if "row" in log else dropped
-        if len(extra):
-            extra = pd.DataFrame({"row": extra["row"], "column": extra["column"],
-                                  "value": None, "rule": "missing value", "limit": None,
-                                  "reason": extra["reason"]})
-            extra = extra.reindex(columns=list(log.columns) if len(log.columns) else
-                                  SCREEN_COLUMNS)
-            log = pd.concat([log.astype(object), extra.astype(object)], ignore_index=True)
-            log = log.sort_values("row", kind="stable", ignore_index=True)
-    return log
+    """Every sale set aside: the engine's screening log and missing-value rows in one."""
+    return analysis.tables.set_aside
 
 
 @sheet_function
@@ -463,13 +442,8 @@ def PLUMB_RATIOS(sales, response, predictors, settings=None):
 
 
 def ratio_table(analysis):
-    """The engine's ratio study; an empty one says which setting makes one."""
-    table = analysis.tables.get("ratio_study")
-    if table is None or len(table) == 0:
-        raise SettingError("The sales-ratio study needs holdout sales or cross-validation. "
-                           "Add the setting holdout (e.g. 0.3) or folds (e.g. 5) to the "
-                           "settings range.", setting="holdout")
-    return table
+    """The engine's ratio study (in-sample, labelled so, without holdout or folds)."""
+    return analysis.tables.ratio_study
 
 
 @sheet_function

@@ -11,6 +11,7 @@ import pandas as pd
 from plumbrule.model.design import Encoding, make_encoding
 from plumbrule.model.influence import Influence, influence
 from plumbrule.model.ols import OLSFit, fit_ols
+from plumbrule.model.retransform import FACTOR_NOTES, price_estimates, retransform_factor
 from plumbrule.model.spec import ModelSpec
 from plumbrule.numeric.vectors import dot
 
@@ -66,12 +67,27 @@ class FittedModel:
             return np.sqrt(np.diag(self.cov))
         return self.fit.se
 
-
     def t_quantile(self, level: float) -> float:
         """The two-sided Student t quantile for a ``level`` interval (e.g. 0.95) on the
         residual degrees of freedom: the multiplier of every interval this model reports."""
         from scipy.stats import t as tdist
         return float(tdist.ppf(0.5 + level / 2.0, self.fit.df_resid))
+
+    def retransform_factor(self, method: str) -> float:
+        """The factor (unitless) that turns exp(log prediction) into a price estimate under
+        ``method`` (smearing / lognormal / median); 1 for a price-scale model."""
+        if not self.spec.log_response:
+            return 1.0
+        return retransform_factor(self.fit.resid, method, self.fit.df_resid)
+
+    def factor_note(self, method: str) -> str:
+        """What :meth:`retransform_factor` is, in words."""
+        return FACTOR_NOTES[method if self.spec.log_response else "price"]
+
+    def fitted_prices(self, method: str) -> np.ndarray:
+        """The fitted values of the sales used, in price units (retransformed by ``method``)."""
+        return price_estimates(self.fit.fitted, self.spec.log_response,
+                               self.retransform_factor(method))
 
     def predict(self, x: np.ndarray) -> np.ndarray:
         """x'b on the model scale (log price for log models) for design rows ``x``,

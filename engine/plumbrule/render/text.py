@@ -79,7 +79,7 @@ def grid(frame: pd.DataFrame, columns=None, headers=None, limit: int | None = No
 
 def effect_words(result) -> list[str]:
     """Each coefficient said in words, on the price scale where it has one."""
-    coefs = result.tables["coefficients"]
+    coefs = result.tables.coefficients
     enc = result.encoding
     terms = {t.name: t for t in enc.terms}
     log_y = enc.spec.log_response
@@ -104,7 +104,7 @@ def effect_words(result) -> list[str]:
 
 
 def _header(result) -> list[str]:
-    fit = result.tables["fit"].iloc[0]
+    fit = result.tables.fit.iloc[0]
     enc = result.encoding
     lines = [f"plumbrule  hedonic model of {enc.response_name}"]
     facts = [f"{int(fit['n_used']):,} sales used", f"{int(fit['n_dropped']):,} rows left out "
@@ -124,7 +124,7 @@ def _header(result) -> list[str]:
 
 
 def _fit_block(result) -> list[str]:
-    fit = result.tables["fit"].iloc[0]
+    fit = result.tables.fit.iloc[0]
     log_y = result.encoding.spec.log_response
     sigma = float(fit["resid_std_error"])
     if log_y:
@@ -147,7 +147,7 @@ def _fit_block(result) -> list[str]:
 
 
 def _effects_block(result) -> list[str]:
-    coefs = result.tables["coefficients"].copy()
+    coefs = result.tables.coefficients.copy()
     level = int(round(100 * result.model.confidence))
     coefs["interval"] = [f"{_num(lo)} to {_num(hi)}" for lo, hi in
                          zip(coefs["ci_low"], coefs["ci_high"], strict=False)]
@@ -161,7 +161,7 @@ def _effects_block(result) -> list[str]:
 
 
 def _checks_block(result) -> list[str]:
-    checks = result.tables["checks"]
+    checks = result.tables.checks
     out = ["Checks of the model",
            grid(checks, ["verdict", "check", "statistic", "p_value", "threshold"],
                 ["verdict", "check", "value", "p", "flagged when"], formats={"p_value": _p})]
@@ -175,7 +175,7 @@ def _checks_block(result) -> list[str]:
 
 
 def _dropped_block(result, limit: int = 20) -> list[str]:
-    d = result.tables["dropped_rows"]
+    d = result.tables.dropped_rows
     if not len(d):
         return []
     return ["Rows left out for missing values (sheet rows)",
@@ -194,8 +194,8 @@ _OTHER = {
 def _other_blocks(result) -> list[str]:
     out = []
     for name, (title, cols) in _OTHER.items():
-        t = result.tables.get(name)
-        if t is None or not len(t):
+        t = result.tables.table(name)
+        if not len(t):
             continue
         cols = [c for c in cols if c in t.columns] or list(t.columns)
         out += ["", title, grid(t, cols, limit=30)]

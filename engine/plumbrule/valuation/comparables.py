@@ -103,7 +103,7 @@ def _drop_reason(dropped: pd.DataFrame, row: int) -> str:
 
 
 def _set_aside_note(analysis, row: int) -> str:
-    log = analysis.tables.get("screen_log")
+    log = analysis.tables.screen_log
     if log is not None and len(log) and "row" in log:
         hit = log[log["row"] == row]
         if len(hit):

@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import datetime as _dt
 import difflib
-from dataclasses import dataclass, field
-from typing import Any, Mapping
+from dataclasses import dataclass
+from typing import Any, ClassVar, Iterator, Mapping
 
 import numpy as np
 import pandas as pd
@@ -19,7 +19,6 @@ import pandas as pd
 from plumbrule import intake
 from plumbrule.errors import IntakeError, SpecError, quote_list
 from plumbrule.settings import Settings
-from plumbrule.validation import model_factor
 
 ESTIMATE_COLUMNS = [
     "subject", "row", "estimate", "se_mean", "se_single", "ci_low", "ci_high", "pi_low",
@@ -45,14 +44,20 @@ class Valuation:
     """Estimates (one row per subject), the adjustment grid (one row per
     comparable × feature plus a total row per comparable) and the reconciled
     value (one record; empty without comparables). Money is in the units of
-    the sale-price column."""
+    the sale-price column. ``subjects`` are the subject rows as the model typed them."""
 
     estimates: pd.DataFrame
     grid: pd.DataFrame
     reconciled: pd.DataFrame
     valuation_date: _dt.date
     settings: Settings
-    tables: Mapping[str, pd.DataFrame] = field(default_factory=dict)
+    subjects: Subjects
+
+    TABLES: ClassVar[tuple[str, ...]] = ("estimates", "grid", "reconciled")   # the JSON order
+
+    def items(self) -> Iterator[tuple[str, pd.DataFrame]]:
+        """(name, table) pairs in JSON order."""
+        return ((name, getattr(self, name)) for name in self.TABLES)
 
 
 # --- the entry point --------------------------------------------------------
@@ -76,9 +81,8 @@ def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | No
                         setting="comps")
     grid, reconciled = adjustment_grid(model, subj, comp_set, settings, when,
                                        estimates=estimates)
-    tables = {"estimates": estimates, "grid": grid, "reconciled": reconciled}
     return Valuation(estimates=estimates, grid=grid, reconciled=reconciled,
-                     valuation_date=when, settings=settings, tables=tables)
+                     valuation_date=when, settings=settings, subjects=subj)
 
 
 def _settings(analysis, settings) -> Settings:
@@ -240,7 +244,7 @@ def _log_scale(model, eta, se_m, se_s, q, kind: str) -> dict:
     known); the prediction interval is exp of the log bounds alone: a quantile
     interval for one sale's price, which a monotone transform preserves.
     Standard errors on the price scale are the delta-method estimate × se."""
-    factor = model_factor(model, kind)
+    factor = model.retransform_factor(kind)
     median = np.exp(eta)
     est = factor * median
     return dict(estimate=est, se_mean=est * se_m, se_single=est * se_s,

@@ -73,29 +73,28 @@ class _Context:
         self.model = analysis.model
         self.spec = analysis.model.spec
         self.tables = analysis.tables
-        self.fit = analysis.tables["fit"].iloc[0]
+        self.fit = analysis.tables.fit.iloc[0]
         self.log = bool(self.spec.log_response)
         self.response = self.spec.response
-        est = getattr(valuation, "estimates", None)
-        self.estimates = est if isinstance(est, pd.DataFrame) and len(est) else None
-        rec = getattr(valuation, "reconciled", None)
-        self.reconciled = rec if isinstance(rec, pd.DataFrame) and len(rec) else None
-        settings = getattr(valuation, "settings", None) or analysis.settings
-        self.level = float(getattr(settings, "confidence", 0.95))
-        self.retransform = getattr(settings, "retransform", "smearing")
+        est = valuation.estimates if valuation is not None else None
+        self.estimates = est if est is not None and len(est) else None
+        rec = valuation.reconciled if valuation is not None else None
+        self.reconciled = rec if rec is not None and len(rec) else None
+        settings = valuation.settings if valuation is not None else analysis.settings
+        self.level = float(settings.confidence)
+        self.retransform = settings.retransform
 
     def table(self, name):
-        t = self.tables.get(name)
-        return t if isinstance(t, pd.DataFrame) and len(t) else None
+        t = self.tables.table(name)
+        return t if len(t) else None
 
 
 # --- sections -------------------------------------------------------------------
 
 def _header(ws, ctx) -> int:
     r = cells.title(ws, 1, f"Valuation report: {ctx.response}")
-    when = getattr(ctx.stamp, "time", "")
-    src = getattr(ctx.stamp, "source", "")
-    put(ws, r, 1, f"Prepared by plumbrule {getattr(ctx.stamp, 'version', '')}"
+    when, src = ctx.stamp.time, ctx.stamp.source
+    put(ws, r, 1, f"Prepared by plumbrule {ctx.stamp.version}"
                   f"{' on ' + str(when) if when else ''}{' from ' + src if src else ''}.",
         style="plumb_note")
     r += 1
@@ -259,7 +258,7 @@ def _set_aside_text(ctx) -> str:
 def _trend(ctx):
     if not ctx.spec.date_column:
         return None
-    coef = ctx.tables["coefficients"]
+    coef = ctx.tables.coefficients
     row = coef[coef["term"] == ctx.model.encoding.terms[-1].name]
     if not len(row):
         return None

@@ -83,7 +83,7 @@ def normal_quantiles(book, ctx):
     """Theoretical normal quantiles (Blom positions (i − 3/8)/(n + 1/4)) against the
     ordered standardized residuals."""
     from plumbrule.diagnostics.tables import normal_scores
-    scores = normal_scores(ctx.tables["residuals"]["standardized_residual"].to_numpy(float))
+    scores = normal_scores(ctx.tables.residuals["standardized_residual"].to_numpy(float))
     n = len(scores)
     if n < 3:
         return None
@@ -108,7 +108,7 @@ def normal_quantiles(book, ctx):
 
 def standardized_coefficients(book, ctx):
     from openpyxl.chart import BarChart, Reference
-    coef = ctx.tables["coefficients"]
+    coef = ctx.tables.coefficients
     coef = coef[coef["std_beta"].notna()]
     if not len(coef):
         return None
@@ -218,21 +218,7 @@ def _box_path(five, y, h):
 def _training_prices(ctx):
     """Sale price and the model's estimate (price scale) for each sale used."""
     model = ctx.model
-    price = model.data[ctx.response].to_numpy(float)
-    fitted = model.fit.fitted
-    if not ctx.log:
-        return price, np.asarray(fitted, float)
-    return price, np.exp(fitted) * _factor(ctx)
-
-
-def _factor(ctx) -> float:
-    est = ctx.estimates
-    if est is not None and "retransform_factor" in est.columns:
-        f = est["retransform_factor"].iloc[0]
-        if f is not None and math.isfinite(float(f)):
-            return float(f)
-    from plumbrule.validation import model_factor
-    return model_factor(ctx.model, ctx.retransform)
+    return model.data[ctx.response].to_numpy(float), model.fitted_prices(ctx.retransform)
 
 
 def _sample(n: int):

@@ -128,8 +128,7 @@ def _analyse(inputs):
             first = SheetTable(subjects.frame.iloc[:1], subjects.sheet, subjects.header_row)
             with_grid = valuate(analysis, first, comps, settings)
             every = valuate(analysis, subjects, (), settings.replace(comps=()))
-            valuation = replace(with_grid, estimates=every.estimates,
-                                tables={**with_grid.tables, "estimates": every.estimates})
+            valuation = replace(with_grid, estimates=every.estimates, subjects=every.subjects)
         else:
             valuation = valuate(analysis, subjects, comps, settings)
     return analysis, valuation, settings
@@ -223,9 +222,9 @@ def write_atomic(target: Path, write, backup: bool) -> Path | None:
 def headline(analysis, valuation) -> dict[str, Any]:
     """The numbers behind the plumb_ defined names, as plain values."""
     from plumbrule.render.json import jsonable
-    fit = analysis.tables["fit"].iloc[0]
+    fit = analysis.tables.fit.iloc[0]
     out: dict[str, Any] = {"r_squared": fit["r_squared"], "n_used": int(fit["n_used"])}
-    study = analysis.tables.get("ratio_study")
+    study = analysis.tables.ratio_study
     for m in ("cod", "prd", "prb"):
         out[m] = study[m].iloc[0] if study is not None and len(study) and m in study else None
     if valuation is not None and len(valuation.estimates):

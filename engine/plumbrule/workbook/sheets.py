@@ -138,14 +138,14 @@ def write_model(ws, analysis, stamp) -> None:
     """Coefficients, fit, checks, covariance of the estimates and the audit stamp."""
     book = ws.parent
     t = analysis.tables
-    fit = t["fit"].iloc[0]
-    coefs = t["coefficients"]
+    fit = t.fit.iloc[0]
+    coefs = t.coefficients
     r = title(ws, 1, "Model")
     r = note(ws, r, model_sentence(analysis)) + 1
 
     r = title(ws, r, "Fit")
-    pairs = [(_FIT_WORDS.get(k, label(k)), fit[k]) for k in t["fit"].columns]
-    names = list(t["fit"].columns)
+    pairs = [(_FIT_WORDS.get(k, label(k)), fit[k]) for k in t.fit.columns]
+    names = list(t.fit.columns)
     fit_top = r
     fmt = {_FIT_WORDS.get(k, label(k)): (INTEGER if k.startswith(("n_", "df_")) else sig3)
            for k in names}
@@ -162,7 +162,7 @@ def write_model(ws, analysis, stamp) -> None:
     define_name(book, "plumb_coef_estimates", ws.title,
                 f"{_cell(_col(coefs, 'estimate'), first)}:{_cell(_col(coefs, 'estimate'), last)}")
 
-    _, r = _table(ws, r, "Checks of the model's assumptions", t["checks"],
+    _, r = _table(ws, r, "Checks of the model's assumptions", t.checks,
                   explain="verdict: ok / watch / fails against the threshold shown; the note says "
                           "what it means for a valuation.")
     r = _covariance(ws, r, analysis)
@@ -193,7 +193,7 @@ def _covariance(ws, r: int, analysis) -> int:
 
 def model_sentence(analysis) -> str:
     """The model in one sentence."""
-    fit = analysis.tables["fit"].iloc[0]
+    fit = analysis.tables.fit.iloc[0]
     k = int(fit["n_params"]) - int(analysis.model.fit.has_intercept)
     resp = str(fit.get("response", analysis.spec.response))
     extra = []
@@ -215,10 +215,10 @@ def write_screening(ws, analysis) -> None:
     r = title(ws, 1, "Screening: the sales set aside, and why")
     r = note(ws, r, "Rules run in a fixed order before the fit; every row set aside is listed "
                     "with the rule, the limit and the reason.") + 1
-    _, r = _table(ws, r, "Summary", t.get("screen_summary"), empty="No screening rule is set "
+    _, r = _table(ws, r, "Summary", t.screen_summary, empty="No screening rule is set "
                   "(see trim_percentiles, iqr_fence, influence_screen, exclude_rows in Settings).")
-    _, r = _table(ws, r, "Rows set aside", t.get("screen_log"), empty="No rows were set aside.")
-    _table(ws, r, "Rows dropped for missing values", t.get("dropped_rows"),
+    _, r = _table(ws, r, "Rows set aside", t.screen_log, empty="No rows were set aside.")
+    _table(ws, r, "Rows dropped for missing values", t.dropped_rows,
            empty="No rows had missing values in the columns used.")
     ws.freeze_panes = None
 
@@ -231,24 +231,24 @@ def write_validation(ws, analysis) -> None:
     r = title(ws, 1, "Validation and the sales-ratio study")
     r = note(ws, r, "Training and holdout figures side by side: a model that does much worse "
                     "on sales it never saw is over-fitted.") + 1
-    val = t.get("validation")
+    val = t.validation
     _, r = _table(ws, r, "Accuracy on training and held-out sales", val,
-                  _price_scale_formats(val) if val is not None else None,
+                  _price_scale_formats(val),
                   empty="No holdout or cross-validation was run (set holdout or folds).")
-    study = t.get("ratio_study")
+    study = t.ratio_study
     first, r = _table(ws, r, "Sales-ratio study (ratio = estimate / sale price)", study,
-                      _price_scale_formats(study) if study is not None else None,
+                      _price_scale_formats(study),
                       empty="No ratio study (it needs a holdout or cross-validation).",
                       explain="Targets from the IAAO Standard on Ratio Studies (2013); with "
                               "fewer than 20 sales the verdicts say the sample is too small.")
     for measure in ("cod", "prd", "prb"):
-        if study is not None and len(study) and measure in study.columns:
+        if len(study):
             define_name(book, f"plumb_{measure}", ws.title, _cell(_col(study, measure), first))
         else:
             define_name(book, f"plumb_{measure}", ws.title, _cell(2, r))
-    est = t.get("holdout_estimates")
+    est = t.holdout_estimates
     _table(ws, r, "Estimates for the held-out sales", est,
-           _price_scale_formats(est) if est is not None else None, empty="No holdout.")
+           _price_scale_formats(est), empty="No holdout.")
     ws.freeze_panes = None
 
 

@@ -56,7 +56,7 @@ def make_stamp(analysis, sales_hash: str, source: str = "",
     dropped (missing values) and held-out rows."""
     from plumbrule import __version__
     now = now or _dt.datetime.now(_dt.timezone.utc)
-    fit = analysis.tables["fit"].iloc[0]
+    fit = analysis.tables.fit.iloc[0]
     used = int(fit["n_used"])
     total = len(analysis.table.frame)
     return Stamp(version=__version__, time=now.replace(microsecond=0).isoformat(),
