@@ -17,8 +17,8 @@ import pandas as pd
 
 from plumbrule.numeric.quantiles import order_stats
 from plumbrule.numeric.vectors import dot
+from plumbrule.verdicts import FAILS, OK, TOO_FEW, WATCH
 
-OK, WATCH, FAILS, TOO_FEW = "ok", "watch", "fails", "too few sales"
 COD_TARGETS = {"residential": 15.0, "newer-residential": 10.0, "other": 20.0}
 ESTIMATE_COLUMNS = ["row", "sale_price", "estimate", "ratio", "stratum", "in_study"]
 STUDY_COLUMNS = [

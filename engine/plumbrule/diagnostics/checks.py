@@ -12,14 +12,16 @@ import numpy as np
 
 from plumbrule.model.fitted import FittedModel
 from plumbrule.numeric.vectors import dot, gram, q_times
+from plumbrule.verdicts import FAILS, NA, OK, WATCH
 
-OK, WATCH, FAILS, NA = "ok", "watch", "fails", "n/a"
 CHECK_COLUMNS = ["check", "statistic", "p_value", "threshold", "verdict", "note"]
 
 
 @dataclass(frozen=True)
 class Check:
-    check: str
+    """One graded check; its table row puts ``name`` in the ``check`` column."""
+
+    name: str
     statistic: float
     p_value: float
     threshold: str

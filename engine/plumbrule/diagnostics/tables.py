@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from dataclasses import asdict
 
 import numpy as np
 import pandas as pd
@@ -106,8 +105,8 @@ def _f_statistic(model: FittedModel, r2: float, df_model: int) -> float:
 
 
 def checks_table(checks: list[Check]) -> pd.DataFrame:
-    return pd.DataFrame([{k: asdict(c)[k] for k in CHECK_COLUMNS} for c in checks],
-                        columns=CHECK_COLUMNS)
+    rows = [{"check": c.name, **{k: getattr(c, k) for k in CHECK_COLUMNS[1:]}} for c in checks]
+    return pd.DataFrame(rows, columns=CHECK_COLUMNS)
 
 
 def residual_table(model: FittedModel) -> pd.DataFrame:

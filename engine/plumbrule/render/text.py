@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from plumbrule.render.wording import CAUTION
+from plumbrule.verdicts import Verdict
 
 
 def _num(v) -> str:
@@ -165,7 +166,7 @@ def _checks_block(result) -> list[str]:
     out = ["Checks of the model",
            grid(checks, ["verdict", "check", "statistic", "p_value", "threshold"],
                 ["verdict", "check", "value", "p", "flagged when"], formats={"p_value": _p})]
-    attention = checks[checks["verdict"].isin(["watch", "fails"])]
+    attention = checks[checks["verdict"].isin(Verdict.needing_attention())]
     if len(attention):
         out += ["", "What needs attention"]
         out += [

@@ -19,6 +19,7 @@ from plumbrule.workbook import cells
 from plumbrule.workbook.cells import MONEY, PERCENT, put, sig3
 
 from plumbrule.render.wording import CAUTION
+from plumbrule.verdicts import FAILS, NA, OK, WATCH
 CAUTIONS = (
     CAUTION,
     "The model describes the sales it was fitted on. For a property unlike them (see the "
@@ -34,7 +35,7 @@ REPORT, CHART_DATA = "Report", "Chart data"
 WIDTHS = {"A": 34, "B": 15, "C": 15, "D": 15, "E": 15, "F": 15, "G": 52}
 LAST_COL = 7
 CHART_W, CHART_H = 15.0, 8.5     # cm; two side by side fill the printed width
-VERDICT_FILL = {"ok": "DCEFDC", "watch": "FCE9C4", "fails": "F6CFCB", "n/a": "E8E8E8"}
+VERDICT_FILL = {OK: "DCEFDC", WATCH: "FCE9C4", FAILS: "F6CFCB", NA: "E8E8E8"}
 
 
 def write_report(book, analysis, valuation, stamp) -> None:
@@ -205,9 +206,9 @@ def attention_items(ctx, limit: int = 8) -> list[str]:
     checks = ctx.table("checks")
     if checks is not None:
         for _, c in checks.iterrows():
-            if c["verdict"] == "fails":
+            if c["verdict"] == FAILS:
                 fails.append(f"{c['check']} fails: {c['note']}")
-            elif c["verdict"] == "watch":
+            elif c["verdict"] == WATCH:
                 watch.append(f"{c['check']} (watch): {c['note']}")
     if ctx.estimates is not None:
         for _, e in ctx.estimates.head(5).iterrows():
@@ -217,7 +218,7 @@ def attention_items(ctx, limit: int = 8) -> list[str]:
     if rs is not None:
         first = rs.iloc[0]
         off = [f"{label} {_verdict_of(rs, 0, key)}" for key, label, _, _ in _MEASURES
-               if _verdict_of(rs, 0, key) not in ("", "ok")]
+               if _verdict_of(rs, 0, key) not in ("", OK)]
         if off:
             note = first.get("note") if isinstance(first.get("note"), str) else ""
             other.append(f"Ratio study ({_sample_text(first)}): {', '.join(off)}. {note}".strip())
@@ -311,11 +312,11 @@ def _checks(ws, ctx, r) -> int:
     if checks is None:
         return cells.note(ws, r, "No checks were run.")
     counts = checks["verdict"].value_counts()
-    summary = ", ".join(f"{int(counts.get(v, 0))} {v}" for v in ("ok", "watch", "fails")
+    summary = ", ".join(f"{int(counts.get(v, 0))} {v}" for v in (OK, WATCH, FAILS)
                         if counts.get(v, 0))
-    act = ("Nothing fails." if not counts.get("fails", 0) else
+    act = ("Nothing fails." if not counts.get(FAILS, 0) else
            "Resolve each 'fails' before relying on the value.")
-    if counts.get("watch", 0):
+    if counts.get(WATCH, 0):
         act += " Read each 'watch': it says what it means for the valuation."
     _wrapped(ws, r, 1, f"{summary}. {act}", span=LAST_COL)
     r += 1
