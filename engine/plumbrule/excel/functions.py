@@ -457,12 +457,13 @@ def PLUMB_VALUE(sales, response, predictors, subject, settings=None):
 def PLUMB_GRID(sales, response, predictors, subject, comps, settings=None):
     ("Adjustment grid: for each comparable and feature the subject and comp values, the model-"
      "derived adjustment, market-conditions, net and gross totals.")
-    return _grid(valuation_for(sales, response, predictors, subject, comps, settings)).grid
+    valuation = valuation_for(sales, response, predictors, subject, comps, settings)
+    return _with_comparables(valuation).grid
 
 
-def _grid(valuation):
+def _with_comparables(valuation):
     """The valuation, provided it has a grid (comparables were given)."""
-    if valuation.grid is None or len(valuation.grid) == 0:
+    if len(valuation.grid) == 0:
         raise SettingError("The adjustment grid needs comparables: give their sheet rows in "
                            "the comps argument (e.g. 12,40,57) or the setting comps.",
                            setting="comps")
@@ -473,7 +474,8 @@ def _grid(valuation):
 def PLUMB_RECONCILE(sales, response, predictors, subject, comps, settings=None):
     ("Reconciled value from the adjustment grid in two columns, measure and value: value, "
      "range, spread and the weights given to each comparable.")
-    valuation = _grid(valuation_for(sales, response, predictors, subject, comps, settings))
+    valuation = _with_comparables(valuation_for(sales, response, predictors, subject, comps,
+                                                settings))
     return record_cells(valuation.reconciled)
 
 

@@ -51,7 +51,7 @@ def _signed_pct(x: float) -> str:
     return f"{x:+.2f} %" if abs(x) < 10 else f"{x:+.1f} %"
 
 
-def grid(frame: pd.DataFrame, columns=None, headers=None, limit: int | None = None,
+def text_table(frame: pd.DataFrame, columns=None, headers=None, limit: int | None = None,
          formats: dict | None = None, indent: str = "  ") -> str:
     """A plain aligned grid: text left, numbers right, two spaces between columns."""
     columns = list(columns or frame.columns)
@@ -158,13 +158,13 @@ def _effects_block(result) -> list[str]:
     heads = ["term", "estimate", "std error", "t", "p", f"{level} % interval", "beta", "VIF",
              "in words"]
     return ["Effects on " + result.encoding.response_name,
-            grid(coefs, cols, heads, formats={"p_value": _p})]
+            text_table(coefs, cols, heads, formats={"p_value": _p})]
 
 
 def _checks_block(result) -> list[str]:
     checks = result.tables.checks
     out = ["Checks of the model",
-           grid(checks, ["verdict", "check", "statistic", "p_value", "threshold"],
+           text_table(checks, ["verdict", "check", "statistic", "p_value", "threshold"],
                 ["verdict", "check", "value", "p", "flagged when"], formats={"p_value": _p})]
     attention = checks[checks["verdict"].isin(Verdict.needing_attention())]
     if len(attention):
@@ -180,7 +180,7 @@ def _dropped_block(result, limit: int = 20) -> list[str]:
     if not len(d):
         return []
     return ["Rows left out for missing values (sheet rows)",
-            grid(d, ["row", "column", "reason"], ["row", "column", "reason"], limit=limit)]
+            text_table(d, ["row", "column", "reason"], ["row", "column", "reason"], limit=limit)]
 
 
 _OTHER = {
@@ -199,7 +199,7 @@ def _other_blocks(result) -> list[str]:
         if not len(t):
             continue
         cols = [c for c in cols if c in t.columns] or list(t.columns)
-        out += ["", title, grid(t, cols, limit=30)]
+        out += ["", title, text_table(t, cols, limit=30)]
     return out
 
 
