@@ -15,7 +15,7 @@ import statsmodels.api as sm
 
 from plumbrule.analysis import analyze
 from plumbrule.model.design import DAYS_PER_MONTH, make_encoding, months_since
-from plumbrule.errors import SpecError
+from plumbrule.errors import IntakeError, SpecError
 from plumbrule.settings import parse_settings
 from plumbrule.model.spec import build_spec, match_column
 
@@ -234,7 +234,8 @@ def test_new_rows_missing_a_column_or_a_value(sales):
         enc.new_rows(subject)
     subject = sales.drop(columns="Sale price").head(2)
     subject.loc[1, "Living area"] = None
-    with pytest.raises(SpecError, match=r"^Subject row 3, column 'Living area': the cell is blank"):
+    with pytest.raises(IntakeError,
+                       match=r"^Subject row 3, column 'Living area': the cell is blank"):
         enc.new_rows(subject)
 
 
@@ -242,7 +243,7 @@ def test_new_rows_take_the_valuation_date_for_a_blank_or_absent_date(sales):
     enc = analyze(sales, FULL).encoding
     subject = sales.drop(columns="Sale price").head(2)
     subject["Sale date"] = [pd.NaT, pd.Timestamp("2024-03-01")]
-    with pytest.raises(SpecError, match=r"column 'Sale date': the cell is blank\. Fill it in, or "
+    with pytest.raises(IntakeError, match=r"column 'Sale date': the cell is blank\. Fill it in, or "
                                         r"give the valuation date\."):
         enc.new_rows(subject)
     rows = enc.new_rows(subject, date=pd.Timestamp("2025-06-30"))

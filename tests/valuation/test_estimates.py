@@ -302,9 +302,10 @@ def test_unseen_level_suggests_the_close_one(gen):
 
 def test_missing_subject_value_and_column(gen):
     _, a = gen
-    with pytest.raises(IntakeError, match=r"Subject 'A' \(row 2\), column 'Age': blank"):
+    with pytest.raises(IntakeError,
+                       match=r"^Subject 'A' \(row 2\), column 'Age': the cell is blank\. Fill it in"):
         valuate(a, SUBJECTS.assign(Age=[None, 3.0]))
-    with pytest.raises(SpecError, match="Subjects: there is no column 'Age'"):
+    with pytest.raises(SpecError, match="^The subject rows have no column 'Age'; the model needs"):
         valuate(a, SUBJECTS.drop(columns="Age"))
     with pytest.raises(IntakeError, match=r"Subjects: Column 'Area', row 3: 'big' is not a number"):
         valuate(a, SUBJECTS.assign(Area=["1500", "big"]))

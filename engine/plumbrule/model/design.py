@@ -89,15 +89,17 @@ class Encoding:
             return _log(y, self.spec.response, label, "log_response")
         return y.to_numpy(dtype=float)
 
-    def new_rows(self, source, label: str = "subject row",
-                 date: pd.Timestamp | None = None) -> pd.DataFrame:
-        """New rows (subjects, comparables) typed exactly as the sales were.
+    def new_rows(self, source, label: str = "subject row", date: pd.Timestamp | None = None,
+                 names: pd.Series | None = None, fixed_date: bool = False) -> pd.DataFrame:
+        """New rows (subjects) typed exactly as the sales were: the one path from cells to
+        model inputs for anything valued.
 
-        ``source`` is a SheetTable, a DataFrame (headers as columns) or a 2-D
-        block of values. Headers are matched as the settings match them. Blank
-        cells are an error naming the row (a subject cannot be dropped), except
-        the date column: blank dates, or all dates when the rows have no date
-        column, take ``date`` (e.g. the valuation date) when given.
+        ``source`` is a SheetTable, a DataFrame (headers as columns) or a 2-D block of
+        values. Headers are matched as the settings match them. A blank or unreadable cell,
+        or a category level the sales do not have, is an error naming the row (a subject
+        cannot be dropped), except the date column: blank dates, or all dates when the rows
+        have no date column (or ``fixed_date``), take ``date`` (e.g. the valuation date).
+        ``names`` (sheet row → name) lets messages say "Subject 'A' (row 2)".
         Returns a DataFrame indexed by sheet row with the :attr:`input_columns`.
         """
         from plumbrule import intake
@@ -105,45 +107,56 @@ class Encoding:
             intake.table_from_frame(source) if isinstance(source, pd.DataFrame)
             else intake.table_from_values(source))
         spec, frame = self.spec, table.frame
-        found = {c: _find(c, table.columns) for c in self.input_columns}
+        noun = label.removesuffix(" row")
+        found = {c: None if fixed_date and c == spec.date_column else _find(c, table.columns)
+                 for c in self.input_columns}
         absent = [c for c, hit in found.items() if hit is None
                   and not (c == spec.date_column and date is not None)]
         if absent:
             raise SpecError(f"The {label}s have no column {quote_list(absent)}; the model needs "
-                            f"{quote_list(self.input_columns)}. Add the missing column.",
-                            column=absent[0])
+                            f"{quote_list(self.input_columns)}. Add the missing column (same "
+                            "header as in the sales).", column=absent[0])
         cols = {c: hit for c, hit in found.items() if hit is not None}
-        numeric = [c for c in cols if c not in spec.categorical and c != spec.date_column]
         typed: dict[str, pd.Series] = {}
-        reasons: dict[str, pd.Series] = {}
         for c in self.input_columns:
-            if c not in cols:   # date column absent: every row takes ``date``
-                typed[c] = pd.Series(pd.Timestamp(date), index=frame.index,
-                                     dtype="datetime64[ns]")
-                reasons[c] = pd.Series(np.nan, index=frame.index, dtype=object)
-                continue
-            cell = frame[cols[c]]
-            if c in numeric:
-                typed[c], reasons[c] = intake.to_numbers(cell, cols[c])
-            elif c in spec.categorical:
-                typed[c], reasons[c] = intake.to_labels(cell, cols[c])
+            typed[c] = self._typed_column(frame, cols.get(c), c, date, noun, names)
+        out = pd.DataFrame(typed, index=frame.index)
+        for col, known in self.levels:
+            _check_levels(out[col], known, col, label, names)
+        return out
+
+    def _typed_column(self, frame: pd.DataFrame, source: str | None, c: str,
+                      date: pd.Timestamp | None, noun: str, names: pd.Series | None
+                      ) -> pd.Series:
+        """One input column typed like the sales; a missing value is an IntakeError."""
+        from plumbrule import intake
+        from plumbrule.errors import IntakeError
+        spec = self.spec
+        if source is None:      # date column absent (or fixed): every row takes ``date``
+            return pd.Series(pd.Timestamp(date), index=frame.index, dtype="datetime64[ns]")
+        cell = frame[source]
+        try:
+            if c in spec.categorical:
+                values, reasons = intake.to_labels(cell, source)
+            elif c == spec.date_column:
+                values, reasons = intake.to_dates(cell, source)
             else:
-                typed[c], reasons[c] = intake.to_dates(cell, cols[c])
-                if date is not None:
-                    fill = reasons[c].notna()
-                    typed[c] = typed[c].where(~fill, pd.Timestamp(date))
-                    reasons[c] = reasons[c].where(~fill)
-        for c in self.input_columns:
-            missing = reasons[c].notna()
-            if missing.any():
-                row = missing.idxmax()
-                fix = ("Fill it in, or give the valuation date." if c == spec.date_column
-                       else "Fill it in: the model needs it to give an estimate.")
-                what = reasons[c][row]
-                what = "is blank" if what == "blank" else "holds an " + what
-                raise SpecError(f"{label.capitalize()} {row}, column '{c}': the cell {what}. "
-                                f"{fix}", column=c, row=int(row))
-        return pd.DataFrame(typed, index=frame.index)
+                values, reasons = intake.to_numbers(cell, source)
+        except IntakeError as err:
+            raise IntakeError(f"{noun.capitalize()}s: {err}", column=c, row=err.row) from None
+        if c == spec.date_column and date is not None:
+            fill = reasons.notna()
+            values, reasons = values.where(~fill, pd.Timestamp(date)), reasons.where(~fill)
+        missing = reasons.notna()
+        if missing.any():
+            row = missing.idxmax()
+            fix = ("Fill it in, or give the valuation date." if c == spec.date_column
+                   else "Fill it in: the model needs it to give an estimate.")
+            what = reasons[row]
+            what = "is blank" if what == "blank" else "holds an " + what
+            raise IntakeError(f"{_who(noun, row, names)}, column '{c}': the cell {what}. "
+                              f"{fix}", column=c, row=int(row))
+        return values
 
 
 def months_since(dates: pd.Series, origin: pd.Timestamp) -> np.ndarray:
@@ -222,18 +235,30 @@ def _levels(col: pd.Series, name: str, reference: str | None) -> tuple[str, ...]
     return (ref, *rest)
 
 
-def _check_levels(col: pd.Series, known: tuple[str, ...], name: str, label: str) -> None:
+def _who(noun: str, row, names: pd.Series | None = None) -> str:
+    """'Subject 'A' (row 2)' when the row has a name of its own, else 'Subject row 2'."""
+    name = None if names is None else names.get(row)
+    if name and name != f"row {row}":
+        return f"{noun.capitalize()} '{name}' (row {row})"
+    return f"{noun.capitalize()} row {row}"
+
+
+def _check_levels(col: pd.Series, known: tuple[str, ...], name: str, label: str,
+                  names: pd.Series | None = None) -> None:
     unseen = ~col.isin(known)
     if unseen.any():
+        import difflib
         row = unseen.idxmax()
         value = col[row]
         folded = [k for k in known if str(k).casefold() == str(value).strip().casefold()]
-        hint = (f"Did you mean '{folded[0]}'?" if folded else
+        close = folded or difflib.get_close_matches(str(value), [str(k) for k in known], n=1,
+                                                    cutoff=0.6)
+        hint = (f"Did you mean '{close[0]}'?" if close else
                 f"Use one of {quote_list(known[:8])}{' ...' if len(known) > 8 else ''}.")
         shown = "a blank" if _is_missing(value) else f"level '{value}'"
-        raise SpecError(f"{label.capitalize()} {row}, column '{name}': {shown} does not "
-                        "occur in the sales used, so the model has no effect for it. " + hint,
-                        column=name, row=int(row))
+        raise SpecError(f"{_who(label.removesuffix(' row'), row, names)}, column '{name}': "
+                        f"{shown} does not occur in the sales used, so the model has no effect "
+                        "for it. " + hint, column=name, row=int(row))
 
 
 def _is_missing(value) -> bool:

@@ -9,7 +9,6 @@ estimate come from one triangular solve with R, never from inverting X'X.
 from __future__ import annotations
 
 import datetime as _dt
-import difflib
 from dataclasses import dataclass
 from typing import Any, ClassVar, Iterator, Mapping
 
@@ -17,7 +16,7 @@ import numpy as np
 import pandas as pd
 
 from plumbrule import intake
-from plumbrule.errors import IntakeError, SpecError, quote_list
+from plumbrule.errors import IntakeError, SpecError
 from plumbrule.settings import Settings
 
 ESTIMATE_COLUMNS = [
@@ -97,34 +96,18 @@ def _settings(analysis, settings) -> Settings:
 # --- subjects ---------------------------------------------------------------
 
 def read_subjects(model, subjects: Any, when: _dt.date) -> Subjects:
-    """Type and encode the subject rows exactly as the sales were encoded."""
+    """Type and encode the subject rows exactly as the sales were encoded
+    (:meth:`Encoding.new_rows`), every subject at the valuation date ``when``."""
     from plumbrule.analysis import as_table
     table = as_table(subjects)
-    frame = table.frame
-    if frame.empty:
+    if table.frame.empty:
         raise IntakeError("The subjects block has no rows under its header. Enter one row per "
                           "subject property.")
-    spec, enc = model.spec, model.encoding
-    labels = _labels(frame)
-    data = {}
-    for col in spec.predictors:
-        cells = frame[_subject_column(col, table.columns)]
-        if col in spec.categorical:
-            values, why = intake.to_labels(cells, col)
-        else:
-            try:
-                values, why = intake.to_numbers(cells, col)
-            except IntakeError as err:
-                raise IntakeError(f"Subjects: {err}", column=col, row=err.row) from None
-        _require_values(why, labels, col)
-        data[col] = values
-    data = pd.DataFrame(data, index=frame.index)
-    for col, known in enc.levels:
-        _check_subject_levels(data[col], known, col, labels)
-    if spec.date_column:
-        data[spec.date_column] = pd.Timestamp(when)
-    x = enc.design(data, label="subject row")
-    return Subjects(data=data, labels=labels, x=x)
+    labels = _labels(table.frame)
+    enc = model.encoding
+    data = enc.new_rows(table, label="subject row", date=pd.Timestamp(when), names=labels,
+                        fixed_date=True)
+    return Subjects(data=data, labels=labels, x=enc.design(data, label="subject row"))
 
 
 def _labels(frame: pd.DataFrame) -> pd.Series:
@@ -135,44 +118,6 @@ def _labels(frame: pd.DataFrame) -> pd.Series:
         return rows
     text = frame[name].map(lambda v: "" if intake.is_blank(v) else str(v).strip())
     return text.where(text != "", rows)
-
-
-def _subject_column(col: str, columns: list[str]) -> str:
-    if col in columns:
-        return col
-    folded = [c for c in columns if c.casefold() == col.casefold()]
-    if len(folded) == 1:
-        return folded[0]
-    raise SpecError(f"Subjects: there is no column '{col}', which the model uses. Add it with "
-                    "each subject's value (same header as in the sales).", column=col)
-
-
-def _name(labels: pd.Series, row) -> str:
-    label = labels[row]
-    return f"Subject '{label}' (row {row})" if label != f"row {row}" else f"Subject row {row}"
-
-
-def _require_values(why: pd.Series, labels: pd.Series, col: str) -> None:
-    missing = why.notna()
-    if missing.any():
-        row = missing.idxmax()
-        raise IntakeError(f"{_name(labels, row)}, column '{col}': {why[row]}. Enter the "
-                          "subject's value: the estimate needs every predictor.",
-                          column=col, row=int(row))
-
-
-def _check_subject_levels(values: pd.Series, known: tuple[str, ...], col: str,
-                          labels: pd.Series) -> None:
-    unseen = ~values.isin(known)
-    if not unseen.any():
-        return
-    row = unseen.idxmax()
-    close = difflib.get_close_matches(str(values[row]), list(known), n=1, cutoff=0.6)
-    hint = (f"Did you mean '{close[0]}'?" if close else
-            f"Use one of {quote_list(known[:8])}{' ...' if len(known) > 8 else ''}.")
-    raise SpecError(f"{_name(labels, row)}, column '{col}': level '{values[row]}' does not occur "
-                    f"in the sales used, so the model has no effect for it. {hint}",
-                    column=col, row=int(row))
 
 
 # --- the algebra --------------------------------------------------------------
