@@ -303,7 +303,8 @@ def test_unseen_level_suggests_the_close_one(gen):
 def test_missing_subject_value_and_column(gen):
     _, a = gen
     with pytest.raises(IntakeError,
-                       match=r"^Subject 'A' \(row 2\), column 'Age': the cell is blank\. Fill it in"):
+                       match=r"^Subject 'A' \(row 2\), column 'Age': the cell is blank\. "
+                             r"Fill it in"):
         valuate(a, SUBJECTS.assign(Age=[None, 3.0]))
     with pytest.raises(SpecError, match="^The subject rows have no column 'Age'; the model needs"):
         valuate(a, SUBJECTS.drop(columns="Age"))
