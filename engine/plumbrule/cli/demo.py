@@ -43,6 +43,7 @@ def write_demo_book(folder: str | Path) -> Path:
 
 
 def run_demo(args) -> int:
+    from plumbrule.render.wording import CAUTION
     from plumbrule.demo.town import TOWN
     from plumbrule.workbook.run import run_book
     path = write_demo_book(args.dir)
@@ -61,26 +62,6 @@ def run_demo(args) -> int:
     h = result.headline
     print(f"Demo workbook for {TOWN} (an invented town): {result.written.resolve()}")
     print("Open it and read the Report sheet first.\n")
-    print(_headline_text(h))
+    from plumbrule.render.text import headline_text
+    print(headline_text(h) + "\n\n" + CAUTION)
     return 0
-
-
-def _headline_text(h: dict) -> str:
-    def money(v):
-        return "n/a" if v is None else f"{v:,.0f}"
-
-    def num(v, fmt):
-        return "n/a" if v is None else format(v, fmt)
-    lines = [f"  Sales used in the fit   {h['n_used']}",
-             f"  R²                      {num(h['r_squared'], '.3f')}",
-             f"  COD / PRD / PRB         {num(h.get('cod'), '.1f')} / {num(h.get('prd'), '.3f')}"
-             f" / {num(h.get('prb'), '.3f')}  (holdout sales-ratio study)"]
-    if h.get("estimate") is not None:
-        lines += [f"  Subject                 {h.get('subject')}",
-                  f"  Estimate                {money(h['estimate'])}"
-                  f"  (prediction interval {money(h['pi_low'])} to {money(h['pi_high'])})"]
-        if h.get("reconciled_value") is not None:
-            lines.append(f"  From the comparables    {money(h['reconciled_value'])}")
-    from plumbrule.render.wording import CAUTION
-    lines.append("\n" + CAUTION)
-    return "\n".join(lines)

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-
 import numpy as np
 import pandas as pd
 
@@ -41,6 +40,45 @@ def coefficient_table(model: FittedModel) -> pd.DataFrame:
         "std_beta": np.concatenate([pad, std_beta]),
         "vif": np.concatenate([pad, fit.vif]),
     })[COEF_COLUMNS]
+
+
+EFFECT_COLUMNS = ["term", "kind", "column", "reference", "scale", "effect"]
+
+
+def effect_table(model: FittedModel) -> pd.DataFrame:
+    """Each coefficient as an effect on the price, one row per term (intercept: NaN).
+
+    ``scale`` says the unit of ``effect``: 'percent' (log price: 100·(e^b − 1) per unit,
+    per month or against the reference level), 'percent per 1 percent' (log price on a
+    logged feature: the elasticity b), 'price' (price units per unit, per month or
+    against the reference level) or 'price per 1 percent' (price on a logged feature:
+    b/100, to first order).
+    """
+    fit, enc = model.fit, model.encoding
+    terms = {t.name: t for t in enc.terms}
+    refs = dict(enc.levels)
+    log_y = enc.spec.log_response
+    rows = []
+    for name, b in zip(fit.names, fit.coef, strict=True):
+        t = terms.get(name)
+        if t is None:
+            rows.append((name, "intercept", "", "", "", np.nan))
+            continue
+        ref = refs[t.column][0] if t.kind == "level" else ""
+        if t.kind == "log":
+            scale, effect = ("percent per 1 percent", b) if log_y else ("price per 1 percent",
+                                                                       b / 100.0)
+        else:
+            scale, effect = ("percent", 100.0 * np.expm1(b)) if log_y else ("price", b)
+        rows.append((name, t.kind, t.column, ref, scale, float(effect)))
+    return pd.DataFrame(rows, columns=EFFECT_COLUMNS)
+
+
+def typical_spread(model: FittedModel) -> tuple[float, str]:
+    """One residual standard error on the price: (value, unit) — a share (e^σ − 1, e.g.
+    0.12) for a log-price model, price units otherwise."""
+    sigma = float(model.fit.sigma)
+    return (float(np.expm1(sigma)), "share") if model.spec.log_response else (sigma, "price")
 
 
 def fit_table(model: FittedModel, n_dropped: int = 0, extra: dict | None = None) -> pd.DataFrame:

@@ -13,6 +13,7 @@ import math
 import numpy as np
 import pandas as pd
 
+from plumbrule.diagnostics.tables import effect_table, typical_spread
 from plumbrule.render.wording import CAUTION
 from plumbrule.verdicts import Verdict
 
@@ -80,27 +81,22 @@ def text_table(frame: pd.DataFrame, columns=None, headers=None, limit: int | Non
 
 def effect_words(result) -> list[str]:
     """Each coefficient said in words, on the price scale where it has one."""
-    coefs = result.tables.coefficients
-    enc = result.encoding
-    terms = {t.name: t for t in enc.terms}
-    log_y = enc.spec.log_response
-    refs = dict(enc.levels)
     out = []
-    for name, b in zip(coefs["term"], coefs["estimate"], strict=False):
-        t = terms.get(name)
-        if t is None or not math.isfinite(b):
+    for e in effect_table(result.model).itertuples(index=False):
+        if e.kind == "intercept" or not math.isfinite(e.effect):
             out.append("")
             continue
-        if t.kind == "level":
-            vs = f"vs {refs[t.column][0]}"
-            out.append(f"{_signed_pct(100 * math.expm1(b))} {vs}" if log_y
-                       else f"{b:+,.0f} {vs}" if abs(b) >= 100 else f"{b:+.4g} {vs}")
-        elif t.kind == "log":
-            out.append(f"{b:+.3f} % per 1 % more" if log_y else f"{b / 100:+,.4g} per 1 % more")
+        unit = (f"vs {e.reference}" if e.kind == "level" else
+                "per month" if e.kind == "trend" else "per unit")
+        if e.scale == "percent":
+            out.append(f"{_signed_pct(e.effect)} {unit}")
+        elif e.scale == "percent per 1 percent":
+            out.append(f"{e.effect:+.3f} % per 1 % more")
+        elif e.scale == "price per 1 percent":
+            out.append(f"{e.effect:+,.4g} per 1 % more")
         else:
-            unit = "per month" if t.kind == "trend" else "per unit"
-            out.append(f"{_signed_pct(100 * math.expm1(b))} {unit}" if log_y
-                       else f"{b:+,.0f} {unit}" if abs(b) >= 100 else f"{b:+.4g} {unit}")
+            out.append(f"{e.effect:+,.0f} {unit}" if abs(e.effect) >= 100
+                       else f"{e.effect:+.4g} {unit}")
     return out
 
 
@@ -130,7 +126,7 @@ def _fit_block(result) -> list[str]:
     sigma = float(fit["resid_std_error"])
     if log_y:
         spread = (f"{_num(sigma)} on the log scale: a typical sale lies within about "
-                  f"{100 * math.expm1(sigma):.1f} % of the model")
+                  f"{100 * typical_spread(result.model)[0]:.1f} % of the model")
     else:
         spread = f"{_num(sigma)}: a typical sale lies within about this amount of the model"
     rows = [
@@ -213,3 +209,23 @@ def render_analysis(result) -> str:
     parts += _other_blocks(result)
     parts += ["", CAUTION]
     return "\n".join(parts)
+
+
+def headline_text(h: dict) -> str:
+    """The headline (:func:`plumbrule.headline.headline`) as a few aligned lines."""
+    def money(v):
+        return "n/a" if v is None else f"{v:,.0f}"
+
+    def num(v, fmt):
+        return "n/a" if v is None else format(v, fmt)
+    lines = [f"  Sales used in the fit   {h['n_used']:,}",
+             f"  R²                      {num(h['r_squared'], '.3f')}",
+             f"  COD / PRD / PRB         {num(h.get('cod'), '.1f')} / {num(h.get('prd'), '.3f')}"
+             f" / {num(h.get('prb'), '.3f')}  (sales-ratio study: {h.get('ratio_sample')})"]
+    if h.get("estimate") is not None:
+        lines += [f"  Subject                 {h.get('subject')}",
+                  f"  Estimate                {money(h['estimate'])}"
+                  f"  (prediction interval {money(h['pi_low'])} to {money(h['pi_high'])})"]
+        if h.get("reconciled_value") is not None:
+            lines.append(f"  From the comparables    {money(h['reconciled_value'])}")
+    return "\n".join(lines)

@@ -18,6 +18,7 @@ import pandas as pd
 from plumbrule.workbook import cells
 from plumbrule.workbook.cells import MONEY, PERCENT, put, sig3
 
+from plumbrule.diagnostics.tables import effect_table, typical_spread
 from plumbrule.render.wording import CAUTION
 from plumbrule.verdicts import FAILS, NA, OK, WATCH
 CAUTIONS = (
@@ -129,13 +130,10 @@ def model_sentence(ctx) -> str:
     joined = ", ".join(parts[:-1]) + " and " + parts[-1] if len(parts) > 1 else parts[0]
     n = int(ctx.fit["n_used"])
     r2 = float(ctx.fit["r_squared"])
-    sigma = float(ctx.fit["resid_std_error"])
-    if ctx.log:
-        spread = (f"a single sale typically lies within about ±{math.expm1(sigma):.0%} of the "
-                  "model (one residual standard error)")
-    else:
-        spread = (f"a single sale typically lies within about ±{sigma:,.0f} of the model "
-                  "(one residual standard error)")
+    spread_value, unit = typical_spread(ctx.model)
+    shown = f"{spread_value:.0%}" if unit == "share" else f"{spread_value:,.0f}"
+    spread = (f"a single sale typically lies within about ±{shown} of the model "
+              "(one residual standard error)")
     scale = "of the log price" if ctx.log else "of the price"
     return (f"{what} is explained by {joined}, fitted by least squares to {n:,} sales; the "
             f"model accounts for {r2:.1%} of the variation {scale}, and {spread}.")
@@ -260,14 +258,18 @@ def _trend(ctx):
     if not ctx.spec.date_column:
         return None
     coef = ctx.tables.coefficients
-    row = coef[coef["term"] == ctx.model.encoding.terms[-1].name]
-    if not len(row):
+    effects = effect_table(ctx.model)
+    trend = effects[effects["kind"] == "trend"]
+    if not len(trend):
         return None
-    b, p = float(row["estimate"].iloc[0]), float(row["p_value"].iloc[0])
+    name = trend["term"].iloc[0]
+    p = float(coef.loc[coef["term"] == name, "p_value"].iloc[0])
+    effect = float(trend["effect"].iloc[0])
     if ctx.log:
-        return ("Market trend per month", math.expm1(b), None, "0.00%",
+        return ("Market trend per month", effect / 100.0, None, "0.00%",
                 f"prices change by this share each month (p-value {p:.3g})")
-    return ("Market trend per month", b, None, MONEY, f"price change per month (p-value {p:.3g})")
+    return ("Market trend per month", effect, None, MONEY,
+            f"price change per month (p-value {p:.3g})")
 
 
 def _valuation(ws, ctx, r) -> int:

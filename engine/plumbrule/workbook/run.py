@@ -20,6 +20,9 @@ from pathlib import Path
 from typing import Any
 
 from plumbrule.errors import WorkbookError
+from plumbrule.headline import headline
+from plumbrule.render.json import jsonable
+from plumbrule.render.text import headline_text
 from plumbrule.workbook import INPUT_SHEETS, RESULT_SHEETS
 
 
@@ -76,8 +79,8 @@ def run_book(path: str | Path, backup: bool | None = None,
         check_not_open(target)
         bak = write_atomic(target, book.save, keep_bak)
     return RunResult(written=target, in_place=in_place, unsupported=parts.unsupported,
-                     backup=bak, headline=headline(analysis, valuation), analysis=analysis,
-                     valuation=valuation)
+                     backup=bak, headline=jsonable(headline(analysis, valuation)),
+                     analysis=analysis, valuation=valuation)
 
 
 def _signature(path: Path) -> tuple[int, int]:
@@ -219,24 +222,6 @@ def write_atomic(target: Path, write, backup: bool) -> Path | None:
     return bak
 
 
-def headline(analysis, valuation) -> dict[str, Any]:
-    """The numbers behind the plumb_ defined names, as plain values."""
-    from plumbrule.render.json import jsonable
-    fit = analysis.tables.fit.iloc[0]
-    out: dict[str, Any] = {"r_squared": fit["r_squared"], "n_used": int(fit["n_used"])}
-    study = analysis.tables.ratio_study
-    for m in ("cod", "prd", "prb"):
-        out[m] = study[m].iloc[0] if study is not None and len(study) and m in study else None
-    if valuation is not None and len(valuation.estimates):
-        e = valuation.estimates.iloc[0]
-        out.update(subject=e.get("subject"), estimate=e["estimate"], pi_low=e["pi_low"],
-                   pi_high=e["pi_high"])
-        rec = valuation.reconciled
-        if rec is not None and len(rec) and "value" in rec:
-            out["reconciled_value"] = rec["value"].iloc[0]
-    return jsonable(out)
-
-
 def print_run(result: RunResult, as_json: bool = False) -> None:
     """What ``plumbrule run`` prints: where the results went, why, and the headline."""
     import json
@@ -254,11 +239,4 @@ def print_run(result: RunResult, as_json: bool = False) -> None:
         print(f"It was left untouched; the results are in {result.written}.")
     if result.backup:
         print(f"Previous version kept as {result.backup}.")
-    h = result.headline
-    parts = [f"sales used {h['n_used']}", f"R² {h['r_squared']:.3f}"]
-    if h.get("cod") is not None:
-        parts.append(f"COD {h['cod']:.1f}, PRD {h['prd']:.3f}, PRB {h['prb']:.3f}")
-    if h.get("estimate") is not None:
-        parts.append(f"estimate {h['estimate']:,.0f} (prediction interval {h['pi_low']:,.0f} "
-                     f"to {h['pi_high']:,.0f})")
-    print("; ".join(parts) + ".")
+    print(headline_text(result.headline))
