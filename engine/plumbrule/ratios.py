@@ -167,7 +167,8 @@ def _prb(est: np.ndarray, price: np.ndarray, r: np.ndarray, med: float,
 
 def ratio_trim(estimates: pd.DataFrame, k: float = 3.0) -> pd.DataFrame:
     """Screen-log records for ratios beyond Q1 − k·IQR or Q3 + k·IQR (IAAO practice, k = 3)."""
-    from plumbrule.screening import LOG_COLUMNS, RATIO_TRIM, _fmt, empty_log, fence_limits
+    from plumbrule.numbers import written
+    from plumbrule.screening import LOG_COLUMNS, RATIO_TRIM, empty_log, fence_limits
     if len(estimates) < 4:
         return empty_log()
     lim = fence_limits(estimates, ["ratio"], k).iloc[0]
@@ -178,7 +179,7 @@ def ratio_trim(estimates: pd.DataFrame, k: float = 3.0) -> pd.DataFrame:
     up = r[hit] > lim["high"]
     limit = np.where(up, lim["high"], lim["low"])
     reason = [f"ratio {v:.4g} is {'above Q3' if u else 'below Q1'} {'+' if u else '−'} "
-              f"{k:g}·IQR ({_fmt(lim_v)}); kept in the fit, left out of the ratio study"
+              f"{k:g}·IQR ({written(lim_v)}); kept in the fit, left out of the ratio study"
               for v, u, lim_v in zip(r[hit], up, limit, strict=False)]
     return pd.DataFrame({"row": estimates["row"].to_numpy(np.int64)[hit], "column": "ratio",
                          "value": r[hit], "rule": RATIO_TRIM, "limit": limit,

@@ -24,6 +24,7 @@ from typing import Iterable, Sequence
 import numpy as np
 import pandas as pd
 
+from plumbrule.numbers import written
 from plumbrule.diagnostics.checks import OK, WATCH, Check
 from plumbrule.errors import SettingError
 from plumbrule.numeric.quantiles import quantiles
@@ -157,8 +158,8 @@ def outside_rule(data: pd.DataFrame, limits: pd.DataFrame, rule: str,
     value, limit = vb[i, j], np.where(is_high, hi[j], lo[j])
     col = np.array(cols, dtype=object)[j]
     more = bb.sum(axis=1) - 1
-    reason = [f"{c} {_fmt(x)} is {'above' if up else 'below'} "
-              f"{high_label if up else low_label} ({_fmt(lim)})"
+    reason = [f"{c} {written(x)} is {'above' if up else 'below'} "
+              f"{high_label if up else low_label} ({written(lim)})"
               + (f"; {m} more column{'s' if m > 1 else ''} outside too" if m else "")
               for c, x, up, lim, m in zip(col, value, is_high, limit, more, strict=False)]
     return pd.DataFrame({"row": data.index[hit].to_numpy(np.int64), "column": col,
@@ -297,17 +298,6 @@ def summary_table(before: pd.DataFrame, after: pd.DataFrame, log: pd.DataFrame,
 
 
 # --- text ----------------------------------------------------------------------
-
-def _fmt(v: float) -> str:
-    """A number as a reader would write it: 1,480,000 / 1,234.5 / 0.0123."""
-    if not np.isfinite(v):
-        return str(v)
-    if v == int(v) and abs(v) < 1e15:
-        return f"{int(v):,}"
-    if abs(v) >= 1:
-        return f"{v:,.2f}".rstrip("0").rstrip(".")
-    return f"{v:.4g}"
-
 
 def _ordinal(p: float) -> str:
     if p != int(p):

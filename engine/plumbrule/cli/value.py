@@ -8,6 +8,7 @@ import json
 
 import pandas as pd
 
+from plumbrule.numbers import money
 from plumbrule.render.wording import CAUTION
 
 
@@ -69,19 +70,15 @@ def render_valuation(result, analysis) -> str:
     return "\n".join(lines)
 
 
-def _money(v) -> str:
-    return "" if pd.isna(v) else f"{v:,.0f}"
-
-
 def _subject_lines(rec) -> list[str]:
     out = [f"Subject {rec.subject} (subjects row {rec.row})",
-           f"  estimate        {_money(rec.estimate)}  ({rec.estimate_kind})",
-           f"  likely mean     {_money(rec.ci_low)} to {_money(rec.ci_high)}"
-           f"   (standard error {_money(rec.se_mean)})",
-           f"  one sale        {_money(rec.pi_low)} to {_money(rec.pi_high)}"
-           f"   (standard error {_money(rec.se_single)})"]
+           f"  estimate        {money(rec.estimate)}  ({rec.estimate_kind})",
+           f"  likely mean     {money(rec.ci_low)} to {money(rec.ci_high)}"
+           f"   (standard error {money(rec.se_mean)})",
+           f"  one sale        {money(rec.pi_low)} to {money(rec.pi_high)}"
+           f"   (standard error {money(rec.se_single)})"]
     if rec.retransform != "none":
-        out.append(f"  median estimate {_money(rec.median_estimate)}; factor "
+        out.append(f"  median estimate {money(rec.median_estimate)}; factor "
                    f"{rec.retransform_factor:.5f} ({rec.retransform})")
     out.append(f"  leverage        {rec.leverage:.4f} (largest among the sales "
                f"{rec.max_sales_leverage:.4f})")
@@ -97,21 +94,21 @@ def _grid_lines(result) -> list[str]:
     for row, block in g.groupby("comp_row", sort=False):
         feats = block[block["kind"] != "total"]
         tot = block[block["kind"] == "total"].iloc[0]
-        cells = [[f, _cell(s), _cell(c), _money(a)] for f, s, c, a in
+        cells = [[f, _cell(s), _cell(c), money(a)] for f, s, c, a in
                  zip(feats["feature"], feats["subject_value"], feats["comp_value"],
                      feats["adjustment"], strict=False)]
-        out += ["", f"Comparable: sales row {row}, sold for {_money(tot.sale_price)}",
+        out += ["", f"Comparable: sales row {row}, sold for {money(tot.sale_price)}",
                 _layout(["feature", "subject", "comparable", "adjustment"], cells),
-                f"  net {_money(tot.net_adjustment)} ({100 * tot.net_pct:+.1f}%), gross "
-                f"{_money(tot.gross_adjustment)} ({100 * tot.gross_pct:.1f}%), adjusted price "
-                f"{_money(tot.adjusted_price)}, weight {tot.weight:.3f}"]
+                f"  net {money(tot.net_adjustment)} ({100 * tot.net_pct:+.1f}%), gross "
+                f"{money(tot.gross_adjustment)} ({100 * tot.gross_pct:.1f}%), adjusted price "
+                f"{money(tot.adjusted_price)}, weight {tot.weight:.3f}"]
         for flag in filter(None, str(tot["flags"]).split("; ")):
             out.append(f"  watch: {flag}")
     rec = result.reconciled.iloc[0]
-    out += ["", f"Reconciled value {_money(rec.value)} ({rec.weighting} weights); adjusted "
-            f"prices {_money(rec.range_low)} to {_money(rec.range_high)} (spread "
+    out += ["", f"Reconciled value {money(rec.value)} ({rec.weighting} weights); adjusted "
+            f"prices {money(rec.range_low)} to {money(rec.range_high)} (spread "
             f"{100 * rec.spread_pct:.1f}% of the value); model estimate "
-            f"{_money(rec.model_estimate)}"]
+            f"{money(rec.model_estimate)}"]
     for flag in filter(None, str(rec["flags"]).split("; ")):
         out.append(f"  watch: {flag}")
     return out

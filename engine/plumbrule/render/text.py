@@ -10,46 +10,12 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
 import pandas as pd
 
 from plumbrule.diagnostics.tables import effect_table, typical_spread
+from plumbrule.numbers import money, p_value, readable, signed_pct
 from plumbrule.render.wording import CAUTION
 from plumbrule.verdicts import Verdict
-
-
-def _num(v) -> str:
-    """A number for reading: thousands separators, about four significant digits."""
-    if isinstance(v, str):
-        return v
-    if v is None or isinstance(v, (bool, np.bool_)):
-        return "" if v is None else str(v)
-    try:
-        v = float(v)
-    except (TypeError, ValueError):
-        return str(v)
-    if not math.isfinite(v):
-        return "" if v != v else ("inf" if v > 0 else "-inf")
-    if v == 0:
-        return "0"
-    if v.is_integer() and abs(v) < 1e15:
-        return f"{int(v):,}"
-    a = abs(v)
-    if a >= 1e9 or a < 1e-4:
-        return f"{v:.3e}"
-    if a >= 1000:
-        return f"{v:,.0f}"
-    return f"{v:.4g}"
-
-
-def _p(v) -> str:
-    if v is None or not isinstance(v, (int, float, np.floating)) or not math.isfinite(v):
-        return ""
-    return "< 0.001" if v < 0.001 else f"{v:.3f}"
-
-
-def _signed_pct(x: float) -> str:
-    return f"{x:+.2f} %" if abs(x) < 10 else f"{x:+.1f} %"
 
 
 def text_table(frame: pd.DataFrame, columns=None, headers=None, limit: int | None = None,
@@ -59,7 +25,7 @@ def text_table(frame: pd.DataFrame, columns=None, headers=None, limit: int | Non
     headers = list(headers or columns)
     formats = formats or {}
     rows = frame[columns].head(limit) if limit else frame[columns]
-    cells = [[formats.get(c, _num)(v) for c, v in zip(columns, r, strict=False)]
+    cells = [[formats.get(c, readable)(v) for c, v in zip(columns, r, strict=False)]
              for r in rows.itertuples(index=False, name=None)]
     widths = [max([len(h)] + [len(r[i]) for r in cells]) for i, h in enumerate(headers)]
     numeric = [frame[c].dtype.kind in "fiu" for c in columns]
@@ -89,7 +55,7 @@ def effect_words(result) -> list[str]:
         unit = (f"vs {e.reference}" if e.kind == "level" else
                 "per month" if e.kind == "trend" else "per unit")
         if e.scale == "percent":
-            out.append(f"{_signed_pct(e.effect)} {unit}")
+            out.append(f"{signed_pct(e.effect)} {unit}")
         elif e.scale == "percent per 1 percent":
             out.append(f"{e.effect:+.3f} % per 1 % more")
         elif e.scale == "price per 1 percent":
@@ -125,18 +91,18 @@ def _fit_block(result) -> list[str]:
     log_y = result.encoding.spec.log_response
     sigma = float(fit["resid_std_error"])
     if log_y:
-        spread = (f"{_num(sigma)} on the log scale: a typical sale lies within about "
+        spread = (f"{readable(sigma)} on the log scale: a typical sale lies within about "
                   f"{100 * typical_spread(result.model)[0]:.1f} % of the model")
     else:
-        spread = f"{_num(sigma)}: a typical sale lies within about this amount of the model"
+        spread = f"{readable(sigma)}: a typical sale lies within about this amount of the model"
     rows = [
         ("R²", f"{fit['r_squared']:.4f}   (adjusted {fit['adj_r_squared']:.4f})"
          + ("" if result.encoding.spec.intercept else "; no intercept, so measured from zero")),
-        ("F statistic", f"{_num(fit['f_stat'])}   (p {_p(fit['f_p_value'])})"),
+        ("F statistic", f"{readable(fit['f_stat'])}   (p {p_value(fit['f_p_value'])})"),
         ("residual std error", spread),
         ("mean absolute % error", f"{fit['mape']:.2f} % of the sale price"
          if math.isfinite(fit["mape"]) else "n/a (a price of 0)"),
-        ("AIC / BIC", f"{_num(fit['aic'])} / {_num(fit['bic'])}"),
+        ("AIC / BIC", f"{readable(fit['aic'])} / {readable(fit['bic'])}"),
         ("standard errors", str(fit.get("se_type", "classical"))),
     ]
     w = max(len(k) for k, _ in rows)
@@ -146,7 +112,7 @@ def _fit_block(result) -> list[str]:
 def _effects_block(result) -> list[str]:
     coefs = result.tables.coefficients.copy()
     level = int(round(100 * result.model.confidence))
-    coefs["interval"] = [f"{_num(lo)} to {_num(hi)}" for lo, hi in
+    coefs["interval"] = [f"{readable(lo)} to {readable(hi)}" for lo, hi in
                          zip(coefs["ci_low"], coefs["ci_high"], strict=False)]
     coefs["meaning"] = effect_words(result)
     cols = ["term", "estimate", "std_error", "t", "p_value", "interval", "std_beta", "vif",
@@ -154,14 +120,14 @@ def _effects_block(result) -> list[str]:
     heads = ["term", "estimate", "std error", "t", "p", f"{level} % interval", "beta", "VIF",
              "in words"]
     return ["Effects on " + result.encoding.response_name,
-            text_table(coefs, cols, heads, formats={"p_value": _p})]
+            text_table(coefs, cols, heads, formats={"p_value": p_value})]
 
 
 def _checks_block(result) -> list[str]:
     checks = result.tables.checks
     out = ["Checks of the model",
            text_table(checks, ["verdict", "check", "statistic", "p_value", "threshold"],
-                ["verdict", "check", "value", "p", "flagged when"], formats={"p_value": _p})]
+                ["verdict", "check", "value", "p", "flagged when"], formats={"p_value": p_value})]
     attention = checks[checks["verdict"].isin(Verdict.needing_attention())]
     if len(attention):
         out += ["", "What needs attention"]
@@ -213,19 +179,19 @@ def render_analysis(result) -> str:
 
 def headline_text(h: dict) -> str:
     """The headline (:func:`plumbrule.headline.headline`) as a few aligned lines."""
-    def money(v):
-        return "n/a" if v is None else f"{v:,.0f}"
-
     def num(v, fmt):
         return "n/a" if v is None else format(v, fmt)
+
+    def cash(v):
+        return money(v, "n/a")
     lines = [f"  Sales used in the fit   {h['n_used']:,}",
              f"  R²                      {num(h['r_squared'], '.3f')}",
              f"  COD / PRD / PRB         {num(h.get('cod'), '.1f')} / {num(h.get('prd'), '.3f')}"
              f" / {num(h.get('prb'), '.3f')}  (sales-ratio study: {h.get('ratio_sample')})"]
     if h.get("estimate") is not None:
         lines += [f"  Subject                 {h.get('subject')}",
-                  f"  Estimate                {money(h['estimate'])}"
-                  f"  (prediction interval {money(h['pi_low'])} to {money(h['pi_high'])})"]
+                  f"  Estimate                {cash(h['estimate'])}"
+                  f"  (prediction interval {cash(h['pi_low'])} to {cash(h['pi_high'])})"]
         if h.get("reconciled_value") is not None:
-            lines.append(f"  From the comparables    {money(h['reconciled_value'])}")
+            lines.append(f"  From the comparables    {cash(h['reconciled_value'])}")
     return "\n".join(lines)

@@ -15,12 +15,14 @@ from typing import Any
 
 import pandas as pd
 
+from plumbrule.diagnostics.tables import effect_table, typical_spread
+from plumbrule.numbers import is_number, money
+from plumbrule.render.wording import CAUTION
+from plumbrule.verdicts import FAILS, NA, OK, WATCH
 from plumbrule.workbook import cells
 from plumbrule.workbook.cells import MONEY, PERCENT, put, sig3
 
-from plumbrule.diagnostics.tables import effect_table, typical_spread
-from plumbrule.render.wording import CAUTION
-from plumbrule.verdicts import FAILS, NA, OK, WATCH
+DASH = "—"   # a money figure that is absent
 CAUTIONS = (
     CAUTION,
     "The model describes the sales it was fitted on. For a property unlike them (see the "
@@ -152,8 +154,8 @@ def _headline(ws, ctx, r) -> int:
     if ctx.reconciled is not None:
         rec = ctx.reconciled.iloc[0]
         rows.append(("Reconciled value from the comparables", rec.get("value"), None, MONEY,
-                     f"adjusted prices range {_money(rec.get('range_low'))} to "
-                     f"{_money(rec.get('range_high'))}"))
+                     f"adjusted prices range {money(rec.get('range_low'), DASH)} to "
+                     f"{money(rec.get('range_high'), DASH)}"))
     n_used = int(ctx.fit["n_used"])
     rows.append(("Sales used in the fit", n_used, None, "#,##0",
                  _set_aside_text(ctx)))
@@ -300,8 +302,8 @@ def _valuation(ws, ctx, r) -> int:
     if ctx.reconciled is not None:
         rec = ctx.reconciled.iloc[0]
         text = (f"Sales comparison: the comparables' adjusted prices reconcile to "
-                f"{_money(rec.get('value'))} (range {_money(rec.get('range_low'))} to "
-                f"{_money(rec.get('range_high'))}). The adjustment grid is on the Valuation "
+                f"{money(rec.get('value'), DASH)} (range {money(rec.get('range_low'), DASH)} to "
+                f"{money(rec.get('range_high'), DASH)}). The adjustment grid is on the Valuation "
                 "sheet.")
         _wrapped(ws, r, 1, text, span=LAST_COL)
         r += 1
@@ -604,24 +606,13 @@ def _sample_text(rec) -> str:
 
 def _value_format(v):
     """Whole numbers as whole numbers, anything else to 3 significant digits."""
-    if not _is_num(v):
+    if not is_number(v):
         return None
     return "#,##0" if float(v) == round(float(v)) else sig3(v)
 
 
-def _money(v) -> str:
-    return f"{float(v):,.0f}" if _is_num(v) else "—"
-
-
-def _is_num(v) -> bool:
-    try:
-        return v is not None and not isinstance(v, (str, bool)) and math.isfinite(float(v))
-    except (TypeError, ValueError):
-        return False
-
-
 def _int(v) -> int:
-    return int(v) if _is_num(v) else 0
+    return int(v) if is_number(v) else 0
 
 
 def _plain_text(v) -> str:
