@@ -116,26 +116,14 @@ def coerce_settings(settings: Settings | Mapping[str, Any] | None = None, **kw) 
 def prepare(table: intake.SheetTable, settings: Settings) -> tuple[ModelSpec, intake.CleanData]:
     """Match the spec to the headers and type the used columns (the validation edge)."""
     spec = build_spec(settings, table.columns)
-    extra_numeric = [c for c in _extra_numeric(settings, table) if c not in spec.used_columns]
-    extra_labels = [c for c in _extra_labels(settings, table) if c not in spec.used_columns]
+    extra_numeric = [c for c in spec.screened if c not in spec.used_columns]
+    extra_labels = [spec.ratio_by] if spec.ratio_by and spec.ratio_by not in spec.used_columns \
+        else []
     clean = intake.clean(table, numeric=list(spec.numeric_columns) + extra_numeric,
                          categorical=list(spec.categorical) + extra_labels,
                          date=spec.date_column,
                          hint_categorical=spec.numeric_predictors)
     return spec, clean
-
-
-def _extra_numeric(settings: Settings, table: intake.SheetTable) -> list[str]:
-    """Columns outside the model that screening reads as numbers."""
-    from plumbrule.model.spec import match_column
-    return [match_column(c, table.columns, "trim_columns") for c in settings.trim_columns]
-
-
-def _extra_labels(settings: Settings, table: intake.SheetTable) -> list[str]:
-    from plumbrule.model.spec import match_column
-    if settings.ratio_by:
-        return [match_column(settings.ratio_by, table.columns, "ratio_by")]
-    return []
 
 
 def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
@@ -148,19 +136,16 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     checks → validation (holdout, k-fold) → ratio study → tables.
     """
     settings = coerce_settings(settings, **kw)
-    if settings.folds == 1:
-        raise SettingError("Setting 'folds': 1 fold is not cross-validation. Use 0 (off) or 2 "
-                           "or more.", setting="folds")
     table = as_table(source)
     spec, clean = prepare(table, settings)
-    columns = screen.screened_columns(settings, spec.numeric_columns, table.columns)
+    columns = spec.screened
     train, hold, fit_log, looked, moved = _screen_and_split(clean.data, spec, settings, table,
                                                             columns)
     model = fit_model(spec, train, robust_se=settings.robust_se,
                       confidence=settings.confidence)
     validation, h_est, cv = _validate(model, hold, settings)
     study, holdout_estimates, cv_estimates, ratio_log = _ratio_tables(
-        model, hold, h_est, cv, settings, _ratio_by(settings, table))
+        model, hold, h_est, cv, settings, spec.ratio_by)
 
     screen_log = pd.concat([lg for lg in (fit_log, ratio_log) if len(lg)]
                            or [screen.empty_log()], ignore_index=True)
@@ -274,11 +259,6 @@ def _enough(train: pd.DataFrame, hold: pd.DataFrame, log: pd.DataFrame) -> None:
     raise FitError(f"Only {len(train)} sales remain to fit the model after holding out "
                    f"{len(hold)} and screening out {len(log)}. Use a smaller 'holdout' or "
                    "loosen the screening settings.", setting="holdout" if len(hold) else None)
-
-
-def _ratio_by(settings: Settings, table: intake.SheetTable) -> str | None:
-    from plumbrule.model.spec import match_column
-    return match_column(settings.ratio_by, table.columns, "ratio_by") if settings.ratio_by else None
 
 
 def _move_unseen(train: pd.DataFrame, hold: pd.DataFrame, spec: ModelSpec):

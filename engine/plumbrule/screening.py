@@ -19,7 +19,7 @@ statistics). Values are on the sheet's scale (not logged).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Iterable, Sequence
+from typing import Sequence
 
 import numpy as np
 import pandas as pd
@@ -72,17 +72,6 @@ def set_aside_table(log: pd.DataFrame, dropped: pd.DataFrame) -> pd.DataFrame:
                           "rule": MISSING, "limit": None, "reason": extra["reason"]})
     out = pd.concat([log.astype(object), extra[LOG_COLUMNS].astype(object)], ignore_index=True)
     return out.sort_values("row", kind="stable", ignore_index=True)
-
-
-def screened_columns(settings: Settings, numeric_columns: Sequence[str],
-                     columns: Iterable[str]) -> tuple[str, ...]:
-    """The columns trim and fence look at: ``trim_columns``, or else the response and the
-    numeric predictors."""
-    if not settings.trim_columns:
-        return tuple(numeric_columns)
-    from plumbrule.model.spec import match_column
-    return tuple(dict.fromkeys(match_column(c, columns, "trim_columns")
-                               for c in settings.trim_columns))
 
 
 # --- limits ------------------------------------------------------------------

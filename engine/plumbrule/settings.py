@@ -30,6 +30,7 @@ class Setting:
     group: str = "model"
     low: float | None = None      # inclusive bounds for numbers
     high: float | None = None
+    refuse: tuple[tuple[float, str], ...] = ()   # values inside the bounds that mean nothing
 
 
 def _s(*args, **kw) -> Setting:
@@ -168,6 +169,7 @@ REGISTRY: dict[str, Setting] = {
             group="validate",
             low=0,
             high=100,
+            refuse=((1, "1 fold is not cross-validation. Use 0 (off) or 2 or more."),),
         ),
         _s(
             "ratio_by",
@@ -389,6 +391,9 @@ def _number(s: Setting, v: Any, cast):
     if (s.low is not None and x < s.low) or (s.high is not None and x > s.high):
         raise SettingError(f"Setting '{s.name}': {v} is outside {lo}..{hi}. {s.help}",
                            setting=s.name)
+    for value, why in s.refuse:
+        if x == value:
+            raise SettingError(f"Setting '{s.name}': {why}", setting=s.name)
     return x
 
 

@@ -189,7 +189,7 @@ class CrossValidation:
 def cross_validate(model, folds: int, seed: int, retransform: str = "smearing") -> CrossValidation:
     """k-fold cross-validation of ``model``'s specification on its own (training) rows."""
     n = model.fit.n
-    if folds == 1 or folds > n:
+    if folds < 2 or folds > n:
         raise SettingError(f"Setting 'folds': {folds} folds cannot cross-validate {n} sales. "
                            "Use 0 (off) or a number from 2 to the number of sales.",
                            setting="folds")

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import difflib
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Iterable
 
 from plumbrule.errors import SpecError, quote_list
@@ -22,6 +22,8 @@ class ModelSpec:
     log_predictors: tuple[str, ...] = ()
     date_column: str | None = None
     intercept: bool = True
+    screened: tuple[str, ...] = ()       # columns the trim and fence read (matched headers)
+    ratio_by: str | None = None          # the ratio study's strata column (matched header)
 
     @property
     def numeric_predictors(self) -> tuple[str, ...]:
@@ -112,10 +114,16 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
                             "Add it to 'categorical' or remove the pair.",
                             setting="reference_levels", column=col)
         refs.append((col, level))
-    return ModelSpec(response=response, predictors=tuple(preds), categorical=tuple(cats),
+    spec = ModelSpec(response=response, predictors=tuple(preds), categorical=tuple(cats),
                      reference_levels=tuple(refs), log_response=settings.log_response,
                      log_predictors=tuple(logs), date_column=date,
                      intercept=not settings.no_intercept)
+    # trim_columns and ratio_by are matched here, once, like every other column name
+    screened = (tuple(dict.fromkeys(match_column(c, columns, "trim_columns")
+                                    for c in settings.trim_columns))
+                if settings.trim_columns else spec.numeric_columns)
+    by = match_column(settings.ratio_by, columns, "ratio_by") if settings.ratio_by else None
+    return replace(spec, screened=screened, ratio_by=by)
 
 
 def _subset(names, columns, preds, setting) -> list[str]:
