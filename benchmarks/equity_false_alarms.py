@@ -1,0 +1,117 @@
+"""Vertical-equity false alarms: how often a correctly specified model is called regressive.
+
+A correctly specified market (invented): ln value = 12 + 0.8·ln-area + 0.2·condition
+− 0.004·age, sale price = value · exp(ε), ε ~ N(0, σ²). A log-linear model with exactly
+those predictors is fitted on 400 training sales and values 200 held-out sales; the
+ratio study runs on the holdout. Any verdict other than "ok" on such a model is a false
+alarm. For each σ it prints the share of replications in which each ratio-study verdict
+is not "ok" (every ``*_verdict`` column the installed plumbrule writes), and the share the
+old PRB rule (|PRB| > 0.05, interval ignored) flags.
+
+Second block: coverage of the PRB interval around the population PRB (a slope fitted on
+2 million sales of the same market), for the ordinary (classic) standard error and for
+the HC3 one, with normal price noise, Laplace noise (heavier tails) and noise whose spread falls as
+value rises (cheap sales noisier).
+
+Run: PYTHONPATH=engine python benchmarks/equity_false_alarms.py [--reps 500]
+"""
+
+from __future__ import annotations
+
+import argparse
+
+import numpy as np
+from scipy.stats import t as tdist
+
+from plumbrule import ratios
+
+N_TRAIN, N_HOLD = 400, 200
+
+
+def market(rng, n, sigma, noise="normal"):
+    """Design rows [1, ln-area, condition, age] and (value, sale price) of n invented sales."""
+    x = np.column_stack([np.ones(n), rng.normal(0, 0.35, n), rng.normal(0, 1, n),
+                         rng.uniform(0, 60, n)])
+    value = np.exp(x @ np.array([12.0, 0.8, 0.2, -0.004]))
+    if noise == "laplace":          # heavier tails than normal, same standard deviation
+        e = rng.laplace(0, sigma / np.sqrt(2.0), n)
+    elif noise == "uneven":         # cheap sales noisier than dear ones (sd × e^(−z/2))
+        z = (np.log(value) - 12.0) / 0.35
+        e = rng.normal(0, 1, n) * sigma * np.exp(-0.5 * z)
+    else:
+        e = rng.normal(0, sigma, n)
+    return x, value, value * np.exp(e)
+
+
+def holdout_study(rng, sigma):
+    """One replication: fit on the training sales, ratio study of the holdout."""
+    x, _, price = market(rng, N_TRAIN + N_HOLD, sigma)
+    b = np.linalg.lstsq(x[:N_TRAIN], np.log(price[:N_TRAIN]), rcond=None)[0]
+    est = np.exp(x[N_TRAIN:] @ b)
+    table = ratios.estimates_table(np.arange(N_HOLD), price[N_TRAIN:], est)
+    return ratios.ratio_study(table).iloc[0]
+
+
+def false_alarms(reps: int) -> None:
+    print(f"False alarms on a correct model ({reps} replications, {N_HOLD} holdout sales)")
+    for sigma in (0.10, 0.15, 0.20):
+        rng = np.random.default_rng(20260)
+        recs = [holdout_study(rng, sigma) for _ in range(reps)]
+        cols = [c for c in recs[0].index if c.endswith("_verdict")]
+        rates = {c[:-8]: np.mean([r[c] != ratios.OK for r in recs]) for c in cols}
+        old_prb = np.mean([abs(r["prb"]) > 0.05 for r in recs])
+        mean_prb = np.mean([r["prb"] for r in recs])
+        print(f"  sigma {sigma:.2f}: mean PRB {mean_prb:+.3f}; old PRB rule flags {old_prb:.1%}; "
+              + "; ".join(f"{k} not ok {v:.1%}" for k, v in rates.items()))
+
+
+def _slope_ci(x, y, level, kind):
+    """Slope of y on x with a t(n − 2) interval; classic or HC3 standard error."""
+    n = len(x)
+    xc, yc = x - x.mean(), y - y.mean()
+    sxx = xc @ xc
+    slope = xc @ yc / sxx
+    e = yc - slope * xc
+    if kind == "classic":
+        se = np.sqrt(e @ e / (n - 2) / sxx)
+    else:
+        h = 1.0 / n + xc * xc / sxx
+        se = np.sqrt(np.sum((xc * e / (1.0 - h)) ** 2)) / sxx
+    q = tdist.ppf(0.5 + level / 2.0, n - 2)
+    return slope - q * se, slope + q * se
+
+
+def _prb_xy(est, price):
+    r = est / price
+    med = np.median(r)
+    return np.log(0.5 * price + 0.5 * est / med) / np.log(2.0), (r - med) / med
+
+
+def prb_coverage(reps: int) -> None:
+    print(f"PRB 95 % interval coverage of the population PRB ({reps} replications)")
+    for noise in ("normal", "laplace", "uneven"):
+        for n in (50, 200):
+            rng = np.random.default_rng(7)
+            _, value, price = market(rng, 2_000_000, 0.15, noise)
+            x, y = _prb_xy(value, price)
+            xc = x - x.mean()
+            target = xc @ (y - y.mean()) / (xc @ xc)
+            hits = {"classic": 0, "HC3": 0, "plumbrule": 0}
+            for _ in range(reps):
+                _, value, price = market(rng, n, 0.15, noise)
+                x, y = _prb_xy(value, price)
+                for kind in ("classic", "HC3"):
+                    lo, hi = _slope_ci(x, y, 0.95, kind)
+                    hits[kind] += lo <= target <= hi
+                _, lo, hi = ratios.prb(value, price, 0.95)
+                hits["plumbrule"] += lo <= target <= hi
+            print(f"  {noise:7s} noise, n {n:3d} (PRB {target:+.3f}): "
+                  + ", ".join(f"{k} {v / reps:.3f}" for k, v in hits.items()))
+
+
+if __name__ == "__main__":
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--reps", type=int, default=500)
+    a = ap.parse_args()
+    false_alarms(a.reps)
+    prb_coverage(4 * a.reps)
