@@ -333,8 +333,8 @@ def verdicts(m: dict, t: RatioTargets) -> dict:
     ``m`` is a :func:`measures` record; interval columns it lacks count as unknown
     (NaN: an interval that does not exclude 0)."""
     out = {"median_target": f"{t.median_low:.2f} to {t.median_high:.2f}",
-           "cod_target": f"at most {t.cod_max:g} ({t.property_class}); below {t.cod_min:g} "
-                         "asks for a look",
+           "cod_target": f"at most {t.cod_max:g} ({t.property_class}), watch below "
+                         f"{t.cod_min:g}",
            "prd_target": f"{t.prd_low:.2f} to {t.prd_high:.2f}",
            "prb_target": f"within ±{t.prb_ok:.2f} (beyond ±{t.prb_max:.2f} with the interval "
                          "clear of 0 unacceptable)",
@@ -378,26 +378,30 @@ def verdicts(m: dict, t: RatioTargets) -> dict:
 
 def _equity_note(out: dict, problems: list, looks: list, d: float, b: tuple, v: tuple) -> None:
     """Vertical equity in words; a drift is claimed only where an interval excludes 0."""
-    price_flag = out["prd_verdict"] == FAILS or out["prb_verdict"] in (WATCH, FAILS)
-    price_text = f"PRD {d:.3f}, PRB {b[0]:+.3f}"
+    off = ([f"PRD {d:.3f}"] if out["prd_verdict"] == FAILS else []) + (
+        [f"PRB {b[0]:+.3f}"] if out["prb_verdict"] in (WATCH, FAILS) else [])
+    price_text = " and ".join(off)
+    beyond = price_text + (" is beyond its target" if len(off) == 1
+                           else " are beyond their targets")
     if out["value_slope_verdict"] in (WATCH, FAILS):
         side = "higher" if v[0] > 0 else "lower"
         text = (f"ratios drift {side} as the estimate rises (value slope {v[0]:+.3f}, "
-                f"interval {v[1]:+.3f} to {v[2]:+.3f}"
-                + (f"; {price_text})" if price_flag else ")"))
+                f"interval {v[1]:+.3f} to {v[2]:+.3f}" + (f"; {price_text})" if off else ")"))
         (problems if out["value_slope_verdict"] == FAILS else looks).append(text)
-    elif price_flag and out["value_slope_verdict"] == OK:
-        looks.append(f"{price_text} are beyond their targets, but the value slope "
-                     f"({v[0]:+.3f}, interval {v[1]:+.3f} to {v[2]:+.3f}) shows no drift with "
-                     "value: scatter in sale prices alone pushes PRD up and PRB down")
-    elif price_flag and clear_of_zero(b[1], b[2]):       # no value slope to read
+    elif off and out["value_slope_verdict"] == OK:
+        # the regressive reading is the one price noise produces (PRD up, PRB down)
+        regressive = d > 1.0 if out["prd_verdict"] == FAILS else b[0] < 0
+        looks.append(f"{beyond}, but the value slope ({v[0]:+.3f}, interval {v[1]:+.3f} to "
+                     f"{v[2]:+.3f}) shows no drift with value"
+                     + (": scatter in sale prices alone pushes PRD up and PRB down"
+                        if regressive else ""))
+    elif off and clear_of_zero(b[1], b[2]):              # no value slope to read
         side = "higher" if b[0] > 0 else "lower"
-        text = (f"ratios drift {side} as value rises ({price_text}, PRB interval "
-                f"{b[1]:+.3f} to {b[2]:+.3f})")
+        text = (f"ratios drift {side} as value rises (PRD {d:.3f}, PRB {b[0]:+.3f}, "
+                f"interval {b[1]:+.3f} to {b[2]:+.3f})")
         (problems if FAILS in (out["prd_verdict"], out["prb_verdict"]) else looks).append(text)
-    elif price_flag:
-        looks.append(f"{price_text} are beyond their targets, but PRB's interval includes 0: "
-                     "no drift with value is shown")
+    elif off:
+        looks.append(f"{beyond}, but PRB's interval includes 0: no drift with value is shown")
 
 
 def ratio_study(estimates: pd.DataFrame, sample: str = "holdout",

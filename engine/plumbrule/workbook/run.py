@@ -226,7 +226,7 @@ def headline(analysis, valuation) -> dict[str, Any]:
     fit = analysis.tables["fit"].iloc[0]
     out: dict[str, Any] = {"r_squared": fit["r_squared"], "n_used": int(fit["n_used"])}
     study = analysis.tables.get("ratio_study")
-    for m in ("cod", "prd", "prb"):
+    for m in ("cod", "prd", "prb", "value_slope"):
         out[m] = study[m].iloc[0] if study is not None and len(study) and m in study else None
     if valuation is not None and len(valuation.estimates):
         e = valuation.estimates.iloc[0]
