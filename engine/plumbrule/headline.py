@@ -12,7 +12,7 @@ def headline(analysis, valuation) -> dict[str, Any]:
     fit = analysis.tables.fit.iloc[0]
     out: dict[str, Any] = {"r_squared": fit["r_squared"], "n_used": int(fit["n_used"])}
     study = analysis.tables.ratio_study
-    for m in ("cod", "prd", "prb"):
+    for m in ("cod", "prd", "prb", "value_slope"):
         out[m] = study[m].iloc[0] if len(study) else None
     out["ratio_sample"] = study["sample"].iloc[0] if len(study) else None
     if valuation is not None and len(valuation.estimates):

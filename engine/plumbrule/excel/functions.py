@@ -437,7 +437,8 @@ def screen_table(analysis):
 @sheet_function
 def PLUMB_RATIOS(sales, response, predictors, settings=None):
     ("Sales-ratio study (holdout sales, or cross-validated estimates without a holdout): "
-     "median ratio and interval, COD, PRD, PRB, each with its target and verdict.")
+     "median ratio and interval, COD, PRD, PRB, value slope, each with its target and "
+     "verdict.")
     return model_cells("ratios", ratio_table, sales, response, predictors, settings)
 
 

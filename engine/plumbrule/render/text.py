@@ -149,8 +149,8 @@ _OTHER = {
     "screen_log": ("Sales set aside by screening", ["row", "rule", "reason"]),
     "validation": ("Validation", ["set", "n", "r_squared", "rmse", "mae", "mape", "note"]),
     "ratio_study": ("Sales-ratio study", ["sample", "stratum", "n", "median_ratio", "cod", "prd",
-                                          "prb", "median_verdict", "cod_verdict", "prd_verdict",
-                                          "prb_verdict"]),
+                                          "prb", "value_slope", "median_verdict", "cod_verdict",
+                                          "prd_verdict", "prb_verdict", "value_slope_verdict"]),
 }
 
 

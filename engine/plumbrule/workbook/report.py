@@ -170,7 +170,8 @@ def _headline(ws, ctx, r) -> int:
         first = rs.iloc[0]
         where = _sample_text(first)
         for key, label, fmt in (("median_ratio", "Median ratio", "0.000"), ("cod", "COD", "0.0"),
-                                ("prd", "PRD", "0.000"), ("prb", "PRB", "0.000")):
+                                ("prd", "PRD", "0.000"), ("prb", "PRB", "0.000"),
+                                ("value_slope", "Value slope", "0.000")):
             if key in rs.columns:
                 rows.append((f"{label} ({where})", first[key], None, fmt,
                              _verdict_of(rs, 0, key)))
@@ -399,7 +400,9 @@ def _screening(ws, ctx, r) -> int:
 _MEASURES = (("median_ratio", "Median ratio", "0.000", "0.90 to 1.10"),
              ("cod", "COD", "0.0", None),
              ("prd", "PRD", "0.000", "0.98 to 1.03"),
-             ("prb", "PRB", "0.000", "within ±0.05"))
+             ("prb", "PRB", "0.000", "within ±0.05"),
+             ("value_slope", "Value slope", "0.000", "interval includes 0"))
+_TABLE_MEASURES = _MEASURES[:4]     # the numeric columns; the value slope is in the verdicts
 
 
 def _ratio_study(ws, ctx, r) -> int:
@@ -427,10 +430,10 @@ def _ratio_study(ws, ctx, r) -> int:
     for i, (_, s) in enumerate(rs.head(20).iterrows()):
         put(ws, r, 1, s.get("stratum", "all"))
         put(ws, r, 2, s.get("n"), "#,##0")
-        for j, (key, _, fmt, _) in enumerate(_MEASURES, start=3):
+        for j, (key, _, fmt, _) in enumerate(_TABLE_MEASURES, start=3):
             put(ws, r, j, s.get(key), fmt)
-        verdicts = [f"{label}: {_verdict_of(rs, i, key)}" for key, label, _, _ in _MEASURES
-                    if _verdict_of(rs, i, key)]
+        verdicts = [f"{_verdict_label(s, key, label)}: {_verdict_of(rs, i, key)}"
+                    for key, label, _, _ in _MEASURES if _verdict_of(rs, i, key)]
         _wrapped(ws, r, 7, "; ".join(verdicts), span=1)
         r += 1
     if "note" in rs.columns:
@@ -443,7 +446,9 @@ def _ratio_study(ws, ctx, r) -> int:
     _wrapped(ws, r, 1, f"Targets: {targets} (IAAO Standard on Ratio Studies, 2013, unless the "
                        "settings changed them). A median ratio near 1 means the model values at "
                        "market level; a low COD means uniform values; PRD and PRB near their "
-                       "targets mean cheap and dear properties are valued alike.",
+                       "targets mean cheap and dear properties are valued alike. Noise in sale "
+                       "prices by itself pushes PRD up and PRB down; the value slope (ratios "
+                       "against the estimate) is not pushed by it.",
              span=LAST_COL, style="plumb_note")
     return r + 1
 
@@ -561,6 +566,22 @@ def _page_setup(ws, last_row: int) -> None:
     ws.sheet_properties.pageSetUpPr.fitToPage = True
     ws.sheet_view.showGridLines = False
     ws.oddFooter.center.text = "plumbrule report: a statistical estimate, not an appraisal"
+
+
+def _verdict_label(s, key: str, label: str) -> str:
+    """A measure's label in the verdict list; the value slope, which has no column of its
+    own in the table, with its figure and interval."""
+    if key != "value_slope" or not _is_number(s.get(key)):
+        return label
+    text = f"{label} {s[key]:+.3f}"
+    lo, hi = s.get("value_slope_ci_low"), s.get("value_slope_ci_high")
+    if _is_number(lo) and _is_number(hi):
+        text += f" ({lo:+.3f} to {hi:+.3f})"
+    return text
+
+
+def _is_number(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
 
 
 def _verdict_of(frame: pd.DataFrame, i: int, key: str) -> str:

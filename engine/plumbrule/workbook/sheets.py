@@ -32,7 +32,9 @@ _WORDS = {
     "p-value of F", "std_error": "std error", "std_beta": "std beta", "vif": "VIF",
     "ci_low": "CI low", "ci_high": "CI high", "pi_low": "PI low", "pi_high": "PI high",
     "cod": "COD", "cov": "COV", "prd": "PRD", "prb": "PRB", "prb_ci_low": "PRB CI low",
-    "prb_ci_high": "PRB CI high", "rmse": "RMSE", "mae": "MAE", "mape": "MAPE (%)",
+    "prb_ci_high": "PRB CI high", "value_slope": "value slope", "value_slope_ci_low":
+    "value slope CI low", "value_slope_ci_high": "value slope CI high", "rmse": "RMSE",
+    "mae": "MAE", "mape": "MAPE (%)",
     "rmse_model": "RMSE (model scale)", "r_squared_model": "R² (model scale)", "aic": "AIC",
     "bic": "BIC", "se_mean": "std error of the mean", "se_single": "std error of one sale",
     "n": "sales", "comp_row": "comparable (sheet row)", "row": "sheet row",
@@ -52,8 +54,8 @@ _MONEY_COLUMNS = {
     "gross_adjustment", "adjusted_price", "median_estimate", "model_estimate", "estimate",
 }
 _RATIO_COLUMNS = {"ratio", "median_ratio", "median_ci_low", "median_ci_high", "mean_ratio",
-                  "weighted_mean_ratio", "prd", "prb", "prb_ci_low", "prb_ci_high", "weight",
-                  "retransform_factor"}
+                  "weighted_mean_ratio", "prd", "prb", "prb_ci_low", "prb_ci_high", "value_slope",
+                  "value_slope_ci_low", "value_slope_ci_high", "weight", "retransform_factor"}
 
 
 def label(column: str) -> str:
@@ -241,7 +243,7 @@ def write_validation(ws, analysis) -> None:
                       empty="No ratio study (it needs a holdout or cross-validation).",
                       explain="Targets from the IAAO Standard on Ratio Studies (2013); with "
                               "fewer than 20 sales the verdicts say the sample is too small.")
-    for measure in ("cod", "prd", "prb"):
+    for measure in ("cod", "prd", "prb", "value_slope"):
         if len(study):
             define_name(book, f"plumb_{measure}", ws.title, _cell(_col(study, measure), first))
         else:
