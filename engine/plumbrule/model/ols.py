@@ -28,7 +28,7 @@ class OLSFit:
 
     ``coef``/``cov``/``se`` follow ``names`` (the intercept first when present).
     ``q`` is the thin orthogonal factor of the working design *without* the
-    constant column (columns in pivoted order), kept so diagnostics can run
+    constant column (columns in input order), kept so diagnostics can run
     auxiliary regressions without refactoring. ``vif`` and ``x_means``/
     ``x_norms`` refer to the predictor columns (no intercept), in input order.
     """
@@ -49,7 +49,6 @@ class OLSFit:
     has_intercept: bool
     q: np.ndarray
     r: np.ndarray
-    pivot: np.ndarray
     x_means: np.ndarray
     x_norms: np.ndarray
     vif: np.ndarray
@@ -58,7 +57,7 @@ class OLSFit:
     # near-dependence on positive predictors (log of area, say) says nothing about
     # the estimates users read.
     cond_number: float
-    qty: np.ndarray | None = None   # Qᵀ(y − ȳ), pivoted order: the response in working units
+    qty: np.ndarray | None = None   # Qᵀ(y − ȳ): the response in working units
 
     @property
     def r_squared(self) -> float:
@@ -108,8 +107,7 @@ class OLSFit:
         so no pass over the data. None without an intercept (Xs is not centred)."""
         if not self.has_intercept:
             return None
-        g = np.empty((self.r.shape[1],) * 2)
-        g[np.ix_(self.pivot, self.pivot)] = self.r.T @ self.r
+        g = self.r.T @ self.r
         np.fill_diagonal(g, 1.0)
         return g
 
@@ -118,13 +116,11 @@ class OLSFit:
         Xsᵀ(y − ȳ)/‖y − ȳ‖ = P Rᵀ Qᵀ(y − ȳ)/‖y − ȳ‖. None without an intercept."""
         if not self.has_intercept or self.qty is None or not self.tss > 0:
             return None
-        out = np.empty(self.r.shape[1])
-        out[self.pivot] = self.r.T @ self.qty / np.sqrt(self.tss)
-        return out
+        return self.r.T @ self.qty / np.sqrt(self.tss)
 
     def _coef_map(self) -> np.ndarray:
         """L with cov(coef) = L · cov(working θ·R) · L' (see module doc)."""
-        return _coef_map(self.r, self.pivot, self.x_means, self.x_norms,
+        return _coef_map(self.r, self.x_means, self.x_norms,
                          self.n, self.has_intercept)
 
 
@@ -152,7 +148,7 @@ def fit_ols(x: np.ndarray, y: np.ndarray, names: list[str],
     norms = np.sqrt(np.einsum("ij,ij->j", xs, xs))
     _check_constant_columns(norms, names, intercept)
     xs /= norms
-    q, r, piv = _qr(xs)      # xs is overwritten: Q takes its place, no second n × k buffer
+    q, r = _qr(xs)      # xs is overwritten: Q takes its place, no second n × k buffer
     del xs
     svals = _singular_values(r)
     _check_rank(svals, x, means, norms, names, intercept)
@@ -162,16 +158,14 @@ def fit_ols(x: np.ndarray, y: np.ndarray, names: list[str],
     qty = q.T @ yc
     tss = dot(yc, yc)
     del yc
-    theta = _solve_r(r, qty)                          # working coefficients (pivoted)
-    b = np.empty(k)
-    b[piv] = theta
-    b /= norms
+    theta = _solve_r(r, qty)                          # working coefficients
+    b = theta / norms
     cond = float(svals[0] / svals[-1]) if svals[-1] > 0 else float("inf")
-    quick = _refine_double(x, y, means, norms, q, r, piv, b, y_mean, intercept, cond)
+    quick = _refine_double(x, y, means, norms, q, r, b, y_mean, intercept, cond)
     if quick is not None:
         b_ext, c_ext, res_ext = quick
     else:
-        b_ext, c_ext, res_ext = _refine(x, y, means, norms, q, r, piv, b, y_mean, intercept)
+        b_ext, c_ext, res_ext = _refine(x, y, means, norms, q, r, b, y_mean, intercept)
     resid = np.asarray(res_ext, dtype=float)
     b = b_ext.astype(float)
     # The intercept is a difference of large numbers (ȳ − x̄·b): form it from the
@@ -182,8 +176,8 @@ def fit_ols(x: np.ndarray, y: np.ndarray, names: list[str],
     df_resid = n - n_params
     ssr = dot(resid, resid)
     sigma = float(np.sqrt(ssr / df_resid))
-    rinv = _rinv_unpivoted(r, piv)
-    lmat = _coef_map(r, piv, means, norms, n, intercept, rinv)
+    rinv = _solve_r(r, np.eye(k))
+    lmat = _coef_map(r, means, norms, n, intercept, rinv)
     cov = sigma ** 2 * (lmat @ lmat.T)
     se = sigma * np.sqrt(np.einsum("ij,ij->i", lmat, lmat))
     leverage = np.einsum("ij,ij->i", q, q)
@@ -194,7 +188,7 @@ def fit_ols(x: np.ndarray, y: np.ndarray, names: list[str],
     return OLSFit(
         names=all_names, coef=coef, cov=cov, se=se, fitted=y - resid, resid=resid,
         leverage=leverage, n=n, n_params=n_params, df_resid=df_resid, ssr=ssr,
-        tss=tss, sigma=sigma, has_intercept=intercept, q=q, r=r, pivot=piv,
+        tss=tss, sigma=sigma, has_intercept=intercept, q=q, r=r,
         x_means=means, x_norms=norms, vif=vif,
         cond_number=cond, qty=qty)
 
@@ -211,12 +205,12 @@ def _qr(xs: np.ndarray):
 
     Columns are centred and unit length, so no pivoting is needed for accuracy;
     rank is judged from the singular values of R (see :func:`_check_rank`),
-    which reveal it more sharply than pivoted diagonals. Returns (Q, R, pivot)
-    with the identity pivot.
+    which reveal it more sharply than pivoted diagonals. Returns (Q, R), columns in
+    input order.
     """
     from scipy.linalg import qr
     q, r = qr(xs, mode="economic", overwrite_a=True, check_finite=False)
-    return q, r, np.arange(xs.shape[1])
+    return q, r
 
 
 def _singular_values(r: np.ndarray) -> np.ndarray:
@@ -229,23 +223,14 @@ def _solve_r(r: np.ndarray, rhs: np.ndarray) -> np.ndarray:
     return solve_triangular(r, rhs, check_finite=False)
 
 
-def _rinv_unpivoted(r: np.ndarray, piv: np.ndarray) -> np.ndarray:
-    """Rows of R⁻¹ reordered so row j belongs to input column j."""
-    k = r.shape[0]
-    rinv = _solve_r(r, np.eye(k))
-    out = np.empty_like(rinv)
-    out[piv] = rinv
-    return out
-
-
-def _coef_map(r, piv, means, norms, n, intercept, rinv=None) -> np.ndarray:
+def _coef_map(r, means, norms, n, intercept, rinv=None) -> np.ndarray:
     """L such that cov(coef) = σ² L Lᵀ; rows follow the coefficient order.
 
     In working coordinates the design is [1/√n, X_s] with R_full = diag(1, R),
     and coef = T·θ with T mapping the centred, scaled fit back to user units.
     """
-    rinv = _rinv_unpivoted(r, piv) if rinv is None else rinv
-    rows = rinv / norms[:, None]                      # slope rows: D⁻¹ P R⁻¹
+    rinv = _solve_r(r, np.eye(r.shape[0])) if rinv is None else rinv
+    rows = rinv / norms[:, None]                      # slope rows: D⁻¹ R⁻¹
     if not intercept:
         return rows
     k = r.shape[0]
@@ -323,7 +308,7 @@ def _xt_times(x, means, v):
 _DOUBLE_OK = 1e-13
 
 
-def _refine_double(x, y, means, norms, q, r, piv, b, c, intercept, cond):
+def _refine_double(x, y, means, norms, q, r, b, c, intercept, cond):
     """One refinement step in double precision, or None when it could cost digits.
 
     r = y − c′ − x·b (one BLAS pass, c′ = c − means·b) carries a rounding error
@@ -351,16 +336,15 @@ def _refine_double(x, y, means, norms, q, r, piv, b, c, intercept, cond):
     shift = float(np.mean(res)) if intercept else 0.0
     if shift:
         res -= shift
-    u = q.T @ res                                     # Xsᵀr in working units, pivoted
+    u = q.T @ res                                     # Xsᵀr in working units
     d_theta = _solve_r(r, u)
-    db = np.empty(len(b))
-    db[piv] = d_theta
+    db = d_theta
     b_ext = b.astype(ld) + (db / norms).astype(ld)
     res -= np.dot(q, u)
     return b_ext, ld(c) + ld(shift), res
 
 
-def _refine(x, y, means, norms, q, r, piv, b, c, intercept, steps=1):
+def _refine(x, y, means, norms, q, r, b, c, intercept, steps=1):
     """Iterative refinement of the augmented system [I A; Aᵀ 0][r; θ] = [y; 0]
     (Björck 1967), residuals accumulated in extended precision.
 
@@ -384,7 +368,7 @@ def _refine(x, y, means, norms, q, r, piv, b, c, intercept, steps=1):
         else:
             f = _residual_ext(x, y, means, b, c) - res
             xtr = _xt_times(x, means, res)
-        g = -xtr[piv] / norms[piv]                          # −Aᵀr in working units
+        g = -xtr / norms                                    # −Aᵀr in working units
         u = solve_triangular(r, g.astype(float), trans="T", check_finite=False)
         if intercept:
             # The constant column 1/√n has its own equation 1ᵀr = 0: the rounding in
@@ -395,8 +379,7 @@ def _refine(x, y, means, norms, q, r, piv, b, c, intercept, steps=1):
             f_mean = shift = ld(0)
         v = (q.T @ (f - f_mean).astype(float) - u) if step else -u
         d_theta = _solve_r(r, v)
-        db = np.empty(len(b))
-        db[piv] = d_theta
+        db = d_theta
         b = b + (db / norms).astype(ld)
         c = c + shift
         res = res + (f - shift) - (q @ v).astype(ld)

@@ -2,7 +2,7 @@
 subject checks, and (through :mod:`plumbrule.grid`) the comparable-sales grid.
 
 Every quantity is computed from the fitted model in its working coordinates
-(centred, scaled, pivoted QR): a subject's leverage and the variance of its
+(centred, scaled QR): a subject's leverage and the variance of its
 estimate come from one triangular solve with R, never from inverting X'X.
 """
 
@@ -130,7 +130,7 @@ def working_vectors(fit, x: np.ndarray) -> np.ndarray:
     var(x'b) = σ²‖v‖² (classical) or vᵀ·meat·v (sandwich), with no X'X formed.
     """
     from scipy.linalg import solve_triangular
-    z = ((np.atleast_2d(x) - fit.x_means) / fit.x_norms)[:, fit.pivot]
+    z = (np.atleast_2d(x) - fit.x_means) / fit.x_norms
     w = solve_triangular(fit.r, z.T, trans="T", check_finite=False).T
     if fit.has_intercept:
         w = np.hstack([np.full((w.shape[0], 1), 1.0 / np.sqrt(fit.n)), w])
