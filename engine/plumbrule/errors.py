@@ -31,6 +31,68 @@ class IntakeError(PlumbError):
     """The sheet block itself is malformed (headers, cell contents)."""
 
 
+class CellProblem:
+    """One cell that cannot be read: sheet row, column header, the cell as quoted, and the
+    problem with its fix. ``id`` is the sale's ID when the table has an ID column."""
+
+    __slots__ = ("row", "column", "value", "problem", "id")
+
+    def __init__(self, row: int, column: str, value: str, problem: str,
+                 id: str | None = None) -> None:
+        self.row, self.column, self.value, self.problem, self.id = (
+            int(row), column, value, problem, id)
+
+    def line(self) -> str:
+        """'Column 'Price', row 7 (ID Q-104): '$24S,000' is not a number. Enter ...'"""
+        who = f" (ID {self.id})" if self.id not in (None, "") else ""
+        return f"Column '{self.column}', row {self.row}{who}: {self.value} {self.problem}"
+
+    def record(self) -> dict:
+        return {"row": self.row, "id": self.id, "column": self.column, "value": self.value,
+                "problem": self.problem}
+
+
+class CellErrors(IntakeError):
+    """Every cell of the used columns that cannot be read, found in one pass.
+
+    ``str()`` is one line: the cell's own message when there is one, else a summary with
+    the first cell; :meth:`lines` lists them all (at most ``limit``) for a terminal."""
+
+    def __init__(self, problems: list[CellProblem], prefix: str = "") -> None:
+        problems = sorted(problems, key=lambda p: p.row)
+        self.problems = problems
+        self.prefix = prefix
+        first = problems[0]
+        if len(problems) == 1:
+            message = prefix + first.line()
+        else:
+            message = (f"{prefix}{len(problems)} cells cannot be read; nothing was written. "
+                       f"First: {first.line()}")
+        super().__init__(message, column=first.column, row=first.row)
+
+    def summary(self) -> str:
+        n = len(self.problems)
+        return (f"{self.prefix}{n} cell{'s' if n != 1 else ''} cannot be read; nothing was "
+                "written.")
+
+    def lines(self, limit: int = 50) -> list[str]:
+        """The summary, one line per cell (at most ``limit``), then a count of the rest."""
+        out = [self.summary()] + ["  " + p.line() for p in self.problems[:limit]]
+        if len(self.problems) > limit:
+            out.append(f"  ... and {len(self.problems) - limit} more")
+        return out
+
+    def with_ids(self, ids) -> "CellErrors":
+        """The same problems, each with its sale's ID (``ids``: sheet row → ID)."""
+        for p in self.problems:
+            p.id = None if ids is None else ids.get(p.row)
+        return self
+
+    @classmethod
+    def joined(cls, errors: list["CellErrors"], prefix: str = "") -> "CellErrors":
+        return cls([p for e in errors for p in e.problems], prefix)
+
+
 class SpecError(PlumbError):
     """The model specification does not fit the data (unknown column, bad log...)."""
 

@@ -49,7 +49,7 @@ from plumbrule.intake.cells import (  # noqa: F401
     _numbers_of,
     _parse_formatted,
     _plain_numbers,
-    _raise_first,
+    _refuse,
     _serial_dates,
     _shown,
     cell_kinds,

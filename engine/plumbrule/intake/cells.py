@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from plumbrule.errors import IntakeError
+from plumbrule.errors import CellErrors, CellProblem
 
 
 ERROR_TEXTS = frozenset({
@@ -208,10 +208,10 @@ def _shown(cell: Any) -> str:
     return f"a {type(cell).__name__} value"
 
 
-def _raise_first(bad: pd.Series, col: pd.Series, message: str, name: str) -> None:
-    row = bad.idxmax()
-    raise IntakeError(f"Column '{name}', row {row}: {_shown(col[row])} {message}",
-                      column=name, row=int(row))
+def _refuse(bad: pd.Series, col: pd.Series, message: str, name: str) -> None:
+    """Raise :class:`CellErrors` listing every cell of ``col`` marked in ``bad``."""
+    rows = bad.index[bad.to_numpy(dtype=bool)]
+    raise CellErrors([CellProblem(r, name, _shown(col[r]), message) for r in rows])
 
 
 def to_numbers(col: pd.Series, name: str, hint_categorical: bool = False
@@ -234,7 +234,7 @@ def to_numbers(col: pd.Series, name: str, hint_categorical: bool = False
     ok = np.isfinite(values.to_numpy())
     infinite = present & num & ~ok
     if infinite.any():
-        _raise_first(infinite, col, "is not a finite number. Enter a number or leave the cell "
+        _refuse(infinite, col, "is not a finite number. Enter a number or leave the cell "
                      "blank.", name)
     bad = present & ~ok
     if bad.any():
@@ -248,7 +248,7 @@ def to_numbers(col: pd.Series, name: str, hint_categorical: bool = False
         if hint_categorical and looks_like_labels:
             fix = (f"Enter a number or leave the cell blank; if '{name}' holds categories "
                    "(names or codes), list it under the 'categorical' setting.")
-        _raise_first(bad, col, "is not a number. " + fix, name)
+        _refuse(bad, col, "is not a number. " + fix, name)
     return values, reason
 
 
@@ -277,7 +277,7 @@ def _plain_numbers(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
         v = np.where(codes, np.nan, v)
     infinite = np.isinf(v)
     if infinite.any():
-        _raise_first(pd.Series(infinite, index=col.index), col, "is not a finite number. "
+        _refuse(pd.Series(infinite, index=col.index), col, "is not a finite number. "
                      "Enter a number or leave the cell blank.", name)
     return pd.Series(v, index=col.index, copy=False), reason
 
@@ -400,10 +400,10 @@ def to_dates(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     bad = present & out.isna()
     far = bad & kinds.eq(DATE)
     if far.any() and far.idxmax() == bad.idxmax():
-        _raise_first(far, col, f"is outside the dates plumbrule can use ({_EARLIEST.date()} to "
+        _refuse(far, col, f"is outside the dates plumbrule can use ({_EARLIEST.date()} to "
                      f"{_LATEST.date()}). Correct the date.", name)
     if bad.any():
-        _raise_first(bad, col, "is not a date. Enter a date cell or text as YYYY-MM-DD.", name)
+        _refuse(bad, col, "is not a date. Enter a date cell or text as YYYY-MM-DD.", name)
     return out, reason
 
 

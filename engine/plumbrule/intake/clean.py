@@ -10,7 +10,7 @@ from typing import Iterable
 import numpy as np
 import pandas as pd
 
-from plumbrule.errors import IntakeError, quote_list
+from plumbrule.errors import CellErrors, CellProblem, IntakeError, quote_list
 from plumbrule.intake.cells import _blank_frame, to_dates, to_labels, to_numbers
 from plumbrule.intake.table import SheetTable
 
@@ -25,12 +25,15 @@ class CleanData:
 
 
 def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[str] = (),
-          date: str | None = None, hint_categorical: Iterable[str] = ()) -> CleanData:
+          date: str | None = None, hint_categorical: Iterable[str] = (),
+          bad_cells: str = "refuse") -> CleanData:
     """Type the used columns; drop (and log) rows with a missing value in any.
 
     ``hint_categorical`` names numeric predictor columns whose "not a number"
-    message should suggest the ``categorical`` setting. Raises
-    :class:`IntakeError` for a cell that cannot be what its column needs.
+    message should suggest the ``categorical`` setting. A cell that cannot be what its
+    column needs is found with every other such cell of the used columns: with
+    ``bad_cells='refuse'`` they are raised together as one :class:`CellErrors`; with
+    ``'set_aside'`` their rows are dropped, each logged with the cell's problem.
     """
     numeric, categorical = list(dict.fromkeys(numeric)), list(dict.fromkeys(categorical))
     frame = table.frame
@@ -42,12 +45,15 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     hints = set(hint_categorical)
     typed: dict[str, pd.Series] = {}
     reasons: dict[str, pd.Series] = {}
-    for col in numeric:
-        typed[col], reasons[col] = to_numbers(frame[col], col, hint_categorical=col in hints)
-    for col in categorical:
-        typed[col], reasons[col] = to_labels(frame[col], col)
-    if date is not None:
-        typed[date], reasons[date] = to_dates(frame[date], date)
+    problems: list[CellProblem] = []
+    jobs = ([(c, to_numbers, {"hint_categorical": c in hints}) for c in numeric]
+            + [(c, to_labels, {}) for c in categorical]
+            + ([(date, to_dates, {})] if date is not None else []))
+    for col, fn, kw in jobs:
+        typed[col], reasons[col], found = _typed(fn, frame[col], col, kw)
+        problems += found
+    if problems and bad_cells != "set_aside":
+        raise CellErrors(problems)
     order = list(typed)
     if not order:
         return CleanData(pd.DataFrame(index=frame.index), _empty_log())
@@ -72,6 +78,29 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
                             "column": pd.Series(cols, dtype=object).to_numpy(),
                             "reason": pd.Series(text, dtype=object).to_numpy()})
     return CleanData(data[~any_bad], dropped)
+
+
+def _typed(fn, cells: pd.Series, name: str, kw: dict
+           ) -> tuple[pd.Series, pd.Series, list[CellProblem]]:
+    """(values, reasons, problems) of one column: every unreadable cell is found (a typing
+    function reports all cells of one kind at a time, so the reported cells are blanked and
+    the column typed again) and becomes a missing value whose reason is its problem."""
+    problems: list[CellProblem] = []
+    for _ in range(8):             # each pass removes one kind of problem; few kinds exist
+        try:
+            values, reasons = fn(cells, name, **kw)
+            break
+        except CellErrors as err:
+            problems += err.problems
+            cells = cells.astype(object).copy()
+            cells[[p.row for p in err.problems]] = None
+    else:  # pragma: no cover - every pass blanks at least one cell of a finite column
+        raise AssertionError("typing did not settle")
+    if problems:
+        reasons = reasons.astype(object).copy()
+        for p in problems:
+            reasons[p.row] = f"{p.value} {p.problem}"
+    return values, reasons, problems
 
 
 def _empty_log() -> pd.DataFrame:
