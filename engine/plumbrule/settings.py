@@ -23,7 +23,8 @@ from plumbrule.intake.cells import error_text, is_blank
 @dataclass(frozen=True)
 class Setting:
     name: str
-    kind: str          # text, columns, bool, float, int, choice, percentiles, rows, pairs, date
+    kind: str          # text, columns, bool, float, int, choice, percentiles, rows, pairs, date,
+    #                    ids, level_map, keep_only
     default: Any
     help: str
     choices: tuple[str, ...] = ()
@@ -90,6 +91,81 @@ REGISTRY: dict[str, Setting] = {
             low=0.5,
             high=0.999,
         ),
+        # --- reading the sales sheet ---------------------------------------------
+        _s(
+            "id_column",
+            "text",
+            None,
+            "Column holding each sale's ID; tables then list sales by ID beside the sheet row.",
+            group="intake",
+        ),
+        _s(
+            "header_row",
+            "int",
+            None,
+            "Sheet row of the column headers (default: found below any title rows).",
+            group="intake",
+            low=1,
+        ),
+        _s(
+            "bad_cells",
+            "choice",
+            "refuse",
+            "A cell that cannot be read: refuse the run (listing every such cell) or "
+            "set_aside its row.",
+            choices=("refuse", "set_aside"),
+            group="intake",
+        ),
+        _s(
+            "date_format",
+            "choice",
+            "auto",
+            "Order of day, month and year in dates typed as text (auto: from a day above 12).",
+            choices=("auto", "MDY", "DMY", "YMD"),
+            group="intake",
+        ),
+        _s(
+            "level_map",
+            "level_map",
+            (),
+            "Spellings of category levels to merge, e.g. Condition: Avg=Average; Nbhd: Sorrel "
+            "Hts=Sorrel Heights.",
+            group="intake",
+        ),
+        _s(
+            "min_level_sales",
+            "int",
+            5,
+            "A category level with fewer sales raises a watch (a one-sale level fits that "
+            "sale exactly).",
+            group="intake",
+            low=1,
+        ),
+        _s(
+            "duplicates",
+            "choice",
+            "set_aside",
+            "Rows identical in every used column: set_aside all but the first, keep them, or "
+            "refuse the run.",
+            choices=("set_aside", "keep", "refuse"),
+            group="intake",
+        ),
+        _s(
+            "keep_only",
+            "keep_only",
+            (),
+            "Use only sales whose column holds one of the values, e.g. Sale type=Arm's "
+            "length|Valid.",
+            group="intake",
+        ),
+        _s(
+            "skip_hidden_rows",
+            "bool",
+            False,
+            "Set aside rows hidden or filtered out in the sheet (default: use them, with a "
+            "watch).",
+            group="intake",
+        ),
         # --- screening (issue: screening and validation) ----------------------
         _s(
             "trim_percentiles",
@@ -114,6 +190,14 @@ REGISTRY: dict[str, Setting] = {
             low=0.0,
         ),
         _s(
+            "fence_scale",
+            "choice",
+            "model",
+            "Scale the trim and fence read a logged column on: model (its logarithm) or raw.",
+            choices=("model", "raw"),
+            group="screen",
+        ),
+        _s(
             "influence_screen",
             "bool",
             False,
@@ -125,6 +209,13 @@ REGISTRY: dict[str, Setting] = {
             "rows",
             (),
             "Sheet rows to set aside by hand, e.g. 12,40 or 12=family sale,40=auction.",
+            group="screen",
+        ),
+        _s(
+            "exclude_ids",
+            "ids",
+            (),
+            "Sale IDs to set aside by hand (with id_column), e.g. Q-104,Q-233=family sale.",
             group="screen",
         ),
         _s(
@@ -202,6 +293,13 @@ REGISTRY: dict[str, Setting] = {
             group="value",
         ),
         _s(
+            "comp_ids",
+            "ids",
+            (),
+            "Sale IDs of comparable sales (with id_column), e.g. Q-104,Q-233.",
+            group="value",
+        ),
+        _s(
             "valuation_date",
             "date",
             None,
@@ -266,11 +364,22 @@ class Settings:
     no_intercept: bool = False
     robust_se: str | None = None
     confidence: float = 0.95
+    id_column: str | None = None
+    header_row: int | None = None
+    bad_cells: str = "refuse"
+    date_format: str = "auto"
+    level_map: tuple[tuple[str, str, str], ...] = ()
+    min_level_sales: int = 5
+    duplicates: str = "set_aside"
+    keep_only: tuple[tuple[str, tuple[str, ...]], ...] = ()
+    skip_hidden_rows: bool = False
+    fence_scale: str = "model"
     trim_percentiles: tuple[float, float] | None = None
     trim_columns: tuple[str, ...] = ()
     iqr_fence: float | None = None
     influence_screen: bool = False
     exclude_rows: tuple[tuple[int, str], ...] = ()
+    exclude_ids: tuple[tuple[str, str], ...] = ()
     max_excluded_share: float = 0.10
     holdout: float | None = None
     holdout_recent: bool = False
@@ -280,6 +389,7 @@ class Settings:
     property_class: str = "residential"
     ratio_trim: bool = False
     comps: tuple[tuple[int, str], ...] = ()
+    comp_ids: tuple[tuple[str, str], ...] = ()
     valuation_date: _dt.date | None = None
     retransform: str = "smearing"
     comp_weights: str = "gross"
@@ -454,6 +564,63 @@ def _pairs(s: Setting, v: Any) -> tuple[tuple[str, str], ...]:
     return tuple(out)
 
 
+def _ids(s: Setting, v: Any) -> tuple[tuple[str, str], ...]:
+    """'Q-104,Q-233=family sale' or [104, 'Q-233'] → (('Q-104', ''), ('Q-233', 'family sale')).
+    IDs are text, as the ID column's cells are typed (104.0 → '104')."""
+    out = []
+    for part in _split(v):
+        ident, _, reason = part.partition("=")
+        ident = ident.strip()
+        if ident.endswith(".0") and ident[:-2].isdigit():
+            ident = ident[:-2]
+        if not ident:
+            raise SettingError(f"Setting '{s.name}': '{part}' has no ID before '='. Enter IDs "
+                               "such as Q-104,Q-233=family sale.", setting=s.name)
+        out.append((ident, reason.strip()))
+    return tuple(out)
+
+
+def _level_map(s: Setting, v: Any) -> tuple[tuple[str, str, str], ...]:
+    """'Condition: Avg=Average, Excelent=Excellent; Nbhd: Sorrel Hts=Sorrel Heights' →
+    (('Condition', 'Avg', 'Average'), ('Condition', 'Excelent', 'Excellent'), ...)."""
+    out = []
+    for block in str(v).split(";"):
+        if not block.strip():
+            continue
+        col, colon, pairs = block.partition(":")
+        if not colon or not col.strip():
+            raise SettingError(f"Setting '{s.name}': '{block.strip()}' does not start with a "
+                               "column name and ':'. Enter e.g. Condition: Avg=Average.",
+                               setting=s.name)
+        for part in pairs.split(","):
+            if not part.strip():
+                continue
+            old, eq, new = part.partition("=")
+            if not eq or not old.strip() or not new.strip():
+                raise SettingError(f"Setting '{s.name}': '{part.strip()}' is not "
+                                   "Spelling=Level. Enter e.g. Condition: Avg=Average.",
+                                   setting=s.name)
+            out.append((col.strip(), " ".join(old.split()), " ".join(new.split())))
+    return tuple(out)
+
+
+def _keep_only(s: Setting, v: Any) -> tuple[tuple[str, tuple[str, ...]], ...]:
+    """"Sale type=Arm's length|Valid; Use=Residential" → (('Sale type', ("Arm's length",
+    'Valid')), ('Use', ('Residential',)))."""
+    out = []
+    for block in str(v).split(";"):
+        if not block.strip():
+            continue
+        col, eq, values = block.partition("=")
+        kept = tuple(" ".join(x.split()) for x in values.split("|") if x.strip())
+        if not eq or not col.strip() or not kept:
+            raise SettingError(f"Setting '{s.name}': '{block.strip()}' is not Column=Value|"
+                               "Value. Enter e.g. Sale type=Arm's length|Valid.",
+                               setting=s.name)
+        out.append((col.strip(), kept))
+    return tuple(out)
+
+
 def _date(s: Setting, v: Any) -> _dt.date:
     if isinstance(v, _dt.datetime):
         return v.date()
@@ -474,7 +641,7 @@ def _date(s: Setting, v: Any) -> _dt.date:
 _CONVERTERS = {
     "text": _text, "columns": _columns, "bool": _bool, "float": _float, "int": _int,
     "choice": _choice, "percentiles": _percentiles, "rows": _rows, "pairs": _pairs,
-    "date": _date,
+    "date": _date, "ids": _ids, "level_map": _level_map, "keep_only": _keep_only,
 }
 
 

@@ -14,7 +14,7 @@ from typing import Any, Sequence
 from plumbrule.errors import PlumbError
 from plumbrule.settings import REGISTRY
 
-FIT_GROUPS = ("model", "screen", "validate")
+FIT_GROUPS = ("intake", "model", "screen", "validate")
 
 
 def _add_setting_options(parser: argparse.ArgumentParser, groups: Sequence[str]) -> None:
