@@ -11,7 +11,20 @@ from plumbrule.analysis import analyze
 from plumbrule.demo.town import DEMO_SETTINGS
 from plumbrule.errors import SettingError
 
-COLS = ["Sale price", "Living area", "Lot size", "Age", "Bathrooms"]   # response + numeric preds
+# By default the rules read the numeric predictors, not the price (truncating the response
+# biases every slope toward zero: Heckman 1979, from memory); logged ones on their logarithm.
+COLS = ["Living area", "Lot size", "Age", "Bathrooms"]
+LOGGED = {"Living area", "Lot size"}
+
+
+def _model_scale(data, cols=COLS):
+    """The columns as the model sees them: logged predictors as their logarithm."""
+    return np.column_stack([np.log(data[c]) if c in LOGGED else data[c] for c in cols])
+
+
+def _back(v, cols=COLS):
+    """Limits on the model's scale back in each column's units."""
+    return np.array([np.exp(x) if c in LOGGED else x for x, c in zip(v, cols, strict=True)])
 
 
 def _clean(demo_frame):
@@ -74,7 +87,7 @@ def _assert_same_log(got, want):
 
 def test_trim_log_agrees_row_for_row(demo_frame):
     data = _clean(demo_frame)
-    lo, hi = np.percentile(data[COLS].to_numpy(float), [1, 99], axis=0)
+    lo, hi = (_back(v) for v in np.percentile(_model_scale(data), [1, 99], axis=0))
     res = analyze(demo_frame, {**DEMO_SETTINGS, "trim_percentiles": "1,99"})
     log = res.tables.screen_log
     assert set(log["rule"]) == {"percentile trim"}
@@ -85,8 +98,8 @@ def test_trim_log_agrees_row_for_row(demo_frame):
 def test_manual_then_fence_order_and_log(demo_frame):
     # Order manual → fence: a manual row is logged once, as manual, with the user's reason.
     data = _clean(demo_frame)
-    q1, q3 = np.percentile(data[COLS].to_numpy(float), [25, 75], axis=0)
-    lo, hi = q1 - 3 * (q3 - q1), q3 + 3 * (q3 - q1)
+    q1, q3 = np.percentile(_model_scale(data), [25, 75], axis=0)
+    lo, hi = _back(q1 - 3 * (q3 - q1)), _back(q3 + 3 * (q3 - q1))
     res = analyze(demo_frame, {**DEMO_SETTINGS, "iqr_fence": 3,
                                "exclude_rows": "362=small hotel,40"})
     log = res.tables.screen_log
@@ -152,7 +165,8 @@ def test_watch_when_rule_removes_more_than_ten_percent(demo_frame):
 
 def test_screen_summary_box_plot_numbers(demo_frame):
     data = _clean(demo_frame)
-    res = analyze(demo_frame, {**DEMO_SETTINGS, "trim_percentiles": "1,99", "iqr_fence": 1.5})
+    res = analyze(demo_frame, {**DEMO_SETTINGS, "trim_percentiles": "1,99", "iqr_fence": 1.5,
+                               "fence_scale": "raw"})
     summ = res.tables.screen_summary.set_index("item")
     log = res.tables.screen_log
     after = data.drop(index=log["row"])
@@ -180,3 +194,42 @@ def test_no_screening_leaves_tables_empty_but_present(demo_frame):
     assert res.tables.fit["n_screened"].iloc[0] == 0
     summ = res.tables.screen_summary
     assert set(summ.loc[summ["kind"] == "column", "item"]) == set(COLS)
+
+
+def test_raw_scale_fence_reads_each_column_in_its_own_units(demo_frame):
+    # Reference: numpy quartiles (linear) of the raw columns.
+    data = _clean(demo_frame)
+    q1, q3 = np.percentile(data[COLS].to_numpy(float), [25, 75], axis=0)
+    lo, hi = q1 - 3 * (q3 - q1), q3 + 3 * (q3 - q1)
+    res = analyze(demo_frame, {**DEMO_SETTINGS, "iqr_fence": 3, "fence_scale": "raw"})
+    fence = res.tables.screen_log
+    _assert_same_log(_as_tuples(fence), _independent_log(data, COLS, lo, hi))
+
+
+def test_log_scale_fence_catches_a_dropped_digit_the_raw_fence_cannot():
+    """A living area typed 226 for 2,260: on the raw scale the low 3·IQR fence is negative
+    and lets it through; on the logarithm the model fits, it is far outside."""
+    rng = np.random.default_rng(4)
+    n = 300
+    area = np.exp(rng.normal(np.log(1800), 0.35, n)).round()
+    price = np.exp(11.0 + 0.8 * np.log(area) + rng.normal(0, 0.15, n))
+    area[17] = 226.0                          # sheet row 19 (header on row 1)
+    frame = pd.DataFrame({"Price": price, "Area": area})
+    base = dict(response="Price", predictors="Area", log_response=True, log_predictors="Area",
+                iqr_fence=3, folds=0)
+    raw = analyze(frame, {**base, "fence_scale": "raw"}).tables.screen_log
+    model = analyze(frame, base).tables.screen_log
+    assert 19 not in set(raw["row"])
+    assert 19 in set(model["row"])
+    assert "of the logarithm" in model.set_index("row").loc[19, "reason"]
+
+
+def test_price_is_screened_only_when_named(demo_frame):
+    res = analyze(demo_frame, {**DEMO_SETTINGS, "iqr_fence": 1.5})
+    assert "Sale price" not in set(res.tables.screen_log["column"])
+    named = analyze(demo_frame, {**DEMO_SETTINGS, "iqr_fence": 1.5,
+                                 "trim_columns": "Sale price,Living area"})
+    assert "Sale price" in set(named.tables.screen_log["column"])
+    checks = named.tables.checks.set_index("check")
+    assert checks.loc["Screening on the sale price", "verdict"] == "watch"
+    assert "too narrow" in checks.loc["Screening on the sale price", "note"]

@@ -24,18 +24,67 @@ def test_holdout_same_seed_same_split_other_seed_differs(demo_frame):
     c = analyze(demo_frame, {**DEMO_SETTINGS, "holdout": 0.3, "seed": 12, "folds": 0})
     assert list(a.holdout.index) == list(b.holdout.index)
     assert list(a.holdout.index) != list(c.holdout.index)
-    # share 0.3 of 363 clean rows, rounded half up (no screening here)
-    assert len(a.holdout) == round(0.3 * 363) == a.tables.fit["n_holdout"].iloc[0]
+    # each sale is held out with probability 0.3: the count is binomial(363, 0.3), within
+    # 4 standard deviations (sd = sqrt(363 * 0.3 * 0.7) = 8.7)
+    assert abs(len(a.holdout) - 0.3 * 363) < 4 * 8.73
+    assert len(a.holdout) == a.tables.fit["n_holdout"].iloc[0]
     assert a.tables.fit["n_used"].iloc[0] == 363 - len(a.holdout)
     assert not set(a.holdout.index) & set(a.model.rows)
 
 
-def test_random_holdout_is_numpy_pcg64_permutation():
-    # Platform-stable contract: default_rng(seed).permutation over the rows in sheet order.
-    rows = pd.Index(np.arange(2, 102))
-    mask = validate.random_holdout(rows, 0.25, 5)
-    perm = np.random.default_rng(5).permutation(100)
-    assert set(rows[mask]) == set(rows[perm[:25]])
+def test_random_holdout_is_each_sales_own_seeded_draw():
+    # Contract: sale i is held out when splitmix64(key_i ^ mix(seed)) / 2^53 < share
+    # (Steele, Lea & Flood 2014 finaliser, recomputed here with Python integers).
+    keys = np.array([1, 2, 3, 2 ** 63 + 5, 987654321], dtype=np.uint64)
+    mask = validate.random_holdout(keys, 0.5, 7)
+    m64 = 2 ** 64 - 1
+
+    def draw(k):
+        z = int(k) ^ ((7 * 0x9E3779B97F4A7C15) & m64)
+        z = ((z ^ (z >> 30)) * 0xBF58476D1CE4E5B9) & m64
+        z = ((z ^ (z >> 27)) * 0x94D049BB133111EB) & m64
+        return (z ^ (z >> 31)) >> 11
+    assert list(mask) == [draw(k) / 2 ** 53 < 0.5 for k in keys]
+
+
+def _stable_frame(n=240, seed=3):
+    rng = np.random.default_rng(seed)
+    area = rng.uniform(800, 2600, n).round()
+    price = 20000 + 110 * area + rng.normal(0, 15000, n)
+    return pd.DataFrame({"Sale ID": [f"S-{i:04d}" for i in range(n)], "Price": price,
+                         "Area": area})
+
+
+@pytest.mark.parametrize("with_id", [True, False])
+def test_holdout_and_folds_follow_each_sale_through_insert_delete_sort_append(with_id):
+    """Adding, deleting or sorting sales never moves another sale between training and
+    holdout, or between folds: each sale's draw depends on its ID (or its cells) alone."""
+    frame = _stable_frame()
+    kw = dict(response="Price", predictors="Area", holdout=0.3, folds=4, seed=5)
+    if with_id:
+        kw["id_column"] = "Sale ID"
+
+    def placement(f):
+        res = analyze(f, kw)
+        held = set(f.loc[res.holdout.index - 2, "Sale ID"])
+        folds = res.tables.cv_estimates.assign(
+            sale=lambda t: f["Sale ID"].to_numpy()[t["row"].to_numpy() - 2])
+        return held, dict(zip(folds["sale"], folds["fold"], strict=True))
+
+    held, folds = placement(frame)
+    extra = pd.DataFrame({"Sale ID": ["S-NEW1"], "Price": [250000.0], "Area": [2000.0]})
+    variants = {
+        "insert at the top": pd.concat([extra, frame], ignore_index=True),
+        "delete one": frame.drop(index=7).reset_index(drop=True),
+        "sort by price": frame.sort_values("Price").reset_index(drop=True),
+        "append": pd.concat([frame, extra.assign(**{"Sale ID": "S-NEW2"})],
+                            ignore_index=True),
+    }
+    for name, f in variants.items():
+        h2, f2 = placement(f)
+        common = set(frame["Sale ID"]) & set(f["Sale ID"])
+        assert held & common == h2 & common, name
+        assert all(folds[s] == f2[s] for s in common & set(folds) & set(f2)), name
 
 
 def test_recent_holdout_takes_latest_sales(demo_frame):
@@ -51,11 +100,15 @@ def test_recent_holdout_needs_date_column(demo_frame):
 
 
 def test_fold_labels_cover_every_row_once():
-    labels = validate.fold_labels(103, 5, 7)
-    counts = np.bincount(labels)
-    assert counts.sum() == 103 and len(counts) == 5 and counts.max() - counts.min() <= 1
-    assert np.array_equal(labels, validate.fold_labels(103, 5, 7))
-    assert not np.array_equal(labels, validate.fold_labels(103, 5, 8))
+    keys = pd.util.hash_pandas_object(pd.Series(np.arange(103)), index=False).to_numpy()
+    labels = validate.fold_labels(keys, 5, 7)
+    counts = np.bincount(labels, minlength=5)
+    # multinomial sizes: each within 4 sd of 103/5 (sd = sqrt(103 * 0.2 * 0.8) = 4.06)
+    assert counts.sum() == 103 and len(counts) == 5 and np.all(np.abs(counts - 20.6) < 16.3)
+    assert np.array_equal(labels, validate.fold_labels(keys, 5, 7))
+    assert not np.array_equal(labels, validate.fold_labels(keys, 5, 8))
+    few = validate.fold_labels(keys[:5], 5, 7)          # no fold may be empty
+    assert sorted(few) == [0, 1, 2, 3, 4]
 
 
 def test_cv_predictions_match_statsmodels_refit(demo_frame):
@@ -114,10 +167,14 @@ def test_unseen_level_moves_to_training_with_watch():
     kind = np.where(np.arange(n) < n - 1, np.where(np.arange(n) % 2, "A", "B"), "Rare")
     price = 100 * area + np.where(kind == "A", 5000, 0) + rng.normal(0, 5000, n)
     frame = pd.DataFrame({"Price": price, "Area": area, "Kind": kind})
-    seed = next(s for s in range(200)
-                if validate.random_holdout(pd.RangeIndex(2, n + 2), 0.3, s)[-1])
+    frame["Sale ID"] = [f"K{i}" for i in range(n)]
+    from plumbrule.intake.keys import sale_hashes
+    rows = pd.RangeIndex(2, n + 2)
+    keys = sale_hashes(pd.DataFrame(index=rows),
+                       pd.Series(frame["Sale ID"].to_numpy(), index=rows))
+    seed = next(s for s in range(200) if validate.random_holdout(keys, 0.3, s)[-1])
     res = analyze(frame, response="Price", predictors="Area,Kind", categorical="Kind",
-                  holdout=0.3, seed=seed, folds=0)
+                  holdout=0.3, seed=seed, folds=0, id_column="Sale ID")
     assert n + 1 in res.model.rows and n + 1 not in res.holdout.index   # sheet row of "Rare"
     check = res.tables.checks.set_index("check").loc[
         "Holdout: category levels unseen in training"]

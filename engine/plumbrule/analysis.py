@@ -16,11 +16,13 @@ from plumbrule import intake, ratios
 from plumbrule import screening as screen
 from plumbrule import validation as validate
 from plumbrule.diagnostics.checks import WATCH, Check, run_checks
+from plumbrule.diagnostics.levels import level_checks
 from plumbrule.errors import FitError, SettingError
 from plumbrule.model.fitted import FittedModel, fit_model
 from plumbrule.model.retransform import price_estimates
 from plumbrule.settings import Settings, parse_settings
-from plumbrule.model.spec import ModelSpec, build_spec
+from plumbrule.model.spec import ModelSpec
+from plumbrule.sales import Sales, prepare_sales, with_ids
 from plumbrule.diagnostics.tables import (
     checks_table,
     coefficient_table,
@@ -47,6 +49,7 @@ class AnalysisTables:
     ratio_study: pd.DataFrame
     holdout_estimates: pd.DataFrame
     cv_estimates: pd.DataFrame
+    level_merges: pd.DataFrame
 
     @classmethod
     def names(cls) -> tuple[str, ...]:
@@ -85,6 +88,7 @@ class Analysis:
     model: FittedModel
     tables: AnalysisTables
     holdout: pd.DataFrame = field(default_factory=pd.DataFrame)
+    ids: pd.Series | None = None      # sheet row → sale ID, with an id_column
 
     @property
     def encoding(self):
@@ -115,35 +119,29 @@ def coerce_settings(settings: Settings | Mapping[str, Any] | None = None, **kw) 
 
 def prepare(table: intake.SheetTable, settings: Settings) -> tuple[ModelSpec, intake.CleanData]:
     """Match the spec to the headers and type the used columns (the validation edge)."""
-    spec = build_spec(settings, table.columns)
-    extra_numeric = [c for c in spec.screened if c not in spec.used_columns]
-    extra_labels = [spec.ratio_by] if spec.ratio_by and spec.ratio_by not in spec.used_columns \
-        else []
-    clean = intake.clean(table, numeric=list(spec.numeric_columns) + extra_numeric,
-                         categorical=list(spec.categorical) + extra_labels,
-                         date=spec.date_column,
-                         hint_categorical=spec.numeric_predictors)
-    return spec, clean
+    sales = prepare_sales(table, settings)
+    return sales.spec, sales.clean
 
 
 def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
             **kw) -> Analysis:
     """Run the whole analysis on ``source`` (values, DataFrame, path or SheetTable).
 
-    Order: intake → spec → holdout split (of the clean rows) → data screening
-    (manual, percentile trim, IQR fence) on all rows → influence screening on
-    the training rows (one first fit, one refit) → fit on training rows →
-    checks → validation (holdout, k-fold) → ratio study → tables.
+    Order: intake (typing, IDs, duplicates, validity filter, level spellings) → spec →
+    holdout split (of the clean rows, each sale by its own key) → data screening (manual,
+    percentile trim, IQR fence; limits from the training sales) → influence screening on
+    the training rows (one first fit, one refit) → fit on training rows → checks →
+    validation (holdout, k-fold) → ratio study → tables.
     """
     settings = coerce_settings(settings, **kw)
     table = as_table(source)
-    spec, clean = prepare(table, settings)
+    sales = prepare_sales(table, settings)
+    spec, clean = sales.spec, sales.clean
     columns = spec.screened
-    train, hold, fit_log, looked, moved = _screen_and_split(clean.data, spec, settings, table,
-                                                            columns)
+    train, hold, fit_log, looked, moved = _screen_and_split(sales, settings)
     model = fit_model(spec, train, robust_se=settings.robust_se,
                       confidence=settings.confidence)
-    validation, h_est, cv = _validate(model, hold, settings)
+    validation, h_est, cv = _validate(model, hold, settings, sales)
     study, holdout_estimates, cv_estimates, ratio_log = _ratio_tables(
         model, hold, h_est, cv, settings, spec.ratio_by)
 
@@ -152,33 +150,45 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     after = pd.concat([train, hold]).sort_index() if len(hold) else train
     checks = run_checks(model) + screen.screening_checks(fit_log, looked,
                                                          settings.max_excluded_share)
+    checks += level_checks(model, sales.level_merges, settings.min_level_sales)
+    if spec.screens_price and (settings.trim_percentiles is not None
+                               or settings.iqr_fence is not None):
+        checks.append(screen.price_screen_check(spec.response, fit_log))
     if len(moved):
         checks.append(_moved_check(moved))
+    ids = sales.ids
     tables = AnalysisTables(
         coefficients=coefficient_table(model),
         fit=fit_table(model, n_dropped=len(clean.dropped),
                       extra={"n_holdout": len(hold), "n_screened": len(fit_log)}),
         checks=checks_table(checks),
-        dropped_rows=clean.dropped,
-        residuals=residual_table(model),
+        dropped_rows=with_ids(clean.dropped, ids),
+        residuals=with_ids(residual_table(model), ids),
         correlations=correlation_table(model),
-        screen_log=screen_log,
-        screen_summary=screen.summary_table(clean.data, after, screen_log, columns, looked),
+        screen_log=with_ids(screen_log, ids),
+        screen_summary=screen.summary_table(
+            sales.data, after, screen_log, columns, looked, settings.iqr_fence,
+            spec.logged_columns if settings.fence_scale == "model" else ()),
         validation=validation,
         ratio_study=study,
-        holdout_estimates=holdout_estimates,
-        cv_estimates=cv_estimates,
+        holdout_estimates=with_ids(holdout_estimates, ids),
+        cv_estimates=with_ids(cv_estimates, ids),
+        level_merges=sales.level_merges,
     )
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
-                    tables=tables, holdout=hold)
+                    tables=tables, holdout=hold, ids=ids)
 
 
-def _screen_and_split(data: pd.DataFrame, spec: ModelSpec, settings: Settings,
-                      table: intake.SheetTable, columns: tuple[str, ...]):
+def _screen_and_split(sales: Sales, settings: Settings):
     """Split, then screen: (training rows, holdout rows, fit log, rows each rule examined,
     holdout rows moved to training)."""
-    split = validate.split_rows(data, settings, spec.date_column)
-    screened = screen.data_rules(data, columns, settings, table.frame.index)
+    data, spec = sales.data, sales.spec
+    split = validate.split_rows(data, settings, spec.date_column, sales.keys(data.index))
+    basis = data.loc[data.index.isin(split.training)] if len(split.holdout) else data
+    screened = screen.data_rules(
+        data, spec.screened, sales.table.frame.index, exclude_rows=sales.exclude_rows,
+        trim=settings.trim_percentiles, fence=settings.iqr_fence,
+        logged=spec.logged_columns if settings.fence_scale == "model" else (), basis=basis)
     kept = screened.kept
     if len(split.holdout):
         train = kept.loc[kept.index.isin(split.training)]
@@ -186,7 +196,8 @@ def _screen_and_split(data: pd.DataFrame, spec: ModelSpec, settings: Settings,
     else:   # no holdout: every kept row trains (no copy of the whole table)
         train, hold = kept, kept.iloc[:0]
     train, hold, moved = _move_unseen(train, hold, spec)
-    logs, looked = [screened.log], list(screened.looked_at)
+    logs = [sales.log, screened.log]
+    looked = list(sales.looked_at) + list(screened.looked_at)
     _enough(train, hold, screened.log)
     if settings.influence_screen:
         first = fit_model(spec, train, robust_se=settings.robust_se,
@@ -202,14 +213,15 @@ def _screen_and_split(data: pd.DataFrame, spec: ModelSpec, settings: Settings,
     return train, hold, fit_log, looked, moved
 
 
-def _validate(model: FittedModel, hold: pd.DataFrame, settings: Settings):
+def _validate(model: FittedModel, hold: pd.DataFrame, settings: Settings, sales: Sales):
     """(validation table, holdout estimates on the price scale, CrossValidation or None)."""
     factor = model.retransform_factor(settings.retransform)
     h_pred = validate.predict(model, hold) if len(hold) else np.empty(0)
     h_est = price_estimates(h_pred, model.spec.log_response, factor)
     cv = None
     if settings.folds and settings.folds <= model.fit.n:
-        cv = validate.cross_validate(model, settings.folds, settings.seed, settings.retransform)
+        cv = validate.cross_validate(model, settings.folds, settings.seed, settings.retransform,
+                                     keys=sales.keys(model.data.index))
     table = validate.validation_table(model, settings.retransform, hold, h_pred, h_est, cv)
     if settings.folds and cv is None:     # a default of 5 folds must not break a tiny table
         table = pd.concat([table, pd.DataFrame([{

@@ -9,11 +9,13 @@ that catches it:
 4. ``influence``        after a first fit on the training rows: Cook's distance > 4/n or
                         |studentized residual| > 3; the model is refitted once, never in a loop.
 
-Percentile and fence limits are computed once, on the clean rows entering
-screening, before any rule removes a row: a limit never depends on the order of
-the rules or on another rule's choices, so anyone can recompute it from the
-sales sheet. Quantiles are pandas' default (linear interpolation between order
-statistics). Values are on the sheet's scale (not logged).
+Percentile and fence limits are computed once, on the training sales entering
+screening (the holdout never sets a limit it is judged by), before any rule removes a
+row: a limit never depends on the order of the rules or on another rule's choices, so
+anyone can recompute it from the sales sheet. Quantiles are pandas' default (linear
+interpolation between order statistics). A column the model takes the logarithm of is
+judged on its logarithm (``fence_scale`` = model, the default), where its spread is the
+one the fit sees; ``raw`` judges every column in its own units.
 """
 
 from __future__ import annotations
@@ -28,7 +30,6 @@ from plumbrule.numbers import written
 from plumbrule.diagnostics.checks import OK, WATCH, Check
 from plumbrule.errors import SettingError
 from plumbrule.numeric.quantiles import quantiles
-from plumbrule.settings import Settings
 
 MANUAL, TRIM, FENCE, INFLUENCE, RATIO_TRIM = (
     "manual", "percentile trim", "IQR fence", "influence", "ratio trim")
@@ -156,34 +157,72 @@ def outside_rule(data: pd.DataFrame, limits: pd.DataFrame, rule: str,
                          "reason": reason})[LOG_COLUMNS]
 
 
-def data_rules(data: pd.DataFrame, columns: Sequence[str], settings: Settings,
-               sheet_rows: pd.Index) -> Screening:
-    """Manual → percentile trim → IQR fence on ``data`` (clean rows, index = sheet rows)."""
+def data_rules(data: pd.DataFrame, columns: Sequence[str], sheet_rows: pd.Index,
+               exclude_rows: Sequence[tuple[int, str]] = (),
+               trim: tuple[float, float] | None = None, fence: float | None = None,
+               logged: Sequence[str] = (), basis: pd.DataFrame | None = None) -> Screening:
+    """Manual → percentile trim → IQR fence on ``data`` (clean rows, index = sheet rows).
+
+    Limits are computed once on ``basis`` (the training sales; default ``data``) and applied
+    to every row of ``data``; a column in ``logged`` (one the model takes the logarithm of)
+    is judged on its logarithm, the limits reported back in its own units.
+    """
     columns = tuple(columns)
+    basis = data if basis is None else basis
     logs, looked = [], []
     remaining = data
-    manual = manual_rule(data, settings.exclude_rows, sheet_rows)
-    if settings.exclude_rows:
+    manual = manual_rule(data, exclude_rows, sheet_rows)
+    if exclude_rows:
         looked.append((MANUAL, len(remaining)))
         logs.append(manual)
         remaining = remaining.drop(index=manual["row"])
-    if settings.trim_percentiles is not None:
-        lo, hi = settings.trim_percentiles
-        lim = percentile_limits(data, columns, lo, hi)
+    scale = " of the logarithm" if any(c in logged for c in columns) else ""
+    if trim is not None:
+        lo, hi = trim
+        lim = _in_own_units(percentile_limits(_on_scale(basis, columns, logged), columns, lo,
+                                              hi), logged)
         looked.append((TRIM, len(remaining)))
-        log = outside_rule(remaining, lim, TRIM, f"the {_ordinal(lo)} percentile",
-                           f"the {_ordinal(hi)} percentile")
+        log = outside_rule(remaining, lim, TRIM, f"the {_ordinal(lo)} percentile{scale}",
+                           f"the {_ordinal(hi)} percentile{scale}")
         logs.append(log)
         remaining = remaining.drop(index=log["row"])
-    if settings.iqr_fence is not None:
-        k = settings.iqr_fence
-        lim = fence_limits(data, columns, k)
+    if fence is not None:
+        k = fence
+        lim = _in_own_units(fence_limits(_on_scale(basis, columns, logged), columns, k), logged)
         looked.append((FENCE, len(remaining)))
-        log = outside_rule(remaining, lim, FENCE, f"Q1 − {k:g}·IQR", f"Q3 + {k:g}·IQR")
+        log = outside_rule(remaining, lim, FENCE, f"Q1 − {k:g}·IQR{scale}",
+                           f"Q3 + {k:g}·IQR{scale}")
         logs.append(log)
         remaining = remaining.drop(index=log["row"])
     log = pd.concat(logs, ignore_index=True) if logs else empty_log()
     return Screening(kept=remaining, log=log, columns=columns, looked_at=tuple(looked))
+
+
+def _on_scale(data: pd.DataFrame, columns: Sequence[str], logged: Sequence[str]
+              ) -> pd.DataFrame:
+    """The columns on the scale the model uses: logged columns as their logarithm (a value
+    that is not positive has none: NaN, left out of the quantiles)."""
+    out = data[list(columns)].astype(float)
+    for c in columns:
+        if c in logged:
+            v = out[c].to_numpy()
+            with np.errstate(divide="ignore", invalid="ignore"):
+                out[c] = np.log(np.where(v > 0, v, np.nan))
+    return out
+
+
+def _in_own_units(limits: pd.DataFrame, logged: Sequence[str]) -> pd.DataFrame:
+    """Limits computed on the logarithm, turned back into the column's units (exp is
+    monotone, so the same rows fall outside)."""
+    on_log = limits["column"].isin(list(logged)).to_numpy()
+    if not on_log.any():
+        return limits
+    out = limits.copy()
+    for c in ("low", "high", "q1", "q3"):
+        if c in out:
+            v = out[c].to_numpy(float)
+            out[c] = np.where(on_log, np.exp(v), v)
+    return out
 
 
 def influence_rule(model) -> pd.DataFrame:
@@ -234,13 +273,30 @@ def screening_checks(log: pd.DataFrame, looked_at: Sequence[tuple[str, int]],
     return out
 
 
+def price_screen_check(response: str, log: pd.DataFrame) -> Check:
+    """A watch when the trim or fence read the sale price: cutting sales by their price
+    (the response) biases every slope toward zero and leaves the intervals too narrow
+    (truncated regression: Heckman 1979, from memory)."""
+    k = int((log["column"] == response).sum())
+    return Check("Screening on the sale price", float(k), float("nan"),
+                 "the trim and fence read only the predictors", WATCH,
+                 f"trim_columns names the price '{response}', so {k} sales were set aside for "
+                 "their price. Cutting sales by the value being explained biases every effect "
+                 "toward zero, and the p-values and intervals after it are too narrow. Screen "
+                 "on the predictors, and set aside odd prices by hand with a reason.")
+
+
 FIVE = (0.0, 0.25, 0.5, 0.75, 1.0)
 SUMMARY_STATS = ("min", "q1", "median", "q3", "max", "fence_low_1_5", "fence_high_1_5",
-                 "fence_low_3", "fence_high_3")
+                 "fence_low_3", "fence_high_3", "fence_low_used", "fence_high_used")
 
 
-def five_numbers(data: pd.DataFrame, columns: Sequence[str]) -> pd.DataFrame:
-    """Per column min, Q1, median, Q3, max and the 1.5·IQR and 3·IQR fences (index: column)."""
+def five_numbers(data: pd.DataFrame, columns: Sequence[str], k: float = 1.5,
+                 logged: Sequence[str] = ()) -> pd.DataFrame:
+    """Per column min, Q1, median, Q3, max, the 1.5·IQR and 3·IQR fences in the column's
+    units, and the fence the rule uses (``k``·IQR, on the logarithm for a ``logged``
+    column, given back in the column's units) as fence_low_used / fence_high_used
+    (index: column)."""
     cols = list(columns)
     if not len(data):
         return pd.DataFrame(np.nan, index=cols, columns=list(SUMMARY_STATS))
@@ -251,17 +307,24 @@ def five_numbers(data: pd.DataFrame, columns: Sequence[str]) -> pd.DataFrame:
     iqr = q["q3"] - q["q1"]
     q["fence_low_1_5"], q["fence_high_1_5"] = q["q1"] - 1.5 * iqr, q["q3"] + 1.5 * iqr
     q["fence_low_3"], q["fence_high_3"] = q["q1"] - 3.0 * iqr, q["q3"] + 3.0 * iqr
+    used = _in_own_units(fence_limits(_on_scale(data, cols, logged), cols, k), logged)
+    q["fence_low_used"] = used["low"].to_numpy(float)
+    q["fence_high_used"] = used["high"].to_numpy(float)
     return q[list(SUMMARY_STATS)]
 
 
 def summary_table(before: pd.DataFrame, after: pd.DataFrame, log: pd.DataFrame,
-                  columns: Sequence[str], looked_at: Sequence[tuple[str, int]]) -> pd.DataFrame:
+                  columns: Sequence[str], looked_at: Sequence[tuple[str, int]],
+                  fence: float | None = None, logged: Sequence[str] = ()) -> pd.DataFrame:
     """screen_summary: one record for all rows, one per rule that ran, one per screened column.
 
     kind 'rows': rows_before, rows_after, excluded; kind 'rule': excluded and share of the rows
     the rule examined; kind 'column': rows set aside on that column and the box-plot numbers
-    before and after screening (``<stat>_before`` / ``<stat>_after``).
+    before and after screening (``<stat>_before`` / ``<stat>_after``), the fence
+    multiplier the box plots draw (``fence_k``: the IQR fence's, else 1.5) and the scale it
+    is drawn on (``fence_scale``: 'log' for a logged column, else 'raw').
     """
+    fence_k = 1.5 if fence is None else float(fence)
     fit_log = log[log["rule"] != RATIO_TRIM]
     recs = [{"kind": "rows", "item": "all rows", "rows_before": len(before),
              "rows_after": len(after), "excluded": len(fit_log),
@@ -271,8 +334,8 @@ def summary_table(before: pd.DataFrame, after: pd.DataFrame, log: pd.DataFrame,
         k = int(counts.get(rule, 0))
         recs.append({"kind": "rule", "item": rule, "rows_before": n, "rows_after": n - k,
                      "excluded": k, "share_excluded": k / n if n else np.nan})
-    b = five_numbers(before, columns)
-    a = b if len(after) == len(before) else five_numbers(after, columns)  # after ⊆ before
+    b = five_numbers(before, columns, fence_k, logged)
+    a = b if len(after) == len(before) else five_numbers(after, columns, fence_k, logged)
     per_col = fit_log["column"].value_counts()
     for c in columns:
         rec = {"kind": "column", "item": c, "rows_before": len(before), "rows_after": len(after),
@@ -280,8 +343,10 @@ def summary_table(before: pd.DataFrame, after: pd.DataFrame, log: pd.DataFrame,
                "share_excluded": int(per_col.get(c, 0)) / len(before) if len(before) else np.nan}
         rec.update({f"{s}_before": float(b.at[c, s]) for s in SUMMARY_STATS})
         rec.update({f"{s}_after": float(a.at[c, s]) for s in SUMMARY_STATS})
+        rec.update(fence_k=fence_k, fence_scale="log" if c in logged else "raw")
         recs.append(rec)
-    cols = (["kind", "item", "rows_before", "rows_after", "excluded", "share_excluded"]
+    cols = (["kind", "item", "rows_before", "rows_after", "excluded", "share_excluded",
+             "fence_k", "fence_scale"]
             + [f"{s}_before" for s in SUMMARY_STATS] + [f"{s}_after" for s in SUMMARY_STATS])
     return pd.DataFrame(recs).reindex(columns=cols)
 

@@ -24,6 +24,7 @@ import pandas as pd
 
 from plumbrule.errors import SettingError
 from plumbrule.settings import Settings
+from plumbrule.intake.keys import stable_uniform
 from plumbrule.model.retransform import price_estimates, retransform_factor
 from plumbrule.numeric.vectors import dot
 
@@ -57,15 +58,17 @@ def holdout_count(n: int, share: float) -> int:
     return max(1, int(np.floor(share * n + 0.5)))
 
 
-def random_holdout(rows: pd.Index, share: float, seed: int) -> np.ndarray:
-    """Boolean mask over ``rows`` (sheet order): a seeded random ``share`` held out."""
-    n = len(rows)
-    k = holdout_count(n, share)
-    mask = np.zeros(n, dtype=bool)
-    if k:
-        order = np.argsort(rows.to_numpy(), kind="stable")   # sheet order, whatever came in
-        perm = np.random.default_rng(seed).permutation(n)
-        mask[order[perm[:k]]] = True
+def random_holdout(keys: np.ndarray, share: float, seed: int) -> np.ndarray:
+    """Boolean mask over the sales whose 64-bit ``keys`` are given (:func:`intake.keys.
+    sale_hashes`): a sale is held out when its own seeded draw falls below ``share``, so
+    adding, deleting or sorting other sales never moves it between training and holdout.
+    The holdout is about ``share`` of the sales (binomial), at least one when asked for."""
+    if share <= 0 or len(keys) == 0:
+        return np.zeros(len(keys), dtype=bool)
+    u = stable_uniform(keys, seed, stream=0)
+    mask = u < share
+    if not mask.any():
+        mask[np.argmin(u)] = True
     return mask
 
 
@@ -81,8 +84,10 @@ def recent_holdout(dates: pd.Series, share: float) -> np.ndarray:
     return mask
 
 
-def split_rows(data: pd.DataFrame, settings: Settings, date_column: str | None) -> Split:
-    """Split the clean rows into training and holdout by the settings."""
+def split_rows(data: pd.DataFrame, settings: Settings, date_column: str | None,
+               keys: np.ndarray) -> Split:
+    """Split the clean rows into training and holdout by the settings; ``keys`` are the
+    rows' sale keys (same order as ``data``)."""
     share = holdout_share(settings)
     if share <= 0:
         return Split(data.index, data.index[:0], "none")
@@ -93,7 +98,7 @@ def split_rows(data: pd.DataFrame, settings: Settings, date_column: str | None) 
         mask = recent_holdout(data[date_column], share)
         method = "recent"
     else:
-        mask = random_holdout(data.index, share, settings.seed)
+        mask = random_holdout(keys, share, settings.seed)
         method = "random"
     return Split(data.index[~mask], data.index[mask], method)
 
@@ -166,12 +171,16 @@ def _r2(y: np.ndarray, e: np.ndarray, work: np.ndarray | None = None) -> float:
 
 # --- k-fold --------------------------------------------------------------------------
 
-def fold_labels(n: int, folds: int, seed: int) -> np.ndarray:
-    """Fold number (0..folds−1) for each of n rows: a seeded permutation dealt round-robin,
-    so every row is in exactly one fold and fold sizes differ by at most one."""
-    labels = np.empty(n, dtype=np.int64)
-    perm = np.random.default_rng([seed, 1]).permutation(n)   # a stream apart from the holdout's
-    labels[perm] = np.arange(n) % folds
+def fold_labels(keys: np.ndarray, folds: int, seed: int) -> np.ndarray:
+    """Fold number (0..folds−1) of each sale from its own seeded draw (a stream apart from
+    the holdout's), so another sale's arrival never moves it to another fold. Fold sizes
+    are about equal (multinomial); should a fold come out empty (a handful of sales), the
+    sales are dealt round-robin in the order of their draws instead."""
+    u = stable_uniform(keys, seed, stream=1)
+    labels = np.minimum((u * folds).astype(np.int64), folds - 1)
+    if len(keys) >= folds and np.bincount(labels, minlength=folds).min() == 0:
+        labels = np.empty(len(keys), dtype=np.int64)
+        labels[np.argsort(u, kind="stable")] = np.arange(len(keys)) % folds
     return labels
 
 
@@ -186,14 +195,18 @@ class CrossValidation:
     estimate: np.ndarray         # price scale
 
 
-def cross_validate(model, folds: int, seed: int, retransform: str = "smearing") -> CrossValidation:
+def cross_validate(model, folds: int, seed: int, retransform: str = "smearing",
+                   keys: np.ndarray | None = None) -> CrossValidation:
     """k-fold cross-validation of ``model``'s specification on its own (training) rows."""
     n = model.fit.n
     if folds < 2 or folds > n:
         raise SettingError(f"Setting 'folds': {folds} folds cannot cross-validate {n} sales. "
                            "Use 0 (off) or a number from 2 to the number of sales.",
                            setting="folds")
-    labels = fold_labels(n, folds, seed)
+    if keys is None:   # no sale keys given: the rows' content in the model's own columns
+        keys = pd.util.hash_pandas_object(model.data.reset_index(drop=True), index=False
+                                          ).to_numpy(np.uint64)
+    labels = fold_labels(keys, folds, seed)
     order = np.argsort(labels, kind="stable")          # each fold a contiguous block
     bounds = np.searchsorted(labels[order], np.arange(folds + 1))
     zy = _working_design(model, order)                 # [1 | scaled x | y], rows by fold

@@ -75,7 +75,7 @@ def linear_book(tmp_path_factory):
     path = tmp_path_factory.mktemp("linear") / "linear.xlsx"
     fill_template(path, sales, subjects, (), {"response": "Price", "predictors": "Area,Hood",
                                               "categorical": "Hood", "robust_se": "HC3",
-                                              "date_column": ""})
+                                              "date_column": "", "id_column": ""})
     return path, run_book(path, backup=False)
 
 

@@ -179,17 +179,20 @@ def test_standardized_coefficient_bars_follow_the_table(demo):
 
 def test_box_plot_traces_pandas_five_numbers_before_and_after(demo):
     analysis, _, wb = demo
-    chart = wb["Report"]._charts[4]            # Sale price
+    chart = wb["Report"]._charts[4]            # Living area, the first column screened
     before = _values(wb, chart.series[0].xVal.numRef.f)
     after = _values(wb, chart.series[1].xVal.numRef.f)
-    sales = demo_sales()["Sale price"]
+    sales = demo_sales()["Living area"]
     q = sales.quantile([0, 0.25, 0.5, 0.75, 1]).to_numpy()
     assert sorted(set(before)) == sorted(set(q))
     kept = sales.drop(index=[r - 2 for r in analysis.tables.screen_log["row"]])
     assert sorted(set(after)) == sorted(set(kept.quantile([0, 0.25, 0.5, 0.75, 1])))
-    iqr = q[3] - q[1]
+    # the fences drawn are the rule's (1.5·IQR without a fence setting) on the logarithm the
+    # model takes of living area, in square feet: numpy quartiles of log(area)
+    q1, q3 = np.percentile(np.log(sales), [25, 75])
     fences = _values(wb, chart.series[2].xVal.numRef.f)
-    assert fences[:2] == pytest.approx([q[1] - 1.5 * iqr, q[3] + 1.5 * iqr])
+    assert fences[:2] == pytest.approx(np.exp([q1 - 1.5 * (q3 - q1), q3 + 1.5 * (q3 - q1)]))
+    assert chart.series[2].tx.v == "1.5×IQR fences (on the logarithm)"
     assert "Before screening (363 sales)" == chart.series[0].tx.v
 
 

@@ -88,13 +88,14 @@ def test_cod_and_prd_follow_from_the_listed_holdout_ratios(ran):
     header = None
     rows = []
     for r in ws.iter_rows(values_only=True):
-        if header is None and r[:4] == ("sheet row", "sale price", "estimate", "ratio"):
-            header = r
+        if header is None and r[:2] == ("sheet row", "ID"):
+            header = list(r)
+            take = [header.index(h) for h in ("sheet row", "sale price", "estimate", "ratio")]
             continue
         if header is not None:
             if r[0] is None:
                 break
-            rows.append(r[:4])
+            rows.append([r[i] for i in take])
     frame = pd.DataFrame(rows, columns=["row", "price", "estimate", "ratio"])
     assert len(frame) > 20
     med = frame["ratio"].median()

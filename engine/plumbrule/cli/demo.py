@@ -15,7 +15,7 @@ DEMO_BOOK = "plumbrule-demo.xlsx"
 def demo_settings() -> dict:
     """The demo's Settings sheet values: the model plus screening, holdout and a date."""
     from plumbrule.demo.town import DEMO_SETTINGS
-    return {**DEMO_SETTINGS, "trim_percentiles": "1,99", "holdout": 0.3,
+    return {**DEMO_SETTINGS, "id_column": "Sale ID", "trim_percentiles": "1,99", "holdout": 0.3,
             "ratio_by": None, "valuation_date": "2026-01-05"}
 
 

@@ -5,7 +5,7 @@ drops (and logs by sheet row) the rows a model cannot use.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Iterable
+from typing import Any, Iterable
 
 import numpy as np
 import pandas as pd
@@ -46,9 +46,10 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     typed: dict[str, pd.Series] = {}
     reasons: dict[str, pd.Series] = {}
     problems: list[CellProblem] = []
-    jobs = ([(c, to_numbers, {"hint_categorical": c in hints}) for c in numeric]
-            + [(c, to_labels, {}) for c in categorical]
-            + ([(date, to_dates, {})] if date is not None else []))
+    jobs: list[tuple[str, Any, dict]] = [
+        (c, to_numbers, {"hint_categorical": c in hints}) for c in numeric]
+    jobs += [(c, to_labels, {}) for c in categorical]
+    jobs += [(date, to_dates, {})] if date is not None else []
     for col, fn, kw in jobs:
         typed[col], reasons[col], found = _typed(fn, frame[col], col, kw)
         problems += found

@@ -24,6 +24,24 @@ class ModelSpec:
     intercept: bool = True
     screened: tuple[str, ...] = ()       # columns the trim and fence read (matched headers)
     ratio_by: str | None = None          # the ratio study's strata column (matched header)
+    id_column: str | None = None         # each sale's ID (matched header)
+    level_map: tuple[tuple[str, str, str], ...] = ()       # (column, spelling, level)
+    filters: tuple[tuple[str, tuple[str, ...]], ...] = ()  # keep_only: (column, values)
+
+    @property
+    def logged_columns(self) -> tuple[str, ...]:
+        """Columns the model takes the logarithm of (the response too, for a log model)."""
+        return ((self.response,) if self.log_response else ()) + self.log_predictors
+
+    @property
+    def screens_price(self) -> bool:
+        return self.response in self.screened
+
+    @property
+    def label_columns(self) -> tuple[str, ...]:
+        """Columns read as text besides the categorical predictors (strata, validity codes)."""
+        extra = ([self.ratio_by] if self.ratio_by else []) + [c for c, _ in self.filters]
+        return tuple(c for c in dict.fromkeys(extra) if c not in self.used_columns)
 
     @property
     def numeric_predictors(self) -> tuple[str, ...]:
@@ -118,12 +136,29 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
                      reference_levels=tuple(refs), log_response=settings.log_response,
                      log_predictors=tuple(logs), date_column=date,
                      intercept=not settings.no_intercept)
-    # trim_columns and ratio_by are matched here, once, like every other column name
+    # trim_columns and ratio_by are matched here, once, like every other column name. By
+    # default the rules look at the predictors only: truncating on the price biases every
+    # slope toward zero, so the price is screened only when trim_columns names it.
     screened = (tuple(dict.fromkeys(match_column(c, columns, "trim_columns")
                                     for c in settings.trim_columns))
-                if settings.trim_columns else spec.numeric_columns)
+                if settings.trim_columns else spec.numeric_predictors)
     by = match_column(settings.ratio_by, columns, "ratio_by") if settings.ratio_by else None
-    return replace(spec, screened=screened, ratio_by=by)
+    ident = match_column(settings.id_column, columns, "id_column") if settings.id_column else None
+    if ident is not None and ident in spec.used_columns:
+        raise SpecError(f"Setting 'id_column': '{ident}' is also used by the model. Name the "
+                        "column that holds each sale's ID.", setting="id_column", column=ident)
+    level_map = []
+    for col, old, new in settings.level_map:
+        col = match_column(col, columns, "level_map")
+        if col not in cats:
+            raise SpecError(f"Setting 'level_map': '{col}' is not a categorical predictor. Add "
+                            "it to 'categorical' or remove its spellings.", setting="level_map",
+                            column=col)
+        level_map.append((col, old, new))
+    filters = tuple((match_column(col, columns, "keep_only"), values)
+                    for col, values in settings.keep_only)
+    return replace(spec, screened=screened, ratio_by=by, id_column=ident,
+                   level_map=tuple(level_map), filters=filters)
 
 
 def _subset(names, columns, preds, setting) -> list[str]:

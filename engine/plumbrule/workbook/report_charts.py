@@ -7,10 +7,10 @@ numbers behind every picture stay inspectable. Large books are sampled evenly
 
 Box plots: openpyxl has no box chart, so each box is drawn exactly on a
 scatter chart as one line tracing the quartile box, the median and whiskers
-from the minimum to the maximum (a five-number box plot), with the
-1.5·IQR fences as markers: the same geometry in Excel and LibreOffice. (The
-3·IQR fences stay in the screening summary table: drawn, they stretch the axis
-until the boxes cannot be read.)
+from the minimum to the maximum (a five-number box plot), with the fences the IQR rule
+uses as markers (k·IQR with the rule's k, 1.5 when no fence is set; on the logarithm for a
+column the model logs, drawn back in the column's units): the same geometry in Excel and
+LibreOffice.
 """
 
 from __future__ import annotations
@@ -179,7 +179,9 @@ def _box_chart(book, rec, ctx):
         cols = book.block(f"{rec['item']}: {label}", ["x", "y"], [px, py])
         chart.series.append(_line(book.ref(cols[1]), book.ref(cols[0]), label, colour, width=1.5))
         xs += list(px)
-    for tag, symbol, name in (("1_5", "diamond", "1.5×IQR fences"),):
+    k, on_log = rec.get("fence_k"), rec.get("fence_scale") == "log"
+    fence_name = f"{float(k):g}×IQR fences{' (on the logarithm)' if on_log else ''}"
+    for tag, symbol, name in (("used", "diamond", fence_name),):
         fx, fy = [], []
         for stage, y in (("before", 2.0), ("after", 1.0)):
             for side in ("low", "high"):

@@ -37,7 +37,7 @@ _WORDS = {
     "mae": "MAE", "mape": "MAPE (%)",
     "rmse_model": "RMSE (model scale)", "r_squared_model": "R² (model scale)", "aic": "AIC",
     "bic": "BIC", "se_mean": "std error of the mean", "se_single": "std error of one sale",
-    "n": "sales", "comp_row": "comparable (sheet row)", "row": "sheet row",
+    "n": "sales", "comp_row": "comparable (sheet row)", "row": "sheet row", "id": "ID",
 }
 _FIT_WORDS = {
     "n_used": "Sales used in the fit", "n_dropped": "Rows dropped (missing values)",

@@ -27,6 +27,7 @@ TEMPLATE_VALUES = {
     "predictors": "Living area,Lot size,Age,Bedrooms,Bathrooms,Condition,Neighbourhood",
     "categorical": "Condition,Neighbourhood",
     "date_column": "Sale date",
+    "id_column": "Sale ID",
 }
 _FIXED_TIME = _dt.datetime(2024, 1, 1)      # document properties: same on every build
 

@@ -1,0 +1,107 @@
+"""From a sheet to the sales a model may use: the used columns typed (every unreadable cell
+found at once), IDs checked, repeated rows and sales outside the validity codes set aside,
+one spelling per category level, hand exclusions by ID turned into sheet rows.
+
+:func:`prepare_sales` is the validation edge of :func:`plumbrule.analysis.analyze`."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from plumbrule import intake
+from plumbrule.errors import CellErrors
+from plumbrule.intake.keys import rows_of_ids, sale_hashes, sale_ids
+from plumbrule.intake.levels import merge_levels
+from plumbrule.intake.rules import DUPLICATE, SALE_FILTER, duplicate_rows, sale_filter
+from plumbrule.model.spec import ModelSpec, build_spec
+from plumbrule.settings import Settings
+
+
+@dataclass(frozen=True)
+class Sales:
+    """The sales after intake. ``data``: typed used columns of the sales that go on to
+    screening (index: sheet rows); ``clean``: the typed table before the intake rules (its
+    ``dropped`` lists rows with missing values); ``ids``: sheet row → ID (None without an
+    ID column); ``log``: screening-log records of the intake rules, with ``looked_at``
+    (rule, sales examined); ``level_merges``: the spellings merged; ``exclude_rows``: the
+    hand exclusions by sheet row (from exclude_rows and exclude_ids)."""
+
+    spec: ModelSpec
+    clean: intake.CleanData
+    data: pd.DataFrame
+    ids: pd.Series | None
+    log: pd.DataFrame
+    looked_at: tuple[tuple[str, int], ...]
+    level_merges: pd.DataFrame
+    exclude_rows: tuple[tuple[int, str], ...]
+    table: intake.SheetTable
+
+    def keys(self, rows: pd.Index) -> np.ndarray:
+        """Each sale's 64-bit key (ID, else its typed values in the model's columns)."""
+        return sale_hashes(self.clean.data.loc[rows, list(self.spec.used_columns)], self.ids)
+
+
+def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
+    """Match the spec to the headers, type the used columns, apply the intake rules."""
+    spec = build_spec(settings, table.columns)
+    extra_numeric = [c for c in spec.screened if c not in spec.used_columns]
+    try:
+        clean = intake.clean(table, numeric=list(spec.numeric_columns) + extra_numeric,
+                             categorical=list(spec.categorical) + list(spec.label_columns),
+                             date=spec.date_column, hint_categorical=spec.numeric_predictors,
+                             bad_cells=settings.bad_cells)
+    except CellErrors as err:
+        if spec.id_column:
+            raw_ids, _ = intake.to_labels(table.frame[spec.id_column], spec.id_column)
+            raise err.with_ids(raw_ids) from None
+        raise
+    data = clean.data
+    raw_ids = None
+    if spec.id_column:
+        raw_ids, _ = intake.to_labels(table.frame[spec.id_column], spec.id_column)
+    logs, looked = [], []
+    data, dup_log = duplicate_rows(data, raw_ids, settings.duplicates)
+    if len(dup_log):      # a rule that found nothing adds no line to the checks
+        looked.append((DUPLICATE, len(clean.data)))
+    logs.append(dup_log)
+    ids = None
+    if spec.id_column:
+        kept_rows = table.frame.index.difference(pd.Index(dup_log["row"]))
+        ids = sale_ids(_rows_of(table, kept_rows), spec.id_column, spec.used_columns)
+    if spec.filters:
+        n = len(data)
+        data, filter_log = sale_filter(data, spec.filters)
+        looked.append((SALE_FILTER, n))
+        logs.append(filter_log)
+    data, merges = merge_levels(data, spec.categorical, spec.level_map)
+    exclude = tuple(settings.exclude_rows)
+    if settings.exclude_ids:
+        if ids is None:
+            from plumbrule.errors import SettingError
+            raise SettingError("Setting 'exclude_ids' needs the ID column: set id_column, or "
+                               "list sheet rows in exclude_rows.", setting="exclude_ids")
+        exclude += rows_of_ids(ids, settings.exclude_ids, "exclude_ids")
+    log = pd.concat([lg for lg in logs if len(lg)], ignore_index=True) if any(
+        len(lg) for lg in logs) else logs[0]
+    return Sales(spec=spec, clean=clean, data=data, ids=ids, log=log,
+                 looked_at=tuple(looked), level_merges=merges, exclude_rows=exclude,
+                 table=table)
+
+
+def with_ids(frame: pd.DataFrame, ids: pd.Series | None, column: str = "row",
+             name: str = "id") -> pd.DataFrame:
+    """``frame`` with the sale's ID beside its sheet-row column (unchanged without IDs)."""
+    if ids is None or column not in frame.columns or name in frame.columns:
+        return frame
+    pos = list(frame.columns).index(column) + 1
+    out = frame.copy()
+    out.insert(pos, name, ids.reindex(frame[column].to_numpy()).to_numpy(dtype=object))
+    return out
+
+
+def _rows_of(table: intake.SheetTable, rows: pd.Index) -> intake.SheetTable:
+    from dataclasses import replace
+    return replace(table, frame=table.frame.loc[rows])
