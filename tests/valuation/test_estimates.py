@@ -469,7 +469,8 @@ def test_one_sale_level_robust_intervals_fall_back_to_classical_on_that_sale(kin
     subj = _one_sale_subjects(data)
     with warnings.catch_warnings():
         warnings.simplefilter("error", RuntimeWarning)   # no square root of a negative
-        est = valuate(analyze(data, ONE_SALE, robust_se=kind), subj).estimates
+        a = analyze(data, ONE_SALE, robust_se=kind)
+        est = valuate(a, subj).estimates
     x, x0 = _hand_exog(data), _hand_exog(subj)
     full = sm.OLS(data["Price"].to_numpy(), x).fit()
     n, p = x.shape
@@ -485,6 +486,9 @@ def test_one_sale_level_robust_intervals_fall_back_to_classical_on_that_sale(kin
     diff = x0[:2, :5] - x[7, :5]
     ref = np.sqrt(full.scale + np.einsum("ij,jk,ik->i", diff, cov, diff))
     np.testing.assert_allclose(est["se_mean"].iloc[:2], ref, rtol=1e-8)
+    # The coefficient covariance the live workbook sheet writes gives the same figures.
+    live = np.sqrt(np.einsum("ij,jk,ik->i", x0[:2], a.model.valuation_cov, x0[:2]))
+    np.testing.assert_allclose(live, ref, rtol=1e-8)
     # The subject equal to the sale: the estimate is y_7 itself, whose classical standard
     # error is s (statsmodels get_prediction on the classical fit: mean_se = s·√h, h = 1).
     classical = full.get_prediction(x0).summary_frame(alpha=0.05)
