@@ -225,3 +225,50 @@ def test_cv_estimates_cover_every_training_row_once(demo_frame):
     val = res.tables.validation.set_index("set")
     assert [val.loc[f"fold {f}", "n"] for f in range(1, 5)] == list(
         cv["fold"].value_counts().sort_index())
+
+
+def _rare_level_market(seed=8, n=300, folds=5):
+    """Invented sales, n = 300: area, age, a four-level neighbourhood, and two rare levels.
+    'Rare' has 2 sales, both in fold 1 (no other fold sees it); 'Odd' has 3 sales in three
+    different folds (every fold's complement sees it)."""
+    from plumbrule.model.fitted import fit_model
+    from plumbrule.model.spec import ModelSpec
+    rng = np.random.default_rng(seed)
+    labels = validate.fold_labels(n, folds, 7)
+    hood = rng.choice(["N", "S", "E", "W"], n).astype(object)
+    rare = np.flatnonzero(labels == 0)[:2]
+    odd = [np.flatnonzero(labels == f)[0] for f in (1, 2, 3)]
+    hood[rare], hood[odd] = "Rare", "Odd"
+    area = rng.normal(1600, 300, n)
+    age = rng.uniform(0, 60, n)
+    shift = pd.Series({"N": 0.0, "S": 0.1, "E": -0.05, "W": 0.03, "Rare": 0.2, "Odd": -0.1})
+    logp = 11 + 0.0004 * area - 0.003 * age + shift[hood].to_numpy() + rng.normal(0, 0.15, n)
+    data = pd.DataFrame({"Price": np.exp(logp), "Area": area, "Age": age, "Hood": hood},
+                        index=pd.RangeIndex(2, n + 2))
+    spec = ModelSpec(response="Price", predictors=("Area", "Age", "Hood"),
+                     categorical=("Hood",), reference_levels=(("Hood", "N"),),
+                     log_response=True)
+    return fit_model(spec, data), rare
+
+
+def test_cv_leaves_out_only_the_rows_whose_level_is_unseen():
+    model, rare = _rare_level_market()
+    cv = validate.cross_validate(model, 5, 7)
+    assert np.array_equal(cv.labels, validate.fold_labels(300, 5, 7))
+    missing = np.flatnonzero(np.isnan(cv.pred))
+    assert list(missing) == list(rare)                  # the two 'Rare' sales, nothing else
+    assert int(cv.folds["n"].sum()) == 298
+    assert cv.folds["note"].iloc[0] == ("2 sales not estimated: their category level is only "
+                                        "in this fold")
+    # Reference library: statsmodels OLS on the other folds predicts each fold; a column
+    # the other folds never use (the 'Rare' indicator, for fold 1) is left out of the refit.
+    x = sm.add_constant(model.x)
+    for f in range(5):
+        held = cv.labels == f
+        used = np.any(x[~held] != 0, axis=0)
+        ref = sm.OLS(model.y[~held], x[~held][:, used]).fit()
+        rows = held & ~np.isnan(cv.pred)
+        np.testing.assert_allclose(cv.pred[rows], ref.predict(x[rows][:, used]), rtol=1e-8)
+        # Duan (1983) smearing: mean of exp(residuals) of the fitting rows
+        smear = np.mean(np.exp(ref.resid))
+        np.testing.assert_allclose(cv.estimate[rows], np.exp(cv.pred[rows]) * smear, rtol=1e-8)

@@ -213,13 +213,14 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing",
     z, y = zy[:, :-1], zy[:, -1]
     blocks = [(np.linalg.qr(zy[lo:hi], mode="r"), hi - lo)
               for lo, hi in zip(bounds[:-1], bounds[1:], strict=False)]
-    nonzero = np.add.reduceat(z != 0, bounds[:-1], axis=0)
+    informed = _informed_columns(model.x, order, bounds, model.fit.has_intercept)
     price = model.data[model.spec.response].to_numpy(float)[order]
     log = model.spec.log_response
     pred, est = np.full(n, np.nan), np.full(n, np.nan)
     recs = []
     for f, (lo, hi) in enumerate(zip(bounds[:-1], bounds[1:], strict=False)):
-        keep = (nonzero.sum(axis=0) - nonzero[f]) > 0          # columns the other folds inform
+        keep_x, constant = informed(f)                # predictor columns the other folds inform
+        keep = np.concatenate([[True], keep_x]) if model.fit.has_intercept else keep_x
         theta, df = _combine([b for g, b in enumerate(blocks) if g != f], keep)
         if theta is None:
             recs.append({"set": f"fold {f + 1}", **error_figures(price[:0], price[:0], y[:0],
@@ -231,7 +232,9 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing",
             e = y - z[:, keep] @ theta
             factor = retransform_factor(np.concatenate([e[:lo], e[hi:]]), retransform, df)
         zf = z[lo:hi]
-        usable = ~np.any(zf[:, ~keep] != 0, axis=1)
+        # A dropped column is constant on the other folds (an indicator that is 0 there):
+        # the fit absorbs it into the intercept, which is right only for rows at that value.
+        usable = np.all(model.x[order[lo:hi]][:, ~keep_x] == constant[~keep_x], axis=1)
         p = zf[usable][:, keep] @ theta
         idx = np.arange(lo, hi)[usable]
         pred[idx] = p
@@ -245,6 +248,29 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing",
     back[order] = np.arange(n)                                 # sorted position of each row
     table = pd.DataFrame(recs).reindex(columns=VALIDATION_COLUMNS)
     return CrossValidation(folds=table, labels=labels, pred=pred[back], estimate=est[back])
+
+
+def _informed_columns(x: np.ndarray, order: np.ndarray, bounds: np.ndarray, intercept: bool):
+    """For the rows of ``x`` (user units) taken in ``order`` and cut into folds at ``bounds``:
+    a function of fold f giving (keep, value). keep marks the columns that vary over the
+    other folds' rows (with an intercept) or are non-zero somewhere on them (without one);
+    for the other columns, ``value`` is the one value they take there (0 without an intercept).
+
+    Judged on the raw columns, not the centred working ones: centred, an indicator that is
+    0 on the other folds becomes the constant −mean there, which is non-zero yet carries
+    nothing the intercept does not."""
+    ranges = [(part.min(axis=0), part.max(axis=0)) for part in
+              (x[order[a:b]] for a, b in zip(bounds[:-1], bounds[1:], strict=False))]
+    lo, hi = (np.array(r) for r in zip(*ranges, strict=True))   # folds × columns
+    folds = np.arange(len(lo))
+
+    def informed(f: int) -> tuple[np.ndarray, np.ndarray]:
+        rest = folds != f
+        low, high = lo[rest].min(axis=0), hi[rest].max(axis=0)
+        if intercept:
+            return low < high, low
+        return (low != 0) | (high != 0), np.zeros(x.shape[1])
+    return informed
 
 
 def _working_design(model, order: np.ndarray) -> np.ndarray:

@@ -80,8 +80,10 @@ def _subject_lines(rec) -> list[str]:
     if rec.retransform != "none":
         out.append(f"  median estimate {money(rec.median_estimate)}; factor "
                    f"{rec.retransform_factor:.5f} ({rec.retransform})")
+    limit = ("" if not rec.leverage_limit < rec.max_sales_leverage else
+             f"; {rec.leverage_limit:.4f} leaving out sales alone in their level")
     out.append(f"  leverage        {rec.leverage:.4f} (largest among the sales "
-               f"{rec.max_sales_leverage:.4f})")
+               f"{rec.max_sales_leverage:.4f}{limit})")
     for flag in filter(None, rec.flags.split("; ")):
         out.append(f"  watch: {flag}")
     out.append("")

@@ -62,6 +62,17 @@ class FittedModel:
         return self.fit.cov
 
     @cached_property
+    def valuation_cov(self) -> np.ndarray:
+        """The coefficient covariance behind a subject's intervals (coefficient order): the
+        classical one, or with robust_se L·valuation_meat·Lᵀ — the HC sandwich with the
+        classical variance along the directions a sale with leverage 1 alone fixes, finite
+        where :attr:`cov` is blank (see :meth:`OLSFit.valuation_meat`)."""
+        if not self.robust_se:
+            return self.fit.cov
+        lmat = self.fit._coef_map()
+        return lmat @ self.fit.valuation_meat(self.robust_se) @ lmat.T
+
+    @cached_property
     def se(self) -> np.ndarray:
         if self.robust_se:
             return np.sqrt(np.diag(self.cov))

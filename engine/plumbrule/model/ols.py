@@ -81,6 +81,47 @@ class OLSFit:
     def _alone(self) -> np.ndarray:
         return self.leverage >= 1.0 - 1e-10     # a sale that alone fixes a parameter
 
+    def alone_directions(self) -> np.ndarray:
+        """Rows of the working design [1/√n, Q] of the sales with leverage 1, as m × p
+        (m = 0 when there are none): orthonormal directions of the working coefficients.
+
+        h_i = 1 means the hat matrix maps e_i to itself, so with u = Aᵀe_i (A the working
+        design) Au = e_i: the estimate along u is y_i itself, and for j ≠ i, A_j·u = H_ij = 0:
+        no other sale says anything about it (and two such rows are orthogonal)."""
+        rows = self.q[self._alone]
+        if self.has_intercept:
+            rows = np.column_stack([np.full(len(rows), 1.0 / np.sqrt(self.n)), rows])
+        return rows
+
+    @property
+    def leverage_limit(self) -> float:
+        """The largest leverage among the sales whose leverage is below 1 (unitless).
+
+        A sale with leverage 1 (the only sale in a category level, say) sits at 1 whatever
+        the other sales are, so it says nothing about how far the rest of the sales spread;
+        left in, it would lift the maximum to 1 and no subject would ever exceed it. NaN
+        when every sale has leverage 1 (impossible with n > p)."""
+        rest = self.leverage[~self._alone]
+        return float(rest.max()) if rest.size else float("nan")
+
+    def valuation_meat(self, kind: str) -> np.ndarray:
+        """The sandwich middle used for the variance of an estimate (working coordinates):
+        :meth:`robust_meat` plus σ²·uuᵀ for each direction u that one sale alone fixes
+        (:meth:`alone_directions`).
+
+        Along u the robust meat is 0 (that sale's residual is 0 by construction and no
+        other sale loads on u), which would make an estimate resting on that sale look
+        exact. Its variance there is var(y_i), which one residual cannot estimate, so the
+        classical s² stands in (a homoscedastic assumption for that sale alone; decision
+        of this project, derivation in docs/methods.md §9). Other directions keep the HC
+        weights; the cross terms are 0 exactly, as cov(y_i, Σ_j (Aw)_j y_j) = (Aw)_i σ_i² = 0
+        for w ⊥ u."""
+        meat = self.robust_meat(kind)
+        u = self.alone_directions()
+        if len(u):
+            meat = meat + self.sigma ** 2 * (u.T @ u)
+        return meat
+
     def robust_cov(self, kind: str) -> np.ndarray:
         """Heteroscedasticity-consistent covariance, ``kind`` 'HC1' or 'HC3'."""
         alone = self._alone
@@ -91,9 +132,7 @@ class OLSFit:
             # Such a sale's residual is 0 by construction, so the robust variance of
             # every coefficient it moves would be understated (a one-sale level would
             # look exact): those coefficients get no robust variance (NaN).
-            rows = self.q[alone]
-            if self.has_intercept:
-                rows = np.column_stack([np.full(len(rows), 1.0 / np.sqrt(self.n)), rows])
+            rows = self.alone_directions()
             sens = lmat @ rows.T
             scale = np.sqrt(np.einsum("ij,ij->i", lmat, lmat))[:, None]
             moved = np.any(np.abs(sens) > 1e-8 * scale, axis=1)

@@ -23,7 +23,7 @@ ESTIMATE_COLUMNS = [
     "subject", "row", "estimate", "se_mean", "se_single", "ci_low", "ci_high", "pi_low",
     "pi_high", "estimate_kind", "flags", "median_estimate", "retransform", "retransform_factor",
     "model_estimate", "model_se_mean", "model_se_single", "leverage", "max_sales_leverage",
-    "trend_months", "valuation_date", "confidence",
+    "trend_months", "valuation_date", "confidence", "leverage_limit",
 ]
 
 
@@ -139,11 +139,71 @@ def working_vectors(fit, x: np.ndarray) -> np.ndarray:
 
 def mean_variance(model, v: np.ndarray) -> np.ndarray:
     """Variance of the estimated mean x'b on the model scale, per row of ``v``;
-    respects the model's robust_se choice."""
+    respects the model's robust_se choice.
+
+    Robust: vᵀ·meat·v with :meth:`OLSFit.valuation_meat`, so the part of an estimate
+    that one sale alone fixes (a one-sale category level) takes the classical
+    variance rather than 0. Rounding below 0 is clipped (a variance)."""
     if model.robust_se:
-        meat = model.fit.robust_meat(model.robust_se)
-        return np.einsum("ij,jk,ik->i", v, meat, v)
-    return model.fit.sigma ** 2 * np.einsum("ij,ij->i", v, v)
+        meat = model.fit.valuation_meat(model.robust_se)
+        var = np.einsum("ij,jk,ik->i", v, meat, v)
+    else:
+        var = model.fit.sigma ** 2 * np.einsum("ij,ij->i", v, v)
+    return np.maximum(var, 0.0)
+
+
+def log_mean_variance(model, v: np.ndarray, kind: str) -> np.ndarray:
+    """Variance (log scale, per subject) of log(factor·exp(x'b)), the log of the reported
+    mean under retransformation ``kind``: the factor's own sampling error included.
+
+    smearing (delta method; the linearisation of Duan 1983, JASA 78:605, worked out in
+    docs/methods.md §9): with e the residuals, S = mean(exp e), dᵢ = exp(eᵢ)/S − 1 and
+    x̃ = Σ xᵢexp(eᵢ)/Σ exp(eᵢ), the error of x₀'b + log S is ≈ (x₀ − x̃)'(b − β) + mean(d)
+    = Σᵢ (cᵢεᵢ + dᵢ/n) with c = A·Δv (A the working design, Δv = v(x₀) − v(x̃)).
+    Classical: s²‖Δv‖² + (Σd²/df)/n + 2(Σc)(Σed/df)/n (Σc = 0 with an intercept);
+    robust: Σ sᵢ(cᵢeᵢ + dᵢ/n)² with the HC scale sᵢ. Sales with leverage 1 contribute
+    no d (their residual is 0 whatever their price) and their direction takes s².
+    lognormal: var(x₀'b) + s⁴/(2·df) (var s² = 2σ⁴/df under normal errors, s² independent
+    of b). median: var(x₀'b)."""
+    var = mean_variance(model, v)
+    if kind == "median":
+        return var
+    fit = model.fit
+    if kind == "lognormal":
+        return var + fit.sigma ** 4 / (2.0 * fit.df_resid)
+    e, n, df = fit.resid, fit.n, fit.df_resid
+    alone = fit.leverage >= 1.0 - 1e-10
+    ex = np.exp(e)
+    d = np.where(alone, 0.0, ex / ex.mean() - 1.0)
+    x_tilde = (ex @ model.x) / ex.sum()
+    dv = v - working_vectors(fit, x_tilde)          # the 1/√n parts cancel exactly
+    if model.robust_se:
+        w = _hc_scale(fit, model.robust_se, alone)
+        cross = _design_t(fit, w * e * d)                   # Aᵀ(s·e·d), p-vector
+        out = (np.einsum("ij,jk,ik->i", dv, fit.valuation_meat(model.robust_se), dv)
+               + 2.0 / n * dv @ cross + float(w @ (d * d)) / n ** 2)
+    else:
+        sum_c = dv @ _design_t(fit, np.ones(n))             # Σᵢ cᵢ, per subject
+        out = (fit.sigma ** 2 * np.einsum("ij,ij->i", dv, dv) + float(d @ d) / df / n
+               + 2.0 * sum_c * float(e @ d) / df / n)
+    return np.maximum(out, 0.0)
+
+
+def _hc_scale(fit, kind: str, alone: np.ndarray) -> np.ndarray:
+    """sᵢ with ωᵢ = sᵢeᵢ² the HC weights of :meth:`OLSFit.robust_meat` (0 for leverage 1)."""
+    if kind == "HC1":
+        s = np.full(fit.n, fit.n / fit.df_resid)
+    else:
+        s = 1.0 / (1.0 - np.where(alone, 0.0, fit.leverage)) ** 2
+    return np.where(alone, 0.0, s)
+
+
+def _design_t(fit, w: np.ndarray) -> np.ndarray:
+    """Aᵀw for the working design A = [1/√n, Q] (or Q without an intercept)."""
+    qt = fit.q.T @ w
+    if fit.has_intercept:
+        return np.concatenate([[w.sum() / np.sqrt(fit.n)], qt])
+    return qt
 
 
 # --- estimates ----------------------------------------------------------------
@@ -165,17 +225,19 @@ def estimate_table(model, subj: Subjects, settings: Settings, when: _dt.date) ->
         "subject": subj.labels.to_numpy(), "row": subj.data.index.to_numpy(dtype=np.int64),
         "model_estimate": eta, "model_se_mean": se_m, "model_se_single": se_s,
         "leverage": lev, "max_sales_leverage": float(np.max(fit.leverage)),
+        "leverage_limit": fit.leverage_limit,
         "trend_months": _trend_months(model, when, len(eta)),
         "valuation_date": pd.Timestamp(when), "confidence": settings.confidence,
     })
     if model.spec.log_response:
-        out = out.assign(**_log_scale(model, eta, se_m, se_s, q, settings.retransform))
+        se_ci = np.sqrt(log_mean_variance(model, v, settings.retransform))
+        out = out.assign(**_log_scale(model, eta, se_ci, se_s, q, settings.retransform))
     else:
         out = out.assign(estimate=eta, se_mean=se_m, se_single=se_s, ci_low=eta - q * se_m,
                          ci_high=eta + q * se_m, pi_low=eta - q * se_s, pi_high=eta + q * se_s,
                          estimate_kind="mean", median_estimate=np.nan, retransform="none",
                          retransform_factor=np.nan)
-    out["flags"] = subject_flags(model, subj, lev, when)
+    out["flags"] = subject_flags(model, subj, _shared_leverage(fit, v), when)
     return out[ESTIMATE_COLUMNS]
 
 
@@ -209,10 +271,26 @@ def _trend_months(model, when: _dt.date, m: int) -> np.ndarray:
 
 # --- subject checks -------------------------------------------------------------
 
+def _shared_leverage(fit, v: np.ndarray) -> np.ndarray:
+    """Each subject's leverage less its part along the directions that one sale alone
+    fixes (:meth:`OLSFit.alone_directions`): ‖v‖² − Σ(v·u)². The other sales have no
+    part along those directions, so this is the quantity to compare with theirs."""
+    lev = np.einsum("ij,ij->i", v, v)
+    u = fit.alone_directions()
+    return lev - np.einsum("ij,ij->i", v @ u.T, v @ u.T) if len(u) else lev
+
+
 def subject_flags(model, subj: Subjects, leverage: np.ndarray, when: _dt.date) -> list[str]:
     """Per subject, '; '-joined notes: a value outside the range of the sales used
-    (per numeric column and for the valuation date), and leverage above the
-    largest among the sales (hidden extrapolation). '' when nothing is flagged."""
+    (per numeric column and for the valuation date), a category level with one sale
+    (the estimate rests on that sale), and leverage above the largest among the sales
+    (hidden extrapolation). '' when nothing is flagged.
+
+    ``leverage`` is the subject's leverage less its part along directions one sale alone
+    fixes (:func:`_shared_leverage`); it is compared with :attr:`OLSFit.leverage_limit`,
+    the largest leverage among the sales below 1, so a one-sale level neither switches the
+    check off for every subject (the maximum would be 1) nor trips it for its own subjects
+    (they get the one-sale note instead)."""
     spec, sales = model.spec, model.data
     notes: list[list[str]] = [[] for _ in range(len(subj.data))]
     for col in spec.numeric_predictors:
@@ -228,7 +306,13 @@ def subject_flags(model, subj: Subjects, leverage: np.ndarray, when: _dt.date) -
         if note:
             for n in notes:
                 n.append(note)
-    top = float(np.max(model.fit.leverage))
+    for col in spec.categorical:
+        counts = sales[col].value_counts()
+        single = subj.data[col].map(counts).to_numpy() == 1
+        for i in np.flatnonzero(single):
+            notes[i].append(f"its {col} level '{subj.data[col].iloc[i]}' has one sale: its "
+                            "value rests on that sale alone")
+    top = model.fit.leverage_limit
     for i in np.flatnonzero(leverage > top):
         # With every column in range, high leverage is the hidden kind: the
         # combination of features, not any one of them, is outside the sales.

@@ -226,7 +226,7 @@ def _terms(w: _Writer, model, inputs, level_cells, lay: _Layout) -> tuple[int, i
     first, last = head + 1, head + k
     x_range = f"$C${first}:$C${last}"
     terms = {t.name: t for t in model.encoding.terms}
-    cov = np.asarray(model.cov, dtype=float)
+    cov = np.asarray(model.valuation_cov, dtype=float)   # the one the engine's intervals use
     for i, name in enumerate(names):
         row = first + i
         w.text(row, 1, name)
