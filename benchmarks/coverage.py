@@ -26,8 +26,9 @@ holdout (so the ratio study is out of sample) and values ``SUBJECTS`` fresh subj
               parameter of the market: we take as true value the same regression fitted to the
               large fresh sample (the population projection slope given the fit). It is not
               0 on a correct model (the value proxy contains the sale price, whose error also
-              sits in the ratio). For t errors in a log model the ratio has no variance and
-              the slope is undefined: n/a.
+              sits in the ratio). For t errors it is n/a: in a log model the ratio ∝ e^{−u}
+              has no variance; in a levels model the t tails reach sale prices near 0 whose
+              ratios dominate any fresh sample, so the slope has no stable value.
 * PRB excl 0  share of replications whose PRB interval excludes 0 (a naive test of "no
               price-related bias").
 * verdicts    share of replications whose verdict is not "ok", for every ``*_verdict``
@@ -105,18 +106,20 @@ def structural(f: dict[str, np.ndarray], log: bool) -> np.ndarray:
             + p["month"] * f["day"] / MONTH)
 
 
-def error_sd(f: dict[str, np.ndarray], log: bool, kind: str) -> np.ndarray | float:
-    """The error SD per property: constant, or varying with x in the 'hetero' scenarios
-    (levels: proportional to the mean price; log model: rising with age, 0.05 to 0.19)."""
+def error_sd(f: dict[str, np.ndarray], log: bool, kind: str,
+             noise: float = 1.0) -> np.ndarray | float:
+    """The error SD per property, times ``noise``: constant, or varying with x in the 'hetero'
+    scenarios (levels: proportional to the mean price; log model: rising with age, 0.05 to
+    0.19)."""
     if kind != "hetero":
-        return (LOG if log else LEVELS)["sigma"]
-    return 0.05 + 0.00175 * f["age"] if log else HETERO_CV * structural(f, log)
+        return noise * (LOG if log else LEVELS)["sigma"]
+    return noise * (0.05 + 0.00175 * f["age"] if log else HETERO_CV * structural(f, log))
 
 
 def draw_errors(rng: np.random.Generator, f: dict[str, np.ndarray], log: bool,
-                kind: str) -> np.ndarray:
+                kind: str, noise: float = 1.0) -> np.ndarray:
     """Mean-zero errors with SD ``error_sd``: normal, centred gamma (right-skewed), scaled t."""
-    n, sd = len(f["age"]), error_sd(f, log, kind)
+    n, sd = len(f["age"]), error_sd(f, log, kind, noise)
     if kind == "skewed":
         g = rng.gamma(GAMMA_SHAPE, 1.0, n)
         return sd * (g - GAMMA_SHAPE) / np.sqrt(GAMMA_SHAPE)
@@ -125,9 +128,9 @@ def draw_errors(rng: np.random.Generator, f: dict[str, np.ndarray], log: bool,
     return sd * rng.standard_normal(n)
 
 
-def mean_factor(f: dict[str, np.ndarray], kind: str) -> np.ndarray | float:
+def mean_factor(f: dict[str, np.ndarray], kind: str, noise: float = 1.0) -> np.ndarray | float:
     """E[e^u | x] for the log model (NaN where it is infinite)."""
-    sd = error_sd(f, True, kind)
+    sd = error_sd(f, True, kind, noise)
     if kind == "skewed":                    # E[e^{a(G−k)}] = e^{−ak}(1 − a)^{−k}, a = sd/√k
         a = sd / np.sqrt(GAMMA_SHAPE)
         return np.exp(-a * GAMMA_SHAPE) * (1 - a) ** -GAMMA_SHAPE
@@ -136,14 +139,15 @@ def mean_factor(f: dict[str, np.ndarray], kind: str) -> np.ndarray | float:
     return np.exp(np.square(sd) / 2.0)
 
 
-def true_mean(f: dict[str, np.ndarray], log: bool, kind: str) -> np.ndarray:
+def true_mean(f: dict[str, np.ndarray], log: bool, kind: str, noise: float = 1.0) -> np.ndarray:
     """E[price | x] on the price scale."""
     eta = structural(f, log)
-    return np.exp(eta) * mean_factor(f, kind) if log else eta
+    return np.exp(eta) * mean_factor(f, kind, noise) if log else eta
 
 
-def prices(rng: np.random.Generator, f: dict[str, np.ndarray], log: bool, kind: str):
-    y = structural(f, log) + draw_errors(rng, f, log, kind)
+def prices(rng: np.random.Generator, f: dict[str, np.ndarray], log: bool, kind: str,
+           noise: float = 1.0) -> np.ndarray:
+    y = structural(f, log) + draw_errors(rng, f, log, kind, noise)
     return np.exp(y) if log else y
 
 
@@ -179,6 +183,7 @@ class Scenario:
     log: bool
     errors: str                        # normal, skewed, heavy, hetero
     settings: dict = field(default_factory=dict)
+    noise: float = 1.0                 # multiplies the error SD
 
 
 SCENARIOS = [
@@ -190,6 +195,8 @@ SCENARIOS = [
     Scenario("log, skewed (gamma)", True, "skewed"),
     Scenario("log, t4", True, "heavy"),
     Scenario("log, hetero, HC3", True, "hetero", {"robust_se": "HC3"}),
+    # PRB's value proxy carries the sale price's own error: halve the noise to see its share
+    Scenario("log, normal, half noise", True, "normal", noise=0.5),
     # The engine's defaults switch every screening rule off; the demo trims at 1,99.
     Scenario("log, normal, trim 1,99 (demo)", True, "normal", {"trim_percentiles": "1,99"}),
     Scenario("log, normal, influence screen", True, "normal", {"influence_screen": True}),
@@ -205,15 +212,15 @@ def replicate(sc: Scenario, rng: np.random.Generator, n_sales: int) -> dict:
     from plumbrule.valuation.estimates import valuate
 
     f = draw_features(rng, n_sales)
-    frame = sales_frame(f, prices(rng, f, sc.log, sc.errors))
+    frame = sales_frame(f, prices(rng, f, sc.log, sc.errors, sc.noise))
     a = analyze(frame, {**model_settings(sc.log), **NO_SCREENING, **sc.settings})
 
     # subjects, valued at the valuation date; a fresh sale at each subject's x
     s = draw_features(rng, SUBJECTS)
     s["day"] = np.full(SUBJECTS, VALUATION_DAY)
     est = valuate(a, sales_frame(s)).estimates
-    mu = true_mean(s, sc.log, sc.errors)
-    fresh = prices(rng, s, sc.log, sc.errors)
+    mu = true_mean(s, sc.log, sc.errors, sc.noise)
+    fresh = prices(rng, s, sc.log, sc.errors, sc.noise)
     pi_hit = (est["pi_low"] <= fresh).to_numpy() & (fresh <= est["pi_high"]).to_numpy()
     out = {"mean CI": (_share(est["ci_low"] <= mu, mu <= est["ci_high"])
                        if np.all(np.isfinite(mu)) else np.nan),
@@ -230,7 +237,7 @@ def replicate(sc: Scenario, rng: np.random.Generator, n_sales: int) -> dict:
     study = a.tables["ratio_study"]
     row = study[study["stratum"] == "all"].iloc[0]
     g = draw_features(rng, FRESH)
-    g_price = prices(rng, g, sc.log, sc.errors)
+    g_price = prices(rng, g, sc.log, sc.errors, sc.noise)
     g_frame = sales_frame(g, g_price)
     g_est = validation.price_estimates(validation.predict(a.model, g_frame), sc.log,
                                        validation.model_factor(a.model, a.settings.retransform))
@@ -238,8 +245,10 @@ def replicate(sc: Scenario, rng: np.random.Generator, n_sales: int) -> dict:
     true_median = float(np.median(g_est[keep] / g_price[keep]))
     out["median CI"] = float(row["median_ci_low"] <= true_median <= row["median_ci_high"])
     out["median CI level"] = float(row["median_ci_coverage"])
-    if sc.log and sc.errors == "heavy":
-        true_prb = np.nan                               # ratio ∝ e^{−u}: no variance under t
+    if sc.errors == "heavy":
+        # log model: ratio ∝ e^{−u} has no variance under t errors; levels model: the t tails
+        # reach prices near 0, whose ratios dominate any fresh sample (no stable value)
+        true_prb = np.nan
     else:
         true_prb = ratios.prb(g_est[keep], g_price[keep])[0]
     out["true PRB"] = true_prb
