@@ -47,6 +47,7 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+import zlib
 from dataclasses import dataclass, field
 from functools import lru_cache
 from pathlib import Path
@@ -282,8 +283,9 @@ INTERVALS = ["mean CI", "exp(x'b) CI", "PI", "PI noisy 1/4", "median CI", "PRB C
 PER_SUBJECT = {"mean CI", "exp(x'b) CI", "PI"}
 
 
-def run(sc: Scenario, reps: int, seed: int, index: int, n_sales: int) -> pd.DataFrame:
-    rng = np.random.default_rng([seed, index])
+def run(sc: Scenario, reps: int, seed: int, n_sales: int) -> pd.DataFrame:
+    # seeded by the scenario's name, so adding a scenario leaves the others' draws alone
+    rng = np.random.default_rng([seed, zlib.crc32(sc.name.encode())])
     return pd.DataFrame([replicate(sc, rng, n_sales) for _ in range(reps)])
 
 
@@ -337,7 +339,7 @@ def plain_table(records: list[dict]) -> str:
 
 def main(argv=None) -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--reps", type=int, default=200, help="replications per scenario (200)")
+    ap.add_argument("--reps", type=int, default=160, help="replications per scenario (160)")
     ap.add_argument("--seed", type=int, default=20250601, help="master seed (20250601)")
     ap.add_argument("--sales", type=int, default=400,
                     help="sales per replication, 30%% of them held out (400)")
@@ -346,10 +348,10 @@ def main(argv=None) -> None:
 
     t0 = time.perf_counter()
     intervals, verdicts = [], []
-    for i, sc in enumerate(SCENARIOS):
+    for sc in SCENARIOS:
         if args.only and args.only not in sc.name:
             continue
-        res = run(sc, args.reps, args.seed, i, args.sales)
+        res = run(sc, args.reps, args.seed, args.sales)
         iv, vd = summarise(sc, res, args.sales)
         intervals.append(iv)
         verdicts.append(vd)
