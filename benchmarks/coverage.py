@@ -209,6 +209,7 @@ SCENARIOS = [
 def replicate(sc: Scenario, rng: np.random.Generator, n_sales: int) -> dict:
     """One market, one analysis, SUBJECTS valuations: indicator shares and figures."""
     from plumbrule import ratios, validation
+    from plumbrule.model.retransform import price_estimates
     from plumbrule.analysis import analyze
     from plumbrule.valuation.estimates import valuate
 
@@ -235,13 +236,13 @@ def replicate(sc: Scenario, rng: np.random.Generator, n_sales: int) -> dict:
         out["exp(x'b) CI"] = _share(est["ci_low"] / factor <= med, med <= est["ci_high"] / factor)
 
     # the ratio study (holdout) against the population given this fit
-    study = a.tables["ratio_study"]
+    study = a.tables.ratio_study
     row = study[study["stratum"] == "all"].iloc[0]
     g = draw_features(rng, FRESH)
     g_price = prices(rng, g, sc.log, sc.errors, sc.noise)
     g_frame = sales_frame(g, g_price)
-    g_est = validation.price_estimates(validation.predict(a.model, g_frame), sc.log,
-                                       validation.model_factor(a.model, a.settings.retransform))
+    g_est = price_estimates(validation.predict(a.model, g_frame), sc.log,
+                            a.model.retransform_factor(a.settings.retransform))
     keep = (g_price > 0) & (g_est > 0)                  # as the study's in_study rule
     true_median = float(np.median(g_est[keep] / g_price[keep]))
     out["median CI"] = float(row["median_ci_low"] <= true_median <= row["median_ci_high"])
