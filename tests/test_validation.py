@@ -234,7 +234,8 @@ def _rare_level_market(seed=8, n=300, folds=5):
     from plumbrule.model.fitted import fit_model
     from plumbrule.model.spec import ModelSpec
     rng = np.random.default_rng(seed)
-    labels = validate.fold_labels(n, folds, 7)
+    keys = pd.util.hash_pandas_object(pd.Series(np.arange(n)), index=False).to_numpy()
+    labels = validate.fold_labels(keys, folds, 7)
     hood = rng.choice(["N", "S", "E", "W"], n).astype(object)
     rare = np.flatnonzero(labels == 0)[:2]
     odd = [np.flatnonzero(labels == f)[0] for f in (1, 2, 3)]
@@ -248,13 +249,13 @@ def _rare_level_market(seed=8, n=300, folds=5):
     spec = ModelSpec(response="Price", predictors=("Area", "Age", "Hood"),
                      categorical=("Hood",), reference_levels=(("Hood", "N"),),
                      log_response=True)
-    return fit_model(spec, data), rare
+    return fit_model(spec, data), rare, keys
 
 
 def test_cv_leaves_out_only_the_rows_whose_level_is_unseen():
-    model, rare = _rare_level_market()
-    cv = validate.cross_validate(model, 5, 7)
-    assert np.array_equal(cv.labels, validate.fold_labels(300, 5, 7))
+    model, rare, keys = _rare_level_market()
+    cv = validate.cross_validate(model, 5, 7, keys=keys)
+    assert np.array_equal(cv.labels, validate.fold_labels(keys, 5, 7))
     missing = np.flatnonzero(np.isnan(cv.pred))
     assert list(missing) == list(rare)                  # the two 'Rare' sales, nothing else
     assert int(cv.folds["n"].sum()) == 298
