@@ -134,7 +134,7 @@ def test_durbin_watson(case):
     if a.spec.date_column:
         # statsmodels.stats.stattools.durbin_watson of the residuals in date order; the
         # generated dates have ties, ordered by the sales' own values (serial.date_order)
-        from plumbrule.diagnostics.serial import date_order
+        from plumbrule.model.order import date_order
         order = date_order(a.model.data, a.spec.date_column)
         dates = a.model.data[a.spec.date_column].to_numpy()[order]
         assert (np.diff(dates) >= np.timedelta64(0)).all()

@@ -110,6 +110,29 @@ def test_null_moments_match_monte_carlo():
     assert skew > 0.3
 
 
+def test_neighbours_are_the_nearest_in_time():
+    # Reference: brute force over all pairs — for each sale, the k others with the smallest
+    # (time gap, place gap in date order, earlier first), by numpy.lexsort.
+    rng = np.random.default_rng(6)
+    n, k = 60, serial.NEIGHBOURS
+    seconds = np.sort(rng.integers(0, 40, n)) * 86_400          # many equal dates
+    w = serial.neighbour_matrix(seconds, k).toarray()
+    for i in range(n):
+        others = np.delete(np.arange(n), i)
+        gap, place = np.abs(seconds[others] - seconds[i]), np.abs(others - i)
+        want = others[np.lexsort((others > i, place, gap))[:k]]
+        assert set(np.flatnonzero(w[i])) == set(want), i
+
+
+def test_trace_of_the_cube_matches_dense():
+    # numpy: trace(A @ A @ A) of the dense matrix, for both matrices the checks use.
+    rng = np.random.default_rng(7)
+    w = serial.neighbour_matrix(np.sort(rng.integers(0, 90, 50)) * 86_400)
+    for a in (serial.difference_matrix(50), ((w + w.T) * 0.5).tocsr()):
+        d = a.toarray()
+        assert serial._trace_cube(a) == pytest.approx(np.trace(d @ d @ d), rel=1e-12)
+
+
 def test_imhof_on_a_known_case():
     # P(z₁² − z₂² ≤ 0) = 1/2 by symmetry; P(z₁² − c·z₂² ≤ 0) = P(F(1,1) ≤ c)
     # = (2/π)·arctan(√c) (F(1,1) is the square of a standard Cauchy; from memory).

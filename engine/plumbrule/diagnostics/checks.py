@@ -194,7 +194,7 @@ def _serial_setup(model: FittedModel, name: str, threshold: str, what: str):
     if model.fit.df_resid < 3:
         return not_applicable(name, "Needs at least three more sales than parameters.",
                               threshold), None
-    order = serial.date_order(model.data, date)
+    order = model.sale_order
     return None, (order, serial.design_basis(model.fit, order))
 
 
@@ -471,10 +471,11 @@ def condition_number(model: FittedModel) -> Check:
     elif fit.has_intercept and np.nanmax(fit.vif) <= VIF_WATCH:
         # the predictors are distinct from each other (low VIFs): the dependence is on the
         # constant, which centring removes
-        note = (f"A predictor varies little around a large level (a year, a log of size), so it "
-                f"nearly repeats the constant (centred, the design reads {fit.cond_number:.3g}): the "
-                "intercept and that coefficient are fragile, estimates for typical subjects "
-                "are not; measuring it from a nearby origin (years since 2000) removes this.")
+        note = ("A predictor varies little around a large level (a year, a log of size), so it "
+                "nearly repeats the constant (centred, the design reads "
+                f"{fit.cond_number:.3g}): the intercept and that coefficient are fragile, "
+                "estimates for typical subjects are not; measuring it from a nearby origin "
+                "(years since 2000) removes this.")
     else:
         note = ("Near-dependence among the predictors: individual coefficients (and adjustments "
                 "built on them) are fragile; dropping or combining a redundant predictor helps.")

@@ -48,17 +48,6 @@ class RatioTest:
 
 # --- sale-date order ----------------------------------------------------------
 
-def date_order(data: pd.DataFrame, date_column: str) -> np.ndarray:
-    """Positions of ``data``'s rows in sale-date order. Sales on the same date are put in the
-    order of a hash of their own values (pandas ``hash_pandas_object`` of every column,
-    columns taken by name), so no sorting of the sheet changes the order: sales with equal
-    hashes have equal values, hence equal residuals, and their order does not matter."""
-    cols = sorted(data.columns, key=str)
-    content = pd.util.hash_pandas_object(data[cols], index=False).to_numpy()
-    days = data[date_column].to_numpy(dtype="datetime64[ns]").astype(np.int64)
-    return np.lexsort((content, days))
-
-
 def sale_seconds(data: pd.DataFrame, date_column: str, order: np.ndarray) -> np.ndarray:
     """Sale times in whole seconds (int64), in ``order``."""
     ns = data[date_column].to_numpy(dtype="datetime64[ns]").astype(np.int64)[order]
@@ -95,23 +84,27 @@ def durbin_watson_test(e: np.ndarray, basis: np.ndarray) -> RatioTest:
 
 def neighbour_matrix(seconds: np.ndarray, k: int = NEIGHBOURS):
     """Row-standardised k-nearest-in-time weights W (scipy CSR, n × n) over sales already in
-    date order: (We)ᵢ is the mean residual of sale i's k nearest sales in time. Equal time
-    gaps are broken by the nearer place in date order, then the earlier sale."""
+    date order (``seconds`` ascending): (We)ᵢ is the mean residual of sale i's k nearest
+    sales in time. In date order those k form a run around i, grown one sale at a time
+    toward the smaller time gap; equal gaps go to the nearer place in date order, then to
+    the earlier sale. The band of W is at most k wide."""
     from scipy.sparse import csr_matrix
     n = len(seconds)
     k = min(k, n - 1)
     pos = np.arange(n)
-    steps = np.concatenate([np.arange(-k, 0), np.arange(1, k + 1)])
-    cand = pos[:, None] + steps[None, :]
-    valid = (cand >= 0) & (cand < n)
-    cand = np.clip(cand, 0, n - 1)
-    gap = np.abs(seconds[cand] - seconds[:, None])
-    # one integer key per candidate: time gap, then place gap, then side (earlier first)
-    key = gap * 32 + np.abs(steps)[None, :] * 2 + (steps > 0)[None, :]
-    key[~valid] = np.iinfo(np.int64).max
-    pick = np.argpartition(key, k - 1, axis=1)[:, :k]
-    cols = np.sort(np.take_along_axis(cand, pick, axis=1), axis=1).ravel()
-    # exactly k entries a row: the CSR arrays directly, no COO sort
+    lo, hi = pos.copy(), pos.copy()           # the run [lo, hi] around each sale
+    far = np.iinfo(np.int64).max
+    for _ in range(k):
+        left = np.where(lo > 0, seconds - seconds[np.maximum(lo - 1, 0)], far)
+        right = np.where(hi < n - 1, seconds[np.minimum(hi + 1, n - 1)] - seconds, far)
+        # place gaps are pos − lo + 1 and hi + 1 − pos
+        go_left = (left < right) | ((left == right) & (pos - lo <= hi - pos))
+        lo = np.where(go_left, lo - 1, lo)
+        hi = np.where(go_left, hi, hi + 1)
+    j = np.arange(k)[None, :]
+    cols = lo[:, None] + j
+    cols = (cols + (cols >= pos[:, None])).ravel()     # skip the sale itself
+    # exactly k entries a row, in order: the CSR arrays directly, no COO sort
     return csr_matrix((np.full(n * k, 1.0 / k), cols, np.arange(0, n * k + 1, k)),
                       shape=(n, n))
 
@@ -157,7 +150,7 @@ def ratio_moments(basis: np.ndarray, a) -> tuple[float, float, float]:
     c = basis.T @ au
     c2 = au.T @ au                      # UᵀA²U
     t1 = float(a.diagonal().sum()) - float(np.trace(c))
-    t2 = float(a.multiply(a).sum()) - 2.0 * float(np.trace(c2)) + float(np.sum(c * c))
+    t2 = _frobenius2(a) - 2.0 * float(np.trace(c2)) + float(np.sum(c * c))
     t3 = (_trace_cube(a) - 3.0 * float(np.sum(au * a2u)) + 3.0 * float(np.sum(c * c2))
           - float(np.trace(c @ c @ c)))
     m1 = t1 / nu
@@ -169,12 +162,37 @@ def ratio_moments(basis: np.ndarray, a) -> tuple[float, float, float]:
     return m1, sd, float(third / sd ** 3) if sd > 0 else 0.0
 
 
-def _trace_cube(a, chunk: int = 1 << 15) -> float:
-    """tr(A³) = Σ (A²)∘A for a sparse symmetric A, by blocks of rows (bounded memory)."""
+def _frobenius2(a) -> float:
+    """‖A‖²_F of a sparse matrix: the sum of its squared stored entries."""
+    a.sum_duplicates()
+    return float(np.dot(a.data, a.data))
+
+
+def _trace_cube(a) -> float:
+    """tr(A³) for a sparse symmetric banded A, from its 2w + 1 diagonals (w its half
+    bandwidth: 1 for Durbin–Watson, at most k for the neighbour graph): Σᵢ Σ_(b, c)
+    A[i, i+b]·A[i+b, i+b+c]·A[i+b+c, i], O(n·w²) with no product matrix formed."""
+    n = a.shape[0]
+    coo = a.tocoo()
+    if not coo.nnz:
+        return 0.0
+    w = int(np.max(np.abs(coo.row - coo.col)))
+    pad = 2 * w
+    diags = {}
+    for off in range(-w, w + 1):               # diags[off][pad + i] = A[i, i + off]
+        d = np.zeros(n + 2 * pad)
+        start = pad + max(0, -off)
+        vals = a.diagonal(off)
+        d[start:start + len(vals)] = vals
+        diags[off] = d
     total = 0.0
-    for start in range(0, a.shape[0], chunk):
-        rows = a[start:start + chunk]
-        total += float((rows @ a).multiply(rows).sum())
+    for b in range(-w, w + 1):
+        for c in range(-w, w + 1):
+            back = -(b + c)
+            if abs(back) > w:
+                continue
+            total += float(np.dot(diags[b][pad:pad + n] * diags[c][pad + b:pad + b + n],
+                                  diags[back][pad + b + c:pad + b + c + n]))
     return total
 
 
