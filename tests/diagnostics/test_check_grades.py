@@ -172,3 +172,37 @@ def test_report_no_longer_says_nothing_fails_for_extreme_tails():
                      if isinstance(c.value, str))
     assert "Nothing fails." not in text
     assert "Normality: Jarque-Bera fails" in text
+
+
+def test_notes_and_thresholds_fit_a_spreadsheet_cell():
+    # Behaviour a user relies on: PLUMB_CHECKS returns notes in array cells, which Excel caps
+    # at 255 characters (plumbrule.excel.functions.MAX_TEXT = 254); the longest variants
+    # (both skew and tails severe, the constant-dependence note, serial fails) must fit.
+    from plumbrule.excel.functions import MAX_TEXT
+    rng = np.random.default_rng(9)
+    n = 300
+    area = rng.uniform(60, 260, n)
+    year = rng.integers(2000, 2021, n).astype(float)
+    days = np.sort(rng.integers(0, 700, n))
+    swing = 1 + 0.3 * np.sin(2 * np.pi * days / 120)
+    sales = pd.DataFrame({
+        "Price": (1500 * area + 900 * (year - 2000)) * swing + 3e4 * rng.lognormal(0, 1.3, n),
+        "Area": area, "Year": year,
+        "Sold": pd.Timestamp("2023-01-01") + pd.to_timedelta(days, unit="D")})
+    a = analyze(sales, response="Price", predictors="Area,Year", date_column="Sold", folds=0)
+    c = checks_of(a)
+    assert c.loc["Normality: Jarque-Bera", "verdict"] == "fails"
+    assert c.loc["Residual skewness", "statistic"] > 2                  # both size parts
+    assert c.loc["Multicollinearity: condition number", "verdict"] == "fails"
+    # a strong market swing the linear trend misses: both serial checks fail
+    swung = sales.assign(Price=1500 * area * swing + rng.normal(0, 5e3, n))
+    b = analyze(swung, response="Price", predictors="Area", date_column="Sold", folds=0)
+    for name in ("Autocorrelation: Durbin-Watson (date order)",
+                 "Autocorrelation: sales close in time"):
+        assert checks_of(b).loc[name, "verdict"] == "fails"
+    frames = [a.tables.checks, b.tables.checks, near_twins().tables.checks,
+              analyze(heavy_tailed_sales(), NO_SCREEN).tables.checks]
+    for f in frames:
+        for col in ("note", "threshold"):
+            longest = f[col].str.len().max()
+            assert longest <= MAX_TEXT, f.loc[f[col].str.len().idxmax(), col]

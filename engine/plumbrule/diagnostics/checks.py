@@ -61,15 +61,13 @@ def _interval_warning(skew: float, kurt: float) -> str:
     """What a badly non-normal residual shape does to the prediction interval."""
     parts = []
     if kurt - 3.0 > EXCESS_KURTOSIS_SEVERE:
-        parts.append(f"tails this heavy (excess kurtosis {kurt - 3.0:.1f}) make the interval "
-                     "too wide for most sales and too narrow for the few far off the model")
+        parts.append(f"tails this heavy (excess kurtosis {kurt - 3.0:.1f}) make it too wide for "
+                     "most sales, too narrow for a few")
     if abs(skew) > SKEW_SEVERE:
         side = "above" if skew > 0 else "below"
-        parts.append(f"a skew of {skew:.2f} puts more of the misses {side} the estimate than "
-                     "the symmetric interval allows")
-    return ("The prediction interval assumes normal errors: " + "; ".join(parts) + ". Find the "
-            "sales behind the largest residuals (data errors, a group the model misses) or model "
-            "log price before relying on an interval.")
+        parts.append(f"skew {skew:.2f} puts more misses {side} the estimate than it allows")
+    return ("The prediction interval assumes normal errors: " + "; ".join(parts) + ". Check "
+            "the largest residuals first.")
 
 
 def _normality_grade(p: float, model: FittedModel) -> tuple[str, str | None]:
@@ -175,8 +173,6 @@ def kurtosis(model: FittedModel) -> Check:
 # A first-order residual correlation beyond ±0.5 (Durbin–Watson d outside 1–3) is graded
 # fails when significant (common practice, no source).
 STRONG_SERIAL = 0.5
-DATE_TIES = ("sales on one date are ordered by a hash of their own values, so sorting the "
-             "sheet does not change it")
 
 
 def durbin_watson_stat(e: np.ndarray) -> float:
@@ -212,7 +208,7 @@ def durbin_watson_date(model: FittedModel) -> Check:
     test = serial.durbin_watson_test(model.fit.resid[order], basis)
     d, p = test.statistic, test.p_two_sided
     rho = 1.0 - d / 2.0
-    how = f"p from the {test.method} null; {DATE_TIES}"
+    how = "same-date sales ordered by their own values: sorting the sheet changes nothing"
     if p >= 0.05:
         v, note = OK, f"No sign that sales next to each other in date order share errors ({how})."
     elif abs(rho) <= STRONG_SERIAL:
@@ -244,7 +240,7 @@ def time_neighbours(model: FittedModel) -> Check:
     test = serial.neighbour_test(model.fit.resid[order], basis,
                                  serial.neighbour_matrix(seconds, k))
     i_stat, p = test.statistic, test.p_upper
-    how = f"p from the {test.method} null"
+    how = "p from its exact null"
     if p >= 0.05:
         v, note = OK, ("Sales close in time are off the model no more alike than chance "
                        f"allows ({how}).")
@@ -472,10 +468,9 @@ def condition_number(model: FittedModel) -> Check:
         # the predictors are distinct from each other (low VIFs): the dependence is on the
         # constant, which centring removes
         note = ("A predictor varies little around a large level (a year, a log of size), so it "
-                "nearly repeats the constant (centred, the design reads "
-                f"{fit.cond_number:.3g}): the intercept and that coefficient are fragile, "
-                "estimates for typical subjects are not; measuring it from a nearby origin "
-                "(years since 2000) removes this.")
+                f"nearly repeats the constant (centred: {fit.cond_number:.3g}): the intercept "
+                "and its coefficient are fragile, typical estimates are not; a nearby origin "
+                "(years since 2000) fixes it.")
     else:
         note = ("Near-dependence among the predictors: individual coefficients (and adjustments "
                 "built on them) are fragile; dropping or combining a redundant predictor helps.")
