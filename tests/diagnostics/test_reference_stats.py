@@ -89,8 +89,10 @@ def test_vif(case):
     want = [variance_inflation_factor(x, j) for j in range(1, x.shape[1])]
     np.testing.assert_allclose(a.tables.coefficients["vif"][1:], want, rtol=1e-8)
     assert np.isnan(a.tables.coefficients["vif"][0])
+    # the largest over numeric predictors (indicator columns are graded by GVIF)
+    numeric = [v for v, t in zip(want, a.model.encoding.terms, strict=True) if t.kind != "level"]
     assert row(a, "Multicollinearity: largest VIF")["statistic"] == pytest.approx(
-        max(want), rel=1e-8
+        max(numeric), rel=1e-8
     )
 
 
@@ -127,15 +129,20 @@ def test_normality(case):
 
 def test_durbin_watson(case):
     a, ref, _ = case
-    # statsmodels.stats.stattools.durbin_watson, sheet order
-    assert row(a, "Autocorrelation: Durbin-Watson (sheet order)")["statistic"] == pytest.approx(
-        durbin_watson(ref.resid), rel=1e-10)
+    name = "Autocorrelation: Durbin-Watson (date order)"
+    assert not a.tables.checks["check"].str.contains("sheet order").any()
     if a.spec.date_column:
-        order = np.argsort(a.model.data[a.spec.date_column].to_numpy(), kind="stable")
-        assert row(a, "Autocorrelation: Durbin-Watson (date order)")["statistic"] == \
-            pytest.approx(durbin_watson(ref.resid[order]), rel=1e-10)
+        # statsmodels.stats.stattools.durbin_watson of the residuals in date order; the
+        # generated dates have ties, ordered by the sales' own values (serial.date_order)
+        from plumbrule.model.order import date_order
+        order = date_order(a.model.data, a.spec.date_column)
+        dates = a.model.data[a.spec.date_column].to_numpy()[order]
+        assert (np.diff(dates) >= np.timedelta64(0)).all()
+        assert row(a, name)["statistic"] == pytest.approx(durbin_watson(ref.resid[order]),
+                                                          rel=1e-10)
+        assert 0 < row(a, name)["p_value"] <= 1
     else:
-        assert row(a, "Autocorrelation: Durbin-Watson (date order)")["verdict"] == "n/a"
+        assert row(a, name)["verdict"] == "n/a"
 
 
 def test_breusch_pagan_koenker(case):
@@ -223,13 +230,19 @@ def test_robust_standard_errors():
         assert f["se_type"] == kind
 
 
-def test_condition_number_of_centred_scaled_design(case):
-    # numpy.linalg.cond (2-norm) of the predictors centred and scaled to unit length
+def test_condition_number_on_the_belsley_kuh_welsch_scale(case):
+    # Belsley, Kuh and Welsch 1980, ch. 3: κ of [1, X] with every column scaled to unit
+    # length, not centred — numpy.linalg.svd of that matrix here. The centred figure
+    # (numpy.linalg.cond of the centred unit-length predictors) stays on the fit.
     a, _, _ = case
+    z = np.column_stack([np.ones(len(a.model.y)), a.model.x])
+    z /= np.linalg.norm(z, axis=0)
+    sv = np.linalg.svd(z, compute_uv=False)
+    r = row(a, "Multicollinearity: condition number")
+    assert r["statistic"] == pytest.approx(sv[0] / sv[-1], rel=1e-9)
     xc = a.model.x - a.model.x.mean(axis=0)
     xc /= np.linalg.norm(xc, axis=0)
-    r = row(a, "Multicollinearity: condition number")
-    assert r["statistic"] == pytest.approx(np.linalg.cond(xc), rel=1e-9)
+    assert a.model.fit.cond_number == pytest.approx(np.linalg.cond(xc), rel=1e-9)
 
 
 def test_correlation_table_and_pairs(case):
@@ -334,8 +347,8 @@ def test_reset_not_applicable_when_fitted_values_take_two_values():
 
 def test_gvif_for_a_categorical_predictor():
     # Generalized VIF (Fox and Monette 1992, JASA 87: GVIF = det R11 · det R22 / det R),
-    # computed here from numpy.corrcoef of the design, reported as GVIF^(1/df); it
-    # must not depend on which level is the reference (their paper's point).
+    # computed here from numpy.corrcoef of the design, reported on their comparison scale
+    # GVIF^(1/(2·df)); it must not depend on which level is the reference (their point).
     from plumbrule.diagnostics.checks import collinearity_by_predictor
     data = generated_sales()
     got = {}
@@ -347,9 +360,15 @@ def test_gvif_for_a_categorical_predictor():
         rest = [i for i in range(len(names)) if i not in block]
         gvif = (np.linalg.det(corr[np.ix_(block, block)]) * np.linalg.det(corr[np.ix_(rest, rest)])
                 / np.linalg.det(corr))
-        per = dict(collinearity_by_predictor(a.model))
-        assert per["Hood"] == pytest.approx(gvif ** (1 / len(block)), rel=1e-9)
-        assert per["Area"] == pytest.approx(variance_inflation_factor(
-            sm.add_constant(a.model.x), names.index("Area") + 1), rel=1e-8)
-        got[ref_level] = per["Hood"]
+        per = collinearity_by_predictor(a.model).set_index("predictor")
+        assert per.loc["Hood", "df"] == len(block) == 3
+        assert per.loc["Hood", "gvif"] == pytest.approx(gvif, rel=1e-9)
+        assert per.loc["Hood", "gvif_root"] == pytest.approx(gvif ** (1 / (2 * len(block))),
+                                                             rel=1e-9)
+        vif_area = variance_inflation_factor(sm.add_constant(a.model.x), names.index("Area") + 1)
+        assert per.loc["Area", "gvif"] == pytest.approx(vif_area, rel=1e-8)
+        assert per.loc["Area", "gvif_root"] == pytest.approx(np.sqrt(vif_area), rel=1e-8)
+        check = row(a, "Multicollinearity: largest GVIF^(1/(2df))")
+        assert check["statistic"] == pytest.approx(gvif ** (1 / 6), rel=1e-9)
+        got[ref_level] = per.loc["Hood", "gvif_root"]
     assert got["North"] == pytest.approx(got["Heath"], rel=1e-9)

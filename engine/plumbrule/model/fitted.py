@@ -11,6 +11,7 @@ import pandas as pd
 from plumbrule.model.design import Encoding, make_encoding
 from plumbrule.model.influence import Influence, influence
 from plumbrule.model.ols import OLSFit, fit_ols
+from plumbrule.model.order import date_order
 from plumbrule.model.retransform import FACTOR_NOTES, price_estimates, retransform_factor
 from plumbrule.model.spec import ModelSpec
 from plumbrule.numeric.vectors import dot
@@ -53,6 +54,14 @@ class FittedModel:
             return float("nan"), float("nan")
         n = len(d)   # third and fourth moments as products: no more n-row temporaries
         return dot(d2, d) / n / m2 ** 1.5, dot(d2, d2) / n / m2 ** 2
+
+    @cached_property
+    def sale_order(self) -> np.ndarray | None:
+        """Positions of the sales used in sale-date order (ties by the sales' own values,
+        see :func:`plumbrule.model.order.date_order`); None without a date column."""
+        if not self.spec.date_column:
+            return None
+        return date_order(self.data, self.spec.date_column)
 
     @cached_property
     def cov(self) -> np.ndarray:

@@ -60,6 +60,28 @@ class OLSFit:
     qty: np.ndarray | None = None   # Qᵀ(y − ȳ): the response in working units
 
     @property
+    def bkw_cond_number(self) -> float:
+        """The condition number as Belsley, Kuh and Welsch (1980, ch. 3) define it:
+        σmax/σmin of the design with its constant column, every column scaled to unit
+        length and *not* centred (the scale their 30/100 guides were set on). Unitless.
+
+        With an intercept [1, X] = [1/√n, Q]·T, T = [[√n, √n·x̄ᵀ], [0, R·diag(‖x − x̄‖)]],
+        and [1/√n, Q] has orthonormal columns, so the small T has the same singular values
+        and column lengths: no pass over the data. Without one the factored design is
+        already X scaled to unit length, uncentred, and κ is ``cond_number``."""
+        if not self.has_intercept:
+            return self.cond_number
+        from scipy.linalg import svdvals
+        k = self.r.shape[0]
+        t = np.zeros((k + 1, k + 1))
+        t[0, 0] = np.sqrt(self.n)
+        t[0, 1:] = np.sqrt(self.n) * self.x_means
+        t[1:, 1:] = self.r * self.x_norms
+        t /= np.sqrt(np.einsum("ij,ij->j", t, t))
+        sv = svdvals(t, check_finite=False)
+        return float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf")
+
+    @property
     def r_squared(self) -> float:
         return 1.0 - self.ssr / self.tss if self.tss > 0 else float("nan")
 
