@@ -58,6 +58,9 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
             raw_ids, _ = intake.to_labels(table.frame[spec.id_column], spec.id_column)
             raise err.with_ids(raw_ids) from None
         raise
+    # one spelling per level first, so 'Good' and 'good ' rows are the same sale below
+    merged, merges = merge_levels(clean.data, spec.categorical, spec.level_map)
+    clean = intake.CleanData(merged, clean.dropped)
     data = clean.data
     raw_ids = None
     if spec.id_column:
@@ -76,7 +79,6 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
         data, filter_log = sale_filter(data, spec.filters)
         looked.append((SALE_FILTER, n))
         logs.append(filter_log)
-    data, merges = merge_levels(data, spec.categorical, spec.level_map)
     exclude = tuple(settings.exclude_rows)
     if settings.exclude_ids:
         if ids is None:

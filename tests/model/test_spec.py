@@ -220,11 +220,19 @@ def test_unseen_level_in_a_subject_names_row_and_column(sales):
     assert (err.value.row, err.value.column) == (2, "Neighbourhood")
 
 
-def test_unseen_level_differing_only_in_case_suggests_the_level(sales):
+def test_a_level_differing_only_in_case_is_the_sales_level(sales):
     enc = analyze(sales, FULL).encoding
-    subject = sales.drop(columns="Sale price").head(1).assign(Neighbourhood="old quay")
+    subject = sales.drop(columns="Sale price").head(1)
+    x = enc.design(enc.new_rows(subject.assign(Neighbourhood=" old  QUAY")), "subject row")
+    want = enc.design(enc.new_rows(subject.assign(Neighbourhood="Old Quay")), "subject row")
+    np.testing.assert_array_equal(x, want)
+
+
+def test_unseen_level_one_letter_off_suggests_the_level(sales):
+    enc = analyze(sales, FULL).encoding
+    subject = sales.drop(columns="Sale price").head(1).assign(Neighbourhood="Old Qauy")
     with pytest.raises(SpecError, match=r"Did you mean 'Old Quay'\?"):
-        enc.design(enc.new_rows(subject), label="comparable row")
+        enc.new_rows(subject, label="comparable row")
 
 
 def test_new_rows_missing_a_column_or_a_value(sales):

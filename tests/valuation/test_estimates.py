@@ -322,7 +322,15 @@ def test_unseen_level_names_subject_and_column(gen):
 def test_unseen_level_suggests_the_close_one(gen):
     _, a = gen
     with pytest.raises(SpecError, match="Did you mean 'South'"):
-        valuate(a, SUBJECTS.assign(Hood=["south", "North"]))
+        valuate(a, SUBJECTS.assign(Hood=["Sotuh", "North"]))
+
+
+def test_a_subject_level_in_other_case_or_spacing_is_the_sales_level(gen):
+    # 'south ' and 'South' are one level: the subject is valued as the sales' 'South'
+    _, a = gen
+    same = valuate(a, SUBJECTS.assign(Hood=["South", "North"])).estimates["estimate"]
+    other = valuate(a, SUBJECTS.assign(Hood=[" south", "NORTH"])).estimates["estimate"]
+    np.testing.assert_array_equal(same, other)
 
 
 def test_missing_subject_value_and_column(gen):

@@ -64,6 +64,20 @@ def merge_levels(data: pd.DataFrame, columns: Sequence[str],
     return out, merges[MERGE_COLUMNS]
 
 
+def canonical_levels(values: pd.Series, known: Sequence[str],
+                     level_map: Sequence[tuple[str, str]] = ()) -> pd.Series:
+    """New rows' labels (subjects, comparables) in the spelling the model learned: the
+    explicit (spelling, level) pairs first, then case and spacing ignored. A label that
+    matches no known level is left as typed (the caller reports it)."""
+    keys = fold(values)
+    explicit = {fold(pd.Series([a])).iloc[0]: fold(pd.Series([b])).iloc[0] for a, b in level_map}
+    if explicit:
+        keys = keys.map(explicit).where(keys.isin(list(explicit)), keys)
+    spelled = {fold(pd.Series([k])).iloc[0]: k for k in known}
+    out = keys.map(spelled)
+    return out.where(out.notna(), values)
+
+
 def one_edit_apart(levels: Sequence[str]) -> list[tuple[str, str]]:
     """Pairs of levels one edit apart (insert, delete, substitute or swap two neighbours:
     'Excelent' / 'Excellent'), case ignored. Levels are few: pairwise is fine."""

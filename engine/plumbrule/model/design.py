@@ -121,7 +121,10 @@ class Encoding:
         for c in self.input_columns:
             typed[c] = self._typed_column(frame, cols.get(c), c, date, noun, names)
         out = pd.DataFrame(typed, index=frame.index)
+        from plumbrule.intake.levels import canonical_levels
         for col, known in self.levels:
+            pairs = [(a, b) for c, a, b in spec.level_map if c == col]
+            out[col] = canonical_levels(out[col], known, pairs)   # 'kestrel park' is 'Kestrel Park'
             _check_levels(out[col], known, col, label, names)
         return out
 
