@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 
 from plumbrule import intake
-from plumbrule.errors import IntakeError, SpecError
+from plumbrule.errors import IntakeError, SettingError, SpecError
 from plumbrule.settings import Settings
 
 ESTIMATE_COLUMNS = [
@@ -72,16 +72,32 @@ def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | No
     when = settings.valuation_date or _dt.date.today()
     subj = read_subjects(model, subjects, when)
     estimates = estimate_table(model, subj, settings, when)
-    rows = list(comps) if comps else [r for r, _ in settings.comps]
-    comp_set = resolve_comps(analysis, rows)
+    comp_set = resolve_comps(analysis, comparable_rows(analysis, comps, settings))
     if comp_set is not None and len(subj.data) > 1:
         raise SpecError(f"Comparables belong to one subject, but {len(subj.data)} subjects "
                         "were given. Value one subject with 'comps', or leave 'comps' empty.",
                         setting="comps")
     grid, reconciled = adjustment_grid(model, subj, comp_set, settings, when,
                                        estimates=estimates)
+    from plumbrule.sales import with_ids
+    grid = with_ids(grid, analysis.ids, column="comp_row", name="comp_id")
     return Valuation(estimates=estimates, grid=grid, reconciled=reconciled,
                      valuation_date=when, settings=settings, subjects=subj)
+
+
+def comparable_rows(analysis, comps, settings: Settings) -> list[int]:
+    """Sheet rows of the comparables: ``comps`` when given, else the settings' ``comps``
+    (sheet rows) and ``comp_ids`` (IDs, with an id_column)."""
+    if comps:
+        return list(comps)
+    rows = [r for r, _ in settings.comps]
+    if settings.comp_ids:
+        if analysis.ids is None:
+            raise SettingError("Setting 'comp_ids' needs the ID column: set id_column, or list "
+                               "sheet rows in comps.", setting="comp_ids")
+        from plumbrule.intake.keys import rows_of_ids
+        rows += [r for r, _ in rows_of_ids(analysis.ids, settings.comp_ids, "comp_ids")]
+    return rows
 
 
 def _settings(analysis, settings) -> Settings:

@@ -30,6 +30,7 @@ class BookInputs:
     sales_values: list          # header row first, as read (for a results copy)
     other_values: dict          # sheet name → 2-D values of Subjects / Comps / Settings
     other_rows: dict            # sheet name → sheet row of that block's first row
+    comp_ids: tuple[str, ...] = ()          # the Comps sheet lists sale IDs
 
 
 def read_inputs(path: str | Path) -> BookInputs:
@@ -61,11 +62,14 @@ def read_inputs(path: str | Path) -> BookInputs:
         set_block, set_row, set_sheet = _block(book, "Settings")
         if set_block:
             other["Settings"], other_rows["Settings"] = set_block, set_row
+        settings = settings_from_rows(set_block, where="Settings sheet")
+        by_id = _comps_by_id(comp_block, settings)
         return BookInputs(
             sales=sales,
             subjects=subjects,
-            comps=_comp_rows(comp_block, comp_row, comp_sheet),
-            settings=settings_from_rows(set_block, where="Settings sheet"),
+            comps=() if by_id else _comp_rows(comp_block, comp_row, comp_sheet),
+            comp_ids=_comp_ids(comp_block) if by_id else (),
+            settings=settings,
             sales_hash=hash_block(sales_block),
             sales_values=sales_block,
             other_values=other,
@@ -132,6 +136,32 @@ def _comp_rows(block: list, header_row: int, sheet: str | None) -> tuple[int, ..
                                 "Sales sheet. Enter the sheet row of a comparable sale (e.g. 12).",
                                 sheet=sheet, row=i) from None
         out.append(int(f))
+    return tuple(out)
+
+
+_ROW_HEADERS = {"sales row", "sheet row", "row", "sales rows"}
+
+
+def _comps_by_id(block: list, settings: dict) -> bool:
+    """The Comps sheet lists IDs when the workbook has an ID column and the first column's
+    header does not say it holds sheet rows ('Sales row')."""
+    ident = settings.get("id_column")
+    if not block or ident is None or not str(ident).strip():
+        return False
+    head = block[0][0] if block[0] else None
+    return " ".join(str(head or "").split()).casefold() not in _ROW_HEADERS
+
+
+def _comp_ids(block: list) -> tuple[str, ...]:
+    """First column below the header: sale IDs as text (104.0 → '104'; blanks skipped)."""
+    out = []
+    for row in block[1:]:
+        v = row[0] if row else None
+        if v is None or (isinstance(v, str) and not v.strip()):
+            continue
+        if isinstance(v, float) and v.is_integer():
+            v = int(v)
+        out.append(" ".join(str(v).split()))
     return tuple(out)
 
 

@@ -118,11 +118,13 @@ def _analyse(inputs):
     from plumbrule.analysis import analyze
     from plumbrule.settings import parse_settings
     settings = parse_settings(inputs.settings)
+    if inputs.comp_ids:      # the Comps sheet lists sale IDs
+        settings = settings.replace(comp_ids=tuple((i, "") for i in inputs.comp_ids))
     analysis = analyze(inputs.sales, settings)
     valuation = None
     if inputs.subjects is not None:
-        from plumbrule.valuation.estimates import valuate
-        comps = list(inputs.comps) or [r for r, _ in settings.comps]
+        from plumbrule.valuation.estimates import comparable_rows, valuate
+        comps = comparable_rows(analysis, inputs.comps, settings)
         subjects = inputs.subjects
         if comps and len(subjects.frame) > 1:
             # comparables belong to the first subject; every subject gets its estimate
@@ -130,7 +132,7 @@ def _analyse(inputs):
             from plumbrule.intake import SheetTable
             first = SheetTable(subjects.frame.iloc[:1], subjects.sheet, subjects.header_row)
             with_grid = valuate(analysis, first, comps, settings)
-            every = valuate(analysis, subjects, (), settings.replace(comps=()))
+            every = valuate(analysis, subjects, (), settings.replace(comps=(), comp_ids=()))
             valuation = replace(with_grid, estimates=every.estimates, subjects=every.subjects)
         else:
             valuation = valuate(analysis, subjects, comps, settings)
