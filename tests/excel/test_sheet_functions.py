@@ -253,9 +253,9 @@ def test_arguments_override_the_settings_range(sales_cells):
 # --- errors a user can act on ------------------------------------------------------------
 
 @pytest.mark.parametrize("response, predictors, settings, expected", [
-    (RESPONSE, "Living aera", None, r"^plumbrule: Setting 'predictors': there is no column "
+    (RESPONSE, "Living aera", None, r"^plumbrule: Argument 'predictors': there is no column "
                                     r"'Living aera'\. Did you mean 'Living area'\?$"),
-    ("Price", "Age", None, r"^plumbrule: Setting 'response': there is no column 'Price'"),
+    ("Price", "Age", None, r"^plumbrule: Argument 'response': there is no column 'Price'"),
     (RESPONSE, "Age", [["log_respons", True]], r"^plumbrule: Setting 'log_respons' is not "
                                                r"one plumbrule knows\. Did you mean "
                                                r"'log_response'\?"),

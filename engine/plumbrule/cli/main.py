@@ -11,7 +11,7 @@ import argparse
 import sys
 from typing import Any, Sequence
 
-from plumbrule.errors import PlumbError
+from plumbrule.errors import CellErrors, PlumbError
 from plumbrule.settings import REGISTRY
 
 FIT_GROUPS = ("intake", "model", "screen", "validate")
@@ -127,14 +127,30 @@ class _Parser(argparse.ArgumentParser):
                      f"See '{self.prog} --help'.\n")
 
 
-def _one_line(err: PlumbError) -> str:
-    """The message, with the CLI spelling of a setting beside its shared name."""
+def _one_line(err: PlumbError, command: str | None = None) -> str:
+    """The message in the words of the surface the user is on: a setting's flag on the
+    command line; its Settings-sheet name (as the engine says it) for ``run``, whose
+    settings come from the workbook."""
     text = str(err)
     name = getattr(err, "setting", None)
-    if name in REGISTRY:
+    if name in REGISTRY and command != "run":
         flag = "--" + name.replace("_", "-")
         text = text.replace(f"Setting '{name}'", f"Setting '{name}' ({flag})", 1)
+    elif name in REGISTRY:
+        text = text.replace(f"Setting '{name}'", f"Setting '{name}' (Settings sheet)", 1)
     return text
+
+
+def _report_cells(err: CellErrors, as_json: bool) -> None:
+    """Every unreadable cell: a summary line then one line per cell on stderr; with --json,
+    also ``{"errors": [{"row", "id", "column", "value", "problem"}]}`` on stdout."""
+    if as_json:
+        import json
+        print(json.dumps({"errors": [p.record() for p in err.problems]}, ensure_ascii=False))
+    lines = err.lines() if len(err.problems) > 1 else [str(err)]   # one cell: one line
+    print("plumbrule: " + lines[0], file=sys.stderr)
+    for line in lines[1:]:
+        print(line, file=sys.stderr)
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -146,8 +162,11 @@ def main(argv: Sequence[str] | None = None) -> int:
         return stop.code if isinstance(stop.code, int) else 2
     try:
         return int(args.handler(args) or 0)
+    except CellErrors as err:
+        _report_cells(err, bool(getattr(args, "json", False)))
+        return 2
     except PlumbError as err:
-        print(f"plumbrule: {_one_line(err)}", file=sys.stderr)
+        print(f"plumbrule: {_one_line(err, getattr(args, 'command', None))}", file=sys.stderr)
         return 2
     except BrokenPipeError:  # e.g. piped into head
         return 0

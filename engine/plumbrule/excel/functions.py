@@ -153,7 +153,7 @@ def to_cells(result: Any) -> Any:
 def error_cell(exc: BaseException) -> str:
     """The one cell a function shows instead of a traceback."""
     if isinstance(exc, PlumbError):
-        return text_cell(PREFIX + str(exc))
+        return text_cell(PREFIX + _in_function_words(exc))
     head = f"{PREFIX}internal error ({type(exc).__name__}): "
     tail = " \u2014 please report"
     msg = " ".join(str(exc).split())
@@ -161,6 +161,20 @@ def error_cell(exc: BaseException) -> str:
     if len(msg) > room:
         msg = msg[:room - 1] + "\u2026"
     return head + msg + tail
+
+
+# Settings a worksheet function takes as its own arguments rather than from the range.
+_ARGUMENT_SETTINGS = ("response", "predictors", "comps")
+
+
+def _in_function_words(exc: PlumbError) -> str:
+    """The message as a worksheet user sees the setting: an argument of the function for
+    response / predictors / comps, a row of the settings range for the rest."""
+    text = str(exc)
+    name = exc.setting
+    if name in _ARGUMENT_SETTINGS:
+        return text.replace(f"Setting '{name}'", f"Argument '{name}'", 1)
+    return text
 
 
 def cell_safe(fn: Callable) -> Callable:

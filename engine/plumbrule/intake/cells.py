@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from plumbrule.errors import CellErrors, CellProblem
+from plumbrule.errors import CellErrors, CellProblem, IntakeError
 
 
 ERROR_TEXTS = frozenset({
@@ -248,6 +248,10 @@ def to_numbers(col: pd.Series, name: str, hint_categorical: bool = False
         if hint_categorical and looks_like_labels:
             fix = (f"Enter a number or leave the cell blank; if '{name}' holds categories "
                    "(names or codes), list it under the 'categorical' setting.")
+            if bad.sum() >= 0.5 * present.sum():   # a column of words: one message, not n
+                raise IntakeError(f"Column '{name}', row {row}: {_shown(cell)} is not a number. "
+                                  f"Neither are {int(bad.sum()) - 1} more of its cells. " + fix,
+                                  column=name, row=int(row))
         _refuse(bad, col, "is not a number. " + fix, name)
     return values, reason
 
