@@ -45,7 +45,8 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", required=True)
 
     fit = sub.add_parser("fit", help="Fit the model to a CSV or xlsx sales table.")
-    fit.add_argument("data", metavar="DATA", help="Sales table: .csv or .xlsx")
+    fit.add_argument("data", metavar="DATA", help="Sales table: .csv or .xlsx, or a plumbrule "
+                     "workbook (its Sales, Settings, Subjects and Comps; flags override)")
     fit.add_argument("--sheet", help="Worksheet of an .xlsx file (default: the first).")
     fit.add_argument("--json", action="store_true", help="Print one JSON object.")
     _add_setting_options(fit, FIT_GROUPS)
@@ -54,8 +55,9 @@ def build_parser() -> argparse.ArgumentParser:
     value = sub.add_parser("value", help="Value subject properties with intervals and a grid.")
     value.add_argument("data", metavar="DATA", help="Sales table: .csv or .xlsx")
     value.add_argument("--sheet", help="Worksheet of an .xlsx file (default: the first).")
-    value.add_argument("--subjects", required=True, metavar="SUBJECTS",
-                       help="Subject properties: .csv or .xlsx with the sales' columns.")
+    value.add_argument("--subjects", metavar="SUBJECTS",
+                       help="Subject properties: .csv or .xlsx with the sales' columns "
+                            "(default for a plumbrule workbook: its Subjects sheet).")
     value.add_argument("--json", action="store_true", help="Print one JSON object.")
     _add_setting_options(value, FIT_GROUPS + ("value",))
     value.set_defaults(handler=cmd_value)
@@ -82,10 +84,10 @@ def build_parser() -> argparse.ArgumentParser:
 
 def cmd_fit(args: argparse.Namespace) -> int:
     from plumbrule.analysis import analyze
-    from plumbrule.intake import read_table
+    from plumbrule.cli.inputs import read_inputs
     from plumbrule.render.text import render_analysis
-    settings = _settings_from_args(args)
-    result = analyze(read_table(args.data, sheet=args.sheet), settings)
+    inputs = read_inputs(args)
+    result = analyze(inputs.sales, inputs.settings)
     if args.json:
         from plumbrule.render.json import analysis_json
         print(analysis_json(result))
@@ -95,8 +97,9 @@ def cmd_fit(args: argparse.Namespace) -> int:
 
 
 def cmd_value(args: argparse.Namespace) -> int:
+    from plumbrule.cli.inputs import read_inputs
     from plumbrule.cli.value import run_value
-    return run_value(args, _settings_from_args(args))
+    return run_value(args, read_inputs(args))
 
 
 def cmd_new(args: argparse.Namespace) -> int:

@@ -12,14 +12,22 @@ from plumbrule.numbers import money
 from plumbrule.render.wording import CAUTION
 
 
-def run_value(args, settings) -> int:
-    """Handler for the ``value`` subcommand; returns the exit status (0)."""
+def run_value(args, inputs) -> int:
+    """Handler for the ``value`` subcommand (``inputs``: cli.inputs.Inputs); returns the
+    exit status (0)."""
     from plumbrule.analysis import analyze
+    from plumbrule.errors import SettingError
     from plumbrule.intake import read_table
     from plumbrule.valuation.estimates import valuate
-    analysis = analyze(read_table(args.data, sheet=getattr(args, "sheet", None)), settings)
-    subjects = read_table(args.subjects)
-    result = valuate(analysis, subjects)
+    analysis = analyze(inputs.sales, inputs.settings)
+    if getattr(args, "subjects", None):
+        subjects = read_table(args.subjects)
+    elif inputs.subjects is not None:
+        subjects = inputs.subjects
+    else:
+        raise SettingError("plumbrule value needs the subject properties: give --subjects "
+                           "SUBJECTS.csv, or a plumbrule workbook with a Subjects sheet.")
+    result = valuate(analysis, subjects, inputs.comps)
     print(valuation_json(result) if getattr(args, "json", False)
           else render_valuation(result, analysis))
     return 0
