@@ -166,7 +166,7 @@ def _assembled(p: pd.DataFrame, order: str | None, year_first: np.ndarray) -> pd
     size = {k: p[k].str.len().to_numpy(dtype=int) for k in ("a", "b", "c")}
     ymd = {"YMD": ("a", "b", "c"), "DMY": ("c", "b", "a")}.get(order, ("c", "a", "b"))
     # A four-digit first part is the year whatever the order of the others.
-    y, m, d = (np.where(year_first, num[k0], num[k]) for k0, k in zip("abc", ymd))
+    y, m, d = (np.where(year_first, num[k0], num[k]) for k0, k in zip("abc", ymd, strict=True))
     ylen, dlen = (np.where(year_first, size[k0], size[k]) for k0, k in (("a", ymd[0]),
                                                                          ("c", ymd[2])))
     year = np.where(ylen == 2, np.where(y <= 68, 2000 + y, 1900 + y), y)

@@ -1,19 +1,28 @@
 """Reading CSV and xlsx files into a :class:`SheetTable`, error cells kept as their text.
+
+For .xlsx/.xlsm the sheet's XML is read once more (calamine does not hand these over): the
+text of error cells, the rows hidden or filtered out, and the formula cells the file holds
+no saved result for (a workbook written by a program that does not compute formulas).
 """
 
 from __future__ import annotations
 
+import re
+from dataclasses import dataclass, replace
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from plumbrule.errors import IntakeError, quote_list
 from plumbrule.intake.cells import is_blank
-from plumbrule.intake.table import SheetTable, table_from_values
+from plumbrule.intake.table import SheetTable, _header_text, table_from_values
 
 
-def read_table(path: str | Path, sheet: str | None = None) -> SheetTable:
-    """Read a .csv or .xlsx/.xlsm file (first sheet unless ``sheet``)."""
+def read_table(path: str | Path, sheet: str | None = None,
+               header_row: int | None = None) -> SheetTable:
+    """Read a .csv or .xlsx/.xlsm file (first sheet unless ``sheet``). ``header_row`` is the
+    sheet row of the column headers (the setting); None finds it below any title rows."""
     path = Path(path)
     if not path.exists():
         raise IntakeError(f"File '{path}' does not exist. Check the path.")
@@ -24,15 +33,16 @@ def read_table(path: str | Path, sheet: str | None = None) -> SheetTable:
         if sheet is not None:
             raise IntakeError(f"File '{path.name}' is a CSV file, which has no sheets; leave "
                               "out the sheet name.", sheet=sheet)
-        return read_csv(path)
+        return read_csv(path, header_row=header_row)
     if suffix in (".xlsx", ".xlsm", ".xls", ".ods"):
-        return read_sheet(path, sheet)
+        return read_sheet(path, sheet, header_row=header_row)
     raise IntakeError(f"File '{path.name}' is not .csv or .xlsx. Save the sales as one of those.")
 
 
-def read_csv(path: str | Path) -> SheetTable:
+def read_csv(path: str | Path, header_row: int | None = None) -> SheetTable:
     """CSV cells come in as text so they are parsed exactly as a sheet's would be.
-    Record i (header = 1) is sheet row i; blank lines count as rows."""
+    Line i of the file is sheet row i; blank lines count as rows. ``header_row``: the line
+    of the column headers, None to find it below any title lines."""
     path = Path(path)
     try:
         raw = path.read_bytes()
@@ -61,13 +71,17 @@ def read_csv(path: str | Path) -> SheetTable:
         raise IntakeError(f"File '{path.name}' cannot be read as CSV ({detail}). "
                           "Save it as CSV with one header row and the same number of "
                           "cells on every line.") from None
-    return table_from_values(frame.to_numpy(dtype=object), header_row=1, sheet=None)
+    return table_from_values(frame.to_numpy(dtype=object), header_row=1, sheet=None,
+                             header_at=header_row)
 
 
-def read_sheet(path: str | Path, sheet: str | None = None) -> SheetTable:
-    """One worksheet through python-calamine (fast); the first non-empty row is the header.
+def read_sheet(path: str | Path, sheet: str | None = None,
+               header_row: int | None = None) -> SheetTable:
+    """One worksheet through python-calamine (fast). The header is sheet row ``header_row``,
+    or found below any title rows (:func:`plumbrule.intake.table.find_header`).
     Calamine hands over error cells as blanks; for .xlsx/.xlsm their error text is put
-    back from the sheet's XML (for .xls/.ods they are logged as 'blank')."""
+    back from the sheet's XML (for .xls/.ods they are logged as 'blank'), and the table
+    carries the hidden rows and the columns of formulas with no saved result."""
     from python_calamine import CalamineWorkbook
     try:
         book = CalamineWorkbook.from_path(str(path))
@@ -97,10 +111,55 @@ def read_sheet(path: str | Path, sheet: str | None = None) -> SheetTable:
     if not values:
         raise IntakeError(f"Sheet '{sheet}' of '{Path(path).name}' is empty. Put the sales "
                           "there with a header row, or name another sheet.", sheet=sheet)
+    facts = _SheetFacts()
     if Path(path).suffix.lower() in (".xlsx", ".xlsm"):
-        _restore_error_cells(values, _xlsx_error_cells(path, sheet), start)
-    return table_from_values(values, header_row=start[0] + 1, sheet=sheet,
-                             first_column=start[1] + 1)
+        facts = _xlsx_facts(path, sheet)
+        _restore_error_cells(values, facts.errors, start)
+    table = table_from_values(values, header_row=start[0] + 1, sheet=sheet,
+                              first_column=start[1] + 1, header_at=header_row)
+    return _with_facts(table, values, start, facts)
+
+
+def hidden_rows_log(table: SheetTable) -> pd.DataFrame:
+    """One record per sheet row of the table hidden or filtered out in the sheet (the
+    screening log's columns; rule 'hidden row'), for a caller that sets them aside."""
+    from plumbrule.screening import LOG_COLUMNS   # here: screening imports the settings
+    rows = np.intersect1d(np.asarray(table.hidden_rows, dtype=np.int64),
+                          table.frame.index.to_numpy(dtype=np.int64))
+    return pd.DataFrame({"row": rows, "column": pd.Series([""] * len(rows), dtype=object),
+                         "value": np.full(len(rows), np.nan), "rule": "hidden row",
+                         "limit": np.full(len(rows), np.nan),
+                         "reason": "hidden or filtered out in the sheet"})[LOG_COLUMNS]
+
+
+@dataclass(frozen=True)
+class _SheetFacts:
+    """What the sheet XML says beyond calamine's values: error cells (sheet row, column
+    number, error text), hidden sheet rows, and formula cells with no saved result
+    (sheet row, column number)."""
+
+    errors: tuple = ()
+    hidden: tuple = ()
+    unsaved: tuple = ()
+
+
+def _with_facts(table: SheetTable, values: list, start, facts: _SheetFacts) -> SheetTable:
+    """The table with its hidden body rows and the headers of unsaved-formula columns."""
+    if not facts.hidden and not facts.unsaved:
+        return table
+    body = table.frame.index.to_numpy(dtype=np.int64)
+    hidden = np.intersect1d(np.asarray(facts.hidden, dtype=np.int64), body)
+    cells = np.asarray(facts.unsaved, dtype=np.int64).reshape(-1, 2)
+    cols = np.unique(cells[np.isin(cells[:, 0], body), 1])
+    head = values[table.header_row - 1 - start[0]]
+    names = []
+    for c in cols:                          # distinct columns, not cells
+        j = int(c) - 1 - start[1]
+        name = _header_text(head[j]) if 0 <= j < len(head) else ""
+        if name in table.frame.columns:
+            names.append(name)
+    return replace(table, hidden_rows=tuple(int(r) for r in hidden),
+                   unsaved_formula_columns=tuple(names))
 
 
 def _restore_error_cells(values: list, errors: list, start) -> None:
@@ -115,7 +174,20 @@ def _restore_error_cells(values: list, errors: list, start) -> None:
 def _xlsx_error_cells(path, sheet: str) -> list[tuple[int, int, str]]:
     """(sheet row, column number, error text) of each error cell of ``sheet``, read from
     the workbook's XML; [] when there are none or the parts cannot be found."""
-    import re
+    return list(_xlsx_facts(path, sheet).errors)
+
+
+# One scan of the sheet XML finds the three things calamine does not hand over: a hidden
+# row, an error cell (t="e"), a formula cell whose value is missing or empty.
+_FACTS_RE = re.compile(
+    r'<row\b(?=[^>]*\bhidden="(?:1|true)")[^>]*?\br="(\d+)"[^>]*>'
+    r'|<c\b([^>]*\bt="e"[^>]*)>(.*?)</c>'
+    r'|<c\b([^>]*)>\s*<f\b[^>]*(?:/>|>[^<]*</f>)\s*(?:<v\s*/>|<v>\s*</v>)?\s*</c>', re.S)
+
+
+def _xlsx_facts(path, sheet: str) -> _SheetFacts:
+    """Error cells, hidden rows and unsaved formula cells of ``sheet`` from the workbook's
+    XML; empty when there are none or the parts cannot be found."""
     import zipfile
     from defusedxml import ElementTree
     try:
@@ -128,21 +200,27 @@ def _xlsx_error_cells(path, sheet: str) -> list[tuple[int, int, str]]:
             rels = ElementTree.fromstring(z.read("xl/_rels/workbook.xml.rels"))
             target = next((el.get("Target") for el in rels if el.get("Id") == rid), None)
             if target is None:
-                return []
+                return _SheetFacts()
             part = target.lstrip("/") if target.startswith("/") else "xl/" + target
             xml = z.read(part).decode("utf-8", errors="replace")
     except Exception:   # the values are still read; only the reason text is less precise
-        return []
-    if 't="e"' not in xml:
-        return []
-    out = []
-    for attrs, body in re.findall(r'<c\b([^>]*\bt="e"[^>]*)>(.*?)</c>', xml, flags=re.S):
-        ref = re.search(r'\br="([A-Z]+)(\d+)"', attrs)
-        val = re.search(r"<v>([^<]*)</v>", body)
-        if ref and val:
-            letters, row = ref.groups()
-            col = 0
-            for ch in letters:
-                col = col * 26 + ord(ch) - 64
-            out.append((int(row), col, val.group(1)))
-    return out
+        return _SheetFacts()
+    if 't="e"' not in xml and 'hidden="' not in xml and "<f" not in xml:
+        return _SheetFacts()
+    hits = _FACTS_RE.findall(xml)         # one scan; a group left out is ''
+    if not hits:
+        return _SheetFacts()
+    h = pd.DataFrame(hits, columns=["hidden", "error", "body", "formula"], dtype=object)
+    hidden = pd.to_numeric(h["hidden"][h["hidden"] != ""]).astype(np.int64).tolist()
+    ref = (h["error"] + h["formula"]).str.extract(r'\br="([A-Z]{1,3})(\d+)"')
+    has_ref = ref[0].notna()
+    letters = ref[0].fillna("").str.rjust(3, "@").str.encode("ascii")
+    codes = np.frombuffer(b"".join(letters), dtype=np.uint8).reshape(-1, 3) - 64
+    col = (codes.astype(np.int64) * np.array([676, 26, 1])).sum(axis=1)
+    row = pd.to_numeric(ref[1], errors="coerce").fillna(0).astype(np.int64).to_numpy()
+    text = h["body"].str.extract(r"<v>([^<]*)</v>")[0]
+    err = (has_ref & (h["error"] != "") & text.notna()).to_numpy()
+    form = (has_ref & (h["error"] == "") & (h["formula"] != "")).to_numpy()
+    errors = list(zip(row[err].tolist(), col[err].tolist(), text[err].tolist(), strict=True))
+    unsaved = list(zip(row[form].tolist(), col[form].tolist(), strict=True))
+    return _SheetFacts(tuple(errors), tuple(hidden), tuple(unsaved))
