@@ -66,13 +66,42 @@ def read_csv(path: str | Path, header_row: int | None = None) -> SheetTable:
     try:
         frame = pd.read_csv(io.StringIO(text), header=None, dtype=object, sep=sep,
                             keep_default_na=False, na_values=[], skip_blank_lines=False)
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
-        detail = " ".join(str(exc).split())
-        raise IntakeError(f"File '{path.name}' cannot be read as CSV ({detail}). "
-                          "Save it as CSV with one header row and the same number of "
-                          "cells on every line.") from None
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError):
+        # Title lines above the header are shorter than the lines below: read the lines
+        # as they are and hold only the lines below the header to its width.
+        return _ragged_csv(text, sep, path.name, header_row)
     return table_from_values(frame.to_numpy(dtype=object), header_row=1, sheet=None,
                              header_at=header_row)
+
+
+def _ragged_csv(text: str, sep: str, name: str, header_row: int | None) -> SheetTable:
+    """A CSV whose lines have different numbers of cells: fine above the header (titles,
+    notes), refused below it when a line has more cells than the header line."""
+    import csv
+    import io
+    fix = ("Save it as CSV with one header row and the same number of cells on every "
+           "line.")
+    try:
+        rows = list(csv.reader(io.StringIO(text), delimiter=sep))
+    except csv.Error as exc:
+        raise IntakeError(f"File '{name}' cannot be read as CSV ({exc}). {fix}") from None
+    cells = np.fromiter(map(len, rows), dtype=np.int64, count=len(rows))
+
+    def too_wide(head: int) -> None:
+        wide = np.flatnonzero(cells[head:] > cells[head - 1])
+        if len(wide):
+            line = head + 1 + int(wide[0])
+            raise IntakeError(f"File '{name}' cannot be read as CSV (line {line} "
+                              f"has {cells[line - 1]} cells, the header line {cells[head - 1]})."
+                              f" {fix}", row=line) from None
+    try:
+        table = table_from_values(rows, header_row=1, sheet=None, header_at=header_row)
+    except IntakeError as err:       # a line wider than the header is the first problem
+        if err.setting is None and err.row is not None:
+            too_wide(err.row)
+        raise
+    too_wide(table.header_row)
+    return table
 
 
 def read_sheet(path: str | Path, sheet: str | None = None,
