@@ -100,7 +100,7 @@ def _block_at(book, name: str, required: bool = False
     """:func:`_block` plus the sheet column number of the block's first column and whether
     it is an Excel table (whose first row is its header, and which calamine reads without
     its totals row)."""
-    tables = {t.lower(): t for t in (book.table_names() or [])} if _has_tables(book) else {}
+    tables = {t.lower(): t for t in _table_names(book)}
     if name.lower() in tables:
         t = book.get_table_by_name(tables[name.lower()])
         values = [list(t.columns)] + t.to_python()
@@ -128,12 +128,19 @@ def _block_at(book, name: str, required: bool = False
     return [], 1, None, 1, False
 
 
-def _has_tables(book) -> bool:
+def _table_names(book) -> list[str]:
+    """The workbook's Excel table names; [] when it has none or cannot have any (.xls, .ods).
+    python-calamine 0.9 gives them as a property, earlier versions as a method."""
     try:
-        book.table_names()
-    except Exception:   # TablesNotSupported for non-xlsx files
-        return False
-    return True
+        names = book.table_names
+        names = names() if callable(names) else names
+    except Exception:   # TablesNotSupported / TablesNotLoaded for non-xlsx files
+        return []
+    return list(names or [])
+
+
+def _has_tables(book) -> bool:
+    return bool(_table_names(book))
 
 
 def _comp_rows(block: list, header_row: int, sheet: str | None) -> tuple[int, ...]:
