@@ -206,12 +206,27 @@ def _xlsx_error_cells(path, sheet: str) -> list[tuple[int, int, str]]:
     return list(_xlsx_facts(path, sheet).errors)
 
 
-# One scan of the sheet XML finds the three things calamine does not hand over: a hidden
-# row, an error cell (t="e"), a formula cell whose value is missing or empty.
-_FACTS_RE = re.compile(
-    r'<row\b(?=[^>]*\bhidden="(?:1|true)")[^>]*?\br="(\d+)"[^>]*>'
-    r'|<c\b([^>]*\bt="e"[^>]*)>(.*?)</c>'
-    r'|<c\b([^>]*)>\s*<f\b[^>]*(?:/>|>[^<]*</f>)\s*(?:<v\s*/>|<v>\s*</v>)?\s*</c>', re.S)
+# One scan of the sheet XML finds what calamine does not hand over: a hidden row, an error
+# cell (t="e") with its text, a formula cell whose saved value is missing or empty. Only the
+# parts the XML can hold are searched for (a sheet saved by a spreadsheet program has no
+# formula without a value), so a plain sheet is not scanned at all.
+_CELL_REF = r'<c\b(?=[^>]*\br="([A-Z]{1,3})(\d+)")'
+_FACT_PARTS = {
+    "hidden": (r'<row\b(?=[^>]*\bhidden="(?:1|true)")[^>]*?\br="(\d+)"[^>]*>', 1),
+    "error": (_CELL_REF + r'(?=[^>]*\bt="e")[^>]*>(?:(?!</c>).)*?<v>([^<]*)</v>', 3),
+    "unsaved": (_CELL_REF + r'[^>]*>\s*<f\b[^>]*(?:/>|>[^<]*</f>)\s*(?:<v\s*/>|<v>\s*</v>)?'
+                r'\s*</c>', 2),
+}
+_FACT_MARKS = {"hidden": ('hidden="',), "error": ('t="e"',),
+               "unsaved": ("<v />", "<v/>", "<v></v>", "</f></c>", "/></c>")}
+
+
+def _column_numbers(letters: np.ndarray) -> np.ndarray:
+    """Sheet column letters → numbers (A = 1), worked out once per distinct column."""
+    codes, uniq = pd.factorize(letters)
+    nums = np.array([sum((ord(ch) - 64) * 26 ** k for k, ch in enumerate(reversed(u)))
+                     for u in uniq], dtype=np.int64)      # distinct columns: a handful
+    return nums[codes] if len(uniq) else np.zeros(0, dtype=np.int64)
 
 
 def _xlsx_facts(path, sheet: str) -> _SheetFacts:
@@ -234,22 +249,28 @@ def _xlsx_facts(path, sheet: str) -> _SheetFacts:
             xml = z.read(part).decode("utf-8", errors="replace")
     except Exception:   # the values are still read; only the reason text is less precise
         return _SheetFacts()
-    if 't="e"' not in xml and 'hidden="' not in xml and "<f" not in xml:
+    kinds = [k for k, marks in _FACT_MARKS.items() if any(m in xml for m in marks)]
+    if not kinds:
         return _SheetFacts()
-    hits = _FACTS_RE.findall(xml)         # one scan; a group left out is ''
+    pattern = "|".join(_FACT_PARTS[k][0] for k in kinds)
+    hits = re.findall(pattern, xml, flags=re.S)         # one scan; a group left out is ''
     if not hits:
         return _SheetFacts()
-    h = pd.DataFrame(hits, columns=["hidden", "error", "body", "formula"], dtype=object)
-    hidden = pd.to_numeric(h["hidden"][h["hidden"] != ""]).astype(np.int64).tolist()
-    ref = (h["error"] + h["formula"]).str.extract(r'\br="([A-Z]{1,3})(\d+)"')
-    has_ref = ref[0].notna()
-    letters = ref[0].fillna("").str.rjust(3, "@").str.encode("ascii")
-    codes = np.frombuffer(b"".join(letters), dtype=np.uint8).reshape(-1, 3) - 64
-    col = (codes.astype(np.int64) * np.array([676, 26, 1])).sum(axis=1)
-    row = pd.to_numeric(ref[1], errors="coerce").fillna(0).astype(np.int64).to_numpy()
-    text = h["body"].str.extract(r"<v>([^<]*)</v>")[0]
-    err = (has_ref & (h["error"] != "") & text.notna()).to_numpy()
-    form = (has_ref & (h["error"] == "") & (h["formula"] != "")).to_numpy()
-    errors = list(zip(row[err].tolist(), col[err].tolist(), text[err].tolist(), strict=True))
-    unsaved = list(zip(row[form].tolist(), col[form].tolist(), strict=True))
+    g = np.array(hits, dtype=object).reshape(len(hits), -1)
+    found, at = {}, 0
+    for k in kinds:                                     # the three kinds, not the hits
+        width = _FACT_PARTS[k][1]
+        part = g[:, at:at + width]
+        found[k] = part[part[:, 0] != ""]
+        at += width
+    hidden = found["hidden"][:, 0].astype(np.int64).tolist() if "hidden" in found else []
+    errors, unsaved = [], []
+    if "error" in found and len(found["error"]):
+        e = found["error"]
+        errors = list(zip(e[:, 1].astype(np.int64).tolist(),
+                          _column_numbers(e[:, 0]).tolist(), e[:, 2].tolist(), strict=True))
+    if "unsaved" in found and len(found["unsaved"]):
+        f = found["unsaved"]
+        unsaved = list(zip(f[:, 1].astype(np.int64).tolist(),
+                           _column_numbers(f[:, 0]).tolist(), strict=True))
     return _SheetFacts(tuple(errors), tuple(hidden), tuple(unsaved))
