@@ -131,3 +131,13 @@ def test_xlsx_title_rows_above_a_block_that_starts_lower_down(tmp_path):
     t = read_table(path)
     assert (t.header_row, t.first_column, t.frame.index.tolist()) == (4, 2, [5, 6, 7])
     assert read_table(path, header_row=4).columns == HEADER
+
+
+def test_csv_title_lines_may_be_short_but_no_sale_line_wider_than_the_header(tmp_path):
+    path = tmp_path / "wrenfield.csv"
+    path.write_text("Wrenfield sales 2025\nSale ID,Sale price\nW-1,312000\nW-2,298500,extra\n")
+    with pytest.raises(IntakeError, match=r"^File 'wrenfield\.csv' cannot be read as CSV \(line 4 "
+                                          r"has 3 cells, the header line 2\)\. Save it as CSV") \
+            as err:
+        read_table(path)
+    assert err.value.row == 4

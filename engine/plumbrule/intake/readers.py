@@ -15,8 +15,8 @@ import numpy as np
 import pandas as pd
 
 from plumbrule.errors import IntakeError, quote_list
-from plumbrule.intake.cells import is_blank
-from plumbrule.intake.table import SheetTable, _header_text, table_from_values
+from plumbrule.intake.cells import _blank_mask, is_blank
+from plumbrule.intake.table import SheetTable, _header_text, padded, table_from_values
 
 
 def read_table(path: str | Path, sheet: str | None = None,
@@ -98,7 +98,12 @@ def _ragged_csv(text: str, sep: str, name: str, header_row: int | None) -> Sheet
         table = table_from_values(rows, header_row=1, sheet=None, header_at=header_row)
     except IntakeError as err:       # a line wider than the header is the first problem
         if err.setting is None and err.row is not None:
-            too_wide(err.row)
+            # The row tried may be a title: hold the lines below to the first line of two or
+            # more filled cells (a header), as a reader of the file would.
+            block = padded(rows)
+            filled = ~_blank_mask(pd.Series(block.ravel(), dtype=object)).to_numpy()
+            wide = np.flatnonzero(filled.reshape(block.shape).sum(axis=1) >= 2)
+            too_wide(int(wide[0]) + 1 if len(wide) else err.row)
         raise
     too_wide(table.header_row)
     return table

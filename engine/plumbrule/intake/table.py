@@ -46,16 +46,8 @@ def table_from_values(values: Sequence[Sequence[Any]], header_row: int = 1,
     sheet row of the column headers when the user gives it (the ``header_row`` setting);
     by default the header is found (:func:`find_header`): title rows, notes and blank rows
     above it are left out. ``SheetTable.header_row`` is the sheet row of the header used."""
-    if isinstance(values, np.ndarray):
-        values = values.tolist()
-    rows = [list(r) if isinstance(r, (list, tuple)) else [r] for r in (values or [])]
-    if not rows or not max(len(r) for r in rows):
-        raise IntakeError("The sales block is empty. Select the table including its header row.")
-    width = max(len(r) for r in rows)
-    block = np.empty((len(rows), width), dtype=object)
-    block[:] = None
-    for i, r in enumerate(rows):       # rows of the block, not cells: one slice each
-        block[i, :len(r)] = r
+    block = padded(values)
+    width = block.shape[1]
     if header_at is None:
         h = find_header(block)
     else:
@@ -73,6 +65,21 @@ def table_from_values(values: Sequence[Sequence[Any]], header_row: int = 1,
     body = pd.DataFrame(block[h + 1:], columns=range(width), dtype=object)
     return _with_header(list(block[h]), body, header_row + h, sheet, first_column,
                         suggest_setting=True)
+
+
+def padded(values: Sequence[Sequence[Any]]) -> np.ndarray:
+    """Rows of cells (of any lengths) → a 2-D object array, short rows filled with None."""
+    if isinstance(values, np.ndarray):
+        values = values.tolist()
+    rows = [list(r) if isinstance(r, (list, tuple)) else [r] for r in (values or [])]
+    if not rows or not max(len(r) for r in rows):
+        raise IntakeError("The sales block is empty. Select the table including its header row.")
+    width = max(len(r) for r in rows)
+    block = np.empty((len(rows), width), dtype=object)
+    block[:] = None
+    for i, r in enumerate(rows):       # rows of the block, not cells: one slice each
+        block[i, :len(r)] = r
+    return block
 
 
 _HEADER_SCAN = 50    # block rows searched for the header (title rows, notes, blank rows)
