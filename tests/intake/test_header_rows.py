@@ -141,3 +141,12 @@ def test_csv_title_lines_may_be_short_but_no_sale_line_wider_than_the_header(tmp
             as err:
         read_table(path)
     assert err.value.row == 4
+
+
+def test_sales_above_a_row_of_words_are_not_skipped_as_titles():
+    # A header with a column left unnamed, then sales, then a row of words: the words are
+    # not the header (rows with numbers sit above them), so the first row is tried.
+    rows = [["Sale ID", "Sale price", None], ["W-1", 312000, 1480], ["W-2", 298500, 1390],
+            ["unknown", "unknown", "pending"]]
+    with pytest.raises(IntakeError, match=r"^Header row \(sheet row 1\): column C has no name"):
+        table_from_values(rows)

@@ -90,8 +90,8 @@ def find_header(block: np.ndarray) -> int:
     """Block row (0-based) of the column headers: the first non-blank row whose filled cells
     are all words (text that is not a number or a date), at least two of them unless the
     block is one column wide, with the next few non-blank rows filling no column it leaves
-    blank. When no row among the first ones qualifies, the first non-blank row (whose
-    problems the header checks then name)."""
+    blank, and no row above it holding two or more numbers or dates (that is a sale, not a
+    title). Otherwise the first non-blank row (whose problems the header checks then name)."""
     top = block[:_HEADER_SCAN]
     flat = pd.Series(top.ravel(), dtype=object)
     filled = ~_blank_mask(flat).to_numpy().reshape(top.shape)
@@ -111,9 +111,14 @@ def find_header(block: np.ndarray) -> int:
     for k in range(1, _SPAN_ROWS + 1):     # a few shifted copies, not a loop over rows
         below |= pad[k:k + len(f)]
     one_wide = filled.any(axis=0).sum() <= 1
-    ok = (~(f & ~w).any(axis=1) & ((f.sum(axis=1) >= 2) | one_wide)
-          & ~(below & ~f).any(axis=1))
-    return int(nonblank[np.argmax(ok)] if ok.any() else nonblank[0])
+    values = (f & ~w).sum(axis=1)
+    ok = (values == 0) & ((f.sum(axis=1) >= 2) | one_wide) & ~(below & ~f).any(axis=1)
+    k = int(np.argmax(ok))
+    # Rows left out above a header are titles and notes: a row with two or more numbers or
+    # dates there is a sale, and a header below it is not to be trusted.
+    if not ok.any() or (values[:k] >= 2).any():
+        return int(nonblank[0])
+    return int(nonblank[k])
 
 
 def table_from_frame(frame: pd.DataFrame, header_row: int = 1,
