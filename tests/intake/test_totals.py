@@ -143,3 +143,12 @@ def test_many_sales_are_looked_at_at_once():
     from plumbrule.intake import table_from_frame
     log = totals_rows(table_from_frame(frame), NUMERIC)
     assert log["row"].tolist() == [20_002]
+
+
+def test_a_run_of_identical_sales_is_not_a_row_of_means():
+    # Three sales alike in every used column: the third equals the mean of the two above,
+    # as any repeat does; that is a repeat (the duplicates rule's), not a totals row.
+    t = _sheet(["W-1", "Millrace", "Good", 300000, 1400],
+               ["W-2", "Millrace", "Good", 300000, 1400],
+               ["W-3", "Millrace", "Good", 300000, 1400])
+    assert totals_rows(t, NUMERIC).empty

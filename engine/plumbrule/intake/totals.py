@@ -158,13 +158,15 @@ def _summing(x: np.ndarray, known: np.ndarray):
     c = np.where(filled & sale[:, None], 1.0, 0.0)
     zero = np.zeros((1, k))
     cs, cc = np.vstack([zero, np.cumsum(v, axis=0)]), np.vstack([zero, np.cumsum(c, axis=0)])
+    # Whether the rows above all hold the row's own values: from cumulative sums of squares.
+    c2 = np.vstack([zero, np.cumsum(v * v, axis=0)])
     # Sums of the rows above row i: all (cs[i]) or since the last known totals row.
     pos = np.arange(n)
     last = np.maximum.accumulate(np.where(known, pos, -1))
     prev = np.concatenate([[-1], last[:-1]])          # last totals row strictly above i
     start = prev + 1
-    windows = ((cs[pos], cc[pos], np.zeros(n, dtype=np.int64)),
-               (cs[pos] - cs[start], cc[pos] - cc[start], start))
+    windows = ((cs[pos], cc[pos], c2[pos], np.zeros(n, dtype=np.int64)),
+               (cs[pos] - cs[start], cc[pos] - cc[start], c2[pos] - c2[start], start))
     n_filled = filled.sum(axis=1)
     some = (np.abs(np.where(filled, x, 0.0)) > 0).any(axis=1)
     hit = np.zeros(n, dtype=bool)
@@ -172,16 +174,24 @@ def _summing(x: np.ndarray, known: np.ndarray):
     limit = np.full(n, np.nan)
     kind = np.full(n, "", dtype=object)
     since = np.zeros(n, dtype=np.int64)
-    for total, count, begin in windows:             # two windows, not a loop over rows
+    for total, count, squares, begin in windows:    # two windows, not a loop over rows
         with np.errstate(invalid="ignore", divide="ignore"):
             mean = total / count
+        # Sum over the rows above of (value - x)^2: zero when they all equal the row, which
+        # makes it their mean without being a total (a run of identical sales).
+        spread = squares - 2 * np.where(filled, x, 0.0) * total + count * np.where(
+            filled, x, 0.0) ** 2
+        varied = (filled & (spread > (_RTOL * np.maximum(np.abs(x), 1.0)) ** 2 * count)
+                  ).any(axis=1)
         enough = (count >= 2) | ~filled
         tol = _RTOL * np.maximum(np.abs(x), np.abs(total))
         is_sum = ~filled | (np.abs(x - total) <= tol)
         tol_m = _RTOL * np.maximum(np.abs(x), np.abs(mean))
         is_mean = ~filled | (np.abs(x - mean) <= tol_m)
-        for match, word, ref in ((is_sum, "sum", total), (is_mean, "mean", mean)):
-            ok = match.all(axis=1) & enough.all(axis=1) & (n_filled >= 2) & some & ~hit
+        for match, word, ref, also in ((is_sum, "sum", total, True),
+                                       (is_mean, "mean", mean, varied)):
+            ok = (match.all(axis=1) & enough.all(axis=1) & (n_filled >= 2) & some & ~hit
+                  & also)
             if ok.any():
                 f = filled.argmax(axis=1)
                 hit |= ok
