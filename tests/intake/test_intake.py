@@ -303,7 +303,8 @@ def test_spreadsheet_serials_follow_the_1900_date_system(serial, day):
 
 
 @pytest.mark.parametrize("cell, shown", [("yesterday", "'yesterday'"), (True, "'True'"),
-                                         (-5, "'-5'"), (60, "'60'"), ("3/14/2024", "'3/14/2024'"),
+                                         (-5, "'-5'"), (60, "'60'"),
+                                         ("14 March 2024", "'14 March 2024'"),
                                          (dt.time(12), "a time value")])
 def test_a_cell_that_is_not_a_date_is_named(cell, shown):
     t = table_from_values([["Sale date"], ["2024-01-01"], [cell]])

@@ -16,10 +16,16 @@ Decisions a user relies on:
 - In a numeric column TRUE/FALSE (cells or text) read as 1/0, so a yes/no
   feature can enter the model directly.
 - A date column takes date cells, spreadsheet serial numbers (1900 date system,
-  also as text) and ISO text (YYYY-MM-DD).
+  also as text), ISO text (YYYY-MM-DD) and text dates such as 3/14/2025 or 14.03.2025
+  whose day/month order the column settles (or the ``date_format`` setting gives).
+- The header is found below title rows, notes and blank rows (or given as a sheet row);
+  row numbers stay the sheet's.
+- Totals rows (a 'Total' label, or numbers equal to the sums or means above) and rows
+  hidden in the sheet are found here and listed for the caller to set aside.
 
-The package: ``cells`` (typing spreadsheet values), ``table`` (header and sheet rows),
-``readers`` (CSV, xlsx), ``clean`` (the typed table and the set-aside log).
+The package: ``cells`` (typing spreadsheet values), ``dates`` (date columns), ``table``
+(header and sheet rows), ``readers`` (CSV, xlsx; hidden rows, unsaved formulas),
+``totals`` (totals rows), ``clean`` (the typed table and the set-aside log).
 """
 
 from plumbrule.intake.cells import (  # noqa: F401
@@ -59,21 +65,25 @@ from plumbrule.intake.cells import (  # noqa: F401
     to_labels,
     to_numbers,
 )
+from plumbrule.intake.dates import DATE_FORMATS  # noqa: F401
 from plumbrule.intake.table import (  # noqa: F401
     SheetTable,
     _header_text,
     _with_header,
     column_letter,
+    find_header,
     table_from_frame,
     table_from_values,
 )
 from plumbrule.intake.readers import (  # noqa: F401
     _restore_error_cells,
     _xlsx_error_cells,
+    hidden_rows_log,
     read_csv,
     read_sheet,
     read_table,
 )
+from plumbrule.intake.totals import TOTALS, table_without, totals_rows  # noqa: F401
 from plumbrule.intake.clean import (  # noqa: F401
     CleanData,
     _empty_log,

@@ -11,7 +11,8 @@ import numpy as np
 import pandas as pd
 
 from plumbrule.errors import CellErrors, CellProblem, IntakeError, quote_list
-from plumbrule.intake.cells import _blank_frame, to_dates, to_labels, to_numbers
+from plumbrule.intake.cells import _blank_frame, _blank_mask, to_labels, to_numbers
+from plumbrule.intake.dates import to_dates
 from plumbrule.intake.table import SheetTable
 
 
@@ -26,7 +27,7 @@ class CleanData:
 
 def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[str] = (),
           date: str | None = None, hint_categorical: Iterable[str] = (),
-          bad_cells: str = "refuse") -> CleanData:
+          bad_cells: str = "refuse", date_format: str = "auto") -> CleanData:
     """Type the used columns; drop (and log) rows with a missing value in any.
 
     ``hint_categorical`` names numeric predictor columns whose "not a number"
@@ -34,6 +35,10 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     column needs is found with every other such cell of the used columns: with
     ``bad_cells='refuse'`` they are raised together as one :class:`CellErrors`; with
     ``'set_aside'`` their rows are dropped, each logged with the cell's problem.
+    ``date_format`` (auto, MDY, DMY, YMD) is the order of dates typed as text
+    (see :mod:`plumbrule.intake.dates`). A used column holding formulas the file has no
+    saved results for (``table.unsaved_formula_columns``) is refused while it has blanks:
+    the blanks are not missing values but results nobody computed.
     """
     numeric, categorical = list(dict.fromkeys(numeric)), list(dict.fromkeys(categorical))
     frame = table.frame
@@ -42,6 +47,11 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     if missing:
         raise IntakeError(f"The sales table has no column {quote_list(missing)}. Columns are: "
                           f"{quote_list(list(frame.columns)[:12])}.", column=missing[0])
+    for col in dict.fromkeys(wanted):
+        if col in table.unsaved_formula_columns and _blank_mask(frame[col]).any():
+            raise IntakeError(f"Column '{col}' holds formulas with no saved values: open the "
+                              "workbook in a spreadsheet program and save it, then run again.",
+                              column=col)
     hints = set(hint_categorical)
     typed: dict[str, pd.Series] = {}
     reasons: dict[str, pd.Series] = {}
@@ -49,7 +59,7 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     jobs: list[tuple[str, Any, dict]] = [
         (c, to_numbers, {"hint_categorical": c in hints}) for c in numeric]
     jobs += [(c, to_labels, {}) for c in categorical]
-    jobs += [(date, to_dates, {})] if date is not None else []
+    jobs += [(date, to_dates, {"date_format": date_format})] if date is not None else []
     for col, fn, kw in jobs:
         typed[col], reasons[col], found = _typed(fn, frame[col], col, kw)
         problems += found

@@ -1,19 +1,28 @@
 """Reading CSV and xlsx files into a :class:`SheetTable`, error cells kept as their text.
+
+For .xlsx/.xlsm the sheet's XML is read once more (calamine does not hand these over): the
+text of error cells, the rows hidden or filtered out, and the formula cells the file holds
+no saved result for (a workbook written by a program that does not compute formulas).
 """
 
 from __future__ import annotations
 
+import re
+from dataclasses import dataclass, replace
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from plumbrule.errors import IntakeError, quote_list
-from plumbrule.intake.cells import is_blank
-from plumbrule.intake.table import SheetTable, table_from_values
+from plumbrule.intake.cells import _blank_mask, is_blank
+from plumbrule.intake.table import SheetTable, _header_text, padded, table_from_values
 
 
-def read_table(path: str | Path, sheet: str | None = None) -> SheetTable:
-    """Read a .csv or .xlsx/.xlsm file (first sheet unless ``sheet``)."""
+def read_table(path: str | Path, sheet: str | None = None,
+               header_row: int | None = None) -> SheetTable:
+    """Read a .csv or .xlsx/.xlsm file (first sheet unless ``sheet``). ``header_row`` is the
+    sheet row of the column headers (the setting); None finds it below any title rows."""
     path = Path(path)
     if not path.exists():
         raise IntakeError(f"File '{path}' does not exist. Check the path.")
@@ -24,15 +33,16 @@ def read_table(path: str | Path, sheet: str | None = None) -> SheetTable:
         if sheet is not None:
             raise IntakeError(f"File '{path.name}' is a CSV file, which has no sheets; leave "
                               "out the sheet name.", sheet=sheet)
-        return read_csv(path)
+        return read_csv(path, header_row=header_row)
     if suffix in (".xlsx", ".xlsm", ".xls", ".ods"):
-        return read_sheet(path, sheet)
+        return read_sheet(path, sheet, header_row=header_row)
     raise IntakeError(f"File '{path.name}' is not .csv or .xlsx. Save the sales as one of those.")
 
 
-def read_csv(path: str | Path) -> SheetTable:
+def read_csv(path: str | Path, header_row: int | None = None) -> SheetTable:
     """CSV cells come in as text so they are parsed exactly as a sheet's would be.
-    Record i (header = 1) is sheet row i; blank lines count as rows."""
+    Line i of the file is sheet row i; blank lines count as rows. ``header_row``: the line
+    of the column headers, None to find it below any title lines."""
     path = Path(path)
     try:
         raw = path.read_bytes()
@@ -56,18 +66,56 @@ def read_csv(path: str | Path) -> SheetTable:
     try:
         frame = pd.read_csv(io.StringIO(text), header=None, dtype=object, sep=sep,
                             keep_default_na=False, na_values=[], skip_blank_lines=False)
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
-        detail = " ".join(str(exc).split())
-        raise IntakeError(f"File '{path.name}' cannot be read as CSV ({detail}). "
-                          "Save it as CSV with one header row and the same number of "
-                          "cells on every line.") from None
-    return table_from_values(frame.to_numpy(dtype=object), header_row=1, sheet=None)
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError):
+        # Title lines above the header are shorter than the lines below: read the lines
+        # as they are and hold only the lines below the header to its width.
+        return _ragged_csv(text, sep, path.name, header_row)
+    return table_from_values(frame.to_numpy(dtype=object), header_row=1, sheet=None,
+                             header_at=header_row)
 
 
-def read_sheet(path: str | Path, sheet: str | None = None) -> SheetTable:
-    """One worksheet through python-calamine (fast); the first non-empty row is the header.
+def _ragged_csv(text: str, sep: str, name: str, header_row: int | None) -> SheetTable:
+    """A CSV whose lines have different numbers of cells: fine above the header (titles,
+    notes), refused below it when a line has more cells than the header line."""
+    import csv
+    import io
+    fix = ("Save it as CSV with one header row and the same number of cells on every "
+           "line.")
+    try:
+        rows = list(csv.reader(io.StringIO(text), delimiter=sep))
+    except csv.Error as exc:
+        raise IntakeError(f"File '{name}' cannot be read as CSV ({exc}). {fix}") from None
+    cells = np.fromiter(map(len, rows), dtype=np.int64, count=len(rows))
+
+    def too_wide(head: int) -> None:
+        wide = np.flatnonzero(cells[head:] > cells[head - 1])
+        if len(wide):
+            line = head + 1 + int(wide[0])
+            raise IntakeError(f"File '{name}' cannot be read as CSV (line {line} "
+                              f"has {cells[line - 1]} cells, the header line {cells[head - 1]})."
+                              f" {fix}", row=line) from None
+    try:
+        table = table_from_values(rows, header_row=1, sheet=None, header_at=header_row)
+    except IntakeError as err:       # a line wider than the header is the first problem
+        if err.setting is None and err.row is not None:
+            # The row tried may be a title: hold the lines below to the first line of two or
+            # more filled cells (a header), as a reader of the file would.
+            block = padded(rows)
+            filled = ~_blank_mask(pd.Series(block.ravel(), dtype=object)).to_numpy()
+            wide = np.flatnonzero(filled.reshape(block.shape).sum(axis=1) >= 2)
+            too_wide(int(wide[0]) + 1 if len(wide) else err.row)
+        raise
+    too_wide(table.header_row)
+    return table
+
+
+def read_sheet(path: str | Path, sheet: str | None = None,
+               header_row: int | None = None) -> SheetTable:
+    """One worksheet through python-calamine (fast). The header is sheet row ``header_row``,
+    or found below any title rows (:func:`plumbrule.intake.table.find_header`).
     Calamine hands over error cells as blanks; for .xlsx/.xlsm their error text is put
-    back from the sheet's XML (for .xls/.ods they are logged as 'blank')."""
+    back from the sheet's XML (for .xls/.ods they are logged as 'blank'), and the table
+    carries the hidden rows and the columns of formulas with no saved result."""
     from python_calamine import CalamineWorkbook
     try:
         book = CalamineWorkbook.from_path(str(path))
@@ -97,10 +145,55 @@ def read_sheet(path: str | Path, sheet: str | None = None) -> SheetTable:
     if not values:
         raise IntakeError(f"Sheet '{sheet}' of '{Path(path).name}' is empty. Put the sales "
                           "there with a header row, or name another sheet.", sheet=sheet)
+    facts = _SheetFacts()
     if Path(path).suffix.lower() in (".xlsx", ".xlsm"):
-        _restore_error_cells(values, _xlsx_error_cells(path, sheet), start)
-    return table_from_values(values, header_row=start[0] + 1, sheet=sheet,
-                             first_column=start[1] + 1)
+        facts = _xlsx_facts(path, sheet)
+        _restore_error_cells(values, facts.errors, start)
+    table = table_from_values(values, header_row=start[0] + 1, sheet=sheet,
+                              first_column=start[1] + 1, header_at=header_row)
+    return _with_facts(table, values, start, facts)
+
+
+def hidden_rows_log(table: SheetTable) -> pd.DataFrame:
+    """One record per sheet row of the table hidden or filtered out in the sheet (the
+    screening log's columns; rule 'hidden row'), for a caller that sets them aside."""
+    from plumbrule.screening import LOG_COLUMNS   # here: screening imports the settings
+    rows = np.intersect1d(np.asarray(table.hidden_rows, dtype=np.int64),
+                          table.frame.index.to_numpy(dtype=np.int64))
+    return pd.DataFrame({"row": rows, "column": pd.Series([""] * len(rows), dtype=object),
+                         "value": np.full(len(rows), np.nan), "rule": "hidden row",
+                         "limit": np.full(len(rows), np.nan),
+                         "reason": "hidden or filtered out in the sheet"})[LOG_COLUMNS]
+
+
+@dataclass(frozen=True)
+class _SheetFacts:
+    """What the sheet XML says beyond calamine's values: error cells (sheet row, column
+    number, error text), hidden sheet rows, and formula cells with no saved result
+    (sheet row, column number)."""
+
+    errors: tuple = ()
+    hidden: tuple = ()
+    unsaved: tuple = ()
+
+
+def _with_facts(table: SheetTable, values: list, start, facts: _SheetFacts) -> SheetTable:
+    """The table with its hidden body rows and the headers of unsaved-formula columns."""
+    if not facts.hidden and not facts.unsaved:
+        return table
+    body = table.frame.index.to_numpy(dtype=np.int64)
+    hidden = np.intersect1d(np.asarray(facts.hidden, dtype=np.int64), body)
+    cells = np.asarray(facts.unsaved, dtype=np.int64).reshape(-1, 2)
+    cols = np.unique(cells[np.isin(cells[:, 0], body), 1])
+    head = values[table.header_row - 1 - start[0]]
+    names = []
+    for c in cols:                          # distinct columns, not cells
+        j = int(c) - 1 - start[1]
+        name = _header_text(head[j]) if 0 <= j < len(head) else ""
+        if name in table.frame.columns:
+            names.append(name)
+    return replace(table, hidden_rows=tuple(int(r) for r in hidden),
+                   unsaved_formula_columns=tuple(names))
 
 
 def _restore_error_cells(values: list, errors: list, start) -> None:
@@ -115,7 +208,35 @@ def _restore_error_cells(values: list, errors: list, start) -> None:
 def _xlsx_error_cells(path, sheet: str) -> list[tuple[int, int, str]]:
     """(sheet row, column number, error text) of each error cell of ``sheet``, read from
     the workbook's XML; [] when there are none or the parts cannot be found."""
-    import re
+    return list(_xlsx_facts(path, sheet).errors)
+
+
+# One scan of the sheet XML finds what calamine does not hand over: a hidden row, an error
+# cell (t="e") with its text, a formula cell whose saved value is missing or empty. Only the
+# parts the XML can hold are searched for (a sheet saved by a spreadsheet program has no
+# formula without a value), so a plain sheet is not scanned at all.
+_CELL_REF = r'<c\b(?=[^>]*\br="([A-Z]{1,3})(\d+)")'
+_FACT_PARTS = {
+    "hidden": (r'<row\b(?=[^>]*\bhidden="(?:1|true)")[^>]*?\br="(\d+)"[^>]*>', 1),
+    "error": (_CELL_REF + r'(?=[^>]*\bt="e")[^>]*>(?:(?!</c>).)*?<v>([^<]*)</v>', 3),
+    "unsaved": (_CELL_REF + r'[^>]*>\s*<f\b[^>]*(?:/>|>[^<]*</f>)\s*(?:<v\s*/>|<v>\s*</v>)?'
+                r'\s*</c>', 2),
+}
+_FACT_MARKS = {"hidden": ('hidden="',), "error": ('t="e"',),
+               "unsaved": ("<v />", "<v/>", "<v></v>", "</f></c>", "/></c>")}
+
+
+def _column_numbers(letters: np.ndarray) -> np.ndarray:
+    """Sheet column letters → numbers (A = 1), worked out once per distinct column."""
+    codes, uniq = pd.factorize(letters)
+    nums = np.array([sum((ord(ch) - 64) * 26 ** k for k, ch in enumerate(reversed(u)))
+                     for u in uniq], dtype=np.int64)      # distinct columns: a handful
+    return nums[codes] if len(uniq) else np.zeros(0, dtype=np.int64)
+
+
+def _xlsx_facts(path, sheet: str) -> _SheetFacts:
+    """Error cells, hidden rows and unsaved formula cells of ``sheet`` from the workbook's
+    XML; empty when there are none or the parts cannot be found."""
     import zipfile
     from defusedxml import ElementTree
     try:
@@ -128,21 +249,33 @@ def _xlsx_error_cells(path, sheet: str) -> list[tuple[int, int, str]]:
             rels = ElementTree.fromstring(z.read("xl/_rels/workbook.xml.rels"))
             target = next((el.get("Target") for el in rels if el.get("Id") == rid), None)
             if target is None:
-                return []
+                return _SheetFacts()
             part = target.lstrip("/") if target.startswith("/") else "xl/" + target
             xml = z.read(part).decode("utf-8", errors="replace")
     except Exception:   # the values are still read; only the reason text is less precise
-        return []
-    if 't="e"' not in xml:
-        return []
-    out = []
-    for attrs, body in re.findall(r'<c\b([^>]*\bt="e"[^>]*)>(.*?)</c>', xml, flags=re.S):
-        ref = re.search(r'\br="([A-Z]+)(\d+)"', attrs)
-        val = re.search(r"<v>([^<]*)</v>", body)
-        if ref and val:
-            letters, row = ref.groups()
-            col = 0
-            for ch in letters:
-                col = col * 26 + ord(ch) - 64
-            out.append((int(row), col, val.group(1)))
-    return out
+        return _SheetFacts()
+    kinds = [k for k, marks in _FACT_MARKS.items() if any(m in xml for m in marks)]
+    if not kinds:
+        return _SheetFacts()
+    pattern = "|".join(_FACT_PARTS[k][0] for k in kinds)
+    hits = re.findall(pattern, xml, flags=re.S)         # one scan; a group left out is ''
+    if not hits:
+        return _SheetFacts()
+    g = np.array(hits, dtype=object).reshape(len(hits), -1)
+    found, at = {}, 0
+    for k in kinds:                                     # the three kinds, not the hits
+        width = _FACT_PARTS[k][1]
+        part = g[:, at:at + width]
+        found[k] = part[part[:, 0] != ""]
+        at += width
+    hidden = found["hidden"][:, 0].astype(np.int64).tolist() if "hidden" in found else []
+    errors, unsaved = [], []
+    if "error" in found and len(found["error"]):
+        e = found["error"]
+        errors = list(zip(e[:, 1].astype(np.int64).tolist(),
+                          _column_numbers(e[:, 0]).tolist(), e[:, 2].tolist(), strict=True))
+    if "unsaved" in found and len(found["unsaved"]):
+        f = found["unsaved"]
+        unsaved = list(zip(f[:, 1].astype(np.int64).tolist(),
+                           _column_numbers(f[:, 0]).tolist(), strict=True))
+    return _SheetFacts(tuple(errors), tuple(hidden), tuple(unsaved))

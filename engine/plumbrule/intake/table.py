@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 
 from plumbrule.errors import IntakeError
-from plumbrule.intake.cells import _blank_frame, is_blank
+from plumbrule.intake.cells import _blank_frame, _blank_mask, is_blank, parse_number_text
 
 
 @dataclass(frozen=True)
@@ -20,12 +20,16 @@ class SheetTable:
     """A block of cells with a header: ``frame`` holds the raw cell values
     (object dtype), columns are the trimmed headers, the index is sheet rows.
     ``first_column`` is the sheet column number (A = 1) of the block's first
-    column, so messages can give column letters."""
+    column, so messages can give column letters. ``hidden_rows`` are the sheet rows of the
+    body hidden or filtered out in the sheet (xlsx only); ``unsaved_formula_columns`` are the
+    headers of columns holding formulas the file has no saved result for (xlsx only)."""
 
     frame: pd.DataFrame
     sheet: str | None = None
     header_row: int = 1
     first_column: int = 1
+    hidden_rows: tuple[int, ...] = ()
+    unsaved_formula_columns: tuple[str, ...] = ()
 
     @property
     def columns(self) -> list[str]:
@@ -33,9 +37,38 @@ class SheetTable:
 
 
 def table_from_values(values: Sequence[Sequence[Any]], header_row: int = 1,
-                      sheet: str | None = None, first_column: int = 1) -> SheetTable:
-    """A 2-D block (rows of cells, header first) → :class:`SheetTable`.
-    Row i of the block (0 = header) is sheet row ``header_row + i``."""
+                      sheet: str | None = None, first_column: int = 1,
+                      header_at: int | None = None) -> SheetTable:
+    """A 2-D block (rows of cells) → :class:`SheetTable`.
+
+    ``header_row`` is the sheet row of the block's first row: block row i is sheet row
+    ``header_row + i``, and the table's index keeps those sheet rows. ``header_at`` is the
+    sheet row of the column headers when the user gives it (the ``header_row`` setting);
+    by default the header is found (:func:`find_header`): title rows, notes and blank rows
+    above it are left out. ``SheetTable.header_row`` is the sheet row of the header used."""
+    block = padded(values)
+    width = block.shape[1]
+    if header_at is None:
+        h = find_header(block)
+    else:
+        h = int(header_at) - header_row
+        last = header_row + len(block) - 1
+        if not 0 <= h < len(block):
+            raise IntakeError(f"header_row is {header_at}, but the sheet's cells run from row "
+                              f"{header_row} to row {last}. Set header_row (--header-row) to "
+                              "the sheet row of the headers.", setting="header_row",
+                              row=int(header_at))
+        if all(is_blank(v) for v in block[h]):
+            raise IntakeError(f"header_row is {header_at}, but sheet row {header_at} is empty. "
+                              "Set header_row (--header-row) to the sheet row of the headers.",
+                              setting="header_row", row=int(header_at))
+    body = pd.DataFrame(block[h + 1:], columns=range(width), dtype=object)
+    return _with_header(list(block[h]), body, header_row + h, sheet, first_column,
+                        suggest_setting=True)
+
+
+def padded(values: Sequence[Sequence[Any]]) -> np.ndarray:
+    """Rows of cells (of any lengths) → a 2-D object array, short rows filled with None."""
     if isinstance(values, np.ndarray):
         values = values.tolist()
     rows = [list(r) if isinstance(r, (list, tuple)) else [r] for r in (values or [])]
@@ -46,8 +79,46 @@ def table_from_values(values: Sequence[Sequence[Any]], header_row: int = 1,
     block[:] = None
     for i, r in enumerate(rows):       # rows of the block, not cells: one slice each
         block[i, :len(r)] = r
-    body = pd.DataFrame(block[1:], columns=range(width), dtype=object)
-    return _with_header(list(block[0]), body, header_row, sheet, first_column)
+    return block
+
+
+_HEADER_SCAN = 50    # block rows searched for the header (title rows, notes, blank rows)
+_SPAN_ROWS = 3       # non-blank rows below a header that must fit within its columns
+
+
+def find_header(block: np.ndarray) -> int:
+    """Block row (0-based) of the column headers: the first non-blank row whose filled cells
+    are all words (text that is not a number or a date), at least two of them unless the
+    block is one column wide, with the next few non-blank rows filling no column it leaves
+    blank, and no row above it holding two or more numbers or dates (that is a sale, not a
+    title). Otherwise the first non-blank row (whose problems the header checks then name)."""
+    top = block[:_HEADER_SCAN]
+    flat = pd.Series(top.ravel(), dtype=object)
+    filled = ~_blank_mask(flat).to_numpy().reshape(top.shape)
+    nonblank = np.flatnonzero(filled.any(axis=1))
+    if not len(nonblank):
+        return 0
+    words = flat.map(type).eq(str).to_numpy() & filled.ravel()
+    if words.any():   # '350000', '$1,250' and '3/14/2025' are values, not names
+        txt = flat[words].astype(str).str.strip()
+        valued = (np.isfinite(parse_number_text(txt).to_numpy())
+                  | txt.str.match(r"\d{1,4}[-/.]\d{1,2}[-/.]\d{1,4}").to_numpy(dtype=bool))
+        words[np.flatnonzero(words)[valued]] = False
+    words = words.reshape(top.shape)
+    f, w = filled[nonblank], words[nonblank]
+    pad = np.vstack([f, np.zeros((_SPAN_ROWS, f.shape[1]), dtype=bool)])
+    below = np.zeros_like(f)
+    for k in range(1, _SPAN_ROWS + 1):     # a few shifted copies, not a loop over rows
+        below |= pad[k:k + len(f)]
+    one_wide = filled.any(axis=0).sum() <= 1
+    values = (f & ~w).sum(axis=1)
+    ok = (values == 0) & ((f.sum(axis=1) >= 2) | one_wide) & ~(below & ~f).any(axis=1)
+    k = int(np.argmax(ok))
+    # Rows left out above a header are titles and notes: a row with two or more numbers or
+    # dates there is a sale, and a header below it is not to be trusted.
+    if not ok.any() or (values[:k] >= 2).any():
+        return int(nonblank[0])
+    return int(nonblank[k])
 
 
 def table_from_frame(frame: pd.DataFrame, header_row: int = 1,
@@ -88,7 +159,8 @@ def _header_text(h: Any) -> str:
 
 
 def _with_header(headers: list[Any], body: pd.DataFrame, header_row: int,
-                 sheet: str | None, first_column: int = 1) -> SheetTable:
+                 sheet: str | None, first_column: int = 1,
+                 suggest_setting: bool = False) -> SheetTable:
     body.index = pd.RangeIndex(header_row + 1, header_row + 1 + len(body), name="row")
     names = [_header_text(h) for h in headers]
     blank_cells = _blank_frame(body) if len(body) else None
@@ -104,7 +176,9 @@ def _with_header(headers: list[Any], body: pd.DataFrame, header_row: int,
         raise IntakeError(f"Header row (sheet row {header_row}): {which} "
                           f"{'has' if len(blank) == 1 else 'have'} no name but "
                           f"{'holds' if len(blank) == 1 else 'hold'} values. Give every column "
-                          "a header.", row=header_row)
+                          "a header" + (", or set header_row (--header-row) to the sheet row of "
+                                        "the headers." if suggest_setting else "."),
+                          row=header_row)
     seen: dict[str, list[str]] = {}
     for pos, nm in enumerate(names):
         seen.setdefault(nm, []).append(letter[pos])

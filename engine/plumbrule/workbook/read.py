@@ -1,8 +1,13 @@
 """Read the input sheets of a plumbrule workbook with python-calamine (fast).
 
 Sales, Subjects and Comps are read from the Excel table of that name when there
-is one (wherever it sits), else from the sheet of that name (first non-empty row
-is the header). Settings is read as two columns: setting name, value.
+is one (wherever it sits), else from the sheet of that name (the header found below
+any title rows). Settings is read as two columns: setting name, value.
+
+An Excel table's totals row is never a sale: calamine reads a table without it (the
+table's ``totalsRowCount``), so it never reaches the engine. For Sales the sheet's
+hidden rows and the columns of formulas with no saved result are carried on the table
+(:class:`plumbrule.intake.SheetTable`), as :func:`plumbrule.intake.read_sheet` does.
 """
 
 from __future__ import annotations
@@ -15,6 +20,7 @@ from typing import Any
 from plumbrule.errors import WorkbookError
 from plumbrule.settings import settings_from_rows
 from plumbrule.intake import SheetTable, table_from_values
+from plumbrule.intake.readers import _with_facts, _xlsx_facts
 
 
 @dataclass(frozen=True)
@@ -43,8 +49,16 @@ def read_inputs(path: str | Path) -> BookInputs:
         raise WorkbookError(f"'{path.name}' cannot be read as a workbook ({exc}). Open and save "
                             "it in your spreadsheet as .xlsx first.") from None
     try:
-        sales_block, header_row, sheet = _block(book, "Sales", required=True)
-        sales = table_from_values(sales_block, header_row=header_row, sheet=sheet)
+        sales_block, header_row, sheet, first_col, is_table = _block_at(book, "Sales",
+                                                                        required=True)
+        sales = table_from_values(sales_block, header_row=header_row, sheet=sheet,
+                                  first_column=first_col,
+                                  header_at=header_row if is_table else None)
+        # Title rows above the header of a Sales sheet are not copied to the results.
+        sales_block = sales_block[sales.header_row - header_row:]
+        if path.suffix.lower() in (".xlsx", ".xlsm"):
+            sales = _with_facts(sales, sales_block, (sales.header_row - 1, first_col - 1),
+                                _xlsx_facts(path, sheet))
         if len(sales.frame) == 0:
             raise WorkbookError(f"The Sales table (sheet '{sheet}') has no sales below its header "
                                 "row. Paste your sales into it and run again.", sheet=sheet)
@@ -81,11 +95,20 @@ def read_inputs(path: str | Path) -> BookInputs:
 
 def _block(book, name: str, required: bool = False) -> tuple[list, int, str | None]:
     """(values with header first, sheet row of the header, sheet name) for table/sheet ``name``."""
-    tables = {t.lower(): t for t in (book.table_names() or [])} if _has_tables(book) else {}
+    values, row, sheet, _, _ = _block_at(book, name, required)
+    return values, row, sheet
+
+
+def _block_at(book, name: str, required: bool = False
+              ) -> tuple[list, int, str | None, int, bool]:
+    """:func:`_block` plus the sheet column number of the block's first column and whether
+    it is an Excel table (whose first row is its header, and which calamine reads without
+    its totals row)."""
+    tables = {t.lower(): t for t in _table_names(book)}
     if name.lower() in tables:
         t = book.get_table_by_name(tables[name.lower()])
         values = [list(t.columns)] + t.to_python()
-        return values, int(t.start[0]), t.sheet
+        return values, int(t.start[0]), t.sheet, int(t.start[1]) + 1, True
     sheets = {s.lower(): s for s in book.sheet_names}
     if name.lower() in sheets:
         sheet = sheets[name.lower()]
@@ -99,21 +122,29 @@ def _block(book, name: str, required: bool = False) -> tuple[list, int, str | No
                     "row, or use the template (plumbrule new BOOK.xlsx).",
                     sheet=sheet,
                 )
-            return [], 1, sheet
-        return values, start + 1, sheet
+            return [], 1, sheet, 1, False
+        first_col = ws.start[1] + 1 if ws.start else 1
+        return values, start + 1, sheet, first_col, False
     if required:
         raise WorkbookError(f"The workbook has no table or sheet named '{name}'. Put the sales in "
                             "a sheet named Sales (or an Excel table named Sales); "
                             "plumbrule new BOOK.xlsx writes a template.", sheet=name)
-    return [], 1, None
+    return [], 1, None, 1, False
+
+
+def _table_names(book) -> list[str]:
+    """The workbook's Excel table names; [] when it has none or cannot have any (.xls, .ods).
+    python-calamine 0.9 gives them as a property, earlier versions as a method."""
+    try:
+        names = book.table_names
+        names = names() if callable(names) else names
+    except Exception:   # TablesNotSupported / TablesNotLoaded for non-xlsx files
+        return []
+    return list(names or [])
 
 
 def _has_tables(book) -> bool:
-    try:
-        book.table_names()
-    except Exception:   # TablesNotSupported for non-xlsx files
-        return False
-    return True
+    return bool(_table_names(book))
 
 
 def _comp_rows(block: list, header_row: int, sheet: str | None) -> tuple[int, ...]:

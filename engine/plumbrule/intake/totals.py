@@ -1,0 +1,202 @@
+"""Totals rows: rows of a sales sheet that summarise the sales above them, not sales.
+
+A row is a totals row when
+
+- its first filled cell is text saying Total, Totals, Subtotal, Grand total, Sum, Average,
+  Mean or Count (any case, alone or starting the cell: 'Total 2025', 'Average:'). Only the
+  row's first filled cell counts: a Condition column holding 'Average' or a remark
+  'Sum paid in cash' sits to the right of the sale's ID or address; or
+- its numbers in the numeric columns equal the sums or the means of the rows above it: at
+  least two filled numeric columns, not all zero, every one of them within 1e-9 (relative)
+  of the sum or the mean of the same rows, at least two rows. "The rows above" are all
+  sales rows above it, or those since the previous totals row (a subtotal). A row equal to
+  the one row above is a duplicate, not a total, and is left to the duplicates rule.
+
+Found with cumulative sums over the whole table; passes repeat only while a pass finds
+a new totals row (a grand total below subtotals equals the sum of the sales rows once the
+subtotals are known).
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from typing import Iterable
+
+import numpy as np
+import pandas as pd
+
+from plumbrule.intake.cells import (
+    NUMBER,
+    TEXT,
+    _blank_frame,
+    _numbers_of,
+    cell_kinds,
+    on_uniques,
+    parse_number_text,
+)
+from plumbrule.intake.table import SheetTable
+
+TOTALS = "totals row"
+_RTOL = 1e-9
+_PASSES = 6          # each pass can only add rows; real sheets settle in two
+_LABEL_RE = r"(?i)^(?:grand\s*total|sub-?\s*totals?|totals?|sum|average|mean|count)\b"
+
+
+def totals_rows(table: SheetTable, numeric_columns: Iterable[str]) -> pd.DataFrame:
+    """One record per totals row of ``table`` (the screening log's columns: row, column,
+    value, rule 'totals row', limit, reason), in sheet-row order. For a row found by its
+    label, ``column`` is the label's column and value/limit are NaN; for a row found by its
+    numbers, ``column`` is the first matching numeric column, ``value`` its number and
+    ``limit`` the sum or mean of the rows above it that it equals."""
+    from plumbrule.screening import LOG_COLUMNS   # here: screening imports the settings
+    frame = table.frame
+    numeric = [c for c in dict.fromkeys(numeric_columns) if c in frame.columns]
+    labelled, label_col, label_text = _labelled(frame)
+    found = labelled.copy()
+    col_of = np.full(len(frame), -1)
+    val = np.full(len(frame), np.nan)
+    lim = np.full(len(frame), np.nan)
+    how = np.full(len(frame), "", dtype=object)
+    since = np.zeros(len(frame), dtype=np.int64)
+    if len(numeric) >= 2 and len(frame) >= 3:
+        x = np.column_stack([_floats(frame[c]) for c in numeric])
+        for _ in range(_PASSES):
+            hit, first, limit, kind, begin = _summing(x, found)
+            new = hit & ~found
+            if not new.any():
+                break
+            found |= new
+            col_of[new] = first[new]
+            val[new] = x[new, first[new]]
+            lim[new] = limit[new]
+            how[new] = kind[new]
+            since[new] = begin[new]
+    rows = np.flatnonzero(found)
+    by_label = labelled[rows]
+    names = np.array(numeric + [""], dtype=object)
+    column = np.where(by_label, label_col[rows], names[col_of[rows]])
+    listed = "', '".join(numeric)      # the column names, once
+    sheet_rows = frame.index.to_numpy(dtype=np.int64)
+    above = (pd.Series(how[rows], dtype=object) + " of the sales in rows "
+             + pd.Series(sheet_rows[since[rows]]).astype(str) + "-"
+             + pd.Series(sheet_rows[np.maximum(rows - 1, 0)]).astype(str))
+    reason = np.where(
+        by_label,
+        pd.Series(label_text[rows], dtype=object).radd("'").add(
+            "' marks a totals row, not a sale").to_numpy(dtype=object),
+        above.radd(f"its '{listed}' equal the ").add(
+            ": a totals row, not a sale").to_numpy(dtype=object))
+    out = pd.DataFrame({"row": frame.index.to_numpy(dtype=np.int64)[rows],
+                        "column": pd.Series(column, dtype=object).to_numpy(),
+                        "value": np.where(by_label, np.nan, val[rows]), "rule": TOTALS,
+                        "limit": np.where(by_label, np.nan, lim[rows]),
+                        "reason": pd.Series(reason, dtype=object).to_numpy()})
+    return out[LOG_COLUMNS]
+
+
+def table_without(table: SheetTable, rows: Iterable[int]) -> SheetTable:
+    """``table`` without the given sheet rows (rows not in it are ignored)."""
+    drop = table.frame.index.isin(np.asarray(list(rows), dtype=np.int64))
+    kept = table.frame[~drop]
+    left = set(kept.index.tolist())
+    hidden = tuple(r for r in table.hidden_rows if r in left)
+    return replace(table, frame=kept, hidden_rows=hidden)
+
+
+def _labelled(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(row is labelled a totals row, the label's column, the label's text)."""
+    n = len(frame)
+    hit = np.zeros(n, dtype=bool)
+    col = np.full(n, "", dtype=object)
+    text = np.full(n, "", dtype=object)
+    if not n or not frame.shape[1]:
+        return hit, col, text
+    blank = _blank_frame(frame).to_numpy()
+    first = np.where(blank.all(axis=1), -1, (~blank).argmax(axis=1))   # first filled cell
+    for j, name in enumerate(frame.columns):   # columns, not rows
+        at = first == j
+        if not at.any():
+            continue
+        cells = frame.iloc[:, j][at]
+        words = cell_kinds(cells).eq(TEXT).to_numpy()
+        if not words.any():
+            continue
+        said = on_uniques(cells[words], lambda u: u.astype(str).str.strip()
+                          .str.contains(_LABEL_RE, regex=True)).to_numpy(dtype=bool)
+        idx = np.flatnonzero(at)[np.flatnonzero(words)[said]]
+        hit[idx] = True
+        col[idx] = name
+        text[idx] = cells[words][said].astype(str).str.split().str.join(" ").to_numpy()
+    return hit, col, text
+
+
+def _floats(col: pd.Series) -> np.ndarray:
+    """A column's numbers (number cells and numbers typed as text); NaN for anything else.
+    Never raises: a cell that is not a number is clean()'s to report."""
+    if isinstance(col.dtype, np.dtype) and col.dtype.kind in "fiu":
+        return col.to_numpy(dtype=float)
+    kinds = cell_kinds(col)
+    out = np.full(len(col), np.nan)
+    num = kinds.eq(NUMBER).to_numpy()
+    if num.any():
+        out[num] = _numbers_of(col[num]).to_numpy()
+    text = kinds.eq(TEXT).to_numpy()
+    if text.any():
+        out[text] = parse_number_text(col[text]).to_numpy()
+    out[~np.isfinite(out)] = np.nan
+    return out
+
+
+def _summing(x: np.ndarray, known: np.ndarray):
+    """Rows whose filled numbers all equal the sum or the mean of the sales rows above them
+    (all of them, or those since the last known totals row). Returns (hit, first filled
+    column, its sum or mean, 'sum' or 'mean', position of the first row summed) per row."""
+    n, k = x.shape
+    filled = np.isfinite(x)
+    sale = ~known
+    v = np.where(filled & sale[:, None], x, 0.0)
+    c = np.where(filled & sale[:, None], 1.0, 0.0)
+    zero = np.zeros((1, k))
+    cs, cc = np.vstack([zero, np.cumsum(v, axis=0)]), np.vstack([zero, np.cumsum(c, axis=0)])
+    # Whether the rows above all hold the row's own values: from cumulative sums of squares.
+    c2 = np.vstack([zero, np.cumsum(v * v, axis=0)])
+    # Sums of the rows above row i: all (cs[i]) or since the last known totals row.
+    pos = np.arange(n)
+    last = np.maximum.accumulate(np.where(known, pos, -1))
+    prev = np.concatenate([[-1], last[:-1]])          # last totals row strictly above i
+    start = prev + 1
+    windows = ((cs[pos], cc[pos], c2[pos], np.zeros(n, dtype=np.int64)),
+               (cs[pos] - cs[start], cc[pos] - cc[start], c2[pos] - c2[start], start))
+    n_filled = filled.sum(axis=1)
+    some = (np.abs(np.where(filled, x, 0.0)) > 0).any(axis=1)
+    hit = np.zeros(n, dtype=bool)
+    first = np.zeros(n, dtype=np.int64)
+    limit = np.full(n, np.nan)
+    kind = np.full(n, "", dtype=object)
+    since = np.zeros(n, dtype=np.int64)
+    for total, count, squares, begin in windows:    # two windows, not a loop over rows
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = total / count
+        # Sum over the rows above of (value - x)^2: zero when they all equal the row, which
+        # makes it their mean without being a total (a run of identical sales).
+        spread = squares - 2 * np.where(filled, x, 0.0) * total + count * np.where(
+            filled, x, 0.0) ** 2
+        varied = (filled & (spread > (_RTOL * np.maximum(np.abs(x), 1.0)) ** 2 * count)
+                  ).any(axis=1)
+        enough = (count >= 2) | ~filled
+        tol = _RTOL * np.maximum(np.abs(x), np.abs(total))
+        is_sum = ~filled | (np.abs(x - total) <= tol)
+        tol_m = _RTOL * np.maximum(np.abs(x), np.abs(mean))
+        is_mean = ~filled | (np.abs(x - mean) <= tol_m)
+        for match, word, ref, also in ((is_sum, "sum", total, True),
+                                       (is_mean, "mean", mean, varied)):
+            ok = (match.all(axis=1) & enough.all(axis=1) & (n_filled >= 2) & some & ~hit
+                  & also)
+            if ok.any():
+                f = filled.argmax(axis=1)
+                hit |= ok
+                first[ok] = f[ok]
+                limit[ok] = ref[ok, f[ok]]
+                kind[ok] = word
+                since[ok] = begin[ok]
+    return hit, first, limit, kind, since
