@@ -164,7 +164,7 @@ def _assembled(p: pd.DataFrame, order: str | None, year_first: np.ndarray) -> pd
     """Timestamps from the extracted parts; NaT where they make no calendar date."""
     num = {k: p[k].astype(int).to_numpy(dtype=float) for k in ("a", "b", "c")}
     size = {k: p[k].str.len().to_numpy(dtype=int) for k in ("a", "b", "c")}
-    ymd = {"YMD": ("a", "b", "c"), "DMY": ("c", "b", "a")}.get(order, ("c", "a", "b"))
+    ymd = {"YMD": ("a", "b", "c"), "DMY": ("c", "b", "a")}.get(order or "MDY", ("c", "a", "b"))
     # A four-digit first part is the year whatever the order of the others.
     y, m, d = (np.where(year_first, num[k0], num[k]) for k0, k in zip("abc", ymd, strict=True))
     ylen, dlen = (np.where(year_first, size[k0], size[k]) for k0, k in (("a", ymd[0]),

@@ -196,7 +196,7 @@ def _with_facts(table: SheetTable, values: list, start, facts: _SheetFacts) -> S
                    unsaved_formula_columns=tuple(names))
 
 
-def _restore_error_cells(values: list, errors: list, start) -> None:
+def _restore_error_cells(values: list, errors, start) -> None:
     """Put error values back where calamine handed over blanks, so the dropped-row log
     says '#N/A' rather than 'blank'."""
     for row, col, text in errors:

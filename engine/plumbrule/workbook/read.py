@@ -58,7 +58,7 @@ def read_inputs(path: str | Path) -> BookInputs:
         sales_block = sales_block[sales.header_row - header_row:]
         if path.suffix.lower() in (".xlsx", ".xlsm"):
             sales = _with_facts(sales, sales_block, (sales.header_row - 1, first_col - 1),
-                                _xlsx_facts(path, sheet))
+                                _xlsx_facts(path, str(sheet)))
         if len(sales.frame) == 0:
             raise WorkbookError(f"The Sales table (sheet '{sheet}') has no sales below its header "
                                 "row. Paste your sales into it and run again.", sheet=sheet)
