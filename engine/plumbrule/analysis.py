@@ -99,15 +99,16 @@ class Analysis:
         return self.model.fit
 
 
-def as_table(source: Any) -> intake.SheetTable:
-    """Accept a SheetTable, a DataFrame, a file path, or a 2-D block of values."""
+def as_table(source: Any, header_row: int | None = None) -> intake.SheetTable:
+    """Accept a SheetTable, a DataFrame, a file path, or a 2-D block of values (its header
+    found below any title rows, or on sheet row ``header_row``)."""
     if isinstance(source, intake.SheetTable):
         return source
     if isinstance(source, pd.DataFrame):
         return intake.table_from_frame(source)
     if isinstance(source, (str, bytes)) or hasattr(source, "__fspath__"):
-        return intake.read_table(source)
-    return intake.table_from_values(source)
+        return intake.read_table(source, header_row=header_row)
+    return intake.table_from_values(source, header_at=header_row)
 
 
 def coerce_settings(settings: Settings | Mapping[str, Any] | None = None, **kw) -> Settings:
@@ -134,7 +135,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     validation (holdout, k-fold) → ratio study → tables.
     """
     settings = coerce_settings(settings, **kw)
-    table = as_table(source)
+    table = as_table(source, settings.header_row)
     sales = prepare_sales(table, settings)
     spec, clean = sales.spec, sales.clean
     columns = spec.screened
@@ -151,6 +152,8 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     checks = run_checks(model) + screen.screening_checks(fit_log, looked,
                                                          settings.max_excluded_share)
     checks += level_checks(model, sales.level_merges, settings.min_level_sales)
+    if sales.table.hidden_rows and not settings.skip_hidden_rows:
+        checks.append(_hidden_check(len(sales.table.hidden_rows)))
     if spec.screens_price and (settings.trim_percentiles is not None
                                or settings.iqr_fence is not None):
         checks.append(screen.price_screen_check(spec.response, fit_log))
@@ -280,6 +283,13 @@ def _move_unseen(train: pd.DataFrame, hold: pd.DataFrame, spec: ModelSpec):
         train = pd.concat([train, hold.loc[moved["row"]]]).sort_index()
         hold = hold.drop(index=moved["row"])
     return train, hold, moved
+
+
+def _hidden_check(n: int) -> Check:
+    return Check("Hidden rows used as sales", float(n), float("nan"),
+                 "no hidden or filtered-out rows", WATCH,
+                 f"{n} rows of the sales sheet are hidden or filtered out, and were used as "
+                 "sales like any other. Set skip_hidden_rows to TRUE to set them aside.")
 
 
 def _moved_check(moved: pd.DataFrame) -> Check:

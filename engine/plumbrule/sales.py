@@ -19,6 +19,8 @@ from plumbrule.intake.rules import DUPLICATE, SALE_FILTER, duplicate_rows, sale_
 from plumbrule.model.spec import ModelSpec, build_spec
 from plumbrule.settings import Settings
 
+TOTALS_RULE, HIDDEN_RULE = "totals row", "hidden row"
+
 
 @dataclass(frozen=True)
 class Sales:
@@ -45,14 +47,27 @@ class Sales:
 
 
 def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
-    """Match the spec to the headers, type the used columns, apply the intake rules."""
+    """Match the spec to the headers, set aside rows that are not sales (totals rows; hidden
+    rows with skip_hidden_rows), type the used columns, apply the intake rules."""
     spec = build_spec(settings, table.columns)
     extra_numeric = [c for c in spec.screened if c not in spec.used_columns]
+    numeric = list(dict.fromkeys([*spec.numeric_columns, *extra_numeric]))
+    logs, looked = [], []
+    totals = intake.totals_rows(table, numeric)        # before typing: 'Total' is no price
+    if len(totals):
+        logs.append(totals)
+        looked.append((TOTALS_RULE, len(table.frame)))
+        table = intake.table_without(table, totals["row"])
+    if settings.skip_hidden_rows and table.hidden_rows:
+        hidden = intake.hidden_rows_log(table)
+        logs.append(hidden)
+        looked.append((HIDDEN_RULE, len(table.frame)))
+        table = intake.table_without(table, hidden["row"])
     try:
-        clean = intake.clean(table, numeric=list(spec.numeric_columns) + extra_numeric,
+        clean = intake.clean(table, numeric=numeric,
                              categorical=list(spec.categorical) + list(spec.label_columns),
                              date=spec.date_column, hint_categorical=spec.numeric_predictors,
-                             bad_cells=settings.bad_cells)
+                             bad_cells=settings.bad_cells, date_format=settings.date_format)
     except CellErrors as err:
         if spec.id_column:
             raw_ids, _ = intake.to_labels(table.frame[spec.id_column], spec.id_column)
@@ -65,7 +80,6 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
     raw_ids = None
     if spec.id_column:
         raw_ids, _ = intake.to_labels(table.frame[spec.id_column], spec.id_column)
-    logs, looked = [], []
     data, dup_log = duplicate_rows(data, raw_ids, settings.duplicates)
     if len(dup_log):      # a rule that found nothing adds no line to the checks
         looked.append((DUPLICATE, len(clean.data)))

@@ -221,7 +221,8 @@ def _in_own_units(limits: pd.DataFrame, logged: Sequence[str]) -> pd.DataFrame:
     for c in ("low", "high", "q1", "q3"):
         if c in out:
             v = out[c].to_numpy(float)
-            out[c] = np.where(on_log, np.exp(v), v)
+            with np.errstate(over="ignore"):     # a limit beyond the float range is +inf
+                out[c] = np.where(on_log, np.exp(v), v)
     return out
 
 

@@ -63,4 +63,6 @@ def read_inputs(args: argparse.Namespace) -> Inputs:
         comps = () if ("comps" in flags or "comp_ids" in flags) else book.comps
         return Inputs(book.sales, parse_settings(raw), book.subjects, tuple(comps))
     from plumbrule.intake import read_table
-    return Inputs(read_table(path, sheet=getattr(args, "sheet", None)), parse_settings(flags))
+    settings = parse_settings(flags)
+    return Inputs(read_table(path, sheet=getattr(args, "sheet", None),
+                             header_row=settings.header_row), settings)

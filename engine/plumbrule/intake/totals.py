@@ -61,7 +61,8 @@ def totals_rows(table: SheetTable, numeric_columns: Iterable[str]) -> pd.DataFra
     if len(numeric) >= 2 and len(frame) >= 3:
         x = np.column_stack([_floats(frame[c]) for c in numeric])
         for _ in range(_PASSES):
-            hit, first, limit, kind, begin = _summing(x, found)
+            with np.errstate(over="ignore", invalid="ignore"):   # huge values: no total
+                hit, first, limit, kind, begin = _summing(x, found)
             new = hit & ~found
             if not new.any():
                 break

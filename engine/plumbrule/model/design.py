@@ -142,7 +142,7 @@ class Encoding:
             if c in spec.categorical:
                 values, reasons = intake.to_labels(cell, source)
             elif c == spec.date_column:
-                values, reasons = intake.to_dates(cell, source)
+                values, reasons = intake.to_dates(cell, source, spec.date_format)
             else:
                 values, reasons = intake.to_numbers(cell, source)
         except IntakeError as err:

@@ -27,6 +27,7 @@ class ModelSpec:
     id_column: str | None = None         # each sale's ID (matched header)
     level_map: tuple[tuple[str, str, str], ...] = ()       # (column, spelling, level)
     filters: tuple[tuple[str, tuple[str, ...]], ...] = ()  # keep_only: (column, values)
+    date_format: str = "auto"            # order of text dates (intake.dates)
 
     @property
     def logged_columns(self) -> tuple[str, ...]:
@@ -158,7 +159,8 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
     filters = tuple((match_column(col, columns, "keep_only"), values)
                     for col, values in settings.keep_only)
     return replace(spec, screened=screened, ratio_by=by, id_column=ident,
-                   level_map=tuple(level_map), filters=filters)
+                   level_map=tuple(level_map), filters=filters,
+                   date_format=settings.date_format)
 
 
 def _subset(names, columns, preds, setting) -> list[str]:
