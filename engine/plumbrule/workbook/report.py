@@ -377,6 +377,13 @@ def _screening(ws, ctx, r) -> int:
     if log is not None and summary is None:
         sentences.append(f"{len(log):,} sales were set aside; each is listed on the Screening "
                          "sheet with its rule.")
+    merges = ctx.table("level_merges")
+    if merges is not None:
+        shown = "; ".join(f"'{m['spelling']}' as '{m['merged_into']}' ({m['column']})"
+                          for _, m in merges.head(4).iterrows())
+        more = f" and {len(merges) - 4} more" if len(merges) > 4 else ""
+        sentences.append(f"Category spellings that differ only in case or spacing were read as "
+                         f"one level: {shown}{more} (listed on the Screening sheet).")
     _wrapped(ws, r, 1, " ".join(sentences) or "No sale was set aside.", span=LAST_COL)
     r += 1
     if log is not None:

@@ -38,6 +38,7 @@ _WORDS = {
     "rmse_model": "RMSE (model scale)", "r_squared_model": "R² (model scale)", "aic": "AIC",
     "bic": "BIC", "se_mean": "std error of the mean", "se_single": "std error of one sale",
     "n": "sales", "comp_row": "comparable (sheet row)", "row": "sheet row", "id": "ID",
+    "comp_id": "comparable (ID)", "merged_into": "merged into",
 }
 _FIT_WORDS = {
     "n_used": "Sales used in the fit", "n_dropped": "Rows dropped (missing values)",
@@ -220,8 +221,12 @@ def write_screening(ws, analysis) -> None:
     _, r = _table(ws, r, "Summary", t.screen_summary, empty="No screening rule is set "
                   "(see trim_percentiles, iqr_fence, influence_screen, exclude_rows in Settings).")
     _, r = _table(ws, r, "Rows set aside", t.screen_log, empty="No rows were set aside.")
-    _table(ws, r, "Rows dropped for missing values", t.dropped_rows,
-           empty="No rows had missing values in the columns used.")
+    _, r = _table(ws, r, "Rows dropped for missing values", t.dropped_rows,
+                  empty="No rows had missing values in the columns used.")
+    _table(ws, r, "Category spellings merged", t.level_merges,
+           empty="Every category level has one spelling.",
+           explain="Spellings that differ only in case or spacing are one level, under the most "
+                   "frequent spelling; level_map in Settings maps others.")
     ws.freeze_panes = None
 
 
