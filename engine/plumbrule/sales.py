@@ -35,6 +35,7 @@ class Sales:
     clean: intake.CleanData
     data: pd.DataFrame
     ids: pd.Series | None
+    shown_ids: pd.Series | None          # every row's ID cell, for the logs
     log: pd.DataFrame
     looked_at: tuple[tuple[str, int], ...]
     level_merges: pd.DataFrame
@@ -52,6 +53,9 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
     spec = build_spec(settings, table.columns)
     extra_numeric = [c for c in spec.screened if c not in spec.used_columns]
     numeric = list(dict.fromkeys([*spec.numeric_columns, *extra_numeric]))
+    # each row's ID cell as text, totals rows included: the logs show it beside the row
+    shown_ids = (intake.to_labels(table.frame[spec.id_column], spec.id_column)[0]
+                 if spec.id_column else None)
     logs, looked = [], []
     totals = intake.totals_rows(table, numeric)        # before typing: 'Total' is no price
     if len(totals):
@@ -69,17 +73,14 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
                              date=spec.date_column, hint_categorical=spec.numeric_predictors,
                              bad_cells=settings.bad_cells, date_format=settings.date_format)
     except CellErrors as err:
-        if spec.id_column:
-            raw_ids, _ = intake.to_labels(table.frame[spec.id_column], spec.id_column)
-            raise err.with_ids(raw_ids) from None
+        if shown_ids is not None:
+            raise err.with_ids(shown_ids) from None
         raise
     # one spelling per level first, so 'Good' and 'good ' rows are the same sale below
     merged, merges = merge_levels(clean.data, spec.categorical, spec.level_map)
     clean = intake.CleanData(merged, clean.dropped)
     data = clean.data
-    raw_ids = None
-    if spec.id_column:
-        raw_ids, _ = intake.to_labels(table.frame[spec.id_column], spec.id_column)
+    raw_ids = None if shown_ids is None else shown_ids.reindex(table.frame.index)
     data, dup_log = duplicate_rows(data, raw_ids, settings.duplicates)
     if len(dup_log):      # a rule that found nothing adds no line to the checks
         looked.append((DUPLICATE, len(clean.data)))
@@ -102,7 +103,7 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
         exclude += rows_of_ids(ids, settings.exclude_ids, "exclude_ids")
     log = pd.concat([lg for lg in logs if len(lg)], ignore_index=True) if any(
         len(lg) for lg in logs) else logs[0]
-    return Sales(spec=spec, clean=clean, data=data, ids=ids, log=log,
+    return Sales(spec=spec, clean=clean, data=data, ids=ids, shown_ids=shown_ids, log=log,
                  looked_at=tuple(looked), level_merges=merges, exclude_rows=exclude,
                  table=table)
 
