@@ -121,8 +121,10 @@ def check_writable(path: Path) -> None:
 
 def _write_bit(st: os.stat_result) -> int:
     """The write permission bit that applies to this process (owner, group or others)."""
-    if not hasattr(os, "geteuid"):
-        return stat.S_IWUSR | stat.S_IWGRP | stat.S_IWOTH      # Windows: the read-only flag
+    if not hasattr(os, "geteuid") or os.geteuid() == 0:
+        # Windows (the read-only flag) and root (writes anything): read-only means no
+        # write bit for anyone
+        return stat.S_IWUSR | stat.S_IWGRP | stat.S_IWOTH
     if st.st_uid == os.geteuid():
         return stat.S_IWUSR
     if st.st_gid == os.getegid() or st.st_gid in os.getgroups():
