@@ -12,8 +12,10 @@ left untouched and the results go to BOOK.results.xlsx (conservative by design).
   encrypted or legacy file), every XML part is free of DTDs and entity declarations
   (parsed with defusedxml), and it lists the parts openpyxl cannot carry through a
   load and save (pictures, shapes, charts not ours, sparklines and other extensions,
-  slicers, pivot tables, form controls, …). Parts that hang only off plumbrule's own
-  result sheets do not count: those sheets are replaced anyway.
+  slicers, pivot tables, form controls, …), and a protected workbook structure. Parts
+  that hang off plumbrule's own result sheets (proven by their marks, see
+  :mod:`.package`) do not count: plumbrule wrote them and they are carried byte for byte.
+  ``result_sheets`` are the sheets a rerun replaces (marked, and named as the mark says).
 """
 
 from __future__ import annotations
