@@ -92,9 +92,11 @@ def _graft_writer(path: Path, book, parts, seen):
         ws.sheet_view.tabSelected = False
     names = [n for n in RESULT_SHEETS if n in book.sheetnames]
     data = _to_bytes(book)
+    results = {n.casefold() for n in RESULT_SHEETS}
+    replace = [n for n in parts.result_sheets if n.casefold() in results]
 
     def write(tmp):
-        graft(path, data, tmp, parts.result_sheets, names)
+        graft(path, data, tmp, replace, names)
         _still_the_same(path, seen)     # opened and saved meanwhile? keep theirs
     return write
 
