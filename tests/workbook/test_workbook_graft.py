@@ -12,6 +12,7 @@ import pytest
 
 from workbook_snapshot import rezip, snapshot
 from plumbrule.workbook.graft import graft
+from plumbrule.workbook.package import MARK_NAME, mark_text
 
 
 def _user_book(path):
@@ -48,6 +49,7 @@ def _result_bytes(with_cf=True):
         ws.conditional_formatting.add("B1:B2", CellIsRule(
             operator="greaterThan", formula=["0.5"], fill=PatternFill("solid", bgColor="FFC7CE")))
     wb.defined_names["plumb_r_squared"] = DefinedName("plumb_r_squared", attr_text="'Model'!$B$1")
+    ws.defined_names[MARK_NAME] = DefinedName(MARK_NAME, attr_text=mark_text("Model"), hidden=True)
     buf = io.BytesIO()
     wb.save(buf)
     return buf.getvalue()

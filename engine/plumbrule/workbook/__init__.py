@@ -5,6 +5,7 @@ Modules (one job each)
 template.py  build the template workbook (Read me, Sales, Subjects, Comps, Settings, xlwings.conf)
 safety.py    checks before anything is touched: lock file, zip/encryption, XML (defusedxml),
              parts openpyxl cannot carry through a load and save
+package.py   the package read as XML (rels, content types, sheets, names, plumbrule's marks)
 read.py      read Sales / Subjects / Comps / Settings with python-calamine
 stamp.py     the audit stamp (:class:`~plumbrule.workbook.stamp.Stamp`)
 cells.py     writing values safely (text stays text) and number formats

@@ -6,12 +6,14 @@ user's package. Every other part of the user's file is copied byte for byte, so
 nothing openpyxl would normalise, drop or re-serialise is touched, and the cost
 does not grow with the size of the Sales sheet beyond one zip copy.
 
-Only four of the user's parts are edited, textually (their namespace prefixes and
-``mc:Ignorable`` lists stay exactly as written): ``[Content_Types].xml``,
-``xl/workbook.xml`` (sheet list, defined names, full recalculation on load),
-``xl/_rels/workbook.xml.rels`` and ``xl/styles.xml`` (our cell formats appended,
-reusing identical ones, so rerunning does not grow the file). ``calcChain.xml`` is
-dropped (the spreadsheet rebuilds it; it would name cells of replaced sheets).
+Only four of the user's parts are edited, in place (:func:`package.scan` locates the
+elements; every byte outside them, namespace prefixes and ``mc:Ignorable`` lists
+included, stays as written): ``[Content_Types].xml``, ``xl/workbook.xml`` (sheet list,
+defined names, full recalculation on load), ``xl/_rels/workbook.xml.rels`` and
+``xl/styles.xml`` (our cell formats appended, reusing identical ones, so rerunning
+does not grow the file). ``calcChain.xml`` is dropped (the spreadsheet rebuilds it; it
+would name cells of replaced sheets). A sheet is replaced only when it carries
+plumbrule's mark (:func:`package.replaceable`); new parts get names no existing part has.
 """
 
 from __future__ import annotations
@@ -23,11 +25,28 @@ import zipfile
 from dataclasses import dataclass
 from typing import Iterable
 
-from plumbrule.workbook.safety import _content_types, _rels
+from plumbrule.errors import WorkbookError
+from plumbrule.workbook import package as pk
+from plumbrule.workbook.package import (
+    CONTENT_TYPES,
+    NS_MAIN,
+    NS_R,
+    REL_SHEET,
+    Edits,
+    children,
+    escape_attr,
+    escape_text,
+    rels_part,
+    scan,
+    set_attr,
+    start_tag,
+)
 
-_NS_MAIN = "http://schemas.openxmlformats.org/spreadsheetml/2006/main"
-_NS_R = "http://schemas.openxmlformats.org/officeDocument/2006/relationships"
-_REL_SHEET = _NS_R + "/worksheet"
+_NS_MAIN = NS_MAIN
+# workbook.xml children that follow definedNames / calcPr (ECMA-376 Part 1, CT_Workbook order)
+_AFTER_NAMES = ("calcPr", "oleSize", "customWorkbookViews", "pivotCaches", "smartTagPr",
+                "smartTagTypes", "webPublishing", "fileRecoveryPr", "webPublishObjects", "extLst")
+_AFTER_CALC = _AFTER_NAMES[1:]
 
 
 @dataclass(frozen=True)
@@ -35,30 +54,374 @@ class _Pkg:
     z: zipfile.ZipFile
     types: dict
     main: str
-    rels: dict           # workbook rels: rId → (kind, target)
+    wb: pk.Workbook
+
+    @property
+    def rels(self) -> dict:
+        return self.wb.rels
+
+
+@dataclass(frozen=True)
+class _NewSheet:
+    name: str
+    rid: str
+    sheet_id: int
+    part: str
+    state: str | None
 
 
 def _open(z: zipfile.ZipFile) -> _Pkg:
-    types = _content_types(z)
-    main = next(t for kind, t in _rels(z, "").values() if kind == "officeDocument")
-    return _Pkg(z, types, main, _rels(z, main))
+    main = pk.main_part(z)
+    if main is None or main not in z.NameToInfo:
+        raise WorkbookError("The file holds no workbook part. Save it from your spreadsheet "
+                            "as an Excel workbook (.xlsx).")
+    return _Pkg(z, pk.content_types(z), main, pk.read_workbook(z, main))
 
 
-def _sheets(pkg: _Pkg) -> list[dict]:
-    """[{name, rid, part, sheetId, xml}] in workbook order (raw <sheet> text kept)."""
-    data = pkg.z.read(pkg.main).decode("utf-8")
-    out = []
-    for m in re.finditer(r"<(?:\w+:)?sheet\b[^>]*?/>", data):
-        el = m.group(0)
-        name = _attr(el, "name")
-        rid = re.search(r'\b\w+:id="([^"]+)"', el).group(1)
-        out.append({"name": _unescape(name), "rid": rid,
-                    "part": pkg.rels.get(rid, ("", ""))[1], "sheetId": int(_attr(el, "sheetId")),
-                    "xml": el})
+def graft(user_path, result_bytes: bytes, out_path, replace: Iterable[str],
+          sheet_names: Iterable[str]) -> None:
+    """Write ``out_path``: the user's book minus the sheets ``replace`` (each must carry
+    plumbrule's mark, else :class:`WorkbookError` and nothing is written) plus the sheets
+    ``sheet_names`` of the result workbook ``result_bytes`` (appended, in that order)."""
+    wanted = list(sheet_names)
+    with zipfile.ZipFile(user_path) as uz, zipfile.ZipFile(io.BytesIO(result_bytes)) as rz:
+        u, r = _open(uz), _open(rz)
+        removed, kept = _split_sheets(u, replace)
+        drop = _parts_to_drop(u, removed)
+        new_parts = _name_new_parts(u, r, wanted, drop)
+        out = _result_parts(u, r, new_parts, drop)
+        new_sheets = _new_sheets(u, r, kept, removed, wanted, new_parts)
+        out[u.main] = _edit_workbook(u, r, kept, new_sheets)
+        out[rels_part(u.main)] = _edit_rels(u, removed, drop, new_sheets)
+        out[CONTENT_TYPES] = _edit_types(uz, drop, new_parts, r.types)
+        _write(uz, out_path, drop, out)
+
+
+def _split_sheets(u: _Pkg, replace: Iterable[str]):
+    """(removed, kept) sheets; every removed one proven plumbrule's by its mark."""
+    wanted = {s.casefold() for s in replace}
+    ours = {s.index for s in pk.replaceable(u.wb)}
+    removed = [s for s in u.wb.sheets if s.name.casefold() in wanted]
+    for s in removed:
+        if s.index not in ours:
+            raise WorkbookError(
+                f"Sheet '{s.name}' does not carry plumbrule's mark, so it is not replaced "
+                "(plumbrule replaces only the sheets it wrote). Nothing was written.",
+                sheet=s.name)
+    return removed, [s for s in u.wb.sheets if s not in removed]
+
+
+def _parts_to_drop(u: _Pkg, removed) -> set[str]:
+    """The removed sheets' parts and what hangs only off them, their rels, calcChain."""
+    sheet_parts = frozenset(s.part for s in removed if s.part)
+    still_used = pk.reachable(u.z, "", stop=sheet_parts)
+    gone: set[str] = set(sheet_parts)
+    for part in sheet_parts:
+        pk.reachable(u.z, part, gone)
+    drop = gone - still_used
+    drop |= {rels_part(p) for p in drop}
+    drop |= {x.target for x in u.rels.values() if x.kind == "calcChain"}
+    return drop
+
+
+def _name_new_parts(u: _Pkg, r: _Pkg, wanted, drop: set[str]) -> dict[str, str]:
+    """result part → its name in the user's package: 'plumbrule-' + its own name, made
+    unique against every part (and content-type override) the user's book keeps."""
+    ct = pk.parse(u.z.read(CONTENT_TYPES), CONTENT_TYPES)
+    listed = {o.get("PartName", "").lstrip("/") for o in ct.iter(f"{{{pk.NS_CT}}}Override")}
+    dropped = {d.lower() for d in drop}
+    taken = {n.lower() for n in (*u.z.namelist(), *listed)} - dropped
+    r_sheets = {s.name: s for s in r.wb.sheets}
+    new_parts: dict[str, str] = {}
+    for name in wanted:
+        part = r_sheets[name].part
+        for p in [part, *sorted(pk.reachable(r.z, part))]:
+            if p not in new_parts:
+                folder, base = posixpath.split(p)
+                new_parts[p] = pk.free_part_name(posixpath.join(folder, "plumbrule-" + base),
+                                                 taken)
+    return new_parts
+
+
+def _result_parts(u: _Pkg, r: _Pkg, new_parts: dict[str, str], drop: set[str]) -> dict:
+    """The result parts under their new names (formats remapped, table ids unique, rels
+    retargeted) and the merged styles.xml."""
+    style_map = _merge_styles(u, r)
+    out: dict[str, bytes] = {}
+    table_id = _max_table_id(u, drop)
+    for old, new in new_parts.items():
+        data = r.z.read(old)
+        ctype = r.types.get(old, "")
+        if ctype.endswith("worksheet+xml"):
+            data = _restyle_sheet(data, style_map["xf"], style_map["dxf"])
+        elif ctype.endswith("table+xml"):
+            table_id += 1
+            root = scan(data, old)[0]
+            s, e = start_tag(data, root)
+            data = data[:s] + set_attr(data[s:e], "id", str(table_id)) + data[e:]
+        out[new] = data
+        rel = rels_part(old)
+        if rel in r.z.NameToInfo:
+            out[rels_part(new)] = _retarget(r.z.read(rel), old, new_parts)
+    out[style_map["part"]] = style_map["data"]
     return out
 
 
+def _new_sheets(u: _Pkg, r: _Pkg, kept, removed, wanted, new_parts) -> list[_NewSheet]:
+    r_sheets = {s.name: s for s in r.wb.sheets}
+    taken = set(u.rels) - {s.rid for s in removed}
+    next_id = max([s.sheet_id for s in kept] + [0]) + 1
+    out, n = [], 1
+    for i, name in enumerate(wanted):
+        while f"rIdPlumb{n}" in taken:
+            n += 1
+        taken.add(f"rIdPlumb{n}")
+        out.append(_NewSheet(name, f"rIdPlumb{n}", next_id + i,
+                             new_parts[r_sheets[name].part], r_sheets[name].state))
+    return out
+
+
+def _write(uz: zipfile.ZipFile, out_path, drop: set[str], out: dict[str, bytes]) -> None:
+    dropped = {d.lower() for d in drop}
+    edited = {k.lower(): k for k in out}
+    with zipfile.ZipFile(out_path, "w", zipfile.ZIP_DEFLATED) as oz:
+        for info in uz.infolist():
+            name = info.filename.lower()
+            if name in dropped:
+                continue
+            data = out.pop(edited[name]) if name in edited else uz.read(info.filename)
+            oz.writestr(_info(info), data)
+        for name, data in out.items():
+            oz.writestr(_info(zipfile.ZipInfo(name)), data)
+
+
+def _info(src: zipfile.ZipInfo) -> zipfile.ZipInfo:
+    info = zipfile.ZipInfo(src.filename, date_time=(1980, 1, 1, 0, 0, 0))
+    info.compress_type = zipfile.ZIP_DEFLATED
+    info.external_attr = src.external_attr
+    return info
+
+
+def _max_table_id(u: _Pkg, drop: set[str]) -> int:
+    best = 0
+    for name, ctype in u.types.items():
+        if ctype.endswith("table+xml") and name not in drop:
+            value = pk.parse(u.z.read(name), name).get("id", "")
+            if value.isdigit():
+                best = max(best, int(value))
+    return best
+
+
+def _retarget(data: bytes, old_part: str, mapping: dict[str, str]) -> bytes:
+    """A result part's rels with targets naming the renamed parts (absolute)."""
+    nodes = scan(data, rels_part(old_part))
+    ed = Edits(data)
+    for node in nodes[1:]:
+        if node.local != "Relationship" or node.get("TargetMode") == "External":
+            continue
+        resolved = pk.resolve(old_part, node.get("Target") or "")
+        if resolved in mapping:
+            s, e = start_tag(data, node)
+            ed.replace(s, e, set_attr(data[s:e], "Target", "/" + mapping[resolved]))
+    return ed.apply()
+
+
+# --- workbook.xml ----------------------------------------------------------------
+
+def _child(nodes, parent: int, local: str) -> int | None:
+    found = children(nodes, parent, local, NS_MAIN)
+    return found[0] if found else None
+
+
+def _anchor(nodes, root: int, following: tuple[str, ...]) -> int:
+    """Where a new child of ``root`` goes: before the first of ``following`` present, else
+    at the end of its content (CT_Workbook's element order)."""
+    for i in children(nodes, root, uri=NS_MAIN):
+        if nodes[i].local in following:
+            return nodes[i].start
+    return nodes[root].body[1]
+
+
+def _edit_workbook(u: _Pkg, r: _Pkg, kept, new_sheets: list[_NewSheet]) -> bytes:
+    data = u.z.read(u.main)
+    nodes = scan(data, u.main)
+    if nodes[0].local != "workbook" or nodes[0].body is None:
+        raise WorkbookError(f"'{u.main}' is not a workbook part. Open and save the book in "
+                            "your spreadsheet first.")
+    new_index = {s.index: j for j, s in enumerate(kept)}
+    by_name = {s.name.casefold(): len(kept) + j for j, s in enumerate(new_sheets)}
+    ed = Edits(data)
+    _edit_sheet_list(ed, data, nodes, u, kept, new_sheets)
+    _edit_defined_names(ed, data, nodes, u, r, new_index, by_name, new_sheets)
+    _edit_views(ed, data, nodes, u, new_index, by_name)
+    _full_calc(ed, data, nodes)
+    return ed.apply()
+
+
+def _edit_sheet_list(ed: Edits, data: bytes, nodes, u: _Pkg, kept, new_sheets) -> None:
+    sheets = _child(nodes, 0, "sheets")
+    items = children(nodes, sheets, "sheet", NS_MAIN) if sheets is not None else []
+    if len(items) != len(u.wb.sheets) or any(
+            nodes[i].get("name") != s.name for i, s in zip(items, u.wb.sheets, strict=True)):
+        raise WorkbookError(f"The sheet list of '{u.main}' cannot be read. Open and save the "
+                            "book in your spreadsheet first.")
+    keep = {s.index for s in kept}
+    for k, i in enumerate(items):
+        if k not in keep:
+            ed.replace(nodes[i].start, nodes[i].end, b"")
+    node = nodes[sheets]
+    rp = node.prefix_for(NS_R)
+    decl = "" if rp else f' xmlns:r="{NS_R}"'
+    rp = rp or "r"
+    add = "".join(
+        f'<{node.prefix}sheet{decl} name="{escape_attr(s.name)}" sheetId="{s.sheet_id}"'
+        + (f' state="{escape_attr(s.state)}"' if s.state else "") + f' {rp}:id="{s.rid}"/>'
+        for s in new_sheets).encode("utf-8")
+    _append_children(ed, data, node, add)
+
+
+def _append_children(ed: Edits, data: bytes, node, add: bytes) -> None:
+    """Append raw child elements at the end of ``node`` (opening it up if self-closing)."""
+    if not add:
+        return
+    if node.body is not None:
+        ed.insert(node.body[1], add)
+        return
+    tag = data[node.start:node.end]
+    ed.replace(node.start, node.end,
+               tag[:-2].rstrip() + b">" + add + f"</{node.qname}>".encode("utf-8"))
+
+
+def _edit_defined_names(ed: Edits, data: bytes, nodes, u: _Pkg, r: _Pkg, new_index, by_name,
+                        new_sheets) -> None:
+    """Drop ours and those local to removed sheets, renumber local ones, add the result
+    book's names (local ones to their new sheets)."""
+    container = _child(nodes, 0, "definedNames")
+    items = [i for i, n in enumerate(nodes) if n.local == "definedName" and n.uri == NS_MAIN]
+    if len(items) != len(u.wb.names):
+        raise WorkbookError(f"The defined names of '{u.main}' cannot be read. Open and save the "
+                            "book in your spreadsheet first.")
+    ours = {n.name.casefold() for n in r.wb.names if n.local is None} | {"plumb_sheets"}
+    remaining = 0
+    for i, name in zip(items, u.wb.names, strict=True):
+        node = nodes[i]
+        if name.local is not None:
+            if name.local not in new_index:
+                ed.replace(node.start, node.end, b"")
+                continue
+            if new_index[name.local] != name.local:
+                s, e = start_tag(data, node)
+                ed.replace(s, e, set_attr(data[s:e], "localSheetId", str(new_index[name.local])))
+        elif name.name.casefold() in ours:
+            ed.replace(node.start, node.end, b"")
+            continue
+        remaining += 1
+    p = nodes[container].prefix if container is not None else nodes[0].prefix
+    mine = _result_names(r, by_name, {s.name for s in new_sheets}, p)
+    if container is not None:
+        if not remaining and not mine:
+            ed.replace(nodes[container].start, nodes[container].end, b"")
+        else:
+            _append_children(ed, data, nodes[container], mine)
+    elif mine:
+        ed.insert(_anchor(nodes, 0, _AFTER_NAMES),
+                  f"<{p}definedNames>".encode() + mine + f"</{p}definedNames>".encode())
+
+
+def _result_names(r: _Pkg, by_name, written: set[str], p: str) -> bytes:
+    out = []
+    for n in r.wb.names:
+        attrs = dict(n.attrs)
+        if n.local is not None:
+            sheet = r.wb.sheets[n.local].name
+            if sheet not in written:
+                continue
+            attrs["localSheetId"] = str(by_name[sheet.casefold()])
+        text = "".join(f' {k}="{escape_attr(v)}"' for k, v in attrs.items())
+        out.append(f"<{p}definedName{text}>{escape_text(n.text)}</{p}definedName>")
+    return "".join(out).encode("utf-8")
+
+
+def _edit_views(ed: Edits, data: bytes, nodes, u: _Pkg, new_index, by_name) -> None:
+    """The active tab and the first visible tab follow their sheets (a replaced active
+    sheet hands over to its replacement)."""
+    for node in nodes:
+        if node.local != "workbookView" or node.uri != NS_MAIN:
+            continue
+        s, e = start_tag(data, node)
+        tag = data[s:e]
+        for attr in ("activeTab", "firstSheet"):
+            value = node.get(attr)
+            if value is None or not value.isdigit():
+                continue
+            idx = int(value)
+            sheet = u.wb.sheets[idx] if idx < len(u.wb.sheets) else None
+            if sheet is not None and sheet.index in new_index:
+                new = new_index[sheet.index]
+            elif sheet is not None and attr == "activeTab":
+                new = by_name.get(sheet.name.casefold(), 0)
+            else:
+                new = 0
+            tag = set_attr(tag, attr, str(new))
+        if tag != data[s:e]:
+            ed.replace(s, e, tag)
+
+
+def _full_calc(ed: Edits, data: bytes, nodes) -> None:
+    """Recalculate on open, so the user's formulas see the new results."""
+    calc = _child(nodes, 0, "calcPr")
+    if calc is not None:
+        s, e = start_tag(data, nodes[calc])
+        ed.replace(s, e, set_attr(data[s:e], "fullCalcOnLoad", "1"))
+    else:
+        ed.insert(_anchor(nodes, 0, _AFTER_CALC),
+                  f'<{nodes[0].prefix}calcPr fullCalcOnLoad="1"/>'.encode())
+
+
+def _edit_rels(u: _Pkg, removed, drop: set[str], new_sheets) -> bytes:
+    part = rels_part(u.main)
+    data = u.z.read(part)
+    nodes = scan(data, part)
+    gone = {s.rid for s in removed} | {x.id for x in u.rels.values() if x.target in drop}
+    ed = Edits(data)
+    for node in nodes[1:]:
+        if node.parent == 0 and node.local == "Relationship" and node.get("Id") in gone:
+            ed.replace(node.start, node.end, b"")
+    p = nodes[0].prefix
+    _append_children(ed, data, nodes[0], "".join(
+        f'<{p}Relationship Id="{s.rid}" Type="{REL_SHEET}" Target="/{escape_attr(s.part)}"/>'
+        for s in new_sheets).encode("utf-8"))
+    return ed.apply()
+
+
+def _edit_types(uz: zipfile.ZipFile, drop: set[str], new_parts, r_types) -> bytes:
+    """Drop the overrides of removed parts; one Override per new part (valid for any
+    extension, so the user's Defaults never need to change)."""
+    data = uz.read(CONTENT_TYPES)
+    nodes = scan(data, CONTENT_TYPES)
+    dropped = {d.lower() for d in drop}
+    ed = Edits(data)
+    has_rels = False
+    for node in nodes[1:]:
+        if node.parent != 0:
+            continue
+        if node.local == "Override" and (node.get("PartName") or "").lstrip("/").lower() in dropped:
+            ed.replace(node.start, node.end, b"")
+        if node.local == "Default" and (node.get("Extension") or "").lower() == "rels":
+            has_rels = True
+    p = nodes[0].prefix
+    add = "".join(f'<{p}Override PartName="/{escape_attr(new)}" ContentType="'
+                  f'{escape_attr(r_types[old])}"/>'
+                  for old, new in new_parts.items() if r_types.get(old))
+    if not has_rels:
+        add = (f'<{p}Default Extension="rels" ContentType="application/vnd.openxmlformats-'
+               'package.relationships+xml"/>') + add
+    _append_children(ed, data, nodes[0], add.encode("utf-8"))
+    return ed.apply()
+
+
 def _attr(el: str, name: str) -> str | None:
+    """An attribute of one of plumbrule's own style elements (openpyxl writes '"')."""
     m = re.search(r'\b%s="([^"]*)"' % re.escape(name), el)
     return m.group(1) if m else None
 
@@ -73,299 +436,9 @@ def _escape(text: str) -> str:
     return escape(text, {'"': "&quot;"})
 
 
-def _reach(z: zipfile.ZipFile, part: str, seen: set[str]) -> set[str]:
-    for _, target in _rels(z, part).values():
-        if target not in seen and target in z.NameToInfo:
-            seen.add(target)
-            _reach(z, target, seen)
-    return seen
-
-
-def _rels_part(part: str) -> str:
-    folder, name = posixpath.split(part)
-    return posixpath.join(folder, "_rels", name + ".rels")
-
-
-def graft(user_path, result_bytes: bytes, out_path, replace: Iterable[str],
-          sheet_names: Iterable[str]) -> None:
-    """Write ``out_path``: the user's book minus the sheets ``replace`` plus the sheets
-    ``sheet_names`` of the result workbook ``result_bytes`` (appended, in that order)."""
-    replace = {s.lower() for s in replace}
-    wanted = list(sheet_names)
-    with zipfile.ZipFile(user_path) as uz, zipfile.ZipFile(io.BytesIO(result_bytes)) as rz:
-        u, r = _open(uz), _open(rz)
-        u_sheets, r_sheets = _sheets(u), {s["name"]: s for s in _sheets(r)}
-        removed = [s for s in u_sheets if s["name"].lower() in replace]
-        kept = [s for s in u_sheets if s["name"].lower() not in replace]
-        drop: set[str] = set()
-        for s in removed:
-            drop.add(s["part"])
-            _reach(uz, s["part"], drop)
-        still_used: set[str] = set()
-        for s in kept:
-            _reach(uz, s["part"], still_used)
-        drop -= still_used
-        drop |= {_rels_part(p) for p in drop}
-        calc = [t for kind, t in u.rels.values() if kind == "calcChain"]
-        drop |= set(calc)
-
-        # result parts, renamed so they cannot clash with the user's
-        new_parts: dict[str, str] = {}        # result part → new name
-        for name in wanted:
-            part = r_sheets[name]["part"]
-            for p in [part, *sorted(_reach(rz, part, set()))]:
-                folder, base = posixpath.split(p)
-                new_parts[p] = posixpath.join(folder, "plumbrule-" + base)
-        style_map = _merge_styles(u, r)
-        out: dict[str, bytes] = {}
-        table_id = _max_table_id(u, drop)
-        for old, new in new_parts.items():
-            data = rz.read(old)
-            if r.types.get(old, "").endswith("worksheet+xml"):
-                data = _restyle_sheet(data, style_map["xf"], style_map["dxf"])
-            elif r.types.get(old, "").endswith("table+xml"):
-                table_id += 1
-                data = re.sub(
-                    rb'(<table\b[^>]*?\bid=")(\d+)(")',
-                    lambda m, tid=table_id: m.group(1) + str(tid).encode() + m.group(3),
-                    data,
-                    count=1,
-                )
-            out[new] = data
-            rel = _rels_part(old)
-            if rel in rz.NameToInfo:
-                out[_rels_part(new)] = _retarget(rz.read(rel), old, new_parts)
-        out[style_map["part"]] = style_map["data"]
-
-        # workbook.xml, its rels and the content types
-        rid_base = _free_rid(u, {s["rid"] for s in removed})
-        new_sheets = []
-        next_id = max([s["sheetId"] for s in kept] + [0]) + 1
-        for i, name in enumerate(wanted):
-            new_sheets.append({"name": name, "rid": f"rIdPlumb{rid_base + i}",
-                               "sheetId": next_id + i,
-                               "part": new_parts[r_sheets[name]["part"]],
-                               "r_index": list(r_sheets).index(name),
-                               "state": _attr(r_sheets[name]["xml"], "state")})
-        out[u.main] = _edit_workbook(uz.read(u.main), r.z.read(r.main), u_sheets, kept,
-                                     new_sheets, list(r_sheets))
-        wb_rels = _rels_part(u.main)
-        out[wb_rels] = _edit_rels(uz.read(wb_rels), u, removed, calc, new_sheets)
-        out["[Content_Types].xml"] = _edit_types(uz.read("[Content_Types].xml"), drop, out,
-                                                 new_parts, r.types, u.types)
-
-        with zipfile.ZipFile(out_path, "w", zipfile.ZIP_DEFLATED) as oz:
-            for info in uz.infolist():
-                name = info.filename
-                if name in drop:
-                    continue
-                data = out.pop(name) if name in out else uz.read(name)
-                oz.writestr(_info(info), data)
-            for name, data in out.items():
-                oz.writestr(_info(zipfile.ZipInfo(name)), data)
-
-
-def _info(src: zipfile.ZipInfo) -> zipfile.ZipInfo:
-    info = zipfile.ZipInfo(src.filename, date_time=(1980, 1, 1, 0, 0, 0))
-    info.compress_type = zipfile.ZIP_DEFLATED
-    info.external_attr = src.external_attr
-    return info
-
-
-def _max_table_id(u: _Pkg, drop: set[str]) -> int:
-    best = 0
-    for name, ctype in u.types.items():
-        if ctype.endswith("table+xml") and name not in drop:
-            m = re.search(rb'<(?:\w+:)?table\b[^>]*?\bid="(\d+)"', u.z.read(name))
-            if m:
-                best = max(best, int(m.group(1)))
-    return best
-
-
-def _free_rid(u: _Pkg, freed: set[str]) -> int:
-    """First n such that rIdPlumb{n}.. are free (ids of replaced sheets count as free)."""
-    taken = set(u.rels) - freed
-    n = 1
-    while any(f"rIdPlumb{n + i}" in taken for i in range(len(RESULT_SHEETS_MAX))):
-        n += 1
-    return n
-
-
-RESULT_SHEETS_MAX = range(16)
-
-
-def _retarget(data: bytes, old_part: str, mapping: dict[str, str]) -> bytes:
-    """Rewrite a result part's rels so targets name the renamed parts (absolute)."""
-    folder = posixpath.dirname(old_part)
-    text = data.decode("utf-8")
-
-    def fix(m):
-        el = m.group(0)
-        if 'TargetMode="External"' in el:
-            return el
-        target = _attr(el, "Target")
-        resolved = target[1:] if target.startswith("/") else posixpath.normpath(
-            posixpath.join(folder, target))
-        if resolved not in mapping:
-            return el
-        return el.replace(f'Target="{target}"', f'Target="/{mapping[resolved]}"')
-    return re.sub(r"<Relationship\b[^>]*/>", fix, text).encode("utf-8")
-
-
-# --- workbook.xml ----------------------------------------------------------------
-
 def _prefix(data: str, local: str) -> str:
     m = re.search(r"<(\w+:)?%s\b" % local, data)
     return (m.group(1) or "") if m else ""
-
-
-def _edit_workbook(data: bytes, r_data: bytes, u_sheets, kept, new_sheets, r_order) -> bytes:
-    text = data.decode("utf-8")
-    p = _prefix(text, "workbook")
-    rp = next((m.group(1) for m in re.finditer(r'xmlns:(\w+)="%s"' % re.escape(_NS_R), text)), None)
-    # 1. the sheet list
-    for s in u_sheets:
-        if s not in kept:
-            text = text.replace(s["xml"], "", 1)
-    rdecl = "" if rp else f' xmlns:r="{_NS_R}"'
-    rp = rp or "r"
-    add = "".join(
-        f'<{p}sheet{rdecl} name="{_escape(s["name"])}" sheetId="{s["sheetId"]}"'
-        + (f' state="{s["state"]}"' if s["state"] else "") + f' {rp}:id="{s["rid"]}"/>'
-        for s in new_sheets)
-    text = re.sub(r"</%ssheets>" % re.escape(p), lambda m: add + m.group(0), text, count=1)
-    # 2. defined names: drop ours and those local to removed sheets; remap local indices
-    old_index = {i: s for i, s in enumerate(u_sheets)}
-    new_index = {s["name"]: i for i, s in enumerate(kept)}
-    for j, s in enumerate(new_sheets):
-        new_index[s["name"]] = len(kept) + j
-    r_names = _defined_names(r_data.decode("utf-8"))
-    ours = {(_attr(el, "name") or "").lower() for el in r_names}
-
-    def keep_name(m):
-        el = m.group(0)
-        name = (_attr(el, "name") or "").lower()
-        local = _attr(el, "localSheetId")
-        if local is not None:
-            sheet = old_index.get(int(local))
-            if sheet is None or sheet not in kept:
-                return ""
-            return re.sub(
-                r'localSheetId="\d+"', f'localSheetId="{new_index[sheet["name"]]}"', el, count=1
-            )
-        if name in ours or name == "plumb_sheets":
-            return ""
-        return el
-    text = re.sub(r"<(\w+:)?definedName\b[^>]*?(?:/>|>.*?</\1?definedName>)", keep_name, text,
-                  flags=re.S)
-    mine = []
-    for el in r_names:
-        local = _attr(el, "localSheetId")
-        if local is not None:
-            name = r_order[int(local)]
-            if name not in new_index or name not in {s["name"] for s in new_sheets}:
-                continue
-            el = re.sub(r'localSheetId="\d+"', f'localSheetId="{new_index[name]}"', el, count=1)
-        mine.append(el if not p else _prefixed(el, p))
-    block = "".join(mine)
-    if re.search(r"</%sdefinedNames>" % re.escape(p), text):
-        text = re.sub(
-            r"</%sdefinedNames>" % re.escape(p), lambda m: block + m.group(0), text, count=1
-        )
-    elif re.search(r"<%sdefinedNames\s*/>" % re.escape(p), text):
-        text = re.sub(r"<%sdefinedNames\s*/>" % re.escape(p),
-                      lambda m: f"<{p}definedNames>{block}</{p}definedNames>", text, count=1)
-    elif block:
-        text = re.sub(
-            r"</%ssheets>" % re.escape(p),
-            lambda m: m.group(0) + f"<{p}definedNames>{block}</{p}definedNames>",
-            text,
-            count=1,
-        )
-    text = re.sub(r"<(\w+:)?definedNames>\s*</\1?definedNames>", "", text)
-    # 3. the active tab and the first visible tab follow their sheets
-    text = _remap_views(text, u_sheets, kept, new_index)
-    # 4. recalculate on open, so the user's formulas see the new results
-    text = _full_calc(text, p)
-    return text.encode("utf-8")
-
-
-def _prefixed(el: str, p: str) -> str:
-    return re.sub(r"<(/?)definedName\b", lambda m: f"<{m.group(1)}{p}definedName", el)
-
-
-def _defined_names(text: str) -> list[str]:
-    return [m.group(0) for m in re.finditer(
-        r"<(\w+:)?definedName\b[^>]*?(?:/>|>.*?</\1?definedName>)", text, flags=re.S)]
-
-
-def _remap_views(text: str, u_sheets, kept, new_index) -> str:
-    def fix(m):
-        el = m.group(0)
-        for attr in ("activeTab", "firstSheet"):
-            v = _attr(el, attr)
-            if v is None:
-                continue
-            idx = int(v)
-            sheet = u_sheets[idx] if idx < len(u_sheets) else None
-            new = new_index.get(sheet["name"], 0) if sheet is not None else 0
-            if sheet is not None and sheet not in kept and attr == "firstSheet":
-                new = 0
-            el = el.replace(f'{attr}="{v}"', f'{attr}="{new}"', 1)
-        return el
-    return re.sub(r"<(?:\w+:)?workbookView\b[^>]*>", fix, text)
-
-
-def _full_calc(text: str, p: str) -> str:
-    m = re.search(r"<%scalcPr\b[^>]*?/?>" % re.escape(p), text)
-    if m:
-        el = m.group(0)
-        if "fullCalcOnLoad=" in el:
-            new = re.sub(r'fullCalcOnLoad="[^"]*"', 'fullCalcOnLoad="1"', el)
-        else:
-            new = el.replace(f"<{p}calcPr", f'<{p}calcPr fullCalcOnLoad="1"', 1)
-        return text.replace(el, new, 1)
-    # calcPr comes after definedNames (or sheets) in the schema order
-    for anchor in (f"</{p}definedNames>", f"</{p}sheets>"):
-        if anchor in text:
-            return text.replace(anchor, anchor + f'<{p}calcPr fullCalcOnLoad="1"/>', 1)
-    return text
-
-
-def _edit_rels(data: bytes, u: _Pkg, removed, calc, new_sheets) -> bytes:
-    text = data.decode("utf-8")
-    gone = {s["rid"] for s in removed} | {rid for rid, (_, t) in u.rels.items() if t in calc}
-
-    def fix(m):
-        return "" if _attr(m.group(0), "Id") in gone else m.group(0)
-    text = re.sub(r"<(?:\w+:)?Relationship\b[^>]*/>", fix, text)
-    add = "".join(f'<Relationship Id="{s["rid"]}" Type="{_REL_SHEET}" Target="/{s["part"]}"/>'
-                  for s in new_sheets)
-    p = _prefix(text, "Relationships")
-    text = text.replace(f"</{p}Relationships>", _prefixed_rel(add, p) + f"</{p}Relationships>", 1)
-    return text.encode("utf-8")
-
-
-def _prefixed_rel(add: str, p: str) -> str:
-    return add.replace("<Relationship ", f"<{p}Relationship ") if p else add
-
-
-def _edit_types(data: bytes, drop: set[str], out: dict, new_parts, r_types, u_types) -> bytes:
-    """Drop the overrides of removed parts; one Override per new part (valid for any
-    extension, so the user's Defaults never need to change)."""
-    text = data.decode("utf-8")
-
-    def fix(m):
-        part = (_attr(m.group(0), "PartName") or "").lstrip("/")
-        return "" if part in drop else m.group(0)
-    text = re.sub(r"<(?:\w+:)?Override\b[^>]*/>", fix, text)
-    p = _prefix(text, "Types")
-    add = "".join(f'<{p}Override PartName="/{new}" ContentType="{r_types.get(old, "")}"/>'
-                  for old, new in new_parts.items() if r_types.get(old))
-    if not re.search(r'Extension="rels"', text, re.I):
-        add = (f'<{p}Default Extension="rels" ContentType="application/vnd.openxmlformats-'
-               'package.relationships+xml"/>') + add
-    return text.replace(f"</{p}Types>", add + f"</{p}Types>", 1).encode("utf-8")
 
 
 # --- styles ------------------------------------------------------------------------
@@ -388,8 +461,8 @@ def _items(text: str, container: str, p: str = "") -> tuple[list[str], re.Match 
 def _merge_styles(u: _Pkg, r: _Pkg) -> dict:
     """Append the result book's cell formats to the user's styles.xml (reusing identical
     ones). Returns {'part', 'data', 'xf': result xf index → user xf index}."""
-    u_part = next(t for kind, t in u.rels.values() if kind == "styles")
-    r_part = next(t for kind, t in r.rels.values() if kind == "styles")
+    u_part = next(x.target for x in u.rels.values() if x.kind == "styles")
+    r_part = next(x.target for x in r.rels.values() if x.kind == "styles")
     text = u.z.read(u_part).decode("utf-8")
     p = _prefix(text, "styleSheet")
     rtext = r.z.read(r_part).decode("utf-8")

@@ -1,20 +1,26 @@
 """``plumbrule run BOOK.xlsx``: read the inputs, run the analysis, write the results.
 
 The book is updated in place only when that loses nothing: plumbrule's own result
-sheets (recorded in the hidden defined name ``plumb_sheets``) are replaced and every
-other part is carried through by openpyxl. When the book holds parts openpyxl cannot
-carry (see :mod:`.safety`), it is left untouched and the results go to
-``BOOK.results.xlsx`` (a copy of the input values plus the result sheets).
+sheets (proven by the mark each carries, see :mod:`.package`) are replaced and every
+other part is carried byte for byte (:mod:`.graft`). When the book holds parts openpyxl
+cannot carry or its structure is protected (see :mod:`.safety`), it is left untouched
+and the results go to ``BOOK.results.xlsx`` (a copy of the input values plus the
+result sheets). A sheet named like a result sheet without the mark is refused.
 
-Writes go to a temporary file in the same folder, then ``os.replace``; the previous
-version is kept as ``BOOK.xlsx.bak`` unless the ``backup`` setting is FALSE.
+Writes go to a uniquely named temporary file beside the book (beside the file a
+symbolic link points to), then ``os.replace``; the new file keeps the book's mode and
+owner; the previous version is kept as ``BOOK.xlsx.bak`` unless the ``backup`` setting
+is FALSE. A read-only book is refused.
 """
 
 from __future__ import annotations
 
 import datetime as _dt
 import os
+import re
+import secrets
 import shutil
+import stat
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -49,38 +55,83 @@ def run_book(path: str | Path, backup: bool | None = None,
     from plumbrule.workbook.read import read_inputs
     from plumbrule.workbook.safety import check_is_file, check_not_open, inspect_book
     path = Path(path)
-    check_not_open(path)
+    real = _real_file(path)
+    for p in dict.fromkeys((path, real)):
+        check_not_open(p)
     check_is_file(path)
-    seen = _signature(path)
+    seen = _signature(real)
     parts = inspect_book(path)
-    _check_names(parts)
+    in_place = not parts.unsupported
+    if in_place:
+        _check_names(parts)
+        check_writable(real)
     inputs = read_inputs(path)
     analysis, valuation, settings = _analyse(inputs)
     from plumbrule.workbook.stamp import make_stamp
     stamp = make_stamp(analysis, inputs.sales_hash, source=path.name, now=now)
     keep_bak = settings.backup if backup is None else backup
-    in_place = not parts.unsupported
     book = _result_book(inputs, with_sales=not in_place)
     write_results(book, analysis, valuation, stamp)
     if in_place:
-        target = path
-        for ws in book.worksheets:          # the user's choice of tab stays
-            ws.sheet_view.tabSelected = False
-        from plumbrule.workbook.graft import graft
-        names = [n for n in RESULT_SHEETS if n in book.sheetnames]
-        data = _to_bytes(book)
-
-        def write(tmp):
-            graft(path, data, tmp, parts.result_sheets, names)
-            _still_the_same(path, seen)     # opened and saved meanwhile? keep theirs
-        bak = write_atomic(target, write, keep_bak)
+        target = real
+        bak = write_atomic(real, _graft_writer(real, book, parts, seen), keep_bak)
     else:
         target = path.with_name(path.stem + ".results.xlsx")
         check_not_open(target)
-        bak = write_atomic(target, book.save, keep_bak)
+        bak = write_atomic(_real_file(target), book.save, keep_bak)
     return RunResult(written=target, in_place=in_place, unsupported=parts.unsupported,
                      backup=bak, headline=jsonable(headline(analysis, valuation)),
                      analysis=analysis, valuation=valuation)
+
+
+def _graft_writer(path: Path, book, parts, seen):
+    """``write(tmp)``: the user's book at ``path`` with plumbrule's (marked) result sheets
+    replaced by those of ``book``; refuses if the book changed since ``seen``."""
+    from plumbrule.workbook.graft import graft
+    for ws in book.worksheets:          # the user's choice of tab stays
+        ws.sheet_view.tabSelected = False
+    names = [n for n in RESULT_SHEETS if n in book.sheetnames]
+    data = _to_bytes(book)
+    results = {n.casefold() for n in RESULT_SHEETS}
+    replace = [n for n in parts.result_sheets if n.casefold() in results]
+
+    def write(tmp):
+        graft(path, data, tmp, replace, names)
+        _still_the_same(path, seen)     # opened and saved meanwhile? keep theirs
+    return write
+
+
+def _real_file(path: Path) -> Path:
+    """The file a (chain of) symbolic link(s) points to: written through, so the link
+    stays a link and every name for the book sees the update."""
+    return Path(os.path.realpath(path)) if path.is_symlink() else path
+
+
+def check_writable(path: Path) -> None:
+    """Refuse a book its user cannot (or chose not to) write: read-only mode bits, no
+    write access, or a folder where no temporary file can be made."""
+    st = path.stat()
+    if not os.access(path, os.W_OK) or not st.st_mode & _write_bit(st):
+        raise WorkbookError(
+            f"'{path.name}' is read-only. Make it writable (chmod u+w, or clear Read-only "
+            "in its properties) or run on a copy; nothing was written.")
+    if not os.access(path.parent, os.W_OK | os.X_OK):
+        raise WorkbookError(
+            f"The folder of '{path.name}' is not writable, so plumbrule cannot replace the "
+            "book safely. Move it to a writable folder and run again; nothing was written.")
+
+
+def _write_bit(st: os.stat_result) -> int:
+    """The write permission bit that applies to this process (owner, group or others)."""
+    if not hasattr(os, "geteuid") or os.geteuid() == 0:
+        # Windows (the read-only flag) and root (writes anything): read-only means no
+        # write bit for anyone
+        return stat.S_IWUSR | stat.S_IWGRP | stat.S_IWOTH
+    if st.st_uid == os.geteuid():
+        return stat.S_IWUSR
+    if st.st_gid == os.getegid() or st.st_gid in os.getgroups():
+        return stat.S_IWGRP
+    return stat.S_IWOTH
 
 
 def _signature(path: Path) -> tuple[int, int]:
@@ -104,13 +155,20 @@ def _to_bytes(book) -> bytes:
 
 
 def _check_names(parts) -> None:
-    """A sheet of the user's with one of our result sheets' names is never replaced."""
-    ours = {s.lower() for s in parts.result_sheets}
+    """A sheet named like a result sheet that does not carry plumbrule's mark is the
+    user's: never replaced, the run refuses (``plumb_sheets`` only shapes the message)."""
+    ours = {s.casefold() for s in parts.result_sheets}
+    results = {s.casefold() for s in RESULT_SHEETS}
+    listed = {s.casefold() for s in parts.listed}
     for name in parts.sheets:
-        if name.lower() in {s.lower() for s in RESULT_SHEETS} and name.lower() not in ours:
+        key = name.casefold()
+        if key in results and key not in ours:
+            why = (" It is listed as plumbrule's but carries no plumbrule mark (made or "
+                   "replaced by you, or written by an older plumbrule: then delete it)."
+                   if key in listed else "")
             raise WorkbookError(
-                f"The workbook already has a sheet '{name}' that plumbrule did not write. "
-                f"Rename it: plumbrule writes its results to the sheets "
+                f"The workbook already has a sheet '{name}' that plumbrule did not write."
+                f"{why} Rename it: plumbrule writes its results to the sheets "
                 f"{', '.join(RESULT_SHEETS)}. Nothing was written.", sheet=name)
 
 
@@ -192,8 +250,15 @@ def write_results(book, analysis, valuation, stamp) -> None:
 
 
 def _record_sheets(book, names: list[str]) -> None:
-    """Hidden defined name listing our sheets, so a rerun knows what it may replace."""
+    """Mark each result sheet as plumbrule's (a hidden sheet-local name, see
+    :mod:`.package`: the proof a rerun checks) and list them in the hidden workbook name
+    ``plumb_sheets`` (a hint for messages, never the proof)."""
     from openpyxl.workbook.defined_name import DefinedName
+    from plumbrule.workbook.package import MARK_NAME, mark_text
+    for name in names:
+        ws = book[name]
+        ws.defined_names[MARK_NAME] = DefinedName(MARK_NAME, attr_text=mark_text(name),
+                                                  hidden=True)
     if "plumb_sheets" in book.defined_names:
         del book.defined_names["plumb_sheets"]
     text = "|".join(names).replace('"', '""')
@@ -201,17 +266,91 @@ def _record_sheets(book, names: list[str]) -> None:
                                                      hidden=True)
 
 
+_TMP_PREFIX = ".~plumbrule-"
+
+
+def _host_tag() -> str:
+    """8 hex digits naming this machine, so a run never removes another machine's
+    temporary file in a shared folder."""
+    import hashlib
+    import socket
+    return hashlib.sha256(socket.gethostname().encode("utf-8")).hexdigest()[:8]
+
+
+def _tmp_name(target: Path, suffix: str = "") -> Path:
+    """A temporary name beside ``target`` no other run uses: host, process, random."""
+    return target.with_name(f"{_TMP_PREFIX}{_host_tag()}-{os.getpid()}-{secrets.token_hex(4)}-"
+                            f"{target.name}{suffix}")
+
+
+def remove_stale_temporaries(folder: Path) -> list[Path]:
+    """Remove plumbrule's own temporary files (by name) left in ``folder`` by a run on this
+    machine whose process no longer exists (killed, or a full disk). Returns them."""
+    pattern = re.compile(re.escape(_TMP_PREFIX) + r"([0-9a-f]{8})-(\d+)-[0-9a-f]{8}-")
+    host, gone = _host_tag(), []
+    for p in folder.iterdir():
+        m = pattern.match(p.name)
+        if m and m.group(1) == host and not _alive(int(m.group(2))) and p.is_file():
+            try:
+                p.unlink()
+                gone.append(p)
+            except OSError:
+                pass
+    return gone
+
+
+def _alive(pid: int) -> bool:
+    if pid == os.getpid():
+        return True
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except (PermissionError, OSError):
+        return True              # exists (another user's), or cannot tell: keep the file
+    return True
+
+
+def _new_private(path: Path) -> None:
+    """Create ``path`` empty, readable by its owner only (the mode is set when done)."""
+    os.close(os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600))
+
+
+def _take_mode(dest: Path, like: os.stat_result | None) -> None:
+    """Give ``dest`` the mode (and, where permitted, the owner) of the file it replaces;
+    a new file gets the usual mode for new files (0666 less the umask)."""
+    if like is None:
+        mask = os.umask(0)
+        os.umask(mask)
+        os.chmod(dest, 0o666 & ~mask)
+        return
+    os.chmod(dest, stat.S_IMODE(like.st_mode))
+    if hasattr(os, "chown"):
+        try:
+            os.chown(dest, like.st_uid, like.st_gid)
+        except OSError:
+            pass                 # not permitted (not root): the runner owns the new file
+
+
 def write_atomic(target: Path, write, backup: bool) -> Path | None:
     """``write(tmp)`` a temp file beside ``target``, keep ``target.bak`` if asked, then
-    ``os.replace``. Returns the backup path (or None). On failure ``target`` is unchanged
-    and the temp file is removed."""
-    tmp = target.with_name(f".~plumbrule-{os.getpid()}-{target.name}")
-    bak = target.with_name(target.name + ".bak") if backup and target.exists() else None
+    ``os.replace``. The new file (and the backup) keep the mode and owner of ``target``.
+    Returns the backup path (or None). On failure ``target`` is unchanged and the
+    temporary files are removed; those of killed runs go on the next run."""
+    remove_stale_temporaries(target.parent)
+    like = target.stat() if target.exists() else None
+    tmp = _tmp_name(target)
+    bak = target.with_name(target.name + ".bak") if backup and like is not None else None
+    bak_tmp = _tmp_name(target, ".bak") if bak is not None else None
     try:
+        _new_private(tmp)
         write(tmp)
+        _take_mode(tmp, like)
         if bak is not None:
-            bak_tmp = bak.with_name(bak.name + ".tmp")
-            shutil.copy2(target, bak_tmp)
+            _new_private(bak_tmp)
+            shutil.copyfile(target, bak_tmp)
+            shutil.copystat(target, bak_tmp)
+            _take_mode(bak_tmp, like)
             os.replace(bak_tmp, bak)
         os.replace(tmp, target)
     except OSError as exc:
@@ -219,8 +358,9 @@ def write_atomic(target: Path, write, backup: bool) -> Path | None:
                             "is writable and the file is not open elsewhere; the workbook was "
                             "not changed.") from None
     finally:
-        if tmp.exists():
-            tmp.unlink()
+        for t in (tmp, bak_tmp):
+            if t is not None and t.exists():
+                t.unlink()
     return bak
 
 
@@ -236,7 +376,7 @@ def print_run(result: RunResult, as_json: bool = False) -> None:
     if result.in_place:
         print(f"Results written to {result.written} (sheets {', '.join(RESULT_SHEETS[:-1])}).")
     else:
-        print("The workbook holds parts plumbrule cannot carry through a save unchanged: "
+        print("plumbrule cannot update this workbook in place without losing something: "
               + "; ".join(result.unsupported) + ".")
         print(f"It was left untouched; the results are in {result.written}.")
     if result.backup:

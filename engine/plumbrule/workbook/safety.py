@@ -12,19 +12,21 @@ left untouched and the results go to BOOK.results.xlsx (conservative by design).
   encrypted or legacy file), every XML part is free of DTDs and entity declarations
   (parsed with defusedxml), and it lists the parts openpyxl cannot carry through a
   load and save (pictures, shapes, charts not ours, sparklines and other extensions,
-  slicers, pivot tables, form controls, …). Parts that hang only off plumbrule's own
-  result sheets do not count: those sheets are replaced anyway.
+  slicers, pivot tables, form controls, …), and a protected workbook structure. Parts
+  that hang off plumbrule's own result sheets (proven by their marks, see
+  :mod:`.package`) do not count: plumbrule wrote them and they are carried byte for byte.
+  ``result_sheets`` are the sheets a rerun replaces (marked, and named as the mark says).
 """
 
 from __future__ import annotations
 
-import posixpath
 import re
 import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from plumbrule.errors import WorkbookError
+from plumbrule.workbook import package as pk
 
 _CFB_MAGIC = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"   # OLE compound file: encrypted xlsx or .xls
 _CT = "application/vnd.openxmlformats-officedocument."
@@ -111,9 +113,6 @@ _SHEET_DROPPED = {
 }
 _TAG = re.compile(rb"<(?:[A-Za-z0-9_]+:)?([A-Za-z0-9_]+)[\s/>]")
 _EXT_URI = re.compile(rb"<(?:[A-Za-z0-9_]+:)?ext\b[^>]*\buri=\"\{([0-9A-Fa-f-]+)\}\"")
-_NS_R = "http://schemas.openxmlformats.org/officeDocument/2006/relationships"
-_NS_MAIN = "http://schemas.openxmlformats.org/spreadsheetml/2006/main"
-_NS_PKG = "http://schemas.openxmlformats.org/package/2006/relationships"
 
 
 @dataclass(frozen=True)
@@ -123,8 +122,9 @@ class BookParts:
 
     macro_enabled: bool
     sheets: tuple[str, ...]
-    result_sheets: tuple[str, ...]
+    result_sheets: tuple[str, ...]       # plumbrule's, proven by their marks: replaced
     unsupported: tuple[str, ...] = field(default_factory=tuple)
+    listed: tuple[str, ...] = field(default_factory=tuple)   # plumb_sheets (a hint only)
 
 
 def lock_files(path: Path) -> list[Path]:
@@ -162,96 +162,11 @@ def check_is_file(path: Path) -> None:
                             "Save it from your spreadsheet as an Excel workbook (.xlsx).")
 
 
-def _parse(data: bytes, part: str):
-    """A small XML part through defusedxml (DTDs and entities refused)."""
-    import defusedxml.ElementTree as dET
-    from defusedxml import DefusedXmlException
-    from xml.etree.ElementTree import ParseError
-    try:
-        return dET.fromstring(data, forbid_dtd=True)
-    except DefusedXmlException:
-        raise _dtd_error(part) from None
-    except ParseError as exc:
-        raise WorkbookError(f"Part '{part}' of the workbook is not valid XML ({exc}). The file "
-                            "is damaged; open and save it in your spreadsheet first.") from None
-
-
-def _dtd_error(part: str) -> WorkbookError:
-    return WorkbookError(
-        f"Part '{part}' of the workbook declares a DTD or XML entities (a possible "
-        "entity-expansion attack); plumbrule refuses to read it. Nothing was written.")
-
-
-def _check_prolog(z: zipfile.ZipFile, part: str) -> None:
-    """Parse ``part`` up to its root element with defusedxml (DTDs come before the root)."""
-    import defusedxml.ElementTree as dET
-    from defusedxml import DefusedXmlException
-    from xml.etree.ElementTree import ParseError
-    try:
-        with z.open(part) as fh:
-            for _ in dET.iterparse(fh, events=("start",), forbid_dtd=True):
-                break
-    except DefusedXmlException:
-        raise _dtd_error(part) from None
-    except ParseError as exc:
-        raise WorkbookError(f"Part '{part}' of the workbook is not valid XML ({exc}). The file "
-                            "is damaged; open and save it in your spreadsheet first.") from None
-
-
-def _rels(z: zipfile.ZipFile, part: str) -> dict[str, tuple[str, str]]:
-    """rId → (type suffix, target part) for ``part``'s relationships."""
-    folder, name = posixpath.split(part)
-    rel_part = posixpath.join(folder, "_rels", name + ".rels")
-    if rel_part not in z.NameToInfo:
-        return {}
-    root = _parse(z.read(rel_part), rel_part)
-    out = {}
-    for rel in root.iter(f"{{{_NS_PKG}}}Relationship"):
-        if rel.get("TargetMode") == "External":
-            continue
-        target = rel.get("Target", "")
-        target = target[1:] if target.startswith("/") else posixpath.normpath(
-            posixpath.join(folder, target))
-        out[rel.get("Id")] = (rel.get("Type", "").rsplit("/", 1)[-1], target)
-    return out
-
-
-def _content_types(z: zipfile.ZipFile) -> dict[str, str]:
-    if "[Content_Types].xml" not in z.NameToInfo:
-        raise WorkbookError(
-            "The file is a zip archive but not a workbook (no [Content_Types].xml). "
-            "Save it from your spreadsheet as an Excel workbook (.xlsx)."
-        )
-    root = _parse(z.read("[Content_Types].xml"), "[Content_Types].xml")
-    ns = "{http://schemas.openxmlformats.org/package/2006/content-types}"
-    defaults = {
-        d.get("Extension", "").lower(): d.get("ContentType", "") for d in root.iter(ns + "Default")
-    }
-    overrides = {
-        o.get("PartName", "").lstrip("/"): o.get("ContentType", "")
-        for o in root.iter(ns + "Override")
-    }
-    types = {}
-    for name in z.namelist():
-        if name.endswith("/"):
-            continue
-        types[name] = overrides.get(name) or defaults.get(name.rsplit(".", 1)[-1].lower(), "")
-    return types
-
-
 def _friendly(content_type: str, name: str) -> str:
     for key, text in _FRIENDLY_TYPES:
         if key.lower() in content_type.lower() or key.lower() in name.lower():
             return text
     return f"part '{name}' ({content_type or 'unknown type'})"
-
-
-def _reachable(z, start: str, seen: set[str]) -> None:
-    """Every part reachable by relationships from ``start`` (drawings → charts → styles)."""
-    for _, target in _rels(z, start).values():
-        if target not in seen and target in z.NameToInfo:
-            seen.add(target)
-            _reachable(z, target, seen)
 
 
 def inspect_book(path: str | Path) -> BookParts:
@@ -271,51 +186,86 @@ def inspect_book(path: str | Path) -> BookParts:
 
 
 def _inspect(z: zipfile.ZipFile, path: Path) -> BookParts:
-    types = _content_types(z)
-    root_rels = _rels(z, "")
-    main = next((t for kind, t in root_rels.values() if kind == "officeDocument"), None)
+    types = pk.content_types(z)
+    main = _main_part(z, path)
+    _check_xml(z, types)
+    wb = _read_workbook(z, main, path)
+    macro = types.get(main, "").startswith("application/vnd.ms-excel.sheet.macroEnabled")
+    marked = pk.marks(wb)
+    owned = _owned_parts(z, wb, marked)
+    found = _sheet_level_losses(z, wb, marked)
+    described = _drawings_of(z, wb, marked)
+    found += _foreign_parts(types, owned | described | {main}, macro)
+    found += _form_controls(z, types, owned)
+    if pk.structure_locked(wb):
+        found.append("a protected workbook structure (Review > Protect Workbook: no sheets "
+                     "may be added)")
+    return BookParts(macro_enabled=macro, sheets=tuple(s.name for s in wb.sheets),
+                     result_sheets=tuple(s.name for s in pk.replaceable(wb)),
+                     unsupported=tuple(dict.fromkeys(found)),
+                     listed=tuple(_listed_sheets(wb)))
+
+
+def _main_part(z: zipfile.ZipFile, path: Path) -> str:
+    main = pk.main_part(z)
     if main is None or main not in z.NameToInfo:
         raise WorkbookError(f"'{path.name}' is a zip archive but holds no workbook. Save it from "
                             "your spreadsheet as an Excel workbook (.xlsx).")
+    return main
+
+
+def _check_xml(z: zipfile.ZipFile, types: dict[str, str]) -> None:
+    """Every XML part's prolog through defusedxml (no DTD, no entity declarations)."""
     for name, ctype in types.items():
         if name.endswith((".xml", ".rels", ".vml")) or ctype.endswith("xml"):
-            _check_prolog(z, name)
-    wb_xml = z.read(main)
-    if b"purl.oclc.org/ooxml/spreadsheetml" in wb_xml:
+            pk.check_prolog(z, name)
+
+
+def _read_workbook(z: zipfile.ZipFile, main: str, path: Path) -> pk.Workbook:
+    if b"purl.oclc.org/ooxml/spreadsheetml" in z.read(main):
         raise WorkbookError(f"'{path.name}' is saved as Strict Open XML. Save it as an ordinary "
                             "Excel Workbook (.xlsx) and run again.")
-    wb = _parse(wb_xml, main)
-    wb_rels = _rels(z, main)
-    sheets: list[tuple[str, str]] = []
-    for s in wb.iter(f"{{{_NS_MAIN}}}sheet"):
-        rid = s.get(f"{{{_NS_R}}}id")
-        sheets.append((s.get("name", ""), wb_rels.get(rid, ("", ""))[1]))
-    ours = _result_sheet_names(wb)
-    found: list[str] = []
-    macro = types.get(main, "").startswith("application/vnd.ms-excel.sheet.macroEnabled")
+    return pk.read_workbook(z, main)
 
-    # parts hanging off our own result sheets are replaced with them
+
+def _owned_parts(z: zipfile.ZipFile, wb: pk.Workbook, marked: dict[int, str]) -> set[str]:
+    """Parts hanging off plumbrule's own (marked) sheets: written by plumbrule, carried
+    byte for byte, so they never count as foreign (also when the user renamed the sheet)."""
     owned: set[str] = set()
-    for name, part in sheets:
-        if name in ours:
-            owned.add(part)
-            _reachable(z, part, owned)
+    for s in wb.sheets:
+        if s.index in marked and s.part:
+            owned.add(s.part)
+            pk.reachable(z, s.part, owned)
+    return owned
+
+
+def _users_sheets(z: zipfile.ZipFile, wb: pk.Workbook, marked: dict[int, str]):
+    return [s for s in wb.sheets if s.index not in marked and s.part in z.NameToInfo]
+
+
+def _sheet_level_losses(z: zipfile.ZipFile, wb: pk.Workbook, marked) -> list[str]:
     # Workbook-level extensions (x15 settings, LibreOffice's calc settings...) are kept:
-    # xl/workbook.xml is edited textually, never re-serialised. Slicer and pivot caches
-    # they point to are parts of their own and are caught below.
-    described: set[str] = set()          # parts already named through their sheet
-    for name, part in sheets:
-        if name in ours or part not in z.NameToInfo:
-            continue
-        found.extend(f"{what} (sheet '{name}')" for what in _sheet_losses(z, part))
-        for kind, target in _rels(z, part).values():
-            if kind == "drawing":
-                described.add(target)
-                _reachable(z, target, described)
+    # xl/workbook.xml is edited in place, never re-serialised. Slicer and pivot caches
+    # they point to are parts of their own and are caught by _foreign_parts.
+    return [f"{what} (sheet '{s.name}')" for s in _users_sheets(z, wb, marked)
+            for what in _sheet_losses(z, s.part)]
+
+
+def _drawings_of(z: zipfile.ZipFile, wb: pk.Workbook, marked) -> set[str]:
+    """Drawing parts (and what hangs off them) already named through their sheet."""
+    described: set[str] = set()
+    for s in _users_sheets(z, wb, marked):
+        for rel in pk.rels(z, s.part).values():
+            if rel.kind == "drawing":
+                described.add(rel.target)
+                pk.reachable(z, rel.target, described)
+    return described
+
+
+def _foreign_parts(types: dict[str, str], skip: set[str], macro: bool) -> list[str]:
+    found = []
     for name, ctype in types.items():
-        if name in owned or name in described or name == main or ctype in CARRIED:
-            continue
-        if ctype in VBA_TYPES and macro:
+        if name in skip or ctype in CARRIED or (ctype in VBA_TYPES and macro):
             continue
         if name.startswith("customXml/"):
             found.append("custom XML data")
@@ -323,14 +273,17 @@ def _inspect(z: zipfile.ZipFile, path: Path) -> BookParts:
         if ctype == _SS + "worksheet+xml" or name.startswith("docProps/thumbnail"):
             continue
         found.append(_friendly(ctype, name))
+    return found
+
+
+def _form_controls(z: zipfile.ZipFile, types: dict[str, str], owned: set[str]) -> list[str]:
+    found = []
     for name, ctype in types.items():
         if ctype == _CT + "vmlDrawing" and name not in owned:
             kinds = set(re.findall(rb'ObjectType="(\w+)"', z.read(name))) - {b"Note"}
             if kinds:
                 found.append("form controls (" + ", ".join(sorted(k.decode() for k in kinds)) + ")")
-    return BookParts(macro_enabled=macro, sheets=tuple(n for n, _ in sheets),
-                     result_sheets=tuple(n for n, _ in sheets if n in ours),
-                     unsupported=tuple(dict.fromkeys(found)))
+    return found
 
 
 def _sheet_losses(z: zipfile.ZipFile, part: str) -> list[str]:
@@ -347,10 +300,9 @@ def _sheet_losses(z: zipfile.ZipFile, part: str) -> list[str]:
         for uri in _EXT_URI.findall(tail):
             u = uri.decode().upper()
             out.append(_EXT_NAMES.get(u, f"an extension {{{u}}}"))
-    sheet_rels = _rels(z, part)
-    for kind, target in sheet_rels.values():
-        if kind == "drawing":
-            out.append(_drawing_contents(z, target))
+    for rel in pk.rels(z, part).values():
+        if rel.kind == "drawing":
+            out.append(_drawing_contents(z, rel.target))
     return out
 
 
@@ -367,12 +319,13 @@ def _drawing_contents(z: zipfile.ZipFile, part: str) -> str:
     return ", ".join(parts) or "a drawing"
 
 
-def _result_sheet_names(wb) -> set[str]:
-    """plumbrule's own sheets, as recorded by the hidden defined name ``plumb_sheets``."""
-    for dn in wb.iter(f"{{{_NS_MAIN}}}definedName"):
-        if dn.get("name") == "plumb_sheets" and dn.text:
-            return set(parse_sheet_list(dn.text))
-    return set()
+def _listed_sheets(wb: pk.Workbook) -> list[str]:
+    """The sheets the hidden defined name ``plumb_sheets`` lists: a hint for messages only
+    (it can be copied or edited; the marks decide)."""
+    for n in wb.names:
+        if n.name == "plumb_sheets" and n.local is None:
+            return parse_sheet_list(n.text)
+    return []
 
 
 def parse_sheet_list(text: str) -> list[str]:
