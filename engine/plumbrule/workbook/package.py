@@ -256,7 +256,7 @@ def replaceable(wb: Workbook) -> tuple[Sheet, ...]:
 
 
 def structure_locked(wb: Workbook) -> bool:
-    el = wb.root.find(f"{{{NS_MAIN}}}workbookProtection")
+    el = wb.root.find(f"{{{NS_MAIN}}}workbookProtection")   # type: ignore[attr-defined]
     return el is not None and el.get("lockStructure", "").lower() in ("1", "true")
 
 

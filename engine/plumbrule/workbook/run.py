@@ -346,7 +346,7 @@ def write_atomic(target: Path, write, backup: bool) -> Path | None:
         _new_private(tmp)
         write(tmp)
         _take_mode(tmp, like)
-        if bak is not None:
+        if bak is not None and bak_tmp is not None:
             _new_private(bak_tmp)
             shutil.copyfile(target, bak_tmp)
             shutil.copystat(target, bak_tmp)
