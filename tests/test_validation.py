@@ -273,3 +273,20 @@ def test_cv_leaves_out_only_the_rows_whose_level_is_unseen():
         # Duan (1983) smearing: mean of exp(residuals) of the fitting rows
         smear = np.mean(np.exp(ref.resid))
         np.testing.assert_allclose(cv.estimate[rows], np.exp(cv.pred[rows]) * smear, rtol=1e-8)
+
+
+def test_one_name_per_scale_fit_and_validation_agree_on_the_price_scale(demo_frame):
+    """For a log model the fit table's mape and *_price_scale figures are the validation
+    table's training figures (price scale, fitted values retransformed as the estimates);
+    r_squared stays the log-scale R² of the least-squares fit (statsmodels' rsquared)."""
+    res = analyze(demo_frame, {**DEMO_SETTINGS, "holdout": 0.3, "folds": 0})
+    fit = res.tables.fit.iloc[0]
+    train = res.tables.validation.set_index("set").loc["training"]
+    assert fit["scale"] == "log price"
+    assert fit["mape"] == pytest.approx(train["mape"], rel=1e-12)
+    assert fit["r_squared_price_scale"] == pytest.approx(train["r_squared"], rel=1e-12)
+    assert fit["rmse_price_scale"] == pytest.approx(train["rmse"], rel=1e-12)
+    m = res.model
+    ols = sm.OLS(m.y, sm.add_constant(m.x)).fit()
+    assert fit["r_squared"] == pytest.approx(ols.rsquared, rel=1e-10)
+    assert fit["r_squared"] != pytest.approx(fit["r_squared_price_scale"], rel=1e-3)

@@ -81,10 +81,15 @@ def typical_spread(model: FittedModel) -> tuple[float, str]:
     return (float(np.expm1(sigma)), "share") if model.spec.log_response else (sigma, "price")
 
 
-def fit_table(model: FittedModel, n_dropped: int = 0, extra: dict | None = None) -> pd.DataFrame:
-    """One record of model-level figures (response units of the model scale;
-    mape in percent on the price scale)."""
+def fit_table(model: FittedModel, n_dropped: int = 0, extra: dict | None = None,
+              retransform: str = "smearing") -> pd.DataFrame:
+    """One record of model-level figures. ``scale`` names the model's scale ('log price' or
+    'price'): r_squared, adj_r_squared, f_stat, resid_std_error, rmse, mae, the likelihood
+    and AIC/BIC are on it. On the price scale, always: ``mape`` (percent) and
+    r_squared_price_scale, rmse_price_scale, mae_price_scale, with the fitted values
+    retransformed as the estimates are (``retransform``)."""
     from scipy.stats import f as fdist
+    from plumbrule.validation import error_figures
     fit = model.fit
     n, p = fit.n, fit.n_params
     df_model = p - int(fit.has_intercept)
@@ -92,26 +97,24 @@ def fit_table(model: FittedModel, n_dropped: int = 0, extra: dict | None = None)
     adj = 1.0 - (1.0 - r2) * (n - int(fit.has_intercept)) / fit.df_resid
     f_stat = _f_statistic(model, r2, df_model)
     f_p = float(fdist.sf(f_stat, df_model, fit.df_resid)) if df_model > 0 else np.nan
-    e = fit.resid
     loglik = -0.5 * n * (np.log(2.0 * np.pi) + np.log(fit.ssr / n) + 1.0)
-    ape = np.abs(e)
-    mae = float(np.mean(ape))
+    mae = float(np.mean(np.abs(fit.resid)))
     if model.spec.log_response:
-        np.negative(e, out=ape)
-        np.expm1(ape, out=ape)                          # (exp(ŷ) − price) / price
+        price = model.data[model.spec.response].to_numpy(float)
+        on_price = error_figures(price, model.fitted_prices(retransform), model.y, fit.fitted)
     else:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            np.divide(e, model.y, out=ape)
-    np.abs(ape, out=ape)
-    mape = 100.0 * float(np.mean(ape)) if np.all(np.isfinite(ape)) else np.nan
+        on_price = error_figures(model.y, fit.fitted, model.y, fit.fitted)
     rec = {
         "n_used": n, "n_dropped": int(n_dropped), "n_params": p, "df_resid": fit.df_resid,
         "r_squared": r2, "adj_r_squared": adj, "f_stat": f_stat, "f_p_value": f_p,
         "resid_std_error": fit.sigma, "rmse": float(np.sqrt(fit.ssr / n)),
-        "mae": mae, "mape": mape, "log_likelihood": loglik,
+        "mae": mae, "mape": on_price["mape"], "log_likelihood": loglik,
         "aic": -2.0 * loglik + 2.0 * p, "bic": -2.0 * loglik + np.log(n) * p,
         "se_type": model.robust_se or "classical",
         "response": model.encoding.response_name,
+        "scale": "log price" if model.spec.log_response else "price",
+        "r_squared_price_scale": on_price["r_squared"],
+        "rmse_price_scale": on_price["rmse"], "mae_price_scale": on_price["mae"],
     }
     rec.update(extra or {})
     return pd.DataFrame([rec])

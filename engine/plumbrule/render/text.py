@@ -95,9 +95,15 @@ def _fit_block(result) -> list[str]:
                   f"{100 * typical_spread(result.model)[0]:.1f} % of the model")
     else:
         spread = f"{readable(sigma)}: a typical sale lies within about this amount of the model"
+    scale = " (log scale)" if log_y else ""
     rows = [
-        ("R²", f"{fit['r_squared']:.4f}   (adjusted {fit['adj_r_squared']:.4f})"
+        ("R²" + scale, f"{fit['r_squared']:.4f}   (adjusted {fit['adj_r_squared']:.4f})"
          + ("" if result.encoding.spec.intercept else "; no intercept, so measured from zero")),
+    ]
+    if log_y:
+        rows.append(("R² (price scale)", f"{fit['r_squared_price_scale']:.4f}   (fitted prices "
+                     "retransformed as the estimates are)"))
+    rows += [
         ("F statistic", f"{readable(fit['f_stat'])}   (p {p_value(fit['f_p_value'])})"),
         ("residual std error", spread),
         ("mean absolute % error", f"{fit['mape']:.2f} % of the sale price"

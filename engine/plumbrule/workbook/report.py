@@ -161,7 +161,8 @@ def _headline(ws, ctx, r) -> int:
                  _set_aside_text(ctx)))
     rows.append(("Share of variation explained (R²)", ctx.fit["r_squared"], None, PERCENT,
                  f"adjusted R² {float(ctx.fit['adj_r_squared']):.1%}"
-                 + (", on the log scale" if ctx.log else "")))
+                 + (f", on the log scale; on prices {float(ctx.fit['r_squared_price_scale']):.1%}"
+                    if ctx.log else "")))
     trend = _trend(ctx)
     if trend:
         rows.append(trend)

@@ -43,11 +43,14 @@ _WORDS = {
 _FIT_WORDS = {
     "n_used": "Sales used in the fit", "n_dropped": "Rows dropped (missing values)",
     "n_holdout": "Sales held out for testing", "n_screened": "Sales set aside by screening",
-    "n_params": "Parameters", "df_resid": "Residual degrees of freedom", "r_squared": "R²",
-    "adj_r_squared": "Adjusted R²", "f_stat": "F statistic", "f_p_value": "p-value of F",
+    "n_params": "Parameters", "df_resid": "Residual degrees of freedom",
+    "r_squared": "R² (model scale)", "adj_r_squared": "Adjusted R² (model scale)",
+    "f_stat": "F statistic", "f_p_value": "p-value of F",
     "resid_std_error": "Residual standard error (model scale)", "rmse": "RMSE (model scale)",
     "mae": "MAE (model scale)", "mape": "MAPE (% of price)", "log_likelihood": "Log-likelihood",
     "aic": "AIC", "bic": "BIC", "se_type": "Standard errors", "response": "Response",
+    "scale": "Model scale", "r_squared_price_scale": "R² (price scale)",
+    "rmse_price_scale": "RMSE (price scale)", "mae_price_scale": "MAE (price scale)",
 }
 _MONEY_COLUMNS = {
     "sale_price", "se_mean", "se_single", "ci_low", "ci_high", "pi_low", "pi_high", "value",
@@ -208,7 +211,9 @@ def model_sentence(analysis) -> str:
         extra.append(f"{int(fit['n_dropped'])} dropped for missing values")
     tail = f" ({'; '.join(extra)})" if extra else ""
     return (f"{resp} explained by {k} terms, fitted by least squares on {int(fit['n_used'])} "
-            f"sales{tail}; R² = {float(fit['r_squared']):.3f}.")
+            f"sales{tail}; R² = {float(fit['r_squared']):.3f}"
+            + (f" on the log scale ({float(fit['r_squared_price_scale']):.3f} on prices)."
+               if analysis.spec.log_response else "."))
 
 
 # --- Screening ---------------------------------------------------------------
