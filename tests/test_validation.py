@@ -290,3 +290,12 @@ def test_one_name_per_scale_fit_and_validation_agree_on_the_price_scale(demo_fra
     ols = sm.OLS(m.y, sm.add_constant(m.x)).fit()
     assert fit["r_squared"] == pytest.approx(ols.rsquared, rel=1e-10)
     assert fit["r_squared"] != pytest.approx(fit["r_squared_price_scale"], rel=1e-3)
+
+
+def test_cross_validation_after_influence_screening_is_labelled_optimistic(demo_frame):
+    # The influence rule sees every sale before the folds are cut, so the out-of-fold
+    # figures never meet the sales it removed: the ratio study must not read as unscreened.
+    plain = analyze(demo_frame, {**DEMO_SETTINGS, "folds": 4})
+    screened = analyze(demo_frame, {**DEMO_SETTINGS, "folds": 4, "influence_screen": True})
+    assert plain.tables.ratio_study["sample"].iloc[0] == "cross-validated (out-of-fold)"
+    assert "optimistic" in screened.tables.ratio_study["sample"].iloc[0]
