@@ -537,19 +537,33 @@ def _percentiles(s: Setting, v: Any) -> tuple[float, float]:
     return lo, hi
 
 
+def sheet_row(v: Any, first: int = 1) -> int | None:
+    """A cell or text naming a sheet row (12, 12.0, ' 12 ') → 12; None when it is not a
+    whole number of at least ``first`` (a boolean is not a row). The one reader of row
+    references: settings, the Comps sheet, comparables given in code."""
+    if isinstance(v, (tuple, list)) and v:
+        v = v[0]
+    if isinstance(v, bool) or v is None:
+        return None
+    try:
+        f = float(str(v).strip()) if isinstance(v, str) else float(v)
+    except (TypeError, ValueError, OverflowError):
+        return None
+    if not math.isfinite(f) or f != int(f) or f < first:
+        return None
+    return int(f)
+
+
 def _rows(s: Setting, v: Any) -> tuple[tuple[int, str], ...]:
     """'12,40' or '12=family sale,40' or [12, 40] → ((12, ''), (40, ''))."""
     out = []
     for part in _split(v):
         row, _, reason = part.partition("=")
-        try:
-            r = float(row.strip())
-            if r != int(r) or r < 1:
-                raise ValueError
-        except (ValueError, OverflowError):
+        r = sheet_row(row)
+        if r is None:
             raise SettingError(f"Setting '{s.name}': '{part}' is not a sheet row number. "
-                               "Enter row numbers such as 12,40.", setting=s.name) from None
-        out.append((int(r), reason.strip()))
+                               "Enter row numbers such as 12,40.", setting=s.name)
+        out.append((r, reason.strip()))
     return tuple(out)
 
 

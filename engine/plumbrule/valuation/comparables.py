@@ -83,16 +83,12 @@ def resolve_comps(analysis, rows) -> CompSet | None:
 
 
 def _row_number(r) -> int:
-    if isinstance(r, (tuple, list)):
-        r = r[0]
-    try:
-        f = float(r)
-        if f != int(f) or f < 1:
-            raise ValueError
-    except (TypeError, ValueError):
+    from plumbrule.settings import sheet_row
+    row = sheet_row(r)
+    if row is None:
         raise SpecError(f"Setting 'comps': '{r}' is not a sheet row number. Enter rows such as "
-                        "12,40,57.", setting="comps") from None
-    return int(f)
+                        "12,40,57.", setting="comps")
+    return row
 
 
 def _drop_reason(dropped: pd.DataFrame, row: int) -> str:

@@ -149,24 +149,18 @@ def _has_tables(book) -> bool:
 
 def _comp_rows(block: list, header_row: int, sheet: str | None) -> tuple[int, ...]:
     """First column below the header: Sales sheet row numbers (blank cells skipped)."""
+    from plumbrule.settings import sheet_row
     out = []
     for i, row in enumerate(block[1:], start=header_row + 1):
         v = row[0] if row else None
         if v is None or (isinstance(v, str) and not v.strip()):
             continue
-        try:
-            f = (
-                float(str(v).strip())
-                if not isinstance(v, (int, float)) or isinstance(v, bool)
-                else float(v)
-            )
-            if isinstance(v, bool) or f != int(f) or f < 2:
-                raise ValueError
-        except ValueError:
+        r = sheet_row(v, first=2)
+        if r is None:
             raise WorkbookError(f"Sheet '{sheet}', cell A{i}: '{v}' is not a row number of the "
                                 "Sales sheet. Enter the sheet row of a comparable sale (e.g. 12).",
-                                sheet=sheet, row=i) from None
-        out.append(int(f))
+                                sheet=sheet, row=i)
+        out.append(r)
     return tuple(out)
 
 
