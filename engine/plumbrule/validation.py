@@ -302,7 +302,7 @@ def _combine(blocks, keep: np.ndarray):
     cols = np.concatenate([keep, [True]])
     stacked = np.vstack([r[:, cols] for r, _ in blocks])
     n = sum(m for _, m in blocks)
-    r = np.linalg.qr(stacked, mode="r")
+    r = np.asarray(np.linalg.qr(stacked, mode="r"))
     diag = np.abs(np.diag(r)[:k])
     if n <= k or diag.min(initial=np.inf) <= 1e-10 * max(diag.max(initial=0.0), 1.0):
         return None, 0
@@ -333,7 +333,8 @@ def validation_table(model, retransform: str, holdout: pd.DataFrame | None = Non
     y = model.y if spec.log_response else price        # equal arrays on the price scale
     recs = [{"set": "training", **error_figures(price, est, y, fitted),
              "note": "in-sample: the rows the model was fitted on"}]
-    if holdout is not None and len(holdout):
+    if holdout is not None and len(holdout) and holdout_estimate is not None \
+            and holdout_pred is not None:
         hp = holdout[spec.response].to_numpy(float)
         hy = model.encoding.response(holdout)
         recs.append({"set": "holdout", **error_figures(hp, holdout_estimate, hy, holdout_pred),

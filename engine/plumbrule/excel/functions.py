@@ -46,7 +46,7 @@ except ImportError:  # pragma: no cover - xlwings is a dependency; keep the modu
         def ret(*a, **kw):
             return lambda g: g
 
-    xw = _NoXlwings()
+    xw = _NoXlwings()  # type: ignore[assignment]
 
 CATEGORY = "plumbrule"
 MAX_ROWS = 1_048_576          # Excel's sheet: rows × columns
@@ -118,7 +118,7 @@ def frame_cells(frame) -> list[list[Any]]:
     out = [[text_cell(str(c)) for c in columns]]
     out.extend(map(list, zip(*cols, strict=False)) if cols else ([] for _ in range(body_rows)))
     if cut:
-        note = [None] * len(columns)
+        note: list = [None] * len(columns)
         note[0] = text_cell(f"\u2026 {cut + 1} more rows not shown "
                             f"(a sheet holds {MAX_ROWS:,} rows)")
         out.append(note)
@@ -384,7 +384,7 @@ def _table(analysis, name: str):
 
 
 # Argument help per parameter name; every model function takes a subset of these.
-ARGS = {
+ARGS: dict[str, dict[str, Any]] = {
     "sales": dict(ndim=2, doc=DOC_SALES),
     "response": dict(doc=DOC_RESPONSE),
     "predictors": dict(doc=DOC_PREDICTORS),

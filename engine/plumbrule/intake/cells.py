@@ -278,7 +278,7 @@ def _plain_numbers(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     if has_codes:
         c = v[codes].astype(np.int64)
         reason[codes] = [f"error value {COM_ERROR_CODES[k]} (code {k})" for k in c]
-        v = np.where(codes, np.nan, v)
+        v = np.where(np.asarray(codes), np.nan, v)
     infinite = np.isinf(v)
     if infinite.any():
         _refuse(pd.Series(infinite, index=col.index), col, "is not a finite number. "

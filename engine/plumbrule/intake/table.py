@@ -190,7 +190,7 @@ def _with_header(headers: list[Any], body: pd.DataFrame, header_row: int,
                           f"once ({where}). Give each column its own name.",
                           column=next(iter(dups)), row=header_row)
     body.columns = names
-    if len(body):
+    if len(body) and blank_cells is not None:
         filled = ~blank_cells[keep].all(axis=1).to_numpy()
         # Rows after the last filled one are an over-wide selection, not sales.
         last = int(np.flatnonzero(filled)[-1]) + 1 if filled.any() else 0

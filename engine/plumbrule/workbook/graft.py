@@ -470,11 +470,12 @@ def _merge_styles(u: _Pkg, r: _Pkg) -> dict:
     maps: dict[str, dict[int, int]] = {}
     # number formats: by format code; new ids above every id in use
     u_fmts, _ = _items(text, "numFmts", re.escape(p))
-    code_to_id = {_unescape(_attr(f, "formatCode")): int(_attr(f, "numFmtId")) for f in u_fmts}
+    code_to_id = {_unescape(_attr(f, "formatCode")): int(_attr(f, "numFmtId") or 0)
+                  for f in u_fmts}
     next_id = max([163] + list(code_to_id.values())) + 1
     fmt_map, new_fmts = {}, []
     for f in _items(rtext, "numFmts")[0]:
-        rid, code = int(_attr(f, "numFmtId")), _unescape(_attr(f, "formatCode"))
+        rid, code = int(_attr(f, "numFmtId") or 0), _unescape(_attr(f, "formatCode"))
         if code not in code_to_id:
             code_to_id[code] = next_id
             new_fmts.append(f'<{p}numFmt{ns} numFmtId="{next_id}" formatCode="{_escape(code)}"/>')
@@ -494,7 +495,8 @@ def _merge_styles(u: _Pkg, r: _Pkg) -> dict:
         fixed.append(xf)
     u_xfs, _ = _items(text, "cellXfs", re.escape(p))
     canon = {_canon(x): i for i, x in enumerate(u_xfs)}
-    xf_map, new_xfs = {}, []
+    xf_map: dict[int, int] = {}
+    new_xfs: list = []
     for i, xf in enumerate(fixed):
         key = _canon(xf)
         if key not in canon:
@@ -529,10 +531,11 @@ def _sub_id(el: str, attr: str, fn) -> str:
 def _merge_list(text: str, rtext: str, container: str, p: str, ns: str, before=(),
                 tail: bool = False):
     u_items, _ = _items(text, container, re.escape(p))
-    canon = {}
+    canon: dict = {}
     for i, el in enumerate(u_items):
         canon.setdefault(_canon(el), i)
-    mapping, new = {}, []
+    mapping: dict[int, int] = {}
+    new: list = []
     for i, el in enumerate(_items(rtext, container)[0]):
         key = _canon(el)
         if key not in canon:

@@ -173,7 +173,7 @@ def _inputs(w: _Writer, analysis, start: _Start, lay: _Layout
             _level_list(ws, ws.cell(row=r, column=2).coordinate, _abs(r, 5),
                         _abs(r, 4 + len(levels[col])), col)
         else:
-            number = float(value) if not is_blank(value) else float(
+            number = float(value) if not is_blank(value) else float(  # type: ignore[arg-type]
                 np.median(model.data[col].to_numpy(dtype=float)))
             w.value(r, 2, number, fmt=_number_format(model.data[col]), fill=_INPUT_FILL)
             w.text(r, 3, "as its logarithm (must be above 0)" if col in spec.log_predictors
