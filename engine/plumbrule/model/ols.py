@@ -201,6 +201,32 @@ def fit_ols(x: np.ndarray, y: np.ndarray, names: list[str],
         raise FitError(
             f"Only {n} usable rows for {n_params} parameters: the fit needs at least "
             f"{n_params + 1}. Add sales or remove predictors.")
+    q, r, means, norms, cond = _factor(x, names, intercept)
+    coef, resid, qty, tss = _coefficients(x, y, q, r, means, norms, intercept, cond)
+    df_resid = n - n_params
+    ssr = dot(resid, resid)
+    sigma = float(np.sqrt(ssr / df_resid))
+    rinv = _solve_r(r, np.eye(k))
+    lmat = _coef_map(r, means, norms, n, intercept, rinv)
+    leverage = np.einsum("ij,ij->i", q, q)
+    if intercept:
+        leverage += 1.0 / n
+    all_names = (("intercept",) if intercept else ()) + tuple(names)
+    return OLSFit(
+        names=all_names, coef=coef, cov=sigma ** 2 * (lmat @ lmat.T),
+        se=sigma * np.sqrt(np.einsum("ij,ij->i", lmat, lmat)), fitted=y - resid, resid=resid,
+        leverage=leverage, n=n, n_params=n_params, df_resid=df_resid, ssr=ssr,
+        tss=tss, sigma=sigma, has_intercept=intercept, q=q, r=r,
+        x_means=means, x_norms=norms,
+        vif=np.einsum("ij,ij->i", rinv, rinv) if intercept else np.full(k, np.nan),
+        cond_number=cond, qty=qty)
+
+
+def _factor(x: np.ndarray, names: list[str], intercept: bool):
+    """QR of the working design (columns centred with an intercept, unit length):
+    (Q, R, column means, column norms, condition number of the working design). Refuses a
+    constant column or an exact combination of columns."""
+    n, k = x.shape
     means = _column_means(x) if intercept else np.zeros(k)
     xs = np.empty((n, k), order="F")
     np.subtract(x, means, out=xs)
@@ -213,45 +239,30 @@ def fit_ols(x: np.ndarray, y: np.ndarray, names: list[str],
     del xs
     svals = _singular_values(r)
     _check_rank(svals, x, means, norms, names, intercept)
+    cond = float(svals[0] / svals[-1]) if svals[-1] > 0 else float("inf")
+    return q, r, means, norms, cond
 
+
+def _coefficients(x, y, q, r, means, norms, intercept: bool, cond: float):
+    """(coefficients in user units, residuals, Qᵀ(y − ȳ), total sum of squares): the
+    working solve, refined in extended precision against the data."""
     y_mean = float(np.mean(y)) if intercept else 0.0
     yc = y - y_mean if intercept else y
     qty = q.T @ yc
     tss = dot(yc, yc)
     del yc
-    theta = _solve_r(r, qty)                          # working coefficients
-    b = theta / norms
-    cond = float(svals[0] / svals[-1]) if svals[-1] > 0 else float("inf")
+    b = _solve_r(r, qty) / norms                      # working coefficients → user units
     quick = _refine_double(x, y, means, norms, q, r, b, y_mean, intercept, cond)
     if quick is not None:
         b_ext, c_ext, res_ext = quick
     else:
         b_ext, c_ext, res_ext = _refine(x, y, means, norms, q, r, b, y_mean, intercept)
-    resid = np.asarray(res_ext, dtype=float)
     b = b_ext.astype(float)
     # The intercept is a difference of large numbers (ȳ − x̄·b): form it from the
     # extended-precision slopes and constant so the cancellation costs no digits.
     b0 = float(c_ext - np.dot(means.astype(np.longdouble), b_ext))
     coef = np.concatenate([[b0], b]) if intercept else b
-
-    df_resid = n - n_params
-    ssr = dot(resid, resid)
-    sigma = float(np.sqrt(ssr / df_resid))
-    rinv = _solve_r(r, np.eye(k))
-    lmat = _coef_map(r, means, norms, n, intercept, rinv)
-    cov = sigma ** 2 * (lmat @ lmat.T)
-    se = sigma * np.sqrt(np.einsum("ij,ij->i", lmat, lmat))
-    leverage = np.einsum("ij,ij->i", q, q)
-    if intercept:
-        leverage += 1.0 / n
-    vif = np.einsum("ij,ij->i", rinv, rinv) if intercept else np.full(k, np.nan)
-    all_names = (("intercept",) if intercept else ()) + tuple(names)
-    return OLSFit(
-        names=all_names, coef=coef, cov=cov, se=se, fitted=y - resid, resid=resid,
-        leverage=leverage, n=n, n_params=n_params, df_resid=df_resid, ssr=ssr,
-        tss=tss, sigma=sigma, has_intercept=intercept, q=q, r=r,
-        x_means=means, x_norms=norms, vif=vif,
-        cond_number=cond, qty=qty)
+    return coef, np.asarray(res_ext, dtype=float), qty, tss
 
 
 # --- pieces ---------------------------------------------------------------
