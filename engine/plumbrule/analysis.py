@@ -187,7 +187,8 @@ def _screen_and_split(sales: Sales, settings: Settings):
     """Split, then screen: (training rows, holdout rows, fit log, rows each rule examined,
     holdout rows moved to training)."""
     data, spec = sales.data, sales.spec
-    split = validate.split_rows(data, settings, spec.date_column, sales.keys(data.index))
+    split = validate.split_rows(data, validate.holdout_share(settings), settings.holdout_recent,
+                                settings.seed, spec.date_column, sales.keys(data.index))
     basis = data.loc[data.index.isin(split.training)] if len(split.holdout) else data
     screened = screen.data_rules(
         data, spec.screened, sales.table.frame.index, exclude_rows=sales.exclude_rows,

@@ -84,21 +84,21 @@ def recent_holdout(dates: pd.Series, share: float) -> np.ndarray:
     return mask
 
 
-def split_rows(data: pd.DataFrame, settings: Settings, date_column: str | None,
-               keys: np.ndarray) -> Split:
-    """Split the clean rows into training and holdout by the settings; ``keys`` are the
-    rows' sale keys (same order as ``data``)."""
-    share = holdout_share(settings)
+def split_rows(data: pd.DataFrame, share: float, recent: bool, seed: int,
+               date_column: str | None, keys: np.ndarray) -> Split:
+    """Split the clean rows into training and holdout: ``share`` held out, the most
+    recent by ``date_column`` when ``recent``, else each sale by its own seeded draw
+    (``keys``: the rows' sale keys, same order as ``data``)."""
     if share <= 0:
         return Split(data.index, data.index[:0], "none")
-    if settings.holdout_recent:
+    if recent:
         if not date_column:
             raise SettingError("Setting 'holdout_recent' needs a sale-date column. Set "
                                "'date_column' or use a random holdout.", setting="holdout_recent")
         mask = recent_holdout(data[date_column], share)
         method = "recent"
     else:
-        mask = random_holdout(keys, share, settings.seed)
+        mask = random_holdout(keys, share, seed)
         method = "random"
     return Split(data.index[~mask], data.index[mask], method)
 

@@ -114,7 +114,23 @@ def _set_aside_note(analysis, row: int) -> str:
 
 # --- the grid -----------------------------------------------------------------
 
-def adjustment_grid(model, subj, comps: CompSet | None, settings, when: _dt.date,
+@dataclass(frozen=True)
+class GridRules:
+    """How the grid judges and weighs comparables: ``weights`` 'gross' (inverse gross
+    adjustment) or 'equal'; flags above ``net_limit`` / ``gross_limit`` (shares of the
+    sale price)."""
+
+    weights: str = "gross"
+    net_limit: float = 0.15
+    gross_limit: float = 0.25
+
+    @classmethod
+    def from_settings(cls, settings) -> "GridRules":
+        return cls(settings.comp_weights, settings.net_adjustment_limit,
+                   settings.gross_adjustment_limit)
+
+
+def adjustment_grid(model, subj, comps: CompSet | None, rules: GridRules, when: _dt.date,
                     estimates: pd.DataFrame | None = None):
     """(grid, reconciled) DataFrames; both empty (with their columns) without
     comparables. Money in the sale-price column's units; *_pct are shares of
@@ -135,8 +151,8 @@ def adjustment_grid(model, subj, comps: CompSet | None, settings, when: _dt.date
     gross = np.abs(money).sum(axis=1)
     adjusted = price + net
     net_pct, gross_pct = net / price, gross / price
-    weights = comp_weights(gross_pct, settings.comp_weights)
-    flags = _comp_flags(comps, net_pct, gross_pct, settings, when, spec)
+    weights = comp_weights(gross_pct, rules.weights)
+    flags = _comp_flags(comps, net_pct, gross_pct, rules, when, spec)
     label = subj.labels.iloc[0]
     parts = [_feature_frame(f, comps, subj, diff, fit, idx, kind, e_f[:, j], money[:, j],
                             alone[:, j], price, spec, when)
@@ -155,7 +171,7 @@ def adjustment_grid(model, subj, comps: CompSet | None, settings, when: _dt.date
     grid.insert(0, "subject", label)
     grid = grid.reindex(columns=GRID_COLUMNS).reset_index(drop=True)
     reconciled = reconcile(label, comps.data.index.to_numpy(), adjusted, weights,
-                           settings.comp_weights, flags, estimates)
+                           rules.weights, flags, estimates)
     return grid, reconciled
 
 
@@ -216,17 +232,17 @@ def _feature_frame(name, comps, subj, diff, fit, idx, kind, e, money, alone, pri
         "adjustment_pct": money / price, "sale_price": price})
 
 
-def _comp_flags(comps, net_pct, gross_pct, settings, when, spec) -> list[str]:
+def _comp_flags(comps, net_pct, gross_pct, rules: GridRules, when, spec) -> list[str]:
     """Adjustment limits (common practice, no source; settable) and comp notes."""
     out = []
     for i, row in enumerate(comps.data.index):
         notes = []
-        if abs(net_pct[i]) > settings.net_adjustment_limit:
+        if abs(net_pct[i]) > rules.net_limit:
             notes.append(f"net adjustment {100 * net_pct[i]:+.1f}% exceeds "
-                         f"{100 * settings.net_adjustment_limit:g}% of the sale price")
-        if gross_pct[i] > settings.gross_adjustment_limit:
+                         f"{100 * rules.net_limit:g}% of the sale price")
+        if gross_pct[i] > rules.gross_limit:
             notes.append(f"gross adjustment {100 * gross_pct[i]:.1f}% exceeds "
-                         f"{100 * settings.gross_adjustment_limit:g}% of the sale price")
+                         f"{100 * rules.gross_limit:g}% of the sale price")
         if spec.date_column and comps.data[spec.date_column].iloc[i] > pd.Timestamp(when):
             notes.append("sold after the valuation date")
         if row in comps.notes:

@@ -66,7 +66,7 @@ def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | No
     """Value ``subjects`` (SheetTable, DataFrame or 2-D values with a header)
     with ``analysis.model``; ``comps`` are sheet rows of the sales table (or
     taken from the settings' ``comps``). Returns a frozen :class:`Valuation`."""
-    from plumbrule.valuation.comparables import adjustment_grid, resolve_comps
+    from plumbrule.valuation.comparables import GridRules, adjustment_grid, resolve_comps
     settings = _settings(analysis, settings)
     model = analysis.model
     when = settings.valuation_date or _dt.date.today()
@@ -77,8 +77,8 @@ def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | No
         raise SpecError(f"Comparables belong to one subject, but {len(subj.data)} subjects "
                         "were given. Value one subject with 'comps', or leave 'comps' empty.",
                         setting="comps")
-    grid, reconciled = adjustment_grid(model, subj, comp_set, settings, when,
-                                       estimates=estimates)
+    grid, reconciled = adjustment_grid(model, subj, comp_set, GridRules.from_settings(settings),
+                                       when, estimates=estimates)
     from plumbrule.sales import with_ids
     grid = with_ids(grid, analysis.ids, column="comp_row", name="comp_id")
     return Valuation(estimates=estimates, grid=grid, reconciled=reconciled,
