@@ -150,3 +150,24 @@ def test_sales_above_a_row_of_words_are_not_skipped_as_titles():
             ["unknown", "unknown", "pending"]]
     with pytest.raises(IntakeError, match=r"^Header row \(sheet row 1\): column C has no name"):
         table_from_values(rows)
+
+
+def test_a_workbook_without_settings_is_read_from_its_first_sheet_of_sales(tmp_path):
+    """A cover sheet of notes comes first; the first sheet whose header row is words is the
+    sales, unless --sheet names another."""
+    import openpyxl
+    from plumbrule.intake import read_table
+    book = openpyxl.Workbook()
+    cover = book.active
+    cover.title = "Cover"
+    cover.append(["Wrenfield assessor's office"])
+    cover.append(["Prepared 2025-04-01"])
+    sales = book.create_sheet("Register")
+    sales.append(["Sale price", "Living area"])
+    sales.append([210000, 1500])
+    sales.append([250000, 1800])
+    path = tmp_path / "register.xlsx"
+    book.save(path)
+    table = read_table(path)
+    assert table.sheet == "Register" and table.columns == ["Sale price", "Living area"]
+    assert read_table(path, sheet="Cover").sheet == "Cover"

@@ -436,8 +436,10 @@ def test_xlsx_sheet_block_keeps_sheet_rows_and_letters(workbook):
     assert cd.dropped.to_dict("records") == [{"row": 6, "column": "Price", "reason": "blank"}]
 
 
-def test_xlsx_first_sheet_by_default_and_missing_sheets(workbook):
-    assert read_table(workbook).columns == ["read me"]
+def test_xlsx_first_sheet_of_sales_by_default_and_missing_sheets(workbook):
+    # the 'Notes' sheet before the sales has one column of words: passed over
+    assert read_table(workbook).sheet == "Sales"
+    assert read_table(workbook, sheet="Notes").columns == ["read me"]
     with pytest.raises(IntakeError, match=r"has no sheet 'Prices'\. Sheets: 'Notes', 'Sales' "
                                           r"and 'Empty'"):
         read_table(workbook, sheet="Prices")

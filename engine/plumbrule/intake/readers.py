@@ -127,7 +127,7 @@ def read_sheet(path: str | Path, sheet: str | None = None,
     if not names:
         raise IntakeError(f"Workbook '{Path(path).name}' has no worksheets.")
     if sheet is None:
-        sheet = names[0]
+        sheet = _first_table_sheet(book, names)
     elif sheet not in names:
         folded = [n for n in names if n.casefold() == str(sheet).strip().casefold()]
         if len(folded) != 1:
@@ -152,6 +152,24 @@ def read_sheet(path: str | Path, sheet: str | None = None,
     table = table_from_values(values, header_row=start[0] + 1, sheet=sheet,
                               first_column=start[1] + 1, header_at=header_row)
     return _with_facts(table, values, start, facts)
+
+
+def _first_table_sheet(book, names: list[str]) -> str:
+    """The first sheet whose header row is words (a cover or notes sheet before the sales is
+    passed over); the first sheet when none is."""
+    from plumbrule.intake.table import find_header, padded
+    for name in names:
+        try:
+            values = book.get_sheet_by_name(name).to_python(skip_empty_area=True)
+        except Exception:      # an unreadable sheet is not the sales; the first one says why
+            continue
+        if not values or len(values) < 2:
+            continue
+        block = padded(values[:60])
+        row = [v for v in block[find_header(block)] if v is not None and v != ""]
+        if len(row) >= 2 and all(isinstance(v, str) for v in row):
+            return name
+    return names[0]
 
 
 def hidden_rows_log(table: SheetTable) -> pd.DataFrame:
