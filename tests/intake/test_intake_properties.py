@@ -145,9 +145,43 @@ def test_analysis_of_any_block_raises_only_plumb_errors(block, data):
         kw["date_column"] = preds[3]
     if data.draw(st.booleans()):
         kw["log_predictors"] = preds[0]
-    if "," in "".join(cols):          # a header with a comma cannot be named in a list
-        return
+    # the real-sheet settings: every combination answers with results or our own errors
+    kw["bad_cells"] = data.draw(st.sampled_from(["refuse", "set_aside"]))
+    kw["duplicates"] = data.draw(st.sampled_from(["set_aside", "keep", "refuse"]))
+    kw["date_format"] = data.draw(st.sampled_from(["auto", "MDY", "DMY", "YMD"]))
+    kw["fence_scale"] = data.draw(st.sampled_from(["model", "raw"]))
+    if data.draw(st.booleans()):
+        kw["iqr_fence"] = 3
+        kw["holdout"] = data.draw(st.sampled_from([None, 0.3]))
+    if len(preds) >= 3 and "categorical" in kw and data.draw(st.booleans()):
+        kw["keep_only"] = f"{preds[2]}=a|B"
+    if "," in "".join(cols) or any(ch in "".join(cols) for ch in ";:=|"):
+        return                        # a header with a separator cannot be named in a list
     _only_our_errors(lambda: analyze(table, kw))
+
+
+@SETTINGS
+@given(n=st.integers(30, 70), seed=st.integers(0, 10 ** 6), where=st.floats(0, 1),
+       with_id=st.booleans())
+def test_an_inserted_sale_leaves_every_other_sales_holdout_place(n, seed, where, with_id):
+    """Each sale's place (training or holdout) is its own: a sale inserted anywhere never
+    moves another (with an ID column, or by the sales' own values without one)."""
+    rng = np.random.default_rng(seed)
+    area = rng.uniform(700, 2600, n).round()
+    frame = pd.DataFrame({"ID": [f"S{i}" for i in range(n)],
+                          "Price": (30000 + 90 * area + rng.normal(0, 9000, n)).round(),
+                          "Area": area})
+    kw = dict(response="Price", predictors="Area", holdout=0.3, folds=0, seed=seed)
+    if with_id:
+        kw["id_column"] = "ID"
+    at = int(where * n)
+    new = pd.DataFrame({"ID": ["NEW"], "Price": [199999.0], "Area": [1777.0]})
+    grown = pd.concat([frame.iloc[:at], new, frame.iloc[at:]], ignore_index=True)
+
+    def held(f):
+        res = analyze(f, kw)
+        return set(f["ID"].to_numpy()[res.holdout.index.to_numpy() - 2])
+    assert held(frame) == held(grown) - {"NEW"}
 
 
 # --- round trips -------------------------------------------------------------------------
