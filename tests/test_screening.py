@@ -221,7 +221,7 @@ def test_log_scale_fence_catches_a_dropped_digit_the_raw_fence_cannot():
     model = analyze(frame, base).tables.screen_log
     assert 19 not in set(raw["row"])
     assert 19 in set(model["row"])
-    assert "of the logarithm" in model.set_index("row").loc[19, "reason"]
+    assert "judged on the logarithm" in model.set_index("row").loc[19, "reason"]
 
 
 def test_price_is_screened_only_when_named(demo_frame):
@@ -233,3 +233,10 @@ def test_price_is_screened_only_when_named(demo_frame):
     checks = named.tables.checks.set_index("check")
     assert checks.loc["Screening on the sale price", "verdict"] == "watch"
     assert "too narrow" in checks.loc["Screening on the sale price", "note"]
+
+
+def test_only_logged_columns_say_they_were_judged_on_the_logarithm(demo_frame):
+    res = analyze(demo_frame, {**DEMO_SETTINGS, "trim_percentiles": "1,99"})
+    log = res.tables.screen_log
+    for _, rec in log.iterrows():
+        assert ("judged on the logarithm" in rec["reason"]) == (rec["column"] in LOGGED)

@@ -127,7 +127,7 @@ def manual_rule(data: pd.DataFrame, exclude_rows: Sequence[tuple[int, str]],
 
 
 def outside_rule(data: pd.DataFrame, limits: pd.DataFrame, rule: str,
-                 low_label: str, high_label: str) -> pd.DataFrame:
+                 low_label: str, high_label: str, logged: Sequence[str] = ()) -> pd.DataFrame:
     """One log record per row with a value below ``low`` or above ``high`` in any column.
 
     The record names the first such column (in ``limits`` order); the reason
@@ -149,7 +149,8 @@ def outside_rule(data: pd.DataFrame, limits: pd.DataFrame, rule: str,
     col = np.array(cols, dtype=object)[j]
     more = bb.sum(axis=1) - 1
     reason = [f"{c} {written(x)} is {'above' if up else 'below'} "
-              f"{high_label if up else low_label} ({written(lim)})"
+              f"{high_label if up else low_label} ({written(lim)}"
+              f"{', judged on the logarithm' if c in logged else ''})"
               + (f"; {m} more column{'s' if m > 1 else ''} outside too" if m else "")
               for c, x, up, lim, m in zip(col, value, is_high, limit, more, strict=False)]
     return pd.DataFrame({"row": data.index[hit].to_numpy(np.int64), "column": col,
@@ -176,22 +177,21 @@ def data_rules(data: pd.DataFrame, columns: Sequence[str], sheet_rows: pd.Index,
         looked.append((MANUAL, len(remaining)))
         logs.append(manual)
         remaining = remaining.drop(index=manual["row"])
-    scale = " of the logarithm" if any(c in logged for c in columns) else ""
     if trim is not None:
         lo, hi = trim
         lim = _in_own_units(percentile_limits(_on_scale(basis, columns, logged), columns, lo,
                                               hi), logged)
         looked.append((TRIM, len(remaining)))
-        log = outside_rule(remaining, lim, TRIM, f"the {_ordinal(lo)} percentile{scale}",
-                           f"the {_ordinal(hi)} percentile{scale}")
+        log = outside_rule(remaining, lim, TRIM, f"the {_ordinal(lo)} percentile",
+                           f"the {_ordinal(hi)} percentile", logged)
         logs.append(log)
         remaining = remaining.drop(index=log["row"])
     if fence is not None:
         k = fence
         lim = _in_own_units(fence_limits(_on_scale(basis, columns, logged), columns, k), logged)
         looked.append((FENCE, len(remaining)))
-        log = outside_rule(remaining, lim, FENCE, f"Q1 − {k:g}·IQR{scale}",
-                           f"Q3 + {k:g}·IQR{scale}")
+        log = outside_rule(remaining, lim, FENCE, f"Q1 − {k:g}·IQR", f"Q3 + {k:g}·IQR",
+                           logged)
         logs.append(log)
         remaining = remaining.drop(index=log["row"])
     log = pd.concat(logs, ignore_index=True) if logs else empty_log()

@@ -72,7 +72,10 @@ def test_a_predictor_far_from_zero_reads_as_a_dependence_on_the_constant():
     a = analyze(sales, response="Price", predictors="Area,Year", folds=0)
     c = checks_of(a)
     assert c.loc["Multicollinearity: largest VIF", "verdict"] == "ok"
-    assert c.loc["Multicollinearity: condition number", "verdict"] == "fails"
+    # BKW's κ is far above 100, but the predictors are distinct and plumbrule forms its
+    # estimates around the means: only the intercept is fragile, so a watch, not "fails"
+    assert c.loc["Multicollinearity: condition number", "statistic"] > 100
+    assert c.loc["Multicollinearity: condition number", "verdict"] == "watch"
     assert "nearly repeats the constant" in c.loc["Multicollinearity: condition number", "note"]
 
 
@@ -193,7 +196,7 @@ def test_notes_and_thresholds_fit_a_spreadsheet_cell():
     c = checks_of(a)
     assert c.loc["Normality: Jarque-Bera", "verdict"] == "fails"
     assert c.loc["Residual skewness", "statistic"] > 2                  # both size parts
-    assert c.loc["Multicollinearity: condition number", "verdict"] == "fails"
+    assert c.loc["Multicollinearity: condition number", "verdict"] == "watch"
     # a strong market swing the linear trend misses: both serial checks fail
     swung = sales.assign(Price=1500 * area * swing + rng.normal(0, 5e3, n))
     b = analyze(swung, response="Price", predictors="Area", date_column="Sold", folds=0)

@@ -467,7 +467,11 @@ def condition_number(model: FittedModel) -> Check:
         note = "The design is well conditioned."
     elif fit.has_intercept and np.nanmax(fit.vif) <= VIF_WATCH:
         # the predictors are distinct from each other (low VIFs): the dependence is on the
-        # constant, which centring removes
+        # constant, which centring removes. plumbrule's estimates and intervals are formed
+        # around the column means, so only the intercept's own figure is fragile: a watch,
+        # never "resolve before relying on the value".
+        if fit.cond_number <= 30:
+            verdict = WATCH
         note = ("A predictor varies little around a large level (a year, a log of size), so it "
                 f"nearly repeats the constant (centred: {fit.cond_number:.3g}): the intercept "
                 "and its coefficient are fragile, typical estimates are not; a nearby origin "
