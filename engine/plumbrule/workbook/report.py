@@ -246,9 +246,9 @@ def _kind_text(e) -> str:
 
 def _set_aside_text(ctx) -> str:
     parts = []
-    n_screened = _int(ctx.fit.get("n_screened"))
-    n_dropped = _int(ctx.fit.get("n_dropped"))
-    n_holdout = _int(ctx.fit.get("n_holdout"))
+    n_screened = int(ctx.fit["n_screened"])
+    n_dropped = int(ctx.fit["n_dropped"])
+    n_holdout = int(ctx.fit["n_holdout"])
     if n_screened:
         parts.append(f"{n_screened:,} set aside by screening")
     if n_dropped:
@@ -471,20 +471,11 @@ def _cautions(ws, r) -> int:
 
 def _stamp(ws, stamp, r) -> int:
     r = _section(ws, r, "Audit stamp")
-    rows = stamp.rows() if hasattr(stamp, "rows") else _stamp_rows(stamp)
-    for label, value in rows:
+    for label, value in stamp.rows():
         put(ws, r, 1, label, style="plumb_label")
         _wrapped(ws, r, 2, value, span=LAST_COL - 1)
         r += 1
     return r
-
-
-def _stamp_rows(stamp) -> list[tuple[str, Any]]:
-    from dataclasses import fields, is_dataclass
-    names = ([f.name for f in fields(stamp)] if is_dataclass(stamp) else
-             ["version", "time", "sales_hash", "settings", "rows_used", "rows_set_aside"])
-    return [(n.replace("_", " ").capitalize(), _plain_text(getattr(stamp, n, "")))
-            for n in names]
 
 
 # --- charts -----------------------------------------------------------------------

@@ -201,13 +201,13 @@ def model_sentence(analysis) -> str:
     """The model in one sentence."""
     fit = analysis.tables.fit.iloc[0]
     k = int(fit["n_params"]) - int(analysis.model.fit.has_intercept)
-    resp = str(fit.get("response", analysis.spec.response))
+    resp = str(fit["response"])
     extra = []
-    if int(fit.get("n_holdout", 0) or 0):
+    if int(fit["n_holdout"]):
         extra.append(f"{int(fit['n_holdout'])} held out for testing")
-    if int(fit.get("n_screened", 0) or 0):
+    if int(fit["n_screened"]):
         extra.append(f"{int(fit['n_screened'])} set aside by screening")
-    if int(fit.get("n_dropped", 0) or 0):
+    if int(fit["n_dropped"]):
         extra.append(f"{int(fit['n_dropped'])} dropped for missing values")
     tail = f" ({'; '.join(extra)})" if extra else ""
     return (f"{resp} explained by {k} terms, fitted by least squares on {int(fit['n_used'])} "
@@ -279,11 +279,7 @@ def write_valuation(ws, analysis, valuation, live: Callable | None = None) -> in
         r += 2
     else:
         est = valuation.estimates
-        conf = (
-            f"{float(est['confidence'].iloc[0]):.0%}"
-            if "confidence" in est.columns and len(est)
-            else ""
-        )
+        conf = f"{float(est['confidence'].iloc[0]):.0%}" if len(est) else ""
         first, r = _table(ws, r, "Estimates for the subjects", est, _price_scale_formats(est),
                           explain=f"PI low / PI high: {conf} prediction interval for one sale; "
                                   "CI: interval for the mean price of such properties.")
@@ -292,11 +288,11 @@ def write_valuation(ws, analysis, valuation, live: Callable | None = None) -> in
             define_name(book, nm, ws.title, _cell(_col(est, col), first))
         rec = valuation.reconciled
         _, r = _table(ws, r, "Reconciled value from the comparables", rec,
-                      _price_scale_formats(rec) if rec is not None else None,
+                      _price_scale_formats(rec),
                       empty="No comparables: list Sales sheet rows on the Comps sheet.")
         grid = valuation.grid
         _, r = _table(ws, r, "Adjustment grid (model-derived adjustments)", grid,
-                      _price_scale_formats(grid) if grid is not None else None,
+                      _price_scale_formats(grid),
                       empty="No comparables.")
     ws.freeze_panes = None
     if live is not None:
