@@ -380,3 +380,26 @@ def test_a_plain_sales_sheet_without_a_table_works(tmp_path):
     res = run_book(book, backup=False)
     assert res.in_place and res.headline["n_used"] == len(sales)
     assert res.valuation is None                      # no Subjects sheet: nothing to value
+
+
+def test_run_refuses_a_book_with_unreadable_cells_listing_each_and_writes_nothing(tmp_path,
+                                                                                    capsys):
+    """Three mistyped prices: `run` names every cell (column, sheet row, ID) in one pass, exits
+    2 and leaves the workbook byte for byte as it was (no result sheet, no backup)."""
+    from plumbrule.cli.demo import demo_settings
+    from plumbrule.demo.town import demo_sales
+    from plumbrule.workbook.fill import fill_template
+    sales = demo_sales().astype({"Sale price": object})
+    for i, text in ((4, "$14O,000"), (40, "n/a?"), (100, "1.2.3")):
+        sales.loc[i, "Sale price"] = text
+    settings = {k: v for k, v in demo_settings().items() if v is not None}
+    book = fill_template(tmp_path / "typos.xlsx", sales, None, (), settings)
+    before = book.read_bytes()
+    assert main(["run", str(book)]) == 2
+    err = capsys.readouterr().err.splitlines()
+    assert err[0] == "plumbrule: 3 cells cannot be read; nothing was written."
+    assert err[1].startswith("  Column 'Sale price', row 6 (ID Q-2404): '$14O,000' is not a "
+                             "number")
+    assert len(err) == 4
+    assert book.read_bytes() == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["typos.xlsx"]

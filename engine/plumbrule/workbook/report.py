@@ -631,10 +631,6 @@ def _value_format(v):
     return "#,##0" if float(v) == round(float(v)) else sig3(v)
 
 
-def _int(v) -> int:
-    return int(v) if is_number(v) else 0
-
-
 def _plain_text(v) -> str:
     if isinstance(v, dict):
         return "; ".join(f"{k}={x}" for k, x in v.items())
