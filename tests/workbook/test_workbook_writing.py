@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import os
 import shutil
-import stat
+from stat import S_IMODE
 import subprocess
 import sys
 import zipfile
@@ -35,7 +35,7 @@ def _sheet_names(path):
 
 
 def _mode(path):
-    return stat.S_IMODE(os.stat(path).st_mode)
+    return S_IMODE(os.stat(path).st_mode)
 
 
 def test_a_read_only_book_is_refused_and_stays_read_only(book, capsys):

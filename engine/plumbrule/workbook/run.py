@@ -20,7 +20,7 @@ import os
 import re
 import secrets
 import shutil
-import stat
+from stat import S_IMODE, S_IWGRP, S_IWOTH, S_IWUSR
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -126,12 +126,12 @@ def _write_bit(st: os.stat_result) -> int:
     if not hasattr(os, "geteuid") or os.geteuid() == 0:
         # Windows (the read-only flag) and root (writes anything): read-only means no
         # write bit for anyone
-        return stat.S_IWUSR | stat.S_IWGRP | stat.S_IWOTH
+        return S_IWUSR | S_IWGRP | S_IWOTH
     if st.st_uid == os.geteuid():
-        return stat.S_IWUSR
+        return S_IWUSR
     if st.st_gid == os.getegid() or st.st_gid in os.getgroups():
-        return stat.S_IWGRP
-    return stat.S_IWOTH
+        return S_IWGRP
+    return S_IWOTH
 
 
 def _signature(path: Path) -> tuple[int, int]:
@@ -324,7 +324,7 @@ def _take_mode(dest: Path, like: os.stat_result | None) -> None:
         os.umask(mask)
         os.chmod(dest, 0o666 & ~mask)
         return
-    os.chmod(dest, stat.S_IMODE(like.st_mode))
+    os.chmod(dest, S_IMODE(like.st_mode))
     if hasattr(os, "chown"):
         try:
             os.chown(dest, like.st_uid, like.st_gid)
