@@ -93,3 +93,17 @@ def sheet_part(path, sheet):
 def folder_state(folder):
     """{file name: bytes} of a folder, to show nothing was written."""
     return {p.name: p.read_bytes() for p in Path(folder).iterdir() if p.is_file()}
+
+
+def refused_run(book, capsys, *words):
+    """Run ``plumbrule run`` on ``book``; expect exit 2, a one-line message holding every one
+    of ``words``, and the book's folder unchanged. Returns the message."""
+    from plumbrule.cli.main import main
+    before = folder_state(book.parent)
+    assert main(["run", str(book)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("plumbrule: ") and "\n" not in err
+    for w in words:
+        assert w.lower() in err.lower(), err
+    assert folder_state(book.parent) == before
+    return err

@@ -14,7 +14,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from workbook_snapshot import folder_state, rezip, snapshot
+from workbook_snapshot import rezip, snapshot, refused_run
 from xml_dialect import NS_MAIN, NS_R, rewrite
 from plumbrule.cli.main import main
 from plumbrule.workbook import RESULT_SHEETS
@@ -57,17 +57,6 @@ def _sheets(path):
             for s in wb.iter(f"{{{NS_MAIN}}}sheet")]
 
 
-def _refused(book, capsys, *words):
-    before = folder_state(book.parent)
-    assert main(["run", str(book)]) == 2
-    err = capsys.readouterr().err.strip()
-    assert err.startswith("plumbrule: ") and "\n" not in err
-    for w in words:
-        assert w.lower() in err.lower(), err
-    assert folder_state(book.parent) == before
-    return err
-
-
 def test_a_sheet_of_the_users_named_report_is_never_replaced(book, capsys):
     # The user deletes plumbrule's Report and makes their own; plumb_sheets still lists
     # "Report" (docs/workbook.md: a sheet of yours named like a result sheet is never replaced).
@@ -76,7 +65,7 @@ def test_a_sheet_of_the_users_named_report_is_never_replaced(book, capsys):
     del wb["Report"]
     wb.create_sheet("Report")["A1"] = "my own report"
     wb.save(book)
-    _refused(book, capsys, "'Report'", "did not write", "rename", "nothing was written")
+    refused_run(book, capsys, "'Report'", "did not write", "rename", "nothing was written")
 
 
 def _hint(text):

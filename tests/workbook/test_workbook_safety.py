@@ -8,7 +8,7 @@ import zipfile
 
 import pytest
 
-from workbook_snapshot import folder_state, rezip, sheet_part, snapshot
+from workbook_snapshot import rezip, sheet_part, snapshot, refused_run
 from plumbrule.cli.main import main
 from plumbrule.workbook import RESULT_SHEETS
 
@@ -24,23 +24,11 @@ def book(filled, tmp_path):
     return shutil.copyfile(filled, tmp_path / "book.xlsx")
 
 
-def _refused(book, capsys, *words):
-    """Run; expect exit 2, a one-line message with ``words``, and the folder unchanged."""
-    before = folder_state(book.parent)
-    assert main(["run", str(book)]) == 2
-    err = capsys.readouterr().err.strip()
-    assert err.startswith("plumbrule: ") and "\n" not in err
-    for w in words:
-        assert w.lower() in err.lower(), err
-    assert folder_state(book.parent) == before
-    return err
-
-
 @pytest.mark.parametrize("lock", ["~$book.xlsx", ".~lock.book.xlsx#"],
                          ids=["excel", "libreoffice"])
 def test_open_workbook_is_refused(book, capsys, lock):
     (book.parent / lock).write_text("owner")
-    _refused(book, capsys, "open in a spreadsheet", lock, "nothing was written")
+    refused_run(book, capsys, "open in a spreadsheet", lock, "nothing was written")
 
 
 _DRAWING_NS = "http://schemas.openxmlformats.org/drawingml/2006/spreadsheetDrawing"
@@ -147,13 +135,13 @@ def test_entity_expansion_bomb_is_refused(filled, tmp_path, capsys):
     part = sheet_part(filled, "Read me")
     book = rezip(filled, tmp_path / "book.xlsx", replace={
         part: lambda d: dtd.encode() + d.replace(b"<t>plumbrule workbook</t>", b"<t>&c;</t>")})
-    _refused(book, capsys, "entit", "refuses")
+    refused_run(book, capsys, "entit", "refuses")
 
 
 def test_not_a_workbook(tmp_path, capsys):
     book = tmp_path / "book.xlsx"
     book.write_text("Sale price,Living area\n100,10\n")
-    _refused(book, capsys, "not a workbook")
+    refused_run(book, capsys, "not a workbook")
 
 
 def test_encrypted_workbook(tmp_path, capsys):
@@ -162,7 +150,7 @@ def test_encrypted_workbook(tmp_path, capsys):
     book = tmp_path / "book.xlsx"
     book.write_bytes(bytes.fromhex("d0cf11e0a1b11ae1") + b"\x00" * 64
                      + "EncryptionInfo".encode("utf-16-le") + b"\x00" * 64)
-    _refused(book, capsys, "encrypted")
+    refused_run(book, capsys, "encrypted")
 
 
 def test_missing_sales_sheet(tmp_path, capsys):
@@ -173,14 +161,14 @@ def test_missing_sales_sheet(tmp_path, capsys):
     wb.active.append([100, 10])
     book = tmp_path / "book.xlsx"
     wb.save(book)
-    _refused(book, capsys, "no table or sheet named 'Sales'")
+    refused_run(book, capsys, "no table or sheet named 'Sales'")
 
 
 def test_empty_sales_table(tmp_path, capsys):
     book = tmp_path / "book.xlsx"
     assert main(["new", str(book)]) == 0
     capsys.readouterr()
-    _refused(book, capsys, "Sales", "no sales")
+    refused_run(book, capsys, "Sales", "no sales")
 
 
 def test_user_sheet_with_a_result_sheet_name_is_not_replaced(book, capsys):
@@ -188,7 +176,7 @@ def test_user_sheet_with_a_result_sheet_name_is_not_replaced(book, capsys):
     wb = load_workbook(book)
     wb.create_sheet("Model")["A1"] = "my own model notes"
     wb.save(book)
-    _refused(book, capsys, "'Model'", "did not write", "rename")
+    refused_run(book, capsys, "'Model'", "did not write", "rename")
 
 
 def test_a_failed_save_leaves_the_book_as_it_was(book, monkeypatch, capsys):
@@ -199,7 +187,7 @@ def test_a_failed_save_leaves_the_book_as_it_was(book, monkeypatch, capsys):
             fh.write(b"partial")
         raise OSError(28, "No space left on device")
     monkeypatch.setattr(graft, "graft", broken_graft)
-    _refused(book, capsys, "No space left", "not changed")
+    refused_run(book, capsys, "No space left", "not changed")
 
 
 def test_missing_file(tmp_path, capsys):
