@@ -138,8 +138,12 @@ def _table_names(book) -> list[str]:
     try:
         names = book.table_names
         names = names() if callable(names) else names
-    except Exception:   # TablesNotSupported / TablesNotLoaded for non-xlsx files
-        return []
+    except Exception as exc:
+        # only "this format has no tables" (.xls, .ods) means none; anything else decides
+        # what data is read, so it is never swallowed
+        if type(exc).__name__ in ("TablesNotSupported", "TablesNotLoaded"):
+            return []
+        raise
     return list(names or [])
 
 
