@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from plumbrule.errors import IntakeError, quote_list
+from plumbrule.errors import IntakeError, WorkbookError, quote_list
 from plumbrule.intake.cells import _blank_mask, is_blank
 from plumbrule.intake.table import SheetTable, _header_text, padded, table_from_values
 
@@ -117,6 +117,8 @@ def read_sheet(path: str | Path, sheet: str | None = None,
     back from the sheet's XML (for .xls/.ods they are logged as 'blank'), and the table
     carries the hidden rows and the columns of formulas with no saved result."""
     from python_calamine import CalamineWorkbook
+    from plumbrule.intake.zipcheck import check_package
+    check_package(path)          # a zip bomb is refused before calamine inflates anything
     try:
         book = CalamineWorkbook.from_path(str(path))
         names = list(book.sheet_names)
@@ -239,8 +241,10 @@ def _xlsx_facts(path, sheet: str) -> _SheetFacts:
     XML; empty when there are none or the parts cannot be found."""
     import zipfile
     from defusedxml import ElementTree
+    from plumbrule.intake.zipcheck import check_members
     try:
         with zipfile.ZipFile(path) as z:
+            check_members(z.infolist(), Path(path).name)
             ns = {"m": "http://schemas.openxmlformats.org/spreadsheetml/2006/main",
                   "r": "http://schemas.openxmlformats.org/officeDocument/2006/relationships"}
             book = ElementTree.fromstring(z.read("xl/workbook.xml"))
@@ -252,6 +256,8 @@ def _xlsx_facts(path, sheet: str) -> _SheetFacts:
                 return _SheetFacts()
             part = target.lstrip("/") if target.startswith("/") else "xl/" + target
             xml = z.read(part).decode("utf-8", errors="replace")
+    except WorkbookError:
+        raise
     except Exception:   # the values are still read; only the reason text is less precise
         return _SheetFacts()
     kinds = [k for k, marks in _FACT_MARKS.items() if any(m in xml for m in marks)]

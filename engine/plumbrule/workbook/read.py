@@ -42,7 +42,9 @@ class BookInputs:
 def read_inputs(path: str | Path) -> BookInputs:
     """Read Sales / Subjects / Comps / Settings; errors name the sheet and the fix."""
     from python_calamine import CalamineWorkbook
+    from plumbrule.intake.zipcheck import check_package
     path = Path(path)
+    check_package(path)          # a zip bomb is refused before calamine inflates anything
     try:
         book = CalamineWorkbook.from_path(str(path), load_tables=True)
     except Exception as exc:   # calamine's own error types for damaged or encrypted files
