@@ -142,7 +142,8 @@ def read_sheet(path: str | Path, sheet: str | None = None,
         start = ws.start or (0, 0)
     except Exception as exc:
         detail = " ".join(str(exc).split())[:200]
-        raise IntakeError(f"Sheet '{sheet}' of '{Path(path).name}' cannot be read ({detail}).",
+        raise IntakeError(f"Sheet '{sheet}' of '{Path(path).name}' cannot be read ({detail}). "
+                          "The file is damaged: open it in your spreadsheet and save it again.",
                           sheet=sheet) from None
     if not values:
         raise IntakeError(f"Sheet '{sheet}' of '{Path(path).name}' is empty. Put the sales "

@@ -108,14 +108,20 @@ def _block_at(book, name: str, required: bool = False
     its totals row)."""
     tables = {t.lower(): t for t in _table_names(book)}
     if name.lower() in tables:
-        t = book.get_table_by_name(tables[name.lower()])
-        values = [list(t.columns)] + t.to_python()
+        try:
+            t = book.get_table_by_name(tables[name.lower()])
+            values = [list(t.columns)] + t.to_python()
+        except Exception as exc:   # calamine's own error types for a damaged part
+            raise _damaged(f"table '{tables[name.lower()]}'", exc) from None
         return values, int(t.start[0]), t.sheet, int(t.start[1]) + 1, True
     sheets = {s.lower(): s for s in book.sheet_names}
     if name.lower() in sheets:
         sheet = sheets[name.lower()]
-        ws = book.get_sheet_by_name(sheet)
-        values = ws.to_python(skip_empty_area=True)
+        try:
+            ws = book.get_sheet_by_name(sheet)
+            values = ws.to_python(skip_empty_area=True)
+        except Exception as exc:   # calamine's own error types for a damaged part
+            raise _damaged(f"sheet '{sheet}'", exc) from None
         start = ws.start[0] if ws.start else 0
         if not values or not any(str(v).strip() for v in values[0]):
             if required:
@@ -132,6 +138,12 @@ def _block_at(book, name: str, required: bool = False
                             "a sheet named Sales (or an Excel table named Sales); "
                             "plumbrule new BOOK.xlsx writes a template.", sheet=name)
     return [], 1, None, 1, False
+
+
+def _damaged(where: str, exc: Exception) -> WorkbookError:
+    detail = " ".join(str(exc).split())[:200]
+    return WorkbookError(f"The workbook's {where} cannot be read ({detail}). The file is "
+                         "damaged: open it in your spreadsheet and save it again.")
 
 
 def _table_names(book) -> list[str]:

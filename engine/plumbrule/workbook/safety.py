@@ -224,7 +224,13 @@ def _check_xml(z: zipfile.ZipFile, types: dict[str, str]) -> None:
     """Every XML part's prolog through defusedxml (no DTD, no entity declarations)."""
     for name, ctype in types.items():
         if name.endswith((".xml", ".rels", ".vml")) or ctype.endswith("xml"):
-            pk.check_prolog(z, name)
+            try:
+                pk.check_prolog(z, name)
+            except (zipfile.BadZipFile, EOFError, zlib.error) as exc:
+                raise WorkbookError(
+                    f"Part '{name}' of '{Path(z.filename or 'the workbook').name}' is damaged "
+                    f"({' '.join(str(exc).split())}). Open the book in your spreadsheet and "
+                    "save it again, or restore a backup.") from None
 
 
 def _read_workbook(z: zipfile.ZipFile, main: str, path: Path) -> pk.Workbook:
