@@ -43,7 +43,8 @@ REGISTRY: dict[str, Setting] = {
     for s in [
         # --- the model --------------------------------------------------------
         _s("response", "text", None, "Column holding the sale price (the value to explain)."),
-        _s("predictors", "columns", (), "Columns that explain the price, comma-separated."),
+        _s("predictors", "columns", (), "Columns that explain the price, comma-separated "
+           "(a name holding a comma in double quotes)."),
         _s(
             "categorical",
             "columns",
@@ -464,7 +465,13 @@ def _split(v: Any) -> list[str]:
 
 
 def _columns(s: Setting, v: Any) -> tuple[str, ...]:
-    return tuple(_split(v))
+    """Column names, comma-separated; a name holding a comma is given in double quotes
+    (``"Lot size, sq ft",Age``), a quote inside one doubled, as in a CSV line."""
+    if isinstance(v, (list, tuple)) or '"' not in str(v):
+        return tuple(_split(v))
+    import csv
+    row = next(csv.reader([" ".join(str(v).splitlines())], skipinitialspace=True), [])
+    return tuple(p.strip() for p in row if p.strip())
 
 
 def _bool(s: Setting, v: Any) -> bool:

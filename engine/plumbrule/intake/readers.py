@@ -49,15 +49,7 @@ def read_csv(path: str | Path, header_row: int | None = None) -> SheetTable:
     except OSError as exc:
         raise IntakeError(f"File '{path.name}' cannot be opened ({exc.strerror}). "
                           "Check that it exists and is readable.") from None
-    for encoding in ("utf-8-sig", "cp1252"):   # Excel on Windows often saves "CSV" as cp1252
-        try:
-            text = raw.decode(encoding)
-            break
-        except UnicodeDecodeError:
-            continue
-    else:
-        raise IntakeError(f"File '{path.name}' is not text. Save the sales as UTF-8 CSV "
-                          "with a header row.")
+    text = _decoded(raw, path.name)
     if not text.strip():
         raise IntakeError(f"File '{path.name}' is empty. Save the sales with a header row.")
     first = text.split("\n", 1)[0]
@@ -66,12 +58,51 @@ def read_csv(path: str | Path, header_row: int | None = None) -> SheetTable:
     try:
         frame = pd.read_csv(io.StringIO(text), header=None, dtype=object, sep=sep,
                             keep_default_na=False, na_values=[], skip_blank_lines=False)
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError):
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
+        if "EOF inside string" in str(exc):
+            raise _unclosed_quote(text, path.name) from None
         # Title lines above the header are shorter than the lines below: read the lines
         # as they are and hold only the lines below the header to its width.
         return _ragged_csv(text, sep, path.name, header_row)
     return table_from_values(frame.to_numpy(dtype=object), header_row=1, sheet=None,
                              header_at=header_row)
+
+
+def _unclosed_quote(text: str, name: str) -> IntakeError:
+    """The line (sheet row) of the quote that opens a cell never closed: quotes pair up
+    (a doubled one inside a cell counts twice), so the last one of an odd count opens it.
+    pandas counts records from 0, which is neither."""
+    at = text.rfind('"') if text.count('"') % 2 else -1
+    line = text.count("\n", 0, at) + 1 if at >= 0 else None
+    where = f"row {line}" if line else "a line"
+    return IntakeError(f"File '{name}' cannot be read as CSV: the quote (\") that opens a cell "
+                       f"on {where} is never closed, so every line after it would be one cell. "
+                       "Close the quote or remove it, and save again.", row=line)
+
+
+def _decoded(raw: bytes, name: str) -> str:
+    """The text of a CSV file: UTF-16 (Excel's "Unicode text", with its byte-order mark, or
+    without one when every other byte is NUL), UTF-8, else cp1252 (Excel on Windows often
+    saves "CSV" so). A stray NUL stays in its cell (the terminal shows it as \\x00)."""
+    fix = "Save the sales as UTF-8 CSV with a header row."
+    encodings = ["utf-8-sig", "cp1252"]
+    if raw[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        encodings = ["utf-16"]
+    elif b"\x00" in raw:
+        head = raw[:4096]
+        odd, even = head[1::2].count(0), head[0::2].count(0)
+        if odd > 0.9 * (len(head) // 2):
+            encodings = ["utf-16-le"]
+        elif even > 0.9 * (len(head) // 2):
+            encodings = ["utf-16-be"]
+    for encoding in encodings:
+        try:
+            return raw.decode(encoding).lstrip("\ufeff")
+        except UnicodeDecodeError:
+            continue
+    kind = "UTF-16 text that cannot be decoded" if encodings[0].startswith("utf-16") else \
+        "not text"
+    raise IntakeError(f"File '{name}' is {kind}. {fix}")
 
 
 def _ragged_csv(text: str, sep: str, name: str, header_row: int | None) -> SheetTable:

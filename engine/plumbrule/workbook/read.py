@@ -20,7 +20,7 @@ from typing import Any
 from plumbrule.errors import WorkbookError
 from plumbrule.settings import settings_from_rows
 from plumbrule.intake import SheetTable, table_from_values
-from plumbrule.intake.readers import _with_facts, _xlsx_facts
+from plumbrule.intake.readers import _restore_error_cells, _with_facts, _xlsx_facts
 
 
 @dataclass(frozen=True)
@@ -53,14 +53,18 @@ def read_inputs(path: str | Path) -> BookInputs:
     try:
         sales_block, header_row, sheet, first_col, is_table = _block_at(book, "Sales",
                                                                         required=True)
+        facts = (_xlsx_facts(path, str(sheet)) if path.suffix.lower() in (".xlsx", ".xlsm")
+                 else None)
+        if facts is not None:   # calamine hands error cells over as blanks: '#N/A' back
+            _restore_error_cells(sales_block, facts.errors, (header_row - 1, first_col - 1))
         sales = table_from_values(sales_block, header_row=header_row, sheet=sheet,
                                   first_column=first_col,
                                   header_at=header_row if is_table else None)
         # Title rows above the header of a Sales sheet are not copied to the results.
         sales_block = sales_block[sales.header_row - header_row:]
-        if path.suffix.lower() in (".xlsx", ".xlsm"):
+        if facts is not None:
             sales = _with_facts(sales, sales_block, (sales.header_row - 1, first_col - 1),
-                                _xlsx_facts(path, str(sheet)))
+                                facts)
         if len(sales.frame) == 0:
             raise WorkbookError(f"The Sales table (sheet '{sheet}') has no sales below its header "
                                 "row. Paste your sales into it and run again.", sheet=sheet)
