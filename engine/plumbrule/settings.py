@@ -43,8 +43,7 @@ REGISTRY: dict[str, Setting] = {
     for s in [
         # --- the model --------------------------------------------------------
         _s("response", "text", None, "Column holding the sale price (the value to explain)."),
-        _s("predictors", "columns", (), "Columns that explain the price, comma-separated "
-           "(a name holding a comma in double quotes)."),
+        _s("predictors", "columns", (), "Columns that explain the price, comma-separated."),
         _s(
             "categorical",
             "columns",
