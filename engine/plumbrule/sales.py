@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 
 from plumbrule import intake
-from plumbrule.errors import CellErrors
+from plumbrule.errors import CellErrors, IntakeError
 from plumbrule.intake.keys import rows_of_ids, sale_hashes, sale_ids
 from plumbrule.intake.levels import merge_levels
 from plumbrule.intake.rules import DUPLICATE, SALE_FILTER, duplicate_rows, sale_filter
@@ -67,11 +67,14 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
         logs.append(hidden)
         looked.append((HIDDEN_RULE, len(table.frame)))
         table = intake.table_without(table, hidden["row"])
+    _check_has_values(table, [*numeric, *spec.categorical, *spec.label_columns,
+                              *([spec.date_column] if spec.date_column else [])])
     try:
         clean = intake.clean(table, numeric=numeric,
                              categorical=list(spec.categorical) + list(spec.label_columns),
                              date=spec.date_column, hint_categorical=spec.numeric_predictors,
-                             bad_cells=settings.bad_cells, date_format=settings.date_format)
+                             bad_cells=settings.bad_cells, date_format=settings.date_format,
+                             amounts=[spec.response])
     except CellErrors as err:
         if shown_ids is not None:
             raise err.with_ids(shown_ids) from None
@@ -122,3 +125,17 @@ def with_ids(frame: pd.DataFrame, ids: pd.Series | None, column: str = "row",
 def _rows_of(table: intake.SheetTable, rows: pd.Index) -> intake.SheetTable:
     from dataclasses import replace
     return replace(table, frame=table.frame.loc[rows])
+
+
+def _check_has_values(table: intake.SheetTable, used: list[str]) -> None:
+    """A table with no row below its header, or a used column blank in every row, is said
+    as such (rather than as the fit's count of usable sales or a level count)."""
+    where = f" (sheet '{table.sheet}')" if table.sheet else ""
+    if len(table.frame) == 0:
+        raise IntakeError(f"The sales table{where} has its header on row {table.header_row} "
+                          "but no rows below it. Put the sales below the header row.")
+    for col in dict.fromkeys(used):
+        if col in table.frame.columns and intake._blank_mask(table.frame[col]).all():
+            raise IntakeError(f"Column '{col}' is blank in every row of the sales table"
+                              f"{where}. Fill it in, or take it out of the settings that "
+                              "name it.", column=col)

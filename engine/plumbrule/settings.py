@@ -464,7 +464,13 @@ def _split(v: Any) -> list[str]:
 
 
 def _columns(s: Setting, v: Any) -> tuple[str, ...]:
-    return tuple(_split(v))
+    """Column names, comma-separated; a name holding a comma is given in double quotes
+    (``"Lot size, sq ft",Age``), a quote inside one doubled, as in a CSV line."""
+    if isinstance(v, (list, tuple)) or '"' not in str(v):
+        return tuple(_split(v))
+    import csv
+    row = next(csv.reader([" ".join(str(v).splitlines())], skipinitialspace=True), [])
+    return tuple(p.strip() for p in row if p.strip())
 
 
 def _bool(s: Setting, v: Any) -> bool:

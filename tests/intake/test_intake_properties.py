@@ -15,12 +15,13 @@ import os
 
 import numpy as np
 import pandas as pd
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from plumbrule import intake
 from plumbrule.analysis import analyze
-from plumbrule.errors import PlumbError
+from plumbrule.errors import CellErrors, PlumbError
 
 # Small by default (CI); PLUMBRULE_HYPOTHESIS_EXAMPLES=5000 for a deeper local hunt.
 SETTINGS = settings(max_examples=int(os.environ.get("PLUMBRULE_HYPOTHESIS_EXAMPLES", 150)),
@@ -209,12 +210,30 @@ def test_percent_text_is_the_number_over_100(x):
     assert got.tolist() == [float(text) / 100.0] * 2
 
 
+# Numbers within the range the fit works with (±1e60, nonzero sizes from 1e-60; see
+# intake.cells.MAX_MAGNITUDE): far wider than any price, area or count.
+_IN_RANGE = st.one_of(st.just(0.0), st.just(-0.0),
+                      st.floats(1e-60, 1e60), st.floats(-1e60, -1e-60))
+
+
 @SETTINGS
-@given(x=st.floats(allow_nan=False, allow_infinity=False))
+@given(x=_IN_RANGE)
 def test_finite_number_cells_and_their_text_come_back_exactly(x):
     t = intake.table_from_values([["v"], [x], [repr(x)]])
     got = intake.clean(t, numeric=["v"]).data["v"].tolist()
     assert got == [x, x] and all(math.copysign(1, g) == math.copysign(1, x) for g in got)
+
+
+@SETTINGS
+@given(x=st.one_of(st.floats(min_value=1e60, exclude_min=True, allow_infinity=False),
+                   st.floats(5e-324, 1e-60, exclude_max=True)),
+       negative=st.booleans())
+def test_numbers_outside_the_fits_range_are_refused_by_cell(x, negative):
+    x = -x if negative else x
+    t = intake.table_from_values([["v"], [1.0], [x], [repr(x)]])
+    with pytest.raises(CellErrors) as err:
+        intake.clean(t, numeric=["v"])
+    assert [p.row for p in err.value.problems] == [3, 4]
 
 
 @SETTINGS

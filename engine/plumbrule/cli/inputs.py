@@ -33,6 +33,8 @@ def is_plumbrule_book(path: Path) -> bool:
     if path.suffix.lower() not in (".xlsx", ".xlsm") or not path.is_file():
         return False
     from python_calamine import CalamineWorkbook
+    from plumbrule.intake.zipcheck import check_package
+    check_package(path)          # before calamine inflates anything
     try:
         book = CalamineWorkbook.from_path(str(path))
         names = {n.casefold() for n in book.sheet_names}

@@ -12,6 +12,7 @@ import sys
 from typing import Any, Sequence
 
 from plumbrule.errors import CellErrors, PlumbError
+from plumbrule.render.terminal import visible
 from plumbrule.settings import REGISTRY
 
 FIT_GROUPS = ("intake", "model", "screen", "validate")
@@ -151,9 +152,9 @@ def _report_cells(err: CellErrors, as_json: bool) -> None:
         import json
         print(json.dumps({"errors": [p.record() for p in err.problems]}, ensure_ascii=False))
     lines = err.lines() if len(err.problems) > 1 else [str(err)]   # one cell: one line
-    print("plumbrule: " + lines[0], file=sys.stderr)
+    print("plumbrule: " + visible(lines[0]), file=sys.stderr)
     for line in lines[1:]:
-        print(line, file=sys.stderr)
+        print(visible(line), file=sys.stderr)
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -169,7 +170,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         _report_cells(err, bool(getattr(args, "json", False)))
         return 2
     except PlumbError as err:
-        print(f"plumbrule: {_one_line(err, getattr(args, 'command', None))}", file=sys.stderr)
+        print(f"plumbrule: {visible(_one_line(err, getattr(args, 'command', None)))}",
+              file=sys.stderr)
         return 2
     except BrokenPipeError:  # e.g. piped into head
         return 0
@@ -179,7 +181,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         import os
         if os.environ.get("PLUMBRULE_DEBUG"):
             raise
-        detail = " ".join(str(exc).split())[:300]
+        detail = visible(" ".join(str(exc).split())[:300])
         print(f"plumbrule: internal error ({type(exc).__name__}: {detail}). This is a bug in "
               "plumbrule, not in your data; please report it with the command you ran "
               "(set PLUMBRULE_DEBUG=1 for details).", file=sys.stderr)

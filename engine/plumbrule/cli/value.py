@@ -75,7 +75,8 @@ def render_valuation(result, analysis) -> str:
     if not result.grid.empty:
         lines += _grid_lines(result)
     lines += ([] if lines[-1] == "" else [""]) + [CAUTION]
-    return "\n".join(lines)
+    from plumbrule.render.terminal import visible
+    return visible("\n".join(lines))
 
 
 def _subject_lines(rec) -> list[str]:

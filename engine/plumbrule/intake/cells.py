@@ -214,9 +214,42 @@ def _refuse(bad: pd.Series, col: pd.Series, message: str, name: str) -> None:
     raise CellErrors([CellProblem(r, name, _shown(col[r]), message) for r in rows])
 
 
-def to_numbers(col: pd.Series, name: str, hint_categorical: bool = False
-               ) -> tuple[pd.Series, pd.Series]:
-    """Cells → floats; returns (values, missing reason per cell or NaN)."""
+# The fit and its checks square values and residuals and take fourth powers (kurtosis):
+# (1e60)^4 times any number of sales stays below the largest float (1.8e308), and (1e-60)^4
+# above the smallest normal one (2.2e-308). No price, area or age lies outside: such a
+# value is a typing error or a column scaled by accident.
+MAX_MAGNITUDE = 1e60
+MIN_MAGNITUDE = 1e-60
+
+
+def _refuse_out_of_range(v: np.ndarray, col: pd.Series, name: str) -> None:
+    """Raise :class:`CellErrors` for the values of ``v`` (floats of ``col``) beyond
+    ±:data:`MAX_MAGNITUDE` or nonzero and nearer zero than :data:`MIN_MAGNITUDE`."""
+    size = np.abs(v)
+    big, tiny = size > MAX_MAGNITUDE, (size < MIN_MAGNITUDE) & (size > 0)
+    if not (big.any() or tiny.any()):
+        return
+    problems = [CellProblem(r, name, _shown(col[r]), "is too large for the fit (beyond "
+                            f"±{MAX_MAGNITUDE:g}, which no price, area or count reaches). "
+                            "Correct the cell.")
+                for r in col.index[big]]
+    problems += [CellProblem(r, name, _shown(col[r]), "is too close to zero for the fit "
+                             f"(nonzero values need a size of at least {MIN_MAGNITUDE:g}). "
+                             "Correct the cell or enter 0.")
+                 for r in col.index[tiny]]
+    raise CellErrors(problems)
+
+
+def _is_bool_text(text: pd.Series) -> pd.Series:
+    return text.astype(str).str.strip().str.upper().isin(("TRUE", "FALSE"))
+
+
+def to_numbers(col: pd.Series, name: str, hint_categorical: bool = False,
+               booleans: bool = True) -> tuple[pd.Series, pd.Series]:
+    """Cells → floats; returns (values, missing reason per cell or NaN). TRUE/FALSE read
+    as 1/0 unless ``booleans`` is False (an amount such as a price, which a yes/no cell
+    cannot be: refused). Values beyond ±1e60, or nonzero and nearer zero than 1e-60,
+    are refused (see :data:`MAX_MAGNITUDE`)."""
     if isinstance(col.dtype, np.dtype) and col.dtype.kind in "fiu":
         return _plain_numbers(col, name)
     kinds = cell_kinds(col)
@@ -226,9 +259,14 @@ def to_numbers(col: pd.Series, name: str, hint_categorical: bool = False
     if num.any():
         values[num] = _numbers_of(col[num]).to_numpy()
     boo = present & kinds.eq(BOOL)
+    text = present & kinds.eq(TEXT)
+    if not booleans:
+        yes_no = boo | (text & _is_bool_text(col.where(text, "")))
+        if yes_no.any():
+            _refuse(yes_no, col, "is a TRUE/FALSE value, not an amount. Enter the amount "
+                    "(a sale price is a number) or leave the cell blank.", name)
     if boo.any():
         values[boo] = col[boo].astype(bool).astype(float).to_numpy()
-    text = present & kinds.eq(TEXT)
     if text.any():
         values[text] = parse_number_text(col[text]).to_numpy()
     ok = np.isfinite(values.to_numpy())
@@ -253,6 +291,7 @@ def to_numbers(col: pd.Series, name: str, hint_categorical: bool = False
                                   f"Neither are {int(bad.sum()) - 1} more of its cells. " + fix,
                                   column=name, row=int(row))
         _refuse(bad, col, "is not a number. " + fix, name)
+    _refuse_out_of_range(values.to_numpy(), col, name)
     return values, reason
 
 
@@ -265,6 +304,7 @@ def _plain_numbers(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     if finite.all() and not v.min(initial=0.0) < -2e9:
         # Nothing missing, no COM error codes (all below -2e9): the usual scripted
         # frame. A read-only all-NaN view says "no reason" without filling n cells.
+        _refuse_out_of_range(v, col, name)
         reason = pd.Series(np.broadcast_to(np.float64(np.nan), v.shape), index=col.index,
                            copy=False)
         return pd.Series(v, index=col.index, copy=False), reason
@@ -283,6 +323,7 @@ def _plain_numbers(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     if infinite.any():
         _refuse(pd.Series(infinite, index=col.index), col, "is not a finite number. "
                      "Enter a number or leave the cell blank.", name)
+    _refuse_out_of_range(v, col, name)
     return pd.Series(v, index=col.index, copy=False), reason
 
 

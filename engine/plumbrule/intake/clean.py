@@ -27,7 +27,8 @@ class CleanData:
 
 def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[str] = (),
           date: str | None = None, hint_categorical: Iterable[str] = (),
-          bad_cells: str = "refuse", date_format: str = "auto") -> CleanData:
+          bad_cells: str = "refuse", date_format: str = "auto",
+          amounts: Iterable[str] = ()) -> CleanData:
     """Type the used columns; drop (and log) rows with a missing value in any.
 
     ``hint_categorical`` names numeric predictor columns whose "not a number"
@@ -38,7 +39,8 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     ``date_format`` (auto, MDY, DMY, YMD) is the order of dates typed as text
     (see :mod:`plumbrule.intake.dates`). A used column holding formulas the file has no
     saved results for (``table.unsaved_formula_columns``) is refused while it has blanks:
-    the blanks are not missing values but results nobody computed.
+    the blanks are not missing values but results nobody computed. ``amounts`` names
+    numeric columns (the sale price) in which a TRUE/FALSE cell is refused, not read as 1/0.
     """
     numeric, categorical = list(dict.fromkeys(numeric)), list(dict.fromkeys(categorical))
     frame = table.frame
@@ -52,12 +54,13 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
             raise IntakeError(f"Column '{col}' holds formulas with no saved values: open the "
                               "workbook in a spreadsheet program and save it, then run again.",
                               column=col)
-    hints = set(hint_categorical)
+    hints, amounts = set(hint_categorical), set(amounts)
     typed: dict[str, pd.Series] = {}
     reasons: dict[str, pd.Series] = {}
     problems: list[CellProblem] = []
     jobs: list[tuple[str, Any, dict]] = [
-        (c, to_numbers, {"hint_categorical": c in hints}) for c in numeric]
+        (c, to_numbers, {"hint_categorical": c in hints, "booleans": c not in amounts})
+        for c in numeric]
     jobs += [(c, to_labels, {}) for c in categorical]
     jobs += [(date, to_dates, {"date_format": date_format})] if date is not None else []
     for col, fn, kw in jobs:

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from plumbrule.errors import IntakeError, quote_list
+from plumbrule.errors import IntakeError, WorkbookError, quote_list
 from plumbrule.intake.cells import _blank_mask, is_blank
 from plumbrule.intake.table import SheetTable, _header_text, padded, table_from_values
 
@@ -49,15 +49,7 @@ def read_csv(path: str | Path, header_row: int | None = None) -> SheetTable:
     except OSError as exc:
         raise IntakeError(f"File '{path.name}' cannot be opened ({exc.strerror}). "
                           "Check that it exists and is readable.") from None
-    for encoding in ("utf-8-sig", "cp1252"):   # Excel on Windows often saves "CSV" as cp1252
-        try:
-            text = raw.decode(encoding)
-            break
-        except UnicodeDecodeError:
-            continue
-    else:
-        raise IntakeError(f"File '{path.name}' is not text. Save the sales as UTF-8 CSV "
-                          "with a header row.")
+    text = _decoded(raw, path.name)
     if not text.strip():
         raise IntakeError(f"File '{path.name}' is empty. Save the sales with a header row.")
     first = text.split("\n", 1)[0]
@@ -66,12 +58,51 @@ def read_csv(path: str | Path, header_row: int | None = None) -> SheetTable:
     try:
         frame = pd.read_csv(io.StringIO(text), header=None, dtype=object, sep=sep,
                             keep_default_na=False, na_values=[], skip_blank_lines=False)
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError):
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
+        if "EOF inside string" in str(exc):
+            raise _unclosed_quote(text, path.name) from None
         # Title lines above the header are shorter than the lines below: read the lines
         # as they are and hold only the lines below the header to its width.
         return _ragged_csv(text, sep, path.name, header_row)
     return table_from_values(frame.to_numpy(dtype=object), header_row=1, sheet=None,
                              header_at=header_row)
+
+
+def _unclosed_quote(text: str, name: str) -> IntakeError:
+    """The line (sheet row) of the quote that opens a cell never closed: quotes pair up
+    (a doubled one inside a cell counts twice), so the last one of an odd count opens it.
+    pandas counts records from 0, which is neither."""
+    at = text.rfind('"') if text.count('"') % 2 else -1
+    line = text.count("\n", 0, at) + 1 if at >= 0 else None
+    where = f"row {line}" if line else "a line"
+    return IntakeError(f"File '{name}' cannot be read as CSV: the quote (\") that opens a cell "
+                       f"on {where} is never closed, so every line after it would be one cell. "
+                       "Close the quote or remove it, and save again.", row=line)
+
+
+def _decoded(raw: bytes, name: str) -> str:
+    """The text of a CSV file: UTF-16 (Excel's "Unicode text", with its byte-order mark, or
+    without one when every other byte is NUL), UTF-8, else cp1252 (Excel on Windows often
+    saves "CSV" so). A stray NUL stays in its cell (the terminal shows it as \\x00)."""
+    fix = "Save the sales as UTF-8 CSV with a header row."
+    encodings = ["utf-8-sig", "cp1252"]
+    if raw[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        encodings = ["utf-16"]
+    elif b"\x00" in raw:
+        head = raw[:4096]
+        odd, even = head[1::2].count(0), head[0::2].count(0)
+        if odd > 0.9 * (len(head) // 2):
+            encodings = ["utf-16-le"]
+        elif even > 0.9 * (len(head) // 2):
+            encodings = ["utf-16-be"]
+    for encoding in encodings:
+        try:
+            return raw.decode(encoding).lstrip("\ufeff")
+        except UnicodeDecodeError:
+            continue
+    kind = "UTF-16 text that cannot be decoded" if encodings[0].startswith("utf-16") else \
+        "not text"
+    raise IntakeError(f"File '{name}' is {kind}. {fix}")
 
 
 def _ragged_csv(text: str, sep: str, name: str, header_row: int | None) -> SheetTable:
@@ -117,6 +148,8 @@ def read_sheet(path: str | Path, sheet: str | None = None,
     back from the sheet's XML (for .xls/.ods they are logged as 'blank'), and the table
     carries the hidden rows and the columns of formulas with no saved result."""
     from python_calamine import CalamineWorkbook
+    from plumbrule.intake.zipcheck import check_package
+    check_package(path)          # a zip bomb is refused before calamine inflates anything
     try:
         book = CalamineWorkbook.from_path(str(path))
         names = list(book.sheet_names)
@@ -140,7 +173,8 @@ def read_sheet(path: str | Path, sheet: str | None = None,
         start = ws.start or (0, 0)
     except Exception as exc:
         detail = " ".join(str(exc).split())[:200]
-        raise IntakeError(f"Sheet '{sheet}' of '{Path(path).name}' cannot be read ({detail}).",
+        raise IntakeError(f"Sheet '{sheet}' of '{Path(path).name}' cannot be read ({detail}). "
+                          "The file is damaged: open it in your spreadsheet and save it again.",
                           sheet=sheet) from None
     if not values:
         raise IntakeError(f"Sheet '{sheet}' of '{Path(path).name}' is empty. Put the sales "
@@ -257,8 +291,10 @@ def _xlsx_facts(path, sheet: str) -> _SheetFacts:
     XML; empty when there are none or the parts cannot be found."""
     import zipfile
     from defusedxml import ElementTree
+    from plumbrule.intake.zipcheck import check_members
     try:
         with zipfile.ZipFile(path) as z:
+            check_members(z.infolist(), Path(path).name)
             ns = {"m": "http://schemas.openxmlformats.org/spreadsheetml/2006/main",
                   "r": "http://schemas.openxmlformats.org/officeDocument/2006/relationships"}
             book = ElementTree.fromstring(z.read("xl/workbook.xml"))
@@ -270,6 +306,8 @@ def _xlsx_facts(path, sheet: str) -> _SheetFacts:
                 return _SheetFacts()
             part = target.lstrip("/") if target.startswith("/") else "xl/" + target
             xml = z.read(part).decode("utf-8", errors="replace")
+    except WorkbookError:
+        raise
     except Exception:   # the values are still read; only the reason text is less precise
         return _SheetFacts()
     kinds = [k for k, marks in _FACT_MARKS.items() if any(m in xml for m in marks)]

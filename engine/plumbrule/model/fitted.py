@@ -123,9 +123,38 @@ class FittedModel:
 def fit_model(spec: ModelSpec, data: pd.DataFrame, robust_se: str | None = None,
               confidence: float = 0.95) -> FittedModel:
     """Encode ``data`` by ``spec``, fit by least squares, return the model."""
+    _check_enough(spec, data)
     encoding = make_encoding(spec, data)
     x = encoding.design(data)
     y = encoding.response(data)
+    _check_response_varies(spec, y, data)
     fit = fit_ols(x, y, encoding.names, intercept=spec.intercept)
     return FittedModel(spec=spec, encoding=encoding, data=data, x=x, y=y, fit=fit,
                        robust_se=robust_se, confidence=confidence)
+
+
+def _check_enough(spec: ModelSpec, data: pd.DataFrame) -> None:
+    """Too few sales for the parameters (each categorical counted as its levels less one,
+    at least one) fit nothing: said before a level count of the few rows is blamed."""
+    cats = set(spec.categorical)
+    k = int(spec.intercept) + int(bool(spec.date_column)) + sum(
+        max(int(data[c].nunique()) - 1, 1) if c in cats else 1 for c in spec.predictors)
+    if len(data) < k + 1:
+        from plumbrule.errors import FitError
+        raise FitError(f"Only {len(data)} usable rows for {k} parameters: the fit needs at "
+                       f"least {k + 1}. Add sales, fill in the blank cells of the rows left "
+                       "out, or remove predictors.")
+
+
+def _check_response_varies(spec: ModelSpec, y: np.ndarray, data: pd.DataFrame) -> None:
+    """A response with one value in every sale leaves nothing to explain (R² would be 0/0,
+    the F statistic and AIC infinite): refused with the value."""
+    if not spec.intercept or len(y) == 0 or np.ptp(y) > 0:
+        return
+    from plumbrule.errors import FitError
+    from plumbrule.numbers import readable
+    value = data[spec.response].iloc[0]
+    raise FitError(f"Column '{spec.response}' (the response) is {readable(float(value))} in "
+                   f"every one of the {len(y)} sales used, so the model has nothing to explain."
+                   " Check that 'response' names the sale-price column and that the prices "
+                   "were pasted as values.", column=spec.response, setting="response")

@@ -495,6 +495,8 @@ def _name_dependency(x, means, norms, names, tol) -> FitError:
             if gap <= 10 * tol:
                 big = np.abs(coef) > 1e-8 * np.abs(coef).max()
                 parts = [names[kept[i]] for i in np.flatnonzero(big)]
+                if not parts:      # non-finite working values: no combination to name
+                    break
                 return FitError(
                     f"'{names[j]}' is an exact combination of {quote_list(parts)}: the "
                     "fit cannot separate their effects. Remove one of them.",

@@ -63,17 +63,41 @@ class ModelSpec:
 
 
 def match_column(name: str, columns: Iterable[str], setting: str) -> str:
-    """The header a user meant: exact, else a unique case-insensitive match."""
+    """The header a user meant: exact, else a unique match after Unicode NFC normalisation
+    ('Â' typed as one character or as A + combining circumflex look the same), else a
+    unique case-insensitive one."""
     columns = list(columns)
     if name in columns:
         return name
-    folded = [c for c in columns if c.casefold() == name.strip().casefold()]
+    key = _nfc(name.strip())
+    same = [c for c in columns if _nfc(c) == key]
+    if len(same) == 1:
+        return same[0]
+    folded = [c for c in columns if _nfc(c).casefold() == key.casefold()]
     if len(folded) == 1:
         return folded[0]
-    close = _closest(name, columns)
+    comma = _comma_header(name, columns)
+    close = comma or _closest(name, columns)
     hint = f"Did you mean '{close}'?" if close else f"Columns are: {_short_list(columns)}."
+    if comma:
+        hint += f' A header holding a comma goes in double quotes in the list: "{comma}",...'
+
     raise SpecError(f"Setting '{setting}': there is no column '{name}'. {hint}",
                     setting=setting, column=name)
+
+
+def _nfc(text: str) -> str:
+    import unicodedata
+    return unicodedata.normalize("NFC", text)
+
+
+def _comma_header(name: str, columns: list[str]) -> str | None:
+    """The one header with a comma of which ``name`` is a comma-separated piece (a list
+    setting split it), else None."""
+    key = name.strip().strip('"').strip().casefold()
+    hits = [c for c in columns if "," in c and key
+            and key in (p.strip().casefold() for p in c.split(","))]
+    return hits[0] if len(hits) == 1 else None
 
 
 def _closest(name: str, columns: list[str]) -> str | None:

@@ -14,6 +14,7 @@ import pandas as pd
 
 from plumbrule.diagnostics.tables import effect_table, typical_spread
 from plumbrule.numbers import money, p_value, readable, signed_pct
+from plumbrule.render.terminal import visible
 from plumbrule.render.wording import CAUTION
 from plumbrule.verdicts import Verdict
 
@@ -180,7 +181,7 @@ def render_analysis(result) -> str:
         parts += [""] + dropped
     parts += _other_blocks(result)
     parts += ["", CAUTION]
-    return "\n".join(parts)
+    return visible("\n".join(parts))      # a header's ESC or NUL shown, never obeyed
 
 
 def headline_text(h: dict) -> str:
@@ -200,4 +201,4 @@ def headline_text(h: dict) -> str:
                   f"  (prediction interval {cash(h['pi_low'])} to {cash(h['pi_high'])})"]
         if h.get("reconciled_value") is not None:
             lines.append(f"  From the comparables    {cash(h['reconciled_value'])}")
-    return "\n".join(lines)
+    return visible("\n".join(lines))

@@ -236,6 +236,7 @@ def estimate_table(model, subj: Subjects, settings: Settings, when: _dt.date) ->
     se_m = np.sqrt(var_mean)
     se_s = np.sqrt(var_mean + fit.sigma ** 2)
     q = tdist.ppf(0.5 + settings.confidence / 2.0, fit.df_resid)
+    _check_in_price_range(model, subj, eta + q * se_s)
     lev = np.einsum("ij,ij->i", v, v)
     out = pd.DataFrame({
         "subject": subj.labels.to_numpy(), "row": subj.data.index.to_numpy(dtype=np.int64),
@@ -255,6 +256,30 @@ def estimate_table(model, subj: Subjects, settings: Settings, when: _dt.date) ->
                          retransform_factor=np.nan)
     out["flags"] = subject_flags(model, subj, _shared_leverage(fit, v), when)
     return out[ESTIMATE_COLUMNS]
+
+
+# exp() of more than this overflows a float (log of 1.8e308 is 709.78); a price beyond
+# 1e300 is no price anyway.
+_LOG_PRICE_LIMIT = 300 * np.log(10.0)
+
+
+def _check_in_price_range(model, subj: Subjects, upper: np.ndarray) -> None:
+    """A subject whose estimate or upper prediction bound (``upper``, model scale) is not a
+    finite price (cells far outside the sales': exp overflows) is refused by name, never
+    left as a blank estimate."""
+    limit = _LOG_PRICE_LIMIT if model.spec.log_response else 1e300
+    bad = ~(np.abs(upper) < limit)
+    if not bad.any():
+        return
+    from plumbrule.errors import SpecError
+    i = int(np.argmax(bad))
+    row = int(subj.data.index[i])
+    label = subj.labels.iloc[i]
+    who = (f"Subject '{label}' (row {row})" if label and label != f"row {row}"
+           else f"Subject row {row}")
+    raise SpecError(f"{who}: the model gives it no finite price (its values lie far outside "
+                    "those of the sales, beyond what the model can extrapolate to). Check its "
+                    "cells against the sales'.", row=row)
 
 
 _KIND = {"smearing": "mean, smearing factor", "lognormal": "mean, lognormal factor",

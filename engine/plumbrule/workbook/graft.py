@@ -84,7 +84,9 @@ def graft(user_path, result_bytes: bytes, out_path, replace: Iterable[str],
     plumbrule's mark, else :class:`WorkbookError` and nothing is written) plus the sheets
     ``sheet_names`` of the result workbook ``result_bytes`` (appended, in that order)."""
     wanted = list(sheet_names)
+    from plumbrule.intake.zipcheck import check_package
     with zipfile.ZipFile(user_path) as uz, zipfile.ZipFile(io.BytesIO(result_bytes)) as rz:
+        check_package(uz)        # the book may have changed since it was inspected
         u, r = _open(uz), _open(rz)
         removed, kept = _split_sheets(u, replace)
         drop = _parts_to_drop(u, removed)
@@ -92,7 +94,8 @@ def graft(user_path, result_bytes: bytes, out_path, replace: Iterable[str],
         out = _result_parts(u, r, new_parts, drop)
         new_sheets = _new_sheets(u, r, kept, removed, wanted, new_parts)
         out[u.main] = _edit_workbook(u, r, kept, new_sheets)
-        out[rels_part(u.main)] = _edit_rels(u, removed, drop, new_sheets)
+        styles = None if _styles_part(u) else new_parts.get(_result_styles(r))
+        out[rels_part(u.main)] = _edit_rels(u, removed, drop, new_sheets, styles)
         out[CONTENT_TYPES] = _edit_types(uz, drop, new_parts, r.types)
         _write(uz, out_path, drop, out)
 
@@ -140,6 +143,11 @@ def _name_new_parts(u: _Pkg, r: _Pkg, wanted, drop: set[str]) -> dict[str, str]:
                 folder, base = posixpath.split(p)
                 new_parts[p] = pk.free_part_name(posixpath.join(folder, "plumbrule-" + base),
                                                  taken)
+    if not _styles_part(u):
+        # A book without a styles part (valid: every cell in the default format) takes the
+        # result book's, under its usual name when free (openpyxl looks only there).
+        styles = _result_styles(r)
+        new_parts[styles] = pk.free_part_name(styles, taken)
     return new_parts
 
 
@@ -163,7 +171,8 @@ def _result_parts(u: _Pkg, r: _Pkg, new_parts: dict[str, str], drop: set[str]) -
         rel = rels_part(old)
         if rel in r.z.NameToInfo:
             out[rels_part(new)] = _retarget(r.z.read(rel), old, new_parts)
-    out[style_map["part"]] = style_map["data"]
+    if style_map["part"] is not None:
+        out[style_map["part"]] = style_map["data"]
     return out
 
 
@@ -378,7 +387,10 @@ def _full_calc(ed: Edits, data: bytes, nodes) -> None:
                   f'<{nodes[0].prefix}calcPr fullCalcOnLoad="1"/>'.encode())
 
 
-def _edit_rels(u: _Pkg, removed, drop: set[str], new_sheets) -> bytes:
+def _edit_rels(u: _Pkg, removed, drop: set[str], new_sheets, styles: str | None = None
+               ) -> bytes:
+    """The workbook's rels: removed sheets' gone, the new sheets' (and ``styles``, the
+    styles part added to a book that had none) appended."""
     part = rels_part(u.main)
     data = u.z.read(part)
     nodes = scan(data, part)
@@ -388,9 +400,15 @@ def _edit_rels(u: _Pkg, removed, drop: set[str], new_sheets) -> bytes:
         if node.parent == 0 and node.local == "Relationship" and node.get("Id") in gone:
             ed.replace(node.start, node.end, b"")
     p = nodes[0].prefix
-    _append_children(ed, data, nodes[0], "".join(
+    add = "".join(
         f'<{p}Relationship Id="{s.rid}" Type="{REL_SHEET}" Target="/{escape_attr(s.part)}"/>'
-        for s in new_sheets).encode("utf-8"))
+        for s in new_sheets)
+    if styles:
+        rid = next(f"rIdPlumbStyles{k}" for k in range(1, len(u.rels) + 2)
+                   if f"rIdPlumbStyles{k}" not in u.rels)
+        add += (f'<{p}Relationship Id="{rid}" Type="{NS_R}/styles" '
+                f'Target="/{escape_attr(styles)}"/>')
+    _append_children(ed, data, nodes[0], add.encode("utf-8"))
     return ed.apply()
 
 
@@ -444,6 +462,9 @@ def _prefix(data: str, local: str) -> str:
 # --- styles ------------------------------------------------------------------------
 
 _CONTAINERS = ("numFmts", "fonts", "fills", "borders", "cellXfs")
+# CT_Stylesheet's children in schema order (ECMA-376 Part 1)
+_STYLE_ORDER = ("numFmts", "fonts", "fills", "borders", "cellStyleXfs", "cellXfs",
+                "cellStyles", "dxfs", "tableStyles", "colors", "extLst")
 _ITEM = {"numFmts": "numFmt", "fonts": "font", "fills": "fill", "borders": "border",
          "cellXfs": "xf", "dxfs": "dxf"}
 
@@ -458,11 +479,25 @@ def _items(text: str, container: str, p: str = "") -> tuple[list[str], re.Match 
     return found, m
 
 
+def _result_styles(r: _Pkg) -> str:
+    """The result book's styles part (openpyxl always writes one)."""
+    part = _styles_part(r)
+    if part is None:  # pragma: no cover - openpyxl never writes a book without styles
+        raise AssertionError("the result book has no styles part")
+    return part
+
+
 def _merge_styles(u: _Pkg, r: _Pkg) -> dict:
     """Append the result book's cell formats to the user's styles.xml (reusing identical
     ones). Returns {'part', 'data', 'xf': result xf index → user xf index}."""
-    u_part = next(x.target for x in u.rels.values() if x.kind == "styles")
-    r_part = next(x.target for x in r.rels.values() if x.kind == "styles")
+    u_part, r_part = _styles_part(u), _result_styles(r)
+    if u_part is None:      # the result book's styles go in whole (see _name_new_parts)
+        same = {i: i for i in range(len(_items(r.z.read(r_part).decode("utf-8"),
+                                                 "cellXfs")[0]))}
+        return {"part": None, "data": b"", "xf": same, "dxf": {}}
+    if u_part not in u.z.NameToInfo:
+        raise WorkbookError(f"The workbook's styles part '{u_part}' is missing. The file is "
+                            "damaged; open and save it in your spreadsheet first.")
     text = u.z.read(u_part).decode("utf-8")
     p = _prefix(text, "styleSheet")
     rtext = r.z.read(r_part).decode("utf-8")
@@ -485,6 +520,8 @@ def _merge_styles(u: _Pkg, r: _Pkg) -> dict:
     for container in ("fonts", "fills", "borders"):
         maps[container], text = _merge_list(text, rtext, container, p, ns)
     xf_items = _items(rtext, "cellXfs")[0]
+    # a minimal styles.xml has no cell styles (cellStyleXfs) for an xfId to point at
+    has_cell_styles = re.search(r"<%scellStyleXfs\b" % re.escape(p), text) is not None
     fixed = []
     for xf in xf_items:
         xf = _sub_id(xf, "numFmtId", lambda v: fmt_map.get(v, v))
@@ -492,6 +529,8 @@ def _merge_styles(u: _Pkg, r: _Pkg) -> dict:
         xf = _sub_id(xf, "fillId", lambda v: maps["fills"][v])
         xf = _sub_id(xf, "borderId", lambda v: maps["borders"][v])
         xf = _sub_id(xf, "xfId", lambda v: 0)
+        if not has_cell_styles:
+            xf = re.sub(r'\s+xfId="\d+"', "", xf, count=1)
         fixed.append(xf)
     u_xfs, _ = _items(text, "cellXfs", re.escape(p))
     canon = {_canon(x): i for i, x in enumerate(u_xfs)}
@@ -508,6 +547,11 @@ def _merge_styles(u: _Pkg, r: _Pkg) -> dict:
     dxf_map, text = _merge_list(text, rtext, "dxfs", p, ns,
                                 before=("tableStyles", "colors", "extLst"), tail=True)
     return {"part": u_part, "data": text.encode("utf-8"), "xf": xf_map, "dxf": dxf_map}
+
+
+def _styles_part(pkg: _Pkg) -> str | None:
+    """The part the workbook's styles relationship names; None when it has none."""
+    return next((x.target for x in pkg.rels.values() if x.kind == "styles"), None)
 
 
 def _canon(el: str) -> str:
@@ -555,14 +599,24 @@ def _append(text: str, container: str, p: str, items: list[str], before=(),
     m = re.search(r"<%s%s\b([^>]*?)(/?)>" % (pe, container), text)
     if m is None:
         block = f'<{p}{container} count="{len(items)}">{"".join(items)}</{p}{container}>'
-        for b in before:
+        # before the first element present that follows it in CT_Stylesheet order (a
+        # minimal styles.xml may hold cellXfs alone), else at the end of the stylesheet
+        following = _STYLE_ORDER[_STYLE_ORDER.index(container) + 1:]
+        for b in (*before, *following):
             mb = re.search(r"<%s%s\b" % (pe, b), text)
             if mb:
                 return text[:mb.start()] + block + text[mb.start():]
         end = text.rfind(f"</{p}styleSheet>")
-        if tail and end >= 0:
-            return text[:end] + block + text[end:]
-        raise ValueError(f"styles.xml has no place for {container}")
+        if end < 0:        # <styleSheet/>: open it
+            m = re.search(r"<%sstyleSheet\b([^>]*?)/>" % pe, text)
+            if m is None:
+                raise WorkbookError("The workbook's styles part has no styleSheet element. "
+                                    "The file is damaged; open and save it in your "
+                                    "spreadsheet first.")
+            text = (text[:m.start()] + f"<{p}styleSheet{m.group(1)}></{p}styleSheet>"
+                    + text[m.end():])
+            end = text.rfind(f"</{p}styleSheet>")
+        return text[:end] + block + text[end:]
     count = len(_items(text, container, pe)[0]) + len(items)
     attrs = re.sub(r'\s*count="\d+"', "", m.group(1))
     if m.group(2):      # <fonts/> self-closing

@@ -20,7 +20,7 @@ from typing import Any
 from plumbrule.errors import WorkbookError
 from plumbrule.settings import settings_from_rows
 from plumbrule.intake import SheetTable, table_from_values
-from plumbrule.intake.readers import _with_facts, _xlsx_facts
+from plumbrule.intake.readers import _restore_error_cells, _with_facts, _xlsx_facts
 
 
 @dataclass(frozen=True)
@@ -42,7 +42,9 @@ class BookInputs:
 def read_inputs(path: str | Path) -> BookInputs:
     """Read Sales / Subjects / Comps / Settings; errors name the sheet and the fix."""
     from python_calamine import CalamineWorkbook
+    from plumbrule.intake.zipcheck import check_package
     path = Path(path)
+    check_package(path)          # a zip bomb is refused before calamine inflates anything
     try:
         book = CalamineWorkbook.from_path(str(path), load_tables=True)
     except Exception as exc:   # calamine's own error types for damaged or encrypted files
@@ -51,14 +53,18 @@ def read_inputs(path: str | Path) -> BookInputs:
     try:
         sales_block, header_row, sheet, first_col, is_table = _block_at(book, "Sales",
                                                                         required=True)
+        facts = (_xlsx_facts(path, str(sheet)) if path.suffix.lower() in (".xlsx", ".xlsm")
+                 else None)
+        if facts is not None:   # calamine hands error cells over as blanks: '#N/A' back
+            _restore_error_cells(sales_block, facts.errors, (header_row - 1, first_col - 1))
         sales = table_from_values(sales_block, header_row=header_row, sheet=sheet,
                                   first_column=first_col,
                                   header_at=header_row if is_table else None)
         # Title rows above the header of a Sales sheet are not copied to the results.
         sales_block = sales_block[sales.header_row - header_row:]
-        if path.suffix.lower() in (".xlsx", ".xlsm"):
+        if facts is not None:
             sales = _with_facts(sales, sales_block, (sales.header_row - 1, first_col - 1),
-                                _xlsx_facts(path, str(sheet)))
+                                facts)
         if len(sales.frame) == 0:
             raise WorkbookError(f"The Sales table (sheet '{sheet}') has no sales below its header "
                                 "row. Paste your sales into it and run again.", sheet=sheet)
@@ -106,14 +112,20 @@ def _block_at(book, name: str, required: bool = False
     its totals row)."""
     tables = {t.lower(): t for t in _table_names(book)}
     if name.lower() in tables:
-        t = book.get_table_by_name(tables[name.lower()])
-        values = [list(t.columns)] + t.to_python()
+        try:
+            t = book.get_table_by_name(tables[name.lower()])
+            values = [list(t.columns)] + t.to_python()
+        except Exception as exc:   # calamine's own error types for a damaged part
+            raise _damaged(f"table '{tables[name.lower()]}'", exc) from None
         return values, int(t.start[0]), t.sheet, int(t.start[1]) + 1, True
     sheets = {s.lower(): s for s in book.sheet_names}
     if name.lower() in sheets:
         sheet = sheets[name.lower()]
-        ws = book.get_sheet_by_name(sheet)
-        values = ws.to_python(skip_empty_area=True)
+        try:
+            ws = book.get_sheet_by_name(sheet)
+            values = ws.to_python(skip_empty_area=True)
+        except Exception as exc:   # calamine's own error types for a damaged part
+            raise _damaged(f"sheet '{sheet}'", exc) from None
         start = ws.start[0] if ws.start else 0
         if not values or not any(str(v).strip() for v in values[0]):
             if required:
@@ -130,6 +142,12 @@ def _block_at(book, name: str, required: bool = False
                             "a sheet named Sales (or an Excel table named Sales); "
                             "plumbrule new BOOK.xlsx writes a template.", sheet=name)
     return [], 1, None, 1, False
+
+
+def _damaged(where: str, exc: Exception) -> WorkbookError:
+    detail = " ".join(str(exc).split())[:200]
+    return WorkbookError(f"The workbook's {where} cannot be read ({detail}). The file is "
+                         "damaged: open it in your spreadsheet and save it again.")
 
 
 def _table_names(book) -> list[str]:

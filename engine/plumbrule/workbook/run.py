@@ -373,12 +373,14 @@ def print_run(result: RunResult, as_json: bool = False) -> None:
                           "backup": str(result.backup) if result.backup else None,
                           "headline": result.headline}, allow_nan=False, ensure_ascii=False))
         return
+    from plumbrule.render.terminal import visible    # part and file names: ESC shown
     if result.in_place:
-        print(f"Results written to {result.written} (sheets {', '.join(RESULT_SHEETS[:-1])}).")
+        print(visible(f"Results written to {result.written} (sheets "
+                      f"{', '.join(RESULT_SHEETS[:-1])})."))
     else:
-        print("plumbrule cannot update this workbook in place without losing something: "
-              + "; ".join(result.unsupported) + ".")
-        print(f"It was left untouched; the results are in {result.written}.")
+        print(visible("plumbrule cannot update this workbook in place without losing "
+                      "something: " + "; ".join(result.unsupported) + "."))
+        print(visible(f"It was left untouched; the results are in {result.written}."))
     if result.backup:
-        print(f"Previous version kept as {result.backup}.")
+        print(visible(f"Previous version kept as {result.backup}."))
     print(headline_text(result.headline))

@@ -22,10 +22,12 @@ from __future__ import annotations
 
 import re
 import zipfile
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from plumbrule.errors import WorkbookError
+from plumbrule.intake.zipcheck import check_package
 from plumbrule.workbook import package as pk
 
 _CFB_MAGIC = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"   # OLE compound file: encrypted xlsx or .xls
@@ -145,6 +147,9 @@ def check_not_open(path: str | Path) -> None:
 def check_is_file(path: Path) -> None:
     if not path.exists():
         raise WorkbookError(f"Workbook '{path}' does not exist. Check the path.")
+    if path.is_dir():
+        raise WorkbookError(f"'{path.name}' is a folder, not a workbook. Give the path of the "
+                            ".xlsx file.")
     if path.suffix.lower() not in (".xlsx", ".xlsm"):
         raise WorkbookError(f"'{path.name}' is not an .xlsx or .xlsm workbook. Save it as an "
                             "Excel workbook (.xlsx) and run again.")
@@ -178,9 +183,10 @@ def inspect_book(path: str | Path) -> BookParts:
     except (zipfile.BadZipFile, OSError) as exc:
         raise WorkbookError(f"'{path.name}' cannot be opened as a workbook ({exc}).") from None
     with z:
+        check_package(z)         # from the directory, before any part is inflated
         try:
             return _inspect(z, path)
-        except (zipfile.BadZipFile, KeyError, EOFError, OSError) as exc:
+        except (zipfile.BadZipFile, KeyError, EOFError, OSError, zlib.error) as exc:
             raise WorkbookError(f"'{path.name}' is damaged ({exc}). Open and save it in your "
                                 "spreadsheet first.") from None
 
@@ -218,7 +224,13 @@ def _check_xml(z: zipfile.ZipFile, types: dict[str, str]) -> None:
     """Every XML part's prolog through defusedxml (no DTD, no entity declarations)."""
     for name, ctype in types.items():
         if name.endswith((".xml", ".rels", ".vml")) or ctype.endswith("xml"):
-            pk.check_prolog(z, name)
+            try:
+                pk.check_prolog(z, name)
+            except (zipfile.BadZipFile, EOFError, zlib.error) as exc:
+                raise WorkbookError(
+                    f"Part '{name}' of '{Path(z.filename or 'the workbook').name}' is damaged "
+                    f"({' '.join(str(exc).split())}). Open the book in your spreadsheet and "
+                    "save it again, or restore a backup.") from None
 
 
 def _read_workbook(z: zipfile.ZipFile, main: str, path: Path) -> pk.Workbook:
