@@ -63,3 +63,16 @@ def test_surfaces_compute_no_statistic(name, path):
     bad = sorted(i for i in _imports(path)
                  if _under(i, ("scipy", "statsmodels", "plumbrule.model.ols")))
     assert not bad, f"{name} imports {bad}"
+
+
+def test_the_command_line_starts_without_numpy_pandas_or_scipy():
+    """`plumbrule --version` and `--help` wait on nothing heavy: importing the command line
+    (the parser, the settings registry, the errors) loads no numpy, pandas or scipy — a
+    behaviour a user feels on every command, checked by import, not by a clock."""
+    import subprocess
+    import sys
+    code = ("import sys; from plumbrule.cli.main import build_parser; build_parser(); "
+            "print(sorted(x for x in ('numpy', 'pandas', 'scipy') if x in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout.strip()
+    assert out == "[]"

@@ -17,7 +17,7 @@ from dataclasses import dataclass, field, fields
 from typing import Any, Mapping
 
 from plumbrule.errors import SettingError
-from plumbrule.intake.cells import error_text, is_blank
+from plumbrule.cell_values import error_text, is_blank
 
 
 @dataclass(frozen=True)

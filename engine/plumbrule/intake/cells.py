@@ -13,21 +13,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from plumbrule.cell_values import COM_ERROR_CODES, ERROR_TEXTS, error_text, is_blank  # noqa: F401
 from plumbrule.errors import CellErrors, CellProblem, IntakeError
-
-
-ERROR_TEXTS = frozenset({
-    "#N/A", "#VALUE!", "#DIV/0!", "#REF!", "#NAME?", "#NUM!", "#NULL!", "#SPILL!",
-    "#CALC!", "#GETTING_DATA", "#FIELD!", "#BLOCKED!", "#CONNECT!", "#BUSY!", "#UNKNOWN!",
-})
-
-
-# What a COM bridge passes for an error cell (xlwings on Windows): 0x800A07xx codes.
-COM_ERROR_CODES = {
-    -2146826281: "#DIV/0!", -2146826246: "#N/A", -2146826259: "#NAME?",
-    -2146826288: "#NULL!", -2146826252: "#NUM!", -2146826265: "#REF!",
-    -2146826273: "#VALUE!",
-}
 
 
 _EXCEL_EPOCH = pd.Timestamp("1899-12-30")   # serial 61 = 1900-03-01 in the 1900 date system
@@ -52,26 +39,6 @@ _SHOWN_TEXT = 60     # longest cell text quoted back in a message
 
 # Cell kinds, decided once per Python type (a column holds few distinct types).
 BLANK, TEXT, NUMBER, BOOL, DATE, OTHER = "blank", "text", "number", "bool", "date", "other"
-
-
-def error_text(v: Any) -> str | None:
-    """The spreadsheet error a single cell holds ('#N/A', '#DIV/0!', …), as text, whether it
-    arrived as text or as a COM error code; None for any other cell."""
-    if isinstance(v, str) and v.strip() in ERROR_TEXTS:
-        return v.strip()
-    if type(v) is int and v in COM_ERROR_CODES:
-        return COM_ERROR_CODES[v]
-    return None
-
-
-def is_blank(v: Any) -> bool:
-    """True for a cell a user sees as empty: None, NaN, NaT, NA or text of only spaces.
-    The one blank-cell test of the package."""
-    if v is None or v is pd.NaT or v is pd.NA:
-        return True
-    if isinstance(v, (float, np.floating)):
-        return bool(v != v)
-    return isinstance(v, str) and not v.strip()
 
 
 def _kind_of_type(t: type) -> str:
