@@ -27,6 +27,7 @@ import importlib
 import sys
 import types
 
+import pandas as pd
 import pytest
 
 from plumbrule.analysis import analyze
@@ -158,7 +159,7 @@ def com_cells(frame):
     for rec in frame.astype(object).itertuples(index=False):
         row = []
         for v in rec:
-            if v is None or (isinstance(v, float) and v != v) or v is __import__("pandas").NaT:
+            if v is None or v is pd.NaT or (isinstance(v, float) and v != v):
                 v = None
             elif hasattr(v, "to_pydatetime"):
                 d = v.to_pydatetime()
