@@ -383,14 +383,20 @@ def _table(analysis, name: str):
     return analysis.tables.table(name)
 
 
+# Ranges are read keeping what the user typed (xlwings' value converter options):
+# err_to_str gives an error cell as its text ("#N/A") instead of None, so the row is
+# logged with its error, not as blank; dates stay datetimes; empty cells stay None (never
+# 0 or ""). See docs/excel.md, "How ranges are read".
+KEEP_TYPED = dict(err_to_str=True, dates=_dt.datetime, empty=None)
+
 # Argument help per parameter name; every model function takes a subset of these.
 ARGS: dict[str, dict[str, Any]] = {
-    "sales": dict(ndim=2, doc=DOC_SALES),
+    "sales": dict(ndim=2, doc=DOC_SALES, **KEEP_TYPED),
     "response": dict(doc=DOC_RESPONSE),
     "predictors": dict(doc=DOC_PREDICTORS),
-    "subject": dict(ndim=2, doc=DOC_SUBJECT),
-    "comps": dict(doc=DOC_COMPS),
-    "settings": dict(ndim=2, doc=DOC_SETTINGS),
+    "subject": dict(ndim=2, doc=DOC_SUBJECT, **KEEP_TYPED),
+    "comps": dict(doc=DOC_COMPS, **KEEP_TYPED),
+    "settings": dict(ndim=2, doc=DOC_SETTINGS, **KEEP_TYPED),
 }
 
 
