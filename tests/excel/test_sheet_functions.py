@@ -462,3 +462,17 @@ def test_true_and_one_read_alike_in_a_numeric_column(sales_cells):
     assert sf.CACHE.stats().misses == 1 and again == first
     ref = analyze(cells, dict(DEMO_SETTINGS, predictors=preds))
     assert again == expected_cells(ref.tables.coefficients)
+
+
+def test_a_whole_column_reference_reads_only_the_rows_with_sales(sales_cells):
+    """A:K hands over 1,048,576 rows, nearly all empty: the trailing empty rows are not
+    rows at all (not 'missing values'), and the result is the used rows' result."""
+    from plumbrule.intake.table import table_from_values
+    rows = [list(r) for r in sales_cells]
+    width = len(rows[0])
+    whole = rows + [[None] * width for _ in range(1_048_576 - len(rows))]
+    assert len(table_from_values(whole).frame) == len(rows) - 1
+    got = call(sf.PLUMB_COEFS, whole, RESPONSE, PREDICTORS, None)
+    assert got == call(sf.PLUMB_COEFS, rows, RESPONSE, PREDICTORS, None)
+    screen = call(sf.PLUMB_SCREEN, whole, RESPONSE, PREDICTORS, None)
+    assert not any("empty row" in str(c) for r in screen for c in r)

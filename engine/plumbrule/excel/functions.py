@@ -324,6 +324,8 @@ def fitted(sales: Any, response: Any, predictors: Any, settings: Any) -> tuple[_
         from plumbrule.errors import IntakeError
         raise IntakeError("Argument 'sales': select the sales table including its header row, "
                           "e.g. Sales[#All].")
+    from plumbrule.intake.table import used_rows
+    sales = used_rows(sales)          # a whole-column reference: only the rows with sales
     holder = CACHE.get_or_compute(sales, ("analysis", m),
                                   lambda rows: _Fitted(analyze(rows, m)),
                                   cache_errors=(PlumbError,), loose_columns=_numeric_columns)

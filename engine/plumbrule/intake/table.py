@@ -36,6 +36,23 @@ class SheetTable:
         return list(self.frame.columns)
 
 
+def used_rows(values: Sequence[Sequence[Any]]) -> Sequence[Sequence[Any]]:
+    """``values`` without its trailing rows of empty cells (None or ""): a whole-column
+    reference (A:K) or a table with spare rows hands over a million rows of which a few
+    hundred are sales; the rest are not rows at all and cost nothing further. A row's
+    emptiness is judged with list counts (C speed), from the end, until a filled row."""
+    end = len(values)
+    while end > 1:
+        row = values[end - 1]
+        if isinstance(row, (list, tuple)):
+            if row.count(None) + row.count("") != len(row):
+                break
+        elif row is not None and row != "":
+            break
+        end -= 1
+    return values if end == len(values) else values[:end]
+
+
 def table_from_values(values: Sequence[Sequence[Any]], header_row: int = 1,
                       sheet: str | None = None, first_column: int = 1,
                       header_at: int | None = None) -> SheetTable:
@@ -71,7 +88,8 @@ def padded(values: Sequence[Sequence[Any]]) -> np.ndarray:
     """Rows of cells (of any lengths) → a 2-D object array, short rows filled with None."""
     if isinstance(values, np.ndarray):
         values = values.tolist()
-    rows = [list(r) if isinstance(r, (list, tuple)) else [r] for r in (values or [])]
+    values = used_rows(values or [])
+    rows = [list(r) if isinstance(r, (list, tuple)) else [r] for r in values]
     if not rows or not max(len(r) for r in rows):
         raise IntakeError("The sales block is empty. Select the table including its header row.")
     width = max(len(r) for r in rows)
