@@ -250,3 +250,26 @@ def test_value_through_call_udf_equals_the_engine(xl, sales_rows):
     naive = [[v.replace(tzinfo=None) if isinstance(v, dt.datetime) else v for v in r]
              for r in out]
     assert naive == expected
+
+
+@pytest.mark.parametrize("name", ["PLUMB_FIT", "PLUMB_CHECKS", "PLUMB_RATIOS", "PLUMB_GRID",
+                                  "PLUMB_RECONCILE"])
+def test_every_other_function_through_call_udf_equals_its_direct_call(xl, sales_rows, name):
+    """The remaining worksheet functions through xlwings' real call path give what the same
+    function gives called directly with the same values (the direct calls are checked
+    against the engine in test_sheet_functions.py): xlwings hands over nothing different."""
+    from plumbrule.demo.town import demo_comps
+    udfs, module = xl
+    args = [FakeComRange(sales_rows), "", ""]
+    direct = [python_cells(sales_rows), "", ""]
+    if name in ("PLUMB_GRID", "PLUMB_RECONCILE"):
+        subject_rows = com_cells(demo_subjects())
+        comps = [[float(r)] for r in demo_comps(demo_sales())]
+        args += [FakeComRange(subject_rows), FakeComRange(comps)]
+        direct += [python_cells(subject_rows), [r[0] for r in comps]]
+    out = _call(udfs, name, args + [FakeComRange(SETTINGS)])
+    want = getattr(module, name)(*direct, SETTINGS)
+    assert isinstance(out, list) and len(out) > 1, out
+    naive = [[v.replace(tzinfo=None) if isinstance(v, dt.datetime) else v for v in r]
+             for r in out]
+    assert naive == _as_written(want)
