@@ -107,3 +107,20 @@ def refused_run(book, capsys, *words):
         assert w.lower() in err.lower(), err
     assert folder_state(book.parent) == before
     return err
+
+
+def plain_book(path, sales, settings):
+    """A small plain .xlsx written by openpyxl: a Sales sheet holding ``sales`` (a DataFrame,
+    header first) and a Settings sheet of (name, value) rows. Returns ``path``."""
+    from openpyxl import Workbook
+    wb = Workbook()
+    ws = wb.active
+    ws.title = "Sales"
+    ws.append(list(sales.columns))
+    for row in sales.itertuples(index=False):
+        ws.append(list(row))
+    st = wb.create_sheet("Settings")
+    for name, value in settings.items():
+        st.append([name, value])
+    wb.save(path)
+    return path

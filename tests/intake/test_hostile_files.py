@@ -30,19 +30,9 @@ def sales():
 @pytest.fixture(scope="module")
 def book(sales, tmp_path_factory):
     """A small plain xlsx: Sales and Settings sheets (openpyxl)."""
-    from openpyxl import Workbook
-    wb = Workbook()
-    ws = wb.active
-    ws.title = "Sales"
-    ws.append(list(sales.columns))
-    for row in sales.itertuples(index=False):
-        ws.append(list(row))
-    st = wb.create_sheet("Settings")
-    for k, v in {"response": "Sale price", "predictors": "Living area,Age"}.items():
-        st.append([k, v])
-    path = tmp_path_factory.mktemp("hostile") / "book.xlsx"
-    wb.save(path)
-    return path
+    from workbook_snapshot import plain_book
+    return plain_book(tmp_path_factory.mktemp("hostile") / "book.xlsx", sales,
+                      {"response": "Sale price", "predictors": "Living area,Age"})
 
 
 def _one_line(capsys, argv) -> str:

@@ -25,20 +25,9 @@ BOOK_SALES = len(SALES)
 
 @pytest.fixture(scope="module")
 def book(tmp_path_factory):
-    from openpyxl import Workbook
-    sales = SALES
-    wb = Workbook()
-    ws = wb.active
-    ws.title = "Sales"
-    ws.append(list(sales.columns))
-    for row in sales.itertuples(index=False):
-        ws.append(list(row))
-    st = wb.create_sheet("Settings")
-    st.append(["response", "Sale price"])
-    st.append(["predictors", "Living area,Age"])
-    path = tmp_path_factory.mktemp("sparse") / "book.xlsx"
-    wb.save(path)
-    return path
+    from workbook_snapshot import plain_book
+    return plain_book(tmp_path_factory.mktemp("sparse") / "book.xlsx", SALES,
+                      {"response": "Sale price", "predictors": "Living area,Age"})
 
 
 def _rewritten(src, dest, edit) -> None:

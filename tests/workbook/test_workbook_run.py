@@ -20,13 +20,6 @@ HEADLINE_NAMES = ["plumb_estimate", "plumb_pi_low", "plumb_pi_high", "plumb_r_sq
 
 
 @pytest.fixture(scope="module")
-def filled(tmp_path_factory):
-    """The demo workbook, filled but not yet analysed."""
-    from plumbrule.cli.demo import write_demo_book
-    return write_demo_book(tmp_path_factory.mktemp("filled"))
-
-
-@pytest.fixture(scope="module")
 def ran(filled, tmp_path_factory):
     """The demo workbook after one `plumbrule run` (through the CLI)."""
     book = tmp_path_factory.mktemp("ran") / "book.xlsx"

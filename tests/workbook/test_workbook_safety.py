@@ -13,17 +13,6 @@ from plumbrule.cli.main import main
 from plumbrule.workbook import RESULT_SHEETS
 
 
-@pytest.fixture(scope="module")
-def filled(tmp_path_factory):
-    from plumbrule.cli.demo import write_demo_book
-    return write_demo_book(tmp_path_factory.mktemp("filled"))
-
-
-@pytest.fixture
-def book(filled, tmp_path):
-    return shutil.copyfile(filled, tmp_path / "book.xlsx")
-
-
 @pytest.mark.parametrize("lock", ["~$book.xlsx", ".~lock.book.xlsx#"],
                          ids=["excel", "libreoffice"])
 def test_open_workbook_is_refused(book, capsys, lock):

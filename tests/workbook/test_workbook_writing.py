@@ -18,17 +18,6 @@ from workbook_snapshot import folder_state
 from plumbrule.cli.main import main
 
 
-@pytest.fixture(scope="module")
-def filled(tmp_path_factory):
-    from plumbrule.cli.demo import write_demo_book
-    return write_demo_book(tmp_path_factory.mktemp("filled"))
-
-
-@pytest.fixture
-def book(filled, tmp_path):
-    return shutil.copyfile(filled, tmp_path / "book.xlsx")
-
-
 def _sheet_names(path):
     from python_calamine import CalamineWorkbook
     return CalamineWorkbook.from_path(str(path)).sheet_names
