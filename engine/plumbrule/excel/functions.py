@@ -27,6 +27,7 @@ from plumbrule.intake.cells import error_text, is_blank
 from plumbrule.errors import PlumbError, SettingError
 from plumbrule.render.plain import plain_value
 from plumbrule.excel.cache import SheetCache, small_key
+from plumbrule.excel import handles
 
 try:   # without Excel (Linux, macOS, CI) these decorators only mark the functions
     import xlwings as xw
@@ -57,8 +58,8 @@ PREFIX = "plumbrule: "
 CACHE = SheetCache()
 
 # Argument help shown in Excel's function wizard (each under 255 characters).
-DOC_SALES = ("The sales table with its header row, e.g. Sales[#All]. One row per sale; "
-             "row numbers count the header as row 1.")
+DOC_SALES = ("The sales table with its header row, e.g. Sales[#All] (one row per sale; row "
+             "numbers count the header as row 1), or a PLUMB_MODEL cell to reuse its fit.")
 DOC_RESPONSE = ("Header of the sale-price column, e.g. \"Sale price\" "
                 "(blank: the settings' response).")
 DOC_PREDICTORS = ("Headers of the columns that explain the price: comma-separated text "
@@ -276,13 +277,14 @@ def resolve_settings(response: Any, predictors: Any, settings: Any):
 class _Fitted:
     """A cached analysis and the valuations made from it (bounded)."""
 
-    __slots__ = ("analysis", "valuations", "rendered")
+    __slots__ = ("analysis", "valuations", "rendered", "handles")
     MAX_VALUATIONS = 32
 
     def __init__(self, analysis) -> None:
         self.analysis = analysis
         self.valuations: dict = {}
         self.rendered: dict = {}
+        self.handles: dict = {}          # the model cell's full settings → its handle id
 
     def cells(self, name: str, build: Callable) -> Cells:
         """``build(analysis)`` as cells, rendered once; fresh row lists per call."""
@@ -317,8 +319,17 @@ def _parsed(response: Any, predictors: Any, settings: Any):
 
 
 def fitted(sales: Any, response: Any, predictors: Any, settings: Any) -> tuple[_Fitted, Any]:
-    """The analysis for these cells and arguments (one fit per distinct content)."""
+    """The analysis for these cells and arguments (one fit per distinct content), and the
+    call's full settings. ``sales`` may be a PLUMB_MODEL cell's handle instead of the block."""
     from plumbrule.analysis import analyze
+    first = handles.one_text(sales)
+    if type(first) is str:
+        hid = handles.handle_id(first)
+        if hid is not None:
+            return _from_handle(hid, response, predictors, settings)
+        if first.startswith(PREFIX):          # the model cell shows an error: show it too
+            from plumbrule.errors import IntakeError
+            raise IntakeError(first[len(PREFIX):])
     s, m = _parsed(response, predictors, settings)
     if is_blank(sales) or not isinstance(sales, (list, tuple)):
         from plumbrule.errors import IntakeError
@@ -330,6 +341,67 @@ def fitted(sales: Any, response: Any, predictors: Any, settings: Any) -> tuple[_
                                   lambda rows: _Fitted(analyze(rows, m)),
                                   cache_errors=(PlumbError,), loose_columns=_numeric_columns)
     return holder, s
+
+
+def _from_handle(hid: str, response: Any, predictors: Any,
+                 settings: Any) -> tuple[_Fitted, Any]:
+    """The fit a PLUMB_MODEL cell's handle names, with this cell's valuation settings."""
+    held = handles.look_up(hid)
+    if held is None:
+        from plumbrule.errors import IntakeError
+        raise IntakeError(f"Argument 'sales': the model {hid} is not held by this Python "
+                          "session (Python was restarted, or more than "
+                          f"{handles.MAX_HANDLES} models are in use). Recalculate its "
+                          "PLUMB_MODEL cell (Ctrl+Alt+F9 recalculates every cell).")
+    holder, s = held
+    return holder, _cell_settings(hid, s, response, predictors, settings)
+
+
+def _cell_settings(hid: str, s, response: Any, predictors: Any, settings: Any):
+    """The model cell's settings ``s`` with the valuation settings this cell gives. A
+    setting that would change the fit must be left out or equal the model cell's."""
+    if is_blank(response) and is_blank(predictors) and is_blank(settings):
+        return s
+    key = small_key((hid, response, predictors, settings))
+    hit = _PARSED.get(key)
+    if hit is not None:
+        return hit
+    from plumbrule.settings import REGISTRY, normalise_name, parse_settings
+    raw = {normalise_name(k): v for k, v in settings_arg(settings).items()}
+    r, p = response_arg(response), predictors_arg(predictors)
+    if r is not None:
+        raw["response"] = r
+    if p is not None:
+        raw["predictors"] = p
+    given = parse_settings(raw)
+    own = {}
+    for name in raw:
+        if name not in REGISTRY or is_blank(raw[name]):
+            continue
+        if REGISTRY[name].group == "value":
+            own[name] = getattr(given, name)
+        elif getattr(given, name) != getattr(s, name):
+            raise SettingError(
+                f"Setting '{name}' differs from the one of model {hid}: a cell given a "
+                "model handle uses that model. Change it on the PLUMB_MODEL cell, or leave it "
+                "out here.", setting=name)
+    out = s.replace(**own) if own else s
+    if len(_PARSED) >= 64:
+        _PARSED.pop(next(iter(_PARSED)))
+    _PARSED[key] = out
+    return out
+
+
+def model_handle(sales, response, predictors, settings) -> str:
+    """The handle text of the fit these arguments give (a new id for new content)."""
+    holder, s = fitted(sales, response, predictors, settings)
+    hid = holder.handles.get(s)
+    if hid is None:
+        hid = holder.handles[s] = handles.mint((holder, s))
+    else:
+        handles.hold(hid, (holder, s))
+    fit = holder.analysis.fit
+    return (f"{handles.PREFIX}{hid}: fitted on {fit.n:,} sales, {fit.n_params} terms")
 
 
 def _numeric_columns(holder: _Fitted, rows: list) -> frozenset:
@@ -416,8 +488,16 @@ def sheet_function(fn: Callable) -> Callable:
 
 
 # --- the worksheet functions -----------------------------------------------------
+# Every function taking ``sales`` also takes a PLUMB_MODEL cell there (its handle text).
 # sheet_function adds the metadata xlwings' Import Functions turns into VBA (name,
 # arguments, help); PLUMB_INFO, with no arguments and recalculated always, spells it out.
+
+@sheet_function
+def PLUMB_MODEL(sales, response, predictors, settings=None):
+    ("Fits the model once and shows its handle (one text cell). Give that cell as the first "
+     "argument of other PLUMB_ functions instead of the sales: they then reuse this fit.")
+    return model_handle(sales, response, predictors, settings)
+
 
 @sheet_function
 def PLUMB_COEFS(sales, response, predictors, settings=None):
@@ -526,9 +606,9 @@ def info_rows() -> list[list[Any]]:
     rows += [["cache_entries", st.entries], ["cache_hits", st.hits],
              ["cache_misses", st.misses], ["cache_evictions", st.evictions],
              ["cache_mb", st.approx_bytes / 2**20], ["cache_max_entries", st.max_entries],
-             ["cache_max_mb", st.max_bytes / 2**20]]
+             ["cache_max_mb", st.max_bytes / 2**20], ["model_handles", handles.held()]]
     return rows
 
 
-FUNCTIONS = (PLUMB_COEFS, PLUMB_FIT, PLUMB_CHECKS, PLUMB_SCREEN, PLUMB_RATIOS, PLUMB_VALUE,
+FUNCTIONS = (PLUMB_MODEL, PLUMB_COEFS, PLUMB_FIT, PLUMB_CHECKS, PLUMB_SCREEN, PLUMB_RATIOS, PLUMB_VALUE,
              PLUMB_GRID, PLUMB_RECONCILE, PLUMB_INFO)
