@@ -273,3 +273,18 @@ def test_every_other_function_through_call_udf_equals_its_direct_call(xl, sales_
     naive = [[v.replace(tzinfo=None) if isinstance(v, dt.datetime) else v for v in r]
              for r in out]
     assert naive == _as_written(want)
+
+
+def test_model_cell_and_its_handle_through_call_udf(xl, sales_rows):
+    """PLUMB_MODEL through xlwings' call path returns one text cell; a cell referring to it
+    (a one-cell COM range holding that text) gives the direct call's coefficient table."""
+    udfs, module = xl
+    handle = _call(udfs, "PLUMB_MODEL", [FakeComRange(sales_rows), "", "",
+                                        FakeComRange(SETTINGS)])
+    assert isinstance(handle, list) and len(handle) == 1 and len(handle[0]) == 1, handle
+    handle = handle[0][0]                          # xlwings writes one cell: [[text]]
+    assert isinstance(handle, str) and handle.startswith("plumbrule model "), handle
+    out = _call(udfs, "PLUMB_COEFS", [FakeComRange([[handle]]), "", "",
+                                     FakeComRange(SETTINGS)])
+    engine = analyze(python_cells(sales_rows), DEMO_SETTINGS)
+    assert out == _as_written(module.frame_cells(engine.tables.table("coefficients")))
