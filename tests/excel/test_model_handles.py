@@ -85,12 +85,13 @@ def test_a_changed_block_gets_a_new_handle_and_its_own_fit(cells, change):
     changed = change(copy.deepcopy(base))
     h2 = _handle(changed)
     assert h2 != h1
-    engine = analyze(copy.deepcopy(changed), sf.resolve_settings("", "", MODEL))
+    settings = sf.resolve_settings("", "", MODEL)
+    engine = analyze(copy.deepcopy(changed), settings)
     want = sf.frame_cells(engine.tables.coefficients)
     got = sf.PLUMB_COEFS([[h2]], "", "")
     assert got == want
     # The old handle still names the old block's fit, never the new one.
-    old = sf.frame_cells(analyze(copy.deepcopy(base), sf.resolve_settings("", "", MODEL)).tables.coefficients)
+    old = sf.frame_cells(analyze(copy.deepcopy(base), settings).tables.coefficients)
     assert sf.PLUMB_COEFS([[h1]], "", "") == old
     if change is not _true_instead:                  # TRUE vs 1 may leave the numbers alike
         assert want != old
