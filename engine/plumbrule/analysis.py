@@ -17,6 +17,12 @@ from plumbrule import screening as screen
 from plumbrule import validation as validate
 from plumbrule.diagnostics.checks import WATCH, Check, run_checks
 from plumbrule.diagnostics.levels import level_checks
+from plumbrule.diagnostics.trend import (
+    market_index,
+    trend_checks,
+    valuation_day,
+    with_time_adjusted,
+)
 from plumbrule.errors import FitError, SettingError
 from plumbrule.model.fitted import FittedModel, fit_model
 from plumbrule.model.retransform import price_estimates
@@ -50,6 +56,7 @@ class AnalysisTables:
     holdout_estimates: pd.DataFrame
     cv_estimates: pd.DataFrame
     level_merges: pd.DataFrame
+    market_index: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @classmethod
     def names(cls) -> tuple[str, ...]:
@@ -152,6 +159,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     checks = run_checks(model) + screen.screening_checks(fit_log, looked,
                                                          settings.max_excluded_share)
     checks += level_checks(model, sales.level_merges, settings.min_level_sales)
+    checks += trend_checks(model)
     if sales.table.hidden_rows and not settings.skip_hidden_rows:
         checks.append(_hidden_check(len(sales.table.hidden_rows)))
     if spec.screens_price and (settings.trim_percentiles is not None
@@ -160,6 +168,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     if len(moved):
         checks.append(_moved_check(moved))
     ids = sales.ids
+    day = valuation_day(settings)
     tables = AnalysisTables(
         coefficients=coefficient_table(model),
         fit=fit_table(model, n_dropped=len(clean.dropped),
@@ -167,7 +176,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
                       retransform=settings.retransform),
         checks=checks_table(checks),
         dropped_rows=with_ids(clean.dropped, sales.shown_ids),
-        residuals=with_ids(residual_table(model), ids),
+        residuals=with_ids(with_time_adjusted(residual_table(model), model, day), ids),
         correlations=correlation_table(model),
         screen_log=with_ids(screen_log, sales.shown_ids),
         screen_summary=screen.summary_table(
@@ -178,6 +187,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         holdout_estimates=with_ids(holdout_estimates, ids),
         cv_estimates=with_ids(cv_estimates, ids),
         level_merges=sales.level_merges,
+        market_index=market_index(model, day),
     )
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
                     tables=tables, holdout=hold, ids=ids)

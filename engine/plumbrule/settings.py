@@ -75,6 +75,35 @@ REGISTRY: dict[str, Setting] = {
             None,
             "Sale-date column: adds a market-conditions trend in months since the earliest sale.",
         ),
+        _s(
+            "trend",
+            "choice",
+            "linear",
+            "Market-conditions trend over the sale dates: linear (one rate), piecewise "
+            "(a rate per segment between trend_knots) or periods (a level per month/quarter).",
+            choices=("linear", "piecewise", "periods"),
+        ),
+        _s(
+            "trend_knots",
+            "knots",
+            None,
+            "Piecewise trend: dates where the rate may change, e.g. 2024-07-01,2025-01-01, or "
+            "'every 6 months'.",
+        ),
+        _s(
+            "trend_period",
+            "choice",
+            "month",
+            "Periods trend: one level per month or quarter (the earliest is the reference).",
+            choices=("month", "quarter"),
+        ),
+        _s(
+            "min_period_sales",
+            "int",
+            10,
+            "A trend period or segment with fewer sales is merged with a neighbour (logged).",
+            low=1,
+        ),
         _s("no_intercept", "bool", False, "Fit without an intercept (rarely right for prices)."),
         _s(
             "robust_se",
@@ -362,6 +391,10 @@ class Settings:
     log_predictors: tuple[str, ...] = ()
     date_column: str | None = None
     no_intercept: bool = False
+    trend: str = "linear"
+    trend_knots: tuple[_dt.date, ...] | int | None = None   # dates, or every N months
+    trend_period: str = "month"
+    min_period_sales: int = 10
     robust_se: str | None = None
     confidence: float = 0.95
     id_column: str | None = None
@@ -406,6 +439,8 @@ class Settings:
                 continue
             v = getattr(self, f.name)
             out[f.name] = v.isoformat() if isinstance(v, _dt.date) else v
+            if isinstance(v, tuple) and v and isinstance(v[0], _dt.date):
+                out[f.name] = tuple(d.isoformat() for d in v)
         return out
 
     def replace(self, **changes) -> "Settings":
@@ -658,10 +693,42 @@ def _date(s: Setting, v: Any) -> _dt.date:
                            setting=s.name) from None
 
 
+def _knots(s: Setting, v: Any) -> tuple[_dt.date, ...] | int:
+    """'every 6 months' → 6; '2024-07-01,2025-01-01' (or dates, serials) → sorted dates."""
+    import re
+    text = str(v).strip().lower() if isinstance(v, str) else ""
+    hit = re.fullmatch(r"every\s+(\d+)\s*(months?|m)?", text)
+    if hit:
+        n = int(hit.group(1))
+        if n < 1:
+            raise SettingError(f"Setting '{s.name}': 'every {n} months' needs at least 1 month."
+                               , setting=s.name)
+        return n
+    if text.startswith("every"):
+        raise SettingError(f"Setting '{s.name}': '{v}' is not 'every N months'. Enter e.g. "
+                           "every 6 months, or dates such as 2024-07-01,2025-01-01.",
+                           setting=s.name)
+    parts = v if isinstance(v, (list, tuple)) else (
+        [v] if not isinstance(v, str) else _split(v))
+    dates = []
+    for part in parts:
+        try:
+            dates.append(_date(s, part))
+        except SettingError:
+            raise SettingError(f"Setting '{s.name}': '{part}' is not a date. Enter dates "
+                               "YYYY-MM-DD separated by commas, or 'every 6 months'.",
+                               setting=s.name) from None
+    if not dates:
+        raise SettingError(f"Setting '{s.name}': no knot given. Enter dates or "
+                           "'every 6 months'.", setting=s.name)
+    return tuple(sorted(set(dates)))
+
+
 _CONVERTERS = {
     "text": _text, "columns": _columns, "bool": _bool, "float": _float, "int": _int,
     "choice": _choice, "percentiles": _percentiles, "rows": _rows, "pairs": _pairs,
     "date": _date, "ids": _ids, "level_map": _level_map, "keep_only": _keep_only,
+    "knots": _knots,
 }
 
 

@@ -14,6 +14,7 @@ import pandas as pd
 
 from plumbrule.errors import SpecError, quote_list
 from plumbrule.model.spec import ModelSpec
+from plumbrule.model.trend import TrendBasis, build_trend
 
 DAYS_PER_MONTH = 365.2425 / 12.0   # mean Gregorian month, so a trend is "per month"
 
@@ -34,6 +35,7 @@ class Encoding:
     terms: tuple[Term, ...]
     levels: tuple[tuple[str, tuple[str, ...]], ...]     # column → levels, reference first
     date_origin: pd.Timestamp | None
+    trend: TrendBasis | None = None     # piecewise / periods (model/trend.py); None: linear
 
     @property
     def names(self) -> list[str]:
@@ -77,10 +79,19 @@ class Encoding:
                 x[:, j] = _log(data[t.column], t.column, label, "log_predictors")
             elif t.kind == "level":
                 x[:, j] = (data[t.column].to_numpy(dtype=object) == t.level).astype(float)
-            else:  # trend
-                x[:, j] = months_since(data[t.column], self.date_origin)
+        trend = [j for j, t in enumerate(self.terms) if t.kind == "trend"]
+        if trend:
+            x[:, trend] = self.trend_columns(data[self.terms[trend[0]].column])
         _check_finite(x, data.index, self.terms, label)
         return x
+
+    def trend_columns(self, dates: pd.Series) -> np.ndarray:
+        """The trend's design block for ``dates``: months since the origin (linear), or
+        the piecewise / period columns of :class:`plumbrule.model.trend.TrendBasis`."""
+        months = months_since(dates, self.date_origin)
+        if self.trend is None:
+            return months[:, None]
+        return self.trend.columns(dates, months)
 
     def response(self, data: pd.DataFrame, label: str = "row") -> np.ndarray:
         """The response on the model scale (logged when the spec says so)."""
@@ -210,11 +221,14 @@ def make_encoding(spec: ModelSpec, data: pd.DataFrame) -> Encoding:
             terms.append(Term(f"log({col})", col, "log"))
         else:
             terms.append(Term(col, col, "numeric"))
-    origin = None
+    origin, trend = None, None
     if spec.date_column:
         origin = pd.Timestamp(pd.to_datetime(data[spec.date_column]).min())
-        terms.append(Term(f"{spec.date_column} (months)", spec.date_column, "trend"))
-    return Encoding(spec=spec, terms=tuple(terms), levels=tuple(levels), date_origin=origin)
+        trend = build_trend(spec, data[spec.date_column], origin)
+        names = trend.names if trend else [f"{spec.date_column} (months)"]
+        terms.extend(Term(name, spec.date_column, "trend") for name in names)
+    return Encoding(spec=spec, terms=tuple(terms), levels=tuple(levels), date_origin=origin,
+                    trend=trend)
 
 
 def _levels(col: pd.Series, name: str, reference: str | None) -> tuple[str, ...]:

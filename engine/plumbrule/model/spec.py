@@ -28,6 +28,10 @@ class ModelSpec:
     level_map: tuple[tuple[str, str, str], ...] = ()       # (column, spelling, level)
     filters: tuple[tuple[str, tuple[str, ...]], ...] = ()  # keep_only: (column, values)
     date_format: str = "auto"            # order of text dates (intake.dates)
+    trend: str = "linear"                # linear | piecewise | periods (model/trend.py)
+    trend_knots: tuple | int | None = None   # piecewise: dates, or every N months
+    trend_period: str = "month"          # periods: month | quarter
+    min_period_sales: int = 10           # sparser periods/segments merge with a neighbour
 
     @property
     def logged_columns(self) -> tuple[str, ...]:
@@ -182,9 +186,15 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
         level_map.append((col, old, new))
     filters = tuple((match_column(col, columns, "keep_only"), values)
                     for col, values in settings.keep_only)
+    if settings.trend != "linear" and date is None:
+        raise SpecError(f"Setting 'trend': '{settings.trend}' follows the market over the sale "
+                        "dates, but no date_column is set. Name the sale-date column.",
+                        setting="trend")
     return replace(spec, screened=screened, ratio_by=by, id_column=ident,
                    level_map=tuple(level_map), filters=filters,
-                   date_format=settings.date_format)
+                   date_format=settings.date_format, trend=settings.trend,
+                   trend_knots=settings.trend_knots, trend_period=settings.trend_period,
+                   min_period_sales=settings.min_period_sales)
 
 
 def _subset(names, columns, preds, setting) -> list[str]:

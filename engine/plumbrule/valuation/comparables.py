@@ -214,6 +214,12 @@ def _feature_frame(name, comps, subj, diff, fit, idx, kind, e, money, alone, pri
         c_val = comps.data[col].to_numpy(dtype=object)
         raw = diff[:, idx[0]]
         model_diff, coef = raw, b[idx[0]]
+        if len(idx) > 1:     # piecewise / periods: months apart, the mean rate over them
+            from plumbrule.model.design import DAYS_PER_MONTH
+            raw = ((pd.to_datetime(pd.Series(s_val)) - pd.to_datetime(pd.Series(c_val)))
+                   .dt.days.to_numpy(dtype=float) / DAYS_PER_MONTH)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                model_diff, coef = raw, np.where(raw != 0, e / raw, np.nan)
     elif kind == "category":
         s_val = np.repeat(subj.data[name].iloc[0], m).astype(object)
         c_val = comps.data[name].to_numpy(dtype=object)

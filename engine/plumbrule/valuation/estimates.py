@@ -344,6 +344,11 @@ def subject_flags(model, subj: Subjects, leverage: np.ndarray, when: _dt.date) -
     if spec.date_column:
         first, last = sales[spec.date_column].min(), sales[spec.date_column].max()
         note = _date_note(pd.Timestamp(when), first, last)
+        if note and model.encoding.trend is not None:
+            note = note.replace("the market trend is carried",
+                                "the trend's last segment (or period) is carried")
+            if pd.Timestamp(when) < first:
+                note = note.replace("last segment", "first segment")
         if note:
             for n in notes:
                 n.append(note)
