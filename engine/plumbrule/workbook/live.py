@@ -77,6 +77,14 @@ def write_live_block(ws, analysis, valuation, anchor_row: int) -> int:
     Creates the workbook defined names plumb_live_estimate, plumb_live_pi_low and
     plumb_live_pi_high (price units) pointing at the block's result cells.
     """
+    basis = analysis.model.encoding.trend
+    if basis is not None:
+        # Native formulas for piecewise and period trends are not written yet: a block whose
+        # figures disagree with the engine's would mislead, so it says so instead.
+        ws.cell(row=anchor_row, column=1,
+                value=(f"Try a subject: not available with the '{basis.kind}' trend yet; "
+                       "use the estimates above, or set trend = linear for the live cells."))
+        return anchor_row + 2
     start = _start(analysis, valuation)
     lay = _layout(analysis, start, anchor_row)
     w = _Writer(ws)
