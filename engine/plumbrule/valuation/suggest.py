@@ -93,7 +93,7 @@ def suggest(analysis, subjects, n: int, when: _dt.date, estimates: pd.DataFrame,
     sales = candidate_sales(analysis)
     keep = np.ones(len(sales), dtype=bool)
     same_values = _same_values(analysis, sales, same)
-    if same_values is not None:
+    if same_values is not None and same is not None:
         subject_value = _subject_value(analysis, subjects, same)
         keep &= same_values.to_numpy(dtype=object) == subject_value
     months_before = np.full(len(sales), np.nan)
