@@ -367,6 +367,33 @@ REGISTRY: dict[str, Setting] = {
             group="value",
             low=0.0,
         ),
+        _s(
+            "suggest_comps",
+            "int",
+            0,
+            "Suggest this many comparables (up to 10): the sales the model adjusts least to "
+            "the subject; used in the grid when no comps are given (0: off).",
+            group="value",
+            low=0,
+            high=10,
+        ),
+        _s(
+            "comp_same",
+            "text",
+            None,
+            "Suggested comparables share the subject's value of this column (e.g. "
+            "Neighbourhood).",
+            group="value",
+        ),
+        _s(
+            "comp_months",
+            "float",
+            None,
+            "Suggested comparables sold at most this many months before the valuation date.",
+            group="value",
+            low=0.0,
+            refuse=((0.0, "0 months leaves no sale. Enter e.g. 12, or leave it blank."),),
+        ),
         # --- the offline workbook ------------------------------------------------
         _s(
             "backup",
@@ -428,6 +455,9 @@ class Settings:
     comp_weights: str = "gross"
     net_adjustment_limit: float = 0.15
     gross_adjustment_limit: float = 0.25
+    suggest_comps: int = 0
+    comp_same: str | None = None
+    comp_months: float | None = None
     backup: bool = True
     extra: tuple = field(default=(), compare=False, repr=False)
 

@@ -1,4 +1,4 @@
-"""Command line: ``plumbrule fit|value|run|new|demo``.
+"""Command line: ``plumbrule fit|value|comps|run|new|demo|report``.
 
 Options are generated from the settings registry, so a CLI option, a worksheet
 setting and a Settings-sheet row always share one name (dashes here,
@@ -63,6 +63,18 @@ def build_parser() -> argparse.ArgumentParser:
     _add_setting_options(value, FIT_GROUPS + ("value",))
     value.set_defaults(handler=cmd_value)
 
+    comps = sub.add_parser("comps", help="Suggest comparables: the sales the model adjusts "
+                           "least to the subject, with their grid.")
+    comps.add_argument("data", metavar="DATA", help="Sales table: .csv or .xlsx, or a plumbrule "
+                       "workbook")
+    comps.add_argument("--sheet", help="Worksheet of an .xlsx file (default: the first).")
+    comps.add_argument("--subjects", metavar="SUBJECTS",
+                       help="Subject property (first row): .csv or .xlsx with the sales' columns "
+                            "(default for a plumbrule workbook: its Subjects sheet).")
+    comps.add_argument("--json", action="store_true", help="Print one JSON object.")
+    _add_setting_options(comps, FIT_GROUPS + ("value",))
+    comps.set_defaults(handler=cmd_comps)
+
     new = sub.add_parser("new", help="Write a fresh plumbrule workbook (the template).")
     new.add_argument("book", metavar="BOOK.xlsx", help="Workbook to create (never overwritten).")
     new.set_defaults(handler=cmd_new)
@@ -101,6 +113,12 @@ def cmd_value(args: argparse.Namespace) -> int:
     from plumbrule.cli.inputs import read_inputs
     from plumbrule.cli.value import run_value
     return run_value(args, read_inputs(args))
+
+
+def cmd_comps(args: argparse.Namespace) -> int:
+    from plumbrule.cli.comps import run_comps
+    from plumbrule.cli.inputs import read_inputs
+    return run_comps(args, read_inputs(args))
 
 
 def cmd_new(args: argparse.Namespace) -> int:

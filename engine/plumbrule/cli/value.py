@@ -16,21 +16,24 @@ def run_value(args, inputs) -> int:
     """Handler for the ``value`` subcommand (``inputs``: cli.inputs.Inputs); returns the
     exit status (0)."""
     from plumbrule.analysis import analyze
-    from plumbrule.errors import SettingError
-    from plumbrule.intake import read_table
     from plumbrule.valuation.estimates import valuate
     analysis = analyze(inputs.sales, inputs.settings)
-    if getattr(args, "subjects", None):
-        subjects = read_table(args.subjects)
-    elif inputs.subjects is not None:
-        subjects = inputs.subjects
-    else:
-        raise SettingError("plumbrule value needs the subject properties: give --subjects "
-                           "SUBJECTS.csv, or a plumbrule workbook with a Subjects sheet.")
-    result = valuate(analysis, subjects, inputs.comps)
+    result = valuate(analysis, subjects_of(args, inputs), inputs.comps)
     print(valuation_json(result) if getattr(args, "json", False)
           else render_valuation(result, analysis))
     return 0
+
+
+def subjects_of(args, inputs):
+    """The subject properties: --subjects, else the workbook's Subjects sheet."""
+    from plumbrule.errors import SettingError
+    from plumbrule.intake import read_table
+    if getattr(args, "subjects", None):
+        return read_table(args.subjects)
+    if inputs.subjects is not None:
+        return inputs.subjects
+    raise SettingError(f"plumbrule {args.command} needs the subject properties: give "
+                       "--subjects SUBJECTS.csv, or a plumbrule workbook with a Subjects sheet.")
 
 
 # --- JSON ---------------------------------------------------------------------

@@ -582,6 +582,20 @@ def PLUMB_RECONCILE(sales, response, predictors, subject, comps, settings=None):
     return record_cells(valuation.reconciled)
 
 
+@sheet_function
+def PLUMB_SUGGEST(sales, response, predictors, subject, settings=None):
+    ("Suggested comparables for the first subject: the sales the model adjusts least (gross "
+     "adjustment as a share of the price), best first, with net, gross and adjusted price. "
+     "suggest_comps (default 4), comp_same and comp_months in settings.")
+    from plumbrule.valuation.suggest import DEFAULT_SUGGESTIONS
+    holder, s = fitted(sales, response, predictors, settings)
+    n = s.suggest_comps or DEFAULT_SUGGESTIONS
+    raw = {**settings_arg(settings), "suggest_comps": n, "comps": None, "comp_ids": None}
+    block = [["setting", "value"]] + [[k, v] for k, v in raw.items()]
+    valuation = valuation_for(sales, response, predictors, subject, None, block)
+    return valuation.suggestions
+
+
 @xw.func(category=CATEGORY, volatile=True)
 @xw.ret(transpose=False)
 @cell_safe
@@ -611,4 +625,4 @@ def info_rows() -> list[list[Any]]:
 
 
 FUNCTIONS = (PLUMB_MODEL, PLUMB_COEFS, PLUMB_FIT, PLUMB_CHECKS, PLUMB_SCREEN, PLUMB_RATIOS,
-             PLUMB_VALUE, PLUMB_GRID, PLUMB_RECONCILE, PLUMB_INFO)
+             PLUMB_VALUE, PLUMB_GRID, PLUMB_RECONCILE, PLUMB_SUGGEST, PLUMB_INFO)

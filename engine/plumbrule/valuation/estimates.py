@@ -9,7 +9,7 @@ estimate come from one triangular solve with R, never from inverting X'X.
 from __future__ import annotations
 
 import datetime as _dt
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, ClassVar, Iterator, Mapping
 
 import numpy as np
@@ -51,6 +51,9 @@ class Valuation:
     valuation_date: _dt.date
     settings: Settings
     subjects: Subjects
+    # suggested comparables and their bracketing check (suggest_comps; empty when off)
+    suggestions: pd.DataFrame = field(default_factory=pd.DataFrame)
+    bracketing: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     TABLES: ClassVar[tuple[str, ...]] = ("estimates", "grid", "reconciled")   # the JSON order
 
@@ -72,7 +75,14 @@ def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | No
     when = settings.valuation_date or _dt.date.today()
     subj = read_subjects(model, subjects, when)
     estimates = estimate_table(model, subj, settings, when)
-    comp_set = resolve_comps(analysis, comparable_rows(analysis, comps, settings))
+    rows = comparable_rows(analysis, comps, settings)
+    suggested = None
+    if settings.suggest_comps:
+        from plumbrule.valuation.suggest import suggest_each
+        suggested = suggest_each(analysis, subj, settings, when, estimates)
+        if not rows and len(subj.data) == 1:      # the user's own comparables come first
+            rows = list(suggested[0].rows)
+    comp_set = resolve_comps(analysis, rows)
     if comp_set is not None and len(subj.data) > 1:
         raise SpecError(f"Comparables belong to one subject, but {len(subj.data)} subjects "
                         "were given. Value one subject with 'comps', or leave 'comps' empty.",
@@ -81,8 +91,9 @@ def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | No
                                        when, estimates=estimates)
     from plumbrule.sales import with_ids
     grid = with_ids(grid, analysis.ids, column="comp_row", name="comp_id")
+    extra = {} if suggested is None else {"suggestions": suggested[1], "bracketing": suggested[2]}
     return Valuation(estimates=estimates, grid=grid, reconciled=reconciled,
-                     valuation_date=when, settings=settings, subjects=subj)
+                     valuation_date=when, settings=settings, subjects=subj, **extra)
 
 
 def comparable_rows(analysis, comps, settings: Settings) -> list[int]:
