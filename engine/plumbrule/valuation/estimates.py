@@ -9,7 +9,7 @@ estimate come from one triangular solve with R, never from inverting X'X.
 from __future__ import annotations
 
 import datetime as _dt
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, ClassVar, Iterator, Mapping
 
 import numpy as np
@@ -51,6 +51,8 @@ class Valuation:
     valuation_date: _dt.date
     settings: Settings
     subjects: Subjects
+    # the portfolio total of two or more subjects (valuation/portfolio.py); empty otherwise
+    portfolio: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     TABLES: ClassVar[tuple[str, ...]] = ("estimates", "grid", "reconciled")   # the JSON order
 
@@ -81,8 +83,12 @@ def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | No
                                        when, estimates=estimates)
     from plumbrule.sales import with_ids
     grid = with_ids(grid, analysis.ids, column="comp_row", name="comp_id")
+    from plumbrule.valuation.portfolio import portfolio_total
+    portfolio = portfolio_total(model, subj.x, estimates, settings.confidence,
+                                settings.retransform)
     return Valuation(estimates=estimates, grid=grid, reconciled=reconciled,
-                     valuation_date=when, settings=settings, subjects=subj)
+                     valuation_date=when, settings=settings, subjects=subj,
+                     portfolio=portfolio)
 
 
 def comparable_rows(analysis, comps, settings: Settings) -> list[int]:
