@@ -253,7 +253,8 @@ def test_value_through_call_udf_equals_the_engine(xl, sales_rows):
 
 
 @pytest.mark.parametrize("name", ["PLUMB_FIT", "PLUMB_CHECKS", "PLUMB_RATIOS", "PLUMB_GRID",
-                                  "PLUMB_RECONCILE", "PLUMB_SUGGEST"])
+                                  "PLUMB_RECONCILE", "PLUMB_SUGGEST",
+                                  "PLUMB_TOTAL"])
 def test_every_other_function_through_call_udf_equals_its_direct_call(xl, sales_rows, name):
     """The remaining worksheet functions through xlwings' real call path give what the same
     function gives called directly with the same values (the direct calls are checked
@@ -267,8 +268,8 @@ def test_every_other_function_through_call_udf_equals_its_direct_call(xl, sales_
         comps = [[float(r)] for r in demo_comps(demo_sales())]
         args += [FakeComRange(subject_rows), FakeComRange(comps)]
         direct += [python_cells(subject_rows), [r[0] for r in comps]]
-    if name == "PLUMB_SUGGEST":
-        subject_rows = com_cells(demo_subjects())
+    if name in ("PLUMB_SUGGEST", "PLUMB_TOTAL"):
+        subject_rows = com_cells(_two_subjects() if name == "PLUMB_TOTAL" else demo_subjects())
         args += [FakeComRange(subject_rows)]
         direct += [python_cells(subject_rows)]
     out = _call(udfs, name, args + [FakeComRange(SETTINGS)])
@@ -292,3 +293,32 @@ def test_model_cell_and_its_handle_through_call_udf(xl, sales_rows):
                                      FakeComRange(SETTINGS)])
     engine = analyze(python_cells(sales_rows), DEMO_SETTINGS)
     assert out == _as_written(module.frame_cells(engine.tables.table("coefficients")))
+
+
+def _two_subjects():
+    """The demo's subject and a second one, larger, in the same neighbourhood."""
+    one = demo_subjects()
+    two = one.copy()
+    two["Subject"] = "2 Lantern Row"
+    two["Living area"] = two["Living area"] + 400
+    return pd.concat([one, two], ignore_index=True)
+
+
+def test_total_through_call_udf_equals_the_engine_portfolio(xl, sales_rows):
+    """PLUMB_TOTAL through xlwings' call path: the engine's portfolio record of the same
+    subjects (reference: valuate().portfolio, itself checked against statsmodels in
+    tests/valuation/test_portfolio.py)."""
+    udfs, module = xl
+    subject_rows = com_cells(_two_subjects())
+    out = _call(udfs, "PLUMB_TOTAL", [FakeComRange(sales_rows), "", "",
+                                     FakeComRange(subject_rows), FakeComRange(SETTINGS)])
+    engine = analyze(python_cells(sales_rows), DEMO_SETTINGS)
+    s = module.resolve_settings("", "", SETTINGS)
+    when = s.valuation_date or dt.date.today()
+    port = valuate(engine, python_cells(subject_rows), comps=(),
+                   settings=s.replace(valuation_date=when)).portfolio
+    assert len(port) == 1
+    got = {r[0]: r[1] for r in out[1:]}
+    assert got["n"] == float(port["n"].iloc[0])
+    assert got["total"] == pytest.approx(float(port["total"].iloc[0]), rel=1e-12)
+    assert got["ci_low"] < got["total"] < got["ci_high"]

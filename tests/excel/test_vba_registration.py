@@ -152,11 +152,12 @@ def _functions(module):
 def test_every_plumb_function_carries_xlwings_metadata(registered):
     udfs, module = registered
     names = sorted(f.__xlfunc__["name"] for f in _functions(module))
-    # The issue's list of worksheet functions (plus PLUMB_RECONCILE, an extension, and
-    # PLUMB_MODEL, the model cell of the speed issue, and PLUMB_SUGGEST, issue 14).
+    # The issue's list of worksheet functions (plus PLUMB_RECONCILE, an extension;
+    # PLUMB_MODEL, the model cell of the speed issue; PLUMB_SUGGEST, issue 14; PLUMB_TOTAL,
+    # the mass-appraisal issue).
     assert names == sorted(["PLUMB_COEFS", "PLUMB_FIT", "PLUMB_CHECKS", "PLUMB_SCREEN",
                             "PLUMB_RATIOS", "PLUMB_VALUE", "PLUMB_GRID", "PLUMB_RECONCILE",
-                            "PLUMB_INFO", "PLUMB_MODEL", "PLUMB_SUGGEST"])
+                            "PLUMB_INFO", "PLUMB_MODEL", "PLUMB_SUGGEST", "PLUMB_TOTAL"])
     assert names == sorted(f.__name__ for f in module.FUNCTIONS)
 
 

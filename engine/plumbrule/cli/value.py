@@ -43,13 +43,16 @@ def valuation_json(result) -> str:
     object with value, weights [{row, weight}], range [low, high]; null without
     comparables), plus valuation_date and the caution."""
     from plumbrule.render.json import frame_records
-    return json.dumps({
+    out = {
         "estimates": frame_records(result.estimates),
         "grid": frame_records(result.grid),
         "reconciled": reconciled_record(result),
         "valuation_date": result.valuation_date.isoformat(),
         "caution": CAUTION,
-    }, allow_nan=False, ensure_ascii=False)
+    }
+    if len(result.portfolio):       # two or more subjects: their total (valuation/portfolio.py)
+        out["portfolio"] = frame_records(result.portfolio)[0]
+    return json.dumps(out, allow_nan=False, ensure_ascii=False)
 
 
 def reconciled_record(result) -> dict | None:
@@ -75,6 +78,8 @@ def render_valuation(result, analysis) -> str:
              f"{int(100 * est['confidence'].iloc[0] + 0.5)}% intervals)", ""]
     for rec in est.itertuples(index=False):
         lines += _subject_lines(rec)
+    if len(result.portfolio):
+        lines += _portfolio_lines(result.portfolio.iloc[0])
     if not result.grid.empty:
         lines += _grid_lines(result)
     lines += ([] if lines[-1] == "" else [""]) + [CAUTION]
@@ -100,6 +105,15 @@ def _subject_lines(rec) -> list[str]:
         out.append(f"  watch: {flag}")
     out.append("")
     return out
+
+
+def _portfolio_lines(rec) -> list[str]:
+    return [f"Portfolio of {rec.n} subjects",
+            f"  total           {money(rec.total)}",
+            f"  likely total    {money(rec.ci_low)} to {money(rec.ci_high)}",
+            f"  total of sales  {money(rec.pi_low)} to {money(rec.pi_high)}",
+            f"  method          {rec.method}",
+            f"  note: {rec.note}", ""]
 
 
 def _grid_lines(result) -> list[str]:

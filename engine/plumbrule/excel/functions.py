@@ -469,6 +469,7 @@ ARGS: dict[str, dict[str, Any]] = {
     "response": dict(doc=DOC_RESPONSE),
     "predictors": dict(doc=DOC_PREDICTORS),
     "subject": dict(ndim=2, doc=DOC_SUBJECT, **KEEP_TYPED),
+    "subjects": dict(ndim=2, doc=DOC_SUBJECT, **KEEP_TYPED),
     "comps": dict(doc=DOC_COMPS, **KEEP_TYPED),
     "settings": dict(ndim=2, doc=DOC_SETTINGS, **KEEP_TYPED),
 }
@@ -596,6 +597,17 @@ def PLUMB_SUGGEST(sales, response, predictors, subject, settings=None):
     return valuation.suggestions
 
 
+def PLUMB_TOTAL(sales, response, predictors, subjects, settings=None):
+    ("Total value of two or more subjects (a portfolio) with its confidence and prediction "
+     "intervals from the full covariance of the estimates, and the naive sums beside them.")
+    valuation = valuation_for(sales, response, predictors, subjects, None, settings)
+    if len(valuation.portfolio) == 0:
+        from plumbrule.errors import IntakeError
+        raise IntakeError("Argument 'subjects': a total needs two or more subject rows under "
+                          "the header.")
+    return record_cells(valuation.portfolio)
+
+
 @xw.func(category=CATEGORY, volatile=True)
 @xw.ret(transpose=False)
 @cell_safe
@@ -625,4 +637,4 @@ def info_rows() -> list[list[Any]]:
 
 
 FUNCTIONS = (PLUMB_MODEL, PLUMB_COEFS, PLUMB_FIT, PLUMB_CHECKS, PLUMB_SCREEN, PLUMB_RATIOS,
-             PLUMB_VALUE, PLUMB_GRID, PLUMB_RECONCILE, PLUMB_SUGGEST, PLUMB_INFO)
+             PLUMB_VALUE, PLUMB_GRID, PLUMB_RECONCILE, PLUMB_SUGGEST, PLUMB_TOTAL, PLUMB_INFO)

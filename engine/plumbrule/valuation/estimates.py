@@ -54,6 +54,8 @@ class Valuation:
     # suggested comparables and their bracketing check (suggest_comps; empty when off)
     suggestions: pd.DataFrame = field(default_factory=pd.DataFrame)
     bracketing: pd.DataFrame = field(default_factory=pd.DataFrame)
+    # the portfolio total of two or more subjects (valuation/portfolio.py); empty otherwise
+    portfolio: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     TABLES: ClassVar[tuple[str, ...]] = ("estimates", "grid", "reconciled")   # the JSON order
 
@@ -92,8 +94,12 @@ def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | No
     from plumbrule.sales import with_ids
     grid = with_ids(grid, analysis.ids, column="comp_row", name="comp_id")
     extra = {} if suggested is None else {"suggestions": suggested[1], "bracketing": suggested[2]}
+    from plumbrule.valuation.portfolio import portfolio_total
+    portfolio = portfolio_total(model, subj.x, estimates, settings.confidence,
+                                settings.retransform)
     return Valuation(estimates=estimates, grid=grid, reconciled=reconciled,
-                     valuation_date=when, settings=settings, subjects=subj, **extra)
+                     valuation_date=when, settings=settings, subjects=subj,
+                     portfolio=portfolio, **extra)
 
 
 def comparable_rows(analysis, comps, settings: Settings) -> list[int]:
