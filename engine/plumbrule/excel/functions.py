@@ -597,6 +597,7 @@ def PLUMB_SUGGEST(sales, response, predictors, subject, settings=None):
     return valuation.suggestions
 
 
+@sheet_function
 def PLUMB_TOTAL(sales, response, predictors, subjects, settings=None):
     ("Total value of two or more subjects (a portfolio) with its confidence and prediction "
      "intervals from the full covariance of the estimates, and the naive sums beside them.")
