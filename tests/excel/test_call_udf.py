@@ -232,16 +232,22 @@ def test_screen_logs_the_error_text_not_blank(xl, sales_rows):
     assert row10 and "#DIV/0!" in row10[0] and "blank" not in row10[0], row10
 
 
+def _engine_valuation(module, sales_rows, subject_rows):
+    """The engine's own valuation of the subjects with the sheet's settings (what the worksheet
+    functions must return), the valuation date today when the settings give none."""
+    engine = analyze(python_cells(sales_rows), DEMO_SETTINGS)
+    s = module.resolve_settings("", "", SETTINGS)
+    when = s.valuation_date or dt.date.today()
+    return valuate(engine, python_cells(subject_rows), comps=(),
+                   settings=s.replace(valuation_date=when))
+
+
 def test_value_through_call_udf_equals_the_engine(xl, sales_rows):
     udfs, module = xl
     subject_rows = com_cells(demo_subjects())
     out = _call(udfs, "PLUMB_VALUE", [FakeComRange(sales_rows), "", "",
                                      FakeComRange(subject_rows), FakeComRange(SETTINGS)])
-    engine = analyze(python_cells(sales_rows), DEMO_SETTINGS)
-    s = module.resolve_settings("", "", SETTINGS)
-    when = s.valuation_date or dt.date.today()
-    est = valuate(engine, python_cells(subject_rows), comps=(),
-                  settings=s.replace(valuation_date=when)).estimates
+    est = _engine_valuation(module, sales_rows, subject_rows).estimates
     assert isinstance(out, list), out
     assert (len(out), len(out[0])) == (len(est) + 1, len(est.columns))
     expected = _as_written(module.frame_cells(est))
@@ -311,11 +317,7 @@ def test_total_through_call_udf_equals_the_engine_portfolio(xl, sales_rows):
     subject_rows = com_cells(_two_subjects())
     out = _call(udfs, "PLUMB_TOTAL", [FakeComRange(sales_rows), "", "",
                                      FakeComRange(subject_rows), FakeComRange(SETTINGS)])
-    engine = analyze(python_cells(sales_rows), DEMO_SETTINGS)
-    s = module.resolve_settings("", "", SETTINGS)
-    when = s.valuation_date or dt.date.today()
-    port = valuate(engine, python_cells(subject_rows), comps=(),
-                   settings=s.replace(valuation_date=when)).portfolio
+    port = _engine_valuation(module, sales_rows, subject_rows).portfolio
     assert len(port) == 1
     got = {r[0]: r[1] for r in out[1:]}
     assert got["n"] == float(port["n"].iloc[0])

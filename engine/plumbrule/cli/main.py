@@ -37,6 +37,21 @@ def _settings_from_args(args: argparse.Namespace):
     return parse_settings(raw)
 
 
+def _data_command(sub: Any, name: str, *, handler: Any, groups: tuple[str, ...], help: str,
+                  subjects: str | None = None) -> argparse.ArgumentParser:
+    """A command reading a sales table: DATA, --sheet, [--subjects], --json and the settings."""
+    cmd: argparse.ArgumentParser = sub.add_parser(name, help=help)
+    cmd.add_argument("data", metavar="DATA", help="Sales table: .csv or .xlsx, or a plumbrule "
+                     "workbook (its Sales, Settings, Subjects and Comps; flags override)")
+    cmd.add_argument("--sheet", help="Worksheet of an .xlsx file (default: the first).")
+    if subjects is not None:
+        cmd.add_argument("--subjects", metavar="SUBJECTS", help=subjects)
+    cmd.add_argument("--json", action="store_true", help="Print one JSON object.")
+    _add_setting_options(cmd, groups)
+    cmd.set_defaults(handler=handler)
+    return cmd
+
+
 def build_parser() -> argparse.ArgumentParser:
     from plumbrule import __version__
     parser = _Parser(
@@ -45,35 +60,17 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"plumbrule {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)
 
-    fit = sub.add_parser("fit", help="Fit the model to a CSV or xlsx sales table.")
-    fit.add_argument("data", metavar="DATA", help="Sales table: .csv or .xlsx, or a plumbrule "
-                     "workbook (its Sales, Settings, Subjects and Comps; flags override)")
-    fit.add_argument("--sheet", help="Worksheet of an .xlsx file (default: the first).")
-    fit.add_argument("--json", action="store_true", help="Print one JSON object.")
-    _add_setting_options(fit, FIT_GROUPS)
-    fit.set_defaults(handler=cmd_fit)
-
-    value = sub.add_parser("value", help="Value subject properties with intervals and a grid.")
-    value.add_argument("data", metavar="DATA", help="Sales table: .csv or .xlsx")
-    value.add_argument("--sheet", help="Worksheet of an .xlsx file (default: the first).")
-    value.add_argument("--subjects", metavar="SUBJECTS",
-                       help="Subject properties: .csv or .xlsx with the sales' columns "
-                            "(default for a plumbrule workbook: its Subjects sheet).")
-    value.add_argument("--json", action="store_true", help="Print one JSON object.")
-    _add_setting_options(value, FIT_GROUPS + ("value",))
-    value.set_defaults(handler=cmd_value)
-
-    comps = sub.add_parser("comps", help="Suggest comparables: the sales the model adjusts "
-                           "least to the subject, with their grid.")
-    comps.add_argument("data", metavar="DATA", help="Sales table: .csv or .xlsx, or a plumbrule "
-                       "workbook")
-    comps.add_argument("--sheet", help="Worksheet of an .xlsx file (default: the first).")
-    comps.add_argument("--subjects", metavar="SUBJECTS",
-                       help="Subject property (first row): .csv or .xlsx with the sales' columns "
-                            "(default for a plumbrule workbook: its Subjects sheet).")
-    comps.add_argument("--json", action="store_true", help="Print one JSON object.")
-    _add_setting_options(comps, FIT_GROUPS + ("value",))
-    comps.set_defaults(handler=cmd_comps)
+    _data_command(sub, "fit", handler=cmd_fit, groups=FIT_GROUPS,
+                  help="Fit the model to a CSV or xlsx sales table.")
+    _data_command(sub, "value", handler=cmd_value, groups=FIT_GROUPS + ("value",),
+                  help="Value subject properties with intervals and a grid.",
+                  subjects="Subject properties: .csv or .xlsx with the sales' columns "
+                           "(default for a plumbrule workbook: its Subjects sheet).")
+    _data_command(sub, "comps", handler=cmd_comps, groups=FIT_GROUPS + ("value",),
+                  help="Suggest comparables: the sales the model adjusts least to the "
+                       "subject, with their grid.",
+                  subjects="Subject property (first row): .csv or .xlsx with the sales' "
+                           "columns (default for a plumbrule workbook: its Subjects sheet).")
 
     new = sub.add_parser("new", help="Write a fresh plumbrule workbook (the template).")
     new.add_argument("book", metavar="BOOK.xlsx", help="Workbook to create (never overwritten).")
