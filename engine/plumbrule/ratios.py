@@ -99,18 +99,18 @@ def median_rank(n: int, level: float) -> tuple[int, float]:
     Coverage is P(j ≤ B ≤ n − j) = 1 − 2·P(B ≤ j − 1), B ~ binomial(n, ½).
     Returns (j, coverage); (0, nan) when even [min, max] falls short of ``level``.
     """
-    from scipy.stats import binom
+    from plumbrule.numeric.distributions import binom_cdf, binom_ppf
     if n < 1:
         return 0, float("nan")
     alpha2 = (1.0 - level) / 2.0
-    k0 = int(binom.ppf(alpha2, n, 0.5))
+    k0 = int(binom_ppf(alpha2, n, 0.5))
     cand = np.arange(max(k0 - 2, -1), min(k0 + 3, (n - 1) // 2 + 1))   # k = j − 1
-    cdf = np.where(cand >= 0, binom.cdf(cand, n, 0.5), 0.0)
+    cdf = np.where(cand >= 0, binom_cdf(cand, n, 0.5), 0.0)
     ok = cand[(cdf <= alpha2) & (cand >= 0)]
     if not len(ok):
         return 0, float("nan")
     j = int(ok.max()) + 1
-    return j, float(1.0 - 2.0 * binom.cdf(j - 1, n, 0.5))
+    return j, float(1.0 - 2.0 * binom_cdf(j - 1, n, 0.5))
 
 
 def median_interval(ratios: np.ndarray, level: float = 0.95) -> tuple[float, float, float]:
@@ -215,7 +215,7 @@ def _slope(x: np.ndarray, y: np.ndarray, level: float) -> tuple[float, float, fl
     0.93 and 0.71–0.75 of the time at 95 %, HC3 0.94–0.95 and 0.87–0.89, and both 0.95
     with normal noise (benchmarks/equity_false_alarms.py).
     """
-    from scipy.stats import t as tdist
+    from plumbrule.numeric.distributions import t_ppf
     n = len(x)
     size = dot(x, x)
     # One predictor: the centred two-pass formulas are the QR solution (R = ‖x − x̄‖).
@@ -236,7 +236,7 @@ def _slope(x: np.ndarray, y: np.ndarray, level: float) -> tuple[float, float, fl
         se = float(np.sqrt(dot(y, y))) / sxx
     if not np.isfinite(se):
         return slope, float("nan"), float("nan")
-    q = float(tdist.ppf(0.5 + level / 2.0, n - 2))
+    q = float(t_ppf(0.5 + level / 2.0, n - 2))
     return slope, slope - q * se, slope + q * se
 
 

@@ -82,10 +82,10 @@ def _normality_grade(p: float, model: FittedModel) -> tuple[str, str | None]:
 
 def jarque_bera(model: FittedModel) -> Check:
     """JB = n/6 · (S² + (K−3)²/4) ~ χ²(2) (Jarque and Bera 1980); graded by the shape's size."""
-    from scipy.stats import chi2
+    from plumbrule.numeric.distributions import chi2_sf
     s, k = model.residual_moments
     jb = model.fit.n / 6.0 * (s ** 2 + (k - 3.0) ** 2 / 4.0)
-    p = float(chi2.sf(jb, 2))
+    p = float(chi2_sf(jb, 2))
     verdict, severe = _normality_grade(p, model)
     note = severe or (
         "Residuals look normal; prediction intervals can be taken as stated." if p >= 0.05 else
@@ -102,9 +102,9 @@ def omnibus(model: FittedModel) -> Check:
     if len(e) < 20:
         return not_applicable("Normality: omnibus K2", "Needs at least 20 sales (the kurtosis "
                               "test is unreliable below that).", threshold)
-    from scipy.stats import chi2
+    from plumbrule.numeric.distributions import chi2_sf
     k2 = _dagostino_k2(len(e), *model.residual_moments)
-    p = float(chi2.sf(k2, 2))
+    p = float(chi2_sf(k2, 2))
     verdict, severe = _normality_grade(p, model)
     note = severe or (
         "Skew and tails of the residuals are consistent with normal errors." if p >= 0.05 else
@@ -271,7 +271,7 @@ def _projected_r2(model: FittedModel, target: np.ndarray) -> float:
 
 def breusch_pagan(model: FittedModel) -> Check:
     """Koenker's studentized form: LM = n·R² of e² on the predictors ~ χ²(k) (Koenker 1981)."""
-    from scipy.stats import chi2
+    from plumbrule.numeric.distributions import chi2_sf
     name = "Constant variance: Breusch-Pagan (Koenker)"
     k = model.x.shape[1]
     if not model.spec.intercept:
@@ -280,14 +280,14 @@ def breusch_pagan(model: FittedModel) -> Check:
     else:
         r2 = _projected_r2(model, model.fit.resid ** 2)
     lm = model.fit.n * r2
-    p = float(chi2.sf(lm, k))
+    p = float(chi2_sf(lm, k))
     return Check(name, lm, p, "p < 0.05", _verdict_p(p), _variance_note(p, model), k, "chi2",
                  "error variance is constant")
 
 
 def white_special(model: FittedModel) -> Check:
     """White's test in its special form: n·R² of e² on ŷ and ŷ² ~ χ²(2) (Wooldridge, ch. 8)."""
-    from scipy.stats import chi2
+    from plumbrule.numeric.distributions import chi2_sf
     z = _standardized(model.fit.fitted)        # mean 0, unit variance: ŷ² stays tame
     w = z * z
     w -= w.mean()
@@ -309,7 +309,7 @@ def white_special(model: FittedModel) -> Check:
         coef, *_ = np.linalg.lstsq(g, zt, rcond=1e-10)
         r2 = float(np.dot(zt, coef)) / tss
     lm = model.fit.n * r2
-    p = float(chi2.sf(lm, 2))
+    p = float(chi2_sf(lm, 2))
     return Check("Constant variance: White (special form)", lm, p, "p < 0.05", _verdict_p(p),
                  _variance_note(p, model), 2, "chi2", "error variance is constant")
 
@@ -515,7 +515,7 @@ def correlated_pairs(model: FittedModel, limit: float = 0.8) -> Check:
 
 def ramsey_reset(model: FittedModel) -> Check:
     """F test that ŷ² and ŷ³ add nothing to the model (Ramsey 1969)."""
-    from scipy.stats import f as fdist
+    from plumbrule.numeric.distributions import f_sf
     name = "Linearity: Ramsey RESET"
     fit = model.fit
     df2 = fit.df_resid - 2
@@ -536,7 +536,7 @@ def ramsey_reset(model: FittedModel) -> Check:
     df2 = fit.df_resid - df1
     ssr_u = fit.ssr - gain
     fstat = (gain / df1) / (ssr_u / df2)
-    p = float(fdist.sf(fstat, df1, df2))
+    p = float(f_sf(fstat, df1, df2))
     note = ("No sign of a curve the model misses." if p >= 0.05 else
             "The model misses a curve: price may rise less than in proportion to size or age; "
             "try a log of price or of the size column.")
@@ -587,13 +587,13 @@ def cooks_count(model: FittedModel) -> Check:
     is not a verdict: watch when a sale has D above the median of F(p, n − p)
     (≈ 1; Cook 1977, Cook and Weisberg 1982) or more than 10% of sales pass 4/n
     (twice the normal-error share; common practice, no source)."""
-    from scipy.stats import f as fdist
+    from plumbrule.numeric.distributions import f_ppf
     fit = model.fit
     n = fit.n
     d = model.influence.cooks_distance
     count = int(np.sum(d > 4.0 / n))
     share = count / n
-    cut = float(fdist.ppf(0.5, fit.n_params, fit.df_resid))
+    cut = float(f_ppf(0.5, fit.n_params, fit.df_resid))
     big = int(np.sum(d > cut))
     verdict = OK if big == 0 and share <= 0.10 else WATCH
     if verdict == OK:
@@ -631,7 +631,7 @@ def studentized_count(model: FittedModel) -> Check:
     Bonferroni outlier test of the largest (Cook and Weisberg 1982): n times the
     two-sided t(n − p − 1) tail. With many sales some pass 3 by chance (0.3% of
     them under normal errors), so the verdict follows the Bonferroni p."""
-    from scipy.stats import t as tdist
+    from plumbrule.numeric.distributions import t_sf
     t = model.influence.studentized
     n, df = model.fit.n, model.fit.df_resid - 1
     a = np.abs(t)
@@ -642,9 +642,9 @@ def studentized_count(model: FittedModel) -> Check:
         return not_applicable("Influence: |studentized residual| > 3",
                               "Needs at least two more sales than parameters.")
     del a
-    p = float(min(1.0, n * 2.0 * tdist.sf(abs(t[i]), df)))
+    p = float(min(1.0, n * 2.0 * t_sf(abs(t[i]), df)))
     verdict = OK if p >= 0.05 else WATCH
-    expected = n * 2.0 * tdist.sf(3.0, df)
+    expected = n * 2.0 * t_sf(3.0, df)
     row = int(model.data.index[i])
     if verdict == OK:
         note = (f"{count} sales beyond 3 standard errors (about {expected:.1f} expected by "

@@ -123,7 +123,7 @@ def ratio_test(stat: float, basis: np.ndarray, a) -> RatioTest:
 
     Exact (Imhof) up to ``EXACT_MAX_N`` sales; above, a Pearson type III curve with the
     exact null mean, variance and skewness of r (normal when the skewness is 0)."""
-    from scipy.stats import pearson3
+    from plumbrule.numeric.distributions import pearson3_cdf, pearson3_sf
     n, p = basis.shape
     mean, sd, skew = ratio_moments(basis, a)
     if n <= EXACT_MAX_N:
@@ -131,7 +131,7 @@ def ratio_test(stat: float, basis: np.ndarray, a) -> RatioTest:
         below = imhof_below(lam - stat)
         return RatioTest(stat, mean, sd, below, 1.0 - below, "exact (Imhof)")
     z = (stat - mean) / sd if sd > 0 else 0.0
-    return RatioTest(stat, mean, sd, float(pearson3.cdf(z, skew)), float(pearson3.sf(z, skew)),
+    return RatioTest(stat, mean, sd, pearson3_cdf(z, skew), pearson3_sf(z, skew),
                      "three-moment (Pearson III)")
 
 

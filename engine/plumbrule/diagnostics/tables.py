@@ -17,13 +17,13 @@ RESIDUAL_COLUMNS = ["row", "actual", "fitted", "residual", "standardized_residua
 def coefficient_table(model: FittedModel) -> pd.DataFrame:
     """One row per term. std_beta = estimate × sd(x)/sd(y) on the model scale
     (for an indicator, sd of the 0/1 column); vif is blank for the intercept."""
-    from scipy.stats import t as tdist
+    from plumbrule.numeric.distributions import t_ppf, t_sf
     fit = model.fit
     est, se = fit.coef, model.se
     with np.errstate(divide="ignore", invalid="ignore"):
         tval = est / se
-    p = 2.0 * tdist.sf(np.abs(tval), fit.df_resid)
-    q = tdist.ppf(0.5 + model.confidence / 2.0, fit.df_resid)
+    p = 2.0 * t_sf(np.abs(tval), fit.df_resid)
+    q = t_ppf(0.5 + model.confidence / 2.0, fit.df_resid)
     n = fit.n
     if fit.has_intercept:   # x_norms are the norms of the centred columns: no pass over x
         sd_x = fit.x_norms / np.sqrt(n - 1)
@@ -88,7 +88,7 @@ def fit_table(model: FittedModel, n_dropped: int = 0, extra: dict | None = None,
     and AIC/BIC are on it. On the price scale, always: ``mape`` (percent) and
     r_squared_price_scale, rmse_price_scale, mae_price_scale, with the fitted values
     retransformed as the estimates are (``retransform``)."""
-    from scipy.stats import f as fdist
+    from plumbrule.numeric.distributions import f_sf
     from plumbrule.validation import error_figures
     fit = model.fit
     n, p = fit.n, fit.n_params
@@ -96,7 +96,7 @@ def fit_table(model: FittedModel, n_dropped: int = 0, extra: dict | None = None,
     r2 = fit.r_squared
     adj = 1.0 - (1.0 - r2) * (n - int(fit.has_intercept)) / fit.df_resid
     f_stat = _f_statistic(model, r2, df_model)
-    f_p = float(fdist.sf(f_stat, df_model, fit.df_resid)) if df_model > 0 else np.nan
+    f_p = float(f_sf(f_stat, df_model, fit.df_resid)) if df_model > 0 else np.nan
     loglik = -0.5 * n * (np.log(2.0 * np.pi) + np.log(fit.ssr / n) + 1.0)
     mae = float(np.mean(np.abs(fit.resid)))
     if model.spec.log_response:
@@ -167,10 +167,10 @@ def normal_scores(z: np.ndarray) -> pd.DataFrame:
     """The points of a normal quantile plot: the finite values of ``z`` in ascending order
     (``ordered``) beside the standard normal quantile at Blom's plotting position
     (i − 3/8)/(n + 1/4) (``normal_quantile``; Blom 1958). Both in the units of ``z``."""
-    from scipy.stats import norm
+    from plumbrule.numeric.distributions import norm_ppf
     z = np.sort(z[np.isfinite(z)])
     n = len(z)
-    theo = norm.ppf((np.arange(1, n + 1) - 0.375) / (n + 0.25))
+    theo = norm_ppf((np.arange(1, n + 1) - 0.375) / (n + 0.25))
     return pd.DataFrame({"normal_quantile": theo, "ordered": z})
 
 

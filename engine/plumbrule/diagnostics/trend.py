@@ -155,7 +155,7 @@ def trend_fit_check(model: FittedModel, unit: str | None = None) -> Check:
     """F test that indicators of the sale months (sparse months merged), added to the model,
     explain none of the residuals: the partial F of [X, D] against X, computed from the
     residuals and D made orthogonal to the design with the fit's own Q (no refit)."""
-    from scipy.stats import f as fdist
+    from plumbrule.numeric.distributions import f_sf
     threshold = f"p < {ALPHA} (F test of sale-period groups on the residuals)"
     spec, fit = model.spec, model.fit
     if not spec.date_column:
@@ -174,7 +174,7 @@ def trend_fit_check(model: FittedModel, unit: str | None = None) -> Check:
         return not_applicable(CHECK_NAME, "Too few sales beyond the parameters and months.",
                               threshold)
     fstat = (gain / df1) / max((fit.ssr - gain) / df2, np.finfo(float).tiny)
-    p = float(fdist.sf(fstat, df1, df2))
+    p = float(f_sf(fstat, df1, df2))
     means = pd.Series(fit.resid).groupby(group).mean().to_numpy()
     worst = int(np.argmax(np.abs(means) * np.sqrt(np.bincount(group))))   # largest |t|
     size = float(means[worst])

@@ -90,8 +90,8 @@ class FittedModel:
     def t_quantile(self, level: float) -> float:
         """The two-sided Student t quantile for a ``level`` interval (e.g. 0.95) on the
         residual degrees of freedom: the multiplier of every interval this model reports."""
-        from scipy.stats import t as tdist
-        return float(tdist.ppf(0.5 + level / 2.0, self.fit.df_resid))
+        from plumbrule.numeric.distributions import t_ppf
+        return float(t_ppf(0.5 + level / 2.0, self.fit.df_resid))
 
     def retransform_factor(self, method: str) -> float:
         """The factor (unitless) that turns exp(log prediction) into a price estimate under

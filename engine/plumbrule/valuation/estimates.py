@@ -245,14 +245,14 @@ def estimate_table(model, subj: Subjects, settings: Settings, when: _dt.date) ->
     """One row per subject: the estimate on the price scale, its standard errors,
     the confidence interval of the mean (or median) and the prediction interval
     for one sale at ``settings.confidence``, and the subject-check flags."""
-    from scipy.stats import t as tdist
+    from plumbrule.numeric.distributions import t_ppf
     fit = model.fit
     v = working_vectors(fit, subj.x)
     eta = model.predict(subj.x)
     var_mean = mean_variance(model, v)
     se_m = np.sqrt(var_mean)
     se_s = np.sqrt(var_mean + fit.sigma ** 2)
-    q = tdist.ppf(0.5 + settings.confidence / 2.0, fit.df_resid)
+    q = t_ppf(0.5 + settings.confidence / 2.0, fit.df_resid)
     _check_in_price_range(model, subj, eta + q * se_s)
     lev = np.einsum("ij,ij->i", v, v)
     out = pd.DataFrame({
