@@ -177,3 +177,85 @@ def test_subjects_get_the_fit_time_basis():
     t = np.asarray(a.encoding.curve("Age").knots)
     np.testing.assert_allclose(x[0, 1:], np.concatenate([[70.0], rcs_terms(np.array([70.0]),
                                                                             t)[0]]))
+
+
+# --- the per-predictor linearity check ----------------------------------------------------
+
+def _straight(n, seed):
+    rng = np.random.default_rng(seed)
+    area = rng.normal(1600, 350, n).round()
+    age = rng.integers(1, 90, n).astype(float)
+    logp = 11.6 + 0.00045 * area - 0.004 * age + rng.normal(0, 0.10, n)
+    return pd.DataFrame({"Price": np.exp(logp), "Living area": area, "Age": age})
+
+
+def test_linearity_check_names_the_bent_predictor_and_matches_statsmodels():
+    import statsmodels.api as sm
+    from plumbrule.diagnostics.curves import linearity_by_predictor
+    d = curved_market(n=600, seed=8)
+    a = analyze(d, response="Price", predictors="Living area,Age", log_response=True, folds=0)
+    c = a.tables.checks.set_index("check")
+    age = c.loc["Linearity: 'Age' as a straight line"]
+    assert age["verdict"] == "watch" and "'Age' needs a curve" in age["note"]
+    assert c.loc["Linearity: 'Living area' as a straight line", "verdict"] == "ok"
+    # statsmodels' compare_f_test of the same nested pair: straight model vs + the two
+    # non-linear terms of a 4-knot spline at the quantiles 0.05, 0.35, 0.65, 0.95 (Harrell)
+    m = a.model
+    x = sm.add_constant(m.x)
+    t = np.quantile(d["Age"], KNOT_QUANTILES[4])
+    full = sm.OLS(m.y, np.column_stack([x, rcs_terms(d["Age"].to_numpy(), t)])).fit()
+    f, p, df = full.compare_f_test(sm.OLS(m.y, x).fit())
+    got = [k for k in linearity_by_predictor(m) if "'Age'" in k.name][0]
+    assert got.statistic == pytest.approx(f, rel=1e-9) and got.p_value == pytest.approx(p,
+                                                                                         rel=1e-7)
+    assert got.df == df == 2
+    # the check is not repeated for a predictor that has its curve
+    b = analyze(d, response="Price", predictors="Living area,Age", log_response=True, folds=0,
+                curves="Age=spline:4")
+    assert "Linearity: 'Age' as a straight line" not in set(b.tables.checks["check"])
+
+
+def test_linearity_check_false_alarm_rate_on_a_straight_model():
+    from plumbrule.diagnostics.curves import linearity_by_predictor
+    from plumbrule.model.fitted import fit_model
+    from plumbrule.model.spec import build_spec
+    reps, alarms, single = 300, 0, 0
+    for seed in range(reps):
+        d = _straight(300, 1000 + seed)
+        spec = build_spec(parse_settings(response="Price", predictors="Living area,Age",
+                                         log_response=True), d.columns)
+        checks = linearity_by_predictor(fit_model(spec, d))
+        alarms += any(k.verdict != "ok" for k in checks)
+        single += checks[1].p_value < 0.05
+    rate = alarms / reps
+    print(f"false alarms: {alarms}/{reps} = {rate:.3f}; Age alone at 0.05: {single}/{reps}")
+    # Bonferroni keeps the family rate at most 0.05; 300 reps: 0.05 + 3 binomial s.e. = 0.088
+    assert rate < 0.088
+    # the single test at its nominal 5 % (binomial 3 s.e. band over 300 reps)
+    assert 0.05 - 0.038 < single / reps < 0.05 + 0.038
+
+
+def test_spline_group_gvif_is_invariant_and_does_not_fail():
+    from patsy import dmatrix
+    from plumbrule.diagnostics.checks import collinearity_by_predictor
+    d = curved_market(n=800, seed=6)
+    a = analyze(d, response="Price", predictors="Living area,Age", log_response=True, folds=0,
+                curves="Age=spline:4")
+    per = collinearity_by_predictor(a.model).set_index("predictor")
+    assert per.loc["Age", "kind"] == "curve" and per.loc["Age", "df"] == 3
+    # the spline's own columns are highly inflated one by one ...
+    assert a.tables.coefficients["vif"].max() > 10
+    # ... but as a group (Fox and Monette 1992) Age is unrelated to Living area here
+    assert per.loc["Age", "gvif_root"] < 1.05
+    c = a.tables.checks.set_index("check")
+    assert c.loc["Multicollinearity: largest GVIF^(1/(2df))", "verdict"] == "ok"
+    assert c.loc["Multicollinearity: largest VIF", "verdict"] == "ok"
+    # GVIF does not depend on the basis of the group (Fox and Monette 1992): another basis
+    # of the same spline space (the columns mixed by an invertible matrix) gives the same
+    rng = np.random.default_rng(0)
+    block = a.model.x[:, 1:] @ (np.eye(3) + rng.normal(0, 1, (3, 3)))
+    x = np.column_stack([a.model.x[:, 0], block])
+    r = np.corrcoef(x, rowvar=False)
+    ld = lambda m: np.linalg.slogdet(m)[1]   # noqa: E731
+    gvif = np.exp(ld(r[:1, :1]) + ld(r[1:, 1:]) - ld(r))
+    assert per.loc["Age", "gvif"] == pytest.approx(gvif, rel=1e-9)
