@@ -259,3 +259,31 @@ def test_spline_group_gvif_is_invariant_and_does_not_fail():
     ld = lambda m: np.linalg.slogdet(m)[1]   # noqa: E731
     gvif = np.exp(ld(r[:1, :1]) + ld(r[1:, 1:]) - ld(r))
     assert per.loc["Age", "gvif"] == pytest.approx(gvif, rel=1e-9)
+
+
+# --- the comparable-sales grid ---------------------------------------------------------
+
+def test_grid_adjustment_of_a_curve_is_the_curve_difference():
+    from plumbrule.valuation.estimates import valuate
+    d = curved_market(n=300, seed=12)
+    a = analyze(d, response="Price", predictors="Living area,Age", curves="Age=spline:4",
+                folds=0)     # a price-scale model: the adjustments add
+    subj = pd.DataFrame({"Subject": ["9 Quill Lane"], "Living area": [1650.0], "Age": [66.0]})
+    v = valuate(a, subj, comps=[2, 5])
+    g = v.grid
+    basis = a.encoding.curve("Age")
+    b = a.fit.coef[2:5]
+    for row in (2, 5):
+        comp_age = float(a.clean.data.loc[row, "Age"])
+        want = ((basis.columns(np.array([66.0])) - basis.columns(np.array([comp_age])))
+                @ b)[0]
+        hit = g[(g["comp_row"] == row) & (g["feature"] == "Age")].iloc[0]
+        assert hit["kind"] == "curve"
+        assert hit["adjustment"] == pytest.approx(want, rel=1e-12, abs=1e-9)
+        assert hit["difference"] == pytest.approx(66.0 - comp_age)
+    # a price model's adjusted price is the subject's estimate plus the comp's own residual
+    # (P_c + (x_s − x_c)·b = x_s·b + e_c), so the curve enters as the model does
+    tot = g[g["kind"] == "total"].set_index("comp_row")
+    resid = pd.Series(a.fit.resid, index=a.model.data.index)
+    est = v.estimates["estimate"].iloc[0]
+    np.testing.assert_allclose(tot["adjusted_price"], est + resid[[2, 5]], rtol=1e-10)
