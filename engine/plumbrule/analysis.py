@@ -16,6 +16,7 @@ from plumbrule import intake, ratios
 from plumbrule import screening as screen
 from plumbrule import validation as validate
 from plumbrule.diagnostics.checks import WATCH, Check, run_checks
+from plumbrule.diagnostics.curves import curve_table, linearity_by_predictor
 from plumbrule.diagnostics.levels import level_checks
 from plumbrule.diagnostics.trend import (
     market_index,
@@ -57,6 +58,7 @@ class AnalysisTables:
     cv_estimates: pd.DataFrame
     level_merges: pd.DataFrame
     market_index: pd.DataFrame = field(default_factory=pd.DataFrame)
+    curves: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @classmethod
     def names(cls) -> tuple[str, ...]:
@@ -160,6 +162,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
                                                          settings.max_excluded_share)
     checks += level_checks(model, sales.level_merges, settings.min_level_sales)
     checks += trend_checks(model)
+    checks += linearity_by_predictor(model)
     if sales.table.hidden_rows and not settings.skip_hidden_rows:
         checks.append(_hidden_check(len(sales.table.hidden_rows)))
     if spec.screens_price and (settings.trim_percentiles is not None
@@ -188,6 +191,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         cv_estimates=with_ids(cv_estimates, ids),
         level_merges=sales.level_merges,
         market_index=market_index(model, day),
+        curves=curve_table(model),
     )
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
                     tables=tables, holdout=hold, ids=ids)

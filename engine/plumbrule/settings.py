@@ -24,7 +24,7 @@ from plumbrule.cell_values import error_text, is_blank
 class Setting:
     name: str
     kind: str          # text, columns, bool, float, int, choice, percentiles, rows, pairs, date,
-    #                    ids, level_map, keep_only
+    #                    ids, level_map, keep_only, knots, curves
     default: Any
     help: str
     choices: tuple[str, ...] = ()
@@ -68,6 +68,14 @@ REGISTRY: dict[str, Setting] = {
             "columns",
             (),
             "Predictors to enter as logarithms (values must be positive).",
+        ),
+        _s(
+            "curves",
+            "curves",
+            (),
+            "Effects that bend, per numeric predictor: Column=spline:N (N knots, 3-7), "
+            "Column=square or Column=bands:B1,B2,... separated by ';', e.g. Age=spline:4; "
+            "Lot size=bands:5000,10000.",
         ),
         _s(
             "date_column",
@@ -416,6 +424,7 @@ class Settings:
     reference_levels: tuple[tuple[str, str], ...] = ()
     log_response: bool = False
     log_predictors: tuple[str, ...] = ()
+    curves: tuple[tuple[str, str, tuple[float, ...]], ...] = ()   # (column, kind, params)
     date_column: str | None = None
     no_intercept: bool = False
     trend: str = "linear"
@@ -754,11 +763,64 @@ def _knots(s: Setting, v: Any) -> tuple[_dt.date, ...] | int:
     return tuple(sorted(set(dates)))
 
 
+_CURVE_FIX = ("Enter e.g. Age=spline:4; Living area=square; Lot size=bands:5000,10000,"
+              "20000.")
+
+
+def _curves(s: Setting, v: Any) -> tuple[tuple[str, str, tuple[float, ...]], ...]:
+    """'Age=spline:4; Living area=square; Lot size=bands:5000,10000' →
+    (('Age', 'spline', (4,)), ('Living area', 'square', ()), ('Lot size', 'bands',
+    (5000.0, 10000.0)))."""
+    out: list[tuple[str, str, tuple[float, ...]]] = []
+    seen: set[str] = set()
+    for block in str(v).split(";"):
+        if not block.strip():
+            continue
+        col, eq, shape = block.partition("=")
+        col = col.strip()
+        kind, _, params = shape.partition(":")
+        kind = kind.strip().lower()
+        where = f"Setting '{s.name}': '{block.strip()}'"
+        if not eq or not col or kind not in ("spline", "square", "bands"):
+            raise SettingError(f"{where} is not Column=spline:N, Column=square or "
+                               f"Column=bands:B1,B2. {_CURVE_FIX}", setting=s.name)
+        if col.casefold() in seen:
+            raise SettingError(f"{where}: '{col}' has a curve already. Give each column one "
+                               "curve.", setting=s.name)
+        seen.add(col.casefold())
+        if kind == "square":
+            if params.strip():
+                raise SettingError(f"{where}: square takes no number. Enter {col}=square.",
+                                   setting=s.name)
+            out.append((col, kind, ()))
+            continue
+        parts = [p.strip().replace("_", "") for p in params.split(",") if p.strip()]
+        try:
+            nums = [float(p) for p in parts]
+        except ValueError:
+            nums = []
+        if kind == "spline":
+            if len(nums) != 1 or nums[0] not in (3, 4, 5, 6, 7):
+                raise SettingError(f"{where}: a spline takes a number of knots from 3 to 7 "
+                                   f"(Harrell's default knot places). Enter e.g. {col}=spline:4.",
+                                   setting=s.name)
+            out.append((col, kind, (float(nums[0]),)))
+            continue
+        if not nums or len(nums) != len(parts) or not all(math.isfinite(x) for x in nums):
+            raise SettingError(f"{where}: bands need break points as numbers. Enter e.g. "
+                               f"{col}=bands:5000,10000,20000.", setting=s.name)
+        if any(b <= a for a, b in zip(nums, nums[1:], strict=False)):
+            raise SettingError(f"{where}: break points must rise, each once. Enter them in "
+                               "increasing order.", setting=s.name)
+        out.append((col, kind, tuple(nums)))
+    return tuple(out)
+
+
 _CONVERTERS = {
     "text": _text, "columns": _columns, "bool": _bool, "float": _float, "int": _int,
     "choice": _choice, "percentiles": _percentiles, "rows": _rows, "pairs": _pairs,
     "date": _date, "ids": _ids, "level_map": _level_map, "keep_only": _keep_only,
-    "knots": _knots,
+    "knots": _knots, "curves": _curves,
 }
 
 

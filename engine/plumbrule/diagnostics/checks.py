@@ -363,7 +363,8 @@ def _explained_share(z: np.ndarray, t: np.ndarray) -> float:
 
 def collinearity_by_predictor(model: FittedModel) -> pd.DataFrame:
     """One row per predictor as the user named it: ``predictor``, ``kind`` ('numeric' for a
-    numeric predictor or the date trend, 'categorical'), ``df`` (its design columns),
+    numeric predictor or the date trend, 'categorical', 'curve' for a predictor with a
+    spline, square or bands: its columns are one group), ``df`` (its design columns),
     ``gvif`` and ``gvif_root`` = GVIF^(1/(2·df)) (unitless).
 
     A numeric predictor's GVIF is its VIF. A categorical predictor enters as several
@@ -371,27 +372,31 @@ def collinearity_by_predictor(model: FittedModel) -> pd.DataFrame:
     them all), so it gets the generalized VIF GVIF = det(R₁₁)·det(R₂₂)/det(R) of its block
     (Fox and Monette 1992, JASA 87), which does not. They compare terms of different df by
     GVIF^(1/(2·df)): the inflation of the *length* of the coefficients' confidence region,
-    √VIF for a single column.
+    √VIF for a single column. A curve's columns (x and its spline terms, x², bands) are
+    strongly related to each other by construction; as a group its GVIF measures only how
+    far the other predictors predict the curve, so a spline never inflates its own figure.
     """
     fit, terms = model.fit, model.encoding.terms
     corr = fit.predictor_correlations()
     rows, done = [], set()
+    groups = {"level": "categorical", "curve": "curve"}
     for j, t in enumerate(terms):
-        if t.kind != "level":
+        if t.kind not in groups:
             rows.append((t.name, "numeric", 1, float(fit.vif[j])))
             continue
         if t.column in done:
             continue
         done.add(t.column)
-        block = [i for i, u in enumerate(terms) if u.kind == "level" and u.column == t.column]
+        kind = groups[t.kind]
+        block = [i for i, u in enumerate(terms) if u.kind == t.kind and u.column == t.column]
         if len(block) == 1 or corr is None:
-            rows.append((t.column, "categorical", len(block), float(fit.vif[block[0]])))
+            rows.append((t.column, kind, len(block), float(fit.vif[block[0]])))
             continue
         rest = [i for i in range(len(terms)) if i not in block]
         logdet = lambda m: np.linalg.slogdet(m)[1] if m.size else 0.0  # noqa: E731
         log_gvif = (logdet(corr[np.ix_(block, block)]) + logdet(corr[np.ix_(rest, rest)])
                     - logdet(corr))
-        rows.append((t.column, "categorical", len(block), float(np.exp(log_gvif))))
+        rows.append((t.column, kind, len(block), float(np.exp(log_gvif))))
     out = pd.DataFrame(rows, columns=["predictor", "kind", "df", "gvif"])
     out["gvif_root"] = out["gvif"] ** (1.0 / (2.0 * out["df"]))
     return out
@@ -421,7 +426,8 @@ def max_vif(model: FittedModel) -> Check:
     """Largest VIF among the numeric predictors (and the date trend)."""
     name = "Multicollinearity: largest VIF"
     threshold = (f"VIF > {VIF_WATCH:g} watch, > {VIF_FAILS:g} fails (common practice, no "
-                 "source); categorical predictors: see the GVIF row")
+                 "source); categorical predictors" + (" and curves" if model.encoding.curves
+                                                       else "") + ": see the GVIF row")
     na, per = _collinearity_rows(model, name, threshold)
     if na:
         return na
@@ -437,7 +443,8 @@ def max_vif(model: FittedModel) -> Check:
 
 
 def max_gvif(model: FittedModel) -> Check:
-    """Largest GVIF^(1/(2·df)) among the categorical predictors, graded by the square roots
+    """Largest GVIF^(1/(2·df)) among the categorical predictors and the curves (each curved
+    predictor's columns one group), graded by the square roots
     of the VIF limits (√5 ≈ 2.24, √10 ≈ 3.16): Fox and Monette's (1992) scale, on which a
     single column reads √VIF."""
     name = "Multicollinearity: largest GVIF^(1/(2df))"
@@ -447,9 +454,10 @@ def max_gvif(model: FittedModel) -> Check:
     na, per = _collinearity_rows(model, name, threshold)
     if na:
         return na
-    per = per[per["kind"] == "categorical"]
+    per = per[per["kind"].isin(("categorical", "curve"))]
     if per.empty:
-        return not_applicable(name, "No categorical predictor.", threshold)
+        return not_applicable(name, "No categorical predictor" + (" or curve" if
+                              model.encoding.curves else "") + ".", threshold)
     top = per.loc[per["gvif_root"].idxmax()]
     v = float(top["gvif_root"])
     verdict = OK if v <= lo else (WATCH if v <= hi else FAILS)

@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 
 from plumbrule.errors import SpecError, quote_list
+from plumbrule.model.curves import CurveBasis, build_curve
 from plumbrule.model.spec import ModelSpec
 from plumbrule.model.trend import TrendBasis, build_trend
 
@@ -21,7 +22,8 @@ DAYS_PER_MONTH = 365.2425 / 12.0   # mean Gregorian month, so a trend is "per mo
 
 @dataclass(frozen=True)
 class Term:
-    """One column of the design: ``kind`` is numeric, log, level or trend."""
+    """One column of the design: ``kind`` is numeric, log, level, curve (one of a curved
+    predictor's columns, model/curves.py) or trend."""
 
     name: str
     column: str
@@ -36,6 +38,11 @@ class Encoding:
     levels: tuple[tuple[str, tuple[str, ...]], ...]     # column → levels, reference first
     date_origin: pd.Timestamp | None
     trend: TrendBasis | None = None     # piecewise / periods (model/trend.py); None: linear
+    curves: tuple[CurveBasis, ...] = ()   # curved predictors (model/curves.py), spec order
+
+    def curve(self, column: str) -> CurveBasis | None:
+        """The curve of ``column``, None when it enters as a straight line."""
+        return next((c for c in self.curves if c.column == column), None)
 
     @property
     def names(self) -> list[str]:
@@ -79,6 +86,10 @@ class Encoding:
                 x[:, j] = _log(data[t.column], t.column, label, "log_predictors")
             elif t.kind == "level":
                 x[:, j] = (data[t.column].to_numpy(dtype=object) == t.level).astype(float)
+        for basis in self.curves:
+            idx = [j for j, t in enumerate(self.terms) if t.kind == "curve"
+                   and t.column == basis.column]
+            x[:, idx] = basis.columns(_floats(data[basis.column], basis.column, label))
         trend = [j for j, t in enumerate(self.terms) if t.kind == "trend"]
         if trend:
             x[:, trend] = self.trend_columns(data[self.terms[trend[0]].column])
@@ -212,8 +223,14 @@ def make_encoding(spec: ModelSpec, data: pd.DataFrame) -> Encoding:
     """Capture levels (reference first) and the date origin from the fitting rows."""
     terms: list[Term] = []
     levels: list[tuple[str, tuple[str, ...]]] = []
+    curves: list[CurveBasis] = []
     for col in spec.predictors:
-        if col in spec.categorical:
+        shape = spec.curve_for(col)
+        if shape is not None:
+            basis = build_curve(shape[0], shape[1], col, _floats(data[col], col, "row"))
+            curves.append(basis)
+            terms.extend(Term(name, col, "curve") for name in basis.names)
+        elif col in spec.categorical:
             lv = _levels(data[col], col, spec.reference_for(col))
             levels.append((col, lv))
             terms.extend(Term(f"{col}: {lvl}", col, "level", lvl) for lvl in lv[1:])
@@ -228,7 +245,7 @@ def make_encoding(spec: ModelSpec, data: pd.DataFrame) -> Encoding:
         names = trend.names if trend else [f"{spec.date_column} (months)"]
         terms.extend(Term(name, spec.date_column, "trend") for name in names)
     return Encoding(spec=spec, terms=tuple(terms), levels=tuple(levels), date_origin=origin,
-                    trend=trend)
+                    trend=trend, curves=tuple(curves))
 
 
 def _levels(col: pd.Series, name: str, reference: str | None) -> tuple[str, ...]:

@@ -138,12 +138,21 @@ def _check_enough(spec: ModelSpec, data: pd.DataFrame) -> None:
     at least one) fit nothing: said before a level count of the few rows is blamed."""
     cats = set(spec.categorical)
     k = int(spec.intercept) + int(bool(spec.date_column)) + sum(
-        max(int(data[c].nunique()) - 1, 1) if c in cats else 1 for c in spec.predictors)
+        max(int(data[c].nunique()) - 1, 1) if c in cats else _width(spec, c)
+        for c in spec.predictors)
     if len(data) < k + 1:
         from plumbrule.errors import FitError
         raise FitError(f"Only {len(data)} usable rows for {k} parameters: the fit needs at "
                        f"least {k + 1}. Add sales, fill in the blank cells of the rows left "
                        "out, or remove predictors.")
+
+
+def _width(spec: ModelSpec, column: str) -> int:
+    """Design columns of a numeric predictor: 1, or its curve's (model/curves.py)."""
+    shape = spec.curve_for(column)
+    if shape is None or shape[0] == "square":
+        return 2 if shape else 1
+    return int(shape[1][0]) - 1 if shape[0] == "spline" else len(shape[1])
 
 
 def _check_response_varies(spec: ModelSpec, y: np.ndarray, data: pd.DataFrame) -> None:

@@ -32,6 +32,12 @@ class ModelSpec:
     trend_knots: tuple | int | None = None   # piecewise: dates, or every N months
     trend_period: str = "month"          # periods: month | quarter
     min_period_sales: int = 10           # sparser periods/segments merge with a neighbour
+    curves: tuple[tuple[str, str, tuple[float, ...]], ...] = ()   # (column, kind, params)
+
+    def curve_for(self, column: str) -> tuple[str, tuple[float, ...]] | None:
+        """(kind, params) of ``column``'s curve (model/curves.py), None when it is straight."""
+        hit = [(k, p) for c, k, p in self.curves if c == column]
+        return hit[0] if hit else None
 
     @property
     def logged_columns(self) -> tuple[str, ...]:
@@ -190,11 +196,36 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
         raise SpecError(f"Setting 'trend': '{settings.trend}' follows the market over the sale "
                         "dates, but no date_column is set. Name the sale-date column.",
                         setting="trend")
-    return replace(spec, screened=screened, ratio_by=by, id_column=ident,
+    curves = _curves(settings.curves, columns, preds, cats, logs)
+    return replace(spec, screened=screened, ratio_by=by, id_column=ident, curves=curves,
                    level_map=tuple(level_map), filters=filters,
                    date_format=settings.date_format, trend=settings.trend,
                    trend_knots=settings.trend_knots, trend_period=settings.trend_period,
                    min_period_sales=settings.min_period_sales)
+
+
+def _curves(curves, columns, preds, cats, logs) -> tuple:
+    """The curves setting matched to the headers; each column a numeric predictor."""
+    from plumbrule.errors import SettingError
+    out = []
+    for name, kind, params in curves:
+        try:
+            col = match_column(name, columns, "curves")
+        except SpecError as err:
+            raise SettingError(str(err), setting="curves", column=name) from None
+        fix = None
+        if col not in preds:
+            fix = "is not among the predictors. Add it to 'predictors' too."
+        elif col in cats:
+            fix = ("is categorical: a curve needs numbers. Take it out of 'categorical' or "
+                   "out of 'curves'.")
+        elif col in logs:
+            fix = ("is in 'log_predictors' already (the logarithm is a curve of its own). "
+                   "Take it out of one of the two settings.")
+        if fix:
+            raise SettingError(f"Setting 'curves': '{col}' {fix}", setting="curves", column=col)
+        out.append((col, kind, params))
+    return tuple(out)
 
 
 def _subset(names, columns, preds, setting) -> list[str]:

@@ -6,7 +6,8 @@ and comparable into money. In a price model the adjustment for a feature is
 coefficient × difference. In a log-price model the effects multiply: the
 comparable's price P becomes P·exp(E) with E = Σ_f e_f, e_f = b·Δ for feature f
 (Δ the log difference for a logged predictor, the indicator differences for a
-category, months for the market trend). The money P·(exp(E) − 1) is shared
+category, months for the market trend; for a curve (model/curves.py) e_f = f(subject) −
+f(comp), the curve's difference on the model's scale). The money P·(exp(E) − 1) is shared
 among the features in proportion to their e_f, so the feature adjustments add
 up to the net adjustment exactly and do not depend on an order of application.
 The feature's stand-alone effect P·(exp(e_f) − 1) is shown beside it.
@@ -231,6 +232,9 @@ def _feature_frame(name, comps, subj, diff, fit, idx, kind, e, money, alone, pri
         s_val, c_val = np.repeat(s_num, m).astype(object), c_num.astype(object)
         raw = s_num - c_num
         model_diff, coef = diff[:, idx[0]], b[idx[0]]
+        if kind == "curve":     # f(subject) − f(comp) on the model's scale: the mean rate
+            with np.errstate(divide="ignore", invalid="ignore"):
+                model_diff, coef = raw, np.where(raw != 0, e / raw, np.nan)
     return pd.DataFrame({
         "comp_row": rows, "feature": name, "kind": kind, "subject_value": s_val,
         "comp_value": c_val, "difference": raw, "model_difference": model_diff,

@@ -1,0 +1,289 @@
+"""Curves (model/curves.py): the restricted cubic spline against a hand-built
+Durrleman–Simon / Harrell truncated-power basis and patsy's natural cubic regression spline,
+the fit against statsmodels OLS on the same basis, bands against pandas.cut, and a simulated
+market of our own with a known age curve."""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from plumbrule.analysis import analyze
+from plumbrule.errors import PlumbError, SettingError
+from plumbrule.model.curves import KNOT_QUANTILES, default_knots, rcs_terms
+from plumbrule.settings import parse_settings
+
+
+def _hand_rcs(x, t):
+    """Harrell, Regression Modeling Strategies 2nd ed. (2015), eq. 2.25, written out term by
+    term with scalar arithmetic (Durrleman and Simon 1989), each column divided by
+    (t_k - t_1)^2 as Hmisc's rcspline.eval does (norm=2; from memory)."""
+    k = len(t)
+    out = np.empty((len(x), k - 2))
+    for i, xi in enumerate(x):
+        for j in range(k - 2):
+            p = lambda v: max(xi - v, 0.0) ** 3   # noqa: E731
+            val = (p(t[j]) - p(t[k - 2]) * (t[k - 1] - t[j]) / (t[k - 1] - t[k - 2])
+                   + p(t[k - 1]) * (t[k - 2] - t[j]) / (t[k - 1] - t[k - 2]))
+            out[i, j] = val / (t[k - 1] - t[0]) ** 2
+    return out
+
+
+def curved_market(n=2000, seed=3, noise=0.10):
+    """Our own market: log price falls 0.008 per year of age, levelling off at 60 years
+    (f(a) = -0.008 a + 0.008 a²/120, flat at 60, older houses a little dearer after)."""
+    rng = np.random.default_rng(seed)
+    area = rng.normal(1600, 350, n).clip(700, 3500).round()
+    age = rng.integers(1, 90, n).astype(float)
+    logp = 11.6 + 0.00045 * area + age_curve(age) + rng.normal(0, noise, n)
+    return pd.DataFrame({"Price": np.round(np.exp(logp), 0), "Living area": area, "Age": age})
+
+
+def age_curve(a):
+    a = np.asarray(a, dtype=float)
+    return -0.008 * a + 0.008 * a * a / 120.0
+
+
+@pytest.mark.parametrize("k", [3, 4, 5, 6, 7])
+def test_spline_terms_match_the_hand_built_formula(k):
+    rng = np.random.default_rng(k)
+    x = rng.uniform(0, 100, 300)
+    t = np.quantile(x, KNOT_QUANTILES[k])
+    ours = rcs_terms(x, t)
+    assert np.max(np.abs(ours - _hand_rcs(x, t))) < 1e-12 * max(1.0, np.max(np.abs(ours)))
+
+
+def test_spline_spans_patsys_natural_cubic_spline_and_is_linear_outside():
+    from patsy import dmatrix
+    rng = np.random.default_rng(11)
+    x = np.sort(rng.uniform(0, 100, 400))
+    t = np.quantile(x, KNOT_QUANTILES[5])
+    ours = np.column_stack([np.ones_like(x), x, rcs_terms(x, t)])
+    # patsy's cr: the natural cubic regression spline with the same knots (Wood 2006) spans
+    # the same k-dimensional space as the restricted cubic spline (Stone and Koo 1985)
+    cr = np.asarray(dmatrix("cr(x, knots=inner, lower_bound=lo, upper_bound=hi) - 1",
+                            {"x": x, "inner": t[1:-1], "lo": t[0], "hi": t[-1]}))
+    inside = (x >= t[0]) & (x <= t[-1])
+    coef, *_ = np.linalg.lstsq(cr[inside], ours[inside], rcond=None)
+    assert np.max(np.abs(cr[inside] @ coef - ours[inside])) < 1e-9 * np.max(np.abs(ours))
+    # restricted: linear beyond the outer knots (second differences vanish there)
+    beyond = np.linspace(t[-1], t[-1] + 50, 7)
+    assert np.max(np.abs(np.diff(rcs_terms(beyond, t), 2, axis=0))) < 1e-9
+    below = np.linspace(t[0] - 50, t[0], 7)
+    assert np.max(np.abs(rcs_terms(below, t))) == 0.0
+
+
+def test_fit_matches_statsmodels_on_the_same_basis():
+    import statsmodels.api as sm
+    d = curved_market(n=800, seed=5)
+    a = analyze(d, response="Price", predictors="Living area,Age", log_response=True,
+                curves="Age=spline:4", folds=0)
+    basis = a.encoding.curve("Age")
+    x = np.column_stack([d["Living area"], d["Age"], rcs_terms(d["Age"].to_numpy(),
+                                                               np.asarray(basis.knots))])
+    ref = sm.OLS(np.log(d["Price"].to_numpy()), sm.add_constant(x)).fit()   # statsmodels
+    c = a.tables.coefficients
+    assert list(c["term"]) == ["intercept", "Living area", "Age", "Age (spline 1)",
+                               "Age (spline 2)"]
+    np.testing.assert_allclose(c["estimate"], ref.params, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(c["std_error"], ref.bse, rtol=1e-9)
+
+
+def test_knots_are_harrells_quantiles():
+    rng = np.random.default_rng(2)
+    v = rng.uniform(0, 80, 500)
+    # Harrell (2015) Table 2.3, 4 knots: 0.05, 0.35, 0.65, 0.95; R's quantile type 7 is
+    # numpy's default
+    np.testing.assert_allclose(default_knots(v, 4, "Age"),
+                               np.quantile(v, [0.05, 0.35, 0.65, 0.95]), rtol=0, atol=0)
+    small = np.arange(1.0, 51.0)      # under 100 values: outer knots the 5th from each end
+    k = default_knots(small, 4, "Age")
+    assert k[0] == 5.0 and k[-1] == 46.0
+
+
+def test_bands_match_pandas_cut():
+    d = curved_market(n=500, seed=9)
+    breaks = [20, 40, 60]
+    a = analyze(d, response="Price", predictors="Living area,Age", log_response=True,
+                curves="Age=bands:20,40,60", folds=0)
+    cut = pd.cut(d["Age"], [-np.inf, *breaks, np.inf], right=False)   # [lo, hi) bands
+    ind = pd.get_dummies(cut).astype(float).to_numpy()
+    ref = a.encoding.curve("Age").reference        # the band holding the median age
+    assert ref == int(np.searchsorted(breaks, d["Age"].median(), side="right"))
+    want = np.delete(ind, ref, axis=1)
+    got = a.model.x[:, 1:]
+    np.testing.assert_array_equal(got, want)
+
+
+def test_simulated_age_curve_is_recovered():
+    d = curved_market(n=3000, seed=3, noise=0.10)
+    a = analyze(d, response="Price", predictors="Living area,Age", log_response=True,
+                curves="Age=spline:5", folds=0)
+    tab = a.tables.curves
+    tab = tab[tab["predictor"] == "Age"]
+    ref = float(tab["reference"].iloc[0])
+    truth = age_curve(tab["value"]) - age_curve(ref)
+    # our tolerance: within 0.02 on the log scale (2 % of price) everywhere from the youngest
+    # to the oldest house with 3000 sales and 10 % noise
+    err = np.abs(tab["model_effect"].to_numpy() - truth)
+    print("largest error of the age effect (log scale):", err.max())
+    assert err.max() < 0.02
+    # and it levels off: the slope past 60 is small against the young houses' slope
+    b = a.encoding.curve("Age")
+    fine = np.linspace(60, 85, 26)
+    coef = a.fit.coef[2:]
+    f = b.columns(fine) @ coef
+    assert abs(f[-1] - f[0]) < 0.05 < abs(coef[0] * 50)
+
+
+def test_curve_settings_refuse_bad_specs():
+    with pytest.raises(SettingError, match="curves.*spline takes a number of knots from 3"):
+        parse_settings(curves="Age=spline:9")
+    with pytest.raises(SettingError, match="break points must rise"):
+        parse_settings(curves="Age=bands:40,20")
+    with pytest.raises(SettingError, match="bands need break points as numbers"):
+        parse_settings(curves="Age=bands:ten")
+    with pytest.raises(SettingError, match="is not Column=spline:N"):
+        parse_settings(curves="Age=wiggle")
+    got = parse_settings(curves="Age=spline:4; Living area=square; Lot size=bands:5000,10000")
+    assert got.curves == (("Age", "spline", (4.0,)), ("Living area", "square", ()),
+                          ("Lot size", "bands", (5000.0, 10000.0)))
+
+
+def test_curve_specs_refused_against_the_sales():
+    d = curved_market(n=200, seed=1)
+    d["Kind"] = np.where(d["Age"] > 40, "old", "new")
+    d["Few"] = np.where(d["Age"] > 40, 1.0, 2.0)
+    base = dict(response="Price", log_response=True, folds=0)
+    cases = [
+        (dict(predictors="Age", curves="Agee=square"), "no column 'Agee'"),
+        (dict(predictors="Age", curves="Living area=square"), "not among the predictors"),
+        (dict(predictors="Age,Kind", categorical="Kind", curves="Kind=square"), "categorical"),
+        (dict(predictors="Age,Few", curves="Few=spline:4"), "too few for a spline"),
+        (dict(predictors="Age", curves="Age=bands:100,200"), "holds no sale"),
+    ]
+    for kw, words in cases:
+        with pytest.raises(SettingError, match=words) as err:
+            analyze(d, {**base, **kw})
+        assert "curves" in str(err.value) and "\n" not in str(err.value)
+        assert isinstance(err.value, PlumbError)
+
+
+def test_subjects_get_the_fit_time_basis():
+    d = curved_market(n=400, seed=4)
+    a = analyze(d, response="Price", predictors="Living area,Age", log_response=True,
+                curves="Age=spline:4", folds=0)
+    subj = a.encoding.new_rows(pd.DataFrame({"Living area": [1500.0], "Age": [70.0]}))
+    x = a.encoding.design(subj)
+    t = np.asarray(a.encoding.curve("Age").knots)
+    np.testing.assert_allclose(x[0, 1:], np.concatenate([[70.0], rcs_terms(np.array([70.0]),
+                                                                            t)[0]]))
+
+
+# --- the per-predictor linearity check ----------------------------------------------------
+
+def _straight(n, seed):
+    rng = np.random.default_rng(seed)
+    area = rng.normal(1600, 350, n).round()
+    age = rng.integers(1, 90, n).astype(float)
+    logp = 11.6 + 0.00045 * area - 0.004 * age + rng.normal(0, 0.10, n)
+    return pd.DataFrame({"Price": np.exp(logp), "Living area": area, "Age": age})
+
+
+def test_linearity_check_names_the_bent_predictor_and_matches_statsmodels():
+    import statsmodels.api as sm
+    from plumbrule.diagnostics.curves import linearity_by_predictor
+    d = curved_market(n=600, seed=8)
+    a = analyze(d, response="Price", predictors="Living area,Age", log_response=True, folds=0)
+    c = a.tables.checks.set_index("check")
+    age = c.loc["Linearity: 'Age' as a straight line"]
+    assert age["verdict"] == "watch" and "'Age' needs a curve" in age["note"]
+    assert c.loc["Linearity: 'Living area' as a straight line", "verdict"] == "ok"
+    # statsmodels' compare_f_test of the same nested pair: straight model vs + the two
+    # non-linear terms of a 4-knot spline at the quantiles 0.05, 0.35, 0.65, 0.95 (Harrell)
+    m = a.model
+    x = sm.add_constant(m.x)
+    t = np.quantile(d["Age"], KNOT_QUANTILES[4])
+    full = sm.OLS(m.y, np.column_stack([x, rcs_terms(d["Age"].to_numpy(), t)])).fit()
+    f, p, df = full.compare_f_test(sm.OLS(m.y, x).fit())
+    got = [k for k in linearity_by_predictor(m) if "'Age'" in k.name][0]
+    assert got.statistic == pytest.approx(f, rel=1e-9) and got.p_value == pytest.approx(p,
+                                                                                         rel=1e-7)
+    assert got.df == df == 2
+    # the check is not repeated for a predictor that has its curve
+    b = analyze(d, response="Price", predictors="Living area,Age", log_response=True, folds=0,
+                curves="Age=spline:4")
+    assert "Linearity: 'Age' as a straight line" not in set(b.tables.checks["check"])
+
+
+def test_linearity_check_false_alarm_rate_on_a_straight_model():
+    from plumbrule.diagnostics.curves import linearity_by_predictor
+    from plumbrule.model.fitted import fit_model
+    from plumbrule.model.spec import build_spec
+    reps, alarms, single = 300, 0, 0
+    for seed in range(reps):
+        d = _straight(300, 1000 + seed)
+        spec = build_spec(parse_settings(response="Price", predictors="Living area,Age",
+                                         log_response=True), d.columns)
+        checks = linearity_by_predictor(fit_model(spec, d))
+        alarms += any(k.verdict != "ok" for k in checks)
+        single += checks[1].p_value < 0.05
+    rate = alarms / reps
+    print(f"false alarms: {alarms}/{reps} = {rate:.3f}; Age alone at 0.05: {single}/{reps}")
+    # Bonferroni keeps the family rate at most 0.05; 300 reps: 0.05 + 3 binomial s.e. = 0.088
+    assert rate < 0.088
+    # the single test at its nominal 5 % (binomial 3 s.e. band over 300 reps)
+    assert 0.05 - 0.038 < single / reps < 0.05 + 0.038
+
+
+def test_spline_group_gvif_is_invariant_and_does_not_fail():
+    from patsy import dmatrix
+    from plumbrule.diagnostics.checks import collinearity_by_predictor
+    d = curved_market(n=800, seed=6)
+    a = analyze(d, response="Price", predictors="Living area,Age", log_response=True, folds=0,
+                curves="Age=spline:4")
+    per = collinearity_by_predictor(a.model).set_index("predictor")
+    assert per.loc["Age", "kind"] == "curve" and per.loc["Age", "df"] == 3
+    # the spline's own columns are highly inflated one by one ...
+    assert a.tables.coefficients["vif"].max() > 10
+    # ... but as a group (Fox and Monette 1992) Age is unrelated to Living area here
+    assert per.loc["Age", "gvif_root"] < 1.05
+    c = a.tables.checks.set_index("check")
+    assert c.loc["Multicollinearity: largest GVIF^(1/(2df))", "verdict"] == "ok"
+    assert c.loc["Multicollinearity: largest VIF", "verdict"] == "ok"
+    # GVIF does not depend on the basis of the group (Fox and Monette 1992): another basis
+    # of the same spline space (the columns mixed by an invertible matrix) gives the same
+    rng = np.random.default_rng(0)
+    block = a.model.x[:, 1:] @ (np.eye(3) + rng.normal(0, 1, (3, 3)))
+    x = np.column_stack([a.model.x[:, 0], block])
+    r = np.corrcoef(x, rowvar=False)
+    ld = lambda m: np.linalg.slogdet(m)[1]   # noqa: E731
+    gvif = np.exp(ld(r[:1, :1]) + ld(r[1:, 1:]) - ld(r))
+    assert per.loc["Age", "gvif"] == pytest.approx(gvif, rel=1e-9)
+
+
+# --- the comparable-sales grid ---------------------------------------------------------
+
+def test_grid_adjustment_of_a_curve_is_the_curve_difference():
+    from plumbrule.valuation.estimates import valuate
+    d = curved_market(n=300, seed=12)
+    a = analyze(d, response="Price", predictors="Living area,Age", curves="Age=spline:4",
+                folds=0)     # a price-scale model: the adjustments add
+    subj = pd.DataFrame({"Subject": ["9 Quill Lane"], "Living area": [1650.0], "Age": [66.0]})
+    v = valuate(a, subj, comps=[2, 5])
+    g = v.grid
+    basis = a.encoding.curve("Age")
+    b = a.fit.coef[2:5]
+    for row in (2, 5):
+        comp_age = float(a.clean.data.loc[row, "Age"])
+        want = ((basis.columns(np.array([66.0])) - basis.columns(np.array([comp_age])))
+                @ b)[0]
+        hit = g[(g["comp_row"] == row) & (g["feature"] == "Age")].iloc[0]
+        assert hit["kind"] == "curve"
+        assert hit["adjustment"] == pytest.approx(want, rel=1e-12, abs=1e-9)
+        assert hit["difference"] == pytest.approx(66.0 - comp_age)
+    # a price model's adjusted price is the subject's estimate plus the comp's own residual
+    # (P_c + (x_s − x_c)·b = x_s·b + e_c), so the curve enters as the model does
+    tot = g[g["kind"] == "total"].set_index("comp_row")
+    resid = pd.Series(a.fit.resid, index=a.model.data.index)
+    est = v.estimates["estimate"].iloc[0]
+    np.testing.assert_allclose(tot["adjusted_price"], est + resid[[2, 5]], rtol=1e-10)
