@@ -19,7 +19,8 @@ TEST_KNOTS = 4       # the per-predictor test adds a 4-knot spline's two non-lin
 
 
 def curve_table(model: FittedModel) -> pd.DataFrame:
-    """One row per shown value of each curve: ``value`` (the predictor's units; for bands the
+    """One row per shown value of each curve: ``value`` (the predictor's units: the lowest
+    and highest sale value and :data:`POINTS` − 2 rounded steps between; for bands the
     band's lowest sale value), ``band`` (its label; '' for a spline or square), ``reference``
     (the value the effects are measured from: the median sale's value), ``model_effect``
     f(value) − f(reference) on the model scale, and ``effect`` with its confidence interval
@@ -55,7 +56,12 @@ def curve_table(model: FittedModel) -> pd.DataFrame:
 def _shown_values(basis: CurveBasis, x: np.ndarray) -> tuple[np.ndarray, list[str]]:
     x = x[np.isfinite(x)]
     if basis.kind != "bands":
-        return np.linspace(x.min(), x.max(), POINTS), [""] * POINTS
+        lo, hi = float(x.min()), float(x.max())
+        grid = np.linspace(lo, hi, POINTS)
+        if hi > lo:    # round steps (870, 1,040 ... not 871.4): two significant digits
+            digits = 1 - int(np.floor(np.log10((hi - lo) / (POINTS - 1))))
+            grid[1:-1] = np.round(grid[1:-1], digits)
+        return grid, [""] * POINTS
     band = np.searchsorted(np.asarray(basis.breaks), x, side="right")
     lows = np.array([x[band == i].min() for i in range(len(basis.breaks) + 1)])
     return lows, basis.band_labels
