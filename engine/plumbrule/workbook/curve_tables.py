@@ -32,8 +32,10 @@ def write_curves(ws, r: int, analysis) -> int:
         first_col = "band" if bands else "value"
         shown = part[[first_col, "effect", "ci_low", "ci_high"]]
         top = r
-        end = write_frame(ws, shown, r, 1, {first_col: None if bands else "#,##0.###",
-                                             "effect": fmt, "ci_low": fmt, "ci_high": fmt},
+        formats: dict = {"effect": fmt, "ci_low": fmt, "ci_high": fmt}
+        if not bands:
+            formats[first_col] = "#,##0.###"
+        end = write_frame(ws, shown, r, 1, formats,
                           {first_col: str(pred), "effect": unit, "ci_low": "CI low",
                            "ci_high": "CI high"})
         _chart(ws, top, end - 1, str(pred), unit)
