@@ -323,3 +323,37 @@ def test_condition_number_takes_a_curve_in_any_basis():
     mixed[:, 1:] = x[:, 1:] @ (np.eye(3) + np.random.default_rng(1).normal(0, 1, (3, 3)))
     assert got == pytest.approx(bkw(orthogonal_block(mixed, [1, 2, 3])), rel=1e-8)
     assert got < 30 < bkw(x)      # the raw spline columns alone would read as near-dependent
+
+
+# --- the same setting on every surface --------------------------------------------------
+
+def test_cli_option_and_json_table(tmp_path):
+    import json
+    import subprocess
+    import sys
+    d = curved_market(n=300, seed=14)
+    path = tmp_path / "sales.csv"
+    d.to_csv(path, index=False)
+    proc = subprocess.run([sys.executable, "-m", "plumbrule", "fit", str(path), "--response",
+                           "Price", "--predictors", "Living area,Age", "--log-response",
+                           "--folds", "0", "--curves", "Age=spline:4", "--json"],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    out = json.loads(proc.stdout)
+    assert list(out)[-1] == "curves"       # new tables go at the end (the JSON contract)
+    assert list(out["curves"][0]) == ["predictor", "kind", "value", "band", "reference",
+                                      "model_effect", "effect", "ci_low", "ci_high", "scale"]
+    bad = subprocess.run([sys.executable, "-m", "plumbrule", "fit", str(path), "--response",
+                          "Price", "--predictors", "Living area,Age", "--curves", "Age=spline:2"],
+                         capture_output=True, text=True, timeout=120)
+    assert bad.returncode != 0 and "curves" in bad.stderr and "3 to 7" in bad.stderr
+
+
+def test_worksheet_functions_take_the_setting():
+    from plumbrule import sheet_functions as sf
+    d = curved_market(n=200, seed=15)
+    cells = [list(d.columns)] + d.to_numpy().tolist()
+    got = sf.PLUMB_COEFS(cells, "Price", "Living area,Age",
+                         [["log_response", True], ["curves", "Age=square"]])
+    terms = [row[0] for row in got[1:]]
+    assert terms == ["intercept", "Living area", "Age", "Age²"]
