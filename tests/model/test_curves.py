@@ -16,7 +16,7 @@ from plumbrule.settings import parse_settings
 def _hand_rcs(x, t):
     """Harrell, Regression Modeling Strategies 2nd ed. (2015), eq. 2.25, written out term by
     term with scalar arithmetic (Durrleman and Simon 1989), each column divided by
-    (t_k - t_1)^2 as Hmisc's rcspline.eval does (norm=2; from memory)."""
+    (t_k - t_1)^2 as Hmisc's rcspline.eval does by default (norm=2: "in original units of x")."""
     k = len(t)
     out = np.empty((len(x), k - 2))
     def p(xi, v):

@@ -71,10 +71,11 @@ def _shown_values(basis: CurveBasis, x: np.ndarray) -> tuple[np.ndarray, list[st
 
 def straight_predictors(model: FittedModel) -> list[tuple[str, int]]:
     """(predictor, design column) of each numeric or logged predictor entered as a straight
-    line (no curve), in the spec's order."""
+    line (no curve) with more than two distinct values, in the spec's order."""
     out = []
     for j, t in enumerate(model.encoding.terms):
-        if t.kind in ("numeric", "log"):
+        # a yes/no column has no straight-line assumption to test
+        if t.kind in ("numeric", "log") and len(np.unique(model.x[:, j])) > 2:
             out.append((t.column, j))
     return out
 
@@ -125,8 +126,13 @@ def linearity_by_predictor(model: FittedModel) -> list[Check]:
                  if len(cols) > 1 else "p < 0.05")
     out = []
     fit = model.fit
+    logged = set(model.spec.log_predictors)
     for name, j in cols:
         title = f"Linearity: '{name}' as a straight line"
+        what = f"log({name})" if name in logged else f"'{name}'"
+        fix = (f"Take it out of log_predictors and try curves {name}=spline:4 instead, and "
+               "compare." if name in logged else
+               f"Try curves {name}=spline:4 (or square, or bands) and compare.")
         gain, df1 = curve_gain(model, j)
         df2 = fit.df_resid - df1
         if df1 == 0 or df2 < 1:
@@ -137,11 +143,11 @@ def linearity_by_predictor(model: FittedModel) -> list[Check]:
         p = float(fdist.sf(fstat, df1, df2))
         if p < alpha:
             verdict = WATCH
-            note = (f"'{name}' needs a curve: a spline fits its effect better than a straight "
-                    f"line. Try curves {name}=spline:4 (or square, or bands) and compare.")
+            note = (f"'{name}' needs a curve: a spline of {what} fits its effect better than "
+                    f"a straight line. {fix}")
         else:
             verdict = OK
-            note = f"A straight line describes the effect of '{name}' well enough."
+            note = f"A straight line in {what} describes the effect of '{name}' well enough."
         out.append(Check(title, fstat, p, threshold, verdict, note, float(df1), "F",
                          f"the effect of '{name}' is a straight line"))
     return out
