@@ -158,11 +158,13 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     screen_log = pd.concat([lg for lg in (fit_log, ratio_log) if len(lg)]
                            or [screen.empty_log()], ignore_index=True)
     after = pd.concat([train, hold]).sort_index() if len(hold) else train
-    checks = run_checks(model) + screen.screening_checks(fit_log, looked,
-                                                         settings.max_excluded_share)
+    checks = run_checks(model)
+    at = next((i + 1 for i, c in enumerate(checks) if c.name.startswith("Linearity")),
+              len(checks))
+    checks[at:at] = linearity_by_predictor(model)     # beside RESET: the same question
+    checks += screen.screening_checks(fit_log, looked, settings.max_excluded_share)
     checks += level_checks(model, sales.level_merges, settings.min_level_sales)
     checks += trend_checks(model)
-    checks += linearity_by_predictor(model)
     if sales.table.hidden_rows and not settings.skip_hidden_rows:
         checks.append(_hidden_check(len(sales.table.hidden_rows)))
     if spec.screens_price and (settings.trim_percentiles is not None

@@ -16,14 +16,16 @@ from plumbrule.settings import parse_settings
 def _hand_rcs(x, t):
     """Harrell, Regression Modeling Strategies 2nd ed. (2015), eq. 2.25, written out term by
     term with scalar arithmetic (Durrleman and Simon 1989), each column divided by
-    (t_k - t_1)^2 as Hmisc's rcspline.eval does (norm=2; from memory)."""
+    (t_k - t_1)^2 as Hmisc's rcspline.eval does by default (norm=2: "in original units of x")."""
     k = len(t)
     out = np.empty((len(x), k - 2))
+    def p(xi, v):
+        return max(xi - v, 0.0) ** 3
+
     for i, xi in enumerate(x):
         for j in range(k - 2):
-            p = lambda v: max(xi - v, 0.0) ** 3   # noqa: E731
-            val = (p(t[j]) - p(t[k - 2]) * (t[k - 1] - t[j]) / (t[k - 1] - t[k - 2])
-                   + p(t[k - 1]) * (t[k - 2] - t[j]) / (t[k - 1] - t[k - 2]))
+            val = (p(xi, t[j]) - p(xi, t[k - 2]) * (t[k - 1] - t[j]) / (t[k - 1] - t[k - 2])
+                   + p(xi, t[k - 1]) * (t[k - 2] - t[j]) / (t[k - 1] - t[k - 2]))
             out[i, j] = val / (t[k - 1] - t[0]) ** 2
     return out
 
@@ -236,7 +238,6 @@ def test_linearity_check_false_alarm_rate_on_a_straight_model():
 
 
 def test_spline_group_gvif_is_invariant_and_does_not_fail():
-    from patsy import dmatrix
     from plumbrule.diagnostics.checks import collinearity_by_predictor
     d = curved_market(n=800, seed=6)
     a = analyze(d, response="Price", predictors="Living area,Age", log_response=True, folds=0,
@@ -287,3 +288,72 @@ def test_grid_adjustment_of_a_curve_is_the_curve_difference():
     resid = pd.Series(a.fit.resid, index=a.model.data.index)
     est = v.estimates["estimate"].iloc[0]
     np.testing.assert_allclose(tot["adjusted_price"], est + resid[[2, 5]], rtol=1e-10)
+
+
+def test_condition_number_takes_a_curve_in_any_basis():
+    from plumbrule.diagnostics.checks import condition_number
+    d = curved_market(n=600, seed=13)
+    a = analyze(d, response="Price", predictors="Living area,Age", log_response=True, folds=0,
+                curves="Age=spline:4")
+    got = condition_number(a.model).statistic
+
+    def bkw(x):
+        # Belsley, Kuh and Welsch (1980): [1, X] with unit-length, uncentred columns
+        z = np.column_stack([np.ones(len(x)), x])
+        z = z / np.linalg.norm(z, axis=0)
+        sv = np.linalg.svd(z, compute_uv=False)
+        return sv[0] / sv[-1]
+
+    def orthogonal_block(x, cols):
+        # the curve's columns as an orthonormal basis of their centred span, rotated so the
+        # first column carries the block's whole mean (our definition; the figure must not
+        # depend on which basis of the curve was fitted)
+        xg = x[:, cols]
+        qc, r = np.linalg.qr(xg - xg.mean(axis=0))
+        means = (xg @ np.linalg.inv(r)).mean(axis=0)
+        u, _, _ = np.linalg.svd(means[:, None])          # u[:, 0] ∝ the mean direction
+        out = x.copy()
+        out[:, cols] = xg @ np.linalg.inv(r) @ u
+        return out
+
+    x = a.model.x
+    assert got == pytest.approx(bkw(orthogonal_block(x, [1, 2, 3])), rel=1e-8)
+    # the same from another basis of the spline's span (columns mixed by an invertible matrix)
+    mixed = x.copy()
+    mixed[:, 1:] = x[:, 1:] @ (np.eye(3) + np.random.default_rng(1).normal(0, 1, (3, 3)))
+    assert got == pytest.approx(bkw(orthogonal_block(mixed, [1, 2, 3])), rel=1e-8)
+    assert got < 30 < bkw(x)      # the raw spline columns alone would read as near-dependent
+
+
+# --- the same setting on every surface --------------------------------------------------
+
+def test_cli_option_and_json_table(tmp_path):
+    import json
+    import subprocess
+    import sys
+    d = curved_market(n=300, seed=14)
+    path = tmp_path / "sales.csv"
+    d.to_csv(path, index=False)
+    proc = subprocess.run([sys.executable, "-m", "plumbrule", "fit", str(path), "--response",
+                           "Price", "--predictors", "Living area,Age", "--log-response",
+                           "--folds", "0", "--curves", "Age=spline:4", "--json"],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    out = json.loads(proc.stdout)
+    assert list(out)[-1] == "curves"       # new tables go at the end (the JSON contract)
+    assert list(out["curves"][0]) == ["predictor", "kind", "value", "band", "reference",
+                                      "model_effect", "effect", "ci_low", "ci_high", "scale"]
+    bad = subprocess.run([sys.executable, "-m", "plumbrule", "fit", str(path), "--response",
+                          "Price", "--predictors", "Living area,Age", "--curves", "Age=spline:2"],
+                         capture_output=True, text=True, timeout=120)
+    assert bad.returncode != 0 and "curves" in bad.stderr and "3 to 7" in bad.stderr
+
+
+def test_worksheet_functions_take_the_setting():
+    from plumbrule import sheet_functions as sf
+    d = curved_market(n=200, seed=15)
+    cells = [list(d.columns)] + d.to_numpy().tolist()
+    got = sf.PLUMB_COEFS(cells, "Price", "Living area,Age",
+                         [["log_response", True], ["curves", "Age=square"]])
+    terms = [row[0] for row in got[1:]]
+    assert terms == ["intercept", "Living area", "Age", "Age²"]

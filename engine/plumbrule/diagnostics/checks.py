@@ -469,11 +469,16 @@ def condition_number(model: FittedModel) -> Check:
     """Belsley–Kuh–Welsch condition number of [1, X] scaled to unit column length, not
     centred — the scale of their guides (> 30 moderate to strong, > 100 serious)."""
     fit = model.fit
-    c = fit.bkw_cond_number
+    curves = bool(model.encoding.curves) and fit.has_intercept
+    c = _curve_bkw(model) if curves else fit.bkw_cond_number
+    vif = fit.vif
+    if curves:   # a curve's columns count as one predictor: its GVIF on the VIF scale
+        per = collinearity_by_predictor(model)
+        vif = (per["gvif_root"] ** 2).to_numpy()
     verdict = OK if c <= 30 else (WATCH if c <= 100 else FAILS)
     if verdict == OK:
         note = "The design is well conditioned."
-    elif fit.has_intercept and np.nanmax(fit.vif) <= VIF_WATCH:
+    elif fit.has_intercept and np.nanmax(vif) <= VIF_WATCH:
         # the predictors are distinct from each other (low VIFs): the dependence is on the
         # constant, which centring removes. plumbrule's estimates and intervals are formed
         # around the column means, so only the intercept's own figure is fragile: a watch,
@@ -487,9 +492,45 @@ def condition_number(model: FittedModel) -> Check:
     else:
         note = ("Near-dependence among the predictors: individual coefficients (and adjustments "
                 "built on them) are fragile; dropping or combining a redundant predictor helps.")
+    if curves:
+        note += (" Each curve's own columns are taken uncorrelated with each other (a change "
+                 "of their basis, which leaves the model as it is).")
     return Check("Multicollinearity: condition number", c, float("nan"),
                  "> 30 watch, > 100 fails (Belsley, Kuh and Welsch 1980: constant included, "
                  "columns scaled to unit length, not centred)", verdict, note)
+
+
+def _curve_bkw(model: FittedModel) -> float:
+    """The Belsley–Kuh–Welsch condition number after each curve's columns (x and its spline
+    terms, x², bands) are replaced by a basis of the same span whose centred columns are
+    orthonormal, all of the curve's mean carried by the first: a curve's columns move
+    together by construction, and a reparametrisation of a curve changes neither the model
+    nor its GVIF (Fox and Monette 1992), so the number should not depend on it either.
+    From the small factor T of [1, X] = [1/√n, Q]·T (see :attr:`OLSFit.bkw_cond_number`):
+    no pass over the data."""
+    from scipy.linalg import svdvals
+    fit, terms = model.fit, model.encoding.terms
+    k = fit.r.shape[0]
+    t = np.zeros((k + 1, k + 1))
+    t[0, 0] = np.sqrt(fit.n)
+    t[0, 1:] = np.sqrt(fit.n) * fit.x_means
+    t[1:, 1:] = fit.r * fit.x_norms
+    for basis in model.encoding.curves:
+        idx = [1 + j for j, u in enumerate(terms) if u.kind == "curve"
+               and u.column == basis.column]
+        _, rg = np.linalg.qr(t[1:, idx])
+        t[:, idx] = np.linalg.solve(rg.T, t[:, idx].T).T     # T_g · R_g⁻¹
+        # orthonormal bases of the centred span differ by a rotation, which would move the
+        # columns' means about; a reflection puts the whole mean on the first column, so the
+        # figure is the same from every basis of the curve
+        m = t[0, idx].copy()
+        size = float(np.linalg.norm(m))
+        v = m - size * np.eye(len(idx))[0]
+        if size > 0 and float(v @ v) > 0:
+            t[:, idx] -= np.outer(t[:, idx] @ v, v) * (2.0 / float(v @ v))
+    t /= np.sqrt(np.einsum("ij,ij->j", t, t))
+    sv = svdvals(t, check_finite=False)
+    return float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf")
 
 
 def correlated_pairs(model: FittedModel, limit: float = 0.8) -> Check:
@@ -504,6 +545,12 @@ def correlated_pairs(model: FittedModel, limit: float = 0.8) -> Check:
     iu = np.triu_indices(k, 1)
     vals = np.abs(r[iu])
     vals = np.nan_to_num(vals)
+    terms = model.encoding.terms
+    # a curve's own columns (x, its spline terms, x²) move together by construction
+    same = np.array([terms[i].kind == "curve" and terms[j].kind == "curve"
+                     and terms[i].column == terms[j].column for i, j in zip(*iu, strict=True)],
+                    dtype=bool)
+    vals[same] = 0.0
     big = np.flatnonzero(vals > limit)
     names = model.encoding.names
     if big.size == 0:

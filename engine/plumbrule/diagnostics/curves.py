@@ -19,7 +19,8 @@ TEST_KNOTS = 4       # the per-predictor test adds a 4-knot spline's two non-lin
 
 
 def curve_table(model: FittedModel) -> pd.DataFrame:
-    """One row per shown value of each curve: ``value`` (the predictor's units; for bands the
+    """One row per shown value of each curve: ``value`` (the predictor's units: the lowest
+    and highest sale value and :data:`POINTS` − 2 rounded steps between; for bands the
     band's lowest sale value), ``band`` (its label; '' for a spline or square), ``reference``
     (the value the effects are measured from: the median sale's value), ``model_effect``
     f(value) − f(reference) on the model scale, and ``effect`` with its confidence interval
@@ -55,7 +56,12 @@ def curve_table(model: FittedModel) -> pd.DataFrame:
 def _shown_values(basis: CurveBasis, x: np.ndarray) -> tuple[np.ndarray, list[str]]:
     x = x[np.isfinite(x)]
     if basis.kind != "bands":
-        return np.linspace(x.min(), x.max(), POINTS), [""] * POINTS
+        lo, hi = float(x.min()), float(x.max())
+        grid = np.linspace(lo, hi, POINTS)
+        if hi > lo:    # round steps (870, 1,040 ... not 871.4): two significant digits
+            digits = 1 - int(np.floor(np.log10((hi - lo) / (POINTS - 1))))
+            grid[1:-1] = np.round(grid[1:-1], digits)
+        return grid, [""] * POINTS
     band = np.searchsorted(np.asarray(basis.breaks), x, side="right")
     lows = np.array([x[band == i].min() for i in range(len(basis.breaks) + 1)])
     return lows, basis.band_labels
@@ -65,10 +71,11 @@ def _shown_values(basis: CurveBasis, x: np.ndarray) -> tuple[np.ndarray, list[st
 
 def straight_predictors(model: FittedModel) -> list[tuple[str, int]]:
     """(predictor, design column) of each numeric or logged predictor entered as a straight
-    line (no curve), in the spec's order."""
+    line (no curve) with more than two distinct values, in the spec's order."""
     out = []
     for j, t in enumerate(model.encoding.terms):
-        if t.kind in ("numeric", "log"):
+        # a yes/no column has no straight-line assumption to test
+        if t.kind in ("numeric", "log") and len(np.unique(model.x[:, j])) > 2:
             out.append((t.column, j))
     return out
 
@@ -119,8 +126,13 @@ def linearity_by_predictor(model: FittedModel) -> list[Check]:
                  if len(cols) > 1 else "p < 0.05")
     out = []
     fit = model.fit
+    logged = set(model.spec.log_predictors)
     for name, j in cols:
         title = f"Linearity: '{name}' as a straight line"
+        what = f"log({name})" if name in logged else f"'{name}'"
+        fix = (f"Take it out of log_predictors and try curves {name}=spline:4 instead, and "
+               "compare." if name in logged else
+               f"Try curves {name}=spline:4 (or square, or bands) and compare.")
         gain, df1 = curve_gain(model, j)
         df2 = fit.df_resid - df1
         if df1 == 0 or df2 < 1:
@@ -131,11 +143,11 @@ def linearity_by_predictor(model: FittedModel) -> list[Check]:
         p = float(fdist.sf(fstat, df1, df2))
         if p < alpha:
             verdict = WATCH
-            note = (f"'{name}' needs a curve: a spline fits its effect better than a straight "
-                    f"line. Try curves {name}=spline:4 (or square, or bands) and compare.")
+            note = (f"'{name}' needs a curve: a spline of {what} fits its effect better than "
+                    f"a straight line. {fix}")
         else:
             verdict = OK
-            note = f"A straight line describes the effect of '{name}' well enough."
+            note = f"A straight line in {what} describes the effect of '{name}' well enough."
         out.append(Check(title, fstat, p, threshold, verdict, note, float(df1), "F",
                          f"the effect of '{name}' is a straight line"))
     return out

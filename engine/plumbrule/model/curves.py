@@ -100,8 +100,8 @@ class CurveBasis:
             out = [f"={x}"]
             for j in range(k - 2):
                 a = repr(float((t[-1] - t[j]) / (t[-1] - t[-2])))
-                b = repr(float((t[-2] - t[j]) / (t[-1] - t[-2])))
-                out.append(f"=({cube(t[j])}-{cube(t[-2])}*{a}+{cube(t[-1])}*{b})/{d}")
+                c = repr(float((t[-2] - t[j]) / (t[-1] - t[-2])))
+                out.append(f"=({cube(t[j])}-{cube(t[-2])}*{a}+{cube(t[-1])}*{c})/{d}")
             return out
         b = [_num(v) for v in self.breaks]
         out = []

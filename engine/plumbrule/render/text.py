@@ -53,6 +53,9 @@ def effect_words(result) -> list[str]:
         if e.kind == "intercept" or not math.isfinite(e.effect):
             out.append("")
             continue
+        if e.kind == "curve":       # one column of a curve: read the curve table instead
+            out.append("part of a curve (see Curves)")
+            continue
         unit = (f"vs {e.reference}" if e.kind == "level" else
                 "per month" if e.kind == "trend" else "per unit")
         if e.scale == "percent":
@@ -158,6 +161,9 @@ _OTHER = {
     "ratio_study": ("Sales-ratio study", ["sample", "stratum", "n", "median_ratio", "cod", "prd",
                                           "prb", "value_slope", "median_verdict", "cod_verdict",
                                           "prd_verdict", "prb_verdict", "value_slope_verdict"]),
+    "curves": ("Curves: effect relative to the median sale's value (percent of the price for "
+               "a log model, else price)", ["predictor", "value", "band", "effect", "ci_low",
+                                            "ci_high"]),
 }
 
 

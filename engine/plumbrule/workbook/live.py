@@ -8,7 +8,9 @@ The block holds everything the formulas need as plain cells, all taken from the 
 the coefficients, the covariance matrix the engine used for its intervals (classical or
 robust), sigma, the t quantile and (log models) the retransformation factor. The design
 row is built by formulas from editable feature cells, so a colleague without Python
-changes a feature and the estimate moves. Only SUMPRODUCT, SQRT, LN, EXP, IF, MAX and
+changes a feature and the estimate moves. A curve (model/curves.py) is written out as
+the engine builds it: a restricted cubic spline as sums of truncated cubes MAX(x−t,0)^3, a
+square as x^2, bands as IF indicators. Only SUMPRODUCT, SQRT, LN, EXP, IF, MAX and
 COUNTIF are used: Excel and LibreOffice evaluate them the same way without array entry.
 ``x0'·Cov·x0`` is two SUMPRODUCT passes: a helper column ``Cov·x0`` (one SUMPRODUCT per
 term over a covariance column, which equals its row because Cov is symmetric), then
@@ -184,8 +186,9 @@ def _inputs(w: _Writer, analysis, start: _Start, lay: _Layout
             number = float(value) if not is_blank(value) else float(  # type: ignore[arg-type]
                 np.median(model.data[col].to_numpy(dtype=float)))
             w.value(r, 2, number, fmt=_number_format(model.data[col]), fill=_INPUT_FILL)
+            curve = enc.curve(col)
             w.text(r, 3, "as its logarithm (must be above 0)" if col in spec.log_predictors
-                   else "as the number")
+                   else f"as a curve: {curve.describe()}" if curve else "as the number")
         inputs[col] = _abs(r, 2)
         r += 1
     if spec.date_column:
@@ -239,7 +242,8 @@ def _terms(w: _Writer, model, inputs, level_cells, lay: _Layout) -> tuple[int, i
         row = first + i
         w.text(row, 1, name)
         w.value(row, 2, float(model.fit.coef[i]), fmt=_COEF)
-        w.formula(row, 3, _design_formula(terms.get(name), inputs, level_cells), "0.000000")
+        w.formula(row, 3, _design_formula(terms.get(name), inputs, level_cells,
+                                          model.encoding), "0.000000")
         col_letter = _letter(5 + i)
         w.formula(row, 4, f"=SUMPRODUCT(${col_letter}${first}:${col_letter}${last},{x_range})",
                   "0.00E+00")
@@ -304,9 +308,12 @@ def _results(w: _Writer, model, start: _Start, inputs, level_cells, consts, firs
 
 # --- what goes into the cells -----------------------------------------------
 
-def _design_formula(term, inputs, level_cells) -> str:
+def _design_formula(term, inputs, level_cells, encoding) -> str:
     if term is None:                     # the intercept
         return "=1"
+    if term.kind == "curve":             # truncated cubes, a square or band indicators
+        basis = encoding.curve(term.column)
+        return basis.formulas(inputs[term.column])[basis.names.index(term.name)]
     if term.kind == "numeric":
         return f"={inputs[term.column]}"
     if term.kind == "log":

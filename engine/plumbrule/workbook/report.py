@@ -123,6 +123,8 @@ def model_sentence(ctx) -> str:
                          f"'{levels[col][0]}')")
         elif col in spec.log_predictors:
             parts.append(f"{col} (as a logarithm)")
+        elif enc.curve(col) is not None:
+            parts.append(f"{col} (as a curve: {enc.curve(col).describe()})")
         else:
             parts.append(col)
     if spec.date_column:

@@ -168,6 +168,8 @@ def write_model(ws, analysis, stamp) -> None:
     define_name(book, "plumb_coef_estimates", ws.title,
                 f"{_cell(_col(coefs, 'estimate'), first)}:{_cell(_col(coefs, 'estimate'), last)}")
 
+    from plumbrule.workbook.curve_tables import write_curves
+    r = write_curves(ws, r, analysis)
     _, r = _table(ws, r, "Checks of the model's assumptions", t.checks,
                   explain="verdict: ok / watch / fails against the threshold shown; the note says "
                           "what it means for a valuation.")
