@@ -77,7 +77,7 @@ def write_live_block(ws, analysis, valuation, anchor_row: int) -> int:
     Creates the workbook defined names plumb_live_estimate, plumb_live_pi_low and
     plumb_live_pi_high (price units) pointing at the block's result cells.
     """
-    basis = analysis.model.encoding.trend
+    basis = analysis.final_model.encoding.trend
     if basis is not None:
         # Native formulas for piecewise and period trends are not written yet: a block whose
         # figures disagree with the engine's would mislead, so it says so instead.
@@ -90,9 +90,9 @@ def write_live_block(ws, analysis, valuation, anchor_row: int) -> int:
     w = _Writer(ws)
     _heading(w, start, lay)
     inputs, level_cells = _inputs(w, analysis, start, lay)
-    consts = _constants(w, analysis.model, start, lay)
-    first, last = _terms(w, analysis.model, inputs, level_cells, lay)
-    live = _results(w, analysis.model, start, inputs, level_cells, consts, first, last, lay)
+    consts = _constants(w, analysis.final_model, start, lay)
+    first, last = _terms(w, analysis.final_model, inputs, level_cells, lay)
+    live = _results(w, analysis.final_model, start, inputs, level_cells, consts, first, last, lay)
     _define_names(ws, live)
     for col, width in (("A", 38), ("B", 16), ("C", 30)):
         ws.column_dimensions[col].width = max(ws.column_dimensions[col].width or 0, width)
@@ -102,7 +102,7 @@ def write_live_block(ws, analysis, valuation, anchor_row: int) -> int:
 # --- what the block starts from and where its parts go ------------------------
 
 def _start(analysis, valuation) -> _Start:
-    model = analysis.model
+    model = analysis.final_model
     cols = list(model.spec.predictors)
     if valuation is not None and len(valuation.subjects.data):
         settings = valuation.settings
@@ -133,15 +133,15 @@ def _start(analysis, valuation) -> _Start:
 def _layout(analysis, start: _Start, anchor: int) -> _Layout:
     """Heading, a blank row, the feature table, the results right under the inputs (a
     reader sees the value move), then the numbers they are computed from."""
-    spec = analysis.model.spec
-    n_levels = sum(1 for c in spec.predictors if c in dict(analysis.model.encoding.levels))
+    spec = analysis.final_model.spec
+    n_levels = sum(1 for c in spec.predictors if c in dict(analysis.final_model.encoding.levels))
     inputs = anchor + (2 if start.origin else 1) + 2 + 1       # heading rows, blank, header
     n_inputs = len(spec.predictors) + (2 if spec.date_column else 0)
     results = inputs + n_inputs + 1
     constants = results + 8 + n_levels + 1
     terms = constants + 1 + 3 + 1
     return _Layout(heading=anchor, inputs=inputs, results=results, constants=constants,
-                   terms=terms, end=terms + len(analysis.model.fit.names))
+                   terms=terms, end=terms + len(analysis.final_model.fit.names))
 
 
 def _heading(w: _Writer, start: _Start, lay: _Layout) -> None:
@@ -161,7 +161,7 @@ def _heading(w: _Writer, start: _Start, lay: _Layout) -> None:
 def _inputs(w: _Writer, analysis, start: _Start, lay: _Layout
             ) -> tuple[dict[str, str], dict[tuple[str, str], str]]:
     """The yellow feature cells: (column → absolute address, (column, level) → address)."""
-    model, ws = analysis.model, w.ws
+    model, ws = analysis.final_model, w.ws
     spec, enc = model.spec, model.encoding
     inputs: dict[str, str] = {}
     level_cells: dict[tuple[str, str], str] = {}

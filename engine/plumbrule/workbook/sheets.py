@@ -11,7 +11,7 @@ from typing import Any, Callable
 
 import pandas as pd
 
-from plumbrule.render.wording import CAUTION
+from plumbrule.render.wording import CAUTION, final_fit_text, validation_text
 from plumbrule.workbook.cells import (
     INTEGER,
     MONEY,
@@ -51,6 +51,8 @@ _FIT_WORDS = {
     "aic": "AIC", "bic": "BIC", "se_type": "Standard errors", "response": "Response",
     "scale": "Model scale", "r_squared_price_scale": "R² (price scale)",
     "rmse_price_scale": "RMSE (price scale)", "mae_price_scale": "MAE (price scale)",
+    "final_fit": "Final model fitted on (final_fit)",
+    "n_training": "Training sales (the model validation tests)",
 }
 _MONEY_COLUMNS = {
     "sale_price", "se_mean", "se_single", "ci_low", "ci_high", "pi_low", "pi_high", "value",
@@ -160,7 +162,7 @@ def write_model(ws, analysis, stamp) -> None:
     define_name(book, "plumb_n_used", ws.title, _cell(2, fit_top + names.index("n_used")))
 
     scale = " (model scale: log of the price)" if analysis.spec.log_response else ""
-    conf = f"{analysis.model.confidence:.0%}"
+    conf = f"{analysis.final_model.confidence:.0%}"
     first, r = _table(ws, r, "Coefficients" + scale, coefs,
                       explain=f"CI low / CI high: {conf} confidence interval of each estimate.")
     last = first + len(coefs) - 1
@@ -181,8 +183,8 @@ def write_model(ws, analysis, stamp) -> None:
 def _covariance(ws, r: int, analysis) -> int:
     """The k×k covariance matrix of the estimates (model scale), named plumb_coef_cov."""
     import numpy as np
-    names = list(analysis.model.fit.names)
-    cov = np.asarray(analysis.model.cov, dtype=float)
+    names = list(analysis.final_model.fit.names)
+    cov = np.asarray(analysis.final_model.cov, dtype=float)
     r = title(ws, r, "Covariance of the estimates (model scale)")
     r = note(ws, r, "Used by the live block on the Valuation sheet; same term order as the "
                     "coefficients.")
@@ -198,20 +200,18 @@ def _covariance(ws, r: int, analysis) -> int:
 
 
 def model_sentence(analysis) -> str:
-    """The model in one sentence."""
+    """The model in one sentence, saying which sales it was fitted on."""
     fit = analysis.tables.fit.iloc[0]
-    k = int(fit["n_params"]) - int(analysis.model.fit.has_intercept)
+    k = int(fit["n_params"]) - int(analysis.final_model.fit.has_intercept)
     resp = str(fit["response"])
     extra = []
-    if int(fit["n_holdout"]):
-        extra.append(f"{int(fit['n_holdout'])} held out for testing")
     if int(fit["n_screened"]):
         extra.append(f"{int(fit['n_screened'])} set aside by screening")
     if int(fit["n_dropped"]):
         extra.append(f"{int(fit['n_dropped'])} dropped for missing values")
     tail = f" ({'; '.join(extra)})" if extra else ""
-    return (f"{resp} explained by {k} terms, fitted by least squares on {int(fit['n_used'])} "
-            f"sales{tail}; R² = {float(fit['r_squared']):.3f}"
+    return (f"{resp} explained by {k} terms by least squares. {final_fit_text(fit)}{tail}. "
+            f"R² = {float(fit['r_squared']):.3f}"
             + (f" on the log scale ({float(fit['r_squared_price_scale']):.3f} on prices)."
                if analysis.spec.log_response else "."))
 
@@ -241,6 +241,7 @@ def write_validation(ws, analysis) -> None:
     t = analysis.tables
     book = ws.parent
     r = title(ws, 1, "Validation and the sales-ratio study")
+    r = note(ws, r, validation_text(t.fit.iloc[0]) + ".")
     r = note(ws, r, "Training and holdout figures side by side: a model that does much worse "
                     "on sales it never saw is over-fitted.") + 1
     val = t.validation
