@@ -85,18 +85,5 @@ def test_knots_setting_parses_dates_and_every():
     with pytest.raises(SettingError, match="trend_knots"):
         parse_settings(trend_knots="sometimes")
 
-
-def test_live_block_declines_a_nonlinear_trend_rather_than_show_wrong_figures():
-    # Behaviour a user relies on: the try-a-subject cells never disagree with the engine.
-    # Their native formulas cover the linear trend only, so a piecewise trend gets a note.
-    from openpyxl import Workbook
-
-    from plumbrule.workbook.live import write_live_block
-
-    a = _fit(bent_market(n=400, seed=3, noise=0.08), trend="piecewise",
-             trend_knots="2024-07-01,2025-07-01")
-    ws = Workbook().active
-    nxt = write_live_block(ws, a, None, 5)
-    assert nxt == 7
-    assert "not available with the 'piecewise' trend" in ws.cell(row=5, column=1).value
-    assert "plumb_live_estimate" not in ws.parent.defined_names
+# The live block's piecewise and period formulas: tests/workbook/test_live_formulas.py
+# (Python evaluator) and tests/workbook/test_libreoffice.py (LibreOffice recalculation).
