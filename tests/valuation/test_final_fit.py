@@ -170,3 +170,18 @@ def test_live_block_formulas_agree_with_the_valuation(both):
         got.append(ev.value(ref))
     e = v.estimates.iloc[0]
     np.testing.assert_allclose(got, [e["estimate"], e["pi_low"], e["pi_high"]], rtol=1e-12)
+
+
+def test_each_sheet_says_which_sales_its_model_used(sales, both):
+    """The Model sheet's sentence names the final fit's sales; the Validation sheet's line
+    the training sales (the counts are the engine's own: len(sales), the holdout)."""
+    from plumbrule.render.wording import validation_text
+    from plumbrule.workbook.sheets import model_sentence
+    a, t = both["all"], both["training"]
+    n, h = len(sales), len(a.holdout)
+    assert f"Model fitted on all {n:,} screened sales" in model_sentence(a)
+    assert f"the {n - h:,} training sales and the {h:,} held-out sales" in model_sentence(a)
+    assert f"Model fitted on the {n - h:,} training sales" in model_sentence(t)
+    for res in (a, t):
+        assert validation_text(res.tables.fit.iloc[0]).startswith(
+            f"Held-out accuracy of the model fitted on the {n - h:,} training sales")

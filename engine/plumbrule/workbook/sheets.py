@@ -13,6 +13,7 @@ import pandas as pd
 
 from plumbrule.render.wording import CAUTION, final_fit_text, validation_text
 from plumbrule.workbook.cells import (
+    DATE,
     INTEGER,
     MONEY,
     PERCENT,
@@ -173,11 +174,38 @@ def write_model(ws, analysis, stamp) -> None:
     _, r = _table(ws, r, "Checks of the model's assumptions", t.checks,
                   explain="verdict: ok / watch / fails against the threshold shown; the note says "
                           "what it means for a valuation.")
+    r = _market_index(ws, r, t.market_index)
     r = _covariance(ws, r, analysis)
     r = title(ws, r, "Audit stamp")
     write_pairs(ws, stamp.rows(), r)
     ws.column_dimensions["A"].width = 34
     ws.freeze_panes = None
+
+
+def _market_index(ws, r: int, index: pd.DataFrame) -> int:
+    """The market index of the fitted trend (nothing without a date column)."""
+    if index is None or not len(index):
+        return r
+    fmt: dict[str, Any] = {c: RATIO for c in ("index", "ci_low", "ci_high")}
+    fmt.update(date=DATE, sales=INTEGER, mean_residual=sig3)
+    _, r = _table(ws, r, "Market index (1.000 = prices at the valuation date)", index, fmt,
+                  explain="Prices of each month as a share of prices at the valuation date, "
+                          "read from the fitted trend, with its confidence interval; sales and "
+                          "their mean residual per month; extrapolated: past the last sale or "
+                          "before the first.")
+    return r
+
+
+def _time_adjusted(analysis) -> pd.DataFrame:
+    """Sheet row (and ID), sale price and the price carried to the valuation date, one row
+    per sale of the model that values (the residual table's order)."""
+    res = analysis.tables.residuals
+    model = analysis.final_model
+    keep = [c for c in ("row", "id") if c in res.columns]
+    out = res[keep].copy()
+    out["sale_price"] = model.data[model.spec.response].to_numpy()
+    out["time_adjusted_price"] = res["time_adjusted_price"].to_numpy()
+    return out
 
 
 def _covariance(ws, r: int, analysis) -> int:
@@ -228,10 +256,17 @@ def write_screening(ws, analysis) -> None:
     _, r = _table(ws, r, "Rows set aside", t.screen_log, empty="No rows were set aside.")
     _, r = _table(ws, r, "Rows dropped for missing values", t.dropped_rows,
                   empty="No rows had missing values in the columns used.")
-    _table(ws, r, "Category spellings merged", t.level_merges,
-           empty="Every category level has one spelling.",
-           explain="Spellings that differ only in case or spacing are one level, under the most "
-                   "frequent spelling; level_map in Settings maps others.")
+    _, r = _table(ws, r, "Category spellings merged", t.level_merges,
+                  empty="Every category level has one spelling.",
+                  explain="Spellings that differ only in case or spacing are one level, under "
+                          "the most frequent spelling; level_map in Settings maps others.")
+    if analysis.spec.date_column and "time_adjusted_price" in t.residuals:
+        frame = _time_adjusted(analysis)
+        _table(ws, r, "Sales used, priced at the valuation date", frame,
+               {**_stat_formats(frame), "sale_price": MONEY, "time_adjusted_price": MONEY},
+               explain="time adjusted price: each sale's price carried from its sale date to "
+                       "the valuation date by the fitted market trend (the market-conditions "
+                       "adjustment).")
     ws.freeze_panes = None
 
 
