@@ -1,10 +1,11 @@
 """A small evaluator for the formulas plumbrule writes into its live block.
 
 It understands exactly the subset the block uses (cell and range references on
-one sheet, + - * / ^, comparison with =, and SUMPRODUCT, SQRT, LN, EXP, IF, MAX,
-COUNTIF), following the spreadsheet semantics of those functions (SUMPRODUCT
-multiplies same-shaped ranges elementwise and sums; text compares without regard
-to case; dates are serial days since 1899-12-30). A formula outside the subset
+one sheet, + - * / ^, comparison with =, >= and <, and SUMPRODUCT, SQRT, LN, EXP, IF,
+MAX, MIN, DATE, COUNTIF), following the spreadsheet semantics of those functions
+(SUMPRODUCT multiplies same-shaped ranges elementwise and sums; text compares without
+regard to case; dates are serial days since 1899-12-30, DATE(y, m, d) the serial of that
+day). A formula outside the subset
 raises, so a new function in the block cannot slip past the tests unevaluated.
 """
 
@@ -19,7 +20,7 @@ from openpyxl.utils import column_index_from_string
 
 _RANGE = re.compile(r"\$?([A-Z]{1,3})\$?(\d+):\$?([A-Z]{1,3})\$?(\d+)")
 _CELL = re.compile(r"\$?([A-Z]{1,3})\$?(\d+)")
-_ALLOWED = {"SUMPRODUCT", "SQRT", "LN", "EXP", "IF", "MAX", "COUNTIF"}
+_ALLOWED = {"SUMPRODUCT", "SQRT", "LN", "EXP", "IF", "MAX", "MIN", "DATE", "COUNTIF"}
 _EPOCH = dt.datetime(1899, 12, 30)
 
 
@@ -63,7 +64,8 @@ class Evaluator:
         if re.search(r"(?<![<>!=])=(?!=)", py):
             raise ValueError(f"comparison outside the evaluated subset: {text}")
         env = {"_EQ": _eq, "_R": self._range, "_C": self._cell, "SUMPRODUCT": _sumproduct,
-               "SQRT": math.sqrt, "LN": math.log, "EXP": math.exp, "MAX": max,
+               "SQRT": math.sqrt, "LN": math.log, "EXP": math.exp, "MAX": max, "MIN": min,
+               "DATE": _date,
                "IF": lambda c, a, b: a if c else b, "COUNTIF": _countif}
         return eval(py, {"__builtins__": {}}, env)   # noqa: S307 - our own test formulas
 
@@ -93,6 +95,11 @@ def _countif(rng, value):
     if isinstance(value, str):
         return sum(isinstance(v, str) and v.casefold() == value.casefold() for v in flat)
     return sum(v == value for v in flat)
+
+
+def _date(year, month, day):
+    """The serial day number of a date (days since 1899-12-30, as spreadsheets count)."""
+    return float((dt.datetime(int(year), int(month), int(day)) - _EPOCH).days)
 
 
 def _eq(a, b):

@@ -28,7 +28,10 @@ def test_holdout_same_seed_same_split_other_seed_differs(demo_frame):
     # 4 standard deviations (sd = sqrt(363 * 0.3 * 0.7) = 8.7)
     assert abs(len(a.holdout) - 0.3 * 363) < 4 * 8.73
     assert len(a.holdout) == a.tables.fit["n_holdout"].iloc[0]
-    assert a.tables.fit["n_used"].iloc[0] == 363 - len(a.holdout)
+    # the training model never sees the holdout; the final model (final_fit = all, the
+    # default) is refitted on every screened sale after validation
+    assert a.tables.fit["n_training"].iloc[0] == a.model.fit.n == 363 - len(a.holdout)
+    assert a.tables.fit["n_used"].iloc[0] == a.final_model.fit.n == 363
     assert not set(a.holdout.index) & set(a.model.rows)
 
 
@@ -129,7 +132,8 @@ def test_cv_predictions_match_statsmodels_refit(demo_frame):
 
 
 def test_validation_table_against_direct_formulas(demo_frame):
-    res = analyze(demo_frame, {**SIMPLE, "holdout": 0.3})
+    # final_fit = training: the fit table describes the training model the validation tests
+    res = analyze(demo_frame, {**SIMPLE, "holdout": 0.3, "final_fit": "training"})
     val = res.tables.validation.set_index("set")
     fit = res.tables.fit.iloc[0]
     # Linear model: training R², RMSE, MAE equal the fit table's (same rows, same scale).
@@ -279,7 +283,9 @@ def test_one_name_per_scale_fit_and_validation_agree_on_the_price_scale(demo_fra
     """For a log model the fit table's mape and *_price_scale figures are the validation
     table's training figures (price scale, fitted values retransformed as the estimates);
     r_squared stays the log-scale R² of the least-squares fit (statsmodels' rsquared)."""
-    res = analyze(demo_frame, {**DEMO_SETTINGS, "holdout": 0.3, "folds": 0})
+    # final_fit = training: the fit table describes the training model the validation tests
+    res = analyze(demo_frame, {**DEMO_SETTINGS, "holdout": 0.3, "folds": 0,
+                               "final_fit": "training"})
     fit = res.tables.fit.iloc[0]
     train = res.tables.validation.set_index("set").loc["training"]
     assert fit["scale"] == "log price"

@@ -86,8 +86,13 @@ class AnalysisTables:
 class Analysis:
     """The result of one run: :class:`AnalysisTables` in ``tables``.
 
-    ``model`` is fitted on the training rows (after screening); ``holdout``
-    holds the clean holdout rows it never saw (empty without a holdout).
+    ``model`` is fitted on the training rows (after screening): validation, the holdout
+    estimates and the ratio study are its, out-of-sample. ``final_model`` is the model that
+    values subjects, fills the grid and is described by the coefficient, fit, checks,
+    residual, correlation and market-index tables: with ``final_fit = all`` (the default)
+    and a holdout, refitted on every screened sale (training and holdout); otherwise the
+    training model itself. ``holdout`` holds the clean holdout rows the training model
+    never saw (empty without a holdout).
     """
 
     settings: Settings
@@ -98,14 +103,26 @@ class Analysis:
     tables: AnalysisTables
     holdout: pd.DataFrame = field(default_factory=pd.DataFrame)
     ids: pd.Series | None = None      # sheet row → sale ID, with an id_column
+    final_model: FittedModel = None   # type: ignore[assignment]  # None: the training model
+
+    def __post_init__(self) -> None:
+        if self.final_model is None:      # built without a refit: the training model values
+            object.__setattr__(self, "final_model", self.model)
 
     @property
     def encoding(self):
-        return self.model.encoding
+        """The encoding of the model that values (``final_model``)."""
+        return self.final_model.encoding
 
     @property
     def fit(self):
-        return self.model.fit
+        """The least-squares fit of the model that values (``final_model``)."""
+        return self.final_model.fit
+
+    @property
+    def refitted(self) -> bool:
+        """True when the final model was refitted on the training and holdout sales."""
+        return self.final_model is not self.model
 
 
 def as_table(source: Any, header_row: int | None = None) -> intake.SheetTable:
@@ -154,17 +171,18 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     validation, h_est, cv = _validate(model, hold, settings, sales)
     study, holdout_estimates, cv_estimates, ratio_log = _ratio_tables(
         model, hold, h_est, cv, settings, spec.ratio_by)
+    final = final_model(model, hold, settings)
 
     screen_log = pd.concat([lg for lg in (fit_log, ratio_log) if len(lg)]
                            or [screen.empty_log()], ignore_index=True)
     after = pd.concat([train, hold]).sort_index() if len(hold) else train
-    checks = run_checks(model)
+    checks = run_checks(final)
     at = next((i + 1 for i, c in enumerate(checks) if c.name.startswith("Linearity")),
               len(checks))
-    checks[at:at] = linearity_by_predictor(model)     # beside RESET: the same question
+    checks[at:at] = linearity_by_predictor(final)     # beside RESET: the same question
     checks += screen.screening_checks(fit_log, looked, settings.max_excluded_share)
-    checks += level_checks(model, sales.level_merges, settings.min_level_sales)
-    checks += trend_checks(model)
+    checks += level_checks(final, sales.level_merges, settings.min_level_sales)
+    checks += trend_checks(final)
     if sales.table.hidden_rows and not settings.skip_hidden_rows:
         checks.append(_hidden_check(len(sales.table.hidden_rows)))
     if spec.screens_price and (settings.trim_percentiles is not None
@@ -175,14 +193,16 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     ids = sales.ids
     day = valuation_day(settings)
     tables = AnalysisTables(
-        coefficients=coefficient_table(model),
-        fit=fit_table(model, n_dropped=len(clean.dropped),
-                      extra={"n_holdout": len(hold), "n_screened": len(fit_log)},
+        coefficients=coefficient_table(final),
+        fit=fit_table(final, n_dropped=len(clean.dropped),
+                      extra={"n_holdout": len(hold), "n_screened": len(fit_log),
+                             "final_fit": "all" if final is not model or not len(hold)
+                             else "training", "n_training": model.fit.n},
                       retransform=settings.retransform),
         checks=checks_table(checks),
         dropped_rows=with_ids(clean.dropped, sales.shown_ids),
-        residuals=with_ids(with_time_adjusted(residual_table(model), model, day), ids),
-        correlations=correlation_table(model),
+        residuals=with_ids(with_time_adjusted(residual_table(final), final, day), ids),
+        correlations=correlation_table(final),
         screen_log=with_ids(screen_log, sales.shown_ids),
         screen_summary=screen.summary_table(
             sales.data, after, screen_log, columns, looked, settings.iqr_fence,
@@ -192,11 +212,23 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         holdout_estimates=with_ids(holdout_estimates, ids),
         cv_estimates=with_ids(cv_estimates, ids),
         level_merges=sales.level_merges,
-        market_index=market_index(model, day),
-        curves=curve_table(model),
+        market_index=market_index(final, day),
+        curves=curve_table(final),
     )
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
-                    tables=tables, holdout=hold, ids=ids)
+                    tables=tables, holdout=hold, ids=ids, final_model=final)
+
+
+def final_model(model: FittedModel, hold: pd.DataFrame, settings: Settings) -> FittedModel:
+    """The model that values: with a holdout and ``final_fit = all``, the spec refitted on
+    the training and holdout sales (sheet-row order; the encoding, trend knots and periods
+    captured afresh from them); otherwise ``model`` itself (no refit)."""
+    if settings.final_fit != "all" or not len(hold):
+        return model
+    data = pd.concat([model.data, hold.reindex(columns=model.data.columns)]).sort_index(
+        kind="stable")
+    return fit_model(model.spec, data, robust_se=settings.robust_se,
+                     confidence=settings.confidence)
 
 
 def _screen_and_split(sales: Sales, settings: Settings):

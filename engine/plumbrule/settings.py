@@ -282,6 +282,15 @@ REGISTRY: dict[str, Setting] = {
             group="validate",
         ),
         _s(
+            "final_fit",
+            "choice",
+            "all",
+            "After validation, value subjects with the model refitted on all screened sales "
+            "(all) or keep the model of the training sales (training).",
+            group="validate",
+            choices=("all", "training"),
+        ),
+        _s(
             "seed",
             "int",
             20240601,
@@ -452,6 +461,7 @@ class Settings:
     max_excluded_share: float = 0.10
     holdout: float | None = None
     holdout_recent: bool = False
+    final_fit: str = "all"
     seed: int = 20240601
     folds: int = 5
     ratio_by: str | None = None

@@ -332,7 +332,7 @@ def validation_table(model, retransform: str, holdout: pd.DataFrame | None = Non
     est = price_estimates(fitted, spec.log_response, model.retransform_factor(retransform))
     y = model.y if spec.log_response else price        # equal arrays on the price scale
     recs = [{"set": "training", **error_figures(price, est, y, fitted),
-             "note": "in-sample: the rows the model was fitted on"}]
+             "note": "in-sample: the training rows the validated model was fitted on"}]
     if holdout is not None and len(holdout) and holdout_estimate is not None \
             and holdout_pred is not None:
         hp = holdout[spec.response].to_numpy(float)

@@ -85,18 +85,24 @@ def test_knots_setting_parses_dates_and_every():
     with pytest.raises(SettingError, match="trend_knots"):
         parse_settings(trend_knots="sometimes")
 
+# The live block's piecewise and period formulas: tests/workbook/test_live_formulas.py
+# (Python evaluator) and tests/workbook/test_libreoffice.py (LibreOffice recalculation).
 
-def test_live_block_declines_a_nonlinear_trend_rather_than_show_wrong_figures():
-    # Behaviour a user relies on: the try-a-subject cells never disagree with the engine.
-    # Their native formulas cover the linear trend only, so a piecewise trend gets a note.
-    from openpyxl import Workbook
 
-    from plumbrule.workbook.live import write_live_block
-
-    a = _fit(bent_market(n=400, seed=3, noise=0.08), trend="piecewise",
-             trend_knots="2024-07-01,2025-07-01")
-    ws = Workbook().active
-    nxt = write_live_block(ws, a, None, 5)
-    assert nxt == 7
-    assert "not available with the 'piecewise' trend" in ws.cell(row=5, column=1).value
-    assert "plumb_live_estimate" not in ws.parent.defined_names
+def test_the_demo_market_bends_and_the_check_says_so():
+    """The invented town's market rises, goes flat, then falls (demo/town.py, our own
+    numbers): the straight line the demo settings fit is caught by the trend check, and a
+    piecewise trend with knots at the turns recovers the known rates (3 standard errors)."""
+    from plumbrule.cli.demo import demo_settings
+    from plumbrule.demo.town import MARKET_RATES, demo_sales
+    sales = demo_sales()
+    settings = {k: v for k, v in demo_settings().items() if v is not None}
+    line = analyze(sales, settings).tables.checks.set_index("check")
+    assert line.loc["Trend fits the sale dates", "verdict"] == "fails"
+    bent = analyze(sales, {**settings, "trend": "piecewise",
+                           "trend_knots": "2024-07-01,2025-07-01"})
+    assert bent.tables.checks.set_index("check").loc["Trend fits the sale dates",
+                                                     "verdict"] == "ok"
+    c = bent.tables.coefficients.set_index("term")
+    rates = c.loc[c.index.str.startswith("Sale date"), ["estimate", "std_error"]].to_numpy()
+    assert np.all(np.abs(rates[:, 0] - np.array(MARKET_RATES)) < 3 * rates[:, 1])

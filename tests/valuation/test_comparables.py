@@ -223,10 +223,11 @@ def test_dropped_comp_names_the_reason():
 
 
 def test_set_aside_comp_is_kept_with_a_note(level):
-    # Contract with screening: a clean row outside Analysis.model.data was set aside.
+    # Contract with screening: a clean row outside Analysis.final_model.data (the model
+    # that values) was set aside.
     kept = level.clean.data.drop(index=[10])
     model = fit_model(level.spec, kept)
-    a = replace(level, model=model)
+    a = replace(level, model=model, final_model=model)
     v = valuate(a, SUBJECT, comps=[2, 10])
     flags = v.grid[v.grid["kind"] == "total"].set_index("comp_row")["flags"]
     assert "not used in the fit" in flags[10] and flags[2] == ""

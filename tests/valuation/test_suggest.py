@@ -64,7 +64,7 @@ def test_scores_equal_a_brute_force_from_statsmodels(demo):
     from plumbrule.valuation.suggest import candidate_sales
     sales, settings, analysis = demo
     v = valuate(analysis, demo_subjects(), (), settings.replace(suggest_comps=5))
-    data = analysis.model.data
+    data = analysis.final_model.data      # the model that values: every screened sale
     x = pd.DataFrame({"la": np.log(data["Living area"]), "lot": np.log(data["Lot size"]),
                       "age": data["Age"], "bath": data["Bathrooms"]})
     cond = pd.get_dummies(data["Condition"]).drop(columns="Average").astype(float)

@@ -79,6 +79,34 @@ def linear_book(tmp_path_factory):
     return path, run_book(path, backup=False)
 
 
+def _bent_book(tmp_path_factory, name, trend):
+    """The simulated bent market (tests/simulated_market.py, our own invention) with a
+    non-linear trend, filled into the template and run by plumbrule."""
+    from simulated_market import SETTINGS, bent_market
+    from plumbrule.workbook.fill import fill_template
+    from plumbrule.workbook.run import run_book
+    sales = bent_market(n=300, seed=4, noise=0.08)
+    subjects = pd.DataFrame({"Subject": ["Unit 4"], "Living area": [1750.0], "Age": [30.0],
+                             "Sale date": [pd.NaT]})
+    path = tmp_path_factory.mktemp(name) / f"{name}.xlsx"
+    fill_template(path, sales, subjects, (), {**SETTINGS, **trend, "id_column": "",
+                                              "categorical": "",
+                                              "valuation_date": "2026-03-01"})
+    return path, run_book(path, backup=False)
+
+
+@pytest.fixture(scope="module")
+def piecewise_book(tmp_path_factory):
+    return _bent_book(tmp_path_factory, "piecewise",
+                      {"trend": "piecewise", "trend_knots": "2024-07-01,2025-07-01"})
+
+
+@pytest.fixture(scope="module")
+def periods_book(tmp_path_factory):
+    return _bent_book(tmp_path_factory, "periods",
+                      {"trend": "periods", "trend_period": "quarter"})
+
+
 @pytest.fixture(scope="module")
 def results_copy_book(tmp_path_factory):
     """A book with a part openpyxl cannot carry (sparklines): plumbrule leaves it alone
@@ -106,7 +134,8 @@ def test_template_opens_and_converts(office, tmp_path):
         assert sheet in wb.sheetnames
 
 
-@pytest.mark.parametrize("which", ["demo_book", "linear_book", "results_copy_book"])
+@pytest.mark.parametrize("which", ["demo_book", "linear_book", "results_copy_book",
+                                   "piecewise_book", "periods_book"])
 def test_live_formulas_equal_the_engine_after_recalculation(which, office, tmp_path, request):
     path, result = request.getfixturevalue(which)
     out = office(path, "xlsx", tmp_path)
@@ -183,3 +212,28 @@ def test_libreoffice_keeps_every_report_chart(demo_book, office, tmp_path):
     before = charts(path)
     assert len(before) >= 8                     # 4 model charts + a box plot per screened column
     assert len(charts(office(path, "xlsx", tmp_path))) == len(before)
+
+
+@pytest.mark.parametrize("which", ["piecewise_book", "periods_book"])
+def test_changed_valuation_date_recalculates_to_the_engine_value(which, office, tmp_path,
+                                                                 request):
+    """A valuation date in an earlier segment / quarter: LibreOffice's MIN, MAX, DATE and
+    comparisons give the engine's value at that date (1e-9)."""
+    import datetime as dt
+    from plumbrule.valuation.estimates import valuate
+    path, result = request.getfixturevalue(which)
+    wb = openpyxl.load_workbook(path)
+    ws = wb["Valuation"]
+    cell = next(row[1] for row in ws.iter_rows(min_col=1, max_col=2)
+                if row[0].value == "Valuation date")
+    cell.value = dt.datetime(2024, 11, 20)
+    edited = tmp_path / "edited.xlsx"
+    wb.save(edited)
+    got = openpyxl.load_workbook(office(edited, "xlsx", tmp_path / "out"), data_only=True)
+    subject = result.valuation.subjects.data.drop(columns=["Sale date"], errors="ignore")
+    ref = valuate(result.analysis, subject, settings={"valuation_date": "2024-11-20"})
+    e = ref.estimates.iloc[0]
+    for live, static in PAIRS:
+        assert _named(got, live) == pytest.approx(e[static.replace("plumb_", "")], rel=1e-9)
+    assert _named(got, "plumb_live_estimate") != pytest.approx(
+        result.valuation.estimates["estimate"].iloc[0], rel=1e-6)     # the date mattered

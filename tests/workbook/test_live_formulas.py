@@ -201,3 +201,49 @@ def test_no_intercept_median_retransform_block_equals_statsmodels():
     np.testing.assert_allclose(got, want, rtol=1e-9)
     e = valuation.estimates.iloc[0]
     np.testing.assert_allclose(got, [e["estimate"], e["pi_low"], e["pi_high"]], rtol=1e-12)
+
+
+# --- piecewise and period trends (tests/simulated_market.py: a market of our own invention)
+
+def _bent(**trend):
+    from simulated_market import SETTINGS, bent_market
+    a = analyze(bent_market(n=400, seed=3, noise=0.08), {**SETTINGS, **trend,
+                                                         "valuation_date": "2026-03-01"})
+    subject = pd.DataFrame({"Subject": ["S"], "Living area": [1750.0], "Age": [30.0]})
+    return a, valuate(a, subject), subject
+
+
+@pytest.mark.parametrize("trend", [
+    {"trend": "piecewise", "trend_knots": "2024-07-01,2025-07-01"},
+    {"trend": "piecewise", "trend_knots": "every 6 months"},
+    {"trend": "periods", "trend_period": "quarter"},
+    {"trend": "periods", "trend_period": "month"},
+])
+def test_nonlinear_trend_block_equals_the_engine(trend):
+    analysis, valuation, subject = _bent(**trend)
+    wb, ws, _ = _book(analysis, valuation)
+    got = [_named(wb, n, Evaluator(ws)) for n in live.NAMES]
+    e = valuation.estimates.iloc[0]
+    np.testing.assert_allclose(got, [e["estimate"], e["pi_low"], e["pi_high"]], rtol=1e-12)
+    # statsmodels as the outside reference, on the engine's design of the subject at the date
+    model = analysis.final_model
+    x0 = model.encoding.design(subject.assign(**{"Sale date": pd.Timestamp("2026-03-01")})
+                               .set_index(pd.Index([2])), "subject row")
+    mean, lo, hi = _statsmodels_prediction(model, x0)
+    np.testing.assert_allclose(got[1:], [np.exp(lo), np.exp(hi)], rtol=1e-9)
+
+
+@pytest.mark.parametrize("trend", [
+    {"trend": "piecewise", "trend_knots": "2024-07-01,2025-07-01"},
+    {"trend": "periods", "trend_period": "quarter"},
+])
+@pytest.mark.parametrize("when", ["2023-02-10", "2024-07-01", "2024-12-31", "2025-07-15"])
+def test_nonlinear_trend_block_follows_the_valuation_date(trend, when):
+    """A valuation date in each segment or period (and on a knot): the block's cells move
+    as the engine's valuation at that date does."""
+    analysis, valuation, subject = _bent(**trend)
+    wb, ws, _ = _book(analysis, valuation)
+    _input_cell(ws, "Valuation date").value = dt.datetime.fromisoformat(when)
+    got = [_named(wb, n, Evaluator(ws)) for n in live.NAMES]
+    e = valuate(analysis, subject, settings={"valuation_date": when}).estimates.iloc[0]
+    np.testing.assert_allclose(got, [e["estimate"], e["pi_low"], e["pi_high"]], rtol=1e-12)

@@ -63,7 +63,8 @@ def test_headline_names_hold_the_engine_numbers(ran):
     for name, want in [("plumb_estimate", est["estimate"]), ("plumb_pi_low", est["pi_low"]),
                        ("plumb_pi_high", est["pi_high"])]:
         assert _value(book, name).value == pytest.approx(want, rel=1e-12), name
-    ols = sm.OLS(a.model.y, np.column_stack([np.ones(len(a.model.y)), a.model.x])).fit()
+    m = a.final_model          # the model the workbook describes (refitted on every sale)
+    ols = sm.OLS(m.y, np.column_stack([np.ones(len(m.y)), m.x])).fit()
     assert _value(book, "plumb_r_squared").value == pytest.approx(ols.rsquared, rel=1e-10)
     assert _value(book, "plumb_n_used").value == int(ols.nobs)
     study = a.tables.ratio_study.iloc[0]
@@ -396,3 +397,50 @@ def test_run_refuses_a_book_with_unreadable_cells_listing_each_and_writes_nothin
     assert len(err) == 4
     assert book.read_bytes() == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["typos.xlsx"]
+
+
+def _block(ws, heading):
+    """The rows of the table under ``heading`` (column A), header first, up to a blank row."""
+    rows = list(ws.iter_rows(values_only=True))
+    top = next(i for i, r in enumerate(rows) if r[0] == heading)
+    i = top + 1
+    while rows[i][0] is None or (isinstance(rows[i][0], str) and rows[i][1] is None):
+        i += 1                                  # the one-line explanation
+    out = []
+    while i < len(rows) and rows[i][0] is not None:
+        out.append(rows[i])
+        i += 1
+    return out
+
+
+def test_time_adjusted_prices_and_market_index_are_on_the_sheets(ran):
+    """The Screening sheet lists each sale used with its price carried to the valuation
+    date, P·exp(b·(m(v) − m(d))) for the demo's log model with a linear trend, b the trend
+    coefficient of statsmodels' OLS on the final model's design (reference library); the
+    Model sheet's market index is exp(b·(m(d) − m(v))) at the months' middle days."""
+    from openpyxl import load_workbook
+    import statsmodels.api as sm
+    from plumbrule.analysis import analyze
+    from plumbrule.cli.demo import demo_settings
+    from plumbrule.demo.town import demo_sales
+    a = analyze(demo_sales(), {k: v for k, v in demo_settings().items() if v is not None})
+    m = a.final_model
+    b = sm.OLS(m.y, sm.add_constant(m.x)).fit().params[-1]    # the trend is the last term
+    dates = pd.to_datetime(m.data["Sale date"])
+    v = pd.Timestamp(a.settings.valuation_date)
+    months = (v - dates).dt.days.to_numpy() / (365.2425 / 12)
+    want = m.data["Sale price"].to_numpy() * np.exp(b * months)
+    book = load_workbook(ran)
+    rows = _block(book["Screening"], "Sales used, priced at the valuation date")
+    head = list(rows[0])
+    got = np.array([r[head.index("time adjusted price")] for r in rows[1:]], dtype=float)
+    assert [r[head.index("sheet row")] for r in rows[1:]] == list(m.rows)
+    np.testing.assert_allclose(got, want, rtol=1e-9)
+    index = _block(book["Model"], "Market index (1.000 = prices at the valuation date)")
+    head = list(index[0])
+    last = index[-1]
+    assert last[0] == "valuation date" and last[head.index("index")] == pytest.approx(1.0)
+    first = index[1]
+    mid = pd.Timestamp(first[head.index("date")])
+    assert first[head.index("index")] == pytest.approx(
+        np.exp(b * (mid - v).days / (365.2425 / 12)), rel=1e-9)

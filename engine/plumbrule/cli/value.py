@@ -72,7 +72,7 @@ def reconciled_record(result) -> dict | None:
 
 def render_valuation(result, analysis) -> str:
     est = result.estimates
-    model = analysis.model
+    model = analysis.final_model
     lines = [f"plumbrule valuation as of {result.valuation_date.isoformat()} "
              f"({model.fit.n:,} sales in the model of {model.encoding.response_name}, "
              f"{int(100 * est['confidence'].iloc[0] + 0.5)}% intervals)", ""]

@@ -2,8 +2,12 @@
 
 Every number here is made up. The structure is a plausible hedonic market:
 price rises with living area (less than in proportion), lot size, bathrooms and
-condition, falls with age, differs by neighbourhood, and the market rises
-about 0.4 % a month over the two years of sales. A few sales are unusual on
+condition, differs by neighbourhood, and falls with age, by about 0.6 % a year at
+first and only 0.1 % a year past 55 years (old houses keep their value: depreciation
+levels off). The market bends over the three years of sales: it rises 0.8 % a month
+for 18 months, is flat for 12, then falls 0.4 % a month for the last 6, so one straight
+line over the dates does not fit it (the trend check says so; ``trend`` = piecewise with
+knots at 2024-07-01 and 2025-07-01, or periods, follows it). A few sales are unusual on
 purpose (a small hotel, a block of flats, a family transfer) so that
 screening has something to catch. The generator is seeded: the same call
 gives the same sales on every platform (NumPy's PCG64).
@@ -21,7 +25,11 @@ _HOOD_EFFECT = {"Millbank": 0.0, "Old Quay": 0.12, "Hollins Rise": 0.22,
 _HOOD_SHARE = (0.30, 0.18, 0.16, 0.22, 0.14)
 CONDITIONS = ("Poor", "Fair", "Average", "Good", "Excellent")
 _CONDITION_EFFECT = {"Poor": -0.18, "Fair": -0.08, "Average": 0.0, "Good": 0.07, "Excellent": 0.15}
-FIRST_SALE = pd.Timestamp("2024-01-03")
+FIRST_SALE = pd.Timestamp("2023-01-03")
+DAYS = 1096                       # three years of sales
+MARKET_KNOTS = (18.0, 30.0)       # months since the first sale where the market turns
+MARKET_RATES = (0.008, 0.0, -0.004)   # log price per month: rising, flat, falling
+AGE_BEND, AGE_RATES = 55.0, (-0.006, -0.001)   # log price per year of age, before / after
 COLUMNS = ["Sale ID", "Sale price", "Living area", "Lot size", "Age", "Bedrooms", "Bathrooms",
            "Condition", "Neighbourhood", "Sale date", "Notes"]
 
@@ -37,7 +45,7 @@ def demo_sales(n: int = 360, seed: int = 7) -> pd.DataFrame:
     bathrooms = np.clip(np.round(2 * (living / 900 + rng.normal(0, 0.35, n))) / 2, 1, 4.5)
     cond_p = np.array([0.05, 0.17, 0.43, 0.25, 0.10])
     condition = rng.choice(CONDITIONS, size=n, p=cond_p)
-    days = np.sort(rng.integers(0, 730, n))
+    days = np.sort(rng.integers(0, DAYS, n))
     date = FIRST_SALE + pd.to_timedelta(days, unit="D")
     months = days / (365.2425 / 12)
     log_price = (
@@ -45,10 +53,10 @@ def demo_sales(n: int = 360, seed: int = 7) -> pd.DataFrame:
         + 0.62 * np.log(living / 1650)
         + 0.11 * np.log(lot / 7200)
         + 0.045 * (bathrooms - 2)
-        - 0.0042 * age
+        + age_effect(age)
         + np.vectorize(_HOOD_EFFECT.get)(hood)
         + np.vectorize(_CONDITION_EFFECT.get)(condition)
-        + 0.004 * months
+        + market_path(months)
         + rng.normal(0, 0.085, n)
     )
     price = np.round(np.exp(log_price) / 500) * 500
@@ -73,6 +81,22 @@ def demo_sales(n: int = 360, seed: int = 7) -> pd.DataFrame:
          "Notes": "Transfer between relatives"},
     ])
     return pd.concat([frame, unusual], ignore_index=True)[COLUMNS]
+
+
+def market_path(months) -> np.ndarray:
+    """The invented market's log-price level ``months`` after the first sale (0 at the
+    first sale): a broken line through MARKET_KNOTS with MARKET_RATES."""
+    m = np.asarray(months, dtype=float)
+    a, b = MARKET_KNOTS
+    return (MARKET_RATES[0] * np.minimum(m, a) + MARKET_RATES[1] * (np.clip(m, a, b) - a)
+            + MARKET_RATES[2] * np.maximum(m - b, 0.0))
+
+
+def age_effect(age) -> np.ndarray:
+    """The invented effect of age on log price: AGE_RATES[0] a year up to AGE_BEND years,
+    AGE_RATES[1] a year beyond (depreciation that levels off)."""
+    a = np.asarray(age, dtype=float)
+    return AGE_RATES[0] * np.minimum(a, AGE_BEND) + AGE_RATES[1] * np.maximum(a - AGE_BEND, 0)
 
 
 def demo_subjects() -> pd.DataFrame:

@@ -15,7 +15,7 @@ import pandas as pd
 from plumbrule.diagnostics.tables import effect_table, typical_spread
 from plumbrule.numbers import money, p_value, readable, signed_pct
 from plumbrule.render.terminal import visible
-from plumbrule.render.wording import CAUTION
+from plumbrule.render.wording import CAUTION, final_fit_text, validation_text
 from plumbrule.verdicts import Verdict
 
 
@@ -49,7 +49,7 @@ def text_table(frame: pd.DataFrame, columns=None, headers=None, limit: int | Non
 def effect_words(result) -> list[str]:
     """Each coefficient said in words, on the price scale where it has one."""
     out = []
-    for e in effect_table(result.model).itertuples(index=False):
+    for e in effect_table(result.final_model).itertuples(index=False):
         if e.kind == "intercept" or not math.isfinite(e.effect):
             out.append("")
             continue
@@ -82,6 +82,8 @@ def _header(result) -> list[str]:
         facts.append(f"{int(fit['n_holdout']):,} held out for testing")
     facts.append(f"{int(fit['n_params'])} coefficients")
     lines.append("  " + " | ".join(facts))
+    if "n_holdout" in fit and int(fit["n_holdout"]):
+        lines.append("  " + final_fit_text(fit))
     if enc.levels:
         lines.append("  reference levels: " + "; ".join(f"{c} = {lv[0]}" for c, lv in enc.levels))
     if enc.date_origin is not None:
@@ -96,7 +98,7 @@ def _fit_block(result) -> list[str]:
     sigma = float(fit["resid_std_error"])
     if log_y:
         spread = (f"{readable(sigma)} on the log scale: a typical sale lies within about "
-                  f"{100 * typical_spread(result.model)[0]:.1f} % of the model")
+                  f"{100 * typical_spread(result.final_model)[0]:.1f} % of the model")
     else:
         spread = f"{readable(sigma)}: a typical sale lies within about this amount of the model"
     scale = " (log scale)" if log_y else ""
@@ -121,7 +123,7 @@ def _fit_block(result) -> list[str]:
 
 def _effects_block(result) -> list[str]:
     coefs = result.tables.coefficients.copy()
-    level = int(round(100 * result.model.confidence))
+    level = int(round(100 * result.final_model.confidence))
     coefs["interval"] = [f"{readable(lo)} to {readable(hi)}" for lo, hi in
                          zip(coefs["ci_low"], coefs["ci_high"], strict=False)]
     coefs["meaning"] = effect_words(result)
@@ -174,7 +176,10 @@ def _other_blocks(result) -> list[str]:
         if not len(t):
             continue
         cols = [c for c in cols if c in t.columns] or list(t.columns)
-        out += ["", title, text_table(t, cols, limit=30)]
+        out += ["", title]
+        if name == "validation":
+            out.append("  " + validation_text(result.tables.fit.iloc[0]))
+        out.append(text_table(t, cols, limit=30))
     return out
 
 

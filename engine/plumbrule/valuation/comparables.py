@@ -66,7 +66,7 @@ def resolve_comps(analysis, rows) -> CompSet | None:
         seen.add(r)
     table_rows = analysis.table.frame.index
     clean = analysis.clean
-    used = analysis.model.data.index
+    used = analysis.final_model.data.index      # the sales of the model that values
     notes = {}
     for r in rows:
         if r not in table_rows:

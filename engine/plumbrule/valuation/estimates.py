@@ -69,11 +69,12 @@ class Valuation:
 def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | None = None
             ) -> Valuation:
     """Value ``subjects`` (SheetTable, DataFrame or 2-D values with a header)
-    with ``analysis.model``; ``comps`` are sheet rows of the sales table (or
+    with ``analysis.final_model`` (refitted on every screened sale unless ``final_fit`` is
+    'training'); ``comps`` are sheet rows of the sales table (or
     taken from the settings' ``comps``). Returns a frozen :class:`Valuation`."""
     from plumbrule.valuation.comparables import GridRules, adjustment_grid, resolve_comps
     settings = _settings(analysis, settings)
-    model = analysis.model
+    model = analysis.final_model
     when = settings.valuation_date or _dt.date.today()
     subj = read_subjects(model, subjects, when)
     estimates = estimate_table(model, subj, settings, when)

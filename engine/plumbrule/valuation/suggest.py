@@ -53,9 +53,14 @@ class Suggestions:
 
 def candidate_sales(analysis) -> pd.DataFrame:
     """The sales a comparable may come from: fitted and held-out, in sheet-row order."""
-    parts = [analysis.model.data]
+    data = analysis.final_model.data
+    parts = [data]
     if analysis.holdout is not None and len(analysis.holdout):
-        parts.append(analysis.holdout.reindex(columns=analysis.model.data.columns))
+        hold = analysis.holdout[~analysis.holdout.index.isin(data.index)]   # not refitted
+        if len(hold):
+            parts.append(hold.reindex(columns=data.columns))
+    if len(parts) == 1:
+        return data
     return pd.concat(parts).sort_index(kind="stable")
 
 
@@ -88,7 +93,7 @@ def suggest(analysis, subjects, n: int, when: _dt.date, estimates: pd.DataFrame,
     (:class:`~plumbrule.valuation.estimates.Subjects`), among sales matching ``same`` (a
     column of the sales table: the subject's value) and sold at most ``months`` before
     ``when``; ``estimates`` is the estimate table (its first row is the subject's)."""
-    model = analysis.model
+    model = analysis.final_model
     spec = model.spec
     sales = candidate_sales(analysis)
     keep = np.ones(len(sales), dtype=bool)

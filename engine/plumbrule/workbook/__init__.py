@@ -36,8 +36,8 @@ Validation and Valuation are filled; then
   as workbook defined names (``ws.parent.defined_names``; use :func:`cells.define_name`).
   Coefficient cells on the Model sheet are available by defined name:
   ``plumb_coef_terms`` (term labels), ``plumb_coef_estimates`` (estimates, model scale,
-  same order as ``analysis.model.fit.names``) and ``plumb_coef_cov`` (the k×k covariance
-  matrix ``analysis.model.cov``, same order). Values are written at full precision.
+  same order as ``analysis.final_model.fit.names``) and ``plumb_coef_cov`` (the k×k covariance
+  matrix ``analysis.final_model.cov``, same order). Values are written at full precision.
 * ``report.write_report(book, analysis, valuation, stamp) -> None`` is called last and fills
   ``book["Report"]`` (already created, empty, first result sheet). Chart source data may go
   on the Report sheet itself or on a sheet named ``"Chart data"`` (listed in

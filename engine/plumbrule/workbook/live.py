@@ -8,10 +8,14 @@ The block holds everything the formulas need as plain cells, all taken from the 
 the coefficients, the covariance matrix the engine used for its intervals (classical or
 robust), sigma, the t quantile and (log models) the retransformation factor. The design
 row is built by formulas from editable feature cells, so a colleague without Python
-changes a feature and the estimate moves. A curve (model/curves.py) is written out as
-the engine builds it: a restricted cubic spline as sums of truncated cubes MAX(x−t,0)^3, a
-square as x^2, bands as IF indicators. Only SUMPRODUCT, SQRT, LN, EXP, IF, MAX and
-COUNTIF are used: Excel and LibreOffice evaluate them the same way without array entry.
+changes a feature and the estimate moves. Only SUMPRODUCT, SQRT, LN, EXP, IF, MAX, MIN,
+DATE and COUNTIF are used: Excel and LibreOffice evaluate them the same way without array
+entry. A curve (model/curves.py) is written out as the engine builds it: a restricted cubic
+spline as sums of truncated cubes MAX(x−t,0)^3, a square as x^2, bands as IF indicators. A
+piecewise trend's columns are the months spent in each segment (MIN/MAX of the months since
+the origin against the knots), a periods trend's the indicator of the period the valuation
+date falls in (comparisons with DATE(...) of each period's first day), exactly the columns
+:class:`plumbrule.model.trend.TrendBasis` gives the engine.
 ``x0'·Cov·x0`` is two SUMPRODUCT passes: a helper column ``Cov·x0`` (one SUMPRODUCT per
 term over a covariance column, which equals its row because Cov is symmetric), then
 ``SUMPRODUCT(x0, Cov·x0)``.
@@ -79,22 +83,14 @@ def write_live_block(ws, analysis, valuation, anchor_row: int) -> int:
     Creates the workbook defined names plumb_live_estimate, plumb_live_pi_low and
     plumb_live_pi_high (price units) pointing at the block's result cells.
     """
-    basis = analysis.model.encoding.trend
-    if basis is not None:
-        # Native formulas for piecewise and period trends are not written yet: a block whose
-        # figures disagree with the engine's would mislead, so it says so instead.
-        ws.cell(row=anchor_row, column=1,
-                value=(f"Try a subject: not available with the '{basis.kind}' trend yet; "
-                       "use the estimates above, or set trend = linear for the live cells."))
-        return anchor_row + 2
     start = _start(analysis, valuation)
     lay = _layout(analysis, start, anchor_row)
     w = _Writer(ws)
     _heading(w, start, lay)
     inputs, level_cells = _inputs(w, analysis, start, lay)
-    consts = _constants(w, analysis.model, start, lay)
-    first, last = _terms(w, analysis.model, inputs, level_cells, lay)
-    live = _results(w, analysis.model, start, inputs, level_cells, consts, first, last, lay)
+    consts = _constants(w, analysis.final_model, start, lay)
+    first, last = _terms(w, analysis.final_model, inputs, level_cells, lay)
+    live = _results(w, analysis.final_model, start, inputs, level_cells, consts, first, last, lay)
     _define_names(ws, live)
     for col, width in (("A", 38), ("B", 16), ("C", 30)):
         ws.column_dimensions[col].width = max(ws.column_dimensions[col].width or 0, width)
@@ -104,7 +100,7 @@ def write_live_block(ws, analysis, valuation, anchor_row: int) -> int:
 # --- what the block starts from and where its parts go ------------------------
 
 def _start(analysis, valuation) -> _Start:
-    model = analysis.model
+    model = analysis.final_model
     cols = list(model.spec.predictors)
     if valuation is not None and len(valuation.subjects.data):
         settings = valuation.settings
@@ -135,15 +131,15 @@ def _start(analysis, valuation) -> _Start:
 def _layout(analysis, start: _Start, anchor: int) -> _Layout:
     """Heading, a blank row, the feature table, the results right under the inputs (a
     reader sees the value move), then the numbers they are computed from."""
-    spec = analysis.model.spec
-    n_levels = sum(1 for c in spec.predictors if c in dict(analysis.model.encoding.levels))
+    spec = analysis.final_model.spec
+    n_levels = sum(1 for c in spec.predictors if c in dict(analysis.final_model.encoding.levels))
     inputs = anchor + (2 if start.origin else 1) + 2 + 1       # heading rows, blank, header
     n_inputs = len(spec.predictors) + (2 if spec.date_column else 0)
     results = inputs + n_inputs + 1
     constants = results + 8 + n_levels + 1
     terms = constants + 1 + 3 + 1
     return _Layout(heading=anchor, inputs=inputs, results=results, constants=constants,
-                   terms=terms, end=terms + len(analysis.model.fit.names))
+                   terms=terms, end=terms + len(analysis.final_model.fit.names))
 
 
 def _heading(w: _Writer, start: _Start, lay: _Layout) -> None:
@@ -163,7 +159,7 @@ def _heading(w: _Writer, start: _Start, lay: _Layout) -> None:
 def _inputs(w: _Writer, analysis, start: _Start, lay: _Layout
             ) -> tuple[dict[str, str], dict[tuple[str, str], str]]:
     """The yellow feature cells: (column → absolute address, (column, level) → address)."""
-    model, ws = analysis.model, w.ws
+    model, ws = analysis.final_model, w.ws
     spec, enc = model.spec, model.encoding
     inputs: dict[str, str] = {}
     level_cells: dict[tuple[str, str], str] = {}
@@ -194,7 +190,7 @@ def _inputs(w: _Writer, analysis, start: _Start, lay: _Layout
     if spec.date_column:
         w.text(r, 1, "Valuation date")
         w.value(r, 2, start.valuation_date, fmt=_DATE, fill=_INPUT_FILL)
-        w.text(r, 3, f"market trend from the earliest sale up to this date ('{spec.date_column}')")
+        w.text(r, 3, _trend_words(enc.trend, spec.date_column))
         inputs[_DATE_INPUT] = _abs(r, 2)
         w.text(r + 1, 1, "Earliest sale (trend origin)")
         w.value(r + 1, 2, enc.date_origin.to_pydatetime(), fmt=_DATE)
@@ -237,13 +233,16 @@ def _terms(w: _Writer, model, inputs, level_cells, lay: _Layout) -> tuple[int, i
     first, last = head + 1, head + k
     x_range = f"$C${first}:$C${last}"
     terms = {t.name: t for t in model.encoding.terms}
+    trend = iter(_trend_formulas(model.encoding.trend, inputs))
     cov = np.asarray(model.valuation_cov, dtype=float)   # the one the engine's intervals use
     for i, name in enumerate(names):
         row = first + i
         w.text(row, 1, name)
         w.value(row, 2, float(model.fit.coef[i]), fmt=_COEF)
-        w.formula(row, 3, _design_formula(terms.get(name), inputs, level_cells,
-                                          model.encoding), "0.000000")
+        term = terms.get(name)
+        formula = (next(trend) if term is not None and term.kind == "trend"
+                   else _design_formula(term, inputs, level_cells, model.encoding))
+        w.formula(row, 3, formula, "0.000000")
         col_letter = _letter(5 + i)
         w.formula(row, 4, f"=SUMPRODUCT(${col_letter}${first}:${col_letter}${last},{x_range})",
                   "0.00E+00")
@@ -318,9 +317,30 @@ def _design_formula(term, inputs, level_cells, encoding) -> str:
         return f"={inputs[term.column]}"
     if term.kind == "log":
         return f"=LN({inputs[term.column]})"
-    if term.kind == "level":
-        return f"=IF({inputs[term.column]}={level_cells[(term.column, term.level)]},1,0)"
-    return f"=({inputs[_DATE_INPUT]}-{inputs[_ORIGIN_INPUT]})/{DAYS_PER_MONTH!r}"
+    if term.kind != "level":
+        raise ValueError(f"the live block has no formula for a '{term.kind}' term")
+    return f"=IF({inputs[term.column]}={level_cells[(term.column, term.level)]},1,0)"
+
+
+def _trend_formulas(basis, inputs) -> list[str]:
+    """The trend terms' design formulas, in term order: months since the origin (linear),
+    or the piecewise / period columns written by :meth:`TrendBasis.formulas`."""
+    if _DATE_INPUT not in inputs:
+        return []
+    months = f"({inputs[_DATE_INPUT]}-{inputs[_ORIGIN_INPUT]})/{DAYS_PER_MONTH!r}"
+    if basis is None:
+        return [f"={months}"]
+    return basis.formulas(f"({months})", inputs[_DATE_INPUT])
+
+
+def _trend_words(basis, column: str) -> str:
+    if basis is None:
+        return f"market trend from the earliest sale up to this date ('{column}')"
+    if basis.kind == "piecewise":
+        return (f"market trend up to this date, a rate per segment between the knots "
+                f"('{column}'; beyond the last sale the last segment's rate)")
+    return (f"the level of the period this date falls in ('{column}'; after the last period "
+            "the last period's level)")
 
 
 def _number_format(col: pd.Series) -> str:

@@ -17,7 +17,7 @@ import pandas as pd
 
 from plumbrule.diagnostics.tables import effect_table, typical_spread
 from plumbrule.numbers import is_number, money
-from plumbrule.render.wording import CAUTION
+from plumbrule.render.wording import CAUTION, final_fit_text, validation_text
 from plumbrule.verdicts import FAILS, NA, OK, WATCH
 from plumbrule.workbook import cells
 from plumbrule.workbook.cells import MONEY, PERCENT, put, sig3
@@ -74,8 +74,8 @@ class _Context:
         self.analysis = analysis
         self.valuation = valuation
         self.stamp = stamp
-        self.model = analysis.model
-        self.spec = analysis.model.spec
+        self.model = analysis.final_model
+        self.spec = analysis.final_model.spec
         self.tables = analysis.tables
         self.fit = analysis.tables.fit.iloc[0]
         self.log = bool(self.spec.log_response)
@@ -140,7 +140,8 @@ def model_sentence(ctx) -> str:
               "(one residual standard error)")
     scale = "of the log price" if ctx.log else "of the price"
     return (f"{what} is explained by {joined}, fitted by least squares to {n:,} sales; the "
-            f"model accounts for {r2:.1%} of the variation {scale}, and {spread}.")
+            f"model accounts for {r2:.1%} of the variation {scale}, and {spread}. "
+            f"{final_fit_text(ctx.fit)}.")
 
 
 def _headline(ws, ctx, r) -> int:
@@ -256,7 +257,9 @@ def _set_aside_text(ctx) -> str:
     if n_dropped:
         parts.append(f"{n_dropped:,} dropped for missing values")
     if n_holdout:
-        parts.append(f"{n_holdout:,} held out to test the model")
+        refit = str(ctx.fit.get("final_fit", "all")) == "all"
+        parts.append(f"{n_holdout:,} held out to test the model"
+                     + (", then included in the final fit" if refit else ", not in the fit"))
     return "; ".join(parts) if parts else "no sale was set aside"
 
 
@@ -425,7 +428,8 @@ def _ratio_study(ws, ctx, r) -> int:
         return r + 1
     where = _sample_text(rs.iloc[0])
     if where == "holdout":
-        text = "Ratios of sales held out of the fit: the model never saw them."
+        text = ("Ratios of sales held out of the training fit: the model they test never saw "
+                f"them. {validation_text(ctx.fit)}.")
     else:
         text = ("No holdout was set aside; the ratios use cross-validated estimates (each sale "
                 "valued by a model fitted without it). A holdout of recent sales is the stricter "

@@ -11,8 +11,9 @@ from typing import Any, Callable
 
 import pandas as pd
 
-from plumbrule.render.wording import CAUTION
+from plumbrule.render.wording import CAUTION, final_fit_text, validation_text
 from plumbrule.workbook.cells import (
+    DATE,
     INTEGER,
     MONEY,
     PERCENT,
@@ -51,6 +52,8 @@ _FIT_WORDS = {
     "aic": "AIC", "bic": "BIC", "se_type": "Standard errors", "response": "Response",
     "scale": "Model scale", "r_squared_price_scale": "R² (price scale)",
     "rmse_price_scale": "RMSE (price scale)", "mae_price_scale": "MAE (price scale)",
+    "final_fit": "Final model fitted on (final_fit)",
+    "n_training": "Training sales (the model validation tests)",
 }
 _MONEY_COLUMNS = {
     "sale_price", "se_mean", "se_single", "ci_low", "ci_high", "pi_low", "pi_high", "value",
@@ -160,7 +163,7 @@ def write_model(ws, analysis, stamp) -> None:
     define_name(book, "plumb_n_used", ws.title, _cell(2, fit_top + names.index("n_used")))
 
     scale = " (model scale: log of the price)" if analysis.spec.log_response else ""
-    conf = f"{analysis.model.confidence:.0%}"
+    conf = f"{analysis.final_model.confidence:.0%}"
     first, r = _table(ws, r, "Coefficients" + scale, coefs,
                       explain=f"CI low / CI high: {conf} confidence interval of each estimate.")
     last = first + len(coefs) - 1
@@ -173,6 +176,7 @@ def write_model(ws, analysis, stamp) -> None:
     _, r = _table(ws, r, "Checks of the model's assumptions", t.checks,
                   explain="verdict: ok / watch / fails against the threshold shown; the note says "
                           "what it means for a valuation.")
+    r = _market_index(ws, r, t.market_index)
     r = _covariance(ws, r, analysis)
     r = title(ws, r, "Audit stamp")
     write_pairs(ws, stamp.rows(), r)
@@ -180,11 +184,37 @@ def write_model(ws, analysis, stamp) -> None:
     ws.freeze_panes = None
 
 
+def _market_index(ws, r: int, index: pd.DataFrame) -> int:
+    """The market index of the fitted trend (nothing without a date column)."""
+    if index is None or not len(index):
+        return r
+    fmt: dict[str, Any] = {c: RATIO for c in ("index", "ci_low", "ci_high")}
+    fmt.update(date=DATE, sales=INTEGER, mean_residual=sig3)
+    _, r = _table(ws, r, "Market index (1.000 = prices at the valuation date)", index, fmt,
+                  explain="Prices of each month as a share of prices at the valuation date, "
+                          "read from the fitted trend, with its confidence interval; sales and "
+                          "their mean residual per month; extrapolated: past the last sale or "
+                          "before the first.")
+    return r
+
+
+def _time_adjusted(analysis) -> pd.DataFrame:
+    """Sheet row (and ID), sale price and the price carried to the valuation date, one row
+    per sale of the model that values (the residual table's order)."""
+    res = analysis.tables.residuals
+    model = analysis.final_model
+    keep = [c for c in ("row", "id") if c in res.columns]
+    out = res[keep].copy()
+    out["sale_price"] = model.data[model.spec.response].to_numpy()
+    out["time_adjusted_price"] = res["time_adjusted_price"].to_numpy()
+    return out
+
+
 def _covariance(ws, r: int, analysis) -> int:
     """The k×k covariance matrix of the estimates (model scale), named plumb_coef_cov."""
     import numpy as np
-    names = list(analysis.model.fit.names)
-    cov = np.asarray(analysis.model.cov, dtype=float)
+    names = list(analysis.final_model.fit.names)
+    cov = np.asarray(analysis.final_model.cov, dtype=float)
     r = title(ws, r, "Covariance of the estimates (model scale)")
     r = note(ws, r, "Used by the live block on the Valuation sheet; same term order as the "
                     "coefficients.")
@@ -200,20 +230,18 @@ def _covariance(ws, r: int, analysis) -> int:
 
 
 def model_sentence(analysis) -> str:
-    """The model in one sentence."""
+    """The model in one sentence, saying which sales it was fitted on."""
     fit = analysis.tables.fit.iloc[0]
-    k = int(fit["n_params"]) - int(analysis.model.fit.has_intercept)
+    k = int(fit["n_params"]) - int(analysis.final_model.fit.has_intercept)
     resp = str(fit["response"])
     extra = []
-    if int(fit["n_holdout"]):
-        extra.append(f"{int(fit['n_holdout'])} held out for testing")
     if int(fit["n_screened"]):
         extra.append(f"{int(fit['n_screened'])} set aside by screening")
     if int(fit["n_dropped"]):
         extra.append(f"{int(fit['n_dropped'])} dropped for missing values")
     tail = f" ({'; '.join(extra)})" if extra else ""
-    return (f"{resp} explained by {k} terms, fitted by least squares on {int(fit['n_used'])} "
-            f"sales{tail}; R² = {float(fit['r_squared']):.3f}"
+    return (f"{resp} explained by {k} terms by least squares. {final_fit_text(fit)}{tail}. "
+            f"R² = {float(fit['r_squared']):.3f}"
             + (f" on the log scale ({float(fit['r_squared_price_scale']):.3f} on prices)."
                if analysis.spec.log_response else "."))
 
@@ -230,10 +258,17 @@ def write_screening(ws, analysis) -> None:
     _, r = _table(ws, r, "Rows set aside", t.screen_log, empty="No rows were set aside.")
     _, r = _table(ws, r, "Rows dropped for missing values", t.dropped_rows,
                   empty="No rows had missing values in the columns used.")
-    _table(ws, r, "Category spellings merged", t.level_merges,
-           empty="Every category level has one spelling.",
-           explain="Spellings that differ only in case or spacing are one level, under the most "
-                   "frequent spelling; level_map in Settings maps others.")
+    _, r = _table(ws, r, "Category spellings merged", t.level_merges,
+                  empty="Every category level has one spelling.",
+                  explain="Spellings that differ only in case or spacing are one level, under "
+                          "the most frequent spelling; level_map in Settings maps others.")
+    if analysis.spec.date_column and "time_adjusted_price" in t.residuals:
+        frame = _time_adjusted(analysis)
+        _table(ws, r, "Sales used, priced at the valuation date", frame,
+               {**_stat_formats(frame), "sale_price": MONEY, "time_adjusted_price": MONEY},
+               explain="time adjusted price: each sale's price carried from its sale date to "
+                       "the valuation date by the fitted market trend (the market-conditions "
+                       "adjustment).")
     ws.freeze_panes = None
 
 
@@ -243,6 +278,7 @@ def write_validation(ws, analysis) -> None:
     t = analysis.tables
     book = ws.parent
     r = title(ws, 1, "Validation and the sales-ratio study")
+    r = note(ws, r, validation_text(t.fit.iloc[0]) + ".")
     r = note(ws, r, "Training and holdout figures side by side: a model that does much worse "
                     "on sales it never saw is over-fitted.") + 1
     val = t.validation
