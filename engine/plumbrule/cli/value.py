@@ -9,7 +9,7 @@ import json
 import pandas as pd
 
 from plumbrule.numbers import money
-from plumbrule.render.wording import CAUTION
+from plumbrule.render.wording import CAUTION, gap_sentence, gap_warning
 
 
 def run_value(args, inputs) -> int:
@@ -117,6 +117,17 @@ def _portfolio_lines(rec) -> list[str]:
 
 
 def _grid_lines(result) -> list[str]:
+    from plumbrule.render.text import grid_text
+    step = result.settings.adjustment_rounding
+    rounding = f", adjustments rounded to {step:,.0f}" if step else ""
+    out = [f"Adjustment grid (model-derived adjustments{rounding}; net = the sum of the "
+           "adjustments shown)"] + grid_text(result.grid_table)
+    out += _reconciled_lines(result)
+    return out
+
+
+def _long_grid_lines(result) -> list[str]:
+    """The grid one comparable at a time, unrounded (the detail)."""
     g = result.grid
     out = ["Comparables, adjusted to the subject"]
     for row, block in g.groupby("comp_row", sort=False):
@@ -132,6 +143,11 @@ def _grid_lines(result) -> list[str]:
                 f"{money(tot.adjusted_price)}, weight {tot.weight:.3f}"]
         for flag in filter(None, str(tot["flags"]).split("; ")):
             out.append(f"  watch: {flag}")
+    return out + _reconciled_lines(result)
+
+
+def _reconciled_lines(result) -> list[str]:
+    out = []
     rec = result.reconciled.iloc[0]
     out += ["", f"Reconciled value {money(rec.value)} ({rec.weighting} weights); adjusted "
             f"prices {money(rec.range_low)} to {money(rec.range_high)} (spread "
@@ -139,6 +155,8 @@ def _grid_lines(result) -> list[str]:
             f"{money(rec.model_estimate)}"]
     for flag in filter(None, str(rec["flags"]).split("; ")):
         out.append(f"  watch: {flag}")
+    if gap_warning(rec):
+        out.append(f"  watch: {gap_sentence(rec)}")
     return out
 
 

@@ -56,6 +56,9 @@ class Valuation:
     bracketing: pd.DataFrame = field(default_factory=pd.DataFrame)
     # the portfolio total of two or more subjects (valuation/portfolio.py); empty otherwise
     portfolio: pd.DataFrame = field(default_factory=pd.DataFrame)
+    # the grid as appraisers read it: lines down the side, subject and comparables across,
+    # adjustments rounded to adjustment_rounding (comparables.grid_table); empty without comps
+    grid_table: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     TABLES: ClassVar[tuple[str, ...]] = ("estimates", "grid", "reconciled")   # the JSON order
 
@@ -91,15 +94,24 @@ def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | No
                         setting="comps")
     grid, reconciled = adjustment_grid(model, subj, comp_set, GridRules.from_settings(settings),
                                        when, estimates=estimates)
-    from plumbrule.sales import with_ids
+    from plumbrule.sales import with_ids, with_names
+    from plumbrule.valuation.comparables import grid_table, with_gap
     grid = with_ids(grid, analysis.ids, column="comp_row", name="comp_id")
-    extra = {} if suggested is None else {"suggestions": suggested[1], "bracketing": suggested[2]}
+    names = getattr(analysis, "names", None)
+    grid = with_names(grid, names, column="comp_row")
+    rules = GridRules.from_settings(settings)
+    reconciled = with_gap(reconciled, grid, rules.gap)        # the causes by the sales' names
+    wide = grid_table(grid, rules.rounding,
+                      subject_row=int(subj.data.index[0]) if len(subj.data) == 1 else None)
+    extra = {} if suggested is None else {"suggestions": with_names(suggested[1], names,
+                                                                    column="comp_row"),
+                                          "bracketing": suggested[2]}
     from plumbrule.valuation.portfolio import portfolio_total
     portfolio = portfolio_total(model, subj.x, estimates, settings.confidence,
                                 settings.retransform)
     return Valuation(estimates=estimates, grid=grid, reconciled=reconciled,
                      valuation_date=when, settings=settings, subjects=subj,
-                     portfolio=portfolio, **extra)
+                     portfolio=portfolio, grid_table=wide, **extra)
 
 
 def comparable_rows(analysis, comps, settings: Settings) -> list[int]:
@@ -385,6 +397,16 @@ def subject_flags(model, subj: Subjects, leverage: np.ndarray, when: _dt.date) -
                         f"among the sales used ({top:.4g}); the sales do not cover this "
                         "combination of features")
     return ["; ".join(n) for n in notes]
+
+
+def shared_flags(flags) -> tuple[list[str], list[str]]:
+    """(notes every subject carries, each subject's remaining notes '; '-joined): a caution
+    common to all subjects of a mass run is said once. With one subject nothing is shared."""
+    split = [[f for f in str(x or "").split("; ") if f] for x in flags]
+    if len(split) < 2:
+        return [], ["; ".join(n) for n in split]
+    common = [f for f in split[0] if all(f in n for n in split[1:])]
+    return common, ["; ".join(f for f in n if f not in common) for n in split]
 
 
 def _date_note(when: pd.Timestamp, first: pd.Timestamp, last: pd.Timestamp) -> str:
