@@ -76,8 +76,14 @@ def render_valuation(result, analysis) -> str:
     lines = [f"plumbrule valuation as of {result.valuation_date.isoformat()} "
              f"({model.fit.n:,} sales in the model of {model.encoding.response_name}, "
              f"{int(100 * est['confidence'].iloc[0] + 0.5)}% intervals)", ""]
-    for rec in est.itertuples(index=False):
-        lines += _subject_lines(rec)
+    from plumbrule.valuation.estimates import shared_flags
+    common, own = shared_flags(est["flags"])
+    for flag in common:        # a caution every subject carries, said once
+        lines.append(f"Every subject ({len(est):,}): {flag}")
+    if common:
+        lines.append("")
+    for rec, flags in zip(est.itertuples(index=False), own, strict=True):
+        lines += _subject_lines(rec, flags)
     if len(result.portfolio):
         lines += _portfolio_lines(result.portfolio.iloc[0])
     if not result.grid.empty:
@@ -87,7 +93,7 @@ def render_valuation(result, analysis) -> str:
     return visible("\n".join(lines))
 
 
-def _subject_lines(rec) -> list[str]:
+def _subject_lines(rec, flags: str | None = None) -> list[str]:
     out = [f"Subject {rec.subject} (subjects row {rec.row})",
            f"  estimate        {money(rec.estimate)}  ({rec.estimate_kind})",
            f"  likely mean     {money(rec.ci_low)} to {money(rec.ci_high)}"
@@ -101,7 +107,7 @@ def _subject_lines(rec) -> list[str]:
              f"; {rec.leverage_limit:.4f} leaving out sales alone in their level")
     out.append(f"  leverage        {rec.leverage:.4f} (largest among the sales "
                f"{rec.max_sales_leverage:.4f}{limit})")
-    for flag in filter(None, rec.flags.split("; ")):
+    for flag in filter(None, (rec.flags if flags is None else flags).split("; ")):
         out.append(f"  watch: {flag}")
     out.append("")
     return out

@@ -213,7 +213,9 @@ def grid_table(grid: pd.DataFrame, rounding: float, names=None, subject_row=None
     (its value; a share of the price on the net and gross lines) and
     ``comp_i_adjustment`` (money, rounded to ``rounding``; net is the sum of the rounded
     adjustments, adjusted price = sale price + net). ``names`` maps sheet row → the
-    sale's name (default: the grid's ``comp_sale``, else 'row N'). Empty (with its head columns) without comparables."""
+    sale's name (default: the grid's ``comp_sale``, else 'row N'); ``subject_row`` fills
+    the subject's sheet-row cell (blank by default: its row is on another sheet). Empty
+    (with its head columns) without comparables."""
     if grid is None or not len(grid):
         return pd.DataFrame(columns=GRID_TABLE_HEAD)
     rows = list(dict.fromkeys(grid["comp_row"].tolist()))

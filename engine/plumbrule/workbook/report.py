@@ -339,10 +339,8 @@ def _valuation(ws, ctx, r) -> int:
         put(ws, r, 1, e.get("subject"))
         for j, key in enumerate(("estimate", "pi_low", "pi_high", "ci_low", "ci_high"), start=2):
             put(ws, r, j, e.get(key), MONEY)
-        _wrapped(ws, r, 7, flags or ("see below" if common else "nothing flagged"), span=1)
-        r += 1
-    if common:
-        _wrapped(ws, r, 1, f"Every subject: {'; '.join(common)}.", span=LAST_COL)
+        _wrapped(ws, r, 7, flags or ("as every subject: see 'Before relying on the value'"
+                                     if common else "nothing flagged"), span=1)
         r += 1
     if len(est) > 50:
         r = cells.note(ws, r, f"… and {len(est) - 50} more subjects on the Valuation sheet.")
