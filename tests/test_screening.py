@@ -189,7 +189,10 @@ def test_screen_summary_box_plot_numbers(demo_frame):
 
 def test_no_screening_leaves_tables_empty_but_present(demo_frame):
     res = analyze(demo_frame, {**DEMO_SETTINGS, "folds": 0})
-    assert list(res.tables.screen_log.columns) == screen.LOG_COLUMNS
+    from plumbrule.sales import NAME_COLUMNS
+    cols = list(res.tables.screen_log.columns)
+    assert [c for c in cols if c not in NAME_COLUMNS] == screen.LOG_COLUMNS
+    assert set(NAME_COLUMNS) <= set(cols)         # each sale named, priced and dated
     assert len(res.tables.screen_log) == 0
     assert res.tables.fit["n_screened"].iloc[0] == 0
     summ = res.tables.screen_summary

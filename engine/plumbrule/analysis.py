@@ -29,7 +29,7 @@ from plumbrule.model.fitted import FittedModel, fit_model
 from plumbrule.model.retransform import price_estimates
 from plumbrule.settings import Settings, parse_settings
 from plumbrule.model.spec import ModelSpec
-from plumbrule.sales import Sales, prepare_sales, with_ids
+from plumbrule.sales import Sales, prepare_sales, sale_names, with_ids, with_names
 from plumbrule.diagnostics.tables import (
     checks_table,
     coefficient_table,
@@ -103,6 +103,8 @@ class Analysis:
     tables: AnalysisTables
     holdout: pd.DataFrame = field(default_factory=pd.DataFrame)
     ids: pd.Series | None = None      # sheet row → sale ID, with an id_column
+    # sheet row → how a reader names the sale (sale, sale_price, sale_date): sales.sale_names
+    names: pd.DataFrame | None = None
     final_model: FittedModel = None   # type: ignore[assignment]  # None: the training model
 
     def __post_init__(self) -> None:
@@ -192,6 +194,10 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         checks.append(_moved_check(moved))
     ids = sales.ids
     day = valuation_day(settings)
+    names = sale_names(table, clean.data, spec, sales.shown_ids, settings.label_column)
+
+    def named(frame, ident):
+        return with_names(with_ids(frame, ident), names)
     tables = AnalysisTables(
         coefficients=coefficient_table(final),
         fit=fit_table(final, n_dropped=len(clean.dropped),
@@ -201,22 +207,22 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
                       retransform=settings.retransform),
         checks=checks_table(checks),
         dropped_rows=with_ids(clean.dropped, sales.shown_ids),
-        residuals=with_ids(with_time_adjusted(residual_table(final), final, day), ids),
+        residuals=named(with_time_adjusted(residual_table(final), final, day), ids),
         correlations=correlation_table(final),
-        screen_log=with_ids(screen_log, sales.shown_ids),
+        screen_log=named(screen_log, sales.shown_ids),
         screen_summary=screen.summary_table(
             sales.data, after, screen_log, columns, looked, settings.iqr_fence,
             spec.logged_columns if settings.fence_scale == "model" else ()),
         validation=validation,
         ratio_study=study,
-        holdout_estimates=with_ids(holdout_estimates, ids),
-        cv_estimates=with_ids(cv_estimates, ids),
+        holdout_estimates=named(holdout_estimates, ids),
+        cv_estimates=named(cv_estimates, ids),
         level_merges=sales.level_merges,
         market_index=market_index(final, day),
         curves=curve_table(final),
     )
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
-                    tables=tables, holdout=hold, ids=ids, final_model=final)
+                    tables=tables, holdout=hold, ids=ids, final_model=final, names=names)
 
 
 def final_model(model: FittedModel, hold: pd.DataFrame, settings: Settings) -> FittedModel:

@@ -122,6 +122,62 @@ def with_ids(frame: pd.DataFrame, ids: pd.Series | None, column: str = "row",
     return out
 
 
+NAME_COLUMNS = ["sale", "sale_price", "sale_date"]
+
+
+def sale_names(table: intake.SheetTable, data: pd.DataFrame, spec, shown_ids: pd.Series | None,
+               label_column: str | None) -> pd.DataFrame:
+    """How a reader names each sale, per sheet row of the sales table (the index): ``sale``
+    is the label column's text with the ID ('3 Mill Lane (Q-2417)'), else the ID, else
+    'row N'; ``sale_price`` and ``sale_date`` are the typed cells (NaN / NaT for a row
+    intake dropped). ``label_column`` is matched to the headers here, once."""
+    rows = table.frame.index
+    names = pd.Series([f"row {r}" for r in rows], index=rows, dtype=object)
+    ids = None if shown_ids is None else shown_ids.reindex(rows)
+    if ids is not None:
+        names = ids.where(ids.notna(), names).astype(object)
+    if label_column:
+        from plumbrule.model.spec import match_column
+        col = match_column(label_column, table.columns, "label_column")
+        text = intake.to_labels(table.frame[col], col)[0]
+        labelled = text.notna()
+        both = text + " (" + ids.astype(object) + ")" if ids is not None else text
+        if ids is not None:
+            both = both.where(ids.notna(), text)
+        names = both.where(labelled, names).astype(object)
+    out = pd.DataFrame({"sale": names}, index=rows)
+    out["sale_price"] = data[spec.response].reindex(rows).astype(float) \
+        if spec.response in data else float("nan")
+    if spec.date_column and spec.date_column in data:
+        out["sale_date"] = pd.to_datetime(data[spec.date_column].reindex(rows))
+    else:
+        out["sale_date"] = pd.NaT
+    return out
+
+
+def with_names(frame: pd.DataFrame, names: pd.DataFrame | None, column: str = "row",
+               ) -> pd.DataFrame:
+    """``frame`` with each sale's name and, where the table has none, its price and date,
+    as columns at the end (``comp_sale`` … for a ``comp_row`` column); unchanged without a
+    ``column``."""
+    if names is None or column not in frame.columns:
+        return frame
+    out = frame.copy()
+    at = out[column].to_numpy()
+    prefix = "comp_" if column.startswith("comp") else ""
+    name = f"{prefix}sale"
+    if name not in out.columns:        # at the end: worksheet functions spill by position
+        shown = names["sale"].reindex(at).to_numpy(dtype=object)
+        missing = pd.isna(shown)
+        if missing.any():       # a row intake took out before typing (a totals row)
+            shown[missing] = [f"row {r}" for r in at[missing]]
+        out[name] = shown
+    for c in ("sale_price", "sale_date"):
+        if f"{prefix}{c}" not in out.columns and c not in out.columns:
+            out[f"{prefix}{c}"] = names[c].reindex(at).to_numpy()
+    return out
+
+
 def _rows_of(table: intake.SheetTable, rows: pd.Index) -> intake.SheetTable:
     from dataclasses import replace
     return replace(table, frame=table.frame.loc[rows])

@@ -323,7 +323,9 @@ def summary_table(before: pd.DataFrame, after: pd.DataFrame, log: pd.DataFrame,
     the rule examined; kind 'column': rows set aside on that column and the box-plot numbers
     before and after screening (``<stat>_before`` / ``<stat>_after``), the fence
     multiplier the box plots draw (``fence_k``: the IQR fence's, else 1.5) and the scale it
-    is drawn on (``fence_scale``: 'log' for a logged column, else 'raw').
+    is drawn on (``fence_scale``: 'log' for a logged column, else 'raw'); at the end the
+    number of distinct values before screening (``distinct_before``) and whether an IQR
+    fence rule ran (``fence_set``: without it no fence was used).
     """
     fence_k = 1.5 if fence is None else float(fence)
     fit_log = log[log["rule"] != RATIO_TRIM]
@@ -345,10 +347,13 @@ def summary_table(before: pd.DataFrame, after: pd.DataFrame, log: pd.DataFrame,
         rec.update({f"{s}_before": float(b.at[c, s]) for s in SUMMARY_STATS})
         rec.update({f"{s}_after": float(a.at[c, s]) for s in SUMMARY_STATS})
         rec.update(fence_k=fence_k, fence_scale="log" if c in logged else "raw")
+        rec.update(distinct_before=int(before[c].nunique()) if c in before else 0,
+                   fence_set=fence is not None)
         recs.append(rec)
     cols = (["kind", "item", "rows_before", "rows_after", "excluded", "share_excluded",
              "fence_k", "fence_scale"]
-            + [f"{s}_before" for s in SUMMARY_STATS] + [f"{s}_after" for s in SUMMARY_STATS])
+            + [f"{s}_before" for s in SUMMARY_STATS] + [f"{s}_after" for s in SUMMARY_STATS]
+            + ["distinct_before", "fence_set"])
     return pd.DataFrame(recs).reindex(columns=cols)
 
 

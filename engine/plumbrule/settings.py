@@ -411,6 +411,41 @@ REGISTRY: dict[str, Setting] = {
             low=0.0,
             refuse=((0.0, "0 months leaves no sale. Enter e.g. 12, or leave it blank."),),
         ),
+        _s(
+            "adjustment_rounding",
+            "float",
+            100.0,
+            "Round each grid adjustment to this many units of the price (0: no rounding); the "
+            "net adjustment is the sum of the rounded ones.",
+            group="value",
+            low=0.0,
+        ),
+        _s(
+            "reconcile_gap",
+            "float",
+            0.10,
+            "Say so when the comparables' value and the model's estimate differ by more than "
+            "this share of the estimate (or than half the prediction interval).",
+            group="value",
+            low=0.0,
+        ),
+        _s(
+            "label_column",
+            "text",
+            None,
+            "Column that names each sale for a reader (an address); shown with the ID, price "
+            "and date wherever a sale is listed.",
+            group="intake",
+        ),
+        # --- the assignment (shown at the top of the Report) ---------------------
+        _s("client", "text", None, "Who the valuation is for (shown on the Report).",
+           group="assignment"),
+        _s("intended_use", "text", None, "What the valuation is for (shown on the Report).",
+           group="assignment"),
+        _s("prepared_by", "text", None, "Who prepared it (shown on the Report).",
+           group="assignment"),
+        _s("property_rights", "text", None, "The interest valued, e.g. fee simple (shown on "
+           "the Report). The effective date is valuation_date.", group="assignment"),
         # --- the offline workbook ------------------------------------------------
         _s(
             "backup",
@@ -478,6 +513,13 @@ class Settings:
     comp_same: str | None = None
     comp_months: float | None = None
     backup: bool = True
+    adjustment_rounding: float = 100.0
+    reconcile_gap: float = 0.10
+    label_column: str | None = None
+    client: str | None = None
+    intended_use: str | None = None
+    prepared_by: str | None = None
+    property_rights: str | None = None
     extra: tuple = field(default=(), compare=False, repr=False)
 
     def to_dict(self) -> dict[str, Any]:

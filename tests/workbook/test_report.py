@@ -133,7 +133,11 @@ def test_charts_are_native_with_the_expected_series(demo):
     assert isinstance(charts[0], ScatterChart) and isinstance(charts[3], BarChart)
     screened = analysis.tables.screen_summary
     cols = screened.loc[screened["kind"] == "column", "item"].tolist()
-    assert titles[4:] == [f"{c}: before and after screening" for c in cols]
+    # a box only where it says something: Bathrooms (9 distinct half-steps) gets none
+    # (more than 10 distinct values: a rule of thumb, common practice, no source)
+    boxed = [c for c in cols if demo_sales()[c].nunique() > 10]
+    assert "Bathrooms" in cols and "Bathrooms" not in boxed
+    assert titles[4:] == [f"{c}: before and after screening" for c in boxed]
     names = [[s.tx.v for s in c.series] for c in charts]
     assert names[0] == ["Sales used", "Holdout sales", "Estimate = price"]
     for chart in charts:
@@ -187,13 +191,27 @@ def test_box_plot_traces_pandas_five_numbers_before_and_after(demo):
     assert sorted(set(before)) == sorted(set(q))
     kept = sales.drop(index=[r - 2 for r in analysis.tables.screen_log["row"]])
     assert sorted(set(after)) == sorted(set(kept.quantile([0, 0.25, 0.5, 0.75, 1])))
-    # the fences drawn are the rule's (1.5·IQR without a fence setting) on the logarithm the
-    # model takes of living area, in square feet: numpy quartiles of log(area)
-    q1, q3 = np.percentile(np.log(sales), [25, 75])
+    # the limits drawn are the ones used (issue 14): no IQR fence ran, so none is drawn; the
+    # percentile trim ran, so its two limits are, as the screen log records them
+    log = analysis.tables.screen_log
+    hit = log[(log["rule"] == "percentile trim") & (log["column"] == "Living area")]
+    assert [s.tx.v for s in chart.series[2:]] == ["percentile trim limits"]
+    drawn = _values(wb, chart.series[2].xVal.numRef.f)
+    assert sorted(drawn) == pytest.approx(sorted(hit["limit"].unique()))
+    assert len(drawn) == 2 and drawn.min() > sales.min() and drawn.max() < sales.max()
+    assert "Before screening (363 sales)" == chart.series[0].tx.v
+
+
+def test_box_plot_draws_the_iqr_fence_when_that_rule_ran():
+    # Reference: numpy quartiles of log(area) (the model logs living area), 1.5·IQR fences
+    sales = demo_sales()
+    analysis = analyze(sales, {**DEMO_SETTINGS, "iqr_fence": 1.5})
+    wb = _write(analysis, None)
+    chart = wb["Report"]._charts[4]
+    q1, q3 = np.percentile(np.log(sales["Living area"]), [25, 75])
     fences = _values(wb, chart.series[2].xVal.numRef.f)
     assert fences[:2] == pytest.approx(np.exp([q1 - 1.5 * (q3 - q1), q3 + 1.5 * (q3 - q1)]))
     assert chart.series[2].tx.v == "1.5×IQR fences (on the logarithm)"
-    assert "Before screening (363 sales)" == chart.series[0].tx.v
 
 
 def test_large_books_plot_an_even_sample_and_say_so():
@@ -247,3 +265,113 @@ def test_a_failing_check_is_put_before_the_reader_first():
     ws = _write(analysis, None)["Report"]
     first = _find(ws, "Before relying on the value").offset(1, 0).value
     assert first.startswith("• Multicollinearity: largest VIF fails")
+
+
+# --- issue 14: the Report a client or review appraiser can read ----------------------------
+
+def test_title_names_the_job_and_the_assignment_block_shows_blank_as_blank(demo):
+    analysis, valuation, wb = demo
+    ws = wb["Report"]
+    assert ws["A1"].value == "Valuation of 14 Lantern Row, effective 15 January 2026"
+    labels = {ws.cell(r, 1).value: ws.cell(r, 2).value for r in range(2, 12)}
+    assert labels["Effective date"] == "15 January 2026"
+    for blank in ("Client", "Intended use", "Prepared by", "Property rights"):
+        assert labels[blank] in (None, "")
+    a2 = analyze(demo_sales(), {**SETTINGS, "client": "Quillford Building Society",
+                                "property_rights": "Fee simple"})
+    ws2 = _write(a2, valuate(a2, demo_subjects()))["Report"]
+    got = {ws2.cell(r, 1).value: ws2.cell(r, 2).value for r in range(2, 12)}
+    assert got["Client"] == "Quillford Building Society"
+    assert got["Property rights"] == "Fee simple" and got["Prepared by"] in (None, "")
+
+
+def test_time_stamp_reads_in_local_time():
+    from plumbrule.workbook.stamp import readable_time
+    import datetime as dt
+    text = readable_time("2026-01-05T09:30:00+00:00")
+    local = dt.datetime(2026, 1, 5, 9, 30, tzinfo=dt.timezone.utc).astimezone()
+    assert text.startswith(f"{local.day} {local:%B %Y}, {local:%H:%M} (UTC")
+
+
+def test_set_aside_counts_only_sales_set_aside(demo):
+    analysis, _, wb = demo
+    fit = analysis.tables.fit.iloc[0]
+    stamp = make_stamp(analysis, "f00d", "test.xlsx")
+    assert stamp.rows_held_out == int(fit["n_holdout"]) > 0
+    # every sale is used, set aside (screened or dropped) or held out; holdout is not set aside
+    assert stamp.rows_set_aside == int(fit["n_screened"]) + int(fit["n_dropped"])
+    assert stamp.rows_used + stamp.rows_set_aside + stamp.rows_held_out == 363
+
+
+def test_sales_are_named_with_price_and_date_not_sheet_rows(demo):
+    analysis, _, wb = demo
+    ws = wb["Report"]
+    row = _find(ws, "Sales set aside").row
+    heads = [ws.cell(row + 2, c).value for c in range(1, 8)]
+    assert heads[:3] == ["Sale", "Sale price", "Sale date"]
+    log = analysis.tables.screen_log
+    first = ws.cell(row + 3, 1).value
+    assert first == log["sale"].iloc[0] == f"row {log['row'].iloc[0]}"   # no ID, no label
+    assert ws.cell(row + 3, 2).value == pytest.approx(log["sale_price"].iloc[0])
+    assert ws.cell(row + 3, 3).value == log["sale_date"].iloc[0].date()
+    with_ids = analyze(demo_sales(), {**SETTINGS, "id_column": "Sale ID"})
+    ws2 = _write(with_ids, None)["Report"]
+    r2 = _find(ws2, "Sales set aside").row
+    assert ws2.cell(r2 + 3, 1).value == with_ids.tables.screen_log["sale"].iloc[0]
+    assert ws2.cell(r2 + 3, 1).value.startswith("Q-")     # the demo's IDs name the sales
+    texts = _texts(ws)
+    assert not any(t == "Sheet row" for t in texts)
+    resid = _find(ws, "The sales the model misses most (largest studentized residuals): check "
+                      "each is an ordinary sale recorded correctly.").row
+    res = analysis.tables.residuals
+    top = res.loc[res["studentized_residual"].abs().idxmax()]
+    assert ws.cell(resid + 2, 1).value == top["sale"]
+    assert ws.cell(resid + 2, 2).value == pytest.approx(top["sale_price"])
+
+
+def test_thresholds_read_in_words_on_the_report(demo):
+    _, _, wb = demo
+    texts = " ".join(_texts(wb["Report"]))
+    assert "common practice, no source" not in texts
+    assert "a rule of thumb" in texts
+
+
+def test_the_grid_is_on_the_report_two_comparables_a_band(demo):
+    _, valuation, wb = demo
+    ws = wb["Report"]
+    top = _find(ws, "Adjustment grid").row
+    heads = [ws.cell(top + 2, c).value for c in range(1, 7)]
+    assert heads == ["", "Subject", "Comparable 1", "Adjustment", "Comparable 2",
+                     "Adjustment"]
+    wide = valuation.grid_table
+    lines = [ws.cell(top + 3 + i, 1).value for i in range(len(wide))]
+    assert lines == wide["line"].tolist()
+    net = top + 3 + wide["line"].tolist().index("net adjustment")
+    assert ws.cell(net, 4).value == wide.loc[wide["line"] == "net adjustment",
+                                             "comp_1_adjustment"].iloc[0]
+    assert "Comparable 3" in _texts(ws)
+
+
+def test_gap_warning_on_the_report():
+    sales = demo_sales()
+    analysis = analyze(sales, {**SETTINGS, "reconcile_gap": 0.001})
+    valuation = valuate(analysis, demo_subjects(), comps=demo_comps(sales))
+    assert bool(valuation.reconciled["gap_warning"].iloc[0])
+    texts = _texts(_write(analysis, valuation)["Report"])
+    warn = [t for t in texts if t.startswith("The two values disagree")]
+    assert len(warn) == 1 and "largest adjustments" in warn[0]
+
+
+def test_a_caution_every_subject_carries_is_said_once_in_a_mass_run():
+    sales = demo_sales()
+    analysis = analyze(sales, SETTINGS)
+    many = pd.concat([demo_subjects()] * 40, ignore_index=True)
+    many["Subject"] = [f"{i} Lantern Row" for i in range(40)]
+    valuation = valuate(analysis, many)
+    wb = _write(analysis, valuation)
+    texts = _texts(wb["Report"])
+    assert wb["Report"]["A1"].value == "Valuation of 40 properties, effective 15 January 2026"
+    note = "months after the last sale used"
+    assert sum(note in t for t in texts) == 1
+    from plumbrule.cli.value import render_valuation
+    assert render_valuation(valuation, analysis).count(note) == 1

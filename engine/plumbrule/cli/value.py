@@ -9,7 +9,7 @@ import json
 import pandas as pd
 
 from plumbrule.numbers import money
-from plumbrule.render.wording import CAUTION
+from plumbrule.render.wording import CAUTION, gap_sentence, gap_warning
 
 
 def run_value(args, inputs) -> int:
@@ -76,8 +76,14 @@ def render_valuation(result, analysis) -> str:
     lines = [f"plumbrule valuation as of {result.valuation_date.isoformat()} "
              f"({model.fit.n:,} sales in the model of {model.encoding.response_name}, "
              f"{int(100 * est['confidence'].iloc[0] + 0.5)}% intervals)", ""]
-    for rec in est.itertuples(index=False):
-        lines += _subject_lines(rec)
+    from plumbrule.valuation.estimates import shared_flags
+    common, own = shared_flags(est["flags"])
+    for flag in common:        # a caution every subject carries, said once
+        lines.append(f"Every subject ({len(est):,}): {flag}")
+    if common:
+        lines.append("")
+    for rec, flags in zip(est.itertuples(index=False), own, strict=True):
+        lines += _subject_lines(rec, flags)
     if len(result.portfolio):
         lines += _portfolio_lines(result.portfolio.iloc[0])
     if not result.grid.empty:
@@ -87,7 +93,7 @@ def render_valuation(result, analysis) -> str:
     return visible("\n".join(lines))
 
 
-def _subject_lines(rec) -> list[str]:
+def _subject_lines(rec, flags: str | None = None) -> list[str]:
     out = [f"Subject {rec.subject} (subjects row {rec.row})",
            f"  estimate        {money(rec.estimate)}  ({rec.estimate_kind})",
            f"  likely mean     {money(rec.ci_low)} to {money(rec.ci_high)}"
@@ -101,7 +107,7 @@ def _subject_lines(rec) -> list[str]:
              f"; {rec.leverage_limit:.4f} leaving out sales alone in their level")
     out.append(f"  leverage        {rec.leverage:.4f} (largest among the sales "
                f"{rec.max_sales_leverage:.4f}{limit})")
-    for flag in filter(None, rec.flags.split("; ")):
+    for flag in filter(None, (rec.flags if flags is None else flags).split("; ")):
         out.append(f"  watch: {flag}")
     out.append("")
     return out
@@ -117,6 +123,17 @@ def _portfolio_lines(rec) -> list[str]:
 
 
 def _grid_lines(result) -> list[str]:
+    from plumbrule.render.text import grid_text
+    step = result.settings.adjustment_rounding
+    rounding = f", adjustments rounded to {step:,.0f}" if step else ""
+    out = [f"Adjustment grid (model-derived adjustments{rounding}; net = the sum of the "
+           "adjustments shown)"] + grid_text(result.grid_table)
+    out += _reconciled_lines(result)
+    return out
+
+
+def _long_grid_lines(result) -> list[str]:
+    """The grid one comparable at a time, unrounded (the detail)."""
     g = result.grid
     out = ["Comparables, adjusted to the subject"]
     for row, block in g.groupby("comp_row", sort=False):
@@ -132,6 +149,11 @@ def _grid_lines(result) -> list[str]:
                 f"{money(tot.adjusted_price)}, weight {tot.weight:.3f}"]
         for flag in filter(None, str(tot["flags"]).split("; ")):
             out.append(f"  watch: {flag}")
+    return out + _reconciled_lines(result)
+
+
+def _reconciled_lines(result) -> list[str]:
+    out = []
     rec = result.reconciled.iloc[0]
     out += ["", f"Reconciled value {money(rec.value)} ({rec.weighting} weights); adjusted "
             f"prices {money(rec.range_low)} to {money(rec.range_high)} (spread "
@@ -139,6 +161,8 @@ def _grid_lines(result) -> list[str]:
             f"{money(rec.model_estimate)}"]
     for flag in filter(None, str(rec["flags"]).split("; ")):
         out.append(f"  watch: {flag}")
+    if gap_warning(rec):
+        out.append(f"  watch: {gap_sentence(rec)}")
     return out
 
 

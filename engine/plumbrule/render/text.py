@@ -213,3 +213,66 @@ def headline_text(h: dict) -> str:
         if h.get("reconciled_value") is not None:
             lines.append(f"  From the comparables    {cash(h['reconciled_value'])}")
     return visible("\n".join(lines))
+
+
+# --- the adjustment grid as appraisers read it ------------------------------------------
+
+def _grid_value(kind: str, v) -> str:
+    """One cell of a grid_table value column, by the kind of its line."""
+    if v is None or (not isinstance(v, str) and pd.isna(v)):
+        return ""
+    if isinstance(v, pd.Timestamp):
+        return v.strftime("%d %b %Y").lstrip("0")
+    if kind in ("net", "gross"):
+        return f"{100 * float(v):+.1f}%" if kind == "net" else f"{100 * float(v):.1f}%"
+    if kind == "price":
+        return money(v)
+    if kind == "weight":
+        return f"{float(v):.3f}"
+    if kind == "row":
+        return f"row {int(v)}"
+    if isinstance(v, float):
+        return f"{v:,.6g}"
+    return str(v)
+
+
+def _grid_money(kind: str, v) -> str:
+    if v is None or pd.isna(v):
+        return ""
+    if kind in ("feature", "market", "net"):
+        return "0" if float(v) == 0 else f"{float(v):+,.0f}"
+    return money(v)
+
+
+def grid_text(wide: pd.DataFrame, indent: str = "  ") -> list[str]:
+    """A valuation's ``grid_table`` as aligned lines: features down the side, the subject
+    and each comparable across (its value, then its adjustment); each comparable's notes
+    below the grid. [] without comparables."""
+    if wide is None or not len(wide) or "comp_1" not in wide.columns:
+        return []
+    n = sum(1 for c in wide.columns if c.startswith("comp_") and not c.endswith("_adjustment"))
+    heads = ["", "subject"]
+    for i in range(1, n + 1):
+        heads += [f"comparable {i}", "adjustment"]
+    body, notes = [], []
+    for rec in wide.to_dict("records"):
+        kind = rec["kind"]
+        if kind == "notes":
+            notes = [(i, rec[f"comp_{i}"]) for i in range(1, n + 1) if rec[f"comp_{i}"]]
+            continue
+        cells = [rec["line"], _grid_value(kind, rec["subject"])]
+        for i in range(1, n + 1):
+            cells += [_grid_value(kind, rec[f"comp_{i}"]),
+                      _grid_money(kind, rec[f"comp_{i}_adjustment"])]
+        body.append(cells)
+    widths = [max(len(r[j]) for r in [heads] + body) for j in range(len(heads))]
+
+    def line(vals):
+        return indent + "  ".join(v.ljust(w) if j == 0 else v.rjust(w)
+                                  for j, (v, w) in enumerate(zip(vals, widths, strict=True))
+                                  ).rstrip()
+    out = [line(heads), indent + "  ".join("-" * w for w in widths)]
+    out += [line(r) for r in body]
+    for i, text in notes:
+        out.append(f"{indent}comparable {i}: {text}")
+    return out

@@ -38,3 +38,41 @@ def validation_text(fit) -> str:
         text += (f"; the values come from the model refitted on all {n:,} screened sales "
                  "after this test (final_fit = all)")
     return text
+
+
+# Thresholds that are rules of thumb read so on the Report; their source note stays on the
+# Model sheet and in docs/methods.md.
+RULE_OF_THUMB = "a rule of thumb"
+
+
+def in_words(text: str) -> str:
+    """A threshold's text for a reader: '(common practice, no source)' and its variants said
+    as 'a rule of thumb'; the note of where a source was recalled from left to the Model
+    sheet."""
+    import re
+    text = re.sub(r"\(\s*common practice, no source\s*\)", f"({RULE_OF_THUMB})", str(text))
+    text = re.sub(r";\s*common practice, no source", f"; {RULE_OF_THUMB}", text)
+    text = text.replace("; from memory", "")
+    return text.replace("common practice, no source", RULE_OF_THUMB)
+
+
+def gap_warning(rec) -> bool:
+    """Whether a reconciled record (comparables.with_gap) says the two values disagree."""
+    v = rec.get("gap_warning") if hasattr(rec, "get") else None
+    return bool(v) and v == v
+
+
+def gap_sentence(rec) -> str:
+    """The reconciled value and the model's estimate disagree: by how much, against which
+    limit, and the comparables' largest adjustments as the likely cause."""
+    from plumbrule.numbers import money
+    gap, pct = float(rec["gap"]), float(rec["gap_pct"])
+    side = "below" if gap < 0 else "above"
+    text = (f"the comparables' value {money(rec['value'])} is {money(abs(gap))} "
+            f"({100 * abs(pct):.1f}%) {side} the model's estimate {money(rec['model_estimate'])}, "
+            f"more than the {money(rec['gap_limit'])} the settings allow (the smaller of "
+            "reconcile_gap and half the prediction interval)")
+    cause = rec.get("largest_adjustments")
+    if isinstance(cause, str) and cause:
+        text += f"; the likely cause is among the largest adjustments: {cause}"
+    return text

@@ -29,12 +29,15 @@ GRID_COLUMNS = [
     "subject", "comp_row", "feature", "kind", "subject_value", "comp_value", "difference",
     "model_difference", "coefficient", "effect", "adjustment", "adjustment_alone",
     "adjustment_pct", "sale_price", "net_adjustment", "net_pct", "gross_adjustment",
-    "gross_pct", "adjusted_price", "weight", "flags",
+    "gross_pct", "adjusted_price", "weight", "flags", "adjustment_rounded",
 ]
 RECONCILED_COLUMNS = [
     "subject", "value", "range_low", "range_high", "spread", "spread_pct", "n_comps",
     "weighting", "weights", "model_estimate", "pi_low", "pi_high", "flags",
+    "gap", "gap_pct", "gap_limit", "gap_warning", "largest_adjustments",
 ]
+# the lines of the grid as appraisers read it (grid_table), in order, with their kind
+GRID_TABLE_HEAD = ["line", "kind", "subject"]
 
 
 @dataclass(frozen=True)
@@ -124,11 +127,14 @@ class GridRules:
     weights: str = "gross"
     net_limit: float = 0.15
     gross_limit: float = 0.25
+    rounding: float = 100.0     # adjustments shown rounded to this many price units (0: none)
+    gap: float = 0.10           # reconciled vs model estimate: say so beyond this share
 
     @classmethod
     def from_settings(cls, settings) -> "GridRules":
         return cls(settings.comp_weights, settings.net_adjustment_limit,
-                   settings.gross_adjustment_limit)
+                   settings.gross_adjustment_limit, settings.adjustment_rounding,
+                   settings.reconcile_gap)
 
 
 def adjustment_grid(model, subj, comps: CompSet | None, rules: GridRules, when: _dt.date,
@@ -171,9 +177,131 @@ def adjustment_grid(model, subj, comps: CompSet | None, rules: GridRules, when: 
     grid = grid.sort_values(["_c", "_f"], kind="stable").drop(columns=["_c", "_f"])
     grid.insert(0, "subject", label)
     grid = grid.reindex(columns=GRID_COLUMNS).reset_index(drop=True)
+    grid["adjustment_rounded"] = _rounded_adjustments(grid, rules.rounding)
     reconciled = reconcile(label, comps.data.index.to_numpy(), adjusted, weights,
                            rules.weights, flags, estimates)
+    reconciled = with_gap(reconciled, grid, rules.gap)
     return grid, reconciled
+
+
+def round_to(x, step: float):
+    """``x`` rounded to the nearest multiple of ``step``, halves away from zero (as money is
+    rounded by hand); unchanged when ``step`` is 0."""
+    x = np.asarray(x, dtype=float)
+    if not step:
+        return x
+    return np.sign(x) * np.floor(np.abs(x) / step + 0.5) * step
+
+
+def _rounded_adjustments(grid: pd.DataFrame, step: float) -> np.ndarray:
+    """Each feature's adjustment rounded to ``step``; a total row gets the sum of its
+    comparable's rounded adjustments (so the net shown is the sum of the lines shown)."""
+    feat = (grid["kind"] != "total").to_numpy()
+    out = np.where(feat, round_to(grid["adjustment"].to_numpy(dtype=float), step), np.nan)
+    sums = pd.Series(out[feat]).groupby(grid.loc[feat, "comp_row"].to_numpy()).sum()
+    tot = ~feat
+    out[tot] = sums.reindex(grid.loc[tot, "comp_row"].to_numpy()).to_numpy()
+    return out
+
+
+def grid_table(grid: pd.DataFrame, rounding: float, names=None, subject_row=None) -> pd.DataFrame:
+    """The grid in the layout appraisers read: one line per item down the side (the
+    sale, its price, each feature with the market-conditions line, net and gross
+    adjustment, adjusted price, weight, notes), the subject and each comparable across.
+
+    Columns: ``line`` (words), ``kind`` (sale, row, price, feature, market, net, gross,
+    adjusted, weight, notes), ``subject``, then per comparable i = 1, 2, …: ``comp_i``
+    (its value; a share of the price on the net and gross lines) and
+    ``comp_i_adjustment`` (money, rounded to ``rounding``; net is the sum of the rounded
+    adjustments, adjusted price = sale price + net). ``names`` maps sheet row → the
+    sale's name (default: the grid's ``comp_sale``, else 'row N'); ``subject_row`` fills
+    the subject's sheet-row cell (blank by default: its row is on another sheet). Empty
+    (with its head columns) without comparables."""
+    if grid is None or not len(grid):
+        return pd.DataFrame(columns=GRID_TABLE_HEAD)
+    rows = list(dict.fromkeys(grid["comp_row"].tolist()))
+    if names is None and "comp_sale" in grid:
+        names = dict(zip(grid["comp_row"], grid["comp_sale"], strict=False))
+    feats = grid[grid["kind"] != "total"]
+    order = list(dict.fromkeys(feats["feature"].tolist()))
+    kinds = dict(zip(feats["feature"], feats["kind"], strict=False))
+    adj = (grid["adjustment_rounded"] if "adjustment_rounded" in grid
+           else pd.Series(_rounded_adjustments(grid, rounding), index=grid.index))
+    subject = grid["subject"].iloc[0]
+    lines: list[dict] = [
+        {"line": "sale", "kind": "sale", "subject": subject},
+        {"line": "sheet row", "kind": "row", "subject": subject_row},
+        {"line": "sale price", "kind": "price", "subject": None},
+    ]
+    for f in order:
+        kind = kinds[f]
+        word = "market conditions (sale date)" if kind == "market" else f
+        lines.append({"line": word, "kind": "market" if kind == "market" else "feature",
+                      "subject": feats.loc[feats["feature"] == f, "subject_value"].iloc[0]})
+    lines += [{"line": w, "kind": k, "subject": None} for w, k in (
+        ("net adjustment", "net"), ("gross adjustment", "gross"),
+        ("adjusted price", "adjusted"), ("weight", "weight"), ("notes", "notes"))]
+    out = pd.DataFrame(lines)
+    for i, r in enumerate(rows, start=1):
+        block = grid[grid["comp_row"] == r]
+        f_rows = block[block["kind"] != "total"].set_index("feature")
+        tot = block[block["kind"] == "total"].iloc[0]
+        a = adj[block.index]
+        a_feat = a[(block["kind"] != "total").to_numpy()].to_numpy(dtype=float)
+        price = float(tot["sale_price"])
+        net = float(a_feat.sum())
+        gross = float(np.abs(a_feat).sum())
+        name = names.get(r, f"row {r}") if names is not None else f"row {r}"
+        value = [name, r, price] + [f_rows.loc[f, "comp_value"] for f in order] + [
+            net / price, gross / price, None, float(tot["weight"]), tot["flags"] or ""]
+        money = [None, None, None] + list(a_feat) + [net, gross, price + net, None, None]
+        out[f"comp_{i}"] = pd.Series(value, dtype=object)
+        out[f"comp_{i}_adjustment"] = pd.Series(money, dtype=object).astype(float)
+    return out
+
+
+def largest_adjustments(grid: pd.DataFrame, names=None,
+                        n: int = 3) -> pd.DataFrame:
+    """The ``n`` largest feature adjustments (by size, money) across the comparables: one
+    row each with comp_row, comp_sale, feature, adjustment, adjustment_pct."""
+    feats = grid[grid["kind"] != "total"]
+    top = feats.reindex(feats["adjustment"].abs().sort_values(ascending=False,
+                                                               kind="stable").index).head(n)
+    out = top[["comp_row", "feature", "adjustment", "adjustment_pct"]].reset_index(drop=True)
+    if names is None and "comp_sale" in grid:
+        names = dict(zip(grid["comp_row"], grid["comp_sale"], strict=False))
+    sale = [names.get(r, f"row {r}") if names is not None else f"row {r}"
+            for r in out["comp_row"]]
+    out.insert(1, "comp_sale", sale)
+    return out
+
+
+def with_gap(reconciled: pd.DataFrame, grid: pd.DataFrame, limit: float,
+             names=None) -> pd.DataFrame:
+    """``reconciled`` with the gap between the comparables' value and the model's estimate:
+    ``gap`` (value − estimate, money), ``gap_pct`` (share of the estimate), ``gap_limit``
+    (money: the larger of half the prediction interval's width and ``limit`` × estimate... the
+    smaller one trips it: a gap beyond either is said), ``gap_warning`` and
+    ``largest_adjustments`` (the comparables' largest adjustments, the likely cause)."""
+    out = reconciled.copy()
+    if not len(out):
+        return out
+    rec = out.iloc[0]
+    est, lo, hi = (float(rec[c]) for c in ("model_estimate", "pi_low", "pi_high"))
+    value = float(rec["value"])
+    gap = value - est
+    half = (hi - lo) / 2.0
+    share_limit = limit * abs(est)
+    bound = float(np.nanmin([half, share_limit])) if np.isfinite(est) else np.nan
+    warn = bool(np.isfinite(gap) and abs(gap) > bound)
+    top = largest_adjustments(grid, names)
+    cause = "; ".join(f"{s}: {f} {a:+,.0f} ({100 * p:+.1f}%)" for s, f, a, p in zip(
+        top["comp_sale"], top["feature"], top["adjustment"], top["adjustment_pct"],
+        strict=False))
+    out["gap"], out["gap_pct"] = gap, gap / est if est else np.nan
+    out["gap_limit"], out["gap_warning"] = bound, warn
+    out["largest_adjustments"] = cause
+    return out[RECONCILED_COLUMNS]
 
 
 def _features(enc):

@@ -56,6 +56,9 @@ class Valuation:
     bracketing: pd.DataFrame = field(default_factory=pd.DataFrame)
     # the portfolio total of two or more subjects (valuation/portfolio.py); empty otherwise
     portfolio: pd.DataFrame = field(default_factory=pd.DataFrame)
+    # the grid as appraisers read it: lines down the side, subject and comparables across,
+    # adjustments rounded to adjustment_rounding (comparables.grid_table); empty without comps
+    grid_table: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     TABLES: ClassVar[tuple[str, ...]] = ("estimates", "grid", "reconciled")   # the JSON order
 
@@ -92,15 +95,23 @@ def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | No
                         setting="comps")
     grid, reconciled = adjustment_grid(model, subj, comp_set, GridRules.from_settings(settings),
                                        when, estimates=estimates)
-    from plumbrule.sales import with_ids
+    from plumbrule.sales import with_ids, with_names
+    from plumbrule.valuation.comparables import grid_table, with_gap
     grid = with_ids(grid, analysis.ids, column="comp_row", name="comp_id")
-    extra = {} if suggested is None else {"suggestions": suggested[1], "bracketing": suggested[2]}
+    names = getattr(analysis, "names", None)
+    grid = with_names(grid, names, column="comp_row")
+    rules = GridRules.from_settings(settings)
+    reconciled = with_gap(reconciled, grid, rules.gap)        # the causes by the sales' names
+    wide = grid_table(grid, rules.rounding)
+    extra = {} if suggested is None else {"suggestions": with_names(suggested[1], names,
+                                                                    column="comp_row"),
+                                          "bracketing": suggested[2]}
     from plumbrule.valuation.portfolio import portfolio_total
     portfolio = portfolio_total(model, subj.x, estimates, settings.confidence,
                                 settings.retransform)
     return Valuation(estimates=estimates, grid=grid, reconciled=reconciled,
                      valuation_date=when, settings=settings, subjects=subj,
-                     portfolio=portfolio, **extra)
+                     portfolio=portfolio, grid_table=wide, **extra)
 
 
 def comparable_rows(analysis, comps, settings: Settings) -> list[int]:
@@ -361,12 +372,9 @@ def subject_flags(model, subj: Subjects, leverage: np.ndarray, when: _dt.date) -
             notes[i].append(f"{col} {vals[i]:,.6g} is {side} in the sales used ({edge:,.6g})")
     if spec.date_column:
         first, last = sales[spec.date_column].min(), sales[spec.date_column].max()
-        note = _date_note(pd.Timestamp(when), first, last)
-        if note and model.encoding.trend is not None:
-            note = note.replace("the market trend is carried",
-                                "the trend's last segment (or period) is carried")
-            if pd.Timestamp(when) < first:
-                note = note.replace("last segment", "first segment")
+        trend = model.encoding.trend
+        note = _date_note(pd.Timestamp(when), first, last,
+                          None if trend is None else getattr(trend, "kind", "piecewise"))
         if note:
             for n in notes:
                 n.append(note)
@@ -388,14 +396,32 @@ def subject_flags(model, subj: Subjects, leverage: np.ndarray, when: _dt.date) -
     return ["; ".join(n) for n in notes]
 
 
-def _date_note(when: pd.Timestamp, first: pd.Timestamp, last: pd.Timestamp) -> str:
+def shared_flags(flags) -> tuple[list[str], list[str]]:
+    """(notes every subject carries, each subject's remaining notes '; '-joined): a caution
+    common to all subjects of a mass run is said once. With one subject nothing is shared."""
+    split = [[f for f in str(x or "").split("; ") if f] for x in flags]
+    if len(split) < 2:
+        return [], ["; ".join(n) for n in split]
+    common = [f for f in split[0] if all(f in n for n in split[1:])]
+    return common, ["; ".join(f for f in n if f not in common) for n in split]
+
+
+def _date_note(when: pd.Timestamp, first: pd.Timestamp, last: pd.Timestamp,
+               trend_kind: str | None = None) -> str:
+    """The note for a valuation date outside the sale dates ('' inside them). ``trend_kind``
+    None is the linear trend (one rate, carried on); 'piecewise' carries the rate of the
+    nearest segment, 'periods' the level of the nearest period."""
     from plumbrule.model.design import DAYS_PER_MONTH
     if when > last:
-        gap = (when - last).days / DAYS_PER_MONTH
-        return (f"valuation date {when.date()} is {gap:.1f} months after the last sale used "
-                f"({last.date()}): the market trend is carried forward")
-    if when < first:
-        gap = (first - when).days / DAYS_PER_MONTH
-        return (f"valuation date {when.date()} is {gap:.1f} months before the first sale used "
-                f"({first.date()}): the market trend is carried back")
-    return ""
+        gap, side, edge, end, way = (when - last).days / DAYS_PER_MONTH, "after", last, \
+            "last", "forward"
+    elif when < first:
+        gap, side, edge, end, way = (first - when).days / DAYS_PER_MONTH, "before", first, \
+            "first", "back"
+    else:
+        return ""
+    what = {None: "the market trend", "piecewise": f"the trend's {end} segment",
+            "periods": f"the {end} period's level"}.get(trend_kind,
+                                                        f"the trend's {end} segment (or period)")
+    return (f"valuation date {when.date()} is {gap:.1f} months {side} the {end} sale used "
+            f"({edge.date()}): {what} is carried {way}")

@@ -15,13 +15,13 @@ def write_curves(ws, r: int, analysis) -> int:
     table = analysis.tables.curves
     if table is None or not len(table):
         return r
-    enc = analysis.model.encoding
+    enc = analysis.final_model.encoding
     log = analysis.spec.log_response
     unit = "effect on price (%)" if log else "effect on price"
     fmt = "0.0" if log else MONEY
     r = title(ws, r, "Curves: effects that bend")
     r = note(ws, r, "Each curve's effect on the price relative to the median sale's value, with "
-                    f"its {analysis.model.confidence:.0%} confidence interval"
+                    f"its {analysis.final_model.confidence:.0%} confidence interval"
              + (" (percent of the price)." if log else " (price units)."))
     for pred, part in table.groupby("predictor", sort=False):
         basis = enc.curve(str(pred))

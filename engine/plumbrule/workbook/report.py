@@ -17,7 +17,8 @@ import pandas as pd
 
 from plumbrule.diagnostics.tables import effect_table, typical_spread
 from plumbrule.numbers import is_number, money
-from plumbrule.render.wording import CAUTION, final_fit_text, validation_text
+from plumbrule.render.wording import (CAUTION, final_fit_text, gap_sentence, gap_warning,
+                                      in_words, validation_text)
 from plumbrule.verdicts import FAILS, NA, OK, WATCH
 from plumbrule.workbook import cells
 from plumbrule.workbook.cells import MONEY, PERCENT, put, sig3
@@ -95,13 +96,50 @@ class _Context:
 
 # --- sections -------------------------------------------------------------------
 
+def long_date(d) -> str:
+    """5 January 2026."""
+    d = pd.Timestamp(d)
+    return f"{d.day} {d:%B %Y}"
+
+
+def report_title(ctx) -> str:
+    """A title that names the job: 'Valuation of 14 Lantern Row, effective 5 January 2026';
+    for many subjects their number; without subjects the model and its sales."""
+    if ctx.estimates is None:
+        return f"Model of {ctx.response} from {int(ctx.fit['n_used']):,} sales"
+    when = long_date(ctx.valuation.valuation_date)
+    n = len(ctx.estimates)
+    what = (str(ctx.estimates["subject"].iloc[0]) if n == 1 else f"{n:,} properties")
+    return f"Valuation of {what}, effective {when}"
+
+
+ASSIGNMENT = (("Client", "client"), ("Intended use", "intended_use"),
+              ("Effective date", "valuation_date"), ("Prepared by", "prepared_by"),
+              ("Property rights", "property_rights"))
+
+
+def _assignment(ws, ctx, r) -> int:
+    """The assignment as the Settings sheet states it; a blank setting stays blank (the
+    effective date is the valuation date the estimates are made for)."""
+    settings = ctx.valuation.settings if ctx.valuation is not None else ctx.analysis.settings
+    for label, name in ASSIGNMENT:
+        value = getattr(settings, name, None)
+        if name == "valuation_date" and ctx.valuation is not None:
+            value = ctx.valuation.valuation_date
+        put(ws, r, 1, label, style="plumb_label")
+        _wrapped(ws, r, 2, long_date(value) if name == "valuation_date" and value else value,
+                 span=LAST_COL - 1)
+        r += 1
+    return r
+
+
 def _header(ws, ctx) -> int:
-    r = cells.title(ws, 1, f"Valuation report: {ctx.response}")
-    when, src = ctx.stamp.time, ctx.stamp.source
+    r = cells.title(ws, 1, report_title(ctx))
+    when, src = ctx.stamp.local_time(), ctx.stamp.source
     put(ws, r, 1, f"Prepared by plumbrule {ctx.stamp.version}"
-                  f"{' on ' + str(when) if when else ''}{' from ' + src if src else ''}.",
+                  f"{' on ' + when if when else ''}{' from ' + src if src else ''}.",
         style="plumb_note")
-    r += 1
+    r = _assignment(ws, ctx, r + 1)
     c = _wrapped(ws, r, 1, CAUTION, span=LAST_COL)
     from openpyxl.styles import Font, PatternFill
     c.font = Font(bold=True, color="7A2E1F")
@@ -212,13 +250,23 @@ def attention_items(ctx, limit: int = 8) -> list[str]:
     if checks is not None:
         for _, c in checks.iterrows():
             if c["verdict"] == FAILS:
-                fails.append(f"{c['check']} fails: {c['note']}")
+                fails.append(f"{c['check']} fails: {in_words(c['note'])}")
             elif c["verdict"] == WATCH:
-                watch.append(f"{c['check']} (watch): {c['note']}")
+                watch.append(f"{c['check']} (watch): {in_words(c['note'])}")
     if ctx.estimates is not None:
-        for _, e in ctx.estimates.head(5).iterrows():
-            if _flags(e):
-                other.append(f"Subject {e.get('subject')}: {_flags(e)}.")
+        from plumbrule.valuation.estimates import shared_flags
+        common, own = shared_flags(ctx.estimates["flags"])
+        if common:
+            other.append(f"Every subject ({len(ctx.estimates):,}): {'; '.join(common)}.")
+        shown = 0
+        for subject, flags in zip(ctx.estimates["subject"], own, strict=False):
+            if flags and shown < 5:
+                other.append(f"Subject {subject}: {flags}.")
+                shown += 1
+        rest = sum(bool(f) for f in own) - shown
+        if rest > 0:
+            other.append(f"{rest:,} more subjects carry notes of their own: see the Valuation "
+                         "sheet.")
     rs = ctx.table("ratio_study")
     if rs is not None:
         first = rs.iloc[0]
@@ -230,7 +278,8 @@ def attention_items(ctx, limit: int = 8) -> list[str]:
     items = fails + other + watch
     if len(items) > limit:
         rest = len(items) - (limit - 1)
-        items = items[:limit - 1] + [f"… and {rest} more points under 'What the checks found'."]
+        items = items[:limit - 1] + [f"… and {rest} more points: the checks under 'What the "
+                                     "checks found', the subjects on the Valuation sheet."]
     return items
 
 
@@ -290,12 +339,14 @@ def _valuation(ws, ctx, r) -> int:
     est = ctx.estimates
     r = _heads(ws, r, ["Subject", "Estimate", "Interval low", "Interval high", "Mean low",
                        "Mean high", "What to watch"], numeric=(2, 3, 4, 5, 6))
-    for _, e in est.head(50).iterrows():
+    from plumbrule.valuation.estimates import shared_flags
+    common, own = shared_flags(est["flags"])
+    for (_, e), flags in zip(est.head(50).iterrows(), own, strict=False):
         put(ws, r, 1, e.get("subject"))
         for j, key in enumerate(("estimate", "pi_low", "pi_high", "ci_low", "ci_high"), start=2):
             put(ws, r, j, e.get(key), MONEY)
-        flags = _flags(e) or "nothing flagged"
-        _wrapped(ws, r, 7, flags, span=1)
+        _wrapped(ws, r, 7, flags or ("as every subject: see 'Before relying on the value'"
+                                     if common else "nothing flagged"), span=1)
         r += 1
     if len(est) > 50:
         r = cells.note(ws, r, f"… and {len(est) - 50} more subjects on the Valuation sheet.")
@@ -310,10 +361,36 @@ def _valuation(ws, ctx, r) -> int:
         rec = ctx.reconciled.iloc[0]
         text = (f"Sales comparison: the comparables' adjusted prices reconcile to "
                 f"{money(rec.get('value'), DASH)} (range {money(rec.get('range_low'), DASH)} to "
-                f"{money(rec.get('range_high'), DASH)}). The adjustment grid is on the Valuation "
-                "sheet.")
+                f"{money(rec.get('range_high'), DASH)}). The grid below shows the adjustments "
+                "rounded; the unrounded detail is on the Valuation sheet.")
         _wrapped(ws, r, 1, text, span=LAST_COL)
         r += 1
+        if gap_warning(rec):
+            c = _wrapped(ws, r, 1, "The two values disagree: " + gap_sentence(rec) + ".",
+                         span=LAST_COL)
+            from openpyxl.styles import Font
+            c.font = Font(bold=True, color="7A2E1F")
+            r += 1
+        r = _grid(ws, ctx, r + 1)
+    return r
+
+
+def _grid(ws, ctx, r) -> int:
+    """The adjustment grid, two comparables per band so it stays within the printed width."""
+    from plumbrule.workbook.sheets import grid_comparables, write_grid_table
+    wide = getattr(ctx.valuation, "grid_table", None)
+    if wide is None or not len(wide):
+        return r
+    r = _section(ws, r, "Adjustment grid")
+    step = ctx.valuation.settings.adjustment_rounding
+    _wrapped(ws, r, 1, "Model-derived adjustments" + (f", rounded to {step:,.0f}" if step else "")
+             + ": each turns a difference between the subject and the comparable into money. "
+             "The net adjustment is the sum of the adjustments shown; the adjusted price is the "
+             "sale price plus the net.", span=LAST_COL, style="plumb_note")
+    r += 1
+    comps = grid_comparables(wide)
+    for k in range(0, len(comps), 2):
+        r = write_grid_table(ws, r, wide, comps[k:k + 2], widths=False) + 1
     return r
 
 
@@ -343,12 +420,50 @@ def _checks(ws, ctx, r) -> int:
         vc.alignment = Alignment(horizontal="center", vertical="top")
         put(ws, r, 3, c["statistic"], sig3(c["statistic"]))
         put(ws, r, 4, c["p_value"], sig3(c["p_value"]))
-        thr = put(ws, r, 5, c["threshold"])
+        thr = put(ws, r, 5, in_words(c["threshold"]))
         thr.alignment = Alignment(horizontal="left", wrap_text=True, vertical="top", indent=2)
         ws.merge_cells(start_row=r, start_column=5, end_row=r, end_column=6)
-        _wrapped(ws, r, 7, c["note"], span=1, lines_with=(str(c["threshold"]), 30))
+        _wrapped(ws, r, 7, in_words(c["note"]), span=1,
+                 lines_with=(in_words(c["threshold"]), 30))
+        r += 1
+    r = cells.note(ws, r, "'A rule of thumb' marks a threshold of common practice with no "
+                          "published source; the Model sheet gives each threshold's source.")
+    return _largest_residuals(ws, ctx, r + 1)
+
+
+def _largest_residuals(ws, ctx, r, n: int = 5) -> int:
+    """The sales the model misses most (by studentized residual), named as a reader names
+    them."""
+    res = ctx.table("residuals")
+    if res is None or "studentized_residual" not in res.columns:
+        return r
+    top = res.reindex(res["studentized_residual"].abs().sort_values(
+        ascending=False, kind="stable").index).head(n)
+    _wrapped(ws, r, 1, "The sales the model misses most (largest studentized residuals): "
+                       "check each is an ordinary sale recorded correctly.", span=LAST_COL)
+    r += 1
+    r = _heads(ws, r, ["Sale", "Sale price", "Sale date", "Model's price", "Studentized",
+                       "", "Sheet row on Sales"], numeric=(2, 3, 4, 5))
+    fitted = _fitted_prices(ctx, top)
+    for (_, e), est in zip(top.iterrows(), fitted, strict=False):
+        put(ws, r, 1, e.get("sale", f"row {e['row']}"))
+        put(ws, r, 2, e.get("sale_price"), MONEY)
+        put(ws, r, 3, _date_or_none(e.get("sale_date")))
+        put(ws, r, 4, est, MONEY)
+        put(ws, r, 5, e.get("studentized_residual"), "+0.00;-0.00")
+        _wrapped(ws, r, 7, f"row {int(e['row'])}", span=1)
         r += 1
     return r
+
+
+def _fitted_prices(ctx, rows) -> list:
+    """The model's price for each sale in ``rows`` (the fitted prices of the sales used)."""
+    prices = pd.Series(ctx.model.fitted_prices(ctx.retransform), index=ctx.model.data.index)
+    return [prices.get(int(r)) for r in rows["row"]]
+
+
+def _date_or_none(v):
+    return None if v is None or pd.isna(v) else pd.Timestamp(v).date()
 
 
 def _screening(ws, ctx, r) -> int:
@@ -379,7 +494,7 @@ def _screening(ws, ctx, r) -> int:
                          "unusual sales aside by a rule you can defend.")
     if dropped is not None:
         sentences.append(f"{len(dropped):,} sheet rows were dropped because a used cell was "
-                         "blank or an error value; the Model sheet lists them.")
+                         "blank or an error value; the Screening sheet lists them.")
     if log is not None and summary is None:
         sentences.append(f"{len(log):,} sales were set aside; each is listed on the Screening "
                          "sheet with its rule.")
@@ -394,16 +509,18 @@ def _screening(ws, ctx, r) -> int:
     r += 1
     if log is not None:
         show = log.head(15)
-        r = _heads(ws, r, ["Sheet row", "Rule", "Column", "Value", "Limit", "", "Reason"],
-                   numeric=(4, 5))
-        from openpyxl.styles import Alignment
+        r = _heads(ws, r, ["Sale", "Sale price", "Sale date", "Rule", "Value", "Limit",
+                           "Reason"], numeric=(2, 3, 5, 6))
         for _, e in show.iterrows():
-            put(ws, r, 1, e.get("row"), "0").alignment = Alignment(horizontal="left")
-            put(ws, r, 2, e.get("rule"))
-            put(ws, r, 3, e.get("column"))
-            put(ws, r, 4, e.get("value"), _value_format(e.get("value")))
-            put(ws, r, 5, e.get("limit"), _value_format(e.get("limit")))
-            _wrapped(ws, r, 7, e.get("reason"), span=1)
+            put(ws, r, 1, e.get("sale", f"row {e.get('row')}"))
+            put(ws, r, 2, e.get("sale_price"), MONEY)
+            put(ws, r, 3, _date_or_none(e.get("sale_date")))
+            put(ws, r, 4, e.get("rule"))
+            put(ws, r, 5, e.get("value"), _value_format(e.get("value")))
+            put(ws, r, 6, e.get("limit"), _value_format(e.get("limit")))
+            row = e.get("row")
+            where = f" (Sales sheet row {int(row)})" if is_number(row) else ""
+            _wrapped(ws, r, 7, f"{e.get('reason')}{where}", span=1)
             r += 1
         if len(log) > len(show):
             r = cells.note(ws, r, f"… and {len(log) - len(show)} more on the Screening sheet.")

@@ -7,10 +7,11 @@ numbers behind every picture stay inspectable. Large books are sampled evenly
 
 Box plots: openpyxl has no box chart, so each box is drawn exactly on a
 scatter chart as one line tracing the quartile box, the median and whiskers
-from the minimum to the maximum (a five-number box plot), with the fences the IQR rule
-uses as markers (k·IQR with the rule's k, 1.5 when no fence is set; on the logarithm for a
-column the model logs, drawn back in the column's units): the same geometry in Excel and
-LibreOffice.
+from the minimum to the maximum (a five-number box plot), with the limits screening used
+as markers: the IQR rule's fences (k·IQR; on the logarithm for a column the model logs,
+drawn back in the column's units) when that rule ran, else the percentile trim's limits,
+else none. Only columns with more than a handful of distinct values get a box. The same
+geometry in Excel and LibreOffice.
 """
 
 from __future__ import annotations
@@ -22,6 +23,7 @@ import numpy as np
 from plumbrule.workbook.cells import put
 
 MAX_POINTS = 2000
+MIN_BOX_VALUES = 10     # a box plot needs more distinct values than this (a rule of thumb)
 BLUE, ORANGE, GREY, DARK, RED = "2F6690", "D98324", "8A9BA8", "1F3A4D", "B23A48"
 
 
@@ -151,6 +153,8 @@ def box_plots(book, ctx) -> list:
     if summary is None or "kind" not in summary.columns:
         return []
     rows = summary[summary["kind"] == "column"]
+    if "distinct_before" in rows.columns:     # a box of a handful of values says nothing
+        rows = rows[rows["distinct_before"].fillna(0) > MIN_BOX_VALUES]
     out = []
     for _, rec in rows.head(12).iterrows():
         chart = _box_chart(book, rec, ctx)
@@ -181,18 +185,11 @@ def _box_chart(book, rec, ctx):
         xs += list(px)
     k, on_log = rec.get("fence_k"), rec.get("fence_scale") == "log"
     fence_name = f"{float(k):g}×IQR fences{' (on the logarithm)' if on_log else ''}"
-    for tag, symbol, name in (("used", "diamond", fence_name),):
-        fx, fy = [], []
-        for stage, y in (("before", 2.0), ("after", 1.0)):
-            for side in ("low", "high"):
-                v = rec.get(f"fence_{side}_{tag}_{stage}")
-                if v is not None and math.isfinite(float(v)):
-                    fx.append(float(v))
-                    fy.append(y)
+    for name, fx, fy in _limits_drawn(rec, ctx, fence_name):
         if fx:
             cols = book.block(f"{rec['item']}: {name}", ["x", "y"], [np.array(fx), np.array(fy)])
             s = _points(book.ref(cols[1]), book.ref(cols[0]), name, DARK, size=7)
-            s.marker.symbol = symbol
+            s.marker.symbol = "diamond"
             chart.series.append(s)
             xs += fx
     if not xs:
@@ -204,6 +201,30 @@ def _box_chart(book, rec, ctx):
     chart.x_axis.number_format = "#,##0" if max(abs(v) for v in xs) >= 100 else "0.0"
     chart.legend.position = "b"
     return chart
+
+
+def _limits_drawn(rec, ctx, fence_name):
+    """[(name, xs, ys)]: the limits screening used on this column, as markers: the IQR fence
+    when that rule ran; else the percentile trim's limits, read from the screen log (the
+    limit beside each sale it set aside on this column). Nothing when no rule ran on it."""
+    fence_set = rec.get("fence_set")
+    if fence_set is None or bool(fence_set):      # older tables: the fence, as before
+        fx, fy = [], []
+        for stage, y in (("before", 2.0), ("after", 1.0)):
+            for side in ("low", "high"):
+                v = rec.get(f"fence_{side}_used_{stage}")
+                if v is not None and math.isfinite(float(v)):
+                    fx.append(float(v))
+                    fy.append(y)
+        return [(fence_name, fx, fy)]
+    log = ctx.table("screen_log")
+    if log is None or not {"rule", "column", "limit", "value"} <= set(log.columns):
+        return []
+    hit = log[(log["rule"] == "percentile trim") & (log["column"] == rec["item"])]
+    lows = hit.loc[hit["value"] < hit["limit"], "limit"].dropna().unique()
+    highs = hit.loc[hit["value"] > hit["limit"], "limit"].dropna().unique()
+    xs = [float(v) for v in (*lows, *highs)]
+    return [("percentile trim limits", xs, [2.0] * len(xs))] if xs else []
 
 
 def _box_path(five, y, h):

@@ -328,11 +328,77 @@ def write_valuation(ws, analysis, valuation, live: Callable | None = None) -> in
         _, r = _table(ws, r, "Reconciled value from the comparables", rec,
                       _price_scale_formats(rec),
                       empty="No comparables: list Sales sheet rows on the Comps sheet.")
+        wide = getattr(valuation, "grid_table", None)
+        if wide is not None and len(wide):
+            step = valuation.settings.adjustment_rounding
+            r = title(ws, r, "Adjustment grid")
+            r = note(ws, r, "Model-derived adjustments"
+                     + (f", rounded to {step:,.0f}" if step else "")
+                     + "; the net adjustment is the sum of the adjustments shown and the "
+                       "adjusted price is the sale price plus the net. The unrounded figures "
+                       "are in the detail below.")
+            r = write_grid_table(ws, r, wide) + 1
         grid = valuation.grid
-        _, r = _table(ws, r, "Adjustment grid (model-derived adjustments)", grid,
-                      _price_scale_formats(grid),
+        _, r = _table(ws, r, "Adjustment grid in detail (unrounded, one line per comparable "
+                      "and feature)", grid, _price_scale_formats(grid),
                       empty="No comparables.")
     ws.freeze_panes = None
     if live is not None:
         r = live(ws, analysis, valuation, r + 1)
+    return r
+
+
+_GRID_VALUE_FORMATS = {"price": MONEY, "net": '+0.0%;-0.0%;0.0%', "gross": PERCENT,
+                       "weight": RATIO, "row": INTEGER}
+
+
+def grid_comparables(wide: pd.DataFrame) -> list[int]:
+    """The comparables' numbers (1, 2, …) in a grid_table."""
+    return [int(c.split("_")[1]) for c in wide.columns
+            if c.startswith("comp_") and not c.endswith("_adjustment")]
+
+
+def write_grid_table(ws, r: int, wide: pd.DataFrame, comps: list[int] | None = None,
+                     left: int = 1, widths: bool = True) -> int:
+    """The grid as appraisers read it (valuation.grid_table): lines down the side, the
+    subject and comparables ``comps`` (default all) across, a value and an adjustment
+    column each. Returns the next free row."""
+    from openpyxl.styles import Alignment
+    from openpyxl.utils import get_column_letter
+    comps = comps or grid_comparables(wide)
+    heads = ["", "Subject"]
+    for i in comps:
+        heads += [f"Comparable {i}", "Adjustment"]
+    for j, h in enumerate(heads):
+        c = put(ws, r, left + j, h, style="plumb_header")
+        if j:
+            c.alignment = Alignment(horizontal="right")
+    r += 1
+    for rec in wide.to_dict("records"):
+        kind = rec["kind"]
+        put(ws, r, left, rec["line"], style="plumb_label")
+        vfmt = _GRID_VALUE_FORMATS.get(kind)
+        values = [rec["subject"]] + [v for i in comps
+                                     for v in (rec[f"comp_{i}"], rec[f"comp_{i}_adjustment"])]
+        for j, v in enumerate(values, start=1):
+            is_adj = j >= 2 and j % 2 == 1
+            if kind == "row" and j == 1:
+                v = None         # the subject's row is on another sheet
+            fmt = ((MONEY if kind not in ("feature", "market", "net") else '+#,##0;-#,##0;0')
+                   if is_adj else vfmt)
+            c = put(ws, r, left + j, v, fmt)
+            if kind == "notes" and isinstance(v, str) and v:
+                c.alignment = Alignment(wrap_text=True, vertical="top")
+            elif not isinstance(v, str) or kind != "sale":
+                c.alignment = Alignment(horizontal="right", vertical="top")
+        if kind == "notes":
+            longest = max([len(str(v)) for v in values if isinstance(v, str)] + [0])
+            ws.row_dimensions[r].height = 15 * max(1, -(-longest // 14))
+        r += 1
+    if widths:
+        for j in range(len(heads)):
+            letter = get_column_letter(left + j)
+            want = 30 if j == 0 else 14
+            if (ws.column_dimensions[letter].width or 0) < want:
+                ws.column_dimensions[letter].width = want
     return r
