@@ -300,7 +300,9 @@ def test_set_aside_counts_only_sales_set_aside(demo):
     assert stamp.rows_held_out == int(fit["n_holdout"]) > 0
     # every sale is used, set aside (screened or dropped) or held out; holdout is not set aside
     assert stamp.rows_set_aside == int(fit["n_screened"]) + int(fit["n_dropped"])
-    assert stamp.rows_used + stamp.rows_set_aside + stamp.rows_held_out == 363
+    # the model that values is refitted on training and holdout (final_fit = all)
+    assert stamp.rows_used == int(fit["n_used"]) == int(fit["n_training"]) + stamp.rows_held_out
+    assert int(fit["n_training"]) + stamp.rows_set_aside + stamp.rows_held_out == 363
 
 
 def test_sales_are_named_with_price_and_date_not_sheet_rows(demo):

@@ -132,7 +132,7 @@ def linearity_by_predictor(model: FittedModel) -> list[Check]:
         what = f"log({name})" if name in logged else f"'{name}'"
         fix = (f"Take it out of log_predictors and try curves {name}=spline:4 instead, and "
                "compare." if name in logged else
-               f"Try curves {name}=spline:4 (or square, or bands) and compare.")
+               f"Try curves {name}=spline:4 (a square and bands are the other shapes) and compare.")
         gain, df1 = curve_gain(model, j)
         df2 = fit.df_resid - df1
         if df1 == 0 or df2 < 1:

@@ -60,7 +60,8 @@ class Stamp:
 
 def make_stamp(analysis, sales_hash: str, source: str = "",
                now: _dt.datetime | None = None) -> Stamp:
-    """Stamp for ``analysis``: rows used = rows in the fit; set aside = screened and
+    """Stamp for ``analysis``: rows used = rows in the fit that values (with final_fit = all it
+    holds the holdout too); set aside = screened and
     dropped (missing values) rows; held out = the holdout (not set aside: it tests the model)."""
     from plumbrule import __version__
     now = now or _dt.datetime.now(_dt.timezone.utc)
@@ -68,9 +69,12 @@ def make_stamp(analysis, sales_hash: str, source: str = "",
     used = int(fit["n_used"])
     total = len(analysis.table.frame)
     held = int(fit["n_holdout"]) if "n_holdout" in fit else 0
+    # the validated model's sales: with final_fit = all the model that values also holds the
+    # holdout, which is still not set aside
+    train = int(fit["n_training"]) if "n_training" in fit else used
     return Stamp(version=__version__, time=now.replace(microsecond=0).isoformat(),
                  sales_hash=sales_hash, settings=analysis.settings.to_dict(),
-                 rows_used=used, rows_set_aside=total - used - held, source=source,
+                 rows_used=used, rows_set_aside=total - train - held, source=source,
                  rows_held_out=held)
 
 
