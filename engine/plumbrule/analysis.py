@@ -193,10 +193,11 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
                     tables=tables, holdout=hold, ids=ids)
 
 
-def _screen_and_split(sales: Sales, settings: Settings):
+def _screen_and_split(sales: Sales, settings: Settings, spec: ModelSpec | None = None):
     """Split, then screen: (training rows, holdout rows, fit log, rows each rule examined,
-    holdout rows moved to training)."""
-    data, spec = sales.data, sales.spec
+    holdout rows moved to training). ``spec``: the model whose columns the rules read and
+    which the influence rule fits (default: the sales' own)."""
+    data, spec = sales.data, spec or sales.spec
     split = validate.split_rows(data, validate.holdout_share(settings), settings.holdout_recent,
                                 settings.seed, spec.date_column, sales.keys(data.index))
     basis = data.loc[data.index.isin(split.training)] if len(split.holdout) else data

@@ -394,6 +394,26 @@ REGISTRY: dict[str, Setting] = {
             low=0.0,
             refuse=((0.0, "0 months leaves no sale. Enter e.g. 12, or leave it blank."),),
         ),
+        # --- candidate models compared -----------------------------------------
+        _s(
+            "compare_by",
+            "choice",
+            "mape",
+            "Candidate models (Models sheet) are ranked by: mape or rmse out of sample (the "
+            "holdout, else cross-validated), cv_mape, cv_rmse, holdout_mape, holdout_rmse, "
+            "adj_r_squared, aic, bic (same response only) or cod.",
+            choices=("mape", "rmse", "cv_mape", "cv_rmse", "holdout_mape", "holdout_rmse",
+                     "adj_r_squared", "aic", "bic", "cod"),
+            group="compare",
+        ),
+        _s(
+            "use_model",
+            "text",
+            None,
+            "Name of the candidate (Models sheet) the results, Report and valuation follow "
+            "(default: the Settings' own model).",
+            group="compare",
+        ),
         # --- the offline workbook ------------------------------------------------
         _s(
             "backup",
@@ -459,6 +479,8 @@ class Settings:
     comp_same: str | None = None
     comp_months: float | None = None
     backup: bool = True
+    compare_by: str = "mape"
+    use_model: str | None = None
     extra: tuple = field(default=(), compare=False, repr=False)
 
     def to_dict(self) -> dict[str, Any]:
