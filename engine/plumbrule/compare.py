@@ -226,6 +226,10 @@ def candidate_settings(base: Settings, candidates: Sequence[Candidate]
                 if k not in changed:
                     changed[k] = tuple(p for p in getattr(base, k)
                                        if normalise_name(p) in keep)
+        if "categorical" in changed and "reference_levels" not in changed:
+            cats = {normalise_name(p) for p in changed["categorical"]}
+            changed["reference_levels"] = tuple(pair for pair in base.reference_levels
+                                                if normalise_name(pair[0]) in cats)
         out[c.name] = base.replace(**changed)
     return out
 
@@ -410,7 +414,7 @@ def _at(err, cand: Candidate | None, name: str):
     setting = getattr(err, "setting", None)
     if cand is not None and cand.cells and setting in cand.cells:
         prefix = cand.cells[setting]
-    elif cand is not None:
+    elif cand is not None and cand.where:
         prefix = f"{cand.where} (candidate '{name}')"
     else:
         prefix = f"Candidate '{name}'"
