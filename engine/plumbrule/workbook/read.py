@@ -84,7 +84,9 @@ def read_inputs(path: str | Path) -> BookInputs:
         if set_block:
             other["Settings"], other_rows["Settings"] = set_block, set_row
         settings = settings_from_rows(set_block, where="Settings sheet")
-        models = _models(book)
+        models, models_block, models_row = _models(book)
+        if models_block:
+            other["Models"], other_rows["Models"] = models_block, models_row
         by_id = _comps_by_id(comp_block, settings)
         return BookInputs(
             sales=sales,
@@ -148,13 +150,14 @@ def _block_at(book, name: str, required: bool = False
 
 
 def _models(book) -> tuple:
-    """The Models sheet's candidates (none without the sheet); errors name the cell."""
+    """(the Models sheet's candidates, its values, its header's sheet row); none without the
+    sheet. Errors name the cell."""
     from plumbrule.compare import candidates_from_rows
     values, row, sheet, first_col, _ = _block_at(book, "Models")
     if not values:
-        return ()
-    return candidates_from_rows(values, where=f"{sheet or 'Models'} sheet", first_row=row,
-                                first_col=first_col)
+        return (), [], 1
+    return (candidates_from_rows(values, where=f"{sheet or 'Models'} sheet", first_row=row,
+                                 first_col=first_col), values, row)
 
 
 def _damaged(where: str, exc: Exception) -> WorkbookError:
