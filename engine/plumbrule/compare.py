@@ -26,7 +26,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from plumbrule.errors import SettingError, SpecError
+from plumbrule.errors import FitError, SettingError, SpecError
 from plumbrule.settings import REGISTRY, Settings, normalise_name, parse_settings
 from plumbrule.verdicts import FAILS, NA, OK, TOO_FEW, WATCH
 
@@ -258,7 +258,7 @@ def compare(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     table = an.as_table(source, base.header_row)
     by_name = candidate_settings(base, candidates)
     where = {c.name: c for c in candidates}
-    reference = _reference(base, by_name)
+    reference = reference_name(base, by_name)
     specs = {}
     for name, cset in by_name.items():
         try:
@@ -276,11 +276,8 @@ def compare(source: Any, settings: Settings | Mapping[str, Any] | None = None,
             rec = judge(sales, cset, specs[name], train, hold)
         except (SpecError, SettingError) as err:
             raise _at(err, where.get(name), name) from None
-        except Exception as err:     # a FitError of one candidate: say which
-            from plumbrule.errors import PlumbError
-            if isinstance(err, PlumbError):
-                raise type(err)(f"Candidate '{name}': {err}") from None
-            raise
+        except FitError as err:      # a candidate the sales cannot fit: say which
+            raise FitError(f"Candidate '{name}': {err}", setting=err.setting) from None
         records.append({"name": name, "changes": _changes_text(where.get(name)), **rec})
     frame = pd.DataFrame(records)
     out = _rank(frame, base, reference, by_name)
@@ -360,7 +357,7 @@ def _equity(whole) -> str:
     return NA
 
 
-def _reference(base: Settings, by_name: Mapping[str, Settings]) -> str:
+def reference_name(base: Settings, by_name: Mapping[str, Settings]) -> str:
     """The candidate the results follow: ``use_model``, else the base settings' model."""
     wanted = base.use_model
     if wanted is None:
@@ -380,8 +377,10 @@ def _union_settings(reference: Settings, specs: Mapping[str, Any], where) -> Set
     """The reference settings with every candidate's columns, so the sales are typed once.
     A column that is a category in one candidate and a number in another cannot share one
     typing: said, naming both."""
-    preds, cats, numeric = [], [], {}
-    dates = {}
+    preds: list[str] = []
+    cats: list[str] = []
+    numeric: dict[str, str] = {}          # column → first candidate using it as a number
+    dates: dict[str, str] = {}            # date column → first candidate naming it
     for name, spec in specs.items():
         preds += list(spec.predictors)
         cats += list(spec.categorical)
@@ -412,7 +411,7 @@ def _union_settings(reference: Settings, specs: Mapping[str, Any], where) -> Set
 def _at(err, cand: Candidate | None, name: str):
     """``err`` restated with the cell (or the candidate) it comes from."""
     setting = getattr(err, "setting", None)
-    if cand is not None and cand.cells and setting in cand.cells:
+    if cand is not None and cand.cells and setting is not None and setting in cand.cells:
         prefix = cand.cells[setting]
     elif cand is not None and cand.where:
         prefix = f"{cand.where} (candidate '{name}')"

@@ -102,3 +102,14 @@ def test_use_model_without_that_candidate_is_refused(book, value, capsys):
     wb.save(book)
     assert main(["run", str(book)]) == 2
     assert "use_model" in capsys.readouterr().err
+
+
+def test_fit_on_the_book_follows_use_model(book, capsys):
+    from openpyxl import load_workbook
+    from plumbrule.workbook.fill import set_settings
+    wb = load_workbook(book)
+    set_settings(wb, {"use_model": "price scale"})
+    wb.save(book)
+    assert main(["fit", str(book), "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out["fit"]["response"] == "Sale price"          # the candidate's, not log(...)

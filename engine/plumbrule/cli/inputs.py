@@ -64,7 +64,10 @@ def read_inputs(args: argparse.Namespace) -> Inputs:
         if book.comp_ids and "comps" not in flags and "comp_ids" not in flags:
             raw["comp_ids"] = ",".join(book.comp_ids)
         comps = () if ("comps" in flags or "comp_ids" in flags) else book.comps
-        return Inputs(book.sales, parse_settings(raw), book.subjects, tuple(comps), book.models)
+        settings = parse_settings(raw)
+        if settings.use_model is not None and getattr(args, "command", None) != "compare":
+            settings = followed_model(settings, book.models)
+        return Inputs(book.sales, settings, book.subjects, tuple(comps), book.models)
     from plumbrule.intake import read_table
     settings = parse_settings(flags)
     return Inputs(read_table(path, sheet=getattr(args, "sheet", None),
@@ -90,3 +93,11 @@ def read_models(args: argparse.Namespace, inputs: Inputs) -> tuple:
                            "sheet, or give --models MODELS.csv (a name, then the model settings "
                            "that differ, one row per model).")
     return inputs.models
+
+
+def followed_model(settings: Settings, models: tuple) -> Settings:
+    """The settings of the candidate ``use_model`` names (fit and value follow it, as run
+    does); an unknown name, or no Models sheet, is an error naming the setting."""
+    from plumbrule.compare import candidate_settings, reference_name
+    every = candidate_settings(settings, models)
+    return every[reference_name(settings, every)]
