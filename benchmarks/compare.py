@@ -10,15 +10,24 @@ also builds every table a single run returns. Target (issue 13): the comparison 
 The sales are the invented town (demo/town.py) at 20,000 sales with unique IDs, a 30 %
 holdout, 5 folds and a 1-99 percentile trim, given to both sides as the same DataFrame.
 
-Run: python benchmarks/compare.py [--n 20000] [--repeat 2] [--csv]
-     (--csv: both sides read the sales from one CSV file, as `plumbrule compare DATA` does)
+Run: python benchmarks/compare.py [--n 20000] [--repeat 2] [--csv] [--threads N]
+     (--csv: both sides read the sales from one CSV file, as `plumbrule compare DATA` does;
+      --threads sets OPENBLAS_NUM_THREADS/OMP_NUM_THREADS for this run only: on a shared,
+      busy machine multi-threaded BLAS makes every small BLAS call slow, which swamps both
+      sides' fits and hides what sharing saves)
 """
 
 from __future__ import annotations
 
+import os
+import sys
+
+if "--threads" in sys.argv:   # must be set before numpy loads its BLAS
+    _n = sys.argv[sys.argv.index("--threads") + 1]
+    os.environ["OPENBLAS_NUM_THREADS"] = os.environ["OMP_NUM_THREADS"] = _n
+
 import argparse
 import gc
-import sys
 import tempfile
 import time
 from pathlib import Path
@@ -70,6 +79,7 @@ def main() -> None:
     ap.add_argument("--n", type=int, default=20000)
     ap.add_argument("--repeat", type=int, default=2)
     ap.add_argument("--csv", action="store_true")
+    ap.add_argument("--threads", default=None, help="BLAS threads for this run")
     args = ap.parse_args()
     frame = sales(args.n)
     source: object = frame
@@ -93,8 +103,10 @@ def main() -> None:
     t_sep = best_of(separately, args.repeat)
     t_cmp = best_of(together, args.repeat)
     result = together()
+    threads = os.environ.get("OPENBLAS_NUM_THREADS", "default")
     print(f"{len(every)} candidates on {len(frame):,} sales "
-          f"({'CSV file' if args.csv else 'DataFrame'}), best of {args.repeat}:")
+          f"({'CSV file' if args.csv else 'DataFrame'}, BLAS threads {threads}), "
+          f"best of {args.repeat}:")
     print(f"  10 separate analyses: {t_sep:8.3f} s")
     print(f"  compare:              {t_cmp:8.3f} s")
     print(f"  ratio compare / separate: {t_cmp / t_sep:.3f}  (target <= 0.5)")

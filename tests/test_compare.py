@@ -163,3 +163,44 @@ def test_a_column_unknown_to_the_sales_names_the_cell():
                                  first_row=4, first_col=2)
     with pytest.raises(SpecError, match=r"^Models sheet, cell C5: .*Pool"):
         compare(_market(n=300), BASE, cands)
+
+
+def test_inherited_roles_follow_a_candidates_predictors():
+    # A candidate naming fewer predictors keeps only the Settings' roles of those it still
+    # has (behaviour the Models sheet documents in docs/workbook.md).
+    from plumbrule.compare import candidate_settings
+    from plumbrule.demo.town import DEMO_SETTINGS
+    from plumbrule.settings import parse_settings
+    base = parse_settings(DEMO_SETTINGS)
+    out = candidate_settings(base, (Candidate("small", {"predictors": "Living area,Age,"
+                                                                      "Neighbourhood"}),
+                                    Candidate("flat", {"log_predictors": "none"})))
+    small = out["small"]
+    assert small.log_predictors == ("Living area",)
+    assert small.categorical == ("Neighbourhood",)
+    assert small.reference_levels == ()
+    assert out["flat"].log_predictors == () and out["flat"].predictors == base.predictors
+    assert out[BASE_NAME] == base
+
+
+def _curved_market(n=3000, seed=6):
+    """The bent market with depreciation that levels off and turns past 60 years (older
+    houses carry a premium): log price + 0.006·max(age − 50, 0)·(1 + 0.1·max(age − 50, 0))
+    of our own invention, so a straight age effect is the wrong model."""
+    frame = _market(n=n, seed=seed)
+    over = np.maximum(frame["Age"].to_numpy(float) - 50.0, 0.0)
+    frame["Price"] = np.round(frame["Price"] * np.exp(0.006 * over * (1 + 0.1 * over)))
+    return frame
+
+
+def test_a_market_with_an_age_curve_ranks_the_curved_model_first():
+    from plumbrule.settings import REGISTRY
+    if "curves" not in REGISTRY:
+        pytest.skip("the curves setting (issue 13 §2) is not on this branch")
+    frame = _curved_market()
+    base = {**BASE, "trend": "piecewise", "trend_knots": KNOTS}
+    result = compare(frame, base, (Candidate("curved age", {"curves": "Age=spline:4"}),
+                                   Candidate("straight trend", {"trend": "linear"})))
+    assert result.chosen == "curved age", result.table[["name", "holdout_mape"]]
+    names = list(result.table["name"])
+    assert names.index(BASE_NAME) < names.index("straight trend")

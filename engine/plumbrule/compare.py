@@ -220,12 +220,18 @@ def candidate_settings(base: Settings, candidates: Sequence[Candidate]
         changed = {k: getattr(typed, k) if k in given else REGISTRY[k].default
                    for k in c.changes}
         if "predictors" in changed:
-            # roles inherited from the Settings follow the candidate's own predictors
+            # roles inherited from the Settings follow the candidate's own predictors: a
+            # column list keeps its predictors, a list of (column, ...) entries (reference
+            # levels, curves, any such model setting) the entries of its predictors
             keep = {normalise_name(p) for p in changed["predictors"]}
-            for k in ("categorical", "log_predictors"):
-                if k not in changed:
-                    changed[k] = tuple(p for p in getattr(base, k)
-                                       if normalise_name(p) in keep)
+            for k in model_settings():
+                value = getattr(base, k, None)
+                if k in changed or not isinstance(value, tuple) or not value:
+                    continue
+                if REGISTRY[k].kind == "columns":
+                    changed[k] = tuple(p for p in value if normalise_name(p) in keep)
+                elif all(isinstance(e, tuple) and e and isinstance(e[0], str) for e in value):
+                    changed[k] = tuple(e for e in value if normalise_name(e[0]) in keep)
         if "categorical" in changed and "reference_levels" not in changed:
             cats = {normalise_name(p) for p in changed["categorical"]}
             changed["reference_levels"] = tuple(pair for pair in base.reference_levels
