@@ -156,10 +156,9 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     screen_log = pd.concat([lg for lg in (fit_log, ratio_log) if len(lg)]
                            or [screen.empty_log()], ignore_index=True)
     after = pd.concat([train, hold]).sort_index() if len(hold) else train
-    checks = run_checks(model) + screen.screening_checks(fit_log, looked,
+    checks = fit_checks(model) + screen.screening_checks(fit_log, looked,
                                                          settings.max_excluded_share)
-    checks += level_checks(model, sales.level_merges, settings.min_level_sales)
-    checks += trend_checks(model)
+    checks += level_and_trend_checks(model, sales, settings)
     if sales.table.hidden_rows and not settings.skip_hidden_rows:
         checks.append(_hidden_check(len(sales.table.hidden_rows)))
     if spec.screens_price and (settings.trim_percentiles is not None
@@ -191,6 +190,19 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     )
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
                     tables=tables, holdout=hold, ids=ids)
+
+
+def fit_checks(model: FittedModel) -> list[Check]:
+    """The checks of the fitted model itself, in the checks table's order. A check of the fit
+    is added here (not in :func:`analyze` alone), so the comparison of candidate models
+    (compare.py) counts it too."""
+    return run_checks(model)
+
+
+def level_and_trend_checks(model: FittedModel, sales: Sales, settings: Settings) -> list[Check]:
+    """The model's checks of its category levels and of its trend against the sale dates."""
+    return (level_checks(model, sales.level_merges, settings.min_level_sales)
+            + trend_checks(model))
 
 
 def _screen_and_split(sales: Sales, settings: Settings, spec: ModelSpec | None = None):

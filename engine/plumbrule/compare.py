@@ -296,18 +296,14 @@ def judge(sales, settings: Settings, spec, train: pd.DataFrame, hold: pd.DataFra
     """The figures of one candidate fitted on ``train`` and judged on ``hold`` and the folds
     of ``train`` (a dict of COMPARISON_COLUMNS' figures, plus oos_mape/oos_rmse)."""
     from plumbrule import analysis as an
-    from plumbrule.diagnostics.checks import run_checks
-    from plumbrule.diagnostics.levels import level_checks
     from plumbrule.diagnostics.tables import checks_table, coefficient_table, fit_table
-    from plumbrule.diagnostics.trend import trend_checks
     from plumbrule.model.fitted import fit_model
     train, hold, moved = an._move_unseen(train, hold, spec)
     model = fit_model(spec, train, robust_se=settings.robust_se, confidence=settings.confidence)
     validation, h_est, cv = an._validate(model, hold, settings, sales)
     study, *_ = an._ratio_tables(model, hold, h_est, cv, settings, spec.ratio_by)
-    checks = run_checks(model) + level_checks(model, sales.level_merges,
-                                              settings.min_level_sales)
-    checks += trend_checks(model)
+    # the model's own checks, as analyze() makes them (the screening's are shared by all)
+    checks = an.fit_checks(model) + an.level_and_trend_checks(model, sales, settings)
     if len(moved):
         checks.append(an._moved_check(moved))
     verdicts = checks_table(checks)["verdict"]
