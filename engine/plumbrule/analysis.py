@@ -178,13 +178,9 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     screen_log = pd.concat([lg for lg in (fit_log, ratio_log) if len(lg)]
                            or [screen.empty_log()], ignore_index=True)
     after = pd.concat([train, hold]).sort_index() if len(hold) else train
-    checks = run_checks(final)
-    at = next((i + 1 for i, c in enumerate(checks) if c.name.startswith("Linearity")),
-              len(checks))
-    checks[at:at] = linearity_by_predictor(final)     # beside RESET: the same question
-    checks += screen.screening_checks(fit_log, looked, settings.max_excluded_share)
-    checks += level_checks(final, sales.level_merges, settings.min_level_sales)
-    checks += trend_checks(final)
+    checks = fit_checks(final) + screen.screening_checks(fit_log, looked,
+                                                         settings.max_excluded_share)
+    checks += level_and_trend_checks(final, sales, settings)
     if sales.table.hidden_rows and not settings.skip_hidden_rows:
         checks.append(_hidden_check(len(sales.table.hidden_rows)))
     if spec.screens_price and (settings.trim_percentiles is not None
@@ -237,10 +233,28 @@ def final_model(model: FittedModel, hold: pd.DataFrame, settings: Settings) -> F
                      confidence=settings.confidence)
 
 
-def _screen_and_split(sales: Sales, settings: Settings):
+def fit_checks(model: FittedModel) -> list[Check]:
+    """The checks of the fitted model itself, in the checks table's order. A check of the fit
+    is added here (not in :func:`analyze` alone), so the comparison of candidate models
+    (compare.py) counts it too."""
+    checks = run_checks(model)
+    at = next((i + 1 for i, c in enumerate(checks) if c.name.startswith("Linearity")),
+              len(checks))
+    checks[at:at] = linearity_by_predictor(model)     # beside RESET: the same question
+    return checks
+
+
+def level_and_trend_checks(model: FittedModel, sales: Sales, settings: Settings) -> list[Check]:
+    """The model's checks of its category levels and of its trend against the sale dates."""
+    return (level_checks(model, sales.level_merges, settings.min_level_sales)
+            + trend_checks(model))
+
+
+def _screen_and_split(sales: Sales, settings: Settings, spec: ModelSpec | None = None):
     """Split, then screen: (training rows, holdout rows, fit log, rows each rule examined,
-    holdout rows moved to training)."""
-    data, spec = sales.data, sales.spec
+    holdout rows moved to training). ``spec``: the model whose columns the rules read and
+    which the influence rule fits (default: the sales' own)."""
+    data, spec = sales.data, spec or sales.spec
     split = validate.split_rows(data, validate.holdout_share(settings), settings.holdout_recent,
                                 settings.seed, spec.date_column, sales.keys(data.index))
     basis = data.loc[data.index.isin(split.training)] if len(split.holdout) else data

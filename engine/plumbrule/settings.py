@@ -446,6 +446,26 @@ REGISTRY: dict[str, Setting] = {
            group="assignment"),
         _s("property_rights", "text", None, "The interest valued, e.g. fee simple (shown on "
            "the Report). The effective date is valuation_date.", group="assignment"),
+        # --- candidate models compared -----------------------------------------
+        _s(
+            "compare_by",
+            "choice",
+            "mape",
+            "Candidate models (Models sheet) are ranked by: mape or rmse out of sample (the "
+            "holdout, else cross-validated), cv_mape, cv_rmse, holdout_mape, holdout_rmse, "
+            "adj_r_squared, aic, bic (same response only) or cod.",
+            choices=("mape", "rmse", "cv_mape", "cv_rmse", "holdout_mape", "holdout_rmse",
+                     "adj_r_squared", "aic", "bic", "cod"),
+            group="compare",
+        ),
+        _s(
+            "use_model",
+            "text",
+            None,
+            "Name of the candidate (Models sheet) the results, Report and valuation follow "
+            "(default: the Settings' own model).",
+            group="compare",
+        ),
         # --- the offline workbook ------------------------------------------------
         _s(
             "backup",
@@ -520,6 +540,8 @@ class Settings:
     intended_use: str | None = None
     prepared_by: str | None = None
     property_rights: str | None = None
+    compare_by: str = "mape"
+    use_model: str | None = None
     extra: tuple = field(default=(), compare=False, repr=False)
 
     def to_dict(self) -> dict[str, Any]:

@@ -323,3 +323,37 @@ def test_total_through_call_udf_equals_the_engine_portfolio(xl, sales_rows):
     assert got["n"] == float(port["n"].iloc[0])
     assert got["total"] == pytest.approx(float(port["total"].iloc[0]), rel=1e-12)
     assert got["ci_low"] < got["total"] < got["ci_high"]
+
+
+MODELS = [["Model", "trend", "trend_period", "log_response"],
+          ["quarterly", "periods", "quarter", None],
+          ["price scale", None, None, False]]
+
+
+def test_compare_through_call_udf_equals_the_engine_comparison(xl, sales_rows):
+    """PLUMB_COMPARE through xlwings' call path: the engine's comparison table of the same
+    sales and candidates (reference: compare(), whose rows tests/test_compare.py checks
+    against single analyses and statsmodels), then a blank row and the reason."""
+    from plumbrule.compare import candidates_from_rows, compare
+    udfs, module = xl
+    out = _call(udfs, "PLUMB_COMPARE", [FakeComRange(sales_rows), FakeComRange(MODELS),
+                                       FakeComRange(SETTINGS)])
+    s = module.resolve_settings("", "", SETTINGS)
+    engine = compare(python_cells(sales_rows), s, candidates_from_rows(MODELS))
+    table = _as_written(module.frame_cells(engine.table))
+    assert out[:len(table)] == table
+    assert [r[1] for r in out[1:len(table)]] == list(engine.table["name"])
+    assert all(v == "" for v in out[len(table)])                  # the blank row
+    reason = " ".join(r[0] for r in out[len(table) + 1:])
+    assert reason == engine.reason
+    chosen = [r for r in out[1:len(table)] if r[2] is True]
+    assert len(chosen) == 1
+
+
+def test_compare_bad_models_cell_is_one_cell_naming_it(xl, sales_rows):
+    udfs, module = xl
+    bad = [row[:] for row in MODELS]
+    bad[2][3] = "maybe"
+    out = module.PLUMB_COMPARE(python_cells(sales_rows), bad, SETTINGS)
+    assert isinstance(out, str) and out.startswith("plumbrule: models range")
+    assert "cell D3" in out

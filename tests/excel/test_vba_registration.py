@@ -154,10 +154,11 @@ def test_every_plumb_function_carries_xlwings_metadata(registered):
     names = sorted(f.__xlfunc__["name"] for f in _functions(module))
     # The issue's list of worksheet functions (plus PLUMB_RECONCILE, an extension;
     # PLUMB_MODEL, the model cell of the speed issue; PLUMB_SUGGEST, issue 14; PLUMB_TOTAL,
-    # the mass-appraisal issue).
+    # the mass-appraisal issue; PLUMB_COMPARE, issue 13).
     assert names == sorted(["PLUMB_COEFS", "PLUMB_FIT", "PLUMB_CHECKS", "PLUMB_SCREEN",
                             "PLUMB_RATIOS", "PLUMB_VALUE", "PLUMB_GRID", "PLUMB_RECONCILE",
-                            "PLUMB_INFO", "PLUMB_MODEL", "PLUMB_SUGGEST", "PLUMB_TOTAL"])
+                            "PLUMB_INFO", "PLUMB_MODEL", "PLUMB_SUGGEST", "PLUMB_TOTAL",
+                            "PLUMB_COMPARE"])
     assert names == sorted(f.__name__ for f in module.FUNCTIONS)
 
 
@@ -169,7 +170,7 @@ def test_raw_two_dimensional_ranges_not_the_dataframe_converter(registered):
         for arg in f.__xlfunc__["args"]:
             opts = arg["options"]
             assert "convert" not in opts or opts["convert"] in (None, list), (f.__name__, arg)
-            if arg["name"] in ("sales", "subject", "settings"):
+            if arg["name"] in ("sales", "subject", "settings", "models"):
                 assert opts.get("ndim") == 2, (f.__name__, arg["name"])
 
 

@@ -29,11 +29,18 @@ def test_committed_template_matches_the_build_script(built):
 def test_template_sheets_and_tables(built):
     from openpyxl import load_workbook
     book = load_workbook(built)
-    assert book.sheetnames == ["Read me", "Sales", "Subjects", "Comps", "Settings", "xlwings.conf"]
+    assert book.sheetnames == ["Read me", "Sales", "Subjects", "Comps", "Settings", "Models",
+                               "xlwings.conf"]
     sales = book["Sales"].tables["Sales"]
     assert sales.ref.startswith("A1:")
     assert [c.value for c in book["Sales"][1]] == SALES_COLUMNS
     assert "Settings" in book["Settings"].tables
+    # the Models table: a name, then every setting a candidate may change (issue 13 §4)
+    from plumbrule.compare import model_settings
+    assert "Models" in book["Models"].tables
+    heads = [c.value for c in book["Models"][1]]
+    assert heads == ["Model", *model_settings()]
+    assert {"log_response", "predictors", "categorical", "log_predictors", "trend"} <= set(heads)
 
 
 def test_read_me_has_five_steps_and_the_cautions(built):

@@ -22,6 +22,26 @@ def demo_settings() -> dict:
             "ratio_by": None, "valuation_date": "2026-01-05"}
 
 
+def demo_models():
+    """The demo's Models sheet: candidate models beside the Settings' own (which the results
+    follow), so the Comparison sheet shows the choice made on evidence."""
+    import pandas as pd
+    from plumbrule.settings import REGISTRY
+    rows = [
+        {"Model": "as set (log-log, linear trend)"},
+        {"Model": "price scale", "log_response": False, "log_predictors": "none"},
+        {"Model": "without lot size",
+         "predictors": "Living area,Age,Bathrooms,Condition,Neighbourhood"},
+        {"Model": "trend bends every 6 months", "trend": "piecewise",
+         "trend_knots": "every 6 months"},
+        {"Model": "quarterly index", "trend": "periods", "trend_period": "quarter"},
+    ]
+    if "curves" in REGISTRY:        # effects that bend (issue 13), when the setting exists
+        rows.append({"Model": "curved age", "curves": "Age=spline:4"})
+    frame = pd.DataFrame(rows)
+    return frame.reindex(columns=["Model", *[c for c in frame.columns if c != "Model"]])
+
+
 def write_demo_book(folder: str | Path) -> Path:
     """The filled (not yet analysed) demo workbook in ``folder``; returns its path."""
     from plumbrule.demo.town import demo_comps, demo_sales, demo_subjects
@@ -39,7 +59,7 @@ def write_demo_book(folder: str | Path) -> Path:
     from plumbrule.workbook.safety import check_not_open
     check_not_open(path)
     tmp = folder / f".~plumbrule-demo-{DEMO_BOOK}"
-    fill_template(tmp, sales, demo_subjects(), demo_comps(sales), settings)
+    fill_template(tmp, sales, demo_subjects(), demo_comps(sales), settings, demo_models())
     import os
     os.replace(tmp, path)
     return path

@@ -20,6 +20,7 @@ class Inputs:
     settings: Settings
     subjects: SheetTable | None = None
     comps: tuple[int, ...] = ()
+    models: tuple = ()          # a plumbrule workbook's Models sheet (compare.Candidate)
 
 
 def flag_values(args: argparse.Namespace) -> dict[str, Any]:
@@ -63,8 +64,40 @@ def read_inputs(args: argparse.Namespace) -> Inputs:
         if book.comp_ids and "comps" not in flags and "comp_ids" not in flags:
             raw["comp_ids"] = ",".join(book.comp_ids)
         comps = () if ("comps" in flags or "comp_ids" in flags) else book.comps
-        return Inputs(book.sales, parse_settings(raw), book.subjects, tuple(comps))
+        settings = parse_settings(raw)
+        if settings.use_model is not None and getattr(args, "command", None) != "compare":
+            settings = followed_model(settings, book.models)
+        return Inputs(book.sales, settings, book.subjects, tuple(comps), book.models)
     from plumbrule.intake import read_table
     settings = parse_settings(flags)
     return Inputs(read_table(path, sheet=getattr(args, "sheet", None),
                              header_row=settings.header_row), settings)
+
+
+def read_models(args: argparse.Namespace, inputs: Inputs) -> tuple:
+    """The candidates of ``compare``: the --models file, else the workbook's Models sheet.
+    None at all is said, with the fix."""
+    from plumbrule.errors import SettingError
+    models = getattr(args, "models", None)
+    if models:
+        from plumbrule.compare import candidates_from_table
+        from plumbrule.intake import read_table
+        path = Path(models)
+        found = candidates_from_table(read_table(path), where=path.name)
+        if not found:
+            raise SettingError(f"'{path.name}' lists no candidate model. Put one per row: a "
+                               "name, then the model settings that differ (e.g. trend).")
+        return found
+    if not inputs.models:
+        raise SettingError("No candidate models to compare. List them on the workbook's Models "
+                           "sheet, or give --models MODELS.csv (a name, then the model settings "
+                           "that differ, one row per model).")
+    return inputs.models
+
+
+def followed_model(settings: Settings, models: tuple) -> Settings:
+    """The settings of the candidate ``use_model`` names (fit and value follow it, as run
+    does); an unknown name, or no Models sheet, is an error naming the setting."""
+    from plumbrule.compare import candidate_settings, reference_name
+    every = candidate_settings(settings, models)
+    return every[reference_name(settings, every)]

@@ -1,4 +1,4 @@
-"""Command line: ``plumbrule fit|value|comps|run|new|demo|report``.
+"""Command line: ``plumbrule fit|value|comps|compare|run|new|demo|report``.
 
 Options are generated from the settings registry, so a CLI option, a worksheet
 setting and a Settings-sheet row always share one name (dashes here,
@@ -72,6 +72,19 @@ def build_parser() -> argparse.ArgumentParser:
                   subjects="Subject property (first row): .csv or .xlsx with the sales' "
                            "columns (default for a plumbrule workbook: its Subjects sheet).")
 
+    cmp_ = sub.add_parser("compare", help="Compare candidate models on the same sales, holdout "
+                          "and folds.")
+    cmp_.add_argument("data", metavar="DATA", help="Sales table: .csv or .xlsx, or a plumbrule "
+                      "workbook (its Models sheet lists the candidates)")
+    cmp_.add_argument("--models", metavar="MODELS",
+                      help="Candidates: .csv or .xlsx, one row per model: its name, then the "
+                           "model settings that differ (default for a plumbrule workbook: its "
+                           "Models sheet).")
+    cmp_.add_argument("--sheet", help="Worksheet of an .xlsx file (default: the first).")
+    cmp_.add_argument("--json", action="store_true", help="Print one JSON object.")
+    _add_setting_options(cmp_, FIT_GROUPS + ("compare",))
+    cmp_.set_defaults(handler=cmd_compare)
+
     new = sub.add_parser("new", help="Write a fresh plumbrule workbook (the template).")
     new.add_argument("book", metavar="BOOK.xlsx", help="Workbook to create (never overwritten).")
     new.set_defaults(handler=cmd_new)
@@ -116,6 +129,20 @@ def cmd_comps(args: argparse.Namespace) -> int:
     from plumbrule.cli.comps import run_comps
     from plumbrule.cli.inputs import read_inputs
     return run_comps(args, read_inputs(args))
+
+
+def cmd_compare(args: argparse.Namespace) -> int:
+    from plumbrule.cli.inputs import read_inputs, read_models
+    from plumbrule.compare import compare
+    inputs = read_inputs(args)
+    result = compare(inputs.sales, inputs.settings, read_models(args, inputs))
+    if args.json:
+        from plumbrule.render.compare import comparison_json
+        print(comparison_json(result))
+    else:
+        from plumbrule.render.compare import comparison_text
+        print(visible(comparison_text(result)))
+    return 0
 
 
 def cmd_new(args: argparse.Namespace) -> int:

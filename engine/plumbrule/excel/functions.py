@@ -68,6 +68,9 @@ DOC_SETTINGS = ("Optional two-column range: setting name, value (e.g. log_respon
                 "Names as on the Settings sheet.")
 DOC_SUBJECT = ("The subject properties with a header row: the same predictor columns as the "
                "sales (the price may be absent).")
+DOC_MODELS = ("Candidate models with a header row: Model (a name), then setting names "
+              "(trend, log_response, predictors…); one row per candidate, blank = as in the "
+              "settings.")
 DOC_COMPS = ("Sheet row numbers of comparable sales (up to 10): \"12,40,57\" or a range "
              "holding the row numbers.")
 
@@ -472,6 +475,7 @@ ARGS: dict[str, dict[str, Any]] = {
     "subjects": dict(ndim=2, doc=DOC_SUBJECT, **KEEP_TYPED),
     "comps": dict(doc=DOC_COMPS, **KEEP_TYPED),
     "settings": dict(ndim=2, doc=DOC_SETTINGS, **KEEP_TYPED),
+    "models": dict(ndim=2, doc=DOC_MODELS, **KEEP_TYPED),
 }
 
 
@@ -609,6 +613,53 @@ def PLUMB_TOTAL(sales, response, predictors, subjects, settings=None):
     return record_cells(valuation.portfolio)
 
 
+@sheet_function
+def PLUMB_COMPARE(sales, models, settings=None):
+    ("Candidate models compared on the same sales, holdout and folds: one row each, best "
+     "first by compare_by (default out-of-sample MAPE), chosen marked, then the reason.")
+    return comparison_cells(sales, models, settings)
+
+
+def comparison_cells(sales, models, settings) -> Cells:
+    """The engine's comparison table as cells, then a blank row and the reason, one sentence
+    a row (a cell of an array holds under 255 characters). Cached by content, like a fit."""
+    from plumbrule.compare import candidates_from_rows, compare
+    from plumbrule.errors import IntakeError
+    first = handles.one_text(sales)
+    if type(first) is str and handles.handle_id(first) is not None:
+        raise IntakeError("Argument 'sales': PLUMB_COMPARE fits every candidate itself; give "
+                          "it the sales table (e.g. Sales[#All]), not a PLUMB_MODEL cell.")
+    if is_blank(sales) or not isinstance(sales, (list, tuple)):
+        raise IntakeError("Argument 'sales': select the sales table including its header row, "
+                          "e.g. Sales[#All].")
+    block = models if isinstance(models, list) else [_flat(models)]
+    candidates = candidates_from_rows(block, where="models range (its first cell is A1)")
+    if not candidates:
+        raise SettingError("Argument 'models': no candidate. Select a range with a header "
+                           "row (Model, then setting names) and one row per candidate.",
+                           setting="models")
+    s = resolve_settings(None, None, settings)
+    from plumbrule.intake.table import used_rows
+    sales = used_rows(sales)
+
+    def build(rows):
+        result = compare(rows, s, candidates)
+        out = frame_cells(result.table)
+        width = len(out[0])
+        out.append([None] * width)
+        for sentence in _sentences(result.reason):
+            out.append([text_cell(sentence)] + [None] * (width - 1))
+        return Cells(out)
+    done = CACHE.get_or_compute(sales, ("compare", small_key(block), s), build,
+                                cache_errors=(PlumbError,))
+    return Cells(list(r) for r in done)
+
+
+def _sentences(text: str) -> list[str]:
+    import re
+    return [p for p in re.split(r"(?<=[.!?])\s+(?=[A-Z'])", text) if p]
+
+
 @xw.func(category=CATEGORY, volatile=True)
 @xw.ret(transpose=False)
 @cell_safe
@@ -638,4 +689,5 @@ def info_rows() -> list[list[Any]]:
 
 
 FUNCTIONS = (PLUMB_MODEL, PLUMB_COEFS, PLUMB_FIT, PLUMB_CHECKS, PLUMB_SCREEN, PLUMB_RATIOS,
-             PLUMB_VALUE, PLUMB_GRID, PLUMB_RECONCILE, PLUMB_SUGGEST, PLUMB_TOTAL, PLUMB_INFO)
+             PLUMB_VALUE, PLUMB_GRID, PLUMB_RECONCILE, PLUMB_SUGGEST, PLUMB_TOTAL, PLUMB_COMPARE,
+             PLUMB_INFO)

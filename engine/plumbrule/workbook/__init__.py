@@ -6,7 +6,8 @@ template.py  build the template workbook (Read me, Sales, Subjects, Comps, Setti
 safety.py    checks before anything is touched: lock file, zip/encryption, XML (defusedxml),
              parts openpyxl cannot carry through a load and save
 package.py   the package read as XML (rels, content types, sheets, names, plumbrule's marks)
-read.py      read Sales / Subjects / Comps / Settings with python-calamine
+read.py      read Sales / Subjects / Comps / Settings / Models with python-calamine
+comparison.py the Comparison sheet and the Report's candidate-models section
 stamp.py     the audit stamp (:class:`~plumbrule.workbook.stamp.Stamp`)
 cells.py     writing values safely (text stays text) and number formats
 sheets.py    the Model, Screening, Validation and Valuation sheets
@@ -52,5 +53,8 @@ formula or an error value; ``MONEY``/``PERCENT``/``sig3`` number formats; ``writ
 Sheets outside RESULT_SHEETS are never touched.
 """
 
-RESULT_SHEETS = ("Report", "Model", "Screening", "Validation", "Valuation", "Chart data")
-INPUT_SHEETS = ("Sales", "Subjects", "Comps", "Settings")
+RESULT_SHEETS = ("Report", "Model", "Screening", "Validation", "Valuation", "Comparison",
+                 "Chart data")
+# written only when the Models sheet lists candidate models
+OPTIONAL_SHEETS = ("Comparison",)
+INPUT_SHEETS = ("Sales", "Subjects", "Comps", "Settings", "Models")

@@ -10,8 +10,10 @@ import pandas as pd
 
 
 def fill_template(dest: str | Path, sales: pd.DataFrame, subjects: pd.DataFrame | None = None,
-                  comps: Sequence[int] = (), settings: Mapping[str, Any] | None = None) -> Path:
-    """Write the template filled with these inputs to ``dest`` (overwrites); returns it."""
+                  comps: Sequence[int] = (), settings: Mapping[str, Any] | None = None,
+                  models: pd.DataFrame | None = None) -> Path:
+    """Write the template filled with these inputs to ``dest`` (overwrites); returns it.
+    ``models``: candidate models for the Models table (a Model column, then settings)."""
     from openpyxl import load_workbook
     from plumbrule.workbook.template import packaged_template
     book = load_workbook(packaged_template())
@@ -24,6 +26,11 @@ def fill_template(dest: str | Path, sales: pd.DataFrame, subjects: pd.DataFrame 
                                                           "Note": [""] * len(comps)}))
     if settings:
         set_settings(book, settings)
+    if models is not None and len(models):
+        ws = book["Models"]         # the template's columns kept, the candidates' values under them
+        heads = [c.value for c in ws[1] if c.value]
+        extra = [c for c in models.columns if c not in heads]
+        _fill_table(ws, "Models", models.reindex(columns=heads + extra))
     dest = Path(dest)
     book.save(dest)
     return dest

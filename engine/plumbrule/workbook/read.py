@@ -37,6 +37,7 @@ class BookInputs:
     other_values: dict          # sheet name → 2-D values of Subjects / Comps / Settings
     other_rows: dict            # sheet name → sheet row of that block's first row
     comp_ids: tuple[str, ...] = ()          # the Comps sheet lists sale IDs
+    models: tuple = ()                      # candidate models (plumbrule.compare.Candidate)
 
 
 def read_inputs(path: str | Path) -> BookInputs:
@@ -83,6 +84,9 @@ def read_inputs(path: str | Path) -> BookInputs:
         if set_block:
             other["Settings"], other_rows["Settings"] = set_block, set_row
         settings = settings_from_rows(set_block, where="Settings sheet")
+        models, models_block, models_row = _models(book)
+        if models_block:
+            other["Models"], other_rows["Models"] = models_block, models_row
         by_id = _comps_by_id(comp_block, settings)
         return BookInputs(
             sales=sales,
@@ -94,6 +98,7 @@ def read_inputs(path: str | Path) -> BookInputs:
             sales_values=sales_block,
             other_values=other,
             other_rows=other_rows,
+            models=models,
         )
     finally:
         book.close()
@@ -142,6 +147,17 @@ def _block_at(book, name: str, required: bool = False
                             "a sheet named Sales (or an Excel table named Sales); "
                             "plumbrule new BOOK.xlsx writes a template.", sheet=name)
     return [], 1, None, 1, False
+
+
+def _models(book) -> tuple:
+    """(the Models sheet's candidates, its values, its header's sheet row); none without the
+    sheet. Errors name the cell."""
+    from plumbrule.compare import candidates_from_rows
+    values, row, sheet, first_col, _ = _block_at(book, "Models")
+    if not values:
+        return (), [], 1
+    return (candidates_from_rows(values, where=f"{sheet or 'Models'} sheet", first_row=row,
+                                 first_col=first_col), values, row)
 
 
 def _damaged(where: str, exc: Exception) -> WorkbookError:

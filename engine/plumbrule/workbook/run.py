@@ -29,7 +29,7 @@ from plumbrule.errors import WorkbookError
 from plumbrule.headline import headline
 from plumbrule.render.json import jsonable
 from plumbrule.render.text import headline_text
-from plumbrule.workbook import INPUT_SHEETS, RESULT_SHEETS
+from plumbrule.workbook import INPUT_SHEETS, OPTIONAL_SHEETS, RESULT_SHEETS
 
 
 @dataclass(frozen=True)
@@ -43,6 +43,7 @@ class RunResult:
     headline: dict[str, Any] = field(default_factory=dict)
     analysis: Any = None
     valuation: Any = None
+    comparison: Any = None      # plumbrule.compare.Comparison, when Models lists candidates
 
 
 def run_book(path: str | Path, backup: bool | None = None,
@@ -66,12 +67,12 @@ def run_book(path: str | Path, backup: bool | None = None,
         _check_names(parts)
         check_writable(real)
     inputs = read_inputs(path)
-    analysis, valuation, settings = _analyse(inputs)
+    analysis, valuation, settings, comparison = _analyse(inputs)
     from plumbrule.workbook.stamp import make_stamp
     stamp = make_stamp(analysis, inputs.sales_hash, source=path.name, now=now)
     keep_bak = settings.backup if backup is None else backup
     book = _result_book(inputs, with_sales=not in_place)
-    write_results(book, analysis, valuation, stamp)
+    write_results(book, analysis, valuation, stamp, comparison)
     if in_place:
         target = real
         bak = write_atomic(real, _graft_writer(real, book, parts, seen), keep_bak)
@@ -81,7 +82,7 @@ def run_book(path: str | Path, backup: bool | None = None,
         bak = write_atomic(_real_file(target), book.save, keep_bak)
     return RunResult(written=target, in_place=in_place, unsupported=parts.unsupported,
                      backup=bak, headline=jsonable(headline(analysis, valuation)),
-                     analysis=analysis, valuation=valuation)
+                     analysis=analysis, valuation=valuation, comparison=comparison)
 
 
 def _graft_writer(path: Path, book, parts, seen):
@@ -178,6 +179,16 @@ def _analyse(inputs):
     settings = parse_settings(inputs.settings)
     if inputs.comp_ids:      # the Comps sheet lists sale IDs
         settings = settings.replace(comp_ids=tuple((i, "") for i in inputs.comp_ids))
+    comparison = None
+    if inputs.models:        # candidates compared; the results follow use_model's candidate
+        from plumbrule.compare import compare
+        comparison = compare(inputs.sales, settings, inputs.models)
+        settings = comparison.settings[comparison.used]
+    elif settings.use_model is not None:
+        from plumbrule.errors import SettingError
+        raise SettingError(f"Setting 'use_model': '{settings.use_model}' names a candidate, "
+                           "but the Models sheet lists none. List it there, or leave "
+                           "use_model blank.", setting="use_model")
     analysis = analyze(inputs.sales, settings)
     valuation = None
     if inputs.subjects is not None:
@@ -194,7 +205,7 @@ def _analyse(inputs):
             valuation = replace(with_grid, estimates=every.estimates, subjects=every.subjects)
         else:
             valuation = valuate(analysis, subjects, comps, settings)
-    return analysis, valuation, settings
+    return analysis, valuation, settings, comparison
 
 
 def _result_book(inputs, with_sales: bool):
@@ -223,8 +234,9 @@ def _result_book(inputs, with_sales: bool):
     return book
 
 
-def write_results(book, analysis, valuation, stamp) -> None:
-    """Create and fill the result sheets (Report first) and the headline names."""
+def write_results(book, analysis, valuation, stamp, comparison=None) -> None:
+    """Create and fill the result sheets (Report first) and the headline names; the
+    Comparison sheet (and its Report section) only with a ``comparison``."""
     from plumbrule.workbook import live, report
     from plumbrule.workbook.cells import ensure_styles
     from plumbrule.workbook.sheets import (
@@ -235,12 +247,17 @@ def write_results(book, analysis, valuation, stamp) -> None:
     )
 
     ensure_styles(book)
-    sheets = {name: book.create_sheet(name) for name in RESULT_SHEETS if name != "Chart data"}
+    sheets = {name: book.create_sheet(name) for name in RESULT_SHEETS if name != "Chart data"
+              and (comparison is not None or name not in OPTIONAL_SHEETS)}
     write_model(sheets["Model"], analysis, stamp)
     write_screening(sheets["Screening"], analysis)
     write_validation(sheets["Validation"], analysis)
     write_valuation(sheets["Valuation"], analysis, valuation, live.write_live_block)
     report.write_report(book, analysis, valuation, stamp)
+    if comparison is not None:
+        from plumbrule.workbook.comparison import add_to_report, write_comparison
+        write_comparison(sheets["Comparison"], comparison)
+        add_to_report(book["Report"], comparison)
     written = [n for n in RESULT_SHEETS if n in book.sheetnames]
     _record_sheets(book, written)
     for ws in book.worksheets:
@@ -368,19 +385,26 @@ def print_run(result: RunResult, as_json: bool = False) -> None:
     """What ``plumbrule run`` prints: where the results went, why, and the headline."""
     import json
     if as_json:
-        print(json.dumps({"workbook": str(result.written), "in_place": result.in_place,
-                          "unsupported_parts": list(result.unsupported),
-                          "backup": str(result.backup) if result.backup else None,
-                          "headline": result.headline}, allow_nan=False, ensure_ascii=False))
+        out = {"workbook": str(result.written), "in_place": result.in_place,
+               "unsupported_parts": list(result.unsupported),
+               "backup": str(result.backup) if result.backup else None,
+               "headline": result.headline}
+        if result.comparison is not None:
+            from plumbrule.render.compare import comparison_object
+            out.update(jsonable(comparison_object(result.comparison)))
+        print(json.dumps(out, allow_nan=False, ensure_ascii=False))
         return
     from plumbrule.render.terminal import visible    # part and file names: ESC shown
     if result.in_place:
-        print(visible(f"Results written to {result.written} (sheets "
-                      f"{', '.join(RESULT_SHEETS[:-1])})."))
+        shown = [n for n in RESULT_SHEETS[:-1]
+                 if result.comparison is not None or n not in OPTIONAL_SHEETS]
+        print(visible(f"Results written to {result.written} (sheets {', '.join(shown)})."))
     else:
         print(visible("plumbrule cannot update this workbook in place without losing "
                       "something: " + "; ".join(result.unsupported) + "."))
         print(visible(f"It was left untouched; the results are in {result.written}."))
     if result.backup:
         print(visible(f"Previous version kept as {result.backup}."))
+    if result.comparison is not None:
+        print(visible(result.comparison.reason))
     print(headline_text(result.headline))

@@ -49,6 +49,10 @@ READ_ME = [
     ("5. Open it again and read the Report sheet first; Model, Screening, Validation and "
      "Valuation hold the tables. Add sales and run again: only plumbrule's own result sheets "
      "are replaced, the previous file is kept as .bak.", "text"),
+    ("Optional: Models lists candidate models to compare (one row each: a name, then only "
+     "the settings that differ from the Settings sheet; blank means the same, 'none' clears a "
+     "list). Each is judged on the same sales, holdout and folds; use_model names the one the "
+     "results follow.", "text"),
     ("", "text"),
     ("Cautions", "heading"),
     (CAUTION, "text"),
@@ -108,6 +112,7 @@ def template_book():
     _subjects(book.create_sheet("Subjects"))
     _comps(book.create_sheet("Comps"))
     _settings(book.create_sheet("Settings"))
+    _models(book.create_sheet("Models"))
     _xlwings_conf(book.create_sheet("xlwings.conf"))
     book.active = 0
     props = book.properties
@@ -217,6 +222,17 @@ def _settings(ws) -> None:
     for letter, width in zip("ABCD", (24, 40, 14, 80), strict=False):
         ws.column_dimensions[letter].width = width
     ws.freeze_panes = "A2"
+
+
+def _models(ws) -> None:
+    """The Models table: a name, then one column per model setting a candidate may change
+    (from the registry, so a new model setting gets its column when the template is
+    rebuilt). Blank rows; a blank cell means "as on the Settings sheet"."""
+    from plumbrule.compare import model_settings
+    columns = ["Model", *model_settings()]
+    _table(ws, "Models", columns, {"Model": 22, "predictors": 40, "categorical": 24,
+                                   "log_predictors": 24, "trend_knots": 24}, {})
+    ws.column_dimensions["A"].width = 22
 
 
 def _default_text(s) -> str:
