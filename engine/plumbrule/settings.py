@@ -336,6 +336,13 @@ REGISTRY: dict[str, Setting] = {
             group="value",
         ),
         _s(
+            "roll_id_column",
+            "text",
+            None,
+            "Roll: the column holding each parcel's ID (default: id_column).",
+            group="value",
+        ),
+        _s(
             "retransform",
             "choice",
             "smearing",
@@ -459,6 +466,7 @@ class Settings:
     comp_same: str | None = None
     comp_months: float | None = None
     backup: bool = True
+    roll_id_column: str | None = None
     extra: tuple = field(default=(), compare=False, repr=False)
 
     def to_dict(self) -> dict[str, Any]:
