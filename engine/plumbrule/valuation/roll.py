@@ -106,7 +106,7 @@ def parcel_block(model, frame: pd.DataFrame, id_column: str, first_row: int,
         else:
             numeric[c] = _numbers(frame[src], c, letters[src], ids,
                                   positive=c in spec.log_predictors)
-    x = np.empty((m, len(enc.terms)))
+    x = np.empty((m, len(enc.terms)), order="F")     # filled column by column
     trend = [j for j, t in enumerate(enc.terms) if t.kind == "trend"]
     for j, t in enumerate(enc.terms):
         if t.kind == "numeric":
@@ -135,22 +135,23 @@ def parcel_ids(cells: pd.Series, column: str, letter: str) -> np.ndarray:
         fixed = None
     if fixed is not None:
         blank = fixed == ""
-        ids = fixed
+        # the cells' own strings when trimming changed none (no million new objects)
+        ids = cells.to_numpy(dtype=object) if (fixed == raw).all() else fixed.astype(object)
     elif kind == "integer":
-        ids = cells.to_numpy(dtype=np.int64).astype(str)
+        ids = cells.to_numpy(dtype=np.int64).astype(str).astype(object)
         blank = np.zeros(len(ids), dtype=bool)
     else:                           # mixed cells: the sheet rules, one cell at a time
         from plumbrule.intake import to_labels
         labels, why = to_labels(cells, column)
         blank = why.notna().to_numpy()
-        ids = labels.fillna("").to_numpy(dtype=str)
+        ids = labels.fillna("").to_numpy(dtype=object)
     if blank.any():
         row = int(rows[int(np.argmax(blank))])
         more = int(blank.sum()) - 1
         extra = f" ({more} more parcels have no ID)" if more else ""
         raise IntakeError(f"Roll, cell {letter}{row} (column '{column}', the parcel ID) is "
                           f"blank{extra}. Give every parcel its ID.", column=column, row=row)
-    check_unique_ids(ids, rows, column, letter)
+    check_unique_ids(fixed if fixed is not None else ids.astype(str), rows, column, letter)
     return ids
 
 
@@ -285,7 +286,8 @@ def value_block(model, block: ParcelBlock, confidence: float, retransform: str,
             cols[k][part] = got[k]
     shared = cols.pop("shared")
     mask = flag_mask(model, block, shared)
-    table = pd.DataFrame({"parcel_id": block.ids, "row": block.rows, **cols,
+    table = pd.DataFrame({"parcel_id": pd.Series(block.ids, dtype=object), "row": block.rows,
+                          **cols,
                           "flags": flag_text(mask, FlagPlan.of(model))}, copy=False)
     return table[ROLL_COLUMNS], mask
 
@@ -431,8 +433,11 @@ def flag_text(mask: np.ndarray, plan: FlagPlan) -> pd.Categorical:
 
 def flag_counts(mask: np.ndarray, plan: FlagPlan) -> np.ndarray:
     """Parcels per flag bit (int64), plus the count of parcels with any flag last."""
-    bits = np.array([(mask >> np.uint64(b)) & np.uint64(1) for b in range(len(plan.names))])
-    return np.append(bits.sum(axis=1).astype(np.int64), int(np.count_nonzero(mask)))
+    inverse, uniq = pd.factorize(mask)
+    per_mask = np.bincount(inverse, minlength=len(uniq))
+    bits = (uniq[:, None] >> np.arange(len(plan.names), dtype=np.uint64)) & np.uint64(1)
+    counts = per_mask @ bits.astype(np.int64)
+    return np.append(counts, int(per_mask[uniq != 0].sum()))
 
 
 def flag_summary(model, plan: FlagPlan, counts: np.ndarray, n: int,
