@@ -60,6 +60,12 @@ def build_parser() -> argparse.ArgumentParser:
                        help="Subject properties: .csv or .xlsx with the sales' columns "
                             "(default for a plumbrule workbook: its Subjects sheet).")
     value.add_argument("--json", action="store_true", help="Print one JSON object.")
+    value.add_argument("--roll", metavar="ROLL",
+                       help="A roll of parcels (.csv or .xlsx with the sales' columns and a "
+                            "parcel ID, see roll_id_column): value every parcel by ID.")
+    value.add_argument("--out", metavar="VALUES",
+                       help="With --roll: write every parcel's value to VALUES.csv, .xlsx or "
+                            ".parquet (parquet needs pyarrow).")
     _add_setting_options(value, FIT_GROUPS + ("value",))
     value.set_defaults(handler=cmd_value)
 
@@ -111,6 +117,12 @@ def cmd_fit(args: argparse.Namespace) -> int:
 
 def cmd_value(args: argparse.Namespace) -> int:
     from plumbrule.cli.inputs import read_inputs
+    if getattr(args, "roll", None):
+        from plumbrule.cli.roll import run_roll
+        return run_roll(args, read_inputs(args))
+    if getattr(args, "out", None):
+        from plumbrule.errors import SettingError
+        raise SettingError("--out writes a roll's values: give the roll with --roll ROLL.csv.")
     from plumbrule.cli.value import run_value
     return run_value(args, read_inputs(args))
 

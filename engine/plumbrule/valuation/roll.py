@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import datetime as _dt
 from dataclasses import dataclass
-from typing import Sequence
+from typing import Callable, Iterable, Sequence
 
 import numpy as np
 import pandas as pd
@@ -451,13 +451,13 @@ def flag_summary(model, plan: FlagPlan, counts: np.ndarray, n: int,
             continue
         if flag == "out of range":
             edge = "smallest" if side == "below" else "largest"
-            note = (f"{int(k):,} parcels have {feature} {side} the {edge} in the sales used "
+            note = (f"{_parcels(k, 'have')} {feature} {side} the {edge} in the sales used "
                     f"({limit:,.6g}): their values are extrapolated")
         elif flag == "one-sale level":
-            note = (f"{int(k):,} parcels are in a {feature} level with one sale: their values "
+            note = (f"{_parcels(k, 'are')} in a {feature} level with one sale: their values "
                     "rest on that sale alone")
         else:
-            note = (f"{int(k):,} parcels have leverage above the largest among the sales used "
+            note = (f"{_parcels(k, 'have')} leverage above the largest among the sales used "
                     f"({limit:.4g}): the sales do not cover their combination of features")
         rows.append(dict(flag=flag, feature=feature, side=side, limit=limit, parcels=int(k),
                          share=int(k) / n, note=note))
@@ -472,6 +472,12 @@ def flag_summary(model, plan: FlagPlan, counts: np.ndarray, n: int,
                              limit=np.nan, parcels=n, share=1.0,
                              note=f"every parcel: {note}"))
     return pd.DataFrame(rows, columns=FLAG_COLUMNS)
+
+
+def _parcels(k, verb: str) -> str:
+    """'1 parcel has', '2,000 parcels have'."""
+    one = {"have": "has", "are": "is"}[verb]
+    return f"1 parcel {one}" if int(k) == 1 else f"{int(k):,} parcels {verb}"
 
 
 def roll_summary(model, n: int, flagged: int, when: _dt.date, confidence: float,
@@ -494,24 +500,55 @@ def value_roll(analysis, frame: pd.DataFrame, settings=None, first_row: int = 2,
     row ``first_row + i``) with ``analysis.model`` at the settings' valuation date. ``limit``
     bounds the parcels held at once (a sheet's rows less its header): past it the message
     says to stream the roll to a file with the command line. Returns a frozen :class:`Roll`."""
-    from plumbrule.valuation.portfolio import portfolio_total
-    settings = settings or analysis.settings
-    model = analysis.model
     n = len(frame)
     if limit is not None and n > limit:
         raise IntakeError(f"The roll has {n:,} parcels; a sheet holds {SHEET_ROWS:,} rows. "
                           "Value it from a file instead: plumbrule value SALES --roll ROLL.csv "
                           "--out VALUES.csv (written in chunks).")
-    if n == 0:
-        raise IntakeError("The roll has no parcels under its header. Enter one row per parcel.")
+    parts: list[pd.DataFrame] = []
+    roll = stream_roll(analysis, [(frame, first_row, first_column)], parts.append, settings)
+    values = parts[0] if len(parts) == 1 else pd.concat(parts, ignore_index=True)
+    return Roll(values=values, flags=roll.flags, summary=roll.summary, total=roll.total)
+
+
+def stream_roll(analysis, chunks: Iterable[tuple[pd.DataFrame, int, int]],
+                write: Callable[[pd.DataFrame], None], settings=None) -> Roll:
+    """Value a roll block by block: ``chunks`` yields (frame, sheet row of its first row,
+    sheet column of its first column); each block's table (ROLL_COLUMNS) goes to ``write``
+    as soon as it is valued, so no more than one block is held. A parcel ID repeated across
+    blocks is found at the end (the caller discards what it wrote). Returns the
+    :class:`Roll` with ``values`` empty (the columns only) and the flags, summary and total
+    of every parcel."""
+    from plumbrule.valuation.portfolio import add_sums, portfolio_sums, total_from_sums
+    settings = settings or analysis.settings
+    model = analysis.model
     when = settings.valuation_date or _dt.date.today()
-    ident = roll_id_column(settings, list(frame.columns))
-    block = parcel_block(model, frame, ident, first_row, first_column)
-    values, mask = value_block(model, block, settings.confidence, settings.retransform, when)
     plan = FlagPlan.of(model)
-    counts = flag_counts(mask, plan)
-    total = portfolio_total(model, block.x, values, settings.confidence, settings.retransform)
-    return Roll(values=values, flags=flag_summary(model, plan, counts, n, when),
+    counts = np.zeros(len(plan.names) + 1, dtype=np.int64)
+    sums = None
+    seen: list[tuple[np.ndarray, np.ndarray]] = []
+    ident, letter = None, ""
+    for frame, first_row, first_column in chunks:
+        if not len(frame):
+            continue
+        if ident is None:
+            ident = roll_id_column(settings, list(frame.columns))
+            letter = _letters(frame.columns, first_column)[ident]
+        block = parcel_block(model, frame, ident, first_row, first_column)
+        table, mask = value_block(model, block, settings.confidence, settings.retransform,
+                                  when)
+        counts += flag_counts(mask, plan)
+        sums = add_sums(sums, portfolio_sums(model, block.x, table, settings.retransform))
+        seen.append((block.ids, block.rows))
+        write(table)
+    if sums is None:
+        raise IntakeError("The roll has no parcels under its header. Enter one row per parcel.")
+    if len(seen) > 1:
+        check_unique_ids(np.concatenate([i for i, _ in seen]).astype(str),
+                         np.concatenate([r for _, r in seen]), ident or "", letter)
+    n = int(sums["m"])
+    return Roll(values=pd.DataFrame(columns=ROLL_COLUMNS),
+                flags=flag_summary(model, plan, counts, n, when),
                 summary=roll_summary(model, n, int(counts[-1]), when, settings.confidence,
                                      settings.retransform),
-                total=total)
+                total=total_from_sums(model, sums, settings.confidence, settings.retransform))
