@@ -54,3 +54,7 @@ Sheets outside RESULT_SHEETS are never touched.
 
 RESULT_SHEETS = ("Report", "Model", "Screening", "Validation", "Valuation", "Chart data")
 INPUT_SHEETS = ("Sales", "Subjects", "Comps", "Settings")
+# Written only when the book asks for them (the Roll sheet has parcels); replaced or removed
+# by a rerun like the others.
+OPTIONAL_RESULT_SHEETS = ("Roll results",)
+OPTIONAL_INPUT_SHEETS = ("Roll",)

@@ -10,8 +10,10 @@ import pandas as pd
 
 
 def fill_template(dest: str | Path, sales: pd.DataFrame, subjects: pd.DataFrame | None = None,
-                  comps: Sequence[int] = (), settings: Mapping[str, Any] | None = None) -> Path:
-    """Write the template filled with these inputs to ``dest`` (overwrites); returns it."""
+                  comps: Sequence[int] = (), settings: Mapping[str, Any] | None = None,
+                  roll: pd.DataFrame | None = None) -> Path:
+    """Write the template filled with these inputs to ``dest`` (overwrites); returns it.
+    ``roll``: parcels for the Roll sheet (an assessor's roll)."""
     from openpyxl import load_workbook
     from plumbrule.workbook.template import packaged_template
     book = load_workbook(packaged_template())
@@ -24,6 +26,8 @@ def fill_template(dest: str | Path, sales: pd.DataFrame, subjects: pd.DataFrame 
                                                           "Note": [""] * len(comps)}))
     if settings:
         set_settings(book, settings)
+    if roll is not None and len(roll):
+        _fill_table(book["Roll"], "Roll", roll)
     dest = Path(dest)
     book.save(dest)
     return dest

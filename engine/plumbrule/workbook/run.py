@@ -29,7 +29,14 @@ from plumbrule.errors import WorkbookError
 from plumbrule.headline import headline
 from plumbrule.render.json import jsonable
 from plumbrule.render.text import headline_text
-from plumbrule.workbook import INPUT_SHEETS, RESULT_SHEETS
+from plumbrule.workbook import (
+    INPUT_SHEETS,
+    OPTIONAL_INPUT_SHEETS,
+    OPTIONAL_RESULT_SHEETS,
+    RESULT_SHEETS,
+)
+
+ALL_RESULT_SHEETS = RESULT_SHEETS + OPTIONAL_RESULT_SHEETS
 
 
 @dataclass(frozen=True)
@@ -43,6 +50,7 @@ class RunResult:
     headline: dict[str, Any] = field(default_factory=dict)
     analysis: Any = None
     valuation: Any = None
+    roll: Any = None          # the valued Roll sheet (valuation/roll.py), None without one
 
 
 def run_book(path: str | Path, backup: bool | None = None,
@@ -67,11 +75,12 @@ def run_book(path: str | Path, backup: bool | None = None,
         check_writable(real)
     inputs = read_inputs(path)
     analysis, valuation, settings = _analyse(inputs)
+    roll = _value_roll(inputs, analysis, settings)
     from plumbrule.workbook.stamp import make_stamp
     stamp = make_stamp(analysis, inputs.sales_hash, source=path.name, now=now)
     keep_bak = settings.backup if backup is None else backup
     book = _result_book(inputs, with_sales=not in_place)
-    write_results(book, analysis, valuation, stamp)
+    write_results(book, analysis, valuation, stamp, roll)
     if in_place:
         target = real
         bak = write_atomic(real, _graft_writer(real, book, parts, seen), keep_bak)
@@ -81,7 +90,7 @@ def run_book(path: str | Path, backup: bool | None = None,
         bak = write_atomic(_real_file(target), book.save, keep_bak)
     return RunResult(written=target, in_place=in_place, unsupported=parts.unsupported,
                      backup=bak, headline=jsonable(headline(analysis, valuation)),
-                     analysis=analysis, valuation=valuation)
+                     analysis=analysis, valuation=valuation, roll=roll)
 
 
 def _graft_writer(path: Path, book, parts, seen):
@@ -90,9 +99,9 @@ def _graft_writer(path: Path, book, parts, seen):
     from plumbrule.workbook.graft import graft
     for ws in book.worksheets:          # the user's choice of tab stays
         ws.sheet_view.tabSelected = False
-    names = [n for n in RESULT_SHEETS if n in book.sheetnames]
+    names = [n for n in ALL_RESULT_SHEETS if n in book.sheetnames]
     data = _to_bytes(book)
-    results = {n.casefold() for n in RESULT_SHEETS}
+    results = {n.casefold() for n in ALL_RESULT_SHEETS}
     replace = [n for n in parts.result_sheets if n.casefold() in results]
 
     def write(tmp):
@@ -158,7 +167,7 @@ def _check_names(parts) -> None:
     """A sheet named like a result sheet that does not carry plumbrule's mark is the
     user's: never replaced, the run refuses (``plumb_sheets`` only shapes the message)."""
     ours = {s.casefold() for s in parts.result_sheets}
-    results = {s.casefold() for s in RESULT_SHEETS}
+    results = {s.casefold() for s in ALL_RESULT_SHEETS}
     listed = {s.casefold() for s in parts.listed}
     for name in parts.sheets:
         key = name.casefold()
@@ -169,7 +178,7 @@ def _check_names(parts) -> None:
             raise WorkbookError(
                 f"The workbook already has a sheet '{name}' that plumbrule did not write."
                 f"{why} Rename it: plumbrule writes its results to the sheets "
-                f"{', '.join(RESULT_SHEETS)}. Nothing was written.", sheet=name)
+                f"{', '.join(ALL_RESULT_SHEETS)}. Nothing was written.", sheet=name)
 
 
 def _analyse(inputs):
@@ -197,6 +206,18 @@ def _analyse(inputs):
     return analysis, valuation, settings
 
 
+def _value_roll(inputs, analysis, settings):
+    """The Roll sheet's parcels valued (bounded by one sheet), or None without a roll."""
+    roll = inputs.roll
+    if roll is None:
+        return None
+    from plumbrule.valuation.roll import SHEET_ROWS, value_roll
+    frame = roll.frame
+    return value_roll(analysis, frame.reset_index(drop=True), settings,
+                      first_row=int(frame.index[0]), first_column=roll.first_column,
+                      limit=SHEET_ROWS - 1)
+
+
 def _result_book(inputs, with_sales: bool):
     """A fresh workbook holding the input values (text-safe, at their sheet rows), for the
     result sheets to be written beside. Only the result sheets are grafted into the
@@ -210,7 +231,7 @@ def _result_book(inputs, with_sales: bool):
     if with_sales:
         blocks["Sales"] = inputs.sales_values
         rows["Sales"] = inputs.sales.header_row
-    for name in INPUT_SHEETS:
+    for name in INPUT_SHEETS + OPTIONAL_INPUT_SHEETS:
         block = blocks.get(name)
         if not block:
             continue
@@ -223,8 +244,9 @@ def _result_book(inputs, with_sales: bool):
     return book
 
 
-def write_results(book, analysis, valuation, stamp) -> None:
-    """Create and fill the result sheets (Report first) and the headline names."""
+def write_results(book, analysis, valuation, stamp, roll=None) -> None:
+    """Create and fill the result sheets (Report first) and the headline names; with a
+    valued ``roll``, the Roll results sheet too."""
     from plumbrule.workbook import live, report
     from plumbrule.workbook.cells import ensure_styles
     from plumbrule.workbook.sheets import (
@@ -241,7 +263,10 @@ def write_results(book, analysis, valuation, stamp) -> None:
     write_validation(sheets["Validation"], analysis)
     write_valuation(sheets["Valuation"], analysis, valuation, live.write_live_block)
     report.write_report(book, analysis, valuation, stamp)
-    written = [n for n in RESULT_SHEETS if n in book.sheetnames]
+    if roll is not None:
+        from plumbrule.workbook.roll_sheet import write_roll
+        write_roll(book.create_sheet("Roll results"), roll)
+    written = [n for n in ALL_RESULT_SHEETS if n in book.sheetnames]
     _record_sheets(book, written)
     for ws in book.worksheets:
         ws.sheet_view.tabSelected = False
@@ -368,10 +393,15 @@ def print_run(result: RunResult, as_json: bool = False) -> None:
     """What ``plumbrule run`` prints: where the results went, why, and the headline."""
     import json
     if as_json:
-        print(json.dumps({"workbook": str(result.written), "in_place": result.in_place,
-                          "unsupported_parts": list(result.unsupported),
-                          "backup": str(result.backup) if result.backup else None,
-                          "headline": result.headline}, allow_nan=False, ensure_ascii=False))
+        out = {"workbook": str(result.written), "in_place": result.in_place,
+               "unsupported_parts": list(result.unsupported),
+               "backup": str(result.backup) if result.backup else None,
+               "headline": result.headline}
+        if result.roll is not None:     # the Roll sheet had parcels
+            from plumbrule.render.json import frame_records
+            out["roll"] = frame_records(result.roll.summary)[0]
+            out["roll_flags"] = frame_records(result.roll.flags)
+        print(json.dumps(out, allow_nan=False, ensure_ascii=False))
         return
     from plumbrule.render.terminal import visible    # part and file names: ESC shown
     if result.in_place:
@@ -383,4 +413,8 @@ def print_run(result: RunResult, as_json: bool = False) -> None:
         print(visible(f"It was left untouched; the results are in {result.written}."))
     if result.backup:
         print(visible(f"Previous version kept as {result.backup}."))
+    if result.roll is not None:
+        s = result.roll.summary.iloc[0]
+        print(f"Roll: {int(s.parcels):,} parcels valued on the Roll results sheet "
+              f"({int(s.flagged):,} flagged).")
     print(headline_text(result.headline))
