@@ -1,5 +1,6 @@
 """The Roll results sheet: every parcel's value by ID from row 1 (a table that loads back as
-it is, under the same column names as ``plumbrule value --roll --out``), and beside it the roll's summary, its flags counted once, its total and the caution."""
+it is, under the same column names as ``plumbrule value --roll --out``), and beside it the
+roll's summary, its flags counted once, its total and the caution."""
 
 from __future__ import annotations
 
