@@ -35,11 +35,25 @@ holdout (so the ratio study is out of sample) and values ``SUBJECTS`` fresh subj
               column of the ratio study table (median, COD, PRD, PRB and any added later).
               On a correct model, a verdict that is not "ok" is a false alarm.
 
+Portfolio section (valuation/portfolio.py, what PLUMB_TOTAL and ``value --json`` portfolio
+report): each replication fits the model to ``--sales`` sales (no holdout) and values a
+portfolio of ``PORTFOLIO`` fresh subjects at the valuation date. Figures per scenario:
+
+* total CI    share of replications whose CI of the total contains the true total of the
+              means Σ E[price | xᵢ] (price model: exact t; log model: delta method)
+* total PI    share whose PI of the total contains the total of one fresh sale at each xᵢ
+* naive CI / naive PI   the same for the sum of the subjects' own interval bounds (what a
+              spreadsheet user gets by adding the intervals), beside the width ratio
+              naive / honest
+* indep. CI   the interval that treats the estimates as independent (√Σ se²), which ignores
+              that they share one set of coefficients
+
 Standard errors: binomial √(p(1 − p)/reps) for one-per-replication figures; for subject
 figures, the standard error of the mean of the per-replication shares (subjects valued by the
 same fit are not independent; with one subject it is the binomial one).
 
 Run: python benchmarks/coverage.py [--reps N] [--seed S] [--sales N] [--only TEXT]
+     [--section all|subjects|portfolio] [--portfolio-reps N]
 """
 
 from __future__ import annotations
@@ -265,6 +279,58 @@ def replicate(sc: Scenario, rng: np.random.Generator, n_sales: int) -> dict:
     return out
 
 
+PORTFOLIO = 25           # subjects in each replication's portfolio
+
+PORTFOLIO_SCENARIOS = [
+    Scenario("levels, normal", False, "normal"),
+    Scenario("levels, hetero, HC3", False, "hetero", {"robust_se": "HC3"}),
+    Scenario("log, normal", True, "normal"),
+    Scenario("log, skewed (gamma)", True, "skewed"),
+    Scenario("log, normal, lognormal factor", True, "normal", {"retransform": "lognormal"}),
+]
+
+
+def replicate_portfolio(sc: Scenario, rng: np.random.Generator, n_sales: int) -> dict:
+    """One market, one fit on every sale, one portfolio of PORTFOLIO subjects: whether each
+    interval of the total covers, and the naive interval's width over the honest one."""
+    from plumbrule.analysis import analyze
+    from plumbrule.valuation.estimates import valuate
+
+    f = draw_features(rng, n_sales)
+    frame = sales_frame(f, prices(rng, f, sc.log, sc.errors, sc.noise))
+    settings = {**model_settings(sc.log), "holdout": None, **NO_SCREENING, **sc.settings}
+    a = analyze(frame, settings)
+    s = draw_features(rng, PORTFOLIO)
+    s["day"] = np.full(PORTFOLIO, VALUATION_DAY)
+    port = valuate(a, sales_frame(s)).portfolio.iloc[0]
+    true_total = float(np.sum(true_mean(s, sc.log, sc.errors, sc.noise)))
+    fresh_total = float(np.sum(prices(rng, s, sc.log, sc.errors, sc.noise)))
+
+    def inside(low, high, value):
+        return float(port[low] <= value <= port[high])
+    return {"total CI": inside("ci_low", "ci_high", true_total),
+            "total PI": inside("pi_low", "pi_high", fresh_total),
+            "naive CI": inside("naive_ci_low", "naive_ci_high", true_total),
+            "naive PI": inside("naive_pi_low", "naive_pi_high", fresh_total),
+            "indep. CI": inside("independent_ci_low", "independent_ci_high", true_total),
+            "naive/honest CI width": float(port["naive_ci_ratio"]),
+            "naive/honest PI width": float(port["naive_pi_ratio"])}
+
+
+def run_portfolio(sc: Scenario, reps: int, seed: int, n_sales: int) -> pd.DataFrame:
+    rng = np.random.default_rng([seed, zlib.crc32(("portfolio " + sc.name).encode())])
+    return pd.DataFrame([replicate_portfolio(sc, rng, n_sales) for _ in range(reps)])
+
+
+def summarise_portfolio(sc: Scenario, res: pd.DataFrame, n_sales: int) -> dict:
+    out = {"scenario": sc.name, "n_sales": n_sales, "reps": len(res), "subjects": PORTFOLIO}
+    for k in ("total CI", "total PI", "naive CI", "naive PI", "indep. CI"):
+        out[k] = share_and_se(res[k], False)
+    for k in ("naive/honest CI width", "naive/honest PI width"):
+        out[k] = f"{res[k].mean():.2f}"
+    return out
+
+
 @lru_cache(maxsize=None)
 def noisy_sd(log: bool) -> float:
     """The upper quartile of the error SD over the market in the 'hetero' scenarios
@@ -345,7 +411,37 @@ def main(argv=None) -> None:
     ap.add_argument("--sales", type=int, default=400,
                     help="sales per replication, 30%% of them held out (400)")
     ap.add_argument("--only", default="", help="run only scenarios whose name contains TEXT")
+    ap.add_argument("--section", default="all", choices=("all", "subjects", "portfolio"))
+    ap.add_argument("--portfolio-reps", type=int, default=200,
+                    help="replications per portfolio scenario (200)")
     args = ap.parse_args(argv)
+    if args.section in ("all", "subjects"):
+        subjects_section(args)
+    if args.section in ("all", "portfolio"):
+        portfolio_section(args)
+
+
+def portfolio_section(args) -> None:
+    t0 = time.perf_counter()
+    rows = []
+    for sc in PORTFOLIO_SCENARIOS:
+        if args.only and args.only not in sc.name:
+            continue
+        res = run_portfolio(sc, args.portfolio_reps, args.seed, args.sales)
+        rows.append(summarise_portfolio(sc, res, args.sales))
+        print(f"  portfolio {sc.name}: {time.perf_counter() - t0:.0f} s", file=sys.stderr)
+    print(f"\nPortfolio total: coverage of nominal 95 % intervals of the total of {PORTFOLIO} "
+          "subjects (one portfolio per replication, all sales in the fit; value ±binomial "
+          "standard error)\n")
+    print(plain_table(rows))
+    print("\ntotal CI / total PI: plumbrule's interval of the total (valuation/portfolio.py); "
+          "naive: the sum of the subjects' own bounds; indep.: √Σse², as if the estimates were "
+          "independent. Nominal 0.950.")
+    print(f"wall time {time.perf_counter() - t0:.1f} s (portfolio reps {args.portfolio_reps}, "
+          f"seed {args.seed}, sales {args.sales})")
+
+
+def subjects_section(args) -> None:
 
     t0 = time.perf_counter()
     intervals, verdicts = [], []

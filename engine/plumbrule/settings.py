@@ -353,6 +353,13 @@ REGISTRY: dict[str, Setting] = {
             group="value",
         ),
         _s(
+            "roll_id_column",
+            "text",
+            None,
+            "Roll: the column holding each parcel's ID (default: id_column).",
+            group="value",
+        ),
+        _s(
             "retransform",
             "choice",
             "smearing",
@@ -542,6 +549,7 @@ class Settings:
     property_rights: str | None = None
     compare_by: str = "mape"
     use_model: str | None = None
+    roll_id_column: str | None = None
     extra: tuple = field(default=(), compare=False, repr=False)
 
     def to_dict(self) -> dict[str, Any]:

@@ -175,7 +175,7 @@ def test_a_rerun_reads_any_spelling_of_workbook_xml(book, tmp_path, dialect):
         ("_xlnm.Print_Area", "Sales"), ("_xlnm.Print_Area", "Report")]
     after = _parts(src)
     user = [p for n, _, p in sheets if n not in RESULT_SHEETS]
-    assert len(user) == 7          # Read me, Sales, Subjects, Comps, Settings, Models, xlwings.conf
+    assert len(user) == 8          # Read me, Sales, Subjects, Comps, Settings, Models, Roll, xlwings.conf
     for part in user:
         assert after[part] == before[part], part
 

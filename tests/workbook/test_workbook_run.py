@@ -12,7 +12,7 @@ import pytest
 
 from workbook_snapshot import snapshot
 from plumbrule.cli.main import main
-from plumbrule.workbook import INPUT_SHEETS, RESULT_SHEETS
+from plumbrule.workbook import INPUT_SHEETS, OPTIONAL_INPUT_SHEETS, RESULT_SHEETS
 
 NOW = dt.datetime(2026, 1, 5, 12, 0, tzinfo=dt.timezone.utc)
 HEADLINE_NAMES = ["plumb_estimate", "plumb_pi_low", "plumb_pi_high", "plumb_r_squared",
@@ -38,7 +38,7 @@ def test_run_writes_the_result_sheets_after_the_inputs(ran):
     from openpyxl import load_workbook
     book = load_workbook(ran)
     names = book.sheetnames
-    assert names[:7] == ["Read me", *INPUT_SHEETS, "xlwings.conf"]
+    assert names[:8] == ["Read me", *INPUT_SHEETS, *OPTIONAL_INPUT_SHEETS, "xlwings.conf"]
     assert [n for n in names if n in RESULT_SHEETS][:5] == list(RESULT_SHEETS[:5])
     assert book.active.title == "Read me"      # the user's choice of tab is not changed
     assert not any(ws.sheet_view.tabSelected for ws in book.worksheets if ws.title != "Read me")
@@ -336,7 +336,7 @@ def test_moved_result_sheets_and_local_names_survive_a_rerun(ran, tmp_path):
     wb.save(book)
     run_book(book, backup=False)
     wb = load_workbook(book)
-    assert wb.sheetnames[:7] == ["Read me", *INPUT_SHEETS, "xlwings.conf"]
+    assert wb.sheetnames[:8] == ["Read me", *INPUT_SHEETS, *OPTIONAL_INPUT_SHEETS, "xlwings.conf"]
     assert wb.active.title == "Sales"
     assert wb["Sales"].print_area == "'Sales'!$A$1:$D$20"
     assert "Report" in wb.sheetnames

@@ -30,7 +30,9 @@ def test_template_sheets_and_tables(built):
     from openpyxl import load_workbook
     book = load_workbook(built)
     assert book.sheetnames == ["Read me", "Sales", "Subjects", "Comps", "Settings", "Models",
+                               "Roll",
                                "xlwings.conf"]
+    assert "Roll" in book["Roll"].tables      # an assessor's roll, optional
     sales = book["Sales"].tables["Sales"]
     assert sales.ref.startswith("A1:")
     assert [c.value for c in book["Sales"][1]] == SALES_COLUMNS

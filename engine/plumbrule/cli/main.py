@@ -62,10 +62,16 @@ def build_parser() -> argparse.ArgumentParser:
 
     _data_command(sub, "fit", handler=cmd_fit, groups=FIT_GROUPS,
                   help="Fit the model to a CSV or xlsx sales table.")
-    _data_command(sub, "value", handler=cmd_value, groups=FIT_GROUPS + ("value",),
-                  help="Value subject properties with intervals and a grid.",
-                  subjects="Subject properties: .csv or .xlsx with the sales' columns "
-                           "(default for a plumbrule workbook: its Subjects sheet).")
+    value = _data_command(sub, "value", handler=cmd_value, groups=FIT_GROUPS + ("value",),
+                          help="Value subject properties with intervals and a grid.",
+                          subjects="Subject properties: .csv or .xlsx with the sales' columns "
+                                   "(default for a plumbrule workbook: its Subjects sheet).")
+    value.add_argument("--roll", metavar="ROLL",
+                       help="A roll of parcels (.csv or .xlsx with the sales' columns and a "
+                            "parcel ID, see roll_id_column): value every parcel by ID.")
+    value.add_argument("--out", metavar="VALUES",
+                       help="With --roll: write every parcel's value to VALUES.csv, .xlsx or "
+                            ".parquet (parquet needs pyarrow).")
     _data_command(sub, "comps", handler=cmd_comps, groups=FIT_GROUPS + ("value",),
                   help="Suggest comparables: the sales the model adjusts least to the "
                        "subject, with their grid.",
@@ -121,6 +127,12 @@ def cmd_fit(args: argparse.Namespace) -> int:
 
 def cmd_value(args: argparse.Namespace) -> int:
     from plumbrule.cli.inputs import read_inputs
+    if getattr(args, "roll", None):
+        from plumbrule.cli.roll import run_roll
+        return run_roll(args, read_inputs(args))
+    if getattr(args, "out", None):
+        from plumbrule.errors import SettingError
+        raise SettingError("--out writes a roll's values: give the roll with --roll ROLL.csv.")
     from plumbrule.cli.value import run_value
     return run_value(args, read_inputs(args))
 

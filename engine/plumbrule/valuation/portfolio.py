@@ -22,6 +22,8 @@ added. With one subject under the lognormal factor this is the single-sale inter
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import pandas as pd
 
@@ -44,47 +46,79 @@ def portfolio_total(model, x: np.ndarray, estimates: pd.DataFrame, confidence: f
     intervals, their width as a multiple of the honest one, and the interval that treats the
     estimates as independent. Empty (the columns only) for fewer than two subjects.
     ``x`` is the subjects' design (m × k, user units), ``estimates`` their estimate table."""
-    m = len(x)
+    return total_from_sums(model, portfolio_sums(model, x, estimates, retransform),
+                           confidence, retransform)
+
+
+def portfolio_sums(model, x: np.ndarray, estimates: pd.DataFrame, retransform: str
+                   ) -> dict[str, Any]:
+    """The sums the total needs, over the rows of ``x`` (design) and ``estimates`` (their
+    estimate table): sums of two blocks add (:func:`add_sums`), so a roll too large to hold
+    at once is totalled block by block. Money in price units."""
+    est = estimates["estimate"].to_numpy(dtype=float)
+    out: dict[str, Any] = dict(
+        m=len(x), sum_x=x.sum(axis=0), sum_est=float(est.sum()),
+        sum_var=float(np.sum(estimates["se_mean"].to_numpy(dtype=float) ** 2)),
+        ci_low=float(estimates["ci_low"].sum()), ci_high=float(estimates["ci_high"].sum()),
+        pi_low=float(estimates["pi_low"].sum()), pi_high=float(estimates["pi_high"].sum()))
+    if model.spec.log_response:
+        mean_kind = "lognormal" if retransform == "lognormal" else "smearing"
+        mean_each = model.retransform_factor(mean_kind) * np.exp(model.predict(x))
+        out.update(sum_est_x=est @ x, sum_mean=float(mean_each.sum()),
+                   sum_mean_sq=float(mean_each @ mean_each))
+    else:
+        out["sum_eta"] = float(model.predict(x).sum())
+    return out
+
+
+def add_sums(a: dict[str, Any] | None, b: dict[str, Any]) -> dict[str, Any]:
+    """The sums of two blocks of subjects (``a`` None: the first block)."""
+    return dict(b) if a is None else {k: a[k] + b[k] for k in b}
+
+
+def total_from_sums(model, sums: dict[str, Any], confidence: float, retransform: str
+                    ) -> pd.DataFrame:
+    """The row of :func:`portfolio_total` from the :func:`portfolio_sums` of all subjects."""
+    m = int(sums["m"])
     if m < 2:
         return pd.DataFrame(columns=PORTFOLIO_COLUMNS)
     from plumbrule.valuation.estimates import log_mean_variance, mean_variance, working_vectors
     fit = model.fit
     q = model.t_quantile(confidence)
-    est = estimates["estimate"].to_numpy(dtype=float)
     if not model.spec.log_response:
-        total = float(model.predict(x).sum())
-        vs = working_vectors(fit, x).sum(axis=0, keepdims=True)
+        total = sums["sum_eta"]
+        # v(x) is affine in x: Σᵢ v(xᵢ) = m·v(Σx/m), so one working vector serves
+        vs = m * working_vectors(fit, (sums["sum_x"] / m)[None, :])
         se = float(np.sqrt(mean_variance(model, vs)[0]))
         se_s = float(np.sqrt(se ** 2 + m * fit.sigma ** 2))
         ci = (total - q * se, total + q * se)
         pi = (total - q * se_s, total + q * se_s)
-        indep = float(np.sqrt(np.sum(estimates["se_mean"].to_numpy(dtype=float) ** 2)))
+        indep = float(np.sqrt(sums["sum_var"]))
         ind = (total - q * indep, total + q * indep)
         method = METHOD_PRICE
     else:
-        total = float(est.sum())
-        xw = (est / total) @ x
+        total = sums["sum_est"]
+        xw = sums["sum_est_x"] / total
         vw = working_vectors(fit, xw[None, :])
         s_log = float(np.sqrt(log_mean_variance(model, vw, retransform)[0]))
         se = total * s_log
         ci = (total * np.exp(-q * s_log), total * np.exp(q * s_log))
         # the future total's mean: its factor is a mean factor even when medians are reported
         mean_kind = "lognormal" if retransform == "lognormal" else "smearing"
-        mean_each = model.retransform_factor(mean_kind) * np.exp(model.predict(x))
-        mean_total = float(mean_each.sum())
+        mean_total = sums["sum_mean"]
         kappa = _relative_sale_variance(fit, mean_kind)
-        s2_sum = float(np.log1p(kappa * np.sum(mean_each ** 2) / mean_total ** 2))
+        s2_sum = float(np.log1p(kappa * sums["sum_mean_sq"] / mean_total ** 2))
         s_log_m = s_log if mean_kind == retransform else float(
             np.sqrt(log_mean_variance(model, vw, mean_kind)[0]))
         s_pi = float(np.sqrt(s2_sum + s_log_m ** 2))
         centre = np.log(mean_total) - s2_sum / 2.0
         pi = (float(np.exp(centre - q * s_pi)), float(np.exp(centre + q * s_pi)))
         se_s = mean_total * float(np.sqrt(np.expm1(s2_sum) + s_log_m ** 2))
-        indep_rel = float(np.sqrt(np.sum(estimates["se_mean"].to_numpy(dtype=float) ** 2))) / total
+        indep_rel = float(np.sqrt(sums["sum_var"])) / total
         ind = (total * np.exp(-q * indep_rel), total * np.exp(q * indep_rel))
         method = METHOD_LOG
-    naive_ci = (float(estimates["ci_low"].sum()), float(estimates["ci_high"].sum()))
-    naive_pi = (float(estimates["pi_low"].sum()), float(estimates["pi_high"].sum()))
+    naive_ci = (sums["ci_low"], sums["ci_high"])
+    naive_pi = (sums["pi_low"], sums["pi_high"])
     ci_ratio = (naive_ci[1] - naive_ci[0]) / (ci[1] - ci[0])
     pi_ratio = (naive_pi[1] - naive_pi[0]) / (pi[1] - pi[0])
     row = dict(n=m, total=total, se_total=se, ci_low=float(ci[0]), ci_high=float(ci[1]),

@@ -58,3 +58,7 @@ RESULT_SHEETS = ("Report", "Model", "Screening", "Validation", "Valuation", "Com
 # written only when the Models sheet lists candidate models
 OPTIONAL_SHEETS = ("Comparison",)
 INPUT_SHEETS = ("Sales", "Subjects", "Comps", "Settings", "Models")
+# Written only when the book asks for them (the Roll sheet has parcels); replaced or removed
+# by a rerun like the others.
+OPTIONAL_RESULT_SHEETS = ("Roll results",)
+OPTIONAL_INPUT_SHEETS = ("Roll",)

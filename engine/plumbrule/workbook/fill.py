@@ -11,9 +11,11 @@ import pandas as pd
 
 def fill_template(dest: str | Path, sales: pd.DataFrame, subjects: pd.DataFrame | None = None,
                   comps: Sequence[int] = (), settings: Mapping[str, Any] | None = None,
-                  models: pd.DataFrame | None = None) -> Path:
+                  models: pd.DataFrame | None = None,
+                  roll: pd.DataFrame | None = None) -> Path:
     """Write the template filled with these inputs to ``dest`` (overwrites); returns it.
-    ``models``: candidate models for the Models table (a Model column, then settings)."""
+    ``models``: candidate models for the Models table (a Model column, then settings);
+    ``roll``: parcels for the Roll sheet (an assessor's roll)."""
     from openpyxl import load_workbook
     from plumbrule.workbook.template import packaged_template
     book = load_workbook(packaged_template())
@@ -31,6 +33,8 @@ def fill_template(dest: str | Path, sales: pd.DataFrame, subjects: pd.DataFrame 
         heads = [c.value for c in ws[1] if c.value]
         extra = [c for c in models.columns if c not in heads]
         _fill_table(ws, "Models", models.reindex(columns=heads + extra))
+    if roll is not None and len(roll):
+        _fill_table(book["Roll"], "Roll", roll)
     dest = Path(dest)
     book.save(dest)
     return dest

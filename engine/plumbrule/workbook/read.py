@@ -38,6 +38,7 @@ class BookInputs:
     other_rows: dict            # sheet name → sheet row of that block's first row
     comp_ids: tuple[str, ...] = ()          # the Comps sheet lists sale IDs
     models: tuple = ()                      # candidate models (plumbrule.compare.Candidate)
+    roll: SheetTable | None = None          # the Roll sheet's parcels (None: no rows)
 
 
 def read_inputs(path: str | Path) -> BookInputs:
@@ -80,6 +81,14 @@ def read_inputs(path: str | Path) -> BookInputs:
         comp_block, comp_row, comp_sheet = _block(book, "Comps")
         if comp_block:
             other["Comps"], other_rows["Comps"] = comp_block, comp_row
+        roll_block, roll_row, roll_sheet, roll_col, _ = _block_at(book, "Roll")
+        roll = None
+        if roll_block and len(roll_block) > 1:
+            other["Roll"], other_rows["Roll"] = roll_block, roll_row
+            roll = table_from_values(roll_block, header_row=roll_row, sheet=roll_sheet,
+                                     first_column=roll_col)
+            if len(roll.frame) == 0:
+                roll = None
         set_block, set_row, set_sheet = _block(book, "Settings")
         if set_block:
             other["Settings"], other_rows["Settings"] = set_block, set_row
@@ -99,6 +108,7 @@ def read_inputs(path: str | Path) -> BookInputs:
             other_values=other,
             other_rows=other_rows,
             models=models,
+            roll=roll,
         )
     finally:
         book.close()

@@ -29,7 +29,15 @@ from plumbrule.errors import WorkbookError
 from plumbrule.headline import headline
 from plumbrule.render.json import jsonable
 from plumbrule.render.text import headline_text
-from plumbrule.workbook import INPUT_SHEETS, OPTIONAL_SHEETS, RESULT_SHEETS
+from plumbrule.workbook import (
+    INPUT_SHEETS,
+    OPTIONAL_SHEETS,
+    OPTIONAL_INPUT_SHEETS,
+    OPTIONAL_RESULT_SHEETS,
+    RESULT_SHEETS,
+)
+
+ALL_RESULT_SHEETS = RESULT_SHEETS + OPTIONAL_RESULT_SHEETS
 
 
 @dataclass(frozen=True)
@@ -44,6 +52,7 @@ class RunResult:
     analysis: Any = None
     valuation: Any = None
     comparison: Any = None      # plumbrule.compare.Comparison, when Models lists candidates
+    roll: Any = None          # the valued Roll sheet (valuation/roll.py), None without one
 
 
 def run_book(path: str | Path, backup: bool | None = None,
@@ -68,11 +77,12 @@ def run_book(path: str | Path, backup: bool | None = None,
         check_writable(real)
     inputs = read_inputs(path)
     analysis, valuation, settings, comparison = _analyse(inputs)
+    roll = _value_roll(inputs, analysis, settings)
     from plumbrule.workbook.stamp import make_stamp
     stamp = make_stamp(analysis, inputs.sales_hash, source=path.name, now=now)
     keep_bak = settings.backup if backup is None else backup
     book = _result_book(inputs, with_sales=not in_place)
-    write_results(book, analysis, valuation, stamp, comparison)
+    write_results(book, analysis, valuation, stamp, comparison, roll)
     if in_place:
         target = real
         bak = write_atomic(real, _graft_writer(real, book, parts, seen), keep_bak)
@@ -82,7 +92,8 @@ def run_book(path: str | Path, backup: bool | None = None,
         bak = write_atomic(_real_file(target), book.save, keep_bak)
     return RunResult(written=target, in_place=in_place, unsupported=parts.unsupported,
                      backup=bak, headline=jsonable(headline(analysis, valuation)),
-                     analysis=analysis, valuation=valuation, comparison=comparison)
+                     analysis=analysis, valuation=valuation, comparison=comparison,
+                     roll=roll)
 
 
 def _graft_writer(path: Path, book, parts, seen):
@@ -91,9 +102,9 @@ def _graft_writer(path: Path, book, parts, seen):
     from plumbrule.workbook.graft import graft
     for ws in book.worksheets:          # the user's choice of tab stays
         ws.sheet_view.tabSelected = False
-    names = [n for n in RESULT_SHEETS if n in book.sheetnames]
+    names = [n for n in ALL_RESULT_SHEETS if n in book.sheetnames]
     data = _to_bytes(book)
-    results = {n.casefold() for n in RESULT_SHEETS}
+    results = {n.casefold() for n in ALL_RESULT_SHEETS}
     replace = [n for n in parts.result_sheets if n.casefold() in results]
 
     def write(tmp):
@@ -159,7 +170,7 @@ def _check_names(parts) -> None:
     """A sheet named like a result sheet that does not carry plumbrule's mark is the
     user's: never replaced, the run refuses (``plumb_sheets`` only shapes the message)."""
     ours = {s.casefold() for s in parts.result_sheets}
-    results = {s.casefold() for s in RESULT_SHEETS}
+    results = {s.casefold() for s in ALL_RESULT_SHEETS}
     listed = {s.casefold() for s in parts.listed}
     for name in parts.sheets:
         key = name.casefold()
@@ -170,7 +181,7 @@ def _check_names(parts) -> None:
             raise WorkbookError(
                 f"The workbook already has a sheet '{name}' that plumbrule did not write."
                 f"{why} Rename it: plumbrule writes its results to the sheets "
-                f"{', '.join(RESULT_SHEETS)}. Nothing was written.", sheet=name)
+                f"{', '.join(ALL_RESULT_SHEETS)}. Nothing was written.", sheet=name)
 
 
 def _analyse(inputs):
@@ -208,6 +219,18 @@ def _analyse(inputs):
     return analysis, valuation, settings, comparison
 
 
+def _value_roll(inputs, analysis, settings):
+    """The Roll sheet's parcels valued (bounded by one sheet), or None without a roll."""
+    roll = inputs.roll
+    if roll is None:
+        return None
+    from plumbrule.valuation.roll import SHEET_ROWS, value_roll
+    frame = roll.frame
+    return value_roll(analysis, frame.reset_index(drop=True), settings,
+                      first_row=int(frame.index[0]), first_column=roll.first_column,
+                      limit=SHEET_ROWS - 1)
+
+
 def _result_book(inputs, with_sales: bool):
     """A fresh workbook holding the input values (text-safe, at their sheet rows), for the
     result sheets to be written beside. Only the result sheets are grafted into the
@@ -221,7 +244,7 @@ def _result_book(inputs, with_sales: bool):
     if with_sales:
         blocks["Sales"] = inputs.sales_values
         rows["Sales"] = inputs.sales.header_row
-    for name in INPUT_SHEETS:
+    for name in INPUT_SHEETS + OPTIONAL_INPUT_SHEETS:
         block = blocks.get(name)
         if not block:
             continue
@@ -234,9 +257,10 @@ def _result_book(inputs, with_sales: bool):
     return book
 
 
-def write_results(book, analysis, valuation, stamp, comparison=None) -> None:
+def write_results(book, analysis, valuation, stamp, comparison=None, roll=None) -> None:
     """Create and fill the result sheets (Report first) and the headline names; the
-    Comparison sheet (and its Report section) only with a ``comparison``."""
+    Comparison sheet (and its Report section) only with a ``comparison``; with a valued
+    ``roll``, the Roll results sheet too."""
     from plumbrule.workbook import live, report
     from plumbrule.workbook.cells import ensure_styles
     from plumbrule.workbook.sheets import (
@@ -258,7 +282,10 @@ def write_results(book, analysis, valuation, stamp, comparison=None) -> None:
         from plumbrule.workbook.comparison import add_to_report, write_comparison
         write_comparison(sheets["Comparison"], comparison)
         add_to_report(book["Report"], comparison)
-    written = [n for n in RESULT_SHEETS if n in book.sheetnames]
+    if roll is not None:
+        from plumbrule.workbook.roll_sheet import write_roll
+        write_roll(book.create_sheet("Roll results"), roll)
+    written = [n for n in ALL_RESULT_SHEETS if n in book.sheetnames]
     _record_sheets(book, written)
     for ws in book.worksheets:
         ws.sheet_view.tabSelected = False
@@ -392,6 +419,10 @@ def print_run(result: RunResult, as_json: bool = False) -> None:
         if result.comparison is not None:
             from plumbrule.render.compare import comparison_object
             out.update(jsonable(comparison_object(result.comparison)))
+        if result.roll is not None:     # the Roll sheet had parcels
+            from plumbrule.render.json import frame_records
+            out["roll"] = frame_records(result.roll.summary)[0]
+            out["roll_flags"] = frame_records(result.roll.flags)
         print(json.dumps(out, allow_nan=False, ensure_ascii=False))
         return
     from plumbrule.render.terminal import visible    # part and file names: ESC shown
@@ -407,4 +438,8 @@ def print_run(result: RunResult, as_json: bool = False) -> None:
         print(visible(f"Previous version kept as {result.backup}."))
     if result.comparison is not None:
         print(visible(result.comparison.reason))
+    if result.roll is not None:
+        s = result.roll.summary.iloc[0]
+        print(f"Roll: {int(s.parcels):,} parcels valued on the Roll results sheet "
+              f"({int(s.flagged):,} flagged).")
     print(headline_text(result.headline))

@@ -19,6 +19,8 @@ SALES_COLUMNS = ["Sale ID", "Sale price", "Living area", "Lot size", "Age", "Bed
                  "Bathrooms", "Condition", "Neighbourhood", "Sale date", "Notes"]
 SUBJECT_COLUMNS = ["Subject", "Living area", "Lot size", "Age", "Bedrooms", "Bathrooms",
                    "Condition", "Neighbourhood"]
+ROLL_COLUMNS = ["Parcel", "Living area", "Lot size", "Age", "Bedrooms", "Bathrooms",
+                "Condition", "Neighbourhood"]
 COMP_COLUMNS = ["Sales row", "Note"]
 SETTINGS_COLUMNS = ["Setting", "Value", "Default", "What it does"]
 # The example columns come filled in, so the template runs once sales are pasted.
@@ -28,6 +30,7 @@ TEMPLATE_VALUES = {
     "categorical": "Condition,Neighbourhood",
     "date_column": "Sale date",
     "id_column": "Sale ID",
+    "roll_id_column": "Parcel",
 }
 _FIXED_TIME = _dt.datetime(2024, 1, 1)      # document properties: same on every build
 
@@ -44,7 +47,8 @@ READ_ME = [
      "uses the default shown beside it.", "text"),
     ("3. Subjects: enter the properties to value, with the same column names as the Sales "
      "table. Comps: enter the sheet row numbers (on the Sales sheet) of up to 10 comparable "
-     "sales.", "text"),
+     "sales. Roll (optional, for an assessor): one row per parcel with its ID in Parcel and "
+     "the same columns; every parcel is valued on the Roll results sheet.", "text"),
     ("4. Save and close the workbook, then run:  plumbrule run THIS-FILE.xlsx", "text"),
     ("5. Open it again and read the Report sheet first; Model, Screening, Validation and "
      "Valuation hold the tables. Add sales and run again: only plumbrule's own result sheets "
@@ -113,6 +117,7 @@ def template_book():
     _comps(book.create_sheet("Comps"))
     _settings(book.create_sheet("Settings"))
     _models(book.create_sheet("Models"))
+    _roll(book.create_sheet("Roll"))
     _xlwings_conf(book.create_sheet("xlwings.conf"))
     book.active = 0
     props = book.properties
@@ -169,6 +174,10 @@ def _sales(ws) -> None:
 
 def _subjects(ws) -> None:
     _table(ws, "Subjects", SUBJECT_COLUMNS, {"Subject": 20, "Neighbourhood": 16}, {})
+
+
+def _roll(ws) -> None:
+    _table(ws, "Roll", ROLL_COLUMNS, {"Parcel": 14, "Neighbourhood": 16}, {})
 
 
 def _comps(ws) -> None:
