@@ -166,6 +166,8 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     table = as_table(source, settings.header_row)
     sales = prepare_sales(table, settings)
     spec, clean = sales.spec, sales.clean
+    # how a reader names each sale; label_column is matched here, at the edge, before the fit
+    names = sale_names(table, clean.data, spec, sales.shown_ids, settings.label_column)
     columns = spec.screened
     train, hold, fit_log, looked, moved = _screen_and_split(sales, settings)
     model = fit_model(spec, train, robust_se=settings.robust_se,
@@ -190,7 +192,6 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         checks.append(_moved_check(moved))
     ids = sales.ids
     day = valuation_day(settings)
-    names = sale_names(table, clean.data, spec, sales.shown_ids, settings.label_column)
 
     def named(frame, ident):
         return with_names(with_ids(frame, ident), names)

@@ -163,8 +163,10 @@ def test_changed_feature_recalculates_to_the_engine_value(demo_book, office, tmp
     wb = openpyxl.load_workbook(path)
     ws = wb["Valuation"]
     inputs = {}
+    live = False          # the input cells are in the live block, below the adjustment grid
     for row in ws.iter_rows(min_col=1, max_col=2):   # the first match is the input cell;
-        if row[0].value in ("Condition", "Age"):      # 'Age' is also a term further down
+        live = live or row[0].value == "Try a subject"
+        if live and row[0].value in ("Condition", "Age"):   # 'Age' is also a term below
             inputs.setdefault(row[0].value, row[1])
     inputs["Condition"].value = "Poor"
     inputs["Age"].value = 60
@@ -189,7 +191,7 @@ def test_report_exports_to_pdf_with_its_charts(demo_book, office, tmp_path):
     text = subprocess.run([gs, "-q", "-dNOPAUSE", "-dBATCH", "-sDEVICE=txtwrite",
                            "-sOutputFile=-", str(pdf)], capture_output=True, text=True,
                           timeout=240).stdout
-    assert "Valuation report" in text and "not an appraisal" in text
+    assert "Valuation of 14 Lantern Row" in text and "not an appraisal" in text
     # chart titles are drawn by the chart renderer: their text proves the charts printed
     assert "Normal quantile plot of residuals" in text
     assert "before and after screening" in text
@@ -210,7 +212,9 @@ def test_libreoffice_keeps_every_report_chart(demo_book, office, tmp_path):
             return sorted(n for n in z.namelist()
                           if re.fullmatch(r"xl/charts/[\w-]*chart\d+\.xml", n))
     before = charts(path)
-    assert len(before) >= 8                     # 4 model charts + a box plot per screened column
+    # 4 model charts + a box plot per screened column with more than 10 distinct values (the
+    # demo's living area, lot size and age; its bathrooms take 9 values and get none)
+    assert len(before) >= 7
     assert len(charts(office(path, "xlsx", tmp_path))) == len(before)
 
 

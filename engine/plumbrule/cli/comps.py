@@ -71,8 +71,8 @@ def render_comps(result, theirs, analysis) -> str:
              f"{money(est['estimate'])}", ""]
     cells = []
     for rec in sug.itertuples(index=False):
-        name = f"row {rec.comp_row}"
-        if ids is not None and rec.comp_row in ids.index:
+        name = getattr(rec, "comp_sale", None) or f"row {rec.comp_row}"
+        if not getattr(rec, "comp_sale", None) and ids is not None and rec.comp_row in ids.index:
             name += f" ({ids.loc[rec.comp_row]})"
         date = "" if _missing(rec.sale_date) else str(rec.sale_date)[:10]
         cells.append([str(rec.rank), name, money(rec.sale_price), date,

@@ -15,7 +15,8 @@ DEMO_BOOK = "plumbrule-demo.xlsx"
 def demo_settings() -> dict:
     """The demo's Settings sheet values: the model plus screening, holdout and a date."""
     from plumbrule.demo.town import DEMO_SETTINGS
-    return {**DEMO_SETTINGS, "id_column": "Sale ID", "trim_percentiles": "1,99", "holdout": 0.3,
+    return {**DEMO_SETTINGS, "id_column": "Sale ID", "label_column": "Address",
+            "trim_percentiles": "1,99", "holdout": 0.3,
             # the non-market sales the clerk's notes name, set aside by ID with the reason
             "exclude_ids": "Q-9001=Small hotel (14 rooms),Q-9002=Block of 6 flats,"
                            "Q-9003=Transfer between relatives",

@@ -40,8 +40,10 @@ def subjects_of(args, inputs):
 
 def valuation_json(result) -> str:
     """One JSON object: estimates (records), grid (records), reconciled (one
-    object with value, weights [{row, weight}], range [low, high]; null without
-    comparables), plus valuation_date and the caution."""
+    object with value, weights [{row, weight}], range [low, high], the gap to the model's
+    estimate; null without comparables), plus valuation_date and the caution; then
+    portfolio (two or more subjects) and grid_table (with comparables: one record per line
+    of the grid as appraisers read it)."""
     from plumbrule.render.json import frame_records
     out = {
         "estimates": frame_records(result.estimates),
@@ -52,6 +54,8 @@ def valuation_json(result) -> str:
     }
     if len(result.portfolio):       # two or more subjects: their total (valuation/portfolio.py)
         out["portfolio"] = frame_records(result.portfolio)[0]
+    if len(result.grid_table):      # the grid as appraisers read it, rounded (issue 14)
+        out["grid_table"] = frame_records(result.grid_table)
     return json.dumps(out, allow_nan=False, ensure_ascii=False)
 
 

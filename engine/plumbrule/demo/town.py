@@ -31,7 +31,20 @@ MARKET_KNOTS = (18.0, 30.0)       # months since the first sale where the market
 MARKET_RATES = (0.008, 0.0, -0.004)   # log price per month: rising, flat, falling
 AGE_BEND, AGE_RATES = 55.0, (-0.006, -0.001)   # log price per year of age, before / after
 COLUMNS = ["Sale ID", "Sale price", "Living area", "Lot size", "Age", "Bedrooms", "Bathrooms",
-           "Condition", "Neighbourhood", "Sale date", "Notes"]
+           "Condition", "Neighbourhood", "Sale date", "Notes", "Address"]
+# invented streets, three per neighbourhood (the demo's label_column names sales by them)
+_STREETS = {"Millbank": ("Mill Lane", "Weir Street", "Sluice Row"),
+            "Old Quay": ("Quay Street", "Rope Walk", "Chandler's Yard"),
+            "Hollins Rise": ("Hollins Way", "Beacon Hill", "Larch Crescent"),
+            "Tanner's Green": ("Tanner's Walk", "Bark Lane", "Green Side"),
+            "Fenby Park": ("Fenby Close", "Heron Drive", "Lantern Row")}
+
+
+def _addresses(hood, start: int = 0) -> list[str]:
+    """A house number and street for each sale, from its position (no random draw, so the
+    sales themselves do not change)."""
+    i = np.arange(start, start + len(hood))
+    return [f"{1 + (k * 37) % 89} {_STREETS[h][k % 3]}" for k, h in zip(i, hood, strict=True)]
 
 
 def demo_sales(n: int = 360, seed: int = 7) -> pd.DataFrame:
@@ -64,7 +77,7 @@ def demo_sales(n: int = 360, seed: int = 7) -> pd.DataFrame:
         "Sale ID": [f"Q-{2400 + i:04d}" for i in range(n)],
         "Sale price": price, "Living area": living, "Lot size": lot, "Age": age,
         "Bedrooms": bedrooms, "Bathrooms": bathrooms, "Condition": condition,
-        "Neighbourhood": hood, "Sale date": date, "Notes": "",
+        "Neighbourhood": hood, "Sale date": date, "Notes": "", "Address": _addresses(hood),
     })
     unusual = pd.DataFrame([
         {"Sale ID": "Q-9001", "Sale price": 1_480_000, "Living area": 9800, "Lot size": 21000,
@@ -80,6 +93,7 @@ def demo_sales(n: int = 360, seed: int = 7) -> pd.DataFrame:
          "Neighbourhood": "Hollins Rise", "Sale date": pd.Timestamp("2025-06-02"),
          "Notes": "Transfer between relatives"},
     ])
+    unusual["Address"] = ["1 Harbour Street", "2 Weir Street", "40 Hollins Way"]
     return pd.concat([frame, unusual], ignore_index=True)[COLUMNS]
 
 

@@ -371,7 +371,7 @@ def _valuation(ws, ctx, r) -> int:
             from openpyxl.styles import Font
             c.font = Font(bold=True, color="7A2E1F")
             r += 1
-        r = _grid(ws, ctx, r + 1)
+        r = _grid(ws, ctx, _page_break(ws, r))     # the grid on a page of its own
     return r
 
 

@@ -111,6 +111,8 @@ def _widths(
     for j, c in enumerate(frame.columns):
         letter = get_column_letter(left + j)
         width = max(minimum, min(maximum, len(label(str(c))) + 2))
+        if c in ("sale", "comp_sale"):        # an address with its ID: wide enough to read
+            width = max(width, 30)
         if ws.column_dimensions[letter].width is None or ws.column_dimensions[letter].width < width:
             ws.column_dimensions[letter].width = width
 
@@ -378,6 +380,7 @@ def write_grid_table(ws, r: int, wide: pd.DataFrame, comps: list[int] | None = N
         kind = rec["kind"]
         put(ws, r, left, rec["line"], style="plumb_label")
         vfmt = _GRID_VALUE_FORMATS.get(kind)
+        notes: list[int] = []
         values = [rec["subject"]] + [v for i in comps
                                      for v in (rec[f"comp_{i}"], rec[f"comp_{i}_adjustment"])]
         for j, v in enumerate(values, start=1):
@@ -386,14 +389,20 @@ def write_grid_table(ws, r: int, wide: pd.DataFrame, comps: list[int] | None = N
                 v = None         # the subject's row is on another sheet
             fmt = ((MONEY if kind not in ("feature", "market", "net") else '+#,##0;-#,##0;0')
                    if is_adj else vfmt)
+            if fmt is None and kind == "feature" and isinstance(v, (int, float)) \
+                    and not isinstance(v, bool):
+                fmt = "#,##0" if float(v).is_integer() else "#,##0.0##"
             c = put(ws, r, left + j, v, fmt)
             if kind == "notes" and isinstance(v, str) and v:
                 c.alignment = Alignment(wrap_text=True, vertical="top")
+                notes.append(left + j)
             elif not isinstance(v, str) or kind != "sale":
                 c.alignment = Alignment(horizontal="right", vertical="top")
+        for col in notes:        # the note over the comparable's two columns
+            ws.merge_cells(start_row=r, start_column=col, end_row=r, end_column=col + 1)
         if kind == "notes":
             longest = max([len(str(v)) for v in values if isinstance(v, str)] + [0])
-            ws.row_dimensions[r].height = 15 * max(1, -(-longest // 14))
+            ws.row_dimensions[r].height = 15 * max(1, -(-longest // 28))
         r += 1
     if widths:
         for j in range(len(heads)):
