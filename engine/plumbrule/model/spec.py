@@ -32,6 +32,10 @@ class ModelSpec:
     trend_knots: tuple | int | None = None   # piecewise: dates, or every N months
     trend_period: str = "month"          # periods: month | quarter
     min_period_sales: int = 10           # sparser periods/segments merge with a neighbour
+    assessed_column: str | None = None   # values on the roll (never a predictor)
+    prior_assessed_column: str | None = None
+    x_column: str | None = None          # coordinates of each sale (matched headers)
+    y_column: str | None = None
 
     @property
     def logged_columns(self) -> tuple[str, ...]:
@@ -190,6 +194,25 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
         raise SpecError(f"Setting 'trend': '{settings.trend}' follows the market over the sale "
                         "dates, but no date_column is set. Name the sale-date column.",
                         setting="trend")
+    side = {}
+    for name in ("assessed_column", "prior_assessed_column", "x_column", "y_column"):
+        given = getattr(settings, name)
+        side[name] = match_column(given, columns, name) if given else None
+    for name in ("assessed_column", "prior_assessed_column"):
+        col = side[name]
+        if col is not None and col in spec.used_columns:
+            raise SpecError(f"Setting '{name}': '{col}' is also used by the model. The values "
+                            "already on the roll are judged, never used to explain the price: "
+                            "take it out of 'predictors'.", setting=name, column=col)
+    if side["prior_assessed_column"] and not side["assessed_column"]:
+        raise SpecError("Setting 'prior_assessed_column' needs 'assessed_column' too: name "
+                        "the column of the current roll's values.",
+                        setting="prior_assessed_column")
+    if bool(side["x_column"]) != bool(side["y_column"]):
+        missing = "y_column" if side["x_column"] else "x_column"
+        raise SpecError(f"Setting '{missing}' is empty: the location check needs both "
+                        "coordinate columns.", setting=missing)
+    spec = replace(spec, **side)
     return replace(spec, screened=screened, ratio_by=by, id_column=ident,
                    level_map=tuple(level_map), filters=filters,
                    date_format=settings.date_format, trend=settings.trend,
