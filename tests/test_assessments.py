@@ -7,7 +7,6 @@ order-statistic interval from binomial(n, ½)); scipy.stats.mannwhitneyu for the
 """
 
 import numpy as np
-import pandas as pd
 import pytest
 from scipy.stats import binom, mannwhitneyu
 
