@@ -361,6 +361,15 @@ REGISTRY: dict[str, Setting] = {
             group="validate",
         ),
         _s(
+            "location_surface",
+            "int",
+            0,
+            "Model location by a smooth surface over x_column, y_column: N bumps a side "
+            "(N x N, e.g. 4; 0 = off). The grid carries its effect as a location adjustment.",
+            low=0,
+            high=12,
+        ),
+        _s(
             "neighbours",
             "int",
             8,
@@ -510,6 +519,7 @@ class Settings:
     x_column: str | None = None
     y_column: str | None = None
     coordinates: str = "projected"
+    location_surface: int = 0
     neighbours: int = 8
     comps: tuple[tuple[int, str], ...] = ()
     comp_ids: tuple[tuple[str, str], ...] = ()

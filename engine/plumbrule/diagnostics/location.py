@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-EARTH_RADIUS_KM = 6371.0088     # the IUGG mean radius
+from plumbrule.model.location import EARTH_RADIUS_KM
 
 
 @dataclass(frozen=True)

@@ -14,6 +14,7 @@ import pandas as pd
 
 from plumbrule.errors import SpecError, quote_list
 from plumbrule.model.spec import ModelSpec
+from plumbrule.model.location import LocationBasis
 from plumbrule.model.trend import TrendBasis, build_trend
 
 DAYS_PER_MONTH = 365.2425 / 12.0   # mean Gregorian month, so a trend is "per month"
@@ -36,6 +37,7 @@ class Encoding:
     levels: tuple[tuple[str, tuple[str, ...]], ...]     # column → levels, reference first
     date_origin: pd.Timestamp | None
     trend: TrendBasis | None = None     # piecewise / periods (model/trend.py); None: linear
+    location: LocationBasis | None = None   # the location surface (model/location.py)
 
     @property
     def names(self) -> list[str]:
@@ -82,6 +84,11 @@ class Encoding:
         trend = [j for j, t in enumerate(self.terms) if t.kind == "trend"]
         if trend:
             x[:, trend] = self.trend_columns(data[self.terms[trend[0]].column])
+        if self.location is not None:
+            loc = [j for j, t in enumerate(self.terms) if t.kind == "location"]
+            b = self.location
+            x[:, loc] = b.columns(_floats(data[b.x_column], b.x_column, label),
+                                  _floats(data[b.y_column], b.y_column, label))
         _check_finite(x, data.index, self.terms, label)
         return x
 
@@ -227,8 +234,16 @@ def make_encoding(spec: ModelSpec, data: pd.DataFrame) -> Encoding:
         trend = build_trend(spec, data[spec.date_column], origin)
         names = trend.names if trend else [f"{spec.date_column} (months)"]
         terms.extend(Term(name, spec.date_column, "trend") for name in names)
+    location = None
+    if spec.location_columns:
+        from plumbrule.model.location import build_location
+        xc, yc = spec.location_columns
+        location = build_location(data[xc].to_numpy(float), data[yc].to_numpy(float),
+                                  spec.location_surface, xc, yc, spec.coordinates)
+        terms.extend(Term(name, yc if name == "location: y" else xc, "location")
+                     for name in location.names)
     return Encoding(spec=spec, terms=tuple(terms), levels=tuple(levels), date_origin=origin,
-                    trend=trend)
+                    trend=trend, location=location)
 
 
 def _levels(col: pd.Series, name: str, reference: str | None) -> tuple[str, ...]:

@@ -36,6 +36,8 @@ class ModelSpec:
     prior_assessed_column: str | None = None
     x_column: str | None = None          # coordinates of each sale (matched headers)
     y_column: str | None = None
+    location_surface: int = 0            # bumps a side of the location surface (0: none)
+    coordinates: str = "projected"       # projected | degrees
 
     @property
     def logged_columns(self) -> tuple[str, ...]:
@@ -57,9 +59,18 @@ class ModelSpec:
         return tuple(p for p in self.predictors if p not in self.categorical)
 
     @property
+    def location_columns(self) -> tuple[str, ...]:
+        """The coordinate columns when the model carries a location surface."""
+        if self.location_surface and self.x_column and self.y_column:
+            return (self.x_column, self.y_column)
+        return ()
+
+    @property
     def numeric_columns(self) -> tuple[str, ...]:
-        """Columns read as numbers: the response and the numeric predictors."""
-        return (self.response,) + self.numeric_predictors
+        """Columns read as numbers: the response, the numeric predictors and the
+        coordinates of a location surface."""
+        extra = tuple(c for c in self.location_columns if c not in self.numeric_predictors)
+        return (self.response,) + self.numeric_predictors + extra
 
     @property
     def used_columns(self) -> tuple[str, ...]:
@@ -212,7 +223,11 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
         missing = "y_column" if side["x_column"] else "x_column"
         raise SpecError(f"Setting '{missing}' is empty: the location check needs both "
                         "coordinate columns.", setting=missing)
-    spec = replace(spec, **side)
+    if settings.location_surface and not side["x_column"]:
+        raise SpecError("Setting 'location_surface' needs the coordinates: name x_column and "
+                        "y_column.", setting="location_surface")
+    spec = replace(spec, **side, location_surface=settings.location_surface,
+                   coordinates=settings.coordinates)
     return replace(spec, screened=screened, ratio_by=by, id_column=ident,
                    level_map=tuple(level_map), filters=filters,
                    date_format=settings.date_format, trend=settings.trend,

@@ -85,6 +85,13 @@ def write_live_block(ws, analysis, valuation, anchor_row: int) -> int:
                 value=(f"Try a subject: not available with the '{basis.kind}' trend yet; "
                        "use the estimates above, or set trend = linear for the live cells."))
         return anchor_row + 2
+    if analysis.model.encoding.location is not None:
+        # the surface's bumps have no live formulas yet; figures that disagree with the
+        # engine's would mislead
+        ws.cell(row=anchor_row, column=1,
+                value=("Try a subject: not available with a location surface yet; use the "
+                       "estimates above, or set location_surface = 0 for the live cells."))
+        return anchor_row + 2
     start = _start(analysis, valuation)
     lay = _layout(analysis, start, anchor_row)
     w = _Writer(ws)
