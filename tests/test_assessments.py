@@ -161,3 +161,25 @@ def test_chasing_without_the_roll_says_it_needs_the_unsold_parcels(roll):
     t = a.tables.sales_chasing
     assert t.iloc[0]["verdict"] == "n/a" and "needs the roll" in t.iloc[0]["note"]
     assert len(t) == 3
+
+
+def test_the_model_study_sales_get_their_own_assessed_record():
+    d = county(400, seed=7)
+    a = analyze(d, {**SETTINGS, "assessed_column": "Assessed", "holdout": 0.3})
+    st = a.tables.ratio_study
+    rows = a.tables.holdout_estimates["row"].to_numpy()
+    rec = st[(st["sample"] == "assessed")
+             & (st["stratum"] == "the sales of the model's study")].iloc[0]
+    sel = d.loc[rows - 2]                                 # sheet rows: header on row 1
+    ref = _by_hand(sel["Assessed"].to_numpy(float), sel["Price"].to_numpy(float))
+    assert rec["n"] == len(rows)
+    for key in ("median_ratio", "cod", "prd", "prb"):
+        assert rec[key] == pytest.approx(ref[key], rel=1e-9)
+
+
+def test_slopes_inside_a_value_range_are_shown_not_judged(roll):
+    _, a = roll
+    st = a.tables.ratio_study
+    vr = st[st["stratum"].str.startswith("value range")]
+    assert vr["prb"].notna().all()
+    assert set(vr["prb_verdict"]) == {"n/a"} and set(vr["value_slope_verdict"]) == {"n/a"}

@@ -79,11 +79,16 @@ def value_range_records(estimate: np.ndarray, price: np.ndarray, sample: str,
     breaks = value_breaks(estimate, strata)
     g, labels = value_labels(estimate, breaks)
     recs = []
+    nan = float("nan")
     for j, label in enumerate(labels):
         sel = g == j
         m = ratios.measures(estimate[sel], price[sel], level)
+        # PRB and the value slope are shown but not judged inside a range: cut on the value
+        # itself, a range holds too little spread of value for a slope to mean anything (a
+        # stray slope of ±0.5 is common); vertical equity is read across the ranges
+        judged = {**m, "prb": nan, "value_slope": nan}
         recs.append({"sample": sample, "stratum": f"value range {label}", **m,
-                     **ratios.verdicts(m, targets)})
+                     **ratios.verdicts(judged, targets)})
     return recs
 
 
@@ -136,8 +141,9 @@ def assessed_study(estimates: pd.DataFrame, targets: ratios.RatioTargets | None 
     frame = estimates.rename(columns={"assessed": "estimate"})
     study = ratios.ratio_study(frame, ASSESSED, targets, level, by)
     study = with_value_ranges(study, frame, strata, targets, level)
-    if model_rows is not None and len(model_rows):
-        keep = frame["in_study"].to_numpy(bool) & frame["row"].isin(model_rows).to_numpy()
+    keep = (frame["in_study"].to_numpy(bool) & frame["row"].isin(model_rows).to_numpy()
+            if model_rows is not None else np.zeros(len(frame), bool))
+    if keep.any() and keep.sum() < frame["in_study"].sum():   # not simply all of them again
         m = ratios.measures(frame["estimate"].to_numpy(float)[keep],
                             frame["sale_price"].to_numpy(float)[keep], level)
         rec = {"sample": ASSESSED, "stratum": "the sales of the model's study", **m,

@@ -158,6 +158,8 @@ _OTHER = {
     "ratio_study": ("Sales-ratio study", ["sample", "stratum", "n", "median_ratio", "cod", "prd",
                                           "prb", "value_slope", "median_verdict", "cod_verdict",
                                           "prd_verdict", "prb_verdict", "value_slope_verdict"]),
+    "sales_chasing": ("Sales chasing (assessments on the roll)",
+                      ["test", "sold", "unsold", "difference", "p_value", "verdict"]),
 }
 
 
