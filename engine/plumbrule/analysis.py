@@ -313,6 +313,7 @@ def _assessed_tables(sales: Sales, after: pd.DataFrame, study: pd.DataFrame,
     model_rows = study_est["row"].to_numpy()[study_est["in_study"].to_numpy(bool)]
     if not spec.assessed_column:
         return study, pd.DataFrame(), pd.DataFrame()
+    strata = strata or 4
     rows = after.index
     price = after[spec.response].to_numpy(float)
     current = side_numbers(sales.table, spec.assessed_column, rows)

@@ -171,3 +171,29 @@ def test_location_surface_needs_the_coordinates():
     with pytest.raises(SpecError, match="location_surface"):
         analyze(county(50, 1), {"response": "Price", "predictors": "Living area",
                                 "location_surface": 3})
+
+
+def test_degrees_give_the_same_check_as_local_kilometres():
+    # The county placed near 53° N: longitude/latitude from metres (local equirectangular)
+    d = county(400, seed=14)
+    lat0 = 53.0
+    deg = d.assign(X=-2.0 + d["X"] / (111_194.9 * np.cos(np.radians(lat0))),
+                   Y=lat0 + d["Y"] / 111_194.9)
+    name = "Location: residuals alike among neighbours (Moran's I)"
+    a = analyze(d, SETTINGS).tables.checks.set_index("check").loc[name]
+    b = analyze(deg, {**SETTINGS, "coordinates": "degrees"}).tables.checks.set_index(
+        "check").loc[name]
+    # nearly the same neighbours: cos(latitude) changes by 0.4 % across 20 km, which swaps a
+    # few near-tied neighbours between the flat map and the sphere
+    assert b["statistic"] == pytest.approx(a["statistic"], abs=0.005)
+    assert b["verdict"] == a["verdict"] == "watch"
+    s = analyze(deg, {**SETTINGS, "coordinates": "degrees", "location_surface": 4})
+    assert s.tables.checks.set_index("check").loc[name, "verdict"] == "ok"
+
+
+def test_a_coordinate_that_is_not_a_number_names_its_cell():
+    from plumbrule.errors import IntakeError
+    d = county(60, seed=1).astype({"X": object})
+    d.loc[4, "X"] = "north field"
+    with pytest.raises(IntakeError, match="X"):
+        analyze(d, SETTINGS)

@@ -205,16 +205,16 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
         raise SpecError(f"Setting 'trend': '{settings.trend}' follows the market over the sale "
                         "dates, but no date_column is set. Name the sale-date column.",
                         setting="trend")
-    side = {}
+    side: dict[str, str | None] = {}
     for name in ("assessed_column", "prior_assessed_column", "x_column", "y_column"):
         given = getattr(settings, name)
         side[name] = match_column(given, columns, name) if given else None
     for name in ("assessed_column", "prior_assessed_column"):
-        col = side[name]
-        if col is not None and col in spec.used_columns:
-            raise SpecError(f"Setting '{name}': '{col}' is also used by the model. The values "
-                            "already on the roll are judged, never used to explain the price: "
-                            "take it out of 'predictors'.", setting=name, column=col)
+        judged = side[name]
+        if judged is not None and judged in spec.used_columns:
+            raise SpecError(f"Setting '{name}': '{judged}' is also used by the model. The "
+                            "values already on the roll are judged, never used to explain the "
+                            "price: take it out of 'predictors'.", setting=name, column=judged)
     if side["prior_assessed_column"] and not side["assessed_column"]:
         raise SpecError("Setting 'prior_assessed_column' needs 'assessed_column' too: name "
                         "the column of the current roll's values.",
@@ -226,7 +226,10 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
     if settings.location_surface and not side["x_column"]:
         raise SpecError("Setting 'location_surface' needs the coordinates: name x_column and "
                         "y_column.", setting="location_surface")
-    spec = replace(spec, **side, location_surface=settings.location_surface,
+    spec = replace(spec, assessed_column=side["assessed_column"],
+                   prior_assessed_column=side["prior_assessed_column"],
+                   x_column=side["x_column"], y_column=side["y_column"],
+                   location_surface=settings.location_surface,
                    coordinates=settings.coordinates)
     return replace(spec, screened=screened, ratio_by=by, id_column=ident,
                    level_map=tuple(level_map), filters=filters,
