@@ -177,7 +177,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         check, residual_map = location_tables(
             model.rows, model.fit.resid, side_numbers(sales.table, spec.x_column, model.rows),
             side_numbers(sales.table, spec.y_column, model.rows), settings.coordinates,
-            settings.neighbours)
+            settings.neighbours, basis=_fit_basis(model))
         checks.append(check)
     ids = sales.ids
     day = valuation_day(settings)
@@ -297,6 +297,14 @@ def _ratio_tables(model: FittedModel, hold: pd.DataFrame, h_est: np.ndarray, cv,
     targets = ratios.RatioTargets.for_class(settings.property_class)
     study = ratios.ratio_study(study_est, sample, targets, settings.confidence, by)
     return study, holdout_estimates, cv_estimates, ratio_log, study_est
+
+
+def _fit_basis(model: FittedModel) -> np.ndarray:
+    """The fit's orthonormal columns, the constant's 1/√n first (n × p)."""
+    fit = model.fit
+    if not fit.has_intercept:
+        return fit.q
+    return np.column_stack([np.full(fit.n, 1.0 / np.sqrt(fit.n)), fit.q])
 
 
 def _assessed_tables(sales: Sales, after: pd.DataFrame, study: pd.DataFrame,
