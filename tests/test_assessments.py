@@ -7,6 +7,7 @@ order-statistic interval from binomial(n, ½)); scipy.stats.mannwhitneyu for the
 """
 
 import numpy as np
+import pandas as pd
 import pytest
 from scipy.stats import binom, mannwhitneyu
 
@@ -183,3 +184,26 @@ def test_slopes_inside_a_value_range_are_shown_not_judged(roll):
     vr = st[st["stratum"].str.startswith("value range")]
     assert vr["prb"].notna().all()
     assert set(vr["prb_verdict"]) == {"n/a"} and set(vr["value_slope_verdict"]) == {"n/a"}
+
+
+def test_chasing_with_the_roll_takes_the_unsold_parcels_by_id():
+    rng = np.random.default_rng(21)
+    parcels = county(3000, seed=21)
+    parcels.insert(0, "Parcel", [f"P{i:05d}" for i in range(len(parcels))])
+    sold = rng.random(len(parcels)) < 0.15
+    chased = parcels.copy()
+    chased.loc[sold, "Assessed"] = np.round(chased.loc[sold, "Price"] * 0.97, -2)
+    sales = chased[sold].reset_index(drop=True)
+    roll = chased.drop(columns=["Price"])                 # the roll: every parcel, no price
+    a = analyze(sales, {**SETTINGS, "id_column": "Parcel", "assessed_column": "Assessed",
+                        "prior_assessed_column": "Prior"})
+    t = assessments.chasing_with_roll(a, roll)
+    # Reference: the same test on the arrays split by hand
+    ref = assessments.chasing_table(sales["Price"].to_numpy(), sales["Assessed"].to_numpy(),
+                                    sales["Prior"].to_numpy(),
+                                    chased.loc[~sold, "Assessed"].to_numpy(),
+                                    chased.loc[~sold, "Prior"].to_numpy())
+    pd.testing.assert_frame_equal(t, ref)
+    assert t.iloc[0]["verdict"] == "watch"
+    unsold_change = np.median(chased.loc[~sold, "Assessed"] / chased.loc[~sold, "Prior"] - 1)
+    assert t.iloc[0]["unsold"] == pytest.approx(unsold_change, rel=1e-12)   # numpy median

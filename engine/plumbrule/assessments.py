@@ -257,3 +257,42 @@ def chasing_table(price: np.ndarray, current: np.ndarray, prior: np.ndarray,
                           "Ratio Studies, 2013)." if low else
                           f"COD {c:.1f}: not suspiciously low.")})
     return pd.DataFrame(rows, columns=CHASING_COLUMNS)
+
+
+def chasing_with_roll(analysis, roll) -> pd.DataFrame:
+    """sales_chasing with the roll's unsold parcels: ``roll`` (a DataFrame, SheetTable or
+    path, one row per parcel) carries the ID column and the assessed and prior columns under
+    the sales' headers; a parcel whose ID is among the sales' IDs counts as sold (its values
+    are taken from the sales), every other as unsold. Needs id_column; parcels with a blank
+    value are left out of the change test, as sales are.
+
+    For ``plumbrule value DATA --roll ROLL`` to call; returns the table
+    :func:`chasing_table` returns."""
+    from plumbrule import intake
+    from plumbrule.analysis import as_table
+    from plumbrule.errors import SettingError
+    from plumbrule.model.spec import match_column
+    from plumbrule.sales import side_numbers
+    spec = analysis.spec
+    if not (spec.assessed_column and spec.prior_assessed_column):
+        raise SettingError("Sales chasing needs assessed_column and prior_assessed_column: name "
+                           "the current and the previous roll's value columns.",
+                           setting="prior_assessed_column")
+    if spec.id_column is None or analysis.ids is None:
+        raise SettingError("Comparing sold with unsold parcels needs id_column: name the "
+                           "column holding each parcel's ID in the sales and the roll.",
+                           setting="id_column")
+    table = as_table(roll)
+    cols = {name: match_column(getattr(spec, name), table.columns, name)
+            for name in ("id_column", "assessed_column", "prior_assessed_column")}
+    ids, _ = intake.to_labels(table.frame[cols["id_column"]], cols["id_column"])
+    unsold = ~ids.isin(set(analysis.ids.astype(str))).to_numpy()
+    cur, _ = intake.to_numbers(table.frame[cols["assessed_column"]], cols["assessed_column"])
+    pri, _ = intake.to_numbers(table.frame[cols["prior_assessed_column"]],
+                               cols["prior_assessed_column"])
+    est = analysis.tables.assessed_estimates
+    rows = pd.Index(est["row"].to_numpy())
+    prior = side_numbers(analysis.table, spec.prior_assessed_column, rows)
+    return chasing_table(est["sale_price"].to_numpy(float), est["assessed"].to_numpy(float),
+                         prior, cur.to_numpy(float)[unsold], pri.to_numpy(float)[unsold],
+                         ratios.RatioTargets.for_class(analysis.settings.property_class))
