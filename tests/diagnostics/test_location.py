@@ -198,7 +198,9 @@ def test_moran_passes_when_the_surface_models_the_location():
     verdicts = [analyze(county(400, s), {**SETTINGS, "location_surface": 5}).tables.checks
                 .set_index("check").loc["Location: residuals alike among neighbours "
                                         "(Moran's I)", "verdict"] for s in range(20)]
-    # nominal 5 %: binomial(20, 0.05) exceeds 4 in under 0.3 % of runs (scipy.stats.binom.sf)
+    # benchmarks/location_check.py measures 8.5 % at 300 sales (nominal 5 %; the 25-bump
+    # surface approximates the waves). Even at 10 %, binomial(20, 0.1) exceeds 4 in 4 % of
+    # runs (scipy.stats.binom.sf(4, 20, 0.1)); a check that alarmed on most counties fails
     assert sum(v == "watch" for v in verdicts) <= 4
 
 
