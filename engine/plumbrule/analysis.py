@@ -12,12 +12,13 @@ from typing import Any, Iterator, Mapping
 import numpy as np
 import pandas as pd
 
-from plumbrule import intake, ratios
+from plumbrule import assessments, intake, ratios
 from plumbrule import screening as screen
 from plumbrule import validation as validate
 from plumbrule.diagnostics.checks import WATCH, Check, run_checks
 from plumbrule.diagnostics.curves import curve_table, linearity_by_predictor
 from plumbrule.diagnostics.levels import level_checks
+from plumbrule.diagnostics.location import location_tables
 from plumbrule.diagnostics.trend import (
     market_index,
     trend_checks,
@@ -29,7 +30,8 @@ from plumbrule.model.fitted import FittedModel, fit_model
 from plumbrule.model.retransform import price_estimates
 from plumbrule.settings import Settings, parse_settings
 from plumbrule.model.spec import ModelSpec
-from plumbrule.sales import Sales, prepare_sales, sale_names, with_ids, with_names
+from plumbrule.sales import (Sales, prepare_sales, sale_names, side_numbers, with_ids,
+                            with_names)
 from plumbrule.diagnostics.tables import (
     checks_table,
     coefficient_table,
@@ -59,6 +61,9 @@ class AnalysisTables:
     level_merges: pd.DataFrame
     market_index: pd.DataFrame = field(default_factory=pd.DataFrame)
     curves: pd.DataFrame = field(default_factory=pd.DataFrame)
+    assessed_estimates: pd.DataFrame = field(default_factory=pd.DataFrame)
+    sales_chasing: pd.DataFrame = field(default_factory=pd.DataFrame)
+    residual_map: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @classmethod
     def names(cls) -> tuple[str, ...]:
@@ -173,7 +178,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     model = fit_model(spec, train, robust_se=settings.robust_se,
                       confidence=settings.confidence)
     validation, h_est, cv = _validate(model, hold, settings, sales)
-    study, holdout_estimates, cv_estimates, ratio_log = _ratio_tables(
+    study, holdout_estimates, cv_estimates, ratio_log, study_est = _ratio_tables(
         model, hold, h_est, cv, settings, spec.ratio_by)
     final = final_model(model, hold, settings)
 
@@ -190,6 +195,14 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         checks.append(screen.price_screen_check(spec.response, fit_log))
     if len(moved):
         checks.append(_moved_check(moved))
+    study, assessed_est, chasing = _assessed_tables(sales, after, study, study_est, settings)
+    residual_map = pd.DataFrame()
+    if spec.x_column:
+        check, residual_map = location_tables(
+            model.rows, model.fit.resid, side_numbers(sales.table, spec.x_column, model.rows),
+            side_numbers(sales.table, spec.y_column, model.rows), settings.coordinates,
+            settings.neighbours, basis=_fit_basis(model))
+        checks.append(check)
     ids = sales.ids
     day = valuation_day(settings)
 
@@ -217,6 +230,9 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         level_merges=sales.level_merges,
         market_index=market_index(final, day),
         curves=curve_table(final),
+        assessed_estimates=with_ids(assessed_est, ids),
+        sales_chasing=chasing,
+        residual_map=with_ids(residual_map, ids),
     )
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
                     tables=tables, holdout=hold, ids=ids, final_model=final, names=names)
@@ -309,7 +325,7 @@ def _ratio_tables(model: FittedModel, hold: pd.DataFrame, h_est: np.ndarray, cv,
                   settings: Settings, by: str | None):
     """The ratio study on the holdout; without one on the out-of-fold estimates; with
     neither in-sample (labelled optimistic). Returns (ratio_study, holdout_estimates,
-    cv_estimates, ratio-trim log)."""
+    cv_estimates, ratio-trim log, the estimates the study read)."""
     spec = model.spec
     strat = (lambda frame: frame[by].to_numpy()) if by else (lambda frame: None)
     holdout_estimates = ratios.estimates_table(hold.index, hold[spec.response], h_est,
@@ -340,7 +356,46 @@ def _ratio_tables(model: FittedModel, hold: pd.DataFrame, h_est: np.ndarray, cv,
             cv_estimates = study_est
     targets = ratios.RatioTargets.for_class(settings.property_class)
     study = ratios.ratio_study(study_est, sample, targets, settings.confidence, by)
-    return study, holdout_estimates, cv_estimates, ratio_log
+    return study, holdout_estimates, cv_estimates, ratio_log, study_est
+
+
+def _fit_basis(model: FittedModel) -> np.ndarray:
+    """The fit's orthonormal columns, the constant's 1/√n first (n × p)."""
+    fit = model.fit
+    if not fit.has_intercept:
+        return fit.q
+    return np.column_stack([np.full(fit.n, 1.0 / np.sqrt(fit.n)), fit.q])
+
+
+def _assessed_tables(sales: Sales, after: pd.DataFrame, study: pd.DataFrame,
+                     study_est: pd.DataFrame, settings: Settings):
+    """(ratio_study with value ranges and the assessed records, assessed_estimates,
+    sales_chasing). The assessed study reads every sale left after intake and screening
+    (``after``); without assessed_column and value_strata the study is unchanged."""
+    spec = sales.spec
+    strata = settings.value_strata or (4 if spec.assessed_column else None)
+    targets = ratios.RatioTargets.for_class(settings.property_class)
+    if strata is not None and len(study):
+        study = assessments.with_value_ranges(study, study_est, strata, targets,
+                                              settings.confidence)
+    model_rows = study_est["row"].to_numpy()[study_est["in_study"].to_numpy(bool)]
+    if not spec.assessed_column:
+        return study, pd.DataFrame(), pd.DataFrame()
+    strata = strata or 4
+    rows = after.index
+    price = after[spec.response].to_numpy(float)
+    current = side_numbers(sales.table, spec.assessed_column, rows)
+    by = spec.ratio_by
+    est = assessments.assessed_estimates(
+        rows, price, current, after[by].to_numpy() if by else None,
+        after[spec.date_column].to_numpy() if spec.date_column else None, strata)
+    own = assessments.assessed_study(est, targets, settings.confidence, by, strata, model_rows)
+    study = pd.concat([study, own], ignore_index=True)
+    chasing = pd.DataFrame()
+    if spec.prior_assessed_column:
+        prior = side_numbers(sales.table, spec.prior_assessed_column, rows)
+        chasing = assessments.chasing_table(price, current, prior, targets=targets)
+    return study, est, chasing
 
 
 def _enough(train: pd.DataFrame, hold: pd.DataFrame, log: pd.DataFrame) -> None:

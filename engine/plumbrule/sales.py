@@ -195,3 +195,13 @@ def _check_has_values(table: intake.SheetTable, used: list[str]) -> None:
             raise IntakeError(f"Column '{col}' is blank in every row of the sales table"
                               f"{where}. Fill it in, or take it out of the settings that "
                               "name it.", column=col)
+
+
+def side_numbers(table: intake.SheetTable, column: str | None, rows: pd.Index) -> np.ndarray:
+    """A column the model does not use (assessed values, coordinates) as floats for the
+    sheet ``rows``: blanks and error values NaN (left out by the step that reads it), text
+    that is not a number refused with its cell. Empty without a column."""
+    if column is None:
+        return np.full(len(rows), np.nan)
+    values, _ = intake.to_numbers(table.frame[column], column)
+    return values.reindex(rows).to_numpy(float)

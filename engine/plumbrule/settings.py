@@ -330,6 +330,71 @@ REGISTRY: dict[str, Setting] = {
             "Trim ratios beyond 3*IQR before the ratio study.",
             group="validate",
         ),
+        _s(
+            "assessed_column",
+            "text",
+            None,
+            "Column of the values already on the roll: adds their ratio study (assessed / "
+            "sale price) beside the model's. Never a predictor.",
+            group="validate",
+        ),
+        _s(
+            "prior_assessed_column",
+            "text",
+            None,
+            "Column of the previous roll's values (with assessed_column): tests for sales "
+            "chasing.",
+            group="validate",
+        ),
+        _s(
+            "value_strata",
+            "strata",
+            None,
+            "Value ranges of the ratio study: a number of equal-count groups (4 = quartiles, "
+            "the default with assessed_column) or break points, e.g. 200000,400000.",
+            group="validate",
+        ),
+        _s(
+            "x_column",
+            "text",
+            None,
+            "Column of each sale's x coordinate (easting, or longitude with coordinates = "
+            "degrees): adds the location check of the residuals.",
+            group="validate",
+        ),
+        _s(
+            "y_column",
+            "text",
+            None,
+            "Column of each sale's y coordinate (northing, or latitude).",
+            group="validate",
+        ),
+        _s(
+            "coordinates",
+            "choice",
+            "projected",
+            "projected (x, y on a flat map grid) or degrees (longitude, latitude).",
+            choices=("projected", "degrees"),
+            group="validate",
+        ),
+        _s(
+            "location_surface",
+            "int",
+            0,
+            "Model location by a smooth surface over x_column, y_column: N bumps a side "
+            "(N x N, e.g. 4; 0 = off). The grid carries its effect as a location adjustment.",
+            low=0,
+            high=12,
+        ),
+        _s(
+            "neighbours",
+            "int",
+            8,
+            "Nearest neighbours per sale in the location check (Moran's I).",
+            low=1,
+            high=100,
+            group="validate",
+        ),
         # --- valuation ----------------------------------------------------------
         _s(
             "comps",
@@ -529,6 +594,14 @@ class Settings:
     ratio_by: str | None = None
     property_class: str = "residential"
     ratio_trim: bool = False
+    assessed_column: str | None = None
+    prior_assessed_column: str | None = None
+    value_strata: int | tuple[float, ...] | None = None   # groups, or break points
+    x_column: str | None = None
+    y_column: str | None = None
+    coordinates: str = "projected"
+    location_surface: int = 0
+    neighbours: int = 8
     comps: tuple[tuple[int, str], ...] = ()
     comp_ids: tuple[tuple[str, str], ...] = ()
     valuation_date: _dt.date | None = None
@@ -896,13 +969,33 @@ def _curves(s: Setting, v: Any) -> tuple[tuple[str, str, tuple[float, ...]], ...
                                "increasing order.", setting=s.name)
         out.append((col, kind, tuple(nums)))
     return tuple(out)
+def _strata(s: Setting, v: Any) -> int | tuple[float, ...]:
+    """'4' or 'quartiles' → 4 equal-count groups; '200000,400000' → sorted break points."""
+    text = str(v).strip().lower() if isinstance(v, str) else ""
+    named = {"quartiles": 4, "quintiles": 5, "deciles": 10, "tertiles": 3}
+    if text in named:
+        return named[text]
+    parts = list(v) if isinstance(v, (list, tuple)) else (
+        [v] if not isinstance(v, str) else _split(v))
+    try:
+        nums = [float(str(p).replace(",", "").strip()) for p in parts]
+    except ValueError:
+        nums = []
+    if len(nums) == 1 and float(nums[0]).is_integer() and 2 <= nums[0] <= 20:
+        return int(nums[0])
+    if len(nums) >= 1 and all(math.isfinite(x) and x > 0 for x in nums) and (
+            len(nums) > 1 or nums[0] > 20):
+        return tuple(sorted(set(nums)))
+    raise SettingError(f"Setting '{s.name}': '{v}' is neither a number of groups (2 to 20, "
+                       "or quartiles) nor positive break points such as 200000,400000.",
+                       setting=s.name)
 
 
 _CONVERTERS = {
     "text": _text, "columns": _columns, "bool": _bool, "float": _float, "int": _int,
     "choice": _choice, "percentiles": _percentiles, "rows": _rows, "pairs": _pairs,
     "date": _date, "ids": _ids, "level_map": _level_map, "keep_only": _keep_only,
-    "knots": _knots, "curves": _curves,
+    "knots": _knots, "curves": _curves, "strata": _strata,
 }
 
 

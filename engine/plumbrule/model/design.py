@@ -15,6 +15,7 @@ import pandas as pd
 from plumbrule.errors import SpecError, quote_list
 from plumbrule.model.curves import CurveBasis, build_curve
 from plumbrule.model.spec import ModelSpec
+from plumbrule.model.location import LocationBasis
 from plumbrule.model.trend import TrendBasis, build_trend
 
 DAYS_PER_MONTH = 365.2425 / 12.0   # mean Gregorian month, so a trend is "per month"
@@ -43,6 +44,7 @@ class Encoding:
     def curve(self, column: str) -> CurveBasis | None:
         """The curve of ``column``, None when it enters as a straight line."""
         return next((c for c in self.curves if c.column == column), None)
+    location: LocationBasis | None = None   # the location surface (model/location.py)
 
     @property
     def names(self) -> list[str]:
@@ -93,6 +95,11 @@ class Encoding:
         trend = [j for j, t in enumerate(self.terms) if t.kind == "trend"]
         if trend:
             x[:, trend] = self.trend_columns(data[self.terms[trend[0]].column])
+        if self.location is not None:
+            loc = [j for j, t in enumerate(self.terms) if t.kind == "location"]
+            b = self.location
+            x[:, loc] = b.columns(_floats(data[b.x_column], b.x_column, label),
+                                  _floats(data[b.y_column], b.y_column, label))
         _check_finite(x, data.index, self.terms, label)
         return x
 
@@ -244,8 +251,16 @@ def make_encoding(spec: ModelSpec, data: pd.DataFrame) -> Encoding:
         trend = build_trend(spec, data[spec.date_column], origin)
         names = trend.names if trend else [f"{spec.date_column} (months)"]
         terms.extend(Term(name, spec.date_column, "trend") for name in names)
+    location = None
+    if spec.location_columns:
+        from plumbrule.model.location import build_location
+        xc, yc = spec.location_columns
+        location = build_location(data[xc].to_numpy(float), data[yc].to_numpy(float),
+                                  spec.location_surface, xc, yc, spec.coordinates)
+        terms.extend(Term(name, yc if name == "location: y" else xc, "location")
+                     for name in location.names)
     return Encoding(spec=spec, terms=tuple(terms), levels=tuple(levels), date_origin=origin,
-                    trend=trend, curves=tuple(curves))
+                    trend=trend, curves=tuple(curves), location=location)
 
 
 def _levels(col: pd.Series, name: str, reference: str | None) -> tuple[str, ...]:

@@ -38,6 +38,12 @@ class ModelSpec:
         """(kind, params) of ``column``'s curve (model/curves.py), None when it is straight."""
         hit = [(k, p) for c, k, p in self.curves if c == column]
         return hit[0] if hit else None
+    assessed_column: str | None = None   # values on the roll (never a predictor)
+    prior_assessed_column: str | None = None
+    x_column: str | None = None          # coordinates of each sale (matched headers)
+    y_column: str | None = None
+    location_surface: int = 0            # bumps a side of the location surface (0: none)
+    coordinates: str = "projected"       # projected | degrees
 
     @property
     def logged_columns(self) -> tuple[str, ...]:
@@ -59,9 +65,18 @@ class ModelSpec:
         return tuple(p for p in self.predictors if p not in self.categorical)
 
     @property
+    def location_columns(self) -> tuple[str, ...]:
+        """The coordinate columns when the model carries a location surface."""
+        if self.location_surface and self.x_column and self.y_column:
+            return (self.x_column, self.y_column)
+        return ()
+
+    @property
     def numeric_columns(self) -> tuple[str, ...]:
-        """Columns read as numbers: the response and the numeric predictors."""
-        return (self.response,) + self.numeric_predictors
+        """Columns read as numbers: the response, the numeric predictors and the
+        coordinates of a location surface."""
+        extra = tuple(c for c in self.location_columns if c not in self.numeric_predictors)
+        return (self.response,) + self.numeric_predictors + extra
 
     @property
     def used_columns(self) -> tuple[str, ...]:
@@ -196,6 +211,32 @@ def build_spec(settings: Settings, columns: Iterable[str]) -> ModelSpec:
         raise SpecError(f"Setting 'trend': '{settings.trend}' follows the market over the sale "
                         "dates, but no date_column is set. Name the sale-date column.",
                         setting="trend")
+    side: dict[str, str | None] = {}
+    for name in ("assessed_column", "prior_assessed_column", "x_column", "y_column"):
+        given = getattr(settings, name)
+        side[name] = match_column(given, columns, name) if given else None
+    for name in ("assessed_column", "prior_assessed_column"):
+        judged = side[name]
+        if judged is not None and judged in spec.used_columns:
+            raise SpecError(f"Setting '{name}': '{judged}' is also used by the model. The "
+                            "values already on the roll are judged, never used to explain the "
+                            "price: take it out of 'predictors'.", setting=name, column=judged)
+    if side["prior_assessed_column"] and not side["assessed_column"]:
+        raise SpecError("Setting 'prior_assessed_column' needs 'assessed_column' too: name "
+                        "the column of the current roll's values.",
+                        setting="prior_assessed_column")
+    if bool(side["x_column"]) != bool(side["y_column"]):
+        missing = "y_column" if side["x_column"] else "x_column"
+        raise SpecError(f"Setting '{missing}' is empty: the location check needs both "
+                        "coordinate columns.", setting=missing)
+    if settings.location_surface and not side["x_column"]:
+        raise SpecError("Setting 'location_surface' needs the coordinates: name x_column and "
+                        "y_column.", setting="location_surface")
+    spec = replace(spec, assessed_column=side["assessed_column"],
+                   prior_assessed_column=side["prior_assessed_column"],
+                   x_column=side["x_column"], y_column=side["y_column"],
+                   location_surface=settings.location_surface,
+                   coordinates=settings.coordinates)
     curves = _curves(settings.curves, columns, preds, cats, logs)
     return replace(spec, screened=screened, ratio_by=by, id_column=ident, curves=curves,
                    level_map=tuple(level_map), filters=filters,

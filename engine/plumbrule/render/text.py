@@ -166,6 +166,8 @@ _OTHER = {
     "curves": ("Curves: effect relative to the median sale's value (percent of the price for "
                "a log model, else price)", ["predictor", "value", "band", "effect", "ci_low",
                                             "ci_high"]),
+    "sales_chasing": ("Sales chasing (assessments on the roll)",
+                      ["test", "sold", "unsold", "difference", "p_value", "verdict"]),
 }
 
 

@@ -161,8 +161,10 @@ def adjustment_grid(model, subj, comps: CompSet | None, rules: GridRules, when: 
     weights = comp_weights(gross_pct, rules.weights)
     flags = _comp_flags(comps, net_pct, gross_pct, rules, when, spec)
     label = subj.labels.iloc[0]
+    place = (model_location(spec, comps, subj, enc.location) if enc.location is not None
+             else None)
     parts = [_feature_frame(f, comps, subj, diff, fit, idx, kind, e_f[:, j], money[:, j],
-                            alone[:, j], price, spec, when)
+                            alone[:, j], price, spec, when, place)
              for j, (f, kind, idx) in enumerate(features)]
     totals = pd.DataFrame({
         "comp_row": comps.data.index.to_numpy(dtype=np.int64), "feature": "total",
@@ -308,12 +310,16 @@ def _features(enc):
     """(feature name, kind, term indices) in the spec's order, market trend last."""
     out = []
     for col in enc.spec.predictors:
-        idx = [j for j, t in enumerate(enc.terms) if t.column == col]
+        idx = [j for j, t in enumerate(enc.terms) if t.column == col
+               and t.kind not in ("location", "trend")]
         kind = enc.terms[idx[0]].kind if idx else "numeric"
         out.append((col, "category" if kind == "level" else kind, idx))
     if enc.spec.date_column:
         idx = [j for j, t in enumerate(enc.terms) if t.kind == "trend"]
         out.append(("market conditions", "market", idx))
+    if enc.location is not None:
+        idx = [j for j, t in enumerate(enc.terms) if t.kind == "location"]
+        out.append(("location", "location", idx))
     return out
 
 
@@ -333,7 +339,7 @@ def _adjustments_in_money(e_f, total, price, log_response):
 
 
 def _feature_frame(name, comps, subj, diff, fit, idx, kind, e, money, alone, price, spec,
-                   when):
+                   when, place=None):
     m = len(price)
     rows = comps.data.index.to_numpy(dtype=np.int64)
     b = fit.coef[int(fit.has_intercept):]
@@ -349,6 +355,16 @@ def _feature_frame(name, comps, subj, diff, fit, idx, kind, e, money, alone, pri
                    .dt.days.to_numpy(dtype=float) / DAYS_PER_MONTH)
             with np.errstate(divide="ignore", invalid="ignore"):
                 model_diff, coef = raw, np.where(raw != 0, e / raw, np.nan)
+    elif kind == "location":
+        # the surface's effect of the subject's place against the comparable's; the
+        # difference is the distance between them (coordinate units; km for degrees)
+        b = place
+        s_val = np.repeat(f"{b[0]:g}, {b[1]:g}", m).astype(object)
+        c_val = np.array([f"{a:g}, {c:g}" for a, c in zip(b[2], b[3], strict=True)],
+                         dtype=object)
+        raw = b[4]
+        model_diff = np.full(m, np.nan)
+        coef = e
     elif kind == "category":
         s_val = np.repeat(subj.data[name].iloc[0], m).astype(object)
         c_val = comps.data[name].to_numpy(dtype=object)
@@ -425,3 +441,12 @@ def reconcile(label, rows, adjusted, weights, how, flags, estimates) -> pd.DataF
         "weighting": "inverse gross adjustment" if how == "gross" else "equal",
         "weights": text, "model_estimate": est, "pi_low": pi_lo, "pi_high": pi_hi,
         "flags": "; ".join(notes)}], columns=RECONCILED_COLUMNS)
+
+
+def model_location(spec, comps, subj, basis):
+    """(subject x, subject y, comps' x, comps' y, distances) for the location row."""
+    xc, yc = spec.location_columns
+    sx, sy = float(subj.data[xc].iloc[0]), float(subj.data[yc].iloc[0])
+    cx, cy = comps.data[xc].to_numpy(float), comps.data[yc].to_numpy(float)
+    dist = basis.distance(np.full(len(cx), sx), np.full(len(cy), sy), cx, cy)
+    return sx, sy, cx, cy, dist

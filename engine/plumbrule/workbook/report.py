@@ -535,6 +535,12 @@ _MEASURES = (("median_ratio", "Median ratio", "0.000", "0.90 to 1.10"),
 _TABLE_MEASURES = _MEASURES[:4]     # the numeric columns; the value slope is in the verdicts
 
 
+def _group_text(s) -> str:
+    """A ratio-study record's group; the assessments on the roll are marked as such."""
+    group = str(s.get("stratum", "all"))
+    return f"Roll (assessed): {group}" if s.get("sample") == "assessed" else group
+
+
 def _ratio_study(ws, ctx, r) -> int:
     r = _section(ws, r, "Sales-ratio study (estimate ÷ sale price)")
     rs = ctx.table("ratio_study")
@@ -558,8 +564,8 @@ def _ratio_study(ws, ctx, r) -> int:
     cod_target = "" if cod_max is None else f"{cod_max:g} or less"
     r = _heads(ws, r, ["Group", "Sales", "Median ratio", "COD", "PRD", "PRB", "Verdicts"],
                numeric=(2, 3, 4, 5, 6))
-    for i, (_, s) in enumerate(rs.head(20).iterrows()):
-        put(ws, r, 1, s.get("stratum", "all"))
+    for i, (_, s) in enumerate(rs.head(40).iterrows()):
+        put(ws, r, 1, _group_text(s))
         put(ws, r, 2, s.get("n"), "#,##0")
         for j, (key, _, fmt, _) in enumerate(_TABLE_MEASURES, start=3):
             put(ws, r, j, s.get(key), fmt)
@@ -568,9 +574,9 @@ def _ratio_study(ws, ctx, r) -> int:
         _wrapped(ws, r, 7, "; ".join(verdicts), span=1)
         r += 1
     if "note" in rs.columns:
-        for _, s in rs.head(20).iterrows():
+        for _, s in rs.head(40).iterrows():
             if isinstance(s["note"], str) and s["note"].strip():
-                _wrapped(ws, r, 1, f"{s.get('stratum', 'all')}: {s['note']}", span=LAST_COL)
+                _wrapped(ws, r, 1, f"{_group_text(s)}: {s['note']}", span=LAST_COL)
                 r += 1
     targets = "; ".join(f"{label} {_target_of(rs, key, target or cod_target)}"
                         for key, label, _, target in _MEASURES)

@@ -59,6 +59,7 @@ _MONEY_COLUMNS = {
     "sale_price", "se_mean", "se_single", "ci_low", "ci_high", "pi_low", "pi_high", "value",
     "range_low", "range_high", "spread", "adjustment", "adjustment_alone", "net_adjustment",
     "gross_adjustment", "adjusted_price", "median_estimate", "model_estimate", "estimate",
+    "assessed",
 }
 _RATIO_COLUMNS = {"ratio", "median_ratio", "median_ci_low", "median_ci_high", "mean_ratio",
                   "weighted_mean_ratio", "prd", "prb", "prb_ci_low", "prb_ci_high", "value_slope",
@@ -299,8 +300,24 @@ def write_validation(ws, analysis) -> None:
         else:
             define_name(book, f"plumb_{measure}", ws.title, _cell(2, r))
     est = t.holdout_estimates
-    _table(ws, r, "Estimates for the held-out sales", est,
-           _price_scale_formats(est), empty="No holdout.")
+    _, r = _table(ws, r, "Estimates for the held-out sales", est,
+                  _price_scale_formats(est), empty="No holdout.")
+    if len(t.assessed_estimates):
+        roll = t.assessed_estimates
+        _, r = _table(ws, r, "Assessments on the roll against the sale prices", roll,
+                      _price_scale_formats(roll),
+                      explain="Ratio = assessed value / sale price; its study is in the ratio "
+                              "study above (sample 'assessed'). Value ranges are cut on the "
+                              "assessed value.")
+    if len(t.sales_chasing):
+        _, r = _table(ws, r, "Sales chasing: did sold parcels' values move toward their prices?",
+                      t.sales_chasing,
+                      explain="Tests after the IAAO Standard on Ratio Studies (2013). Changes "
+                              "are proportions (0.05 = +5 %), CODs percent.")
+    if len(t.residual_map):
+        _table(ws, r, "Residuals on the map", t.residual_map,
+               explain="Each sale's residual (model scale) at its coordinates; the location "
+                       "check (Moran's I) is on the Model sheet's checks.")
     ws.freeze_panes = None
 
 
