@@ -340,7 +340,10 @@ def test_cli_option_and_json_table(tmp_path):
                           capture_output=True, text=True, timeout=120)
     assert proc.returncode == 0, proc.stderr
     out = json.loads(proc.stdout)
-    assert list(out)[-1] == "curves"       # new tables go at the end (the JSON contract)
+    keys = list(out)    # new tables go at the end (the JSON contract): after curves, only newer ones
+    assert keys.index("curves") > keys.index("market_index")
+    assert set(keys[keys.index("curves") + 1:]) <= {"assessed_estimates", "sales_chasing",
+                                                    "residual_map", "check_questions"}
     assert list(out["curves"][0]) == ["predictor", "kind", "value", "band", "reference",
                                       "model_effect", "effect", "ci_low", "ci_high", "scale"]
     bad = subprocess.run([sys.executable, "-m", "plumbrule", "fit", str(path), "--response",
