@@ -63,6 +63,7 @@ def write_report(book, analysis, valuation, stamp) -> None:
     r = _stamp(ws, stamp, r + 1)
     _top_align(ws)
     _page_setup(ws, r)
+    cells.fit_for_print(ws, last_col=LAST_COL, landscape=True, last_row=r)
     data_ws.sheet_properties.tabColor = "9FB3BD"
     data_ws.sheet_state = "hidden"     # printing the workbook should not print the points
 

@@ -18,6 +18,7 @@ from plumbrule.workbook.cells import (
     PERCENT,
     RATIO,
     define_name,
+    fit_for_print,
     note,
     put,
     sig3,
@@ -112,21 +113,69 @@ def _widths(
             ws.column_dimensions[letter].width = width
 
 
+WIDE, FEW = 10, 5     # a table this wide with this few rows is printed measure by measure
+
+
+class Placed:
+    """Where a table's values went: ``cell(column, i)`` is the address of row ``i``'s
+    value of ``column`` (a table of few rows and many columns is written turned, one
+    column per row of the table, so that it prints on a page's width)."""
+
+    def __init__(self, frame: pd.DataFrame | None, first: int, turned: bool):
+        self.columns = list(frame.columns) if frame is not None else []
+        self.first, self.turned = first, turned
+
+    def cell(self, column: str, i: int = 0) -> str:
+        j = self.columns.index(column)
+        return _cell(2 + i, self.first + j) if self.turned else _cell(1 + j, self.first + i)
+
+
 def _table(ws, r: int, heading: str, frame: pd.DataFrame | None, formats: dict | None = None,
            empty: str = "None.", explain: str | None = None) -> tuple[int, int]:
     """Heading, optional one-line explanation, the table; returns (first data row, next row)."""
+    placed, nxt = _placed_table(ws, r, heading, frame, formats, empty, explain, turn=False)
+    return placed.first, nxt
+
+
+def _placed_table(ws, r: int, heading: str, frame: pd.DataFrame | None,
+                  formats: dict | None = None, empty: str = "None.",
+                  explain: str | None = None, turn: bool | None = None) -> tuple[Placed, int]:
+    """As :func:`_table`; a table of at most FEW rows and more than WIDE columns is turned
+    (``turn`` None: decided by its shape). Returns (where its values are, next row)."""
     r = title(ws, r, heading)
     if explain:
         r = note(ws, r, explain)
     if frame is None or len(frame) == 0:
         r = note(ws, r, empty)
-        return r, r + 1
-    labels = {c: label(str(c)) for c in frame.columns}
-    first = r + 1
-    r = write_frame(ws, frame, r, 1, formats if formats is not None else _stat_formats(frame),
-                    labels)
-    _widths(ws, frame)
-    return first, r + 1
+        return Placed(frame, r, False), r + 1
+    if turn is None:
+        turn = len(frame) <= FEW and len(frame.columns) > WIDE
+    fmts = formats if formats is not None else _stat_formats(frame)
+    if not turn:
+        labels = {c: label(str(c)) for c in frame.columns}
+        first = r + 1
+        r = write_frame(ws, frame, r, 1, fmts, labels)
+        _widths(ws, frame)
+        return Placed(frame, first, False), r + 1
+    return Placed(frame, r, True), _turned(ws, r, frame, fmts)
+
+
+def _turned(ws, r: int, frame: pd.DataFrame, formats: dict) -> int:
+    """One row per column of ``frame`` (its label in column A), one column per record."""
+    from openpyxl.utils import get_column_letter
+    for j, c in enumerate(frame.columns):
+        put(ws, r + j, 1, label(str(c)), style="plumb_label")
+        fmt = formats.get(c)
+        for i, v in enumerate(frame[c].tolist()):
+            put(ws, r + j, 2 + i, v, fmt(v) if callable(fmt) else fmt)
+    for i in range(len(frame)):
+        dim = ws.column_dimensions[get_column_letter(2 + i)]
+        dim.width = max(dim.width if dim.customWidth and dim.width else 0, 14)
+    label_dim = ws.column_dimensions["A"]
+    longest = max(len(label(str(c))) for c in frame.columns) + 2
+    label_dim.width = max(label_dim.width if label_dim.customWidth and label_dim.width else 0,
+                          min(34, longest))
+    return r + len(frame.columns) + 1
 
 
 def _col(frame: pd.DataFrame, name: str) -> int:
@@ -171,11 +220,14 @@ def write_model(ws, analysis, stamp) -> None:
     _, r = _table(ws, r, "Checks of the model's assumptions", t.checks,
                   explain="verdict: ok / watch / fails against the threshold shown; the note says "
                           "what it means for a valuation.")
-    r = _covariance(ws, r, analysis)
     r = title(ws, r, "Audit stamp")
-    write_pairs(ws, stamp.rows(), r)
+    r = write_pairs(ws, stamp.rows(), r)
     ws.column_dimensions["A"].width = 34
     ws.freeze_panes = None
+    printed = r - 1
+    # the covariance matrix feeds the live block's formulas; a reader does not print it
+    _covariance(ws, r + 1, analysis)
+    fit_for_print(ws, last_col=_printed_columns(ws, printed), last_row=printed)
 
 
 def _covariance(ws, r: int, analysis) -> int:
@@ -193,8 +245,20 @@ def _covariance(ws, r: int, analysis) -> int:
         for j in range(len(names)):
             put(ws, r + 1 + i, 2 + j, cov[i, j], "0.000E+00")
     k = len(names)
+    from openpyxl.utils import get_column_letter
+    for j in range(k):      # '-1.234E-05' and the term names must show whole, not ###
+        dim = ws.column_dimensions[get_column_letter(2 + j)]
+        dim.width = max(dim.width if dim.customWidth and dim.width else 0, 12,
+                        min(30, len(names[j]) + 2))
     define_name(ws.parent, "plumb_coef_cov", ws.title, f"{_cell(2, r + 1)}:{_cell(1 + k, r + k)}")
     return r + k + 2
+
+
+def _printed_columns(ws, last_row: int) -> int:
+    """The last column a table uses above ``last_row`` (notes are wrapped to it)."""
+    cols = [c for (r, c), cell in ws._cells.items() if r <= last_row
+            and cell.value is not None and cell.style not in ("plumb_note", "plumb_title")]
+    return max(cols, default=2)
 
 
 def model_sentence(analysis) -> str:
@@ -223,8 +287,9 @@ def write_screening(ws, analysis) -> None:
     r = title(ws, 1, "Screening: the sales set aside, and why")
     r = note(ws, r, "Rules run in a fixed order before the fit; every row set aside is listed "
                     "with the rule, the limit and the reason.") + 1
-    _, r = _table(ws, r, "Summary", t.screen_summary, empty="No screening rule is set "
-                  "(see trim_percentiles, iqr_fence, influence_screen, exclude_rows in Settings).")
+    _, r = _placed_table(ws, r, "Summary", t.screen_summary, turn=True,
+                         empty="No screening rule is set (see trim_percentiles, iqr_fence, "
+                               "influence_screen, exclude_rows in Settings).")
     _, r = _table(ws, r, "Rows set aside", t.screen_log, empty="No rows were set aside.")
     _, r = _table(ws, r, "Rows dropped for missing values", t.dropped_rows,
                   empty="No rows had missing values in the columns used.")
@@ -233,6 +298,7 @@ def write_screening(ws, analysis) -> None:
            explain="Spellings that differ only in case or spacing are one level, under the most "
                    "frequent spelling; level_map in Settings maps others.")
     ws.freeze_panes = None
+    fit_for_print(ws, last_col=_printed_columns(ws, ws.max_row))
 
 
 # --- Validation --------------------------------------------------------------
@@ -248,20 +314,22 @@ def write_validation(ws, analysis) -> None:
                   _price_scale_formats(val),
                   empty="No holdout or cross-validation was run (set holdout or folds).")
     study = t.ratio_study
-    first, r = _table(ws, r, "Sales-ratio study (ratio = estimate / sale price)", study,
-                      _price_scale_formats(study),
-                      empty="No ratio study (it needs a holdout or cross-validation).",
-                      explain="Targets from the IAAO Standard on Ratio Studies (2013); with "
-                              "fewer than 20 sales the verdicts say the sample is too small.")
+    placed, r = _placed_table(ws, r, "Sales-ratio study (ratio = estimate / sale price)", study,
+                              _price_scale_formats(study),
+                              empty="No ratio study (it needs a holdout or cross-validation).",
+                              explain="Targets from the IAAO Standard on Ratio Studies (2013); "
+                                      "with fewer than 20 sales the verdicts say the sample is "
+                                      "too small.")
     for measure in ("cod", "prd", "prb", "value_slope"):
         if len(study):
-            define_name(book, f"plumb_{measure}", ws.title, _cell(_col(study, measure), first))
+            define_name(book, f"plumb_{measure}", ws.title, placed.cell(measure))
         else:
             define_name(book, f"plumb_{measure}", ws.title, _cell(2, r))
     est = t.holdout_estimates
     _table(ws, r, "Estimates for the held-out sales", est,
            _price_scale_formats(est), empty="No holdout.")
     ws.freeze_panes = None
+    fit_for_print(ws, last_col=_printed_columns(ws, ws.max_row))
 
 
 # --- Valuation ---------------------------------------------------------------
@@ -280,14 +348,16 @@ def write_valuation(ws, analysis, valuation, live: Callable | None = None) -> in
     else:
         est = valuation.estimates
         conf = f"{float(est['confidence'].iloc[0]):.0%}" if len(est) else ""
-        first, r = _table(ws, r, "Estimates for the subjects", est, _price_scale_formats(est),
-                          explain=f"PI low / PI high: {conf} prediction interval for one sale; "
-                                  "CI: interval for the mean price of such properties.")
+        placed, r = _placed_table(ws, r, "Estimates for the subjects", est,
+                                  _price_scale_formats(est),
+                                  explain=f"PI low / PI high: {conf} prediction interval for one "
+                                          "sale; CI: interval for the mean price of such "
+                                          "properties.")
         for nm, col in (("plumb_estimate", "estimate"), ("plumb_pi_low", "pi_low"),
                         ("plumb_pi_high", "pi_high")):
-            define_name(book, nm, ws.title, _cell(_col(est, col), first))
+            define_name(book, nm, ws.title, placed.cell(col))
         rec = valuation.reconciled
-        _, r = _table(ws, r, "Reconciled value from the comparables", rec,
+        _, r = _placed_table(ws, r, "Reconciled value from the comparables", rec,
                       _price_scale_formats(rec),
                       empty="No comparables: list Sales sheet rows on the Comps sheet.")
         grid = valuation.grid
@@ -297,4 +367,5 @@ def write_valuation(ws, analysis, valuation, live: Callable | None = None) -> in
     ws.freeze_panes = None
     if live is not None:
         r = live(ws, analysis, valuation, r + 1)
+    fit_for_print(ws, last_col=_printed_columns(ws, ws.max_row))
     return r
