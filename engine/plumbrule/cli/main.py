@@ -154,17 +154,17 @@ def cmd_report(args: argparse.Namespace) -> int:
     book = Path(args.book)
     if not book.is_file():
         raise WorkbookError(f"'{book}' is not a file. Name the plumbrule workbook to print.")
+    out = Path(args.pdf) if args.pdf else book.with_suffix(".pdf")
+    if out.suffix.lower() != ".pdf":
+        raise WorkbookError(f"'{out.name}' must end in .pdf. Choose a name such as report.pdf.")
+    if out.resolve() == book.resolve():
+        raise WorkbookError("The PDF would replace the workbook. Name another file.")
     have = {n: state for n, state in sheet_names(book)}
     if "Report" not in have:
         raise WorkbookError(f"'{book.name}' has no Report sheet. Run plumbrule run "
                             f"{book.name} first.")
     wanted = [n for n in RESULT_SHEETS if n in have and have[n] in (None, "visible")] \
         if args.all_sheets else ["Report"]
-    out = Path(args.pdf) if args.pdf else book.with_suffix(".pdf")
-    if out.suffix.lower() != ".pdf":
-        raise WorkbookError(f"'{out.name}' must end in .pdf. Choose a name such as report.pdf.")
-    if out.resolve() == book.resolve():
-        raise WorkbookError("The PDF would replace the workbook. Name another file.")
     write_pdf(book, wanted, out)
     print(visible(f"Wrote {out} ({page_count(out)} pages: {', '.join(wanted)})."))
     return 0

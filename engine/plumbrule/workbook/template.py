@@ -111,6 +111,8 @@ def template_book():
     _settings(book.create_sheet("Settings"))
     _xlwings_conf(book.create_sheet("xlwings.conf"))
     book.active = 0
+    # the sheet a spreadsheet prints by default (the selected tabs): never the Sales table
+    book["Read me"].sheet_view.tabSelected = True
     props = book.properties
     props.creator = "plumbrule"
     props.title = "plumbrule workbook"
