@@ -17,6 +17,7 @@ from plumbrule import screening as screen
 from plumbrule import validation as validate
 from plumbrule.diagnostics.checks import WATCH, Check, run_checks
 from plumbrule.diagnostics.levels import level_checks
+from plumbrule.diagnostics.questions import question_table
 from plumbrule.diagnostics.trend import (
     market_index,
     trend_checks,
@@ -57,6 +58,7 @@ class AnalysisTables:
     cv_estimates: pd.DataFrame
     level_merges: pd.DataFrame
     market_index: pd.DataFrame = field(default_factory=pd.DataFrame)
+    check_questions: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @classmethod
     def names(cls) -> tuple[str, ...]:
@@ -169,12 +171,13 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         checks.append(_moved_check(moved))
     ids = sales.ids
     day = valuation_day(settings)
+    checks_frame = checks_table(checks)
     tables = AnalysisTables(
         coefficients=coefficient_table(model),
         fit=fit_table(model, n_dropped=len(clean.dropped),
                       extra={"n_holdout": len(hold), "n_screened": len(fit_log)},
                       retransform=settings.retransform),
-        checks=checks_table(checks),
+        checks=checks_frame,
         dropped_rows=with_ids(clean.dropped, sales.shown_ids),
         residuals=with_ids(with_time_adjusted(residual_table(model), model, day), ids),
         correlations=correlation_table(model),
@@ -188,6 +191,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         cv_estimates=with_ids(cv_estimates, ids),
         level_merges=sales.level_merges,
         market_index=market_index(model, day),
+        check_questions=question_table(checks_frame),
     )
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
                     tables=tables, holdout=hold, ids=ids)
