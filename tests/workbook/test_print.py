@@ -145,3 +145,39 @@ def test_report_refuses_a_book_without_results_and_a_pdf_over_the_book(tmp_path,
     assert "Run plumbrule run fresh.xlsx first" in capsys.readouterr().err
     assert main(["report", str(book), "--pdf", str(tmp_path / "out.txt")]) == 2
     assert "must end in .pdf" in capsys.readouterr().err
+
+
+def _column_a(ws):
+    return {c.value: c.row for c in ws["A"] if isinstance(c.value, str)}
+
+
+def test_model_sheet_leads_with_the_effects_in_words_then_detail_then_fit(ran):
+    # issue 14: not a block of fit figures followed by a coefficient table
+    from foreign_labels import FOREIGN_LABELS
+    ws = openpyxl.load_workbook(ran)["Model"]
+    rows = _column_a(ws)
+    order = [rows["What each feature does to the price"], rows["The coefficients in detail"],
+             rows["How closely the model fits"], rows["Checks, question by question"]]
+    assert order == sorted(order)
+    words = [ws.cell(row=r, column=2).value for r in range(order[0] + 3, order[1] - 1)]
+    assert "+9.4% for Good against Average" in words          # exp(0.08965) - 1 = 9.38 %
+    assert any(w and w.endswith("per 1% of Living area") for w in words)
+    texts = [c.value.lower() for row in ws.iter_rows() for c in row if isinstance(c.value, str)]
+    for lab in FOREIGN_LABELS:
+        assert not [t for t in texts if lab.lower() in t], lab
+    assert not [t for t in texts if "omnibus" in t]
+
+
+def test_model_sheet_checks_come_question_by_question_with_a_verdict_each(ran):
+    ws = openpyxl.load_workbook(ran)["Model"]
+    rows = _column_a(ws)
+    bands = ["The data", "The shape of the relationship", "The spread of errors",
+             "Independence", "Normality", "Collinearity", "Influence"]
+    at = [rows[b] for b in bands]
+    assert at == sorted(at)
+    for b in bands:
+        assert ws.cell(row=rows[b], column=2).value in ("ok", "watch", "fails", "n/a")
+        assert ws.cell(row=rows[b], column=3).value      # its sentence
+    # the statistics sit below their question
+    k2 = rows.get("Normality: D'Agostino–Pearson K²", 0)
+    assert rows["Normality"] < k2 < rows["Collinearity"]

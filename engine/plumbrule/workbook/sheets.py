@@ -13,6 +13,7 @@ import pandas as pd
 
 from plumbrule.render.wording import CAUTION
 from plumbrule.workbook.cells import (
+    TITLE_COLOUR,
     INTEGER,
     MONEY,
     PERCENT,
@@ -190,44 +191,156 @@ def _cell(col: int, row: int) -> str:
 # --- Model -----------------------------------------------------------------
 
 def write_model(ws, analysis, stamp) -> None:
-    """Coefficients, fit, checks, covariance of the estimates and the audit stamp."""
-    book = ws.parent
-    t = analysis.tables
-    fit = t.fit.iloc[0]
-    coefs = t.coefficients
+    """The model in one sentence, its effects in words, the coefficients in detail, the
+    fit figures, the checks question by question, the audit stamp; below the printed
+    area, the covariance of the estimates (for the live block's formulas)."""
+    for letter, width in zip("ABCDEFGHIJ", (40, 12, 12, 12, 12, 24, 12, 12, 12, 24),
+                             strict=True):
+        ws.column_dimensions[letter].width = width
     r = title(ws, 1, "Model")
     r = note(ws, r, model_sentence(analysis)) + 1
-
-    r = title(ws, r, "Fit")
-    pairs = [(_FIT_WORDS.get(k, label(k)), fit[k]) for k in t.fit.columns]
-    names = list(t.fit.columns)
-    fit_top = r
-    fmt = {_FIT_WORDS.get(k, label(k)): (INTEGER if k.startswith(("n_", "df_")) else sig3)
-           for k in names}
-    r = write_pairs(ws, pairs, r, 1, fmt) + 1
-    define_name(book, "plumb_r_squared", ws.title, _cell(2, fit_top + names.index("r_squared")))
-    define_name(book, "plumb_n_used", ws.title, _cell(2, fit_top + names.index("n_used")))
-
-    scale = " (model scale: log of the price)" if analysis.spec.log_response else ""
-    conf = f"{analysis.model.confidence:.0%}"
-    first, r = _table(ws, r, "Coefficients" + scale, coefs,
-                      explain=f"CI low / CI high: {conf} confidence interval of each estimate.")
-    last = first + len(coefs) - 1
-    define_name(book, "plumb_coef_terms", ws.title, f"{_cell(1, first)}:{_cell(1, last)}")
-    define_name(book, "plumb_coef_estimates", ws.title,
-                f"{_cell(_col(coefs, 'estimate'), first)}:{_cell(_col(coefs, 'estimate'), last)}")
-
-    _, r = _table(ws, r, "Checks of the model's assumptions", t.checks,
-                  explain="verdict: ok / watch / fails against the threshold shown; the note says "
-                          "what it means for a valuation.")
+    r = _effects(ws, r, analysis)
+    r = _coefficients(ws, r, analysis)
+    r = _fit_figures(ws, r, analysis)
+    r = _checks_by_question(ws, r, analysis)
     r = title(ws, r, "Audit stamp")
     r = write_pairs(ws, stamp.rows(), r)
-    ws.column_dimensions["A"].width = 34
     ws.freeze_panes = None
     printed = r - 1
     # the covariance matrix feeds the live block's formulas; a reader does not print it
     _covariance(ws, r + 1, analysis)
-    fit_for_print(ws, last_col=_printed_columns(ws, printed), last_row=printed)
+    fit_for_print(ws, last_col=LAST_MODEL_COL, last_row=printed)
+
+
+LAST_MODEL_COL = 10      # column J: the checks' note ends there
+
+
+def _effects(ws, r: int, analysis) -> int:
+    """Each term's effect on the price in words, with its p-value."""
+    from plumbrule.render.effects import effect_phrases
+    coefs = analysis.tables.coefficients
+    words = effect_phrases(analysis.model)
+    r = title(ws, r, "What each feature does to the price")
+    r = note(ws, r, "Each effect holds the other features fixed; the p-value says how likely "
+                    "an effect this large would be by chance if the feature had none.")
+    for j, head in enumerate(("Term", "Effect on the price", "", "", "p-value"), start=1):
+        put(ws, r, j, head, style="plumb_header")
+    ws.merge_cells(start_row=r, start_column=2, end_row=r, end_column=4)
+    r += 1
+    for term, phrase, p in zip(coefs["term"], words, coefs["p_value"], strict=True):
+        if not phrase:
+            continue
+        put(ws, r, 1, term, style="plumb_label")
+        put(ws, r, 2, phrase)
+        ws.merge_cells(start_row=r, start_column=2, end_row=r, end_column=4)
+        put(ws, r, 5, p, sig3(p))
+        r += 1
+    return r + 1
+
+
+_COEF_ORDER = ["term", "estimate", "ci_low", "ci_high", "p_value", "std_error", "t",
+               "std_beta", "vif"]
+_COEF_WORDS = {"ci_low": "interval from", "ci_high": "interval to", "std_beta": "beta"}
+
+
+def _coefficients(ws, r: int, analysis) -> int:
+    """The coefficients on the model's scale, named for the live block and the sheet
+    functions (plumb_coef_terms, plumb_coef_estimates)."""
+    book = ws.parent
+    coefs = analysis.tables.coefficients
+    shown = coefs[[c for c in _COEF_ORDER if c in coefs.columns]
+                  + [c for c in coefs.columns if c not in _COEF_ORDER]]
+    scale = "the log of the price" if analysis.spec.log_response else "the price"
+    conf = f"{analysis.model.confidence:.0%}"
+    r = title(ws, r, "The coefficients in detail")
+    r = note(ws, r, f"On the model's scale ({scale}). Interval: the {conf} confidence interval "
+                    "of each estimate; beta: the estimate in standard deviations; VIF: how much "
+                    "the other features inflate its variance.")
+    labels = {c: _COEF_WORDS.get(c, label(str(c))) for c in shown.columns}
+    first = r + 1
+    r = write_frame(ws, shown, r, 1, _stat_formats(shown), labels) + 1
+    last = first + len(shown) - 1
+    define_name(book, "plumb_coef_terms", ws.title, f"{_cell(1, first)}:{_cell(1, last)}")
+    est = _col(shown, "estimate")
+    define_name(book, "plumb_coef_estimates", ws.title,
+                f"{_cell(est, first)}:{_cell(est, last)}")
+    return r
+
+
+# the fit figures in reading order: the sales, the error on prices, then the model's scale
+_FIT_ORDER = ("n_used", "n_holdout", "n_screened", "n_dropped", "mape",
+              "r_squared_price_scale", "rmse_price_scale", "mae_price_scale", "r_squared",
+              "adj_r_squared", "resid_std_error", "rmse", "mae", "f_stat", "f_p_value",
+              "log_likelihood", "aic", "bic", "n_params", "df_resid", "se_type", "response",
+              "scale")
+
+
+def _fit_figures(ws, r: int, analysis) -> int:
+    """Model-level figures as label/value pairs; plumb_r_squared and plumb_n_used named."""
+    book = ws.parent
+    fit_frame = analysis.tables.fit
+    fit = fit_frame.iloc[0]
+    names = [k for k in _FIT_ORDER if k in fit_frame.columns] \
+        + [k for k in fit_frame.columns if k not in _FIT_ORDER]
+    r = title(ws, r, "How closely the model fits")
+    pairs = [(_FIT_WORDS.get(k, label(k)), fit[k]) for k in names]
+    fmt = {_FIT_WORDS.get(k, label(k)): (INTEGER if k.startswith(("n_", "df_")) else sig3)
+           for k in names}
+    top = r
+    r = write_pairs(ws, pairs, r, 1, fmt) + 1
+    define_name(book, "plumb_r_squared", ws.title, _cell(2, top + names.index("r_squared")))
+    define_name(book, "plumb_n_used", ws.title, _cell(2, top + names.index("n_used")))
+    return r
+
+
+QUESTION_TITLES = {
+    "the data": "The data", "the shape of the relationship": "The shape of the relationship",
+    "the spread of errors": "The spread of errors", "independence": "Independence",
+    "normality": "Normality", "collinearity": "Collinearity", "influence": "Influence",
+}
+VERDICT_FILL = {"ok": "DCEFDC", "watch": "FCE9C4", "fails": "F6CFCB", "n/a": "E8E8E8"}
+
+
+def _checks_by_question(ws, r: int, analysis) -> int:
+    """One band per question (its verdict and sentence), its checks below it."""
+    from openpyxl.styles import Alignment, Font, PatternFill
+    checks = analysis.tables.checks
+    questions = analysis.tables.check_questions
+    r = title(ws, r, "Checks, question by question")
+    r = note(ws, r, "Each question's verdict is that of its worst check: ok, watch or fails "
+                    "against the threshold shown; the last column says what it means for a "
+                    "valuation.")
+    if not len(checks):
+        return note(ws, r, "No checks were run.") + 1
+    for j, head in ((1, "Check"), (2, "Verdict"), (3, "Statistic"), (4, "p-value"),
+                    (5, "Flagged when"), (7, "What it means for the valuation")):
+        put(ws, r, j, head, style="plumb_header")
+    for j in (6, 8, 9, 10):
+        put(ws, r, j, "", style="plumb_header")
+    r += 1
+    for q in questions.itertuples(index=False):
+        head = put(ws, r, 1, QUESTION_TITLES.get(q.question, q.question))
+        head.font = Font(bold=True, color=TITLE_COLOUR)
+        v = put(ws, r, 2, q.verdict)
+        v.fill = PatternFill("solid", fgColor=VERDICT_FILL.get(str(q.verdict), "FFFFFF"))
+        v.font = Font(bold=True)
+        v.alignment = Alignment(horizontal="center", vertical="top")
+        put(ws, r, 3, q.sentence)
+        ws.merge_cells(start_row=r, start_column=3, end_row=r, end_column=LAST_MODEL_COL)
+        r += 1
+        for c in checks[checks["question"] == q.question].itertuples(index=False):
+            put(ws, r, 1, c.check).alignment = Alignment(indent=1, wrap_text=True,
+                                                         vertical="top")
+            put(ws, r, 2, c.verdict).alignment = Alignment(horizontal="center")
+            put(ws, r, 3, c.statistic, sig3(c.statistic))
+            put(ws, r, 4, c.p_value, sig3(c.p_value))
+            put(ws, r, 5, c.threshold).alignment = Alignment(indent=1, wrap_text=True,
+                                                             vertical="top")
+            ws.merge_cells(start_row=r, start_column=5, end_row=r, end_column=6)
+            put(ws, r, 7, c.note)
+            ws.merge_cells(start_row=r, start_column=7, end_row=r, end_column=LAST_MODEL_COL)
+            r += 1
+    return r + 1
 
 
 def _covariance(ws, r: int, analysis) -> int:
