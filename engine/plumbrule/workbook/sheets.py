@@ -109,7 +109,13 @@ def _widths(
     from openpyxl.utils import get_column_letter
     for j, c in enumerate(frame.columns):
         letter = get_column_letter(left + j)
-        width = max(minimum, min(maximum, len(label(str(c))) + 2))
+        longest = len(label(str(c)))
+        col = frame[c]
+        if len(col) and (col.dtype == object or pd.api.types.is_string_dtype(col.dtype)):
+            # text: wide enough for most of it
+            lengths = col.head(2000).map(lambda v: len(v) if isinstance(v, str) else 0)
+            longest = max(longest, int(lengths.quantile(0.9)))
+        width = max(minimum, min(maximum, longest + 2))
         if ws.column_dimensions[letter].width is None or ws.column_dimensions[letter].width < width:
             ws.column_dimensions[letter].width = width
 
