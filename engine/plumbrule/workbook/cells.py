@@ -282,7 +282,7 @@ def fit_for_print(ws, last_col: int | None = None, landscape: bool | None = None
     merged = {(r, c) for rng in ws.merged_cells.ranges
               for r in range(rng.min_row, rng.max_row + 1)
               for c in range(rng.min_col, rng.max_col + 1)}
-    merged_width = {}
+    merged_width: dict[tuple[int, int], float] = {}
     for rng in ws.merged_cells.ranges:
         merged_width[(rng.min_row, rng.min_col)] = sum(
             column_width(ws, k) for k in range(rng.min_col, rng.max_col + 1))
@@ -297,7 +297,7 @@ def fit_for_print(ws, last_col: int | None = None, landscape: bool | None = None
         return isinstance(cell.value, str) and (cell.row, cell.column) not in merged \
             and len(cell.value) * _font_scale(cell) > width(cell.column) * 0.9
 
-    def tail(cs) -> object:
+    def tail(cs) -> Any:
         """The row's last cell when it is text that may run on to the right: a note alone
         on its row, or the value of a label/value pair."""
         last = max(cs, key=lambda c: c.column)
