@@ -19,6 +19,7 @@ from plumbrule.diagnostics.checks import WATCH, Check, run_checks
 from plumbrule.diagnostics.curves import curve_table, linearity_by_predictor
 from plumbrule.diagnostics.levels import level_checks
 from plumbrule.diagnostics.location import location_tables
+from plumbrule.diagnostics.questions import question_table
 from plumbrule.diagnostics.trend import (
     market_index,
     trend_checks,
@@ -64,6 +65,7 @@ class AnalysisTables:
     assessed_estimates: pd.DataFrame = field(default_factory=pd.DataFrame)
     sales_chasing: pd.DataFrame = field(default_factory=pd.DataFrame)
     residual_map: pd.DataFrame = field(default_factory=pd.DataFrame)
+    check_questions: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @classmethod
     def names(cls) -> tuple[str, ...]:
@@ -208,6 +210,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
 
     def named(frame, ident):
         return with_names(with_ids(frame, ident), names)
+    checks_frame = checks_table(checks)
     tables = AnalysisTables(
         coefficients=coefficient_table(final),
         fit=fit_table(final, n_dropped=len(clean.dropped),
@@ -215,7 +218,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
                              "final_fit": "all" if final is not model or not len(hold)
                              else "training", "n_training": model.fit.n},
                       retransform=settings.retransform),
-        checks=checks_table(checks),
+        checks=checks_frame,
         dropped_rows=with_ids(clean.dropped, sales.shown_ids),
         residuals=named(with_time_adjusted(residual_table(final), final, day), ids),
         correlations=correlation_table(final),
@@ -233,6 +236,7 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         assessed_estimates=with_ids(assessed_est, ids),
         sales_chasing=chasing,
         residual_map=with_ids(residual_map, ids),
+        check_questions=question_table(checks_frame),
     )
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
                     tables=tables, holdout=hold, ids=ids, final_model=final, names=names)

@@ -160,12 +160,30 @@ def test_text_output_is_our_own_layout(csv_path, capsys):
     assert cli.main(["fit", str(csv_path), *BASE]) == 0
     text = capsys.readouterr().out
     for part in ["hedonic model of Sale price", "78 sales used", "2 rows left out",
-                 "reference levels: Neighbourhood =", "How well the model fits", "Effects on",
-                 "Checks of the model", "Rows left out for missing values", "not an appraisal",
-                 "USPAP"]:
+                 "reference levels: Neighbourhood =", "How well the model fits",
+                 "What each feature does to", "The coefficients in detail",
+                 "Checks, question by question", "Rows left out for missing values",
+                 "not an appraisal", "USPAP"]:
         assert part in text, part
     for label in FOREIGN:
         assert label.lower() not in text.lower(), label
+    # issue 14: what a reader acts on first (effects in words), then the coefficients, then
+    # the fit; the checks question by question, in plumbrule's order (not a statistics
+    # library's footer, which opens with the omnibus normality test)
+    at = [text.index(p) for p in ("What each feature does to", "The coefficients in detail",
+                                  "How well the model fits", "Checks, question by question")]
+    assert at == sorted(at)
+    asked = [q for q in ("the data:", "the shape of the relationship:",
+                         "the spread of errors:", "independence:", "normality:",
+                         "collinearity:", "influence:") if "\n  " + q in text]
+    assert asked.index("normality:") > asked.index("independence:") > asked.index(
+        "the shape of the relationship:")
+    assert [text.index("\n  " + q) for q in asked] == sorted(text.index("\n  " + q)
+                                                            for q in asked)
+    assert "omnibus" not in text.lower() and "D'Agostino–Pearson K²" in text
+    effects = text.split("The coefficients in detail")[0]
+    assert " against " in effects                        # a level against the reference
+    assert " per unit of " in effects or " per 1% of " in effects   # a numeric feature
 
 
 def _bad(args, capsys, pattern):

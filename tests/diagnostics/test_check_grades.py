@@ -131,7 +131,7 @@ def test_extreme_kurtosis_fails_and_says_what_it_does_to_intervals():
     assert kurt - 3 > 7 and jb_p < 0.05
     c = checks_of(a)
     assert c.loc["Normality: Jarque-Bera", "statistic"] == pytest.approx(jb, rel=1e-8)
-    for name in ("Normality: Jarque-Bera", "Normality: omnibus K2", "Residual kurtosis"):
+    for name in ("Normality: Jarque-Bera", "Normality: D'Agostino–Pearson K²", "Residual kurtosis"):
         assert c.loc[name, "verdict"] == "fails", name
         assert "prediction interval assumes normal errors" in c.loc[name, "note"]
         assert "too narrow" in c.loc[name, "note"]

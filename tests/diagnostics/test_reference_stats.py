@@ -122,7 +122,7 @@ def test_normality(case):
     assert row(a, "Residual skewness")["statistic"] == pytest.approx(skew, rel=1e-8)
     assert row(a, "Residual kurtosis")["statistic"] == pytest.approx(kurt, rel=1e-8)
     k2, k2_p = stats.normaltest(ref.resid)                 # scipy.stats.normaltest
-    r = row(a, "Normality: omnibus K2")
+    r = row(a, "Normality: D'Agostino–Pearson K²")
     assert r["statistic"] == pytest.approx(k2, rel=1e-8)
     assert r["p_value"] == pytest.approx(k2_p, rel=1e-6)
 

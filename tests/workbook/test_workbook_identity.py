@@ -171,8 +171,11 @@ def test_a_rerun_reads_any_spelling_of_workbook_xml(book, tmp_path, dialect):
     names = _local_names(src)
     assert names[("_xlnm.Print_Area", "Sales")] == "'Sales'!$A$1:$D$20"
     assert names[("_xlnm.Print_Area", "Report")].startswith("'Report'!")
-    assert [k for k in names if k[0] == "_xlnm.Print_Area"] == [
-        ("_xlnm.Print_Area", "Sales"), ("_xlnm.Print_Area", "Report")]
+    # the user's print area stays; every printed result sheet brings its own
+    assert sorted(k[1] for k in names if k[0] == "_xlnm.Print_Area") == sorted(
+        ("Read me", "Sales", "xlwings.conf", "Report", "Model", "Screening", "Validation",
+         "Valuation"))
+    assert names[("_xlnm.Print_Titles", "Sales")] == "'Sales'!$1:$1"   # from the template
     after = _parts(src)
     user = [p for n, _, p in sheets if n not in RESULT_SHEETS]
     assert len(user) == 8          # Read me, Sales, Subjects, Comps, Settings, Models, Roll, xlwings.conf

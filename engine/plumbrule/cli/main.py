@@ -103,6 +103,16 @@ def build_parser() -> argparse.ArgumentParser:
     run_.add_argument("--json", action="store_true", help="Print one JSON object.")
     run_.set_defaults(handler=cmd_run)
 
+    report = sub.add_parser("report", help="Print a plumbrule workbook's Report (with --all, "
+                            "every result sheet) to a PDF, by LibreOffice.")
+    report.add_argument("book", metavar="BOOK.xlsx", help="A workbook plumbrule run has "
+                        "written its results into (it is only read).")
+    report.add_argument("--pdf", nargs="?", const="", default="", metavar="OUT.pdf",
+                        help="The PDF to write (default: BOOK.pdf beside the workbook).")
+    report.add_argument("--all", dest="all_sheets", action="store_true",
+                        help="Print every result sheet, not only the Report.")
+    report.set_defaults(handler=cmd_report)
+
     demo = sub.add_parser("demo", help="Write the demo (an invented town) and run it.")
     demo.add_argument("dir", nargs="?", default=".", metavar="DIR",
                       help="Folder to write into (default: here).")
@@ -169,6 +179,30 @@ def cmd_run(args: argparse.Namespace) -> int:
     from plumbrule.workbook.run import print_run, run_book
     result = run_book(args.book, backup=False if args.no_backup else None)
     print_run(result, as_json=args.json)
+    return 0
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    from pathlib import Path
+    from plumbrule.errors import WorkbookError
+    from plumbrule.workbook import RESULT_SHEETS
+    from plumbrule.workbook.pdf import page_count, sheet_names, write_pdf
+    book = Path(args.book)
+    if not book.is_file():
+        raise WorkbookError(f"'{book}' is not a file. Name the plumbrule workbook to print.")
+    out = Path(args.pdf) if args.pdf else book.with_suffix(".pdf")
+    if out.suffix.lower() != ".pdf":
+        raise WorkbookError(f"'{out.name}' must end in .pdf. Choose a name such as report.pdf.")
+    if out.resolve() == book.resolve():
+        raise WorkbookError("The PDF would replace the workbook. Name another file.")
+    have = {n: state for n, state in sheet_names(book)}
+    if "Report" not in have:
+        raise WorkbookError(f"'{book.name}' has no Report sheet. Run plumbrule run "
+                            f"{book.name} first.")
+    wanted = [n for n in RESULT_SHEETS if n in have and have[n] in (None, "visible")] \
+        if args.all_sheets else ["Report"]
+    write_pdf(book, wanted, out)
+    print(visible(f"Wrote {out} ({page_count(out)} pages: {', '.join(wanted)})."))
     return 0
 
 

@@ -16,7 +16,8 @@ from plumbrule.model.fitted import FittedModel
 from plumbrule.numeric.vectors import dot, gram, q_times
 from plumbrule.verdicts import FAILS, NA, OK, WATCH
 
-CHECK_COLUMNS = ["check", "statistic", "p_value", "threshold", "verdict", "note"]
+CHECK_COLUMNS = ["check", "statistic", "p_value", "threshold", "verdict", "note", "question"]
+K2_NAME = "Normality: D'Agostino–Pearson K²"     # D'Agostino & Pearson (1973)
 
 
 @dataclass(frozen=True)
@@ -32,6 +33,7 @@ class Check:
     df: float = float("nan")
     distribution: str = ""
     null: str = ""
+    question: str = ""          # diagnostics/questions.py: filled from the name when blank
 
 
 def not_applicable(name: str, why: str, threshold: str = "") -> Check:
@@ -100,7 +102,7 @@ def omnibus(model: FittedModel) -> Check:
     e = model.fit.resid
     threshold = f"p < 0.05 watch; {SEVERE_SOURCE}"
     if len(e) < 20:
-        return not_applicable("Normality: omnibus K2", "Needs at least 20 sales (the kurtosis "
+        return not_applicable(K2_NAME, "Needs at least 20 sales (the kurtosis "
                               "test is unreliable below that).", threshold)
     from plumbrule.numeric.distributions import chi2_sf
     k2 = _dagostino_k2(len(e), *model.residual_moments)
@@ -109,7 +111,7 @@ def omnibus(model: FittedModel) -> Check:
     note = severe or (
         "Skew and tails of the residuals are consistent with normal errors." if p >= 0.05 else
         "Skew or heavy tails in the residuals: treat the prediction interval as approximate.")
-    return Check("Normality: omnibus K2", float(k2), float(p), threshold, verdict, note,
+    return Check(K2_NAME, float(k2), float(p), threshold, verdict, note,
                  2, "chi2", "residuals are normal")
 
 
@@ -713,9 +715,10 @@ def studentized_count(model: FittedModel) -> Check:
                  df, "t", "no sale is an outlier")
 
 
-ALL_CHECKS = (jarque_bera, omnibus, skewness, kurtosis, durbin_watson_date, time_neighbours,
-              breusch_pagan, white_special, max_vif, max_gvif, condition_number,
-              correlated_pairs, ramsey_reset, cooks_count, max_leverage, studentized_count)
+# grouped by the question each answers, in plumbrule's order (diagnostics/questions.py)
+ALL_CHECKS = (ramsey_reset, breusch_pagan, white_special, durbin_watson_date, time_neighbours,
+              omnibus, jarque_bera, skewness, kurtosis, max_vif, max_gvif, correlated_pairs,
+              condition_number, cooks_count, max_leverage, studentized_count)
 
 
 def run_checks(model: FittedModel) -> list[Check]:

@@ -146,8 +146,11 @@ def _f_statistic(model: FittedModel, r2: float, df_model: int) -> float:
 
 
 def checks_table(checks: list[Check]) -> pd.DataFrame:
+    """One row per check, question by question (the ``question`` column says which:
+    diagnostics/questions.py)."""
+    from plumbrule.diagnostics.questions import in_question_order
     rows = [{"check": c.name, **{k: getattr(c, k) for k in CHECK_COLUMNS[1:]}} for c in checks]
-    return pd.DataFrame(rows, columns=CHECK_COLUMNS)
+    return in_question_order(pd.DataFrame(rows, columns=CHECK_COLUMNS))
 
 
 def residual_table(model: FittedModel) -> pd.DataFrame:

@@ -1,9 +1,10 @@
 """Analysis tables → readable text for the terminal, in plumbrule's own layout.
 
-Written for an appraiser reading the result: each effect is also said in words
-("+14.1 % vs Average", "+123 per unit"), the checks that need attention carry
-their plain sentence, and every left-out row is listed by its sheet row. The
-engine's tables are not rounded; only this writer formats numbers.
+Written for an appraiser reading the result: each effect is said in words first
+("+7.6% for Good against Average", "+0.62% per 1% of Living area"), the checks come
+question by question, those that need attention with their plain sentence, and every
+left-out row is listed by its sheet row. The engine's tables are not rounded; only this
+writer formats numbers.
 """
 
 from __future__ import annotations
@@ -12,8 +13,8 @@ import math
 
 import pandas as pd
 
-from plumbrule.diagnostics.tables import effect_table, typical_spread
-from plumbrule.numbers import money, p_value, readable, signed_pct
+from plumbrule.diagnostics.tables import typical_spread
+from plumbrule.numbers import money, p_value, readable
 from plumbrule.render.terminal import visible
 from plumbrule.render.wording import CAUTION, final_fit_text, validation_text
 from plumbrule.verdicts import Verdict
@@ -48,26 +49,8 @@ def text_table(frame: pd.DataFrame, columns=None, headers=None, limit: int | Non
 
 def effect_words(result) -> list[str]:
     """Each coefficient said in words, on the price scale where it has one."""
-    out = []
-    for e in effect_table(result.final_model).itertuples(index=False):
-        if e.kind == "intercept" or not math.isfinite(e.effect):
-            out.append("")
-            continue
-        if e.kind == "curve":       # one column of a curve: read the curve table instead
-            out.append("part of a curve (see Curves)")
-            continue
-        unit = (f"vs {e.reference}" if e.kind == "level" else
-                "per month" if e.kind == "trend" else "per unit")
-        if e.scale == "percent":
-            out.append(f"{signed_pct(e.effect)} {unit}")
-        elif e.scale == "percent per 1 percent":
-            out.append(f"{e.effect:+.3f} % per 1 % more")
-        elif e.scale == "price per 1 percent":
-            out.append(f"{e.effect:+,.4g} per 1 % more")
-        else:
-            out.append(f"{e.effect:+,.0f} {unit}" if abs(e.effect) >= 100
-                       else f"{e.effect:+.4g} {unit}")
-    return out
+    from plumbrule.render.effects import effect_phrases
+    return effect_phrases(result.final_model)
 
 
 def _header(result) -> list[str]:
@@ -121,25 +104,43 @@ def _fit_block(result) -> list[str]:
     return ["How well the model fits"] + [f"  {k.ljust(w)}  {v}" for k, v in rows]
 
 
+def _words_block(result) -> list[str]:
+    """What a reader acts on first: each feature's effect on the price, in words."""
+    coefs = result.tables.coefficients.copy()
+    coefs["meaning"] = effect_words(result)
+    shown = coefs[coefs["meaning"] != ""]
+    return ["What each feature does to " + result.encoding.response_name
+            + " (the others held fixed)",
+            text_table(shown, ["term", "meaning", "p_value"], ["term", "effect", "p"],
+                       formats={"p_value": p_value})]
+
+
 def _effects_block(result) -> list[str]:
     coefs = result.tables.coefficients.copy()
     level = int(round(100 * result.final_model.confidence))
     coefs["interval"] = [f"{readable(lo)} to {readable(hi)}" for lo, hi in
                          zip(coefs["ci_low"], coefs["ci_high"], strict=False)]
-    coefs["meaning"] = effect_words(result)
-    cols = ["term", "estimate", "std_error", "t", "p_value", "interval", "std_beta", "vif",
-            "meaning"]
-    heads = ["term", "estimate", "std error", "t", "p", f"{level} % interval", "beta", "VIF",
-             "in words"]
-    return ["Effects on " + result.encoding.response_name,
+    cols = ["term", "estimate", "interval", "p_value", "std_error", "t", "std_beta", "vif"]
+    heads = ["term", "estimate", f"{level} % interval", "p", "std error", "t", "beta", "VIF"]
+    scale = "log price" if result.encoding.spec.log_response else "price"
+    return [f"The coefficients in detail (on the {scale} scale)",
             text_table(coefs, cols, heads, formats={"p_value": p_value})]
 
 
 def _checks_block(result) -> list[str]:
+    """The checks question by question: the question's verdict and sentence, then its
+    checks."""
     checks = result.tables.checks
-    out = ["Checks of the model",
-           text_table(checks, ["verdict", "check", "statistic", "p_value", "threshold"],
-                ["verdict", "check", "value", "p", "flagged when"], formats={"p_value": p_value})]
+    questions = result.tables.check_questions
+    out = ["Checks, question by question"]
+    if not len(checks):
+        return out + ["  No checks were run."]
+    for q in questions.itertuples(index=False):
+        out.append(f"  {q.question}: {q.verdict}. {q.sentence}")
+        group = checks[checks["question"] == q.question]
+        out.append(text_table(group, ["verdict", "check", "statistic", "p_value", "threshold"],
+                              ["verdict", "check", "value", "p", "flagged when"],
+                              formats={"p_value": p_value}, indent="      "))
     attention = checks[checks["verdict"].isin(Verdict.needing_attention())]
     if len(attention):
         out += ["", "What needs attention"]
@@ -187,8 +188,8 @@ def _other_blocks(result) -> list[str]:
 
 def render_analysis(result) -> str:
     """The whole analysis as text (what ``plumbrule fit`` prints)."""
-    parts = _header(result) + [""] + _fit_block(result) + [""] + _effects_block(result)
-    parts += [""] + _checks_block(result)
+    parts = _header(result) + [""] + _words_block(result) + [""] + _effects_block(result)
+    parts += [""] + _fit_block(result) + [""] + _checks_block(result)
     dropped = _dropped_block(result)
     if dropped:
         parts += [""] + dropped

@@ -221,3 +221,138 @@ def ensure_styles(book) -> None:
     for name, style in specs.items():
         if name not in have:
             book.add_named_style(style)
+
+
+# --- printing ------------------------------------------------------------------
+
+DEFAULT_WIDTH = 8.43        # a column's width (characters) when the sheet does not set one
+LINE_HEIGHT = 15.0          # points per line of 11-point text (the default row height)
+PORTRAIT_CHARS = 95         # character widths an A4/Letter portrait page holds at 100 %
+FOOTER_LEFT = "&A"          # the sheet's name
+FOOTER_RIGHT = "page &P of &N"
+
+
+def column_width(ws, col: int) -> float:
+    """The width of column ``col`` in characters, as a spreadsheet shows it."""
+    from openpyxl.utils import get_column_letter
+    letter = get_column_letter(col)
+    dims = ws.column_dimensions
+    if letter in dims and dims[letter].customWidth and dims[letter].width:
+        return float(dims[letter].width)
+    for d in dims.values():        # a dimension may span columns (min..max)
+        if d.min and d.max and d.min <= col <= d.max and d.customWidth and d.width:
+            return float(d.width)
+    return DEFAULT_WIDTH
+
+
+def text_lines(text: str, width: float) -> int:
+    """Lines ``text`` takes when wrapped in ``width`` characters of 11-point text (words
+    kept whole: a line is charged 10 % for the space a wrap at a word leaves)."""
+    per_line = max(4.0, width * 0.9)
+    return sum(max(1, math.ceil(len(part) / per_line)) for part in str(text).split("\n"))
+
+
+def _font_scale(cell) -> float:
+    """How much wider than 11-point regular text the cell's characters are."""
+    font = cell.font
+    size = float(font.sz) if font is not None and font.sz else 11.0
+    return max(1.0, size / 11.0) * (1.1 if font is not None and font.b else 1.0)
+
+
+def _line_height(cell) -> float:
+    size = cell.font.sz if cell.font is not None and cell.font.sz else 11
+    return LINE_HEIGHT * max(1.0, float(size) / 11.0)
+
+
+def fit_for_print(ws, last_col: int | None = None, landscape: bool | None = None,
+                  title_rows: str | None = None, min_chars: float = 90,
+                  area: bool = True, last_row: int | None = None) -> int:
+    """Lay the sheet out for print and set its page: every text that would run past its
+    column is wrapped — alone on its row, across the printed columns (merged); in a table,
+    in its own cell — with a row height that shows every line; the print area covers the
+    used rows and the printed columns; one page wide, landscape when wider than a portrait
+    page; ``title_rows`` (e.g. '1:1') repeated on every page; a footer with the sheet name
+    and the page number. The printed columns run to ``last_col`` (default: the last column
+    a table uses, widened to hold ``min_chars`` characters). Returns ``last_col``."""
+    from openpyxl.styles import Alignment
+    rows: dict[int, list] = {}
+    for (r, _c), cell in ws._cells.items():
+        if cell.value is not None and cell.value != "":
+            rows.setdefault(r, []).append(cell)
+    merged = {(r, c) for rng in ws.merged_cells.ranges
+              for r in range(rng.min_row, rng.max_row + 1)
+              for c in range(rng.min_col, rng.max_col + 1)}
+    merged_width: dict[tuple[int, int], float] = {}
+    for rng in ws.merged_cells.ranges:
+        merged_width[(rng.min_row, rng.min_col)] = sum(
+            column_width(ws, k) for k in range(rng.min_col, rng.max_col + 1))
+    widths: dict[int, float] = {}
+
+    def width(c: int) -> float:
+        if c not in widths:
+            widths[c] = column_width(ws, c)
+        return widths[c]
+
+    def spills(cell) -> bool:
+        return isinstance(cell.value, str) and (cell.row, cell.column) not in merged \
+            and len(cell.value) * _font_scale(cell) > width(cell.column) * 0.9
+
+    def tail(cs) -> Any:
+        """The row's last cell when it is text that may run on to the right: a note alone
+        on its row, or the value of a label/value pair."""
+        last = max(cs, key=lambda c: c.column)
+        return last if len(cs) <= 2 and spills(last) else None
+
+    if last_col is None:
+        used = [c.column + (0 if c is not tail(cs) else -1) for cs in rows.values()
+                for c in cs]
+        used += [rng.max_col for rng in ws.merged_cells.ranges]
+        last_col = max(max(used, default=1), 1)
+        while sum(width(k) for k in range(1, last_col + 1)) < min_chars:
+            last_col += 1
+    span = sum(width(k) for k in range(1, last_col + 1))
+    for r, cs in rows.items():
+        need = ws.row_dimensions[r].height or 0.0
+        run_on = tail(cs)
+        for cell in cs:
+            if not isinstance(cell.value, str):
+                continue
+            key = (cell.row, cell.column)
+            if key in merged_width:
+                w = merged_width[key]
+            elif key in merged:
+                continue
+            elif cell is run_on and cell.column < last_col:
+                ws.merge_cells(start_row=r, start_column=cell.column, end_row=r,
+                               end_column=last_col)
+                w = span - sum(width(k) for k in range(1, cell.column))
+            else:
+                w = width(cell.column)
+            w = w / _font_scale(cell)
+            lines = text_lines(cell.value, w)
+            if len(cell.value) > w * 0.9 or "\n" in cell.value:
+                a = cell.alignment
+                cell.alignment = Alignment(horizontal=a.horizontal, indent=a.indent,
+                                           wrap_text=True, vertical="top")
+            need = max(need, lines * _line_height(cell))
+        if need > (ws.row_dimensions[r].height or LINE_HEIGHT):
+            ws.row_dimensions[r].height = need
+            for cell in cs:       # a label beside wrapped text reads from the top with it
+                a = cell.alignment
+                if a.vertical != "top":
+                    cell.alignment = Alignment(horizontal=a.horizontal, indent=a.indent,
+                                               wrap_text=a.wrap_text, vertical="top")
+    from openpyxl.utils import get_column_letter
+    if area:
+        ws.print_area = f"A1:{get_column_letter(last_col)}{last_row or max(ws.max_row, 1)}"
+    if landscape is None:
+        landscape = span > PORTRAIT_CHARS
+    ws.page_setup.orientation = "landscape" if landscape else "portrait"
+    ws.page_setup.fitToWidth = 1
+    ws.page_setup.fitToHeight = 0
+    ws.sheet_properties.pageSetUpPr.fitToPage = True
+    if title_rows:
+        ws.print_title_rows = title_rows
+    ws.oddFooter.left.text = FOOTER_LEFT
+    ws.oddFooter.right.text = FOOTER_RIGHT
+    return last_col

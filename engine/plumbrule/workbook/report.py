@@ -64,6 +64,7 @@ def write_report(book, analysis, valuation, stamp) -> None:
     r = _stamp(ws, stamp, r + 1)
     _top_align(ws)
     _page_setup(ws, r)
+    cells.fit_for_print(ws, last_col=LAST_COL, landscape=True, last_row=r)
     data_ws.sheet_properties.tabColor = "9FB3BD"
     data_ws.sheet_state = "hidden"     # printing the workbook should not print the points
 
@@ -408,12 +409,30 @@ def _checks(ws, ctx, r) -> int:
         act += " Read each 'watch': it says what it means for the valuation."
     _wrapped(ws, r, 1, f"{summary}. {act}", span=LAST_COL)
     r += 1
-    r = _heads(ws, r, ["Check", "Verdict", "Statistic", "p-value", "Threshold", "",
+    r = _heads(ws, r, ["Check", "Verdict", "Statistic", "p-value", "Flagged when", "",
                        "What it means for the valuation"], numeric=(3, 4))
-    from openpyxl.styles import Alignment, PatternFill
+    from openpyxl.styles import Alignment, Font, PatternFill
+    from plumbrule.workbook.sheets import QUESTION_TITLES
     ws.cell(row=r - 1, column=5).alignment = Alignment(horizontal="left", indent=2)
+    questions = ctx.table("check_questions")
+    question = None
     for _, c in checks.iterrows():
-        put(ws, r, 1, c["check"]).alignment = Alignment(wrap_text=True, vertical="top")
+        if questions is not None and c.get("question") != question:
+            question = c.get("question")
+            band = questions[questions["question"] == question]
+            if len(band):      # the question: its verdict and sentence, its checks below
+                q = band.iloc[0]
+                put(ws, r, 1, QUESTION_TITLES.get(question, question)).font = Font(
+                    bold=True, color=cells.TITLE_COLOUR)
+                v = put(ws, r, 2, q["verdict"])
+                v.fill = PatternFill("solid", fgColor=VERDICT_FILL.get(str(q["verdict"]),
+                                                                       "FFFFFF"))
+                v.font = Font(bold=True)
+                v.alignment = Alignment(horizontal="center", vertical="top")
+                _wrapped(ws, r, 3, q["sentence"], span=LAST_COL - 2)
+                r += 1
+        put(ws, r, 1, c["check"]).alignment = Alignment(wrap_text=True, vertical="top",
+                                                        indent=1 if question else 0)
         v = str(c["verdict"])
         vc = put(ws, r, 2, v)
         vc.fill = PatternFill("solid", fgColor=VERDICT_FILL.get(v, "FFFFFF"))

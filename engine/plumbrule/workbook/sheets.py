@@ -14,11 +14,13 @@ import pandas as pd
 from plumbrule.render.wording import CAUTION, final_fit_text, validation_text
 from plumbrule.workbook.cells import (
     DATE,
+    TITLE_COLOUR,
     INTEGER,
     MONEY,
     PERCENT,
     RATIO,
     define_name,
+    fit_for_print,
     note,
     put,
     sig3,
@@ -111,28 +113,82 @@ def _widths(
     from openpyxl.utils import get_column_letter
     for j, c in enumerate(frame.columns):
         letter = get_column_letter(left + j)
-        width = max(minimum, min(maximum, len(label(str(c))) + 2))
+        longest = len(label(str(c)))
+        col = frame[c]
+        if len(col) and (col.dtype == object or pd.api.types.is_string_dtype(col.dtype)):
+            # text: wide enough for most of it
+            lengths = col.head(2000).map(lambda v: len(v) if isinstance(v, str) else 0)
+            longest = max(longest, int(lengths.quantile(0.9)))
+        width = max(minimum, min(maximum, longest + 2))
         if c in ("sale", "comp_sale"):        # an address with its ID: wide enough to read
             width = max(width, 30)
         if ws.column_dimensions[letter].width is None or ws.column_dimensions[letter].width < width:
             ws.column_dimensions[letter].width = width
 
 
+WIDE, FEW = 10, 5     # a table this wide with this few rows is printed measure by measure
+
+
+class Placed:
+    """Where a table's values went: ``cell(column, i)`` is the address of row ``i``'s
+    value of ``column`` (a table of few rows and many columns is written turned, one
+    column per row of the table, so that it prints on a page's width)."""
+
+    def __init__(self, frame: pd.DataFrame | None, first: int, turned: bool):
+        self.columns = list(frame.columns) if frame is not None else []
+        self.first, self.turned = first, turned
+
+    def cell(self, column: str, i: int = 0) -> str:
+        j = self.columns.index(column)
+        return _cell(2 + i, self.first + j) if self.turned else _cell(1 + j, self.first + i)
+
+
 def _table(ws, r: int, heading: str, frame: pd.DataFrame | None, formats: dict | None = None,
            empty: str = "None.", explain: str | None = None) -> tuple[int, int]:
     """Heading, optional one-line explanation, the table; returns (first data row, next row)."""
+    placed, nxt = _placed_table(ws, r, heading, frame, formats, empty, explain, turn=False)
+    return placed.first, nxt
+
+
+def _placed_table(ws, r: int, heading: str, frame: pd.DataFrame | None,
+                  formats: dict | None = None, empty: str = "None.",
+                  explain: str | None = None, turn: bool | None = None) -> tuple[Placed, int]:
+    """As :func:`_table`; a table of at most FEW rows and more than WIDE columns is turned
+    (``turn`` None: decided by its shape). Returns (where its values are, next row)."""
     r = title(ws, r, heading)
     if explain:
         r = note(ws, r, explain)
     if frame is None or len(frame) == 0:
         r = note(ws, r, empty)
-        return r, r + 1
-    labels = {c: label(str(c)) for c in frame.columns}
-    first = r + 1
-    r = write_frame(ws, frame, r, 1, formats if formats is not None else _stat_formats(frame),
-                    labels)
-    _widths(ws, frame)
-    return first, r + 1
+        return Placed(frame, r, False), r + 1
+    if turn is None:
+        turn = len(frame) <= FEW and len(frame.columns) > WIDE
+    fmts = formats if formats is not None else _stat_formats(frame)
+    if not turn:
+        labels = {c: label(str(c)) for c in frame.columns}
+        first = r + 1
+        r = write_frame(ws, frame, r, 1, fmts, labels)
+        _widths(ws, frame)
+        return Placed(frame, first, False), r + 1
+    return Placed(frame, r, True), _turned(ws, r, frame, fmts)
+
+
+def _turned(ws, r: int, frame: pd.DataFrame, formats: dict) -> int:
+    """One row per column of ``frame`` (its label in column A), one column per record."""
+    from openpyxl.utils import get_column_letter
+    for j, c in enumerate(frame.columns):
+        put(ws, r + j, 1, label(str(c)), style="plumb_label")
+        fmt = formats.get(c)
+        for i, v in enumerate(frame[c].tolist()):
+            put(ws, r + j, 2 + i, v, fmt(v) if callable(fmt) else fmt)
+    for i in range(len(frame)):
+        dim = ws.column_dimensions[get_column_letter(2 + i)]
+        dim.width = max(dim.width if dim.customWidth and dim.width else 0, 14)
+    label_dim = ws.column_dimensions["A"]
+    longest = max(len(label(str(c))) for c in frame.columns) + 2
+    label_dim.width = max(label_dim.width if label_dim.customWidth and label_dim.width else 0,
+                          min(34, longest))
+    return r + len(frame.columns) + 1
 
 
 def _col(frame: pd.DataFrame, name: str) -> int:
@@ -147,44 +203,159 @@ def _cell(col: int, row: int) -> str:
 # --- Model -----------------------------------------------------------------
 
 def write_model(ws, analysis, stamp) -> None:
-    """Coefficients, fit, checks, covariance of the estimates and the audit stamp."""
-    book = ws.parent
-    t = analysis.tables
-    fit = t.fit.iloc[0]
-    coefs = t.coefficients
+    """The model in one sentence, its effects in words, the coefficients in detail, the
+    fit figures, the checks question by question, the audit stamp; below the printed
+    area, the covariance of the estimates (for the live block's formulas)."""
+    for letter, width in zip("ABCDEFGHIJ", (40, 12, 12, 12, 12, 24, 12, 12, 12, 24),
+                             strict=True):
+        ws.column_dimensions[letter].width = width
     r = title(ws, 1, "Model")
     r = note(ws, r, model_sentence(analysis)) + 1
-
-    r = title(ws, r, "Fit")
-    pairs = [(_FIT_WORDS.get(k, label(k)), fit[k]) for k in t.fit.columns]
-    names = list(t.fit.columns)
-    fit_top = r
-    fmt = {_FIT_WORDS.get(k, label(k)): (INTEGER if k.startswith(("n_", "df_")) else sig3)
-           for k in names}
-    r = write_pairs(ws, pairs, r, 1, fmt) + 1
-    define_name(book, "plumb_r_squared", ws.title, _cell(2, fit_top + names.index("r_squared")))
-    define_name(book, "plumb_n_used", ws.title, _cell(2, fit_top + names.index("n_used")))
-
-    scale = " (model scale: log of the price)" if analysis.spec.log_response else ""
-    conf = f"{analysis.final_model.confidence:.0%}"
-    first, r = _table(ws, r, "Coefficients" + scale, coefs,
-                      explain=f"CI low / CI high: {conf} confidence interval of each estimate.")
-    last = first + len(coefs) - 1
-    define_name(book, "plumb_coef_terms", ws.title, f"{_cell(1, first)}:{_cell(1, last)}")
-    define_name(book, "plumb_coef_estimates", ws.title,
-                f"{_cell(_col(coefs, 'estimate'), first)}:{_cell(_col(coefs, 'estimate'), last)}")
-
+    r = _effects(ws, r, analysis)
+    r = _coefficients(ws, r, analysis)
     from plumbrule.workbook.curve_tables import write_curves
     r = write_curves(ws, r, analysis)
-    _, r = _table(ws, r, "Checks of the model's assumptions", t.checks,
-                  explain="verdict: ok / watch / fails against the threshold shown; the note says "
-                          "what it means for a valuation.")
-    r = _market_index(ws, r, t.market_index)
-    r = _covariance(ws, r, analysis)
+    r = _fit_figures(ws, r, analysis)
+    r = _checks_by_question(ws, r, analysis)
+    r = _market_index(ws, r, analysis.tables.market_index)
     r = title(ws, r, "Audit stamp")
-    write_pairs(ws, stamp.rows(), r)
-    ws.column_dimensions["A"].width = 34
+    r = write_pairs(ws, stamp.rows(), r)
     ws.freeze_panes = None
+    printed = r - 1
+    # the covariance matrix feeds the live block's formulas; a reader does not print it
+    _covariance(ws, r + 1, analysis)
+    fit_for_print(ws, last_col=LAST_MODEL_COL, last_row=printed)
+
+
+LAST_MODEL_COL = 10      # column J: the checks' note ends there
+
+
+def _effects(ws, r: int, analysis) -> int:
+    """Each term's effect on the price in words, with its p-value."""
+    from plumbrule.render.effects import effect_phrases
+    coefs = analysis.tables.coefficients
+    words = effect_phrases(analysis.final_model)
+    r = title(ws, r, "What each feature does to the price")
+    r = note(ws, r, "Each effect holds the other features fixed; the p-value says how likely "
+                    "an effect this large would be by chance if the feature had none.")
+    for j, head in enumerate(("Term", "Effect on the price", "", "", "p-value"), start=1):
+        put(ws, r, j, head, style="plumb_header")
+    ws.merge_cells(start_row=r, start_column=2, end_row=r, end_column=4)
+    r += 1
+    for term, phrase, p in zip(coefs["term"], words, coefs["p_value"], strict=True):
+        if not phrase:
+            continue
+        put(ws, r, 1, term, style="plumb_label")
+        put(ws, r, 2, phrase)
+        ws.merge_cells(start_row=r, start_column=2, end_row=r, end_column=4)
+        put(ws, r, 5, p, sig3(p))
+        r += 1
+    return r + 1
+
+
+_COEF_ORDER = ["term", "estimate", "ci_low", "ci_high", "p_value", "std_error", "t",
+               "std_beta", "vif"]
+_COEF_WORDS = {"ci_low": "interval from", "ci_high": "interval to", "std_beta": "beta"}
+
+
+def _coefficients(ws, r: int, analysis) -> int:
+    """The coefficients on the model's scale, named for the live block and the sheet
+    functions (plumb_coef_terms, plumb_coef_estimates)."""
+    book = ws.parent
+    coefs = analysis.tables.coefficients
+    shown = coefs[[c for c in _COEF_ORDER if c in coefs.columns]
+                  + [c for c in coefs.columns if c not in _COEF_ORDER]]
+    scale = "the log of the price" if analysis.spec.log_response else "the price"
+    conf = f"{analysis.final_model.confidence:.0%}"
+    r = title(ws, r, "The coefficients in detail")
+    r = note(ws, r, f"On the model's scale ({scale}). Interval: the {conf} confidence interval "
+                    "of each estimate; beta: the estimate in standard deviations; VIF: how much "
+                    "the other features inflate its variance.")
+    labels = {c: _COEF_WORDS.get(c, label(str(c))) for c in shown.columns}
+    first = r + 1
+    r = write_frame(ws, shown, r, 1, _stat_formats(shown), labels) + 1
+    last = first + len(shown) - 1
+    define_name(book, "plumb_coef_terms", ws.title, f"{_cell(1, first)}:{_cell(1, last)}")
+    est = _col(shown, "estimate")
+    define_name(book, "plumb_coef_estimates", ws.title,
+                f"{_cell(est, first)}:{_cell(est, last)}")
+    return r
+
+
+# the fit figures in reading order: the sales, the error on prices, then the model's scale
+_FIT_ORDER = ("n_used", "n_holdout", "n_screened", "n_dropped", "mape",
+              "r_squared_price_scale", "rmse_price_scale", "mae_price_scale", "r_squared",
+              "adj_r_squared", "resid_std_error", "rmse", "mae", "f_stat", "f_p_value",
+              "log_likelihood", "aic", "bic", "n_params", "df_resid", "se_type", "response",
+              "scale")
+
+
+def _fit_figures(ws, r: int, analysis) -> int:
+    """Model-level figures as label/value pairs; plumb_r_squared and plumb_n_used named."""
+    book = ws.parent
+    fit_frame = analysis.tables.fit
+    fit = fit_frame.iloc[0]
+    names = [k for k in _FIT_ORDER if k in fit_frame.columns] \
+        + [k for k in fit_frame.columns if k not in _FIT_ORDER]
+    r = title(ws, r, "How closely the model fits")
+    pairs = [(_FIT_WORDS.get(k, label(k)), fit[k]) for k in names]
+    fmt = {_FIT_WORDS.get(k, label(k)): (INTEGER if k.startswith(("n_", "df_")) else sig3)
+           for k in names}
+    top = r
+    r = write_pairs(ws, pairs, r, 1, fmt) + 1
+    define_name(book, "plumb_r_squared", ws.title, _cell(2, top + names.index("r_squared")))
+    define_name(book, "plumb_n_used", ws.title, _cell(2, top + names.index("n_used")))
+    return r
+
+
+QUESTION_TITLES = {
+    "the data": "The data", "the shape of the relationship": "The shape of the relationship",
+    "the spread of errors": "The spread of errors", "independence": "Independence",
+    "normality": "Normality", "collinearity": "Collinearity", "influence": "Influence",
+}
+VERDICT_FILL = {"ok": "DCEFDC", "watch": "FCE9C4", "fails": "F6CFCB", "n/a": "E8E8E8"}
+
+
+def _checks_by_question(ws, r: int, analysis) -> int:
+    """One band per question (its verdict and sentence), its checks below it."""
+    from openpyxl.styles import Alignment, Font, PatternFill
+    checks = analysis.tables.checks
+    questions = analysis.tables.check_questions
+    r = title(ws, r, "Checks, question by question")
+    r = note(ws, r, "Each question's verdict is that of its worst check: ok, watch or fails "
+                    "against the threshold shown; the last column says what it means for a "
+                    "valuation.")
+    if not len(checks):
+        return note(ws, r, "No checks were run.") + 1
+    for j, head in ((1, "Check"), (2, "Verdict"), (3, "Statistic"), (4, "p-value"),
+                    (5, "Flagged when"), (7, "What it means for the valuation")):
+        put(ws, r, j, head, style="plumb_header")
+    for j in (6, 8, 9, 10):
+        put(ws, r, j, "", style="plumb_header")
+    r += 1
+    for q in questions.itertuples(index=False):
+        head = put(ws, r, 1, QUESTION_TITLES.get(q.question, q.question))
+        head.font = Font(bold=True, color=TITLE_COLOUR)
+        v = put(ws, r, 2, q.verdict)
+        v.fill = PatternFill("solid", fgColor=VERDICT_FILL.get(str(q.verdict), "FFFFFF"))
+        v.font = Font(bold=True)
+        v.alignment = Alignment(horizontal="center", vertical="top")
+        put(ws, r, 3, q.sentence)
+        ws.merge_cells(start_row=r, start_column=3, end_row=r, end_column=LAST_MODEL_COL)
+        r += 1
+        for c in checks[checks["question"] == q.question].itertuples(index=False):
+            put(ws, r, 1, c.check).alignment = Alignment(indent=1, wrap_text=True,
+                                                         vertical="top")
+            put(ws, r, 2, c.verdict).alignment = Alignment(horizontal="center")
+            put(ws, r, 3, c.statistic, sig3(c.statistic))
+            put(ws, r, 4, c.p_value, sig3(c.p_value))
+            put(ws, r, 5, c.threshold).alignment = Alignment(indent=1, wrap_text=True,
+                                                             vertical="top")
+            ws.merge_cells(start_row=r, start_column=5, end_row=r, end_column=6)
+            put(ws, r, 7, c.note)
+            ws.merge_cells(start_row=r, start_column=7, end_row=r, end_column=LAST_MODEL_COL)
+            r += 1
+    return r + 1
 
 
 def _market_index(ws, r: int, index: pd.DataFrame) -> int:
@@ -228,8 +399,20 @@ def _covariance(ws, r: int, analysis) -> int:
         for j in range(len(names)):
             put(ws, r + 1 + i, 2 + j, cov[i, j], "0.000E+00")
     k = len(names)
+    from openpyxl.utils import get_column_letter
+    for j in range(k):      # '-1.234E-05' and the term names must show whole, not ###
+        dim = ws.column_dimensions[get_column_letter(2 + j)]
+        dim.width = max(dim.width if dim.customWidth and dim.width else 0, 12,
+                        min(30, len(names[j]) + 2))
     define_name(ws.parent, "plumb_coef_cov", ws.title, f"{_cell(2, r + 1)}:{_cell(1 + k, r + k)}")
     return r + k + 2
+
+
+def _printed_columns(ws, last_row: int) -> int:
+    """The last column a table uses above ``last_row`` (notes are wrapped to it)."""
+    cols = [c for (r, c), cell in ws._cells.items() if r <= last_row
+            and cell.value is not None and cell.style not in ("plumb_note", "plumb_title")]
+    return max(cols, default=2)
 
 
 def model_sentence(analysis) -> str:
@@ -256,8 +439,9 @@ def write_screening(ws, analysis) -> None:
     r = title(ws, 1, "Screening: the sales set aside, and why")
     r = note(ws, r, "Rules run in a fixed order before the fit; every row set aside is listed "
                     "with the rule, the limit and the reason.") + 1
-    _, r = _table(ws, r, "Summary", t.screen_summary, empty="No screening rule is set "
-                  "(see trim_percentiles, iqr_fence, influence_screen, exclude_rows in Settings).")
+    _, r = _placed_table(ws, r, "Summary", t.screen_summary, turn=True,
+                         empty="No screening rule is set (see trim_percentiles, iqr_fence, "
+                               "influence_screen, exclude_rows in Settings).")
     _, r = _table(ws, r, "Rows set aside", t.screen_log, empty="No rows were set aside.")
     _, r = _table(ws, r, "Rows dropped for missing values", t.dropped_rows,
                   empty="No rows had missing values in the columns used.")
@@ -273,6 +457,7 @@ def write_screening(ws, analysis) -> None:
                        "the valuation date by the fitted market trend (the market-conditions "
                        "adjustment).")
     ws.freeze_panes = None
+    fit_for_print(ws, last_col=_printed_columns(ws, ws.max_row))
 
 
 # --- Validation --------------------------------------------------------------
@@ -289,14 +474,15 @@ def write_validation(ws, analysis) -> None:
                   _price_scale_formats(val),
                   empty="No holdout or cross-validation was run (set holdout or folds).")
     study = t.ratio_study
-    first, r = _table(ws, r, "Sales-ratio study (ratio = estimate / sale price)", study,
-                      _price_scale_formats(study),
-                      empty="No ratio study (it needs a holdout or cross-validation).",
-                      explain="Targets from the IAAO Standard on Ratio Studies (2013); with "
-                              "fewer than 20 sales the verdicts say the sample is too small.")
+    placed, r = _placed_table(ws, r, "Sales-ratio study (ratio = estimate / sale price)", study,
+                              _price_scale_formats(study),
+                              empty="No ratio study (it needs a holdout or cross-validation).",
+                              explain="Targets from the IAAO Standard on Ratio Studies (2013); "
+                                      "with fewer than 20 sales the verdicts say the sample is "
+                                      "too small.")
     for measure in ("cod", "prd", "prb", "value_slope"):
         if len(study):
-            define_name(book, f"plumb_{measure}", ws.title, _cell(_col(study, measure), first))
+            define_name(book, f"plumb_{measure}", ws.title, placed.cell(measure))
         else:
             define_name(book, f"plumb_{measure}", ws.title, _cell(2, r))
     est = t.holdout_estimates
@@ -319,6 +505,7 @@ def write_validation(ws, analysis) -> None:
                explain="Each sale's residual (model scale) at its coordinates; the location "
                        "check (Moran's I) is on the Model sheet's checks.")
     ws.freeze_panes = None
+    fit_for_print(ws, last_col=_printed_columns(ws, ws.max_row))
 
 
 # --- Valuation ---------------------------------------------------------------
@@ -337,14 +524,16 @@ def write_valuation(ws, analysis, valuation, live: Callable | None = None) -> in
     else:
         est = valuation.estimates
         conf = f"{float(est['confidence'].iloc[0]):.0%}" if len(est) else ""
-        first, r = _table(ws, r, "Estimates for the subjects", est, _price_scale_formats(est),
-                          explain=f"PI low / PI high: {conf} prediction interval for one sale; "
-                                  "CI: interval for the mean price of such properties.")
+        placed, r = _placed_table(ws, r, "Estimates for the subjects", est,
+                                  _price_scale_formats(est),
+                                  explain=f"PI low / PI high: {conf} prediction interval for one "
+                                          "sale; CI: interval for the mean price of such "
+                                          "properties.")
         for nm, col in (("plumb_estimate", "estimate"), ("plumb_pi_low", "pi_low"),
                         ("plumb_pi_high", "pi_high")):
-            define_name(book, nm, ws.title, _cell(_col(est, col), first))
+            define_name(book, nm, ws.title, placed.cell(col))
         rec = valuation.reconciled
-        _, r = _table(ws, r, "Reconciled value from the comparables", rec,
+        _, r = _placed_table(ws, r, "Reconciled value from the comparables", rec,
                       _price_scale_formats(rec),
                       empty="No comparables: list Sales sheet rows on the Comps sheet.")
         wide = getattr(valuation, "grid_table", None)
@@ -364,6 +553,7 @@ def write_valuation(ws, analysis, valuation, live: Callable | None = None) -> in
     ws.freeze_panes = None
     if live is not None:
         r = live(ws, analysis, valuation, r + 1)
+    fit_for_print(ws, last_col=_printed_columns(ws, ws.max_row))
     return r
 
 

@@ -13,6 +13,7 @@ from pathlib import Path
 
 from plumbrule.errors import WorkbookError
 from plumbrule.render.wording import CAUTION
+from plumbrule.workbook.cells import fit_for_print
 
 TEMPLATE_NAME = "plumbrule-template.xlsx"
 SALES_COLUMNS = ["Sale ID", "Sale price", "Living area", "Lot size", "Age", "Bedrooms",
@@ -120,6 +121,8 @@ def template_book():
     _roll(book.create_sheet("Roll"))
     _xlwings_conf(book.create_sheet("xlwings.conf"))
     book.active = 0
+    # the sheet a spreadsheet prints by default (the selected tabs): never the Sales table
+    book["Read me"].sheet_view.tabSelected = True
     props = book.properties
     props.creator = "plumbrule"
     props.title = "plumbrule workbook"
@@ -132,7 +135,7 @@ def template_book():
 def _read_me(ws) -> None:
     from openpyxl.styles import Alignment, Font
     from plumbrule.workbook.cells import put, TITLE_COLOUR
-    ws.column_dimensions["A"].width = 110
+    ws.column_dimensions["A"].width = 90
     for i, (text, kind) in enumerate(READ_ME, start=1):
         if not text:
             continue
@@ -143,6 +146,7 @@ def _read_me(ws) -> None:
             cell.font = Font(bold=True, color=TITLE_COLOUR)
         else:
             cell.alignment = Alignment(wrap_text=True, vertical="top")
+    fit_for_print(ws, last_col=1, landscape=False)
 
 
 def _table(ws, name: str, columns: list[str], widths: dict[str, float],
@@ -162,6 +166,7 @@ def _table(ws, name: str, columns: list[str], widths: dict[str, float],
     table.tableStyleInfo = TableStyleInfo(name="TableStyleLight9", showRowStripes=True)
     ws.add_table(table)
     ws.freeze_panes = "A2"
+    fit_for_print(ws, last_col=len(columns), title_rows="1:1", area=False)
 
 
 def _sales(ws) -> None:
@@ -228,9 +233,11 @@ def _settings(ws) -> None:
     )
     table.tableStyleInfo = TableStyleInfo(name="TableStyleLight9", showRowStripes=True)
     ws.add_table(table)
-    for letter, width in zip("ABCD", (24, 40, 14, 80), strict=False):
+    for letter, width in zip("ABCD", (24, 34, 14, 70), strict=False):
         ws.column_dimensions[letter].width = width
     ws.freeze_panes = "A2"
+    fit_for_print(ws, last_col=len(SETTINGS_COLUMNS), landscape=True, title_rows="1:1",
+                  area=False)
 
 
 def _models(ws) -> None:
@@ -260,6 +267,7 @@ def _xlwings_conf(ws) -> None:
     put(ws, 1, 2, "plumbrule.sheet_functions")
     ws.column_dimensions["A"].width = 16
     ws.column_dimensions["B"].width = 30
+    fit_for_print(ws, last_col=2, landscape=False)
 
 
 def packaged_template() -> Path:
