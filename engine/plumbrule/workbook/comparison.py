@@ -76,7 +76,9 @@ def add_to_report(ws, comparison) -> None:
     report._wrapped(ws, r, 1, "Every candidate was judged on the same sales, holdout and folds "
                               "(the Comparison sheet has every figure). Choosing on the same "
                               "sales flatters the winner a little.", span=report.LAST_COL)
-    ws.print_area = f"A1:{report._letter(report.LAST_COL)}{r}"
+    # the same print pass as the rest of the Report: wrapped headers, row heights, print area
+    from plumbrule.workbook import cells
+    cells.fit_for_print(ws, last_col=report.LAST_COL, landscape=True, last_row=r)
 
 
 def _num(v):
