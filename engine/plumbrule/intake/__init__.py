@@ -74,6 +74,7 @@ from plumbrule.intake.table import (  # noqa: F401
     find_header,
     table_from_frame,
     table_from_values,
+    text_cells,
 )
 from plumbrule.intake.readers import (  # noqa: F401
     _restore_error_cells,

@@ -13,7 +13,7 @@ import pandas as pd
 from plumbrule.errors import CellErrors, CellProblem, IntakeError, quote_list
 from plumbrule.intake.cells import _blank_frame, _blank_mask, to_labels, to_numbers
 from plumbrule.intake.dates import to_dates
-from plumbrule.intake.table import SheetTable
+from plumbrule.intake.table import SheetTable, text_cells
 
 
 @dataclass(frozen=True)
@@ -64,7 +64,8 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     jobs += [(c, to_labels, {}) for c in categorical]
     jobs += [(date, to_dates, {"date_format": date_format})] if date is not None else []
     for col, fn, kw in jobs:
-        typed[col], reasons[col], found = _typed(fn, frame[col], col, kw)
+        cells = frame[col] if fn is to_numbers else text_cells(table, col)   # labels: the text
+        typed[col], reasons[col], found = _typed(fn, cells, col, kw)
         problems += found
     if problems and bad_cells != "set_aside":
         raise CellErrors(problems)

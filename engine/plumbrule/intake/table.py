@@ -5,7 +5,7 @@ numbers as its index (the header row found, trailing blank rows left off).
 from __future__ import annotations
 
 import datetime as _dt
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, Sequence
 
 import numpy as np
@@ -22,7 +22,9 @@ class SheetTable:
     ``first_column`` is the sheet column number (A = 1) of the block's first
     column, so messages can give column letters. ``hidden_rows`` are the sheet rows of the
     body hidden or filtered out in the sheet (xlsx only); ``unsaved_formula_columns`` are the
-    headers of columns holding formulas the file has no saved result for (xlsx only)."""
+    headers of columns holding formulas the file has no saved result for (xlsx only).
+    ``file_text`` (CSV read by the fast path only) holds the file's text of the columns
+    ``frame`` holds as floats; :func:`plumbrule.intake.typed_csv.text_cells` reads it."""
 
     frame: pd.DataFrame
     sheet: str | None = None
@@ -30,10 +32,21 @@ class SheetTable:
     first_column: int = 1
     hidden_rows: tuple[int, ...] = ()
     unsaved_formula_columns: tuple[str, ...] = ()
+    file_text: Any = field(default=None, repr=False, compare=False)
 
     @property
     def columns(self) -> list[str]:
         return list(self.frame.columns)
+
+
+def text_cells(table: SheetTable, column: str) -> pd.Series:
+    """The cells of ``column`` as the sheet or file holds them, indexed like ``table.frame``:
+    for a CSV column the fast reader typed as numbers, the file's text ('0012', '3.50'), which
+    the rules reading a column as labels, IDs or dates need; else ``table.frame[column]``."""
+    src = table.file_text
+    if src is None or not src.has(column):
+        return table.frame[column]
+    return src.column(column).reindex(table.frame.index).rename(column)
 
 
 def used_rows(values: Sequence[Sequence[Any]]) -> Sequence[Sequence[Any]]:
