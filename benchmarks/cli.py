@@ -19,12 +19,20 @@ sale date: 12 columns), written once per size as CSV and as xlsx. For each size 
   peak memory     tracemalloc over read + analysis + JSON, as a multiple of the design
                   matrix (n × p × 8 bytes, p the model's design columns)
 
-Times are paired: in each repeat the anchor and plumbrule run back to back, and the ratio
+BLAS runs on one thread (OPENBLAS_NUM_THREADS=1 unless set) on both sides. Times are
+paired: in each repeat the anchor and plumbrule run back to back, and the ratio
 shown is the median of the per-repeat ratios (the machine may be shared and busy); the
 seconds shown are medians too.
 """
 
 from __future__ import annotations
+
+import os
+
+# One BLAS thread for this process and the subprocesses (both sides alike): on a shared,
+# busy machine multi-threaded BLAS spins and makes every small call slow.
+os.environ["OPENBLAS_NUM_THREADS"] = os.environ.get("OPENBLAS_NUM_THREADS", "1")
+os.environ["OMP_NUM_THREADS"] = os.environ.get("OMP_NUM_THREADS", "1")
 
 import argparse
 import gc

@@ -136,8 +136,10 @@ def _check_has_values(table: intake.SheetTable, used: list[str]) -> None:
     if len(table.frame) == 0:
         raise IntakeError(f"The sales table{where} has its header on row {table.header_row} "
                           "but no rows below it. Put the sales below the header row.")
-    for col in dict.fromkeys(used):
-        if col in table.frame.columns and intake._blank_mask(table.frame[col]).all():
+    present = [c for c in dict.fromkeys(used) if c in table.frame.columns]
+    all_blank = intake.blank_cells(table, present).all(axis=0)
+    for col in present:
+        if all_blank[col]:
             raise IntakeError(f"Column '{col}' is blank in every row of the sales table"
                               f"{where}. Fill it in, or take it out of the settings that "
                               "name it.", column=col)

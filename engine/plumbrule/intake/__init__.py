@@ -73,6 +73,7 @@ from plumbrule.intake.table import (  # noqa: F401
     column_letter,
     find_header,
     table_from_frame,
+    blank_cells,
     table_from_values,
     text_cells,
 )

@@ -10,8 +10,8 @@ import numpy as np
 import pandas as pd
 
 from plumbrule.errors import IntakeError
-from plumbrule.intake.cells import _blank_frame, to_labels
-from plumbrule.intake.table import SheetTable, text_cells
+from plumbrule.intake.cells import to_labels
+from plumbrule.intake.table import SheetTable, blank_cells, text_cells
 
 
 def sale_ids(table: SheetTable, column: str, used: Sequence[str],
@@ -22,7 +22,7 @@ def sale_ids(table: SheetTable, column: str, used: Sequence[str],
     rows or more, when the caller has it (each cell is typed on its own, so a subset of
     it is the subset's)."""
     frame = table.frame
-    filled = ~_blank_frame(frame[list(dict.fromkeys([*used, column]))]).all(axis=1)
+    filled = ~blank_cells(table, list(dict.fromkeys([*used, column]))).all(axis=1)
     if labels is None:
         ids, why = to_labels(text_cells(table, column)[filled], column)
     else:
