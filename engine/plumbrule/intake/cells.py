@@ -111,6 +111,29 @@ class Uniques:
         return pd.Series(res.to_numpy(dtype=object)[self.codes], index=self.index)
 
 
+# Python's str.split() splits ASCII text at these (str.isspace of the ASCII characters)
+_ASCII_SPACE = " \t\n\r\x0b\x0c\x1c\x1d\x1e\x1f"
+
+
+def ascii_without(u: pd.Series, chars: str) -> bool:
+    """True when every value of ``u`` is a str, ASCII, and holds no character of ``chars``:
+    one C-level scan of the texts joined, instead of a Python call per text."""
+    if not len(u):
+        return True
+    if u.map(type).ne(str).any():
+        return False
+    joined = "".join(u.tolist())
+    return joined.isascii() and not any(ch in joined for ch in chars)
+
+
+def _single_spaced(u: pd.Series) -> pd.Series:
+    """Each text with its runs of white space made one space and its ends trimmed; texts
+    with no white space at all (an ID column) are already so."""
+    if ascii_without(u, _ASCII_SPACE):
+        return u.astype(object)
+    return u.astype(str).str.split().str.join(" ")
+
+
 def on_uniques(text: pd.Series, fn, skip_numbers: bool = False,
                uniques: Uniques | None = None) -> pd.Series:
     """``fn`` (Series of distinct strings → Series) applied once per distinct value and
@@ -367,7 +390,7 @@ def to_labels(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     labels = pd.Series(np.nan, index=col.index, dtype=object)
     text = present & is_text
     if uniques is not None and text.any():
-        spaced = uniques.apply(lambda u: u.astype(str).str.split().str.join(" "))
+        spaced = uniques.apply(_single_spaced)
         labels[text] = spaced[text[is_text].to_numpy()].to_numpy()
     boo = present & kinds.eq(BOOL)
     if boo.any():

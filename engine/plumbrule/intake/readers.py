@@ -238,7 +238,7 @@ def read_sheet(path: str | Path, sheet: str | None = None,
         # calamine hands an error cell over as a blank: with no blank cell in the block there
         # is no error text to put back, and the XML is searched for the rest only
         blanks = any(None in row or "" in row for row in values)
-        facts = _xlsx_facts(path, sheet, errors=blanks)
+        facts = _xlsx_facts(path, sheet, with_errors=blanks)
         _restore_error_cells(values, facts.errors, start)
     table = table_from_values(values, header_row=start[0] + 1, sheet=sheet,
                               first_column=start[1] + 1, header_at=header_row)
@@ -343,8 +343,8 @@ def _column_numbers(letters: np.ndarray) -> np.ndarray:
     return nums[codes] if len(uniq) else np.zeros(0, dtype=np.int64)
 
 
-def _xlsx_facts(path, sheet: str, errors: bool = True) -> _SheetFacts:
-    """Error cells (unless ``errors`` is False), hidden rows and unsaved formula cells of
+def _xlsx_facts(path, sheet: str, with_errors: bool = True) -> _SheetFacts:
+    """Error cells (unless ``with_errors`` is False), hidden rows and unsaved formula cells of
     ``sheet`` from the workbook's XML; empty when there are none or the parts cannot be
     found."""
     import zipfile
@@ -369,7 +369,7 @@ def _xlsx_facts(path, sheet: str, errors: bool = True) -> _SheetFacts:
     except Exception:   # the values are still read; only the reason text is less precise
         return _SheetFacts()
     kinds = [k for k, marks in _FACT_MARKS.items()
-             if (errors or k != "error") and any(m in xml for m in marks)]
+             if (with_errors or k != "error") and any(m in xml for m in marks)]
     if not kinds:
         return _SheetFacts()
     pattern = "|".join(_FACT_PARTS[k][0] for k in kinds)

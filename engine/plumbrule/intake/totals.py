@@ -39,6 +39,7 @@ TOTALS = "totals row"
 _RTOL = 1e-9
 _PASSES = 6          # each pass can only add rows; real sheets settle in two
 _LABEL_RE = r"(?i)^(?:grand\s*total|sub-?\s*totals?|totals?|sum|average|mean|count)\b"
+_LABEL_WORDS = ("total", "sum", "average", "mean", "count")   # each label holds one
 
 
 def totals_rows(table: SheetTable, numeric_columns: Iterable[str]) -> pd.DataFrame:
@@ -122,13 +123,21 @@ def _labelled(frame: pd.DataFrame, blank: np.ndarray
         words = cell_kinds(cells).eq(TEXT).to_numpy()
         if not words.any():
             continue
-        said = on_uniques(cells[words], lambda u: u.astype(str).str.strip()
-                          .str.contains(_LABEL_RE, regex=True)).to_numpy(dtype=bool)
+        said = on_uniques(cells[words], _says_total).to_numpy(dtype=bool)
         idx = np.flatnonzero(at)[np.flatnonzero(words)[said]]
         hit[idx] = True
         col[idx] = name
         text[idx] = cells[words][said].astype(str).str.split().str.join(" ").to_numpy()
     return hit, col, text
+
+
+def _says_total(u: pd.Series) -> pd.Series:
+    """Whether each text starts with a totals label. ASCII texts none of which holds a
+    label's word (any case) cannot (a column of IDs): one scan of them joined says so."""
+    joined = "".join(u.astype(str).tolist())
+    if joined.isascii() and not any(w in joined.lower() for w in _LABEL_WORDS):
+        return pd.Series(False, index=u.index)
+    return u.astype(str).str.strip().str.contains(_LABEL_RE, regex=True)
 
 
 def _floats(col: pd.Series) -> np.ndarray:

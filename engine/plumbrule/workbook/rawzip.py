@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import struct
 import zipfile
+from typing import Any
 
 _LOCAL_HEADER = struct.Struct("<4s5H3L2H")     # zipfile's own layout of a local file header
 _RAW_METHODS = (zipfile.ZIP_STORED, zipfile.ZIP_DEFLATED)
@@ -20,8 +21,7 @@ _RAW_METHODS = (zipfile.ZIP_STORED, zipfile.ZIP_DEFLATED)
 
 def raw_bytes(z: zipfile.ZipFile, info: zipfile.ZipInfo) -> bytes:
     """The compressed bytes of ``info`` in ``z`` (no header, no data descriptor)."""
-    fp = z.fp
-    assert fp is not None
+    fp: Any = z.fp
     fp.seek(info.header_offset)
     head = fp.read(_LOCAL_HEADER.size)
     fields = _LOCAL_HEADER.unpack(head)
@@ -51,17 +51,17 @@ def copy_member(src: zipfile.ZipFile, info: zipfile.ZipInfo, dst: zipfile.ZipFil
     target.file_size = info.file_size
     # the sizes and CRC sit in the header written here: no data descriptor follows
     target.flag_bits &= ~0x08
-    fp = dst.fp
-    assert fp is not None
-    with dst._lock:                                          # zipfile's own write lock
-        dst._writecheck(target)                              # duplicate names, sizes
-        dst._didModify = True
-        fp.seek(dst.start_dir)
+    z: Any = dst                                             # its internals, below
+    fp = z.fp
+    with z._lock:                                            # zipfile's own write lock
+        z._writecheck(target)                                # duplicate names, sizes
+        z._didModify = True
+        fp.seek(z.start_dir)
         target.header_offset = fp.tell()
         zip64 = target.file_size > zipfile.ZIP64_LIMIT or \
             target.compress_size > zipfile.ZIP64_LIMIT
         fp.write(target.FileHeader(zip64))
         fp.write(data)
-        dst.filelist.append(target)
-        dst.NameToInfo[target.filename] = target
-        dst.start_dir = fp.tell()
+        z.filelist.append(target)
+        z.NameToInfo[target.filename] = target
+        z.start_dir = fp.tell()
