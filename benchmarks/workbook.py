@@ -6,7 +6,8 @@
 Each workbook is the template filled with invented Quillford sales (demo_data,
 scaled up), one subject and four comparables, with the demo's settings (log model,
 percentile trim, 30 % holdout, 5-fold cross-validation). Timed in one process, side
-by side, best of a few repeats (one at 100,000):
+by side, paired: bare, run and rerun back to back in each of a few repeats (two at
+100,000); medians of the times and of the per-repeat ratios:
 
 * bare      openpyxl.load_workbook(book) + save(copy): what any openpyxl-based
             updater pays just to carry the book through;
@@ -21,6 +22,7 @@ Targets (issue 6): run <= 3 s at 10,000 rows, and run <= 1.3 x bare.
 from __future__ import annotations
 
 import shutil
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -38,13 +40,10 @@ def build(folder: Path, n: int) -> Path:
                          settings)
 
 
-def best(fn, repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
-        t = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t)
-    return min(times)
+def timed(fn) -> float:
+    t = time.perf_counter()
+    fn()
+    return time.perf_counter() - t
 
 
 def bare(book: Path, out: Path) -> None:
@@ -62,8 +61,7 @@ def main(sizes) -> None:
               f"{'run/bare':>9} {'rerun/bare':>11}")
         for n in sizes:
             book = build(folder, n)
-            reps = 3 if n <= 10_000 else 1
-            t_bare = best(lambda: bare(book, folder / "bare.xlsx"), reps)
+            reps = 3 if n <= 10_000 else 2
             work = folder / "work.xlsx"
 
             def fresh():
@@ -71,15 +69,21 @@ def main(sizes) -> None:
                 t = time.perf_counter()
                 run_book(work, backup=False)
                 return time.perf_counter() - t
-            t_run = min(fresh() for _ in range(reps))
-            t_rerun = best(lambda: run_book(work, backup=False), reps)
+            # paired: bare and run back to back in each repeat; the medians of the times and
+            # of the per-repeat ratios (a shared, busy machine swings minima both ways)
+            b, r, rr = [], [], []
+            for _ in range(reps):
+                b.append(timed(lambda: bare(book, folder / "bare.xlsx")))
+                r.append(fresh())
+                rr.append(timed(lambda: run_book(work, backup=False)))
             t = time.perf_counter()
             subprocess.run([sys.executable, "-m", "plumbrule", "run", str(work), "--no-backup"],
                            check=True, capture_output=True)
             t_cli = time.perf_counter() - t
-            print(f"{n:>8,} {t_bare:8.2f} {t_run:8.2f} {t_rerun:8.2f} {t_cli:8.2f} "
-                  f"{t_run / t_bare:9.2f} {t_rerun / t_bare:11.2f}", flush=True)
-
+            med = statistics.median
+            print(f"{n:>8,} {med(b):8.2f} {med(r):8.2f} {med(rr):8.2f} {t_cli:8.2f} "
+                  f"{med([y / x for x, y in zip(b, r, strict=True)]):9.2f} "
+                  f"{med([y / x for x, y in zip(b, rr, strict=True)]):11.2f}", flush=True)
 
 if __name__ == "__main__":
     main([int(a) for a in sys.argv[1:]] or [1_000, 10_000, 100_000])

@@ -134,15 +134,17 @@ class Analysis:
         return self.final_model is not self.model
 
 
-def as_table(source: Any, header_row: int | None = None) -> intake.SheetTable:
+def as_table(source: Any, header_row: int | None = None,
+             text_columns: tuple[str, ...] = ()) -> intake.SheetTable:
     """Accept a SheetTable, a DataFrame, a file path, or a 2-D block of values (its header
-    found below any title rows, or on sheet row ``header_row``)."""
+    found below any title rows, or on sheet row ``header_row``). ``text_columns``: the
+    columns read as labels (a hint for the CSV reader)."""
     if isinstance(source, intake.SheetTable):
         return source
     if isinstance(source, pd.DataFrame):
         return intake.table_from_frame(source)
     if isinstance(source, (str, bytes)) or hasattr(source, "__fspath__"):
-        return intake.read_table(source, header_row=header_row)
+        return intake.read_table(source, header_row=header_row, text_columns=text_columns)
     return intake.table_from_values(source, header_at=header_row)
 
 
@@ -160,7 +162,7 @@ def prepare(table: intake.SheetTable, settings: Settings) -> tuple[ModelSpec, in
 
 
 def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
-            **kw) -> Analysis:
+            *, for_valuation: bool = False, **kw) -> Analysis:
     """Run the whole analysis on ``source`` (values, DataFrame, path or SheetTable).
 
     Order: intake (typing, IDs, duplicates, validity filter, level spellings) → spec →
@@ -168,9 +170,11 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     percentile trim, IQR fence; limits from the training sales) → influence screening on
     the training rows (one first fit, one refit) → fit on training rows → checks →
     validation (holdout, k-fold) → ratio study → tables.
+    ``for_valuation``: the analysis a valuation needs (the model, its checks and set-aside
+    log); the validation, ratio study and estimate tables are left empty.
     """
     settings = coerce_settings(settings, **kw)
-    table = as_table(source, settings.header_row)
+    table = as_table(source, settings.header_row, settings.text_columns)
     sales = prepare_sales(table, settings)
     spec, clean = sales.spec, sales.clean
     # how a reader names each sale; label_column is matched here, at the edge, before the fit
@@ -179,9 +183,16 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     train, hold, fit_log, looked, moved = _screen_and_split(sales, settings)
     model = fit_model(spec, train, robust_se=settings.robust_se,
                       confidence=settings.confidence)
-    validation, h_est, cv = _validate(model, hold, settings, sales)
-    study, holdout_estimates, cv_estimates, ratio_log, study_est = _ratio_tables(
-        model, hold, h_est, cv, settings, spec.ratio_by)
+    if for_valuation and not settings.ratio_trim and not spec.assessed_column:
+        # `plumbrule value` shows the model's estimates, never the validation or the ratio
+        # study: they are left empty (a ratio trim sets sales aside, and the assessments'
+        # study reads the model's, so those are computed)
+        validation = study = holdout_estimates = cv_estimates = study_est = pd.DataFrame()
+        ratio_log = screen.empty_log()
+    else:
+        validation, h_est, cv = _validate(model, hold, settings, sales)
+        study, holdout_estimates, cv_estimates, ratio_log, study_est = _ratio_tables(
+            model, hold, h_est, cv, settings, spec.ratio_by)
     final = final_model(model, hold, settings)
 
     screen_log = pd.concat([lg for lg in (fit_log, ratio_log) if len(lg)]

@@ -54,8 +54,9 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
     extra_numeric = [c for c in spec.screened if c not in spec.used_columns]
     numeric = list(dict.fromkeys([*spec.numeric_columns, *extra_numeric]))
     # each row's ID cell as text, totals rows included: the logs show it beside the row
-    shown_ids = (intake.to_labels(table.frame[spec.id_column], spec.id_column)[0]
+    id_labels = (intake.to_labels(intake.text_cells(table, spec.id_column), spec.id_column)
                  if spec.id_column else None)
+    shown_ids = id_labels[0] if id_labels is not None else None
     logs, looked = [], []
     totals = intake.totals_rows(table, numeric)        # before typing: 'Total' is no price
     if len(totals):
@@ -91,7 +92,8 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
     ids = None
     if spec.id_column:
         kept_rows = table.frame.index.difference(pd.Index(dup_log["row"]))
-        ids = sale_ids(_rows_of(table, kept_rows), spec.id_column, spec.used_columns)
+        ids = sale_ids(_rows_of(table, kept_rows), spec.id_column, spec.used_columns,
+                       id_labels)
     if spec.filters:
         n = len(data)
         data, filter_log = sale_filter(data, spec.filters)
@@ -190,8 +192,10 @@ def _check_has_values(table: intake.SheetTable, used: list[str]) -> None:
     if len(table.frame) == 0:
         raise IntakeError(f"The sales table{where} has its header on row {table.header_row} "
                           "but no rows below it. Put the sales below the header row.")
-    for col in dict.fromkeys(used):
-        if col in table.frame.columns and intake._blank_mask(table.frame[col]).all():
+    present = [c for c in dict.fromkeys(used) if c in table.frame.columns]
+    all_blank = intake.blank_cells(table, present).all(axis=0)
+    for col in present:
+        if all_blank[col]:
             raise IntakeError(f"Column '{col}' is blank in every row of the sales table"
                               f"{where}. Fill it in, or take it out of the settings that "
                               "name it.", column=col)

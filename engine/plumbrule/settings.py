@@ -625,6 +625,14 @@ class Settings:
     roll_id_column: str | None = None
     extra: tuple = field(default=(), compare=False, repr=False)
 
+    @property
+    def text_columns(self) -> tuple[str, ...]:
+        """The columns these settings read as labels, IDs or dates (as the user named them):
+        a hint for the CSV reader, which keeps them as text (intake.typed_csv)."""
+        named = [*self.categorical, self.id_column, self.date_column, self.ratio_by,
+                 self.comp_same, *(c for c, _ in self.keep_only)]
+        return tuple(dict.fromkeys(c for c in named if c))
+
     def to_dict(self) -> dict[str, Any]:
         """Plain values, for audit stamps and JSON (dates as ISO text)."""
         out = {}

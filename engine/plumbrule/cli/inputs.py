@@ -71,7 +71,8 @@ def read_inputs(args: argparse.Namespace) -> Inputs:
     from plumbrule.intake import read_table
     settings = parse_settings(flags)
     return Inputs(read_table(path, sheet=getattr(args, "sheet", None),
-                             header_row=settings.header_row), settings)
+                             header_row=settings.header_row,
+                             text_columns=settings.text_columns), settings)
 
 
 def read_models(args: argparse.Namespace, inputs: Inputs) -> tuple:

@@ -17,7 +17,7 @@ def run_value(args, inputs) -> int:
     exit status (0)."""
     from plumbrule.analysis import analyze
     from plumbrule.valuation.estimates import valuate
-    analysis = analyze(inputs.sales, inputs.settings)
+    analysis = analyze(inputs.sales, inputs.settings, for_valuation=True)
     result = valuate(analysis, subjects_of(args, inputs), inputs.comps)
     print(valuation_json(result) if getattr(args, "json", False)
           else render_valuation(result, analysis))

@@ -73,7 +73,9 @@ from plumbrule.intake.table import (  # noqa: F401
     column_letter,
     find_header,
     table_from_frame,
+    blank_cells,
     table_from_values,
+    text_cells,
 )
 from plumbrule.intake.readers import (  # noqa: F401
     _restore_error_cells,

@@ -81,24 +81,71 @@ def cell_kinds(col: pd.Series) -> pd.Series:
     return _kind_series(types.map(lookup).to_numpy(), col.index)
 
 
-def on_uniques(text: pd.Series, fn, skip_numbers: bool = False) -> pd.Series:
+class Uniques:
+    """The distinct values of a column of text cells, found once (an ID column has as many
+    as it has rows: hashing them once, not once per rule, is most of its cost)."""
+
+    def __init__(self, text: pd.Series):
+        self.index = text.index
+        self.codes, uniq = pd.factorize(text.to_numpy(dtype=object))
+        self.u = pd.Series(uniq, dtype=object)
+        self._plain: np.ndarray | None = None
+
+    def plain(self) -> np.ndarray:
+        """Which distinct values are plain numbers ('1250', ' 12.5 ', '1e3')."""
+        if self._plain is None:
+            self._plain = np.isfinite(pd.to_numeric(self.u, errors="coerce")
+                                      .to_numpy(dtype=float))
+        return self._plain
+
+    def apply(self, fn, skip_numbers: bool = False) -> pd.Series:
+        """See :func:`on_uniques`."""
+        u = self.u
+        if skip_numbers:
+            plain = self.plain()
+            res = pd.Series(np.nan, index=u.index, dtype=object)
+            if (~plain).any():
+                res[~plain] = fn(u[~plain]).to_numpy(dtype=object)
+        else:
+            res = fn(u)
+        return pd.Series(res.to_numpy(dtype=object)[self.codes], index=self.index)
+
+
+# Python's str.split() splits ASCII text at these (str.isspace of the ASCII characters)
+_ASCII_SPACE = " \t\n\r\x0b\x0c\x1c\x1d\x1e\x1f"
+
+
+def ascii_without(u: pd.Series, chars: str) -> bool:
+    """True when every value of ``u`` is a str, ASCII, and holds no character of ``chars``:
+    one C-level scan of the texts joined, instead of a Python call per text."""
+    if not len(u):
+        return True
+    if u.map(type).ne(str).any():
+        return False
+    joined = "".join(u.tolist())
+    return joined.isascii() and not any(ch in joined for ch in chars)
+
+
+def _single_spaced(u: pd.Series) -> pd.Series:
+    """Each text with its runs of white space made one space and its ends trimmed; texts
+    with no white space at all (an ID column) are already so."""
+    if ascii_without(u, _ASCII_SPACE):
+        return u.astype(object)
+    return u.astype(str).str.split().str.join(" ")
+
+
+def on_uniques(text: pd.Series, fn, skip_numbers: bool = False,
+               uniques: Uniques | None = None) -> pd.Series:
     """``fn`` (Series of distinct strings → Series) applied once per distinct value and
     spread back over ``text``. Sales columns repeat values (neighbourhoods, dates), and
     pandas string methods cost per element. With ``skip_numbers`` plain numbers (which
-    are neither blank nor an error) get NaN without being looked at."""
-    codes, uniq = pd.factorize(text.to_numpy(dtype=object))
-    u = pd.Series(uniq, dtype=object)
-    if skip_numbers:
-        plain = np.isfinite(pd.to_numeric(u, errors="coerce").to_numpy(dtype=float))
-        res = pd.Series(np.nan, index=u.index, dtype=object)
-        if (~plain).any():
-            res[~plain] = fn(u[~plain]).to_numpy(dtype=object)
-    else:
-        res = fn(u)
-    return pd.Series(res.to_numpy(dtype=object)[codes], index=text.index)
+    are neither blank nor an error) get NaN without being looked at. ``uniques``: the
+    distinct values of ``text`` already found (the same cells, the same index)."""
+    return (uniques or Uniques(text)).apply(fn, skip_numbers)
 
 
-def _blank_mask(col: pd.Series, kinds: pd.Series | None = None) -> pd.Series:
+def _blank_mask(col: pd.Series, kinds: pd.Series | None = None,
+                uniques: Uniques | None = None) -> pd.Series:
     if isinstance(col.dtype, np.dtype) and col.dtype.kind in "fiubM":
         return col.isna()
     kinds = cell_kinds(col) if kinds is None else kinds
@@ -106,7 +153,7 @@ def _blank_mask(col: pd.Series, kinds: pd.Series | None = None) -> pd.Series:
     text = kinds.eq(TEXT)
     if text.any():
         blank = on_uniques(col[text], lambda u: u.astype(str).str.strip().eq(""),
-                           skip_numbers=True)
+                           skip_numbers=True, uniques=uniques)
         out[text] = out[text].to_numpy() | blank.eq(True).to_numpy()
     return out
 
@@ -129,8 +176,10 @@ def _numbers_of(cells: pd.Series) -> pd.Series:
         return cells.map(_one).astype(float)
 
 
-def _error_names(col: pd.Series, kinds: pd.Series) -> pd.Series:
-    """The error value's name where a cell holds one ('#N/A', '#DIV/0! (code …)'), else NaN."""
+def _error_names(col: pd.Series, kinds: pd.Series,
+                 uniques: Uniques | None = None) -> pd.Series:
+    """The error value's name where a cell holds one ('#N/A', '#DIV/0! (code …)'), else NaN.
+    ``uniques``: the distinct values of the column's text cells, when already found."""
     out = pd.Series(np.nan, index=col.index, dtype=object)
     text = kinds.eq(TEXT)
     if text.any():
@@ -138,7 +187,7 @@ def _error_names(col: pd.Series, kinds: pd.Series) -> pd.Series:
             t = u.astype(str).str.strip().str.upper()
             hit = t.isin(ERROR_TEXTS) | t.str.fullmatch(r"ERR:\d+")
             return t.str.replace("ERR:", "Err:", regex=False).where(hit)
-        found = on_uniques(col[text], names, skip_numbers=True)
+        found = on_uniques(col[text], names, skip_numbers=True, uniques=uniques)
         hit = found.notna().to_numpy()
         out[found.index[hit]] = found[hit].to_numpy()
     num = kinds.eq(NUMBER)
@@ -152,10 +201,12 @@ def _error_names(col: pd.Series, kinds: pd.Series) -> pd.Series:
     return out
 
 
-def _missing_reasons(col: pd.Series, kinds: pd.Series) -> tuple[pd.Series, pd.Series]:
-    """(reason per cell or NaN, mask of cells that hold a value)."""
-    blank = _blank_mask(col, kinds)
-    err = _error_names(col, kinds)
+def _missing_reasons(col: pd.Series, kinds: pd.Series, uniques: Uniques | None = None
+                     ) -> tuple[pd.Series, pd.Series]:
+    """(reason per cell or NaN, mask of cells that hold a value); ``uniques``: the distinct
+    values of the column's text cells (``col[kinds == TEXT]``), when already found."""
+    blank = _blank_mask(col, kinds, uniques)
+    err = _error_names(col, kinds, uniques)
     reason = pd.Series(np.nan, index=col.index, dtype=object)
     reason[blank] = "blank"
     has_err = err.notna() & ~blank
@@ -333,12 +384,14 @@ def to_labels(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     """Cells → category labels (text); 3.0 becomes '3', TRUE becomes 'TRUE',
     a date becomes YYYY-MM-DD. Text is trimmed; case is kept."""
     kinds = cell_kinds(col)
-    reason, present = _missing_reasons(col, kinds)
+    is_text = kinds.eq(TEXT)
+    uniques = Uniques(col[is_text]) if is_text.any() else None   # hashed once, used thrice
+    reason, present = _missing_reasons(col, kinds, uniques)
     labels = pd.Series(np.nan, index=col.index, dtype=object)
-    text = present & kinds.eq(TEXT)
-    if text.any():
-        labels[text] = on_uniques(col[text], lambda u: u.astype(str).str.split().str.join(" ")
-                                  ).to_numpy()
+    text = present & is_text
+    if uniques is not None and text.any():
+        spaced = uniques.apply(_single_spaced)
+        labels[text] = spaced[text[is_text].to_numpy()].to_numpy()
     boo = present & kinds.eq(BOOL)
     if boo.any():
         labels[boo] = col[boo].astype(bool).map({True: "TRUE", False: "FALSE"}).to_numpy()

@@ -11,9 +11,9 @@ import numpy as np
 import pandas as pd
 
 from plumbrule.errors import CellErrors, CellProblem, IntakeError, quote_list
-from plumbrule.intake.cells import _blank_frame, _blank_mask, to_labels, to_numbers
+from plumbrule.intake.cells import _blank_mask, to_labels, to_numbers
 from plumbrule.intake.dates import to_dates
-from plumbrule.intake.table import SheetTable
+from plumbrule.intake.table import SheetTable, blank_cells, text_cells
 
 
 @dataclass(frozen=True)
@@ -64,7 +64,8 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     jobs += [(c, to_labels, {}) for c in categorical]
     jobs += [(date, to_dates, {"date_format": date_format})] if date is not None else []
     for col, fn, kw in jobs:
-        typed[col], reasons[col], found = _typed(fn, frame[col], col, kw)
+        cells = frame[col] if fn is to_numbers else text_cells(table, col)   # labels: the text
+        typed[col], reasons[col], found = _typed(fn, cells, col, kw)
         problems += found
     if problems and bad_cells != "set_aside":
         raise CellErrors(problems)
@@ -85,7 +86,7 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     also = sub_bad.sum(axis=1) - 1
     text = np.where(also > 0, np.char.add(np.char.add(text, " (and "),
                                           np.char.add(also.astype(str), " more missing)")), text)
-    empty = _blank_frame(frame[any_bad]).all(axis=1).to_numpy()
+    empty = blank_cells(table).loc[any_bad].all(axis=1).to_numpy()
     text = np.where(empty, "empty row", text)
     cols = np.where(empty, "", cols)
     dropped = pd.DataFrame({"row": sub.index.to_numpy(dtype=np.int64),

@@ -10,17 +10,24 @@ import numpy as np
 import pandas as pd
 
 from plumbrule.errors import IntakeError
-from plumbrule.intake.cells import _blank_frame, to_labels
-from plumbrule.intake.table import SheetTable
+from plumbrule.intake.cells import to_labels
+from plumbrule.intake.table import SheetTable, blank_cells, text_cells
 
 
-def sale_ids(table: SheetTable, column: str, used: Sequence[str]) -> pd.Series:
+def sale_ids(table: SheetTable, column: str, used: Sequence[str],
+             labels: tuple[pd.Series, pd.Series] | None = None) -> pd.Series:
     """The ID of each sale (text; 104.0 → '104'), indexed by sheet row, for the rows that
     hold anything in the ``used`` columns. A blank or repeated ID among them is an error
-    naming the rows."""
+    naming the rows. ``labels``: the column's ``to_labels`` (labels, reasons) over these
+    rows or more, when the caller has it (each cell is typed on its own, so a subset of
+    it is the subset's)."""
     frame = table.frame
-    filled = ~_blank_frame(frame[list(dict.fromkeys([*used, column]))]).all(axis=1)
-    ids, why = to_labels(frame.loc[filled, column], column)
+    filled = ~blank_cells(table, list(dict.fromkeys([*used, column]))).all(axis=1)
+    if labels is None:
+        ids, why = to_labels(text_cells(table, column)[filled], column)
+    else:
+        rows = frame.index[filled.to_numpy()]
+        ids, why = labels[0].reindex(rows), labels[1].reindex(rows)
     blank = why.notna()
     if blank.any():
         rows = ids.index[blank.to_numpy()]

@@ -10,6 +10,7 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass, replace
 from pathlib import Path
+from typing import Iterable
 
 import numpy as np
 import pandas as pd
@@ -20,9 +21,11 @@ from plumbrule.intake.table import SheetTable, _header_text, padded, table_from_
 
 
 def read_table(path: str | Path, sheet: str | None = None,
-               header_row: int | None = None) -> SheetTable:
+               header_row: int | None = None, text_columns: Iterable[str] = ()) -> SheetTable:
     """Read a .csv or .xlsx/.xlsm file (first sheet unless ``sheet``). ``header_row`` is the
-    sheet row of the column headers (the setting); None finds it below any title rows."""
+    sheet row of the column headers (the setting); None finds it below any title rows.
+    ``text_columns``: the columns the caller reads as labels (a hint for CSV, see
+    :func:`read_csv`)."""
     path = Path(path)
     if not path.exists():
         raise IntakeError(f"File '{path}' does not exist. Check the path.")
@@ -33,16 +36,48 @@ def read_table(path: str | Path, sheet: str | None = None,
         if sheet is not None:
             raise IntakeError(f"File '{path.name}' is a CSV file, which has no sheets; leave "
                               "out the sheet name.", sheet=sheet)
-        return read_csv(path, header_row=header_row)
+        return read_csv(path, header_row=header_row, text_columns=text_columns)
     if suffix in (".xlsx", ".xlsm", ".xls", ".ods"):
         return read_sheet(path, sheet, header_row=header_row)
+    if suffix in (".parquet", ".pq"):
+        if sheet is not None:
+            raise IntakeError(f"File '{path.name}' is a Parquet file, which has no sheets; "
+                              "leave out the sheet name.", sheet=sheet)
+        return read_parquet(path)
     raise IntakeError(f"File '{path.name}' is not .csv or .xlsx. Save the sales as one of those.")
 
 
-def read_csv(path: str | Path, header_row: int | None = None) -> SheetTable:
+def read_parquet(path: str | Path) -> SheetTable:
+    """A Parquet file (past a sheet's million rows) through pyarrow, the optional extra
+    ``parquet``: its columns are the headers, row i of the file is row i + 1 below a header
+    on row 1, and the cells are typed by the same rules as a DataFrame's."""
+    path = Path(path)
+    try:
+        import pyarrow.parquet as pq
+    except ImportError:
+        raise IntakeError(f"Reading '{path.name}' (Parquet) needs pyarrow: install it with "
+                          "pip install 'plumbrule[parquet]', or save the sales as CSV.") from None
+    from plumbrule.intake.table import table_from_frame
+    try:
+        frame = pq.read_table(path).to_pandas()
+    except Exception as exc:     # pyarrow's own error types for a damaged or foreign file
+        detail = " ".join(str(exc).split())[:200]
+        raise IntakeError(f"File '{path.name}' cannot be read as Parquet ({detail}). Write it "
+                          "again, or save the sales as CSV.") from None
+    if not len(frame.columns):
+        raise IntakeError(f"File '{path.name}' has no columns. Write the sales with a header.")
+    return table_from_frame(frame)
+
+
+def read_csv(path: str | Path, header_row: int | None = None, typed: bool = True,
+             text_columns: Iterable[str] = ()) -> SheetTable:
     """CSV cells come in as text so they are parsed exactly as a sheet's would be.
     Line i of the file is sheet row i; blank lines count as rows. ``header_row``: the line
-    of the column headers, None to find it below any title lines."""
+    of the column headers, None to find it below any title lines. ``typed``: columns of
+    plain numbers are typed by pandas' C parser (:mod:`plumbrule.intake.typed_csv`, the same
+    results); False reads every cell as text (the reference the fast path is tested on).
+    ``text_columns``: headers the caller reads as labels, IDs or dates (a hint: such a
+    column is kept as text at once rather than read again when asked for)."""
     path = Path(path)
     try:
         raw = path.read_bytes()
@@ -52,8 +87,19 @@ def read_csv(path: str | Path, header_row: int | None = None) -> SheetTable:
     text = _decoded(raw, path.name)
     if not text.strip():
         raise IntakeError(f"File '{path.name}' is empty. Save the sales with a header row.")
-    first = text.split("\n", 1)[0]
+    end = text.find("\n")
+    first = text if end < 0 else text[:end]
     sep = ";" if first.count(";") > first.count(",") else ","
+    if typed and "\x00" not in text:      # a stray NUL: the careful reader keeps it
+        from plumbrule.intake.typed_csv import read_typed
+        # UTF-8 (the usual case) is parsed from the bytes: pandas decodes them in C
+        utf8 = raw[3:] if raw[:3] == b"\xef\xbb\xbf" else raw
+        # (the reader decoded UTF-8 when the bytes are UTF-8 with no NUL: UTF-16 has NULs)
+        data = (utf8 if b"\x00" not in raw and not utf8.startswith(b"\xef\xbb\xbf")
+                and _is_utf8(raw) else text)
+        fast = read_typed(data, sep, header_row, text_columns)
+        if fast is not None:
+            return fast
     import io
     try:
         frame = pd.read_csv(io.StringIO(text), header=None, dtype=object, sep=sep,
@@ -66,6 +112,14 @@ def read_csv(path: str | Path, header_row: int | None = None) -> SheetTable:
         return _ragged_csv(text, sep, path.name, header_row)
     return table_from_values(frame.to_numpy(dtype=object), header_row=1, sheet=None,
                              header_at=header_row)
+
+
+def _is_utf8(raw: bytes) -> bool:
+    try:
+        raw.decode("utf-8")
+    except UnicodeDecodeError:
+        return False
+    return True
 
 
 def _unclosed_quote(text: str, name: str) -> IntakeError:
@@ -181,7 +235,10 @@ def read_sheet(path: str | Path, sheet: str | None = None,
                           "there with a header row, or name another sheet.", sheet=sheet)
     facts = _SheetFacts()
     if Path(path).suffix.lower() in (".xlsx", ".xlsm"):
-        facts = _xlsx_facts(path, sheet)
+        # calamine hands an error cell over as a blank: with no blank cell in the block there
+        # is no error text to put back, and the XML is searched for the rest only
+        blanks = any(None in row or "" in row for row in values)
+        facts = _xlsx_facts(path, sheet, with_errors=blanks)
         _restore_error_cells(values, facts.errors, start)
     table = table_from_values(values, header_row=start[0] + 1, sheet=sheet,
                               first_column=start[1] + 1, header_at=header_row)
@@ -286,9 +343,10 @@ def _column_numbers(letters: np.ndarray) -> np.ndarray:
     return nums[codes] if len(uniq) else np.zeros(0, dtype=np.int64)
 
 
-def _xlsx_facts(path, sheet: str) -> _SheetFacts:
-    """Error cells, hidden rows and unsaved formula cells of ``sheet`` from the workbook's
-    XML; empty when there are none or the parts cannot be found."""
+def _xlsx_facts(path, sheet: str, with_errors: bool = True) -> _SheetFacts:
+    """Error cells (unless ``with_errors`` is False), hidden rows and unsaved formula cells of
+    ``sheet`` from the workbook's XML; empty when there are none or the parts cannot be
+    found."""
     import zipfile
     from defusedxml import ElementTree
     from plumbrule.intake.zipcheck import check_members
@@ -310,7 +368,8 @@ def _xlsx_facts(path, sheet: str) -> _SheetFacts:
         raise
     except Exception:   # the values are still read; only the reason text is less precise
         return _SheetFacts()
-    kinds = [k for k, marks in _FACT_MARKS.items() if any(m in xml for m in marks)]
+    kinds = [k for k, marks in _FACT_MARKS.items()
+             if (with_errors or k != "error") and any(m in xml for m in marks)]
     if not kinds:
         return _SheetFacts()
     pattern = "|".join(_FACT_PARTS[k][0] for k in kinds)

@@ -5,7 +5,7 @@ numbers as its index (the header row found, trailing blank rows left off).
 from __future__ import annotations
 
 import datetime as _dt
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, Sequence
 
 import numpy as np
@@ -22,7 +22,11 @@ class SheetTable:
     ``first_column`` is the sheet column number (A = 1) of the block's first
     column, so messages can give column letters. ``hidden_rows`` are the sheet rows of the
     body hidden or filtered out in the sheet (xlsx only); ``unsaved_formula_columns`` are the
-    headers of columns holding formulas the file has no saved result for (xlsx only)."""
+    headers of columns holding formulas the file has no saved result for (xlsx only).
+    ``file_text`` (CSV read by the fast path only) holds the file's text of the columns
+    ``frame`` holds as floats; :func:`text_cells` reads it. ``blanks`` (when the header
+    was found) is the blank-cell mask of the body, worked out once (:func:`blank_cells`);
+    a table of fewer rows made with ``replace(table, frame=...)`` keeps it."""
 
     frame: pd.DataFrame
     sheet: str | None = None
@@ -30,10 +34,32 @@ class SheetTable:
     first_column: int = 1
     hidden_rows: tuple[int, ...] = ()
     unsaved_formula_columns: tuple[str, ...] = ()
+    file_text: Any = field(default=None, repr=False, compare=False)
+    blanks: Any = field(default=None, repr=False, compare=False)
 
     @property
     def columns(self) -> list[str]:
         return list(self.frame.columns)
+
+
+def text_cells(table: SheetTable, column: str) -> pd.Series:
+    """The cells of ``column`` as the sheet or file holds them, indexed like ``table.frame``:
+    for a CSV column the fast reader typed as numbers, the file's text ('0012', '3.50'), which
+    the rules reading a column as labels, IDs or dates need; else ``table.frame[column]``."""
+    src = table.file_text
+    if src is None or not src.has(column):
+        return table.frame[column]
+    return src.column(column).reindex(table.frame.index).rename(column)
+
+
+def blank_cells(table: SheetTable, columns: Sequence[str] | None = None) -> pd.DataFrame:
+    """Which cells of ``table.frame`` (of ``columns``, default all) are blank (None, NaN,
+    '' or spaces), with the frame's index: the mask worked out when the table was made,
+    for the rows the table still has."""
+    cols = list(table.frame.columns) if columns is None else list(columns)
+    if table.blanks is None:
+        return _blank_frame(table.frame[cols])
+    return table.blanks.loc[table.frame.index, cols]
 
 
 def used_rows(values: Sequence[Sequence[Any]]) -> Sequence[Sequence[Any]]:
@@ -208,9 +234,13 @@ def _with_header(headers: list[Any], body: pd.DataFrame, header_row: int,
                           f"once ({where}). Give each column its own name.",
                           column=next(iter(dups)), row=header_row)
     body.columns = names
+    blanks = None
     if len(body) and blank_cells is not None:
-        filled = ~blank_cells[keep].all(axis=1).to_numpy()
+        blanks = blank_cells[keep]
+        filled = ~blanks.all(axis=1).to_numpy()
         # Rows after the last filled one are an over-wide selection, not sales.
         last = int(np.flatnonzero(filled)[-1]) + 1 if filled.any() else 0
         body = body.iloc[:last]
-    return SheetTable(frame=body, sheet=sheet, header_row=header_row, first_column=first_column)
+        blanks = blanks.iloc[:last].set_axis(names, axis=1)
+    return SheetTable(frame=body, sheet=sheet, header_row=header_row, first_column=first_column,
+                      blanks=blanks)

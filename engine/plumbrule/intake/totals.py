@@ -28,18 +28,18 @@ import pandas as pd
 from plumbrule.intake.cells import (
     NUMBER,
     TEXT,
-    _blank_frame,
     _numbers_of,
     cell_kinds,
     on_uniques,
     parse_number_text,
 )
-from plumbrule.intake.table import SheetTable
+from plumbrule.intake.table import SheetTable, blank_cells
 
 TOTALS = "totals row"
 _RTOL = 1e-9
 _PASSES = 6          # each pass can only add rows; real sheets settle in two
 _LABEL_RE = r"(?i)^(?:grand\s*total|sub-?\s*totals?|totals?|sum|average|mean|count)\b"
+_LABEL_WORDS = ("total", "sum", "average", "mean", "count")   # each label holds one
 
 
 def totals_rows(table: SheetTable, numeric_columns: Iterable[str]) -> pd.DataFrame:
@@ -51,7 +51,7 @@ def totals_rows(table: SheetTable, numeric_columns: Iterable[str]) -> pd.DataFra
     from plumbrule.screening import LOG_COLUMNS   # here: screening imports the settings
     frame = table.frame
     numeric = [c for c in dict.fromkeys(numeric_columns) if c in frame.columns]
-    labelled, label_col, label_text = _labelled(frame)
+    labelled, label_col, label_text = _labelled(frame, blank_cells(table).to_numpy())
     found = labelled.copy()
     col_of = np.full(len(frame), -1)
     val = np.full(len(frame), np.nan)
@@ -104,15 +104,16 @@ def table_without(table: SheetTable, rows: Iterable[int]) -> SheetTable:
     return replace(table, frame=kept, hidden_rows=hidden)
 
 
-def _labelled(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(row is labelled a totals row, the label's column, the label's text)."""
+def _labelled(frame: pd.DataFrame, blank: np.ndarray
+              ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(row is labelled a totals row, the label's column, the label's text); ``blank``:
+    the frame's blank cells."""
     n = len(frame)
     hit = np.zeros(n, dtype=bool)
     col = np.full(n, "", dtype=object)
     text = np.full(n, "", dtype=object)
     if not n or not frame.shape[1]:
         return hit, col, text
-    blank = _blank_frame(frame).to_numpy()
     first = np.where(blank.all(axis=1), -1, (~blank).argmax(axis=1))   # first filled cell
     for j, name in enumerate(frame.columns):   # columns, not rows
         at = first == j
@@ -122,13 +123,21 @@ def _labelled(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         words = cell_kinds(cells).eq(TEXT).to_numpy()
         if not words.any():
             continue
-        said = on_uniques(cells[words], lambda u: u.astype(str).str.strip()
-                          .str.contains(_LABEL_RE, regex=True)).to_numpy(dtype=bool)
+        said = on_uniques(cells[words], _says_total).to_numpy(dtype=bool)
         idx = np.flatnonzero(at)[np.flatnonzero(words)[said]]
         hit[idx] = True
         col[idx] = name
         text[idx] = cells[words][said].astype(str).str.split().str.join(" ").to_numpy()
     return hit, col, text
+
+
+def _says_total(u: pd.Series) -> pd.Series:
+    """Whether each text starts with a totals label. ASCII texts none of which holds a
+    label's word (any case) cannot (a column of IDs): one scan of them joined says so."""
+    joined = "".join(u.astype(str).tolist())
+    if joined.isascii() and not any(w in joined.lower() for w in _LABEL_WORDS):
+        return pd.Series(False, index=u.index)
+    return u.astype(str).str.strip().str.contains(_LABEL_RE, regex=True)
 
 
 def _floats(col: pd.Series) -> np.ndarray:
@@ -166,9 +175,34 @@ def _summing(x: np.ndarray, known: np.ndarray):
     last = np.maximum.accumulate(np.where(known, pos, -1))
     prev = np.concatenate([[-1], last[:-1]])          # last totals row strictly above i
     start = prev + 1
-    windows = ((cs[pos], cc[pos], c2[pos], np.zeros(n, dtype=np.int64)),
-               (cs[pos] - cs[start], cc[pos] - cc[start], c2[pos] - c2[start], start))
     n_filled = filled.sum(axis=1)
+    # A total must match in its first filled column: that one column (vectors, not n × k
+    # arrays) picks the few candidate rows, and the whole test runs on those alone.
+    f = filled.argmax(axis=1)
+    xf = x[pos, f]
+    cand = np.zeros(n, dtype=bool)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        for tot, cnt in ((cs[pos, f], cc[pos, f]),
+                         (cs[pos, f] - cs[start, f], cc[pos, f] - cc[start, f])):
+            mean = tot / cnt
+            cand |= np.abs(xf - tot) <= _RTOL * np.maximum(np.abs(xf), np.abs(tot))
+            cand |= np.abs(xf - mean) <= _RTOL * np.maximum(np.abs(xf), np.abs(mean))
+    rows = np.flatnonzero(cand & (n_filled >= 2))
+    out = _summing_rows(x[rows], filled[rows], n_filled[rows], cs[rows], cc[rows], c2[rows],
+                        cs[start[rows]], cc[start[rows]], c2[start[rows]], start[rows])
+    full = (np.zeros(n, dtype=bool), np.zeros(n, dtype=np.int64), np.full(n, np.nan),
+            np.full(n, "", dtype=object), np.zeros(n, dtype=np.int64))
+    for whole, part in zip(full, out, strict=True):
+        whole[rows] = part
+    return full
+
+
+def _summing_rows(x, filled, n_filled, cs, cc, c2, cs0, cc0, c20, start):
+    """:func:`_summing` on some rows: their values and the cumulative sums, counts and
+    squares of the sales above them (to the row, and to the start of its window)."""
+    n = len(x)
+    windows = ((cs, cc, c2, np.zeros(n, dtype=np.int64)),
+               (cs - cs0, cc - cc0, c2 - c20, start))
     some = (np.abs(np.where(filled, x, 0.0)) > 0).any(axis=1)
     hit = np.zeros(n, dtype=bool)
     first = np.zeros(n, dtype=np.int64)

@@ -148,7 +148,7 @@ class Encoding:
         cols = {c: hit for c, hit in found.items() if hit is not None}
         typed: dict[str, pd.Series] = {}
         for c in self.input_columns:
-            typed[c] = self._typed_column(frame, cols.get(c), c, date, noun, names)
+            typed[c] = self._typed_column(table, cols.get(c), c, date, noun, names)
         out = pd.DataFrame(typed, index=frame.index)
         from plumbrule.intake.levels import canonical_levels
         for col, known in self.levels:
@@ -157,16 +157,18 @@ class Encoding:
             _check_levels(out[col], known, col, label, names)
         return out
 
-    def _typed_column(self, frame: pd.DataFrame, source: str | None, c: str,
+    def _typed_column(self, table, source: str | None, c: str,
                       date: pd.Timestamp | None, noun: str, names: pd.Series | None
                       ) -> pd.Series:
         """One input column typed like the sales; a missing value is an IntakeError."""
         from plumbrule import intake
         from plumbrule.errors import IntakeError
-        spec = self.spec
+        spec, frame = self.spec, table.frame
         if source is None:      # date column absent (or fixed): every row takes ``date``
             return pd.Series(pd.Timestamp(date), index=frame.index, dtype="datetime64[ns]")
         cell = frame[source]
+        if c in spec.categorical or c == spec.date_column:
+            cell = intake.text_cells(table, source)     # a CSV's text, not its numbers
         try:
             if c in spec.categorical:
                 values, reasons = intake.to_labels(cell, source)

@@ -16,7 +16,7 @@ import numpy as np
 
 def _valid(*dfs) -> np.ndarray:
     """scipy.stats' argument check of degrees of freedom: finite or infinite, > 0."""
-    ok = np.bool_(True)
+    ok: np.ndarray = np.asarray(True)
     for d in dfs:
         ok = ok & (np.asarray(d, dtype=float) > 0)
     return ok

@@ -27,6 +27,7 @@ from typing import Iterable
 
 from plumbrule.errors import WorkbookError
 from plumbrule.workbook import package as pk
+from plumbrule.workbook.rawzip import copy_member
 from plumbrule.workbook.package import (
     CONTENT_TYPES,
     NS_MAIN,
@@ -198,8 +199,10 @@ def _write(uz: zipfile.ZipFile, out_path, drop: set[str], out: dict[str, bytes])
             name = info.filename.lower()
             if name in dropped:
                 continue
-            data = out.pop(edited[name]) if name in edited else uz.read(info.filename)
-            oz.writestr(_info(info), data)
+            if name in edited:
+                oz.writestr(_info(info), out.pop(edited[name]))
+            else:   # unchanged: its compressed bytes as they are (no inflate, no deflate)
+                copy_member(uz, info, oz, _info(info))
         for name, data in out.items():
             oz.writestr(_info(zipfile.ZipInfo(name)), data)
 

@@ -1,0 +1,286 @@
+"""`plumbrule fit` stage by stage, each stage beside its anchor measured in the same run.
+
+    PYTHONPATH=engine python benchmarks/cli.py [--sizes 10000,200000,1000000]
+                                               [--formats csv,xlsx] [--repeat 3]
+
+Invented sales (an ID, the price, eight numeric predictors, a six-level neighbourhood and a
+sale date: 12 columns), written once per size as CSV and as xlsx. For each size and format:
+
+  read            plumbrule's reader (intake.read_table)      | pandas.read_csv (CSV) or
+                                                              | pandas.read_excel, calamine
+  intake          prepare_sales: spec, typing, IDs, rules     | —
+  read + intake   the two above                               | pandas.read_csv   target ≤ 3×
+  analysis        analyze() on the table, minus intake        | —
+  render JSON     render.json.analysis_json                   | —
+  fit --json      `python -m plumbrule fit FILE --json`       | a plain script: pandas,
+                  (a subprocess, output to /dev/null)         | statsmodels, the same fit
+                                                              | (target: plumbrule ≥ 3×
+                                                              | faster at 200k)
+  peak memory     tracemalloc over read + analysis + JSON, as a multiple of the design
+                  matrix (n × p × 8 bytes, p the model's design columns)
+
+BLAS runs on one thread (OPENBLAS_NUM_THREADS=1 unless set) on both sides. Times are
+paired: in each repeat the anchor and plumbrule run back to back, and the ratio
+shown is the median of the per-repeat ratios (the machine may be shared and busy); the
+seconds shown are medians too.
+"""
+
+from __future__ import annotations
+
+import os
+
+# One BLAS thread for this process and the subprocesses (both sides alike): on a shared,
+# busy machine multi-threaded BLAS spins and makes every small call slow.
+os.environ["OPENBLAS_NUM_THREADS"] = os.environ.get("OPENBLAS_NUM_THREADS", "1")
+os.environ["OMP_NUM_THREADS"] = os.environ.get("OMP_NUM_THREADS", "1")
+
+import argparse
+import gc
+import json
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+import tracemalloc
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT / "engine"))
+
+K = 8
+HOODS = ["Millbank", "Old Quay", "Fenby Park", "Hilltop", "Riverside", "Kestrel Park"]
+SETTINGS = {"response": "price", "predictors": ",".join([*(f"x{j + 1}" for j in range(K)),
+                                                         "hood"]),
+            "categorical": "hood", "date_column": "sale_date", "id_column": "id", "folds": 5}
+
+
+def make_sales(n: int, seed: int = 7) -> pd.DataFrame:
+    """Sales-like numbers: areas, ages and counts on their own scales, a neighbourhood
+    effect, a market trend over 30 months, and noise about 10% of the mean price."""
+    rng = np.random.default_rng(seed)
+    loc, scale = rng.uniform(10, 1000, K), rng.uniform(1, 100, K)
+    x = np.round(rng.normal(size=(n, K)) * scale + loc, 2)
+    hood = rng.integers(0, len(HOODS), n)
+    days = rng.integers(0, 900, n)
+    effect = rng.uniform(-2e4, 2e4, len(HOODS))
+    price = (2e5 + (x - loc) @ (rng.uniform(-3, 3, K) * 1e3 / scale) + effect[hood]
+             + 20.0 * days + rng.normal(0, 2e4, n))
+    date = (np.datetime64("2023-01-01") + days.astype("timedelta64[D]")).astype(str)
+    frame = pd.DataFrame({"id": np.arange(100001, 100001 + n), "price": np.round(price)})
+    for j in range(K):
+        frame[f"x{j + 1}"] = x[:, j]
+    frame["hood"] = np.array(HOODS, dtype=object)[hood]
+    frame["sale_date"] = date
+    return frame
+
+
+def write_xlsx(frame: pd.DataFrame, path: Path) -> None:
+    """A one-sheet xlsx with inline strings, written directly (openpyxl takes minutes at
+    a million rows); python-calamine and pandas read it like any saved workbook."""
+    import zipfile
+    from xml.sax.saxutils import escape
+
+    def col(j: int) -> str:
+        return chr(65 + j)
+
+    head = "".join(f'<c r="{col(j)}1" t="inlineStr"><is><t>{escape(str(c))}</t></is></c>'
+                   for j, c in enumerate(frame.columns))
+    parts = [f'<row r="1">{head}</row>']
+    cells = []
+    rows = np.arange(2, len(frame) + 2).astype(str)
+    for j, c in enumerate(frame.columns):
+        v = frame[c]
+        if not pd.api.types.is_numeric_dtype(v):
+            txt = v.astype(object).map(escape).to_numpy(dtype=object)
+            cells.append(pd.Series(txt).radd('" t="inlineStr"><is><t>').add("</t></is></c>")
+                         .radd(pd.Series(rows).radd(f'<c r="{col(j)}')).to_numpy())
+        else:
+            cells.append(pd.Series(v.astype(str).to_numpy()).radd('"><v>').add("</v></c>")
+                         .radd(pd.Series(rows).radd(f'<c r="{col(j)}')).to_numpy())
+    body = pd.Series(rows).radd('<row r="').add('">').to_numpy(dtype=object)
+    for c in cells:
+        body = body + c
+    parts.extend((body + "</row>").tolist())
+    ns = "http://schemas.openxmlformats.org/spreadsheetml/2006/main"
+    rel = "http://schemas.openxmlformats.org/officeDocument/2006/relationships"
+    sheet = (f'<?xml version="1.0" encoding="UTF-8" standalone="yes"?><worksheet xmlns="{ns}">'
+             f"<sheetData>{''.join(parts)}</sheetData></worksheet>")
+    with zipfile.ZipFile(path, "w", zipfile.ZIP_DEFLATED, compresslevel=1) as z:
+        z.writestr("[Content_Types].xml", (
+            '<?xml version="1.0" encoding="UTF-8"?><Types xmlns="http://schemas.openxmlformats.'
+            'org/package/2006/content-types"><Default Extension="rels" ContentType="application/'
+            'vnd.openxmlformats-package.relationships+xml"/><Default Extension="xml" '
+            'ContentType="application/xml"/><Override PartName="/xl/workbook.xml" ContentType="'
+            'application/vnd.openxmlformats-officedocument.spreadsheetml.sheet.main+xml"/>'
+            '<Override PartName="/xl/worksheets/sheet1.xml" ContentType="application/vnd.'
+            'openxmlformats-officedocument.spreadsheetml.worksheet+xml"/></Types>'))
+        z.writestr("_rels/.rels", (
+            '<?xml version="1.0" encoding="UTF-8"?><Relationships xmlns="http://schemas.'
+            'openxmlformats.org/package/2006/relationships"><Relationship Id="rId1" Type="'
+            f'{rel}/officeDocument" Target="xl/workbook.xml"/></Relationships>'))
+        z.writestr("xl/workbook.xml", (
+            f'<?xml version="1.0" encoding="UTF-8"?><workbook xmlns="{ns}" xmlns:r="{rel}">'
+            '<sheets><sheet name="Sales" sheetId="1" r:id="rId1"/></sheets></workbook>'))
+        z.writestr("xl/_rels/workbook.xml.rels", (
+            '<?xml version="1.0" encoding="UTF-8"?><Relationships xmlns="http://schemas.'
+            'openxmlformats.org/package/2006/relationships"><Relationship Id="rId1" Type="'
+            f'{rel}/worksheet" Target="worksheets/sheet1.xml"/></Relationships>'))
+        z.writestr("xl/worksheets/sheet1.xml", sheet)
+
+
+# --- the anchor: what a script using pandas and statsmodels does for the same fit ----------
+
+ANCHOR = r'''
+import sys, warnings, numpy as np, pandas as pd, statsmodels.api as sm
+from statsmodels.stats.diagnostic import het_breuschpagan
+from statsmodels.stats.outliers_influence import OLSInfluence, variance_inflation_factor
+path = sys.argv[1]
+df = pd.read_csv(path) if path.endswith(".csv") else pd.read_excel(path, engine="calamine")
+df = df.dropna()
+date = pd.to_datetime(df["sale_date"])
+months = (date - date.min()).dt.days / (365.25 / 12)
+x = pd.concat([df[[f"x{j + 1}" for j in range(8)]], pd.get_dummies(df["hood"], drop_first=True,
+               dtype=float), months.rename("months")], axis=1)
+x = sm.add_constant(x)
+y = df["price"].to_numpy()
+res = sm.OLS(y, x).fit()
+with warnings.catch_warnings():
+    warnings.simplefilter("ignore")
+    res.summary()
+het_breuschpagan(res.resid, x, robust=True)
+[variance_inflation_factor(x.to_numpy(), j) for j in range(1, x.shape[1])]
+inf = OLSInfluence(res)
+table = pd.DataFrame({"id": df["id"], "fitted": res.fittedvalues, "residual": res.resid,
+                      "studentized": inf.resid_studentized_external,
+                      "cooks": inf.cooks_distance[0], "leverage": inf.hat_matrix_diag})
+fold = np.random.default_rng(1).integers(0, 5, len(y))
+pred = np.empty(len(y))
+xa = x.to_numpy()
+for k in range(5):
+    m = sm.OLS(y[fold != k], xa[fold != k]).fit()
+    pred[fold == k] = m.predict(xa[fold == k])
+cv = pd.DataFrame({"id": df["id"], "estimate": pred, "price": y, "ratio": pred / y})
+ratio = cv["ratio"]
+study = {"median": ratio.median(), "cod": 100 * (ratio - ratio.median()).abs().mean()
+         / ratio.median(), "prd": ratio.mean() / (pred.sum() / y.sum())}
+coef = pd.DataFrame({"estimate": res.params, "se": res.bse, "p": res.pvalues})
+print(coef.to_json(orient="records"), table.to_json(orient="records"),
+      cv.to_json(orient="records"), study)
+'''
+
+
+def timed(fn):
+    gc.collect()
+    t0 = time.perf_counter()
+    out = fn()
+    return time.perf_counter() - t0, out
+
+
+def run_quiet(cmd: list[str]) -> None:
+    subprocess.run(cmd, check=True, stdout=subprocess.DEVNULL, cwd=ROOT)
+
+
+def fit_args(path: Path) -> list[str]:
+    args = [sys.executable, "-m", "plumbrule", "fit", str(path), "--json"]
+    for k, v in SETTINGS.items():
+        args += [f"--{k.replace('_', '-')}", str(v)]
+    return args
+
+
+def measure(path: Path, repeat: int, whole: bool) -> dict:
+    from plumbrule.analysis import analyze
+    from plumbrule.intake import read_table
+    from plumbrule.render.json import analysis_json
+    from plumbrule.sales import prepare_sales
+    from plumbrule.settings import parse_settings
+    settings = parse_settings(SETTINGS)
+    csv = path.suffix == ".csv"
+
+    def anchor_read():
+        return pd.read_csv(path) if csv else pd.read_excel(path, engine="calamine")
+
+    def ours_read():
+        return read_table(path, text_columns=settings.text_columns)
+
+    rows: dict[str, list] = {k: [] for k in ("anchor_read", "read", "intake", "analyze",
+                                             "json", "anchor_fit", "fit")}
+    result = None
+    for _ in range(repeat):
+        rows["anchor_read"].append(timed(anchor_read)[0])
+        t, table = timed(ours_read)
+        rows["read"].append(t)
+        rows["intake"].append(timed(lambda table=table: prepare_sales(table, settings))[0])
+        t, result = timed(lambda table=table: analyze(table, settings))
+        rows["analyze"].append(t)
+        rows["json"].append(timed(lambda result=result: analysis_json(result))[0])
+        if whole:
+            rows["anchor_fit"].append(timed(lambda: run_quiet([sys.executable, "-c", ANCHOR,
+                                                               str(path)]))[0])
+            rows["fit"].append(timed(lambda: run_quiet(fit_args(path)))[0])
+    # peak memory of the in-process whole (numpy reports its buffers to tracemalloc)
+    del table
+    gc.collect()
+    tracemalloc.start()
+    analysis_json(analyze(ours_read(), settings))
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    n, p = result.model.x.shape
+    rows["memory"] = [peak / (n * p * 8)]
+    return rows
+
+
+def paired(a: list, b: list) -> str:
+    """median of b/a over the repeats, and the two medians in seconds"""
+    if not a or not b:
+        return ""
+    r = statistics.median([y / x for x, y in zip(a, b, strict=True)])
+    return f"{statistics.median(b):8.3f} s  {statistics.median(a):8.3f} s  {r:6.2f}×"
+
+
+def report(n: int, fmt: str, m: dict) -> None:
+    med = statistics.median
+    read_intake = [r + i for r, i in zip(m["read"], m["intake"], strict=True)]
+    analysis = [max(a - i, 0.0) for a, i in zip(m["analyze"], m["intake"], strict=True)]
+    anchor = "pandas.read_csv" if fmt == "csv" else "pandas.read_excel(calamine)"
+    print(f"\n{n:,} sales, {fmt}  (plumbrule | anchor | ratio plumbrule/anchor)")
+    print(f"  read            {paired(m['anchor_read'], m['read'])}   anchor {anchor}")
+    print(f"  intake          {med(m['intake']):8.3f} s")
+    print(f"  read + intake   {paired(m['anchor_read'], read_intake)}   target ≤ 3× {anchor}")
+    print(f"  analysis        {med(analysis):8.3f} s")
+    print(f"  render JSON     {med(m['json']):8.3f} s")
+    if m["fit"]:
+        r = statistics.median([a / b for a, b in zip(m["anchor_fit"], m["fit"], strict=True)])
+        print(f"  fit --json      {paired(m['anchor_fit'], m['fit'])}   "
+              f"pandas+statsmodels script; plumbrule {r:.2f}× faster (target ≥ 3× at 200k)")
+    print(f"  peak memory     {m['memory'][0]:.1f}× the design matrix")
+
+
+def main(argv=None) -> None:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--sizes", default="10000,200000,1000000")
+    ap.add_argument("--formats", default="csv,xlsx")
+    ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--no-whole", action="store_true", help="skip the fit --json subprocesses")
+    args = ap.parse_args(argv)
+    sizes = [int(s) for s in args.sizes.split(",")]
+    with tempfile.TemporaryDirectory() as tmp:
+        for n in sizes:
+            frame = make_sales(n)
+            for fmt in args.formats.split(","):
+                path = Path(tmp) / f"sales-{n}.{fmt}"
+                if fmt == "csv":
+                    frame.to_csv(path, index=False)
+                else:
+                    write_xlsx(frame, path)
+                m = measure(path, args.repeat, not args.no_whole)
+                report(n, fmt, m)
+                sys.stdout.flush()
+    print("\n" + json.dumps({"note": "ratios are medians of paired per-repeat ratios"}))
+
+
+if __name__ == "__main__":
+    main()
