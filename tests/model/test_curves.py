@@ -340,7 +340,7 @@ def test_cli_option_and_json_table(tmp_path):
                           capture_output=True, text=True, timeout=120)
     assert proc.returncode == 0, proc.stderr
     out = json.loads(proc.stdout)
-    keys = list(out)    # new tables go at the end (the JSON contract): after curves, only newer ones
+    keys = list(out)    # new tables go at the end (the JSON contract): only newer after curves
     assert keys.index("curves") > keys.index("market_index")
     assert set(keys[keys.index("curves") + 1:]) <= {"assessed_estimates", "sales_chasing",
                                                     "residual_map", "check_questions"}

@@ -178,7 +178,8 @@ def test_a_rerun_reads_any_spelling_of_workbook_xml(book, tmp_path, dialect):
     assert names[("_xlnm.Print_Titles", "Sales")] == "'Sales'!$1:$1"   # from the template
     after = _parts(src)
     user = [p for n, _, p in sheets if n not in RESULT_SHEETS]
-    assert len(user) == 8          # Read me, Sales, Subjects, Comps, Settings, Models, Roll, xlwings.conf
+    # Read me, Sales, Subjects, Comps, Settings, Models, Roll, xlwings.conf
+    assert len(user) == 8
     for part in user:
         assert after[part] == before[part], part
 
