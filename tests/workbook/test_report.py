@@ -137,7 +137,11 @@ def test_charts_are_native_with_the_expected_series(demo):
     # (more than 10 distinct values: a rule of thumb, common practice, no source)
     boxed = [c for c in cols if demo_sales()[c].nunique() > 10]
     assert "Bathrooms" in cols and "Bathrooms" not in boxed
-    assert titles[4:] == [f"{c}: before and after screening" for c in boxed]
+    assert titles[4:4 + len(boxed)] == [f"{c}: before and after screening" for c in boxed]
+    # the demo has a sale date: the market over the sale dates (issue 13 §1)
+    assert titles[4 + len(boxed):] == [
+        "Market index over the sale dates (1.000 at the valuation date)",
+        "Residuals by sale date, with each period's mean"]
     names = [[s.tx.v for s in c.series] for c in charts]
     assert names[0] == ["Sales used", "Holdout sales", "Estimate = price"]
     for chart in charts:
@@ -377,3 +381,26 @@ def test_a_caution_every_subject_carries_is_said_once_in_a_mass_run():
     assert sum(note in t for t in texts) == 1
     from plumbrule.cli.value import render_valuation
     assert render_valuation(valuation, analysis).count(note) == 1
+
+
+def test_market_charts_draw_the_engine_market_index_and_residuals(demo):
+    """The market-index chart draws the engine's market_index rows (date as a day number,
+    index and its interval); the residuals chart each sale's residual at its sale date and
+    the table's mean residual per period (issue 13 §1)."""
+    analysis, _, wb = demo
+    charts = {_title(c): c for c in wb["Report"]._charts}
+    index = analysis.tables.market_index
+    rows = index[~index["extrapolated"]]
+    days = (rows["date"].to_numpy("datetime64[D]") - np.datetime64("1899-12-30")).astype(float)
+    mi = charts["Market index over the sale dates (1.000 at the valuation date)"]
+    assert np.array_equal(_values(wb, mi.series[0].xVal.numRef.f), days)
+    for s, col in zip(mi.series, ("index", "ci_low", "ci_high"), strict=True):
+        assert np.allclose(_values(wb, s.yVal.numRef.f), rows[col].to_numpy(), rtol=1e-12)
+    rc = charts["Residuals by sale date, with each period's mean"]
+    model = analysis.final_model
+    assert np.allclose(_values(wb, rc.series[0].yVal.numRef.f), model.fit.resid, rtol=1e-12)
+    sold = (model.data["Sale date"].to_numpy("datetime64[D]")
+            - np.datetime64("1899-12-30")).astype(float)
+    assert np.array_equal(_values(wb, rc.series[0].xVal.numRef.f), sold)
+    means = index[index["sales"] > 0]["mean_residual"].to_numpy()
+    assert np.allclose(_values(wb, rc.series[1].yVal.numRef.f), means, rtol=1e-12)

@@ -33,6 +33,8 @@ def build_charts(ws, ctx) -> list:
     charts = [estimate_vs_price(book, ctx), residuals_vs_estimate(book, ctx),
               normal_quantiles(book, ctx), standardized_coefficients(book, ctx)]
     charts += box_plots(book, ctx)
+    from plumbrule.workbook import trend_charts
+    charts += trend_charts.build(book, ctx)
     from plumbrule.workbook import roll_charts
     charts += roll_charts.build(book, ctx)
     return [c for c in charts if c is not None]
