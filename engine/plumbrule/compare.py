@@ -308,7 +308,11 @@ def judge(sales, settings: Settings, spec, train: pd.DataFrame, hold: pd.DataFra
         checks.append(an._moved_check(moved))
     verdicts = checks_table(checks)["verdict"]
     fit = fit_table(model, retransform=settings.retransform).iloc[0]
-    vif = coefficient_table(model)["vif"].to_numpy(float)
+    # a categorical or curved predictor as one group, on the VIF scale: (GVIF^(1/(2df)))²
+    # (Fox and Monette 1992), so a spline's own columns never inflate it
+    from plumbrule.diagnostics.checks import collinearity_by_predictor
+    per = collinearity_by_predictor(model)
+    vif = (per["gvif_root"].to_numpy(float) ** 2 if len(per) else np.array([np.nan]))
     n, df_resid = int(fit["n_used"]), float(fit["df_resid"])
     if spec.log_response:
         # 1 − (1 − R²)(n − 1)/(n − p) with R² of the prices against the retransformed fit

@@ -39,6 +39,9 @@ def demo_models():
     ]
     if "curves" in REGISTRY:        # effects that bend (issue 13), when the setting exists
         rows.append({"Model": "curved age", "curves": "Age=spline:4"})
+        # the town's market as it was made: a bending trend and depreciation that levels off
+        rows.append({"Model": "bends and curved age", "trend": "piecewise",
+                     "trend_knots": "every 6 months", "curves": "Age=spline:4"})
     frame = pd.DataFrame(rows)
     return frame.reindex(columns=["Model", *[c for c in frame.columns if c != "Model"]])
 
