@@ -296,7 +296,7 @@ def judge(sales, settings: Settings, spec, train: pd.DataFrame, hold: pd.DataFra
     """The figures of one candidate fitted on ``train`` and judged on ``hold`` and the folds
     of ``train`` (a dict of COMPARISON_COLUMNS' figures, plus oos_mape/oos_rmse)."""
     from plumbrule import analysis as an
-    from plumbrule.diagnostics.tables import checks_table, coefficient_table, fit_table
+    from plumbrule.diagnostics.tables import checks_table, fit_table
     from plumbrule.model.fitted import fit_model
     train, hold, moved = an._move_unseen(train, hold, spec)
     model = fit_model(spec, train, robust_se=settings.robust_se, confidence=settings.confidence)
