@@ -31,6 +31,8 @@ def _analysis(log=True, **extra):
     (True, {}), (False, {}), (True, {"retransform": "lognormal"}),
     (True, {"retransform": "median"}), (True, {"robust_se": "HC3"}),
     (False, {"robust_se": "HC1"}), (True, {"log_predictors": "Lot size"}),
+    # with a holdout the model that values is refitted on every screened sale (final_fit)
+    (True, {"holdout": 0.3}), (False, {"holdout": 0.3}),
 ])
 def test_the_roll_matches_the_subject_path_row_by_row(log, extra):
     analysis, roll = _analysis(log, **extra)

@@ -291,7 +291,7 @@ def roll_json(roll, out: Path | None) -> str:
 
 def render_roll(roll, analysis, out: Path | None) -> str:
     s = roll.summary.iloc[0]
-    model = analysis.model
+    model = analysis.final_model
     lines = [f"plumbrule roll as of {s.valuation_date.date().isoformat()} ({model.fit.n:,} "
              f"sales in the model of {model.encoding.response_name}, "
              f"{int(100 * s.confidence + 0.5)}% intervals; estimates: {s.estimate_kind})", "",

@@ -497,7 +497,7 @@ def roll_summary(model, n: int, flagged: int, when: _dt.date, confidence: float,
 def value_roll(analysis, frame: pd.DataFrame, settings=None, first_row: int = 2,
                first_column: int = 1, limit: int | None = SHEET_ROWS - 1) -> Roll:
     """Value every parcel of ``frame`` (one column per header, cells as read; row i is sheet
-    row ``first_row + i``) with ``analysis.model`` at the settings' valuation date. ``limit``
+    row ``first_row + i``) with ``analysis.final_model`` at the settings' valuation date. ``limit``
     bounds the parcels held at once (a sheet's rows less its header): past it the message
     says to stream the roll to a file with the command line. Returns a frozen :class:`Roll`."""
     n = len(frame)
@@ -521,7 +521,7 @@ def stream_roll(analysis, chunks: Iterable[tuple[pd.DataFrame, int, int]],
     of every parcel."""
     from plumbrule.valuation.portfolio import add_sums, portfolio_sums, total_from_sums
     settings = settings or analysis.settings
-    model = analysis.model
+    model = analysis.final_model     # the model that values (final_fit)
     when = settings.valuation_date or _dt.date.today()
     plan = FlagPlan.of(model)
     counts = np.zeros(len(plan.names) + 1, dtype=np.int64)
