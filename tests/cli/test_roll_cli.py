@@ -131,3 +131,37 @@ def test_out_without_a_roll_is_refused(files, capsys):
     d, _, _ = files
     assert main(["value", str(d / "sales.csv"), "--out", str(d / "x.csv"), *_flags()]) == 2
     assert "--roll" in capsys.readouterr().err
+
+
+def test_roll_with_assessments_compares_sold_with_unsold_parcels(tmp_path, capsys):
+    # Sales chasing (issue 15 §3; IAAO Standard on Ratio Studies, 2013, on sales chasing, from
+    # memory): an invented roll whose sold parcels were reassessed at their sale price
+    # (+~20 %) while the unsold ones moved +2 %; `value --roll` compares the two changes
+    # with the unsold parcels of the roll. Reference: medians by numpy, Mann–Whitney by scipy.
+    from scipy.stats import mannwhitneyu
+    roll = county.parcels(1500, seed=41)
+    sales = county.sales(roll, 300, seed=42)
+    rng = np.random.default_rng(43)
+    prior = pd.Series(rng.uniform(150_000, 300_000, len(roll)), index=roll["Parcel"])
+    current = prior * 1.02
+    price = sales.set_index("Parcel")["Sale price"]
+    current[price.index] = price.to_numpy()            # chased: the roll follows the sale
+    prior[price.index] = price.to_numpy() / 1.2
+    for frame in (roll, sales):
+        frame["Assessed"] = current[frame["Parcel"]].to_numpy()
+        frame["Prior assessed"] = prior[frame["Parcel"]].to_numpy()
+    roll.to_csv(tmp_path / "roll.csv", index=False)
+    sales.to_csv(tmp_path / "sales.csv", index=False)
+    assert main(["value", str(tmp_path / "sales.csv"), "--roll", str(tmp_path / "roll.csv"),
+                 *_flags(), "--assessed-column", "Assessed",
+                 "--prior-assessed-column", "Prior assessed", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    row = out["sales_chasing"][0]
+    unsold = ~roll["Parcel"].isin(sales["Parcel"])
+    sold_change = (sales["Assessed"] / sales["Prior assessed"] - 1).to_numpy()
+    un_change = (roll.loc[unsold, "Assessed"] / roll.loc[unsold, "Prior assessed"] - 1).to_numpy()
+    assert row["sold"] == pytest.approx(np.median(sold_change), rel=1e-12)
+    assert row["unsold"] == pytest.approx(np.median(un_change), rel=1e-12)
+    assert row["p_value"] == pytest.approx(mannwhitneyu(sold_change, un_change).pvalue,
+                                           rel=1e-6)
+    assert row["verdict"] == "watch"

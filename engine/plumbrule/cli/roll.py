@@ -38,11 +38,22 @@ def run_roll(args, inputs) -> int:
     except BaseException:
         sink.abort()
         raise
+    chasing = _chasing(analysis, roll_path)
     if getattr(args, "json", False):
-        print(roll_json(result, out))
+        print(roll_json(result, out, chasing))
     else:
-        print(render_roll(result, analysis, out))
+        print(render_roll(result, analysis, out, chasing))
     return 0
+
+
+def _chasing(analysis, roll_path: Path):
+    """The sales-chasing tests with the roll's unsold parcels (assessments.chasing_with_roll)
+    when the settings name the current and prior assessed columns; None otherwise."""
+    spec = analysis.spec
+    if not (spec.assessed_column and spec.prior_assessed_column):
+        return None
+    from plumbrule.assessments import chasing_with_roll
+    return chasing_with_roll(analysis, roll_path)
 
 
 def _out_path(args, roll_path: Path) -> Path | None:
@@ -277,19 +288,23 @@ def _sink(out: Path) -> _FileSink:
 
 # --- rendering -------------------------------------------------------------------------------
 
-def roll_json(roll, out: Path | None) -> str:
+def roll_json(roll, out: Path | None, chasing=None) -> str:
     """One JSON object: roll (the summary, with out: the file written or null), roll_flags
-    (records), roll_total (the total with its interval; null for one parcel), caution."""
+    (records), roll_total (the total with its interval; null for one parcel), caution; with
+    assessed and prior assessed columns, sales_chasing (records: sold against the roll's
+    unsold parcels)."""
     from plumbrule.render.json import frame_records
     summary = frame_records(roll.summary)[0]
     summary["out"] = None if out is None else str(out)
     payload = {"roll": summary, "roll_flags": frame_records(roll.flags),
                "roll_total": frame_records(roll.total)[0] if len(roll.total) else None,
                "caution": CAUTION}
+    if chasing is not None:
+        payload["sales_chasing"] = frame_records(chasing)
     return json.dumps(payload, allow_nan=False, ensure_ascii=False)
 
 
-def render_roll(roll, analysis, out: Path | None) -> str:
+def render_roll(roll, analysis, out: Path | None, chasing=None) -> str:
     s = roll.summary.iloc[0]
     model = analysis.final_model
     lines = [f"plumbrule roll as of {s.valuation_date.date().isoformat()} ({model.fit.n:,} "
@@ -312,6 +327,9 @@ def render_roll(roll, analysis, out: Path | None) -> str:
     if len(roll.flags):
         lines += ["", "Flags, counted once for the roll"]
         lines += [f"  {n}" for n in roll.flags["note"]]
+    if chasing is not None and len(chasing):
+        lines += ["", "Sales chasing: the sold parcels against the roll's unsold ones"]
+        lines += [f"  {r.test}: {r.verdict}. {r.note}" for r in chasing.itertuples()]
     lines += ["", CAUTION]
     from plumbrule.render.terminal import visible
     return visible("\n".join(lines))
