@@ -393,9 +393,9 @@ def _assessed_tables(sales: Sales, after: pd.DataFrame, study: pd.DataFrame,
     if strata is not None and len(study):
         study = assessments.with_value_ranges(study, study_est, strata, targets,
                                               settings.confidence)
-    model_rows = study_est["row"].to_numpy()[study_est["in_study"].to_numpy(bool)]
     if not spec.assessed_column:
         return study, pd.DataFrame(), pd.DataFrame()
+    model_rows = study_est["row"].to_numpy()[study_est["in_study"].to_numpy(bool)]
     strata = strata or 4
     rows = after.index
     price = after[spec.response].to_numpy(float)

@@ -449,15 +449,20 @@ def write_screening(ws, analysis) -> None:
                   empty="Every category level has one spelling.",
                   explain="Spellings that differ only in case or spacing are one level, under "
                           "the most frequent spelling; level_map in Settings maps others.")
+    printed = r - 1
     if analysis.spec.date_column and "time_adjusted_price" in t.residuals:
+        # one row per sale used, as long as the Sales sheet: kept below the printed area (a
+        # printout of the screening stays a few pages; the rows stay on the sheet)
         frame = _time_adjusted(analysis)
+        r = note(ws, r + 1, "Below the printed area: every sale used, priced at the valuation "
+                            "date (print it by selecting it).")
         _table(ws, r, "Sales used, priced at the valuation date", frame,
                {**_stat_formats(frame), "sale_price": MONEY, "time_adjusted_price": MONEY},
                explain="time adjusted price: each sale's price carried from its sale date to "
                        "the valuation date by the fitted market trend (the market-conditions "
                        "adjustment).")
     ws.freeze_panes = None
-    fit_for_print(ws, last_col=_printed_columns(ws, ws.max_row))
+    fit_for_print(ws, last_col=_printed_columns(ws, printed), last_row=printed)
 
 
 # --- Validation --------------------------------------------------------------
