@@ -248,7 +248,8 @@ def test_changed_valuation_date_recalculates_to_the_engine_value(which, office, 
 # Report 12 (with the grid, the market charts and the candidate models compared), Model 4,
 # Screening 2, Validation 3, Valuation 2; 2,000 sales: Report 11, Screening 4, Validation 11,
 # Sales 36; the Report, Model, … and Comparison sheets together 31. Before the print
-# layout: template 14 pages, demo 95, a 2,000-sale book 193; Settings alone 6, Model 20, Validation 14 and 36).
+# layout: template 14 pages, demo 95, a 2,000-sale book 193; Settings alone 6, Model 20,
+# Validation 14 and 36).
 # They are the layout's promise, not a reference value: a sheet that no longer fits one
 # page wide or lost its wrapping grows past them.
 
