@@ -484,6 +484,15 @@ REGISTRY: dict[str, Setting] = {
             refuse=((0.0, "0 months leaves no sale. Enter e.g. 12, or leave it blank."),),
         ),
         _s(
+            "comp_distance",
+            "float",
+            None,
+            "Suggested comparables at most this far from the subject (needs x_column and "
+            "y_column; in the coordinates' units, kilometres for degrees).",
+            group="value",
+            low=0.0,
+        ),
+        _s(
             "adjustment_rounding",
             "float",
             100.0,
@@ -612,6 +621,7 @@ class Settings:
     suggest_comps: int = 0
     comp_same: str | None = None
     comp_months: float | None = None
+    comp_distance: float | None = None
     backup: bool = True
     adjustment_rounding: float = 100.0
     reconcile_gap: float = 0.10

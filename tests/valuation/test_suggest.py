@@ -106,3 +106,38 @@ def test_recency_window_keeps_recent_sales_only(demo):
     v = valuate(analysis, demo_subjects(), (), settings.replace(suggest_comps=4, comp_months=6))
     assert (v.suggestions["months_before"] <= 6).all()
     assert (v.suggestions["months_before"] >= 0).all()
+
+
+def _placed(sales, seed=7):
+    """The demo's sales and subject with invented projected coordinates (metres)."""
+    rng = np.random.default_rng(seed)
+    placed = sales.assign(East=rng.uniform(0, 5000, len(sales)),
+                          North=rng.uniform(0, 5000, len(sales)))
+    subject = demo_subjects().assign(East=2500.0, North=2500.0)
+    return placed, subject
+
+
+def test_comp_distance_keeps_the_suggestions_within_reach(demo):
+    # issue 14 §2: with coordinates, a distance limit; every suggestion's distance recomputed
+    # by hand (numpy, Euclidean on projected metres) is within it, and the limit bites (the
+    # unlimited suggestions include a sale beyond it).
+    sales, settings, _ = demo
+    placed, subject = _placed(sales)
+    s = settings.replace(x_column="East", y_column="North", suggest_comps=4)
+    analysis = analyze(placed, s)
+    free = valuate(analysis, subject, (), s).suggestions
+    near = valuate(analysis, subject, (), s.replace(comp_distance=1200.0)).suggestions
+
+    def away(rows):
+        row = placed.iloc[np.asarray(rows) - 2]     # sheet row 2 is the first sale
+        return np.hypot(row["East"] - 2500.0, row["North"] - 2500.0).to_numpy()
+
+    assert (away(near["comp_row"]) <= 1200.0).all() and len(near) == 4
+    assert (away(free["comp_row"]) > 1200.0).any()
+
+
+def test_comp_distance_without_coordinates_names_the_setting(demo):
+    sales, settings, analysis = demo
+    with pytest.raises(SettingError, match="comp_distance.*x_column"):
+        valuate(analysis, demo_subjects(), (),
+                settings.replace(suggest_comps=4, comp_distance=500.0))

@@ -36,6 +36,9 @@ class Subjects:
     data: pd.DataFrame
     labels: pd.Series
     x: np.ndarray
+    # (n, 2) x and y of each subject when the settings name coordinate columns (NaN where
+    # blank or not a number); None without them
+    coords: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -152,7 +155,21 @@ def read_subjects(model, subjects: Any, when: _dt.date) -> Subjects:
     enc = model.encoding
     data = enc.new_rows(table, label="subject row", date=pd.Timestamp(when), names=labels,
                         fixed_date=True)
-    return Subjects(data=data, labels=labels, x=enc.design(data, label="subject row"))
+    return Subjects(data=data, labels=labels, x=enc.design(data, label="subject row"),
+                    coords=_coordinates(model.spec, table.frame))
+
+
+def _coordinates(spec, frame: pd.DataFrame) -> np.ndarray | None:
+    """The subjects' x and y (x_column, y_column) as floats, NaN where missing."""
+    if not (getattr(spec, "x_column", None) and getattr(spec, "y_column", None)):
+        return None
+    out = np.full((len(frame), 2), np.nan)
+    for j, name in enumerate((spec.x_column, spec.y_column)):
+        col = next((c for c in frame.columns if str(c).strip().casefold() == name.casefold()),
+                   None)
+        if col is not None:
+            out[:, j] = pd.to_numeric(frame[col], errors="coerce").to_numpy(float)
+    return out
 
 
 def _labels(frame: pd.DataFrame) -> pd.Series:

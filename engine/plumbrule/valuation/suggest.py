@@ -88,7 +88,8 @@ def score_sales(model, subj_x: np.ndarray, sales: pd.DataFrame) -> dict[str, np.
 
 
 def suggest(analysis, subjects, n: int, when: _dt.date, estimates: pd.DataFrame,
-            same: str | None = None, months: float | None = None) -> Suggestions:
+            same: str | None = None, months: float | None = None,
+            distance: float | None = None) -> Suggestions:
     """The ``n`` best comparables for the first subject of ``subjects``
     (:class:`~plumbrule.valuation.estimates.Subjects`), among sales matching ``same`` (a
     column of the sales table: the subject's value) and sold at most ``months`` before
@@ -110,7 +111,13 @@ def suggest(analysis, subjects, n: int, when: _dt.date, estimates: pd.DataFrame,
             raise SettingError("Setting 'comp_months' needs the sale dates: set date_column, "
                                "or leave comp_months blank.", setting="comp_months")
         keep &= (months_before >= 0) & (months_before <= months)
+    if distance is not None:
+        keep &= _distances(analysis, subjects, sales) <= distance
     pool = sales[keep]
+    if pool.empty and distance is not None:
+        raise SettingError(f"Setting 'comp_distance': no sale lies within {distance:g} of the "
+                           "subject (with the other limits). Enter a larger distance, or leave "
+                           "it blank.", setting="comp_distance")
     if pool.empty:
         raise SettingError(_no_candidates(same, months), setting="comp_same" if same
                            else "comp_months")
@@ -231,6 +238,31 @@ def _subject_value(analysis, subjects, same: str):
     return data[col].iloc[0]
 
 
+def _distances(analysis, subjects, sales: pd.DataFrame) -> np.ndarray:
+    """Each sale's distance from the first subject (``comp_distance``): straight-line in the
+    coordinates' units, or for ``coordinates = degrees`` the chord on the Earth's mean
+    sphere in kilometres (≈ the great-circle distance at a town's scale). A sale without
+    coordinates is never within reach."""
+    from plumbrule.diagnostics.location import points
+    from plumbrule.sales import side_numbers
+    spec = analysis.spec
+    if not (spec.x_column and spec.y_column):
+        raise SettingError("Setting 'comp_distance' needs the coordinates: name x_column and "
+                           "y_column, or leave comp_distance blank.", setting="comp_distance")
+    here = (subjects.coords[0] if subjects.coords is not None
+            else np.array([np.nan, np.nan]))
+    if not np.isfinite(here).all():
+        raise SettingError(f"Setting 'comp_distance': the subject has no number in "
+                           f"'{spec.x_column}' or '{spec.y_column}'. Fill in its coordinates, "
+                           "or leave comp_distance blank.", setting="comp_distance")
+    xs = side_numbers(analysis.table, spec.x_column, sales.index)
+    ys = side_numbers(analysis.table, spec.y_column, sales.index)
+    pts = points(xs, ys, spec.coordinates)
+    origin = points(np.array([here[0]]), np.array([here[1]]), spec.coordinates)[0]
+    away = np.sqrt(((pts - origin) ** 2).sum(axis=1))
+    return np.where(np.isfinite(away), away, np.inf)
+
+
 def _no_candidates(same, months) -> str:
     parts = []
     if same:
@@ -248,8 +280,9 @@ def suggest_each(analysis, subjects, settings, when: _dt.date, estimates: pd.Dat
     out = []
     for i in range(len(subjects.data)):
         one = Subjects(data=subjects.data.iloc[i:i + 1], labels=subjects.labels.iloc[i:i + 1],
-                       x=subjects.x[i:i + 1])
+                       x=subjects.x[i:i + 1],
+                       coords=None if subjects.coords is None else subjects.coords[i:i + 1])
         out.append(suggest(analysis, one, settings.suggest_comps, when, estimates.iloc[i:i + 1],
-                           settings.comp_same, settings.comp_months))
+                           settings.comp_same, settings.comp_months, settings.comp_distance))
     return (out[0], pd.concat([s.table for s in out], ignore_index=True),
             pd.concat([s.bracketing for s in out], ignore_index=True))
