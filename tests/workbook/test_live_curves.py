@@ -13,6 +13,7 @@ from formula_eval import Evaluator
 from plumbrule.analysis import analyze
 from plumbrule.valuation.estimates import valuate
 from plumbrule.workbook import live
+from sheet_reading import input_cell as _input_cell, named_value as _named
 
 CURVES = "Age=spline:4; Living area=square; Lot size=bands:6000,9000"
 
@@ -34,18 +35,6 @@ SETTINGS = dict(response="Price", predictors="Living area,Lot size,Age", log_res
                 curves=CURVES, folds=0)
 SUBJECT = pd.DataFrame({"Subject": ["4 Ferry Lane"], "Living area": [1900.0],
                         "Lot size": [9500.0], "Age": [72.0]})
-
-
-def _named(wb, name, ev):
-    (sheet, ref), = wb.defined_names[name].destinations
-    return ev.value(ref)
-
-
-def _input_cell(ws, label):
-    for row in ws.iter_rows(min_col=1, max_col=2):
-        if row[0].value == label:
-            return row[1]
-    raise KeyError(label)
 
 
 @pytest.fixture(scope="module")

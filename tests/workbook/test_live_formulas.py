@@ -20,6 +20,7 @@ from plumbrule.analysis import analyze
 from plumbrule.demo.town import DEMO_SETTINGS, demo_sales, demo_subjects
 from plumbrule.valuation.estimates import valuate
 from plumbrule.workbook import live
+from sheet_reading import input_cell as _input_cell, named_value as _named
 
 VDATE = "2026-01-15"
 
@@ -30,18 +31,6 @@ def _book(analysis, valuation):
     ws.title = "Valuation"
     nxt = live.write_live_block(ws, analysis, valuation, 4)
     return wb, ws, nxt
-
-
-def _named(wb, name, ev):
-    (sheet, ref), = wb.defined_names[name].destinations
-    return ev.value(ref)
-
-
-def _input_cell(ws, label):
-    for row in ws.iter_rows(min_col=1, max_col=2):
-        if row[0].value == label:
-            return row[1]
-    raise KeyError(label)
 
 
 @pytest.fixture(scope="module")

@@ -25,6 +25,7 @@ from plumbrule.valuation.estimates import valuate
 from plumbrule.workbook import report
 from plumbrule.workbook.cells import MONEY, PERCENT, sig3
 from plumbrule.workbook.stamp import make_stamp
+from sheet_reading import chart_title as _title, chart_values as _values
 
 SETTINGS = {**DEMO_SETTINGS, "valuation_date": "2026-01-15", "trim_percentiles": "1,99",
             "holdout": 0.3}
@@ -47,16 +48,6 @@ def demo():
 
 def _texts(ws):
     return [c.value for row in ws.iter_rows() for c in row if isinstance(c.value, str)]
-
-
-def _title(chart):
-    return "".join(r.t for p in chart.title.tx.rich.p for r in (p.r or []))
-
-
-def _values(wb, ref):
-    sheet, cells = ref.rsplit("!", 1)
-    ws = wb[sheet.strip("'")]
-    return np.array([c.value for row in ws[cells.replace("$", "")] for c in row], dtype=float)
 
 
 def _find(ws, label):

@@ -12,16 +12,7 @@ from plumbrule.analysis import analyze
 from plumbrule.workbook import report, sheets
 from plumbrule.workbook.stamp import make_stamp
 from simulated_county import SETTINGS, county
-
-
-def _title(chart):
-    return "".join(r.t for p in chart.title.tx.rich.p for r in (p.r or []))
-
-
-def _values(wb, ref):
-    sheet, cells = ref.rsplit("!", 1)
-    ws = wb[sheet.strip("'")]
-    return np.array([c.value for row in ws[cells.replace("$", "")] for c in row], dtype=float)
+from sheet_reading import chart_title as _title, chart_values as _values
 
 
 @pytest.fixture(scope="module")
