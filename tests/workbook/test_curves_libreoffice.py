@@ -3,7 +3,6 @@ a square and bands) to the engine's figures (1e-9 relative, the issue's toleranc
 real `plumbrule run` of a filled template; the Model sheet keeps its curve tables and charts.
 """
 
-import shutil
 import subprocess
 from pathlib import Path
 
@@ -15,12 +14,8 @@ from test_live_curves import CURVES, SUBJECT, curved_sales
 
 pytestmark = pytest.mark.spreadsheet
 
-SOFFICE = shutil.which("soffice") or shutil.which("libreoffice")
-if SOFFICE is None:
-    pytest.skip("LibreOffice (soffice) is not installed", allow_module_level=True)
-
-PAIRS = (("plumb_live_estimate", "plumb_estimate"), ("plumb_live_pi_low", "plumb_pi_low"),
-         ("plumb_live_pi_high", "plumb_pi_high"))
+# the LibreOffice found (the module skips without one) and the live/static name pairs
+from test_libreoffice import PAIRS, SOFFICE  # noqa: E402
 
 
 def _convert(book: Path, outdir: Path, profile: Path) -> Path:

@@ -48,18 +48,24 @@ def find_soffice() -> str | None:
 def sheet_names(book: str | Path) -> list[tuple[str, str | None]]:
     """(name, state) of every sheet in tab order; state as written: None or 'visible',
     'hidden', 'veryHidden'."""
-    from plumbrule.workbook import package as pk
     try:
         with zipfile.ZipFile(book) as z:
-            main = pk.main_part(z)
-            if main is None:
-                raise WorkbookError(f"'{Path(book).name}' holds no workbook part. Save it "
-                                    "from your spreadsheet as an Excel workbook (.xlsx).")
-            wb = pk.read_workbook(z, main)
+            wb, _ = _workbook_part(z, book)
     except (zipfile.BadZipFile, OSError) as exc:
         raise WorkbookError(f"'{Path(book).name}' cannot be read as an .xlsx workbook ({exc})."
                             " Save it from your spreadsheet as an Excel workbook.") from None
     return [(s.name, s.state) for s in wb.sheets]
+
+
+def _workbook_part(z: zipfile.ZipFile, book: str | Path):
+    """(the parsed workbook part, its part name) of the open package ``z``; a package
+    without one is a WorkbookError saying how to save the file."""
+    from plumbrule.workbook import package as pk
+    main = pk.main_part(z)
+    if main is None:
+        raise WorkbookError(f"'{Path(book).name}' holds no workbook part. Save it from your "
+                            "spreadsheet as an Excel workbook (.xlsx).")
+    return pk.read_workbook(z, main), main
 
 
 def print_copy(book: str | Path, sheets: Iterable[str], dest: str | Path) -> Path:
@@ -69,11 +75,7 @@ def print_copy(book: str | Path, sheets: Iterable[str], dest: str | Path) -> Pat
     from plumbrule.workbook import package as pk
     wanted = {s.casefold() for s in sheets}
     with zipfile.ZipFile(book) as z:
-        main = pk.main_part(z)
-        if main is None:
-            raise WorkbookError(f"'{Path(book).name}' holds no workbook part. Save it from "
-                                "your spreadsheet as an Excel workbook (.xlsx).")
-        wb = pk.read_workbook(z, main)
+        wb, main = _workbook_part(z, book)
         have = {s.name.casefold() for s in wb.sheets}
         missing = sorted(wanted - have)
         if missing:

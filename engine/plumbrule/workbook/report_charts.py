@@ -248,6 +248,14 @@ def _training_prices(ctx):
     return model.data[ctx.response].to_numpy(float), model.fitted_prices(ctx.retransform)
 
 
+def date_serials(dates) -> np.ndarray:
+    """Dates as the sheet's own day numbers (days since 1899-12-30), so a scatter chart's
+    axis with a date number format reads as dates."""
+    import pandas as pd
+    d = pd.to_datetime(pd.Series(dates)).to_numpy("datetime64[D]")
+    return (d - np.datetime64("1899-12-30")).astype(float)
+
+
 def _sample(n: int):
     if n <= MAX_POINTS:
         return np.arange(n), ""

@@ -55,9 +55,7 @@ def ratio_vs_date(book, ctx):
     if est is None or "sale_date" not in est.columns or not est["sale_date"].notna().any():
         return None
     est = est[est["sale_date"].notna()]
-    d = est["sale_date"].to_numpy("datetime64[D]")
-    # days since 1899-12-30: the sheet's own date serials, so the axis reads as dates
-    serial = (d - np.datetime64("1899-12-30")).astype(np.int64).astype(float)
+    serial = rc.date_serials(est["sale_date"].to_numpy())
     r = est["ratio"].to_numpy(float)
     idx, note = rc._sample(len(r))
     cols = book.block("Roll ratios against sale date" + note,

@@ -10,6 +10,7 @@ import pandas as pd
 
 from plumbrule.workbook.report_charts import (BLUE, GREY, ORANGE, _axis_range, _line, _points,
                                               _sample, _scatter)
+from plumbrule.workbook.report_charts import date_serials as _serial
 
 _DATE_AXIS = "mmm yyyy"
 
@@ -21,12 +22,6 @@ def build(book, ctx) -> list:
         return []
     return [c for c in (market_index_chart(book, ctx, index),
                         residuals_by_month(book, ctx, index)) if c is not None]
-
-
-def _serial(dates) -> np.ndarray:
-    """Dates as spreadsheet day numbers (1900 system), so a scatter chart can place them."""
-    d = pd.to_datetime(pd.Series(dates)).to_numpy("datetime64[D]")
-    return (d - np.datetime64("1899-12-30")).astype(float)
 
 
 def market_index_chart(book, ctx, index: pd.DataFrame):
