@@ -154,8 +154,12 @@ with warnings.catch_warnings():
 het_breuschpagan(res.resid, x, robust=True)
 [variance_inflation_factor(x.to_numpy(), j) for j in range(1, x.shape[1])]
 inf = OLSInfluence(res)
+# externally studentized residuals in closed form: OLSInfluence.resid_studentized_external
+# refits the model once per sale (n regressions), which never finishes at 200k
+h, r = inf.hat_matrix_diag, res.resid.to_numpy()
+s2_not_i = (res.ssr - r ** 2 / (1 - h)) / (res.df_resid - 1)
 table = pd.DataFrame({"id": df["id"], "fitted": res.fittedvalues, "residual": res.resid,
-                      "studentized": inf.resid_studentized_external,
+                      "studentized": r / np.sqrt(s2_not_i * (1 - h)),
                       "cooks": inf.cooks_distance[0], "leverage": inf.hat_matrix_diag})
 fold = np.random.default_rng(1).integers(0, 5, len(y))
 pred = np.empty(len(y))
