@@ -76,3 +76,21 @@ def test_the_command_line_starts_without_numpy_pandas_or_scipy():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True).stdout.strip()
     assert out == "[]"
+
+
+def test_a_whole_analysis_loads_no_scipy_stats_nor_statsmodels():
+    """scipy.stats costs about 1.6 s to import (every distribution and its docstrings) and
+    statsmodels more: the analysis reads its t, F, χ² and normal tails from
+    plumbrule.numeric.distributions, so a command waits on neither. Checked by import on
+    the demo analysis with every check the demo runs (a curve, a location-free market, the
+    per-predictor linearity checks), not by a clock."""
+    import subprocess
+    import sys
+    code = ("import sys; from plumbrule.demo.town import DEMO_SETTINGS, demo_sales; "
+            "from plumbrule.analysis import analyze; "
+            "a = analyze(demo_sales(), {**DEMO_SETTINGS, 'curves': 'Age=spline:4'}); "
+            "assert len(a.tables.checks); "
+            "print(sorted(x for x in ('scipy.stats', 'statsmodels') if x in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout.strip()
+    assert out == "[]"

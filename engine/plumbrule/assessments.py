@@ -165,13 +165,13 @@ def mann_whitney(a: np.ndarray, b: np.ndarray) -> tuple[float, float]:
     and a continuity correction of ½ (Mann & Whitney 1947; the tie term as in Lehmann,
     *Nonparametrics*, 1975; from memory). Exact enough for the hundreds of sales and
     thousands of parcels a roll has; NaN p-value when either group is empty."""
-    from scipy.stats import norm, rankdata
+    from plumbrule.numeric.distributions import norm_sf
     a, b = np.asarray(a, float), np.asarray(b, float)
     n1, n2 = len(a), len(b)
     if n1 == 0 or n2 == 0:
         return float("nan"), float("nan")
     both = np.concatenate([a, b])
-    ranks = rankdata(both)
+    ranks = pd.Series(both).rank(method="average").to_numpy()   # mid-ranks for ties
     u = float(ranks[:n1].sum() - n1 * (n1 + 1) / 2.0)
     _, counts = np.unique(both, return_counts=True)
     n = n1 + n2
@@ -181,7 +181,7 @@ def mann_whitney(a: np.ndarray, b: np.ndarray) -> tuple[float, float]:
         return u, float("nan")
     d = u - n1 * n2 / 2.0
     zscore = (abs(d) - 0.5) / np.sqrt(var)
-    return u, float(min(1.0, 2.0 * norm.sf(zscore)))
+    return u, float(min(1.0, 2.0 * norm_sf(zscore)))
 
 
 def _change(current: np.ndarray, prior: np.ndarray) -> np.ndarray:
