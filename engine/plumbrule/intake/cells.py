@@ -144,10 +144,46 @@ def on_uniques(text: pd.Series, fn, skip_numbers: bool = False,
     return (uniques or Uniques(text)).apply(fn, skip_numbers)
 
 
+# What a plain text cell may not hold for the fast path of plain_text: white space other
+# than single inner spaces (trimmed and single-spaced already), an empty text, or the
+# marks of an error value ('#N/A', 'Err:502'). NUL separates the texts joined.
+_NOT_PLAIN = ("\t", "\n", "\r", "\x0b", "\x0c", "\x1c", "\x1d", "\x1e", "\x1f", "  ",
+              "\x00 ", " \x00", "\x00\x00", "#")
+
+
+def plain_text(col: pd.Series) -> bool:
+    """True when every cell of ``col`` is a non-empty ASCII text, trimmed, single-spaced and
+    no error value: the careful rules would read each as itself with no reason (no blank,
+    no error, nothing to respace). One C-level scan of the texts joined decides it, so an
+    ID or neighbourhood column of a large file skips the per-value rules altogether."""
+    n = len(col)
+    if not n or col.dtype != object:
+        return False
+    v = col.to_numpy(dtype=object)
+    if pd.api.types.infer_dtype(v, skipna=False) != "string":
+        return False
+    joined = "\x00".join(v.tolist())
+    if not joined.isascii() or joined.count("\x00") != n - 1:
+        return False
+    if not joined or joined[0] in " \x00" or joined[-1] in " \x00":
+        return False
+    if any(bad in joined for bad in _NOT_PLAIN):
+        return False
+    return "ERR:" not in joined.upper()
+
+
+def _no_reasons(col: pd.Series) -> tuple[pd.Series, pd.Series]:
+    """(reason per cell, all NaN; mask of cells that hold a value, all True)."""
+    return (pd.Series(np.nan, index=col.index, dtype=object),
+            pd.Series(True, index=col.index))
+
+
 def _blank_mask(col: pd.Series, kinds: pd.Series | None = None,
                 uniques: Uniques | None = None) -> pd.Series:
     if isinstance(col.dtype, np.dtype) and col.dtype.kind in "fiubM":
         return col.isna()
+    if kinds is None and plain_text(col):
+        return pd.Series(False, index=col.index)
     kinds = cell_kinds(col) if kinds is None else kinds
     out = col.isna() | kinds.eq(BLANK)
     text = kinds.eq(TEXT)
@@ -205,6 +241,8 @@ def _missing_reasons(col: pd.Series, kinds: pd.Series, uniques: Uniques | None =
                      ) -> tuple[pd.Series, pd.Series]:
     """(reason per cell or NaN, mask of cells that hold a value); ``uniques``: the distinct
     values of the column's text cells (``col[kinds == TEXT]``), when already found."""
+    if uniques is None and plain_text(col):
+        return _no_reasons(col)
     blank = _blank_mask(col, kinds, uniques)
     err = _error_names(col, kinds, uniques)
     reason = pd.Series(np.nan, index=col.index, dtype=object)
@@ -383,6 +421,9 @@ def _parse_formatted(text: pd.Series) -> pd.Series:
 def to_labels(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     """Cells → category labels (text); 3.0 becomes '3', TRUE becomes 'TRUE',
     a date becomes YYYY-MM-DD. Text is trimmed; case is kept."""
+    if plain_text(col):            # each cell its own label (an ID or category column)
+        return pd.Series(col.to_numpy(dtype=object), index=col.index, dtype=object), \
+            _no_reasons(col)[0]
     kinds = cell_kinds(col)
     is_text = kinds.eq(TEXT)
     uniques = Uniques(col[is_text]) if is_text.any() else None   # hashed once, used thrice

@@ -38,6 +38,7 @@ from plumbrule.intake.cells import (
     _refuse,
     _shown,
     cell_kinds,
+    plain_text,
 )
 
 DATE_FORMATS = ("auto", "MDY", "DMY", "YMD")
@@ -65,6 +66,10 @@ def to_dates(col: pd.Series, name: str, date_format: str = "auto"
     if isinstance(col.dtype, np.dtype) and col.dtype.kind == "M":   # already dates
         values = col.astype("datetime64[ns]")
         return values, pd.Series("blank", index=col.index, dtype=object).where(values.isna())
+    if plain_text(col):     # ISO or day/month text in every cell: read once, on the uniques
+        got, _ = _text_dates(col, name, date_format)
+        if got.notna().all():
+            return got, pd.Series(np.nan, index=col.index, dtype=object)
     kinds = cell_kinds(col)
     reason, present = _missing_reasons(col, kinds)
     out = pd.Series(pd.NaT, index=col.index, dtype="datetime64[ns]")

@@ -123,6 +123,8 @@ def _labelled(frame: pd.DataFrame, blank: np.ndarray
         words = cell_kinds(cells).eq(TEXT).to_numpy()
         if not words.any():
             continue
+        if _no_label_word(cells[words]):        # one scan, before hashing the texts
+            continue
         said = on_uniques(cells[words], _says_total).to_numpy(dtype=bool)
         idx = np.flatnonzero(at)[np.flatnonzero(words)[said]]
         hit[idx] = True
@@ -131,11 +133,16 @@ def _labelled(frame: pd.DataFrame, blank: np.ndarray
     return hit, col, text
 
 
-def _says_total(u: pd.Series) -> pd.Series:
-    """Whether each text starts with a totals label. ASCII texts none of which holds a
-    label's word (any case) cannot (a column of IDs): one scan of them joined says so."""
+def _no_label_word(u: pd.Series) -> bool:
+    """True when ``u`` (text cells) are ASCII and none holds a label's word in any case,
+    so none can start with a totals label (a column of IDs): one scan of them joined."""
     joined = "".join(u.astype(str).tolist())
-    if joined.isascii() and not any(w in joined.lower() for w in _LABEL_WORDS):
+    return joined.isascii() and not any(w in joined.lower() for w in _LABEL_WORDS)
+
+
+def _says_total(u: pd.Series) -> pd.Series:
+    """Whether each text starts with a totals label."""
+    if _no_label_word(u):
         return pd.Series(False, index=u.index)
     return u.astype(str).str.strip().str.contains(_LABEL_RE, regex=True)
 
@@ -164,34 +171,45 @@ def _summing(x: np.ndarray, known: np.ndarray):
     n, k = x.shape
     filled = np.isfinite(x)
     sale = ~known
-    v = np.where(filled & sale[:, None], x, 0.0)
-    c = np.where(filled & sale[:, None], 1.0, 0.0)
-    zero = np.zeros((1, k))
-    cs, cc = np.vstack([zero, np.cumsum(v, axis=0)]), np.vstack([zero, np.cumsum(c, axis=0)])
-    # Whether the rows above all hold the row's own values: from cumulative sums of squares.
-    c2 = np.vstack([zero, np.cumsum(v * v, axis=0)])
     # Sums of the rows above row i: all (cs[i]) or since the last known totals row.
     pos = np.arange(n)
     last = np.maximum.accumulate(np.where(known, pos, -1))
     prev = np.concatenate([[-1], last[:-1]])          # last totals row strictly above i
     start = prev + 1
     n_filled = filled.sum(axis=1)
-    # A total must match in its first filled column: that one column (vectors, not n × k
-    # arrays) picks the few candidate rows, and the whole test runs on those alone.
+    # A total must match in its first filled column: the running sums of the columns that
+    # come first in some row (vectors, not n × k arrays) pick the few candidate rows, and
+    # the whole test runs on those alone.
     f = filled.argmax(axis=1)
     xf = x[pos, f]
+    tot_f, cnt_f = np.empty(n), np.empty(n)
+    tot_s, cnt_s = np.empty(n), np.empty(n)
+    for j in np.unique(f):
+        at = f == j
+        ok = filled[:, j] & sale
+        cs_j = np.concatenate([[0.0], np.cumsum(np.where(ok, x[:, j], 0.0))])
+        cc_j = np.concatenate([[0.0], np.cumsum(ok)])
+        tot_f[at], cnt_f[at] = cs_j[pos[at]], cc_j[pos[at]]
+        tot_s[at], cnt_s[at] = cs_j[start[at]], cc_j[start[at]]
     cand = np.zeros(n, dtype=bool)
     with np.errstate(invalid="ignore", divide="ignore"):
-        for tot, cnt in ((cs[pos, f], cc[pos, f]),
-                         (cs[pos, f] - cs[start, f], cc[pos, f] - cc[start, f])):
+        for tot, cnt in ((tot_f, cnt_f), (tot_f - tot_s, cnt_f - cnt_s)):
             mean = tot / cnt
             cand |= np.abs(xf - tot) <= _RTOL * np.maximum(np.abs(xf), np.abs(tot))
             cand |= np.abs(xf - mean) <= _RTOL * np.maximum(np.abs(xf), np.abs(mean))
     rows = np.flatnonzero(cand & (n_filled >= 2))
-    out = _summing_rows(x[rows], filled[rows], n_filled[rows], cs[rows], cc[rows], c2[rows],
-                        cs[start[rows]], cc[start[rows]], c2[start[rows]], start[rows])
     full = (np.zeros(n, dtype=bool), np.zeros(n, dtype=np.int64), np.full(n, np.nan),
             np.full(n, "", dtype=object), np.zeros(n, dtype=np.int64))
+    if not len(rows):          # the usual sheet: no row matches in its first column
+        return full
+    v = np.where(filled & sale[:, None], x, 0.0)
+    c = np.where(filled & sale[:, None], 1.0, 0.0)
+    zero = np.zeros((1, k))
+    cs, cc = np.vstack([zero, np.cumsum(v, axis=0)]), np.vstack([zero, np.cumsum(c, axis=0)])
+    # Whether the rows above all hold the row's own values: from cumulative sums of squares.
+    c2 = np.vstack([zero, np.cumsum(v * v, axis=0)])
+    out = _summing_rows(x[rows], filled[rows], n_filled[rows], cs[rows], cc[rows], c2[rows],
+                        cs[start[rows]], cc[start[rows]], c2[start[rows]], start[rows])
     for whole, part in zip(full, out, strict=True):
         whole[rows] = part
     return full
