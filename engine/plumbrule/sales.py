@@ -7,6 +7,7 @@ one spelling per category level, hand exclusions by ID turned into sheet rows.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import pandas as pd
@@ -44,7 +45,17 @@ class Sales:
 
     def keys(self, rows: pd.Index) -> np.ndarray:
         """Each sale's 64-bit key (ID, else its typed values in the model's columns)."""
+        if self.ids is not None and rows.isin(self.ids.index).all():
+            return self._id_keys.reindex(rows).to_numpy(np.uint64)
         return sale_hashes(self.clean.data.loc[rows, list(self.spec.used_columns)], self.ids)
+
+    @cached_property
+    def _id_keys(self) -> pd.Series:
+        """The keys of every sale with an ID, hashed once (the holdout and the folds both
+        draw by key)."""
+        assert self.ids is not None
+        return pd.Series(sale_hashes(pd.DataFrame(index=self.ids.index), self.ids),
+                         index=self.ids.index)
 
 
 def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
@@ -134,10 +145,12 @@ def sale_names(table: intake.SheetTable, data: pd.DataFrame, spec, shown_ids: pd
     'row N'; ``sale_price`` and ``sale_date`` are the typed cells (NaN / NaT for a row
     intake dropped). ``label_column`` is matched to the headers here, once."""
     rows = table.frame.index
-    names = pd.Series([f"row {r}" for r in rows], index=rows, dtype=object)
     ids = None if shown_ids is None else shown_ids.reindex(rows)
-    if ids is not None:
-        names = ids.where(ids.notna(), names).astype(object)
+    names = (pd.Series(ids.to_numpy(dtype=object), index=rows, dtype=object) if ids is not None
+             else pd.Series(np.full(len(rows), None, dtype=object), index=rows, dtype=object))
+    unnamed = names.isna().to_numpy()
+    if unnamed.any():         # 'row N' only where a sale has no ID (not 200,000 texts made)
+        names[unnamed] = [f"row {r}" for r in rows[unnamed]]
     if label_column:
         from plumbrule.model.spec import match_column
         col = match_column(label_column, table.columns, "label_column")

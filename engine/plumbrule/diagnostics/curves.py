@@ -75,24 +75,35 @@ def straight_predictors(model: FittedModel) -> list[tuple[str, int]]:
     out = []
     for j, t in enumerate(model.encoding.terms):
         # a yes/no column has no straight-line assumption to test
-        if t.kind in ("numeric", "log") and len(np.unique(model.x[:, j])) > 2:
-            out.append((t.column, j))
+        if t.kind in ("numeric", "log"):
+            x = model.x[:, j]
+            lo, hi = x.min(), x.max()
+            if ((x > lo) & (x < hi)).any():        # a third value, found without sorting
+                out.append((t.column, j))
     return out
 
 
-def curve_gain(model: FittedModel, column: int) -> tuple[float, int]:
-    """(the drop in the residual sum of squares from adding the non-linear terms of a
-    4-knot restricted cubic spline of design column ``column``, their df). From the fit's Q:
-    the new columns, centred with an intercept, are made orthogonal to the design (twice,
-    for working precision) and the residuals projected on what is left; df 0 when the
-    values are too few or too repetitive for the knots."""
-    x = model.x[:, column]
-    t = np.quantile(x, KNOT_QUANTILES[TEST_KNOTS])
-    if not np.all(np.diff(t) > 0):
-        t = np.quantile(np.unique(x), KNOT_QUANTILES[TEST_KNOTS])
+def curve_gains(model: FittedModel, columns: list[int]) -> list[tuple[float, int]]:
+    """For each design column of ``columns``: (the drop in the residual sum of squares from
+    adding the non-linear terms of a 4-knot restricted cubic spline of that column, their
+    df). From the fit's Q: the new columns, centred with an intercept, are made orthogonal
+    to the design (twice, for working precision; all columns' terms at once) and the
+    residuals projected on what is left; df 0 when the values are too few or too repetitive
+    for the knots."""
+    blocks, owner = [], []
+    for pos, column in enumerate(columns):
+        x = model.x[:, column]
+        t = np.quantile(x, KNOT_QUANTILES[TEST_KNOTS])
         if not np.all(np.diff(t) > 0):
-            return 0.0, 0
-    w = rcs_terms(x, t)
+            t = np.quantile(np.unique(x), KNOT_QUANTILES[TEST_KNOTS])
+            if not np.all(np.diff(t) > 0):
+                continue
+        blocks.append(rcs_terms(x, t))
+        owner += [pos] * (TEST_KNOTS - 2)
+    out = [(0.0, 0)] * len(columns)
+    if not blocks:
+        return out
+    w = np.hstack(blocks)
     if model.fit.has_intercept:
         w -= w.mean(axis=0)
     raw = np.einsum("ij,ij->j", w, w)
@@ -101,15 +112,24 @@ def curve_gain(model: FittedModel, column: int) -> tuple[float, int]:
         w -= np.dot(q, q.T @ w)
     norms = np.sqrt(np.einsum("ij,ij->j", w, w))
     keep = norms ** 2 > 1e-12 * np.maximum(raw, np.finfo(float).tiny)
-    if not keep.any():
-        return 0.0, 0
-    z = w[:, keep] / norms[keep]
-    qz, rz = np.linalg.qr(z)
-    diag = np.abs(np.diag(rz))
-    ok = diag > 1e-8 * diag.max()
-    qz = qz[:, ok]
-    proj = qz.T @ model.fit.resid
-    return float(proj @ proj), int(ok.sum())
+    owner_a = np.asarray(owner)
+    resid = model.fit.resid
+    for pos in np.unique(owner_a):
+        mine = (owner_a == pos) & keep
+        if not mine.any():
+            continue
+        z = w[:, mine] / norms[mine]
+        qz, rz = np.linalg.qr(z)
+        diag = np.abs(np.diag(rz))
+        ok = diag > 1e-8 * diag.max()
+        proj = qz[:, ok].T @ resid
+        out[pos] = (float(proj @ proj), int(ok.sum()))
+    return out
+
+
+def curve_gain(model: FittedModel, column: int) -> tuple[float, int]:
+    """:func:`curve_gains` of one design column."""
+    return curve_gains(model, [column])[0]
 
 
 def linearity_by_predictor(model: FittedModel) -> list[Check]:
@@ -127,13 +147,13 @@ def linearity_by_predictor(model: FittedModel) -> list[Check]:
     out = []
     fit = model.fit
     logged = set(model.spec.log_predictors)
-    for name, j in cols:
+    gains = curve_gains(model, [j for _, j in cols])
+    for (name, _), (gain, df1) in zip(cols, gains, strict=True):
         title = f"Linearity: '{name}' as a straight line"
         what = f"log({name})" if name in logged else f"'{name}'"
         fix = (f"Take it out of log_predictors and try curves {name}=spline:4 instead, and "
                "compare." if name in logged else
                f"Try curves {name}=spline:4 (a square and bands are the other shapes) and compare.")
-        gain, df1 = curve_gain(model, j)
         df2 = fit.df_resid - df1
         if df1 == 0 or df2 < 1:
             out.append(not_applicable(title, f"'{name}' takes too few distinct values (or the "

@@ -138,7 +138,9 @@ def rcs_terms(x: np.ndarray, knots: np.ndarray) -> np.ndarray:
     t = np.asarray(knots, dtype=float)
     k = len(t)
     x = np.asarray(x, dtype=float)[:, None]
-    cube = lambda v: np.maximum(x - v, 0.0) ** 3      # noqa: E731
+    def cube(v):
+        d = np.maximum(x - v, 0.0)
+        return d * d * d          # products, not a float power: several times faster
     tj = t[None, : k - 2]
     gap = t[-1] - t[-2]
     out = (cube(tj) - cube(t[-2]) * (t[-1] - tj) / gap + cube(t[-1]) * (t[-2] - tj) / gap)
