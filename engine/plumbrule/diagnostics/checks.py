@@ -194,7 +194,7 @@ def _serial_setup(model: FittedModel, name: str, threshold: str, what: str):
                               threshold), None
     order = model.sale_order
     assert order is not None            # a date column gives an order
-    return None, (order, serial.design_basis(model.fit, order))
+    return None, (order, model.date_order_basis)
 
 
 def durbin_watson_date(model: FittedModel) -> Check:

@@ -64,6 +64,18 @@ class FittedModel:
         return date_order(self.data, self.spec.date_column)
 
     @cached_property
+    def date_order_basis(self) -> np.ndarray | None:
+        """An orthonormal basis of the design with its constant, rows in sale-date order
+        ([1/√n, Q]: Q's columns are centred with an intercept); formed once for the
+        serial checks that read it. None without a date column."""
+        if self.sale_order is None:
+            return None
+        q = self.fit.q[self.sale_order]
+        if not self.fit.has_intercept:
+            return q
+        return np.column_stack([np.full(self.fit.n, 1.0 / np.sqrt(self.fit.n)), q])
+
+    @cached_property
     def cov(self) -> np.ndarray:
         """The covariance used for inference: classical, or HC1/HC3 when asked."""
         if self.robust_se:
