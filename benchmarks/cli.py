@@ -139,7 +139,8 @@ import sys, warnings, numpy as np, pandas as pd, statsmodels.api as sm
 from statsmodels.stats.diagnostic import het_breuschpagan
 from statsmodels.stats.outliers_influence import OLSInfluence, variance_inflation_factor
 path = sys.argv[1]
-df = pd.read_csv(path) if path.endswith(".csv") else pd.read_excel(path, engine="calamine")
+df = (pd.read_csv(path) if path.endswith(".csv") else pd.read_parquet(path)
+      if path.endswith(".parquet") else pd.read_excel(path, engine="calamine"))
 df = df.dropna()
 date = pd.to_datetime(df["sale_date"])
 months = (date - date.min()).dt.days / (365.25 / 12)
@@ -172,8 +173,13 @@ ratio = cv["ratio"]
 study = {"median": ratio.median(), "cod": 100 * (ratio - ratio.median()).abs().mean()
          / ratio.median(), "prd": ratio.mean() / (pred.sum() / y.sum())}
 coef = pd.DataFrame({"estimate": res.params, "se": res.bse, "p": res.pvalues})
-print(coef.to_json(orient="records"), table.to_json(orient="records"),
-      cv.to_json(orient="records"), study)
+if sys.argv[2:] == ["text"]:     # the text output: the tables a reader looks at
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        print(res.summary(), coef, study)
+else:
+    print(coef.to_json(orient="records"), table.to_json(orient="records"),
+          cv.to_json(orient="records"), study)
 '''
 
 
@@ -184,18 +190,38 @@ def timed(fn):
     return time.perf_counter() - t0, out
 
 
-def run_quiet(cmd: list[str]) -> None:
-    subprocess.run(cmd, check=True, stdout=subprocess.DEVNULL, cwd=ROOT)
+PEAK_RSS: dict[str, list[float]] = {}
 
 
-def fit_args(path: Path) -> list[str]:
-    args = [sys.executable, "-m", "plumbrule", "fit", str(path), "--json"]
+def run_quiet(cmd: list[str], label: str = "") -> None:
+    """Run ``cmd`` with its output to /dev/null; record its peak resident memory (bytes)
+    under ``label`` (os.wait4 reports the child's own rusage)."""
+    # A small launcher starts the command: a child forked from this (large) process would
+    # report this process's resident memory as its own peak.
+    done = subprocess.run([sys.executable, "-c", _LAUNCH, *cmd], stdout=subprocess.DEVNULL,
+                          stderr=subprocess.PIPE, text=True, cwd=ROOT)
+    if done.returncode:
+        raise subprocess.CalledProcessError(done.returncode, cmd, stderr=done.stderr)
+    if label:
+        kb = float(done.stderr.strip().splitlines()[-1])
+        PEAK_RSS.setdefault(label, []).append(kb * 1024.0)
+
+
+_LAUNCH = ("import resource, subprocess, sys; r = subprocess.run(sys.argv[1:]).returncode; "
+           "print(resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss, file=sys.stderr); "
+           "sys.exit(r)")
+
+
+def fit_args(path: Path, json_out: bool = True) -> list[str]:
+    args = [sys.executable, "-m", "plumbrule", "fit", str(path)] + (["--json"] if json_out
+                                                                     else [])
     for k, v in SETTINGS.items():
         args += [f"--{k.replace('_', '-')}", str(v)]
     return args
 
 
-def measure(path: Path, repeat: int, whole: bool) -> dict:
+def measure(path: Path, repeat: int, whole: bool, text: bool = False, stages: bool = True
+            ) -> dict:
     from plumbrule.analysis import analyze
     from plumbrule.intake import read_table
     from plumbrule.render.json import analysis_json
@@ -205,15 +231,31 @@ def measure(path: Path, repeat: int, whole: bool) -> dict:
     csv = path.suffix == ".csv"
 
     def anchor_read():
+        if path.suffix == ".parquet":
+            return pd.read_parquet(path)
         return pd.read_csv(path) if csv else pd.read_excel(path, engine="calamine")
 
     def ours_read():
         return read_table(path, text_columns=settings.text_columns)
 
     rows: dict[str, list] = {k: [] for k in ("anchor_read", "read", "intake", "analyze",
-                                             "json", "anchor_fit", "fit")}
+                                             "json", "anchor_fit", "fit", "anchor_text",
+                                             "fit_text")}
     result = None
     for _ in range(repeat):
+        if not stages:        # the whole commands only (5M sales: no in-process copy)
+            if whole:
+                rows["anchor_fit"].append(timed(lambda: run_quiet(
+                    [sys.executable, "-c", ANCHOR, str(path)], f"anchor json {path}"))[0])
+                rows["fit"].append(timed(lambda: run_quiet(fit_args(path),
+                                                           f"fit json {path}"))[0])
+            if text:
+                rows["anchor_text"].append(timed(lambda: run_quiet(
+                    [sys.executable, "-c", ANCHOR, str(path), "text"],
+                    f"anchor text {path}"))[0])
+                rows["fit_text"].append(timed(lambda: run_quiet(fit_args(path, False),
+                                                                f"fit text {path}"))[0])
+            continue
         rows["anchor_read"].append(timed(anchor_read)[0])
         t, table = timed(ours_read)
         rows["read"].append(t)
@@ -222,9 +264,17 @@ def measure(path: Path, repeat: int, whole: bool) -> dict:
         rows["analyze"].append(t)
         rows["json"].append(timed(lambda result=result: analysis_json(result))[0])
         if whole:
-            rows["anchor_fit"].append(timed(lambda: run_quiet([sys.executable, "-c", ANCHOR,
-                                                               str(path)]))[0])
-            rows["fit"].append(timed(lambda: run_quiet(fit_args(path)))[0])
+            rows["anchor_fit"].append(timed(lambda: run_quiet(
+                [sys.executable, "-c", ANCHOR, str(path)], f"anchor json {path}"))[0])
+            rows["fit"].append(timed(lambda: run_quiet(fit_args(path), f"fit json {path}"))[0])
+        if text:
+            rows["anchor_text"].append(timed(lambda: run_quiet(
+                [sys.executable, "-c", ANCHOR, str(path), "text"], f"anchor text {path}"))[0])
+            rows["fit_text"].append(timed(lambda: run_quiet(fit_args(path, False),
+                                                            f"fit text {path}"))[0])
+    if not stages:
+        rows["memory"] = []
+        return rows
     # peak memory of the in-process whole (numpy reports its buffers to tracemalloc)
     del table
     gc.collect()
@@ -233,7 +283,8 @@ def measure(path: Path, repeat: int, whole: bool) -> dict:
     peak = tracemalloc.get_traced_memory()[1]
     tracemalloc.stop()
     n, p = result.model.x.shape
-    rows["memory"] = [peak / (n * p * 8)]
+    rows["design_bytes"] = [n * (p + 1) * 8.0]      # the design with its constant column
+    rows["memory"] = [peak / rows["design_bytes"][0]]
     return rows
 
 
@@ -245,30 +296,54 @@ def paired(a: list, b: list) -> str:
     return f"{statistics.median(b):8.3f} s  {statistics.median(a):8.3f} s  {r:6.2f}×"
 
 
-def report(n: int, fmt: str, m: dict) -> None:
+def _rss(label: str, path: Path) -> float:
+    got = PEAK_RSS.get(f"{label} {path}", [])
+    return statistics.median(got) if got else float("nan")
+
+
+def report(n: int, fmt: str, m: dict, path: Path) -> None:
     med = statistics.median
-    read_intake = [r + i for r, i in zip(m["read"], m["intake"], strict=True)]
-    analysis = [max(a - i, 0.0) for a, i in zip(m["analyze"], m["intake"], strict=True)]
-    anchor = "pandas.read_csv" if fmt == "csv" else "pandas.read_excel(calamine)"
+    anchor = {"csv": "pandas.read_csv", "parquet": "pandas.read_parquet"}.get(
+        fmt, "pandas.read_excel(calamine)")
     print(f"\n{n:,} sales, {fmt}  (plumbrule | anchor | ratio plumbrule/anchor)")
-    print(f"  read            {paired(m['anchor_read'], m['read'])}   anchor {anchor}")
-    print(f"  intake          {med(m['intake']):8.3f} s")
-    print(f"  read + intake   {paired(m['anchor_read'], read_intake)}   target ≤ 3× {anchor}")
-    print(f"  analysis        {med(analysis):8.3f} s")
-    print(f"  render JSON     {med(m['json']):8.3f} s")
-    if m["fit"]:
-        r = statistics.median([a / b for a, b in zip(m["anchor_fit"], m["fit"], strict=True)])
-        print(f"  fit --json      {paired(m['anchor_fit'], m['fit'])}   "
-              f"pandas+statsmodels script; plumbrule {r:.2f}× faster (target ≥ 3× at 200k)")
-    print(f"  peak memory     {m['memory'][0]:.1f}× the design matrix")
+    if m["read"]:
+        read_intake = [r + i for r, i in zip(m["read"], m["intake"], strict=True)]
+        analysis = [max(a - i, 0.0) for a, i in zip(m["analyze"], m["intake"], strict=True)]
+        print(f"  read            {paired(m['anchor_read'], m['read'])}   anchor {anchor}")
+        print(f"  intake          {med(m['intake']):8.3f} s")
+        print(f"  read + intake   {paired(m['anchor_read'], read_intake)}   "
+              f"target ≤ 3× {anchor}")
+        print(f"  analysis        {med(analysis):8.3f} s")
+        print(f"  render JSON     {med(m['json']):8.3f} s")
+    design = m.get("design_bytes", [n * 15 * 8.0])[0]    # 15 design columns in these sales
+    for key, anchor_key, label in (("fit", "anchor_fit", "json"),
+                                   ("fit_text", "anchor_text", "text")):
+        if not m[key]:
+            continue
+        r = statistics.median([a / b for a, b in zip(m[anchor_key], m[key], strict=True)])
+        name = "fit --json" if label == "json" else "fit (text)"
+        print(f"  {name:<15} {paired(m[anchor_key], m[key])}   pandas+statsmodels script; "
+              f"plumbrule {r:.2f}× faster" + (" (target ≥ 3× at 200k)" if label == "json"
+                                             else ""))
+        ours, theirs = _rss(f"fit {label}", path), _rss(f"anchor {label}", path)
+        print(f"  peak RSS        {ours / 1e6:8.0f} MB  {theirs / 1e6:8.0f} MB  "
+              f"{ours / theirs:6.2f}×   = {ours / design:.1f}× the design matrix "
+              f"({design / 1e6:.0f} MB; the anchor {theirs / design:.1f}×)")
+    if m["memory"]:
+        print(f"  traced peak     {m['memory'][0]:.1f}× the design matrix (read + analysis + "
+              "JSON text, in process)")
 
 
 def main(argv=None) -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--sizes", default="10000,200000,1000000")
-    ap.add_argument("--formats", default="csv,xlsx")
+    ap.add_argument("--formats", default="csv,xlsx", help="csv, xlsx, parquet (pyarrow)")
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--no-whole", action="store_true", help="skip the fit --json subprocesses")
+    ap.add_argument("--text", action="store_true",
+                    help="also time `fit` with text output beside the script's text output")
+    ap.add_argument("--whole-only", action="store_true",
+                    help="only the whole commands (no in-process stages): for 5M sales")
     args = ap.parse_args(argv)
     sizes = [int(s) for s in args.sizes.split(",")]
     with tempfile.TemporaryDirectory() as tmp:
@@ -278,11 +353,16 @@ def main(argv=None) -> None:
                 path = Path(tmp) / f"sales-{n}.{fmt}"
                 if fmt == "csv":
                     frame.to_csv(path, index=False)
+                elif fmt == "parquet":
+                    frame.to_parquet(path, index=False)
                 else:
                     write_xlsx(frame, path)
-                m = measure(path, args.repeat, not args.no_whole)
-                report(n, fmt, m)
+                m = measure(path, args.repeat, not args.no_whole, args.text,
+                            stages=not args.whole_only)
+                report(n, fmt, m, path)
                 sys.stdout.flush()
+                path.unlink()
+            del frame
     print("\n" + json.dumps({"note": "ratios are medians of paired per-repeat ratios"}))
 
 
