@@ -34,7 +34,7 @@ def sale_ids(table: SheetTable, column: str, used: Sequence[str],
         raise IntakeError(f"Column '{column}' (the ID column) is blank in {_rows(rows)}. Give "
                           "every sale an ID, or clear the id_column setting.", column=column,
                           row=int(rows[0]))
-    if pd.Index(ids.to_numpy(dtype=object)).is_unique:
+    if pd.Index(ids.to_numpy(dtype=object), dtype=object).is_unique:
         return ids.astype(object)
     twice = ids.duplicated(keep=False)
     if twice.any():

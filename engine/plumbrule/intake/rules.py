@@ -23,7 +23,8 @@ def duplicate_rows(data: pd.DataFrame, ids: pd.Series | None, mode: str
     Returns (kept rows, log)."""
     if mode == "keep" or len(data) < 2:
         return data, _empty()
-    if ids is not None and pd.Index(ids.reindex(data.index).to_numpy(dtype=object)).is_unique:
+    if ids is not None and pd.Index(ids.reindex(data.index).to_numpy(dtype=object),
+                                    dtype=object).is_unique:
         return data, _empty()          # rows with different IDs are never the same sale
     key = data if ids is None else data.assign(__id=ids.reindex(data.index))
     hashed = pd.util.hash_pandas_object(key, index=False)
