@@ -199,6 +199,11 @@ def _rows(heads: list[bytes], cols: list[ColumnText], n: int, *,
     step = max(1, MATRIX_BYTES // width)       # rows at a time: a bounded matrix
     padded = [np.concatenate([c.buf, np.zeros(w, np.uint8)]) for c, w in zip(cols, widths,
                                                                              strict=True)]
+    # cell lengths in the smallest integer type that holds the slot width (a faster
+    # comparison); None where every cell has the same length
+    narrow = [None if int(c.lens.min()) == w else
+              c.lens.astype(np.uint8 if w < 256 else np.uint32 if w < 2**32 else np.intp)
+              for c, w in zip(cols, widths, strict=True)]
     row = np.zeros(width, dtype=np.uint8)       # the heads in place, zeros for the cells
     slots, pos = [], 0
     for head, w in zip(heads, widths, strict=True):
@@ -209,9 +214,10 @@ def _rows(heads: list[bytes], cols: list[ColumnText], n: int, *,
     for r0 in range(0, n, step):
         r1 = min(r0 + step, n)
         out = np.broadcast_to(row, (r1 - r0, width)).copy()
-        for col, w, pad, pos in zip(cols, widths, padded, slots, strict=True):
+        for col, w, pad, pos, lens in zip(cols, widths, padded, slots, narrow, strict=True):
             cells = sliding_window_view(pad, w)[col.starts[r0:r1]]     # a copy: writable
-            cells[np.arange(w) >= col.lens[r0:r1, None]] = 0
+            if lens is not None:                 # not every cell fills its slot
+                cells[np.arange(w, dtype=lens.dtype) >= lens[r0:r1, None]] = 0
             out[:, pos:pos + w] = cells
         if last_block and r1 == n:
             out[-1, -1] = 0
