@@ -63,6 +63,7 @@ def every_kind(n: int, seed: int = 0) -> pd.DataFrame:
     return pd.DataFrame({
         "row": rng.integers(-2**62, 2**62, n),
         "small": rng.integers(0, 100, n).astype(np.int16),
+        "swapped": rng.integers(-1000, 1000, n).astype(">i8"),      # as a file may bring it
         "big": rng.integers(0, 2**63, n, dtype=np.uint64) * np.uint64(2),
         "value": floats,
         "f32": rng.normal(size=n).astype(np.float32),

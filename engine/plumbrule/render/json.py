@@ -95,7 +95,8 @@ def column_json(col: pd.Series) -> ColumnText:
         # one orjson call writes the whole array (NaN, ±inf → null; floats shortest
         # round-trip); no number, true, false or null holds a comma
         v = col.to_numpy(dtype=float) if kind == "f" else col.to_numpy()
-        raw = orjson.dumps(np.ascontiguousarray(v), option=orjson.OPT_SERIALIZE_NUMPY)
+        v = np.ascontiguousarray(v, dtype=v.dtype.newbyteorder("="))  # orjson: native order
+        raw = orjson.dumps(v, option=orjson.OPT_SERIALIZE_NUMPY)
         return _split(np.frombuffer(raw, np.uint8)[1:-1], len(v), quoted=False)
     text = _iso_dates(col) if kind == "M" else _text_or_missing(col)
     if text is not None:
