@@ -62,7 +62,8 @@ def column_values(col: pd.Series) -> list[Any]:
     if kind in "iub":
         return col.to_numpy().tolist()
     if kind == "M":
-        return _iso_dates(col).tolist()
+        text, at = _iso_dates(col)
+        return text[at].tolist()
     text = _text_or_missing(col)
     if text is not None:
         return text.tolist()
@@ -98,7 +99,13 @@ def column_json(col: pd.Series) -> ColumnText:
         v = np.ascontiguousarray(v, dtype=v.dtype.newbyteorder("="))  # orjson: native order
         raw = orjson.dumps(v, option=orjson.OPT_SERIALIZE_NUMPY)
         return _split(np.frombuffer(raw, np.uint8)[1:-1], len(v), quoted=False)
-    text = _iso_dates(col) if kind == "M" else _text_or_missing(col)
+    if kind == "M":
+        # each distinct date written once; the cells point at their date's text
+        text, at = _iso_dates(col)
+        dates = _split(np.frombuffer(orjson.dumps(text.tolist()), np.uint8)[1:-1], len(text),
+                       quoted=True)             # ISO text: no comma, nothing to escape
+        return ColumnText(dates.buf, dates.starts[at], dates.lens[at])
+    text = _text_or_missing(col)
     if text is not None:
         buf = np.frombuffer(orjson.dumps(text.tolist()), np.uint8)[1:-1]
         # without a backslash nothing was escaped, so every '"' opens or closes a string
@@ -134,24 +141,29 @@ def _kind(col: pd.Series) -> str:
 
 
 def _iso_dates(col: pd.Series):
-    """A datetime column as an object array of ISO text (seconds, with microseconds where a
-    date has a fraction, as ``datetime.isoformat`` writes it) and None for NaT."""
+    """A datetime column's distinct dates as an object array of ISO text (seconds, with
+    microseconds where a date has a fraction, as ``datetime.isoformat`` writes it; None for
+    NaT) and each cell's place in it (intp)."""
     import numpy as np
     # sale dates repeat: each distinct date is written once
-    v, at = np.unique(col.to_numpy(dtype="datetime64[us]"), return_inverse=True)
+    ticks, at = np.unique(col.to_numpy(dtype="datetime64[us]").view(np.int64),
+                          return_inverse=True)  # integers sort faster than datetimes
+    v = ticks.view("datetime64[us]")
     whole = v.astype("datetime64[s]")
     text = np.datetime_as_string(whole, unit="s").astype(object)
     frac = (v != whole) & ~np.isnat(v)
     if frac.any():
         text[frac] = np.datetime_as_string(v[frac], unit="us").astype(object)
     text[np.isnat(v)] = None
-    return text[at.reshape(-1)]
+    return text, at.reshape(-1)
 
 
 def _text_or_missing(col: pd.Series):
     """An object array of the column's values with None for missing ones, when every other
     value is text (str); None when the column holds anything else."""
     from pandas.api.types import infer_dtype
+    if isinstance(col.dtype, pd.StringDtype):      # text or missing by its type
+        return col.to_numpy(dtype=object, na_value=None)
     values = col.to_numpy(dtype=object, copy=True)
     missing = pd.isna(values)       # what plain_value makes None: None, NaN, NaT, pd.NA ...
     if infer_dtype(values[~missing], skipna=False) not in ("string", "empty"):
