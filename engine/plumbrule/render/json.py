@@ -2,11 +2,12 @@
 
 Two writers give the same object. :func:`frame_records` turns a table into plain Python
 records (a dict per row) for callers that add to them. The ``--json`` writer
-(:func:`analysis_json_chunks`) never builds a value or a dict per cell: each column of a
-block of rows becomes its cells' JSON texts in C (orjson writes a number column as one
-array, a text column by one call per string), and the rows are laid out column-wise in a
-numpy object array and joined once, so a 200k-sale residual table costs a few C passes.
-Text goes out block by block, so a caller writing to a stream never holds the whole text.
+(:func:`analysis_json_chunks`) never builds a Python value or a dict per cell: orjson writes
+a block of rows' column as one array (numbers) or one list (text, dates), the cells are found
+in that text by numpy (commas outside quotes), and the rows are laid out in a byte matrix,
+one zero-padded slot per key and per column, whose zeros are then dropped (JSON text holds
+none). Only columns mixing kinds, or text needing escapes, go cell by cell. Text goes out a
+block of rows at a time, so a caller writing to a stream never holds the whole text.
 
 :func:`reference_json` is the careful cell-by-cell writer both are tested against."""
 
@@ -20,8 +21,8 @@ import pandas as pd
 
 from plumbrule.render.plain import plain_value
 
-# Rows per block of the streaming writer: about a quarter of a million cells' texts alive at
-# once for a residual table (a few MB), large enough that the per-block numpy calls are noise.
+# Rows per block of the streaming writer: a residual table's block is a few MB of text, and
+# the per-block numpy calls are noise beside the work.
 BLOCK_ROWS = 20_000
 # Largest byte matrix the row layout builds at once (a wide text column gets fewer rows).
 MATRIX_BYTES = 1 << 24
