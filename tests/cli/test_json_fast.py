@@ -133,11 +133,17 @@ def test_extra_keys_after_the_tables_or_in_a_table_s_place():
     assert rj.analysis_json_bytes(_result({})) == b"{}"
 
 
-def test_a_long_text_cell_among_short_ones(small_blocks):
-    # one wide cell makes the byte matrix wide: fewer rows at a time, the same text
+@pytest.mark.parametrize("matrix", [1 << 24, 64], ids=["wide matrix", "cell by cell"])
+def test_a_long_text_cell_among_short_ones(matrix, monkeypatch):
+    # one wide cell makes the byte matrix wide: fewer rows at a time, or (when the slots
+    # would be mostly padding) the rows joined cell by cell; the same text either way
+    monkeypatch.setattr(rj, "MATRIX_BYTES", matrix)
     text = ["short"] * 40
     text[17] = "long, \"quoted\" " * 500
-    _same({"t": pd.DataFrame({"text": text, "x": np.arange(40.0)})})
+    frame = pd.DataFrame({"text": text, "x": np.arange(40.0)})
+    for block in (40, 7):
+        fast = b'{"t":' + b"".join(rj.table_chunks(frame, block=block)) + b"}"
+        assert fast == rj.reference_json(_result({"t": frame})).encode("utf-8")
 
 
 def test_column_text_pieces_are_each_cell_s_json():

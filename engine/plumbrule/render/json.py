@@ -210,6 +210,11 @@ def _rows(heads: list[bytes], cols: list[ColumnText], n: int, *,
     from numpy.lib.stride_tricks import sliding_window_view
     widths = [int(c.lens.max()) for c in cols]
     width = sum(widths) + sum(map(len, heads)) + 2
+    text = sum(int(c.lens.sum()) for c in cols) + n * (width - sum(widths))
+    if width * n > 4 * text + MATRIX_BYTES:
+        # a few very long cells would make every row's slot that wide: cell by cell instead
+        yield _joined(heads, cols, n, last_block=last_block)
+        return
     step = max(1, MATRIX_BYTES // width)       # rows at a time: a bounded matrix
     padded = [np.concatenate([c.buf, np.zeros(w, np.uint8)]) for c, w in zip(cols, widths,
                                                                              strict=True)]
@@ -236,6 +241,19 @@ def _rows(heads: list[bytes], cols: list[ColumnText], n: int, *,
         if last_block and r1 == n:
             out[-1, -1] = 0
         yield out[out != 0].tobytes()
+
+
+def _joined(heads: list[bytes], cols: list[ColumnText], n: int, *, last_block: bool) -> bytes:
+    """The rows of :func:`_rows` joined from each cell's text (a bytes object per cell)."""
+    import numpy as np
+    pieces = np.empty((n, 2 * len(cols) + 1), dtype=object)
+    for i, (head, col) in enumerate(zip(heads, cols, strict=True)):
+        pieces[:, 2 * i] = head
+        pieces[:, 2 * i + 1] = col.texts()
+    pieces[:, -1] = b"},"
+    if last_block:
+        pieces[-1, -1] = b"}"
+    return b"".join(pieces.ravel().tolist())
 
 
 def analysis_json_chunks(result, extra: Mapping[str, Any] | None = None) -> Iterator[bytes]:
