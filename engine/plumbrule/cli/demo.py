@@ -77,8 +77,8 @@ def run_demo(args) -> int:
     result = run_book(path, backup=False)
     if getattr(args, "json", False):
         import json
-        from plumbrule.render.json import analysis_json
-        out = json.loads(analysis_json(result.analysis))
+        from plumbrule.render.json import analysis_json_bytes
+        out = json.loads(analysis_json_bytes(result.analysis))
         out["workbook"] = str(result.written.resolve())
         out["headline"] = result.headline
         if result.valuation is not None:

@@ -128,11 +128,27 @@ def cmd_fit(args: argparse.Namespace) -> int:
     inputs = read_inputs(args)
     result = analyze(inputs.sales, inputs.settings)
     if args.json:
-        from plumbrule.render.json import analysis_json
-        print(analysis_json(result))
+        from plumbrule.render.json import write_analysis_json
+        write_json(lambda stream: write_analysis_json(result, stream))
     else:
         print(render_analysis(result))
     return 0
+
+
+def write_json(write) -> None:
+    """Let ``write`` put UTF-8 JSON on standard output a piece at a time, then a newline
+    (as print would): bytes go to the binary stream, undecoded, when there is one."""
+    import io
+    sys.stdout.flush()
+    stream = getattr(sys.stdout, "buffer", None)
+    if stream is None:                      # a text-only stdout (a caller's StringIO)
+        text = io.BytesIO()
+        write(text)
+        sys.stdout.write(text.getvalue().decode("utf-8") + "\n")
+        return
+    write(stream)
+    stream.write(b"\n")
+    stream.flush()
 
 
 def cmd_value(args: argparse.Namespace) -> int:
