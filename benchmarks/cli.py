@@ -11,7 +11,7 @@ sale date: 12 columns), written once per size as CSV and as xlsx. For each size 
   intake          prepare_sales: spec, typing, IDs, rules     | —
   read + intake   the two above                               | pandas.read_csv   target ≤ 3×
   analysis        analyze() on the table, minus intake        | —
-  render JSON     render.json.analysis_json                   | —
+  render JSON     render.json.write_analysis_json (streamed)  | —
   fit --json      `python -m plumbrule fit FILE --json`       | a plain script: pandas,
                   (a subprocess, output to /dev/null)         | statsmodels, the same fit
                                                               | (target: plumbrule ≥ 3×
@@ -224,8 +224,15 @@ def measure(path: Path, repeat: int, whole: bool, text: bool = False, stages: bo
             ) -> dict:
     from plumbrule.analysis import analyze
     from plumbrule.intake import read_table
-    from plumbrule.render.json import analysis_json
+    from plumbrule.render.json import write_analysis_json
     from plumbrule.sales import prepare_sales
+
+    class Discard:          # fit --json streams its blocks to stdout; here they go nowhere
+        def write(self, chunk: bytes) -> int:
+            return len(chunk)
+
+    def analysis_json(result) -> None:
+        write_analysis_json(result, Discard())
     from plumbrule.settings import parse_settings
     settings = parse_settings(SETTINGS)
     csv = path.suffix == ".csv"
@@ -331,7 +338,7 @@ def report(n: int, fmt: str, m: dict, path: Path) -> None:
               f"({design / 1e6:.0f} MB; the anchor {theirs / design:.1f}×)")
     if m["memory"]:
         print(f"  traced peak     {m['memory'][0]:.1f}× the design matrix (read + analysis + "
-              "JSON text, in process)")
+              "streamed JSON, in process)")
 
 
 def main(argv=None) -> None:
