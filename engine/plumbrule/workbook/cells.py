@@ -173,6 +173,38 @@ def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache
         cells[(top + i, col)] = cell
 
 
+def merge(ws, start_row: int, start_column: int, end_row: int, end_column: int) -> None:
+    """``ws.merge_cells(...)`` with the same result. openpyxl re-registers each covered cell's
+    protection and every border side by hashing style objects, milliseconds a merge; when
+    the range's first cell has no border and its last cell is empty (every merge plumbrule
+    makes but a bordered header's), that work changes nothing but the covered cells' protection
+    id, set here directly."""
+    from openpyxl.cell.cell import MergedCell
+    from openpyxl.styles.cell_style import StyleArray
+    from openpyxl.worksheet.merge import MergedCellRange
+    cells = ws._cells
+    start = cells.get((start_row, start_column))
+    end = cells.get((end_row, end_column))      # (the first cell itself for a single cell)
+    if start is None or end is not None or (start._style is not None and start._style.borderId):
+        ws.merge_cells(start_row=start_row, start_column=start_column, end_row=end_row,
+                       end_column=end_column)
+        return
+    from openpyxl.utils import get_column_letter
+    coord = (f"{get_column_letter(start_column)}{start_row}:"
+             f"{get_column_letter(end_column)}{end_row}")
+    ws.merged_cells.add(MergedCellRange(ws, coord))
+    if start._style is None:
+        start._style = StyleArray()
+    protection = start._style.protectionId   # what format() gives every covered cell
+    for r in range(start_row, end_row + 1):
+        for c in range(start_column, end_column + 1):
+            if (r, c) != (start_row, start_column):
+                cell = MergedCell(ws, row=r, column=c)
+                cell._style = StyleArray()
+                cell._style.protectionId = protection
+                cells[(r, c)] = cell
+
+
 def write_pairs(ws, pairs: Sequence[tuple[str, Any]], top: int, left: int = 1,
                 formats: Mapping[str, Any] | None = None) -> int:
     """Two columns (label, value); returns the next free row."""
@@ -323,8 +355,7 @@ def fit_for_print(ws, last_col: int | None = None, landscape: bool | None = None
             elif key in merged:
                 continue
             elif cell is run_on and cell.column < last_col:
-                ws.merge_cells(start_row=r, start_column=cell.column, end_row=r,
-                               end_column=last_col)
+                merge(ws, r, cell.column, r, last_col)
                 w = span - sum(width(k) for k in range(1, cell.column))
             else:
                 w = width(cell.column)

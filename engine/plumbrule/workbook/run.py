@@ -89,7 +89,8 @@ def run_book(path: str | Path, backup: bool | None = None,
     else:
         target = path.with_name(path.stem + ".results.xlsx")
         check_not_open(target)
-        bak = write_atomic(_real_file(target), book.save, keep_bak)
+        from plumbrule.workbook.save import save_book
+        bak = write_atomic(_real_file(target), lambda tmp: save_book(book, tmp), keep_bak)
     return RunResult(written=target, in_place=in_place, unsupported=parts.unsupported,
                      backup=bak, headline=jsonable(headline(analysis, valuation)),
                      analysis=analysis, valuation=valuation, comparison=comparison,
@@ -160,10 +161,10 @@ def _still_the_same(path: Path, seen: tuple[int, int]) -> None:
 
 
 def _to_bytes(book) -> bytes:
-    import io
-    buf = io.BytesIO()
-    book.save(buf)
-    return buf.getvalue()
+    """The result book as a package in memory, its parts stored (the graft reads them back
+    and deflates what it keeps once, into the user's file)."""
+    from plumbrule.workbook.save import to_bytes
+    return to_bytes(book, compress=False)
 
 
 def _check_names(parts) -> None:
