@@ -127,8 +127,11 @@ def _merged(use_ours: bool) -> bytes:
     put(ws, 4, 3, "last cell taken")                         # the range's last cell holds a value
     ws.cell(5, 1).border = Border(left=Side(style="thin"))
     put(ws, 6, 2, "one cell")
+    thin = Side(style="thin")
+    ws.cell(10, 1).border = Border(left=thin, right=thin, top=thin, bottom=Side(style="thick"))
+    ws.cell(12, 3).border = Border(right=Side(style="double"))   # folded into the first cell
     ranges = [(1, 1, 1, 7), (2, 2, 2, 4), (3, 1, 4 - 1, 5), (4, 1, 4, 3), (5, 1, 6 - 1, 2),
-              (6, 2, 6, 2), (8, 1, 9, 3)]                   # the last: its first cell empty
+              (6, 2, 6, 2), (8, 1, 9, 3), (10, 1, 12, 3)]                   # the last: its first cell empty
     for r in ranges:
         if use_ours:
             merge(ws, *r)

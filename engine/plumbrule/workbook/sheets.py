@@ -411,8 +411,11 @@ def _covariance(ws, r: int, analysis) -> int:
 
 def _printed_columns(ws, last_row: int) -> int:
     """The last column a table uses above ``last_row`` (notes are wrapped to it)."""
+    names = ws.parent._named_styles.names      # cell.style, read by the cell's style id
+    skip = {i for i, n in enumerate(names) if n in ("plumb_note", "plumb_title")}
     cols = [c for (r, c), cell in ws._cells.items() if r <= last_row
-            and cell.value is not None and cell.style not in ("plumb_note", "plumb_title")]
+            and cell._value is not None
+            and (cell._style.xfId if cell._style is not None else 0) not in skip]
     return max(cols, default=2)
 
 
