@@ -117,7 +117,7 @@ def linearity_by_predictor(model: FittedModel) -> list[Check]:
     restricted cubic spline's two non-linear terms (Harrell 2015, §2.4.6 and §2.7.2), graded
     with a Bonferroni split of 0.05 over the predictors tested, so a correct straight model
     raises a false alarm on any of them at most about one time in twenty."""
-    from scipy.stats import f as fdist
+    from plumbrule.numeric.distributions import f_sf
     cols = straight_predictors(model)
     if not cols:
         return []
@@ -140,7 +140,7 @@ def linearity_by_predictor(model: FittedModel) -> list[Check]:
                                       "sales are too few) to test a curve.", threshold))
             continue
         fstat = (gain / df1) / ((fit.ssr - gain) / df2)
-        p = float(fdist.sf(fstat, df1, df2))
+        p = float(f_sf(fstat, df1, df2))
         if p < alpha:
             verdict = WATCH
             note = (f"'{name}' needs a curve: a spline of {what} fits its effect better than "
