@@ -143,3 +143,25 @@ def _merged(use_ours: bool) -> bytes:
 
 def test_merge_leaves_the_sheet_as_openpyxls_merge_cells():
     assert _parts(_merged(True)) == _parts(_merged(False))
+
+
+def _column(use_block: bool, number_format) -> bytes:
+    import numpy as np
+    from openpyxl import Workbook
+    from plumbrule.workbook.cells import put, write_values
+    values = [1.5, np.float64(2.25), np.int64(3), None, float("nan"), "=text", True,
+              dt.date(2024, 5, 6), dt.datetime(2024, 5, 6, 7, 8), [1, 2], np.nan]
+    book = Workbook()
+    ws = book.active
+    if use_block:
+        write_values(ws, values, 3, 2, number_format)
+    else:
+        for i, v in enumerate(values):
+            put(ws, 3 + i, 2, v, number_format)
+    return to_bytes(book)
+
+
+@pytest.mark.parametrize("number_format", [None, "0.000"])
+def test_write_values_writes_what_put_writes(number_format):
+    # the last value blank: the sheet's dimension still reaches its row, as with put
+    assert _parts(_column(True, number_format)) == _parts(_column(False, number_format))

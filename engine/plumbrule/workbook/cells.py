@@ -87,8 +87,28 @@ def put(ws, row: int, col: int, value: Any, number_format: str | None = None,
     elif isinstance(v, _dt.date):
         cell.number_format = DATE
     if style is not None:
-        cell.style = style
+        _named_style(cell, style)
     return cell
+
+
+_NAMED: Any = None       # book → {named style: the style array a cell takes from it}
+
+
+def _named_style(cell, name: str) -> None:
+    """``cell.style = name``: openpyxl looks the name up and copies the named style's array
+    on every call; the array is the same each time in one book, so it is kept."""
+    global _NAMED
+    from copy import copy
+    if _NAMED is None:
+        import weakref
+        _NAMED = weakref.WeakKeyDictionary()
+    known = _NAMED.setdefault(cell.parent.parent, {})
+    array = known.get(name)
+    if array is None:
+        cell.style = name
+        known[name] = copy(cell._style)
+    else:
+        cell._style = copy(array)
 
 
 def put_formula(ws, row: int, col: int, formula: str, number_format: str | None = None):
@@ -128,6 +148,11 @@ def write_frame(ws, frame, top: int, left: int = 1, formats: Formats | None = No
     return r + len(body)
 
 
+def write_values(ws, values: list, top: int, col: int, number_format: str | None = None) -> None:
+    """``put(ws, top + i, col, v, number_format)`` for each value, the cells built directly."""
+    _write_column(ws, values, top, col, number_format, _StyleCache(ws), blanks=True)
+
+
 class _StyleCache:
     """One openpyxl style array per number format (what ``cell.number_format = f`` makes)."""
 
@@ -145,7 +170,10 @@ class _StyleCache:
         return self.arrays[fmt]
 
 
-def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache) -> None:
+def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache,
+                  blanks: bool = False) -> None:
+    """The cells of one column from ``top`` down; a blank is skipped, or with ``blanks``
+    written as put writes it (an empty cell)."""
     from copy import copy
     from openpyxl.cell.cell import Cell
     cells = ws._cells
@@ -153,6 +181,8 @@ def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache
     for i, v in enumerate(values):
         v = plain(v)
         if v is None:
+            if blanks:
+                put(ws, top + i, col, None, fixed)
             continue
         if isinstance(v, str):
             kind, v = "s", clean_text(v)[:32767]
@@ -164,6 +194,8 @@ def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache
             put(ws, top + i, col, v, fixed if not callable(fmt) else None)
             continue
         else:
+            if isinstance(v, (list, tuple, set)):
+                v = ", ".join(map(str, v))
             kind, v = "s", clean_text(str(v))[:32767]
         f = fmt(v) if callable(fmt) else fixed
         cell = Cell(ws, row=top + i, column=col)
