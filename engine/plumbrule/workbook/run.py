@@ -20,6 +20,7 @@ import os
 import re
 import secrets
 import shutil
+from contextlib import contextmanager
 from stat import S_IMODE, S_IWGRP, S_IWOTH, S_IWUSR
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -62,6 +63,27 @@ def run_book(path: str | Path, backup: bool | None = None,
     ``backup`` overrides the workbook's ``backup`` setting; ``now`` fixes the stamp time.
     Raises :class:`WorkbookError` (or another PlumbError) with nothing written.
     """
+    with _no_cycle_collection():
+        return _run_book(path, backup, now)
+
+
+@contextmanager
+def _no_cycle_collection():
+    """The cyclic garbage collector paused for one run: reading the sheets and writing the
+    result sheets create hundreds of thousands of long-lived objects (cell values, cells),
+    and each collection walks every one of them again, a fifth or more of the writing time.
+    The run leaves little cyclic garbage; collection resumes as it was when it ends."""
+    import gc
+    was = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was:
+            gc.enable()
+
+
+def _run_book(path, backup, now) -> RunResult:
     from plumbrule.workbook.read import read_inputs
     from plumbrule.workbook.safety import check_is_file, check_not_open, inspect_book
     path = Path(path)

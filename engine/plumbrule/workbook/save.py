@@ -17,6 +17,8 @@ from typing import Any
 from xml.etree.ElementTree import _escape_attrib, _escape_cdata  # type: ignore[attr-defined]
 
 _PLACEHOLDER = b"<sheetData />"
+_UNSTYLED = (0,) * 9                 # a cell's style array with nothing set
+_INFINITE = (float("inf"), float("-inf"))
 
 
 def save_book(book, target, compress: bool = True) -> None:
@@ -116,7 +118,8 @@ def sheet_rows(ws) -> str | None:
                 return None
             value = cell._value
             style = cell._style
-            styled = style is not None and any(style)
+            key = _UNSTYLED if style is None else tuple(style)
+            styled = key != _UNSTYLED           # openpyxl: any(style)
             if value is None and not styled:
                 continue
             col = cell.column
@@ -125,12 +128,18 @@ def sheet_rows(ws) -> str | None:
                 letter = letters[col] = get_column_letter(col)
             head = f'<c r="{letter}{rtext}"'
             if styled:
-                key = tuple(style)
                 sid = ids.get(key)
                 if sid is None:
                     sid = ids[key] = styles.add(style)
                 head += f' s="{sid}"'
             kind = cell.data_type
+            if kind == "n" and (type(value) is float or type(value) is int):
+                # safe_string's text for a number: %.16g, nothing for NaN and infinities
+                if value != value or value in _INFINITE:
+                    add(f'{head} t="n"><v /></c>')
+                else:
+                    add(f'{head} t="n"><v>{"%.16g" % value}</v></c>')
+                continue
             if kind == "s":
                 if value is None or value == "":
                     add(head + ' t="inlineStr" />')
