@@ -47,6 +47,19 @@ def _addresses(hood, start: int = 0) -> list[str]:
     return [f"{1 + (k * 37) % 89} {_STREETS[h][k % 3]}" for k, h in zip(i, hood, strict=True)]
 
 
+_FIRST_ID = 2400
+_UNUSUAL_IDS = (9001, 9002, 9003)     # the three unusual sales' numbers (Q-9001…)
+
+
+def _ordinary_ids(n: int) -> list[str]:
+    """``Q-2400``, ``Q-2401``, … for ``n`` ordinary sales, stepping over the unusual sales'
+    numbers so every ID stays unique at any size (below Q-9001 nothing moves: the default demo
+    and every size up to 6,601 sales keep their IDs)."""
+    num = _FIRST_ID + np.arange(n)
+    num = num + len(_UNUSUAL_IDS) * (num >= _UNUSUAL_IDS[0])
+    return [f"Q-{k:04d}" for k in num]
+
+
 def demo_sales(n: int = 360, seed: int = 7) -> pd.DataFrame:
     """``n`` ordinary invented sales plus three unusual ones (last rows)."""
     rng = np.random.default_rng(seed)
@@ -74,7 +87,7 @@ def demo_sales(n: int = 360, seed: int = 7) -> pd.DataFrame:
     )
     price = np.round(np.exp(log_price) / 500) * 500
     frame = pd.DataFrame({
-        "Sale ID": [f"Q-{2400 + i:04d}" for i in range(n)],
+        "Sale ID": _ordinary_ids(n),
         "Sale price": price, "Living area": living, "Lot size": lot, "Age": age,
         "Bedrooms": bedrooms, "Bathrooms": bathrooms, "Condition": condition,
         "Neighbourhood": hood, "Sale date": date, "Notes": "", "Address": _addresses(hood),

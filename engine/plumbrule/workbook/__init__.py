@@ -11,6 +11,8 @@ comparison.py the Comparison sheet and the Report's candidate-models section
 stamp.py     the audit stamp (:class:`~plumbrule.workbook.stamp.Stamp`)
 cells.py     writing values safely (text stays text) and number formats
 sheets.py    the Model, Screening, Validation and Valuation sheets
+save.py      save the result book: openpyxl's package, the cell rows written in one pass (the
+             same bytes)
 graft.py     put the result sheets into the user's package (every other part byte for byte)
 fill.py      fill a copy of the template (demo, tests, benchmark)
 run.py       ``plumbrule run``: read → analyze → valuate → write → graft → atomic replace

@@ -87,8 +87,28 @@ def put(ws, row: int, col: int, value: Any, number_format: str | None = None,
     elif isinstance(v, _dt.date):
         cell.number_format = DATE
     if style is not None:
-        cell.style = style
+        _named_style(cell, style)
     return cell
+
+
+_NAMED: Any = None       # book → {named style: the style array a cell takes from it}
+
+
+def _named_style(cell, name: str) -> None:
+    """``cell.style = name``: openpyxl looks the name up and copies the named style's array
+    on every call; the array is the same each time in one book, so it is kept."""
+    global _NAMED
+    from copy import copy
+    if _NAMED is None:
+        import weakref
+        _NAMED = weakref.WeakKeyDictionary()
+    known = _NAMED.setdefault(cell.parent.parent, {})
+    array = known.get(name)
+    if array is None:
+        cell.style = name
+        known[name] = copy(cell._style)
+    else:
+        cell._style = copy(array)
 
 
 def put_formula(ws, row: int, col: int, formula: str, number_format: str | None = None):
@@ -128,6 +148,11 @@ def write_frame(ws, frame, top: int, left: int = 1, formats: Formats | None = No
     return r + len(body)
 
 
+def write_values(ws, values: list, top: int, col: int, number_format: str | None = None) -> None:
+    """``put(ws, top + i, col, v, number_format)`` for each value, the cells built directly."""
+    _write_column(ws, values, top, col, number_format, _StyleCache(ws), blanks=True)
+
+
 class _StyleCache:
     """One openpyxl style array per number format (what ``cell.number_format = f`` makes)."""
 
@@ -145,7 +170,10 @@ class _StyleCache:
         return self.arrays[fmt]
 
 
-def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache) -> None:
+def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache,
+                  blanks: bool = False) -> None:
+    """The cells of one column from ``top`` down; a blank is skipped, or with ``blanks``
+    written as put writes it (an empty cell)."""
     from copy import copy
     from openpyxl.cell.cell import Cell
     cells = ws._cells
@@ -153,6 +181,8 @@ def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache
     for i, v in enumerate(values):
         v = plain(v)
         if v is None:
+            if blanks:
+                put(ws, top + i, col, None, fixed)
             continue
         if isinstance(v, str):
             kind, v = "s", clean_text(v)[:32767]
@@ -164,6 +194,8 @@ def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache
             put(ws, top + i, col, v, fixed if not callable(fmt) else None)
             continue
         else:
+            if isinstance(v, (list, tuple, set)):
+                v = ", ".join(map(str, v))
             kind, v = "s", clean_text(str(v))[:32767]
         f = fmt(v) if callable(fmt) else fixed
         cell = Cell(ws, row=top + i, column=col)
@@ -171,6 +203,64 @@ def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache
         cell.data_type = kind
         cell._style = copy(styles.get(f if kind in "nb" or not callable(fmt) else None))
         cells[(top + i, col)] = cell
+
+
+_BORDERS: Any = None      # book → {(border id, first cell's border id, side): border id}
+
+
+def merge(ws, start_row: int, start_column: int, end_row: int, end_column: int) -> None:
+    """``ws.merge_cells(...)`` with the same result, faster. openpyxl gives each covered
+    cell the first cell's protection and each edge cell the first cell's border sides by
+    building and hashing a style object per cell (milliseconds a merge); the ids those end
+    with depend only on the ids the cells had, so they are looked up once per book."""
+    global _BORDERS
+    import weakref
+    from openpyxl.cell.cell import MergedCell
+    from openpyxl.styles.borders import Border
+    from openpyxl.styles.cell_style import StyleArray
+    from openpyxl.utils import get_column_letter
+    from openpyxl.worksheet.merge import MergedCellRange
+    if _BORDERS is None:
+        _BORDERS = weakref.WeakKeyDictionary()
+    book = ws.parent
+    known = _BORDERS.setdefault(book, {})
+    borders = book._borders
+    cells = ws._cells
+    coord = (f"{get_column_letter(start_column)}{start_row}:"
+             f"{get_column_letter(end_column)}{end_row}")
+    mcr = MergedCellRange(ws, coord)   # openpyxl's own: the last cell's border onto the first
+    ws.merged_cells.add(mcr)
+    start = mcr.start_cell
+    for r in range(start_row, end_row + 1):
+        for c in range(start_column, end_column + 1):
+            if (r, c) != (start_row, start_column):
+                cells[(r, c)] = MergedCell(ws, row=r, column=c)
+    for name in ("top", "left", "right", "bottom"):     # MergedCellRange.format
+        first = start._style.borderId if start._style is not None else 0
+        side = getattr(borders[first], name)
+        if side and side.style is None:
+            continue
+        border = None
+        for key in getattr(mcr, name):
+            cell = cells[key]
+            if cell._style is None:
+                cell._style = StyleArray()
+            bid = cell._style.borderId
+            new = known.get((bid, first, name))
+            if new is None:
+                if border is None:
+                    border = Border(**{name: side})
+                new = known[(bid, first, name)] = borders.add(borders[bid] + border)
+            cell._style.borderId = new
+    if start._style is None:
+        start._style = StyleArray()
+    protection = start._style.protectionId     # every covered cell takes the first's
+    for r in range(start_row, end_row + 1):
+        for c in range(start_column, end_column + 1):
+            cell = cells[(r, c)]
+            if cell._style is None:
+                cell._style = StyleArray()
+            cell._style.protectionId = protection
 
 
 def write_pairs(ws, pairs: Sequence[tuple[str, Any]], top: int, left: int = 1,
@@ -252,16 +342,49 @@ def text_lines(text: str, width: float) -> int:
     return sum(max(1, math.ceil(len(part) / per_line)) for part in str(text).split("\n"))
 
 
-def _font_scale(cell) -> float:
-    """How much wider than 11-point regular text the cell's characters are."""
-    font = cell.font
-    size = float(font.sz) if font is not None and font.sz else 11.0
-    return max(1.0, size / 11.0) * (1.1 if font is not None and font.b else 1.0)
+class _Looks:
+    """A sheet's fonts and alignments read by style id, and alignments set by id: the cell
+    properties (``cell.font``, ``cell.alignment = Alignment(...)``) build and hash a style
+    object on every use; the ids they end with are the same."""
 
+    def __init__(self, book):
+        self.book = book
+        self.scales: dict[int, tuple[float, float]] = {}
+        self.aligns: dict[int, tuple] = {}
+        self.ids: dict[tuple, int] = {}
 
-def _line_height(cell) -> float:
-    size = cell.font.sz if cell.font is not None and cell.font.sz else 11
-    return LINE_HEIGHT * max(1.0, float(size) / 11.0)
+    def font(self, cell) -> tuple[float, float]:
+        """(how much wider than 11-point regular text the characters are, the line height)."""
+        fid = cell._style.fontId if cell._style is not None else 0
+        got = self.scales.get(fid)
+        if got is None:
+            font = self.book._fonts[fid]
+            size = float(font.sz) if font is not None and font.sz else 11.0
+            scale = max(1.0, size / 11.0) * (1.1 if font is not None and font.b else 1.0)
+            got = self.scales[fid] = (scale, LINE_HEIGHT * max(1.0, size / 11.0))
+        return got
+
+    def alignment(self, cell) -> tuple:
+        """(horizontal, indent, wrap_text, vertical) of the cell's alignment."""
+        aid = cell._style.alignmentId if cell._style is not None else 0
+        got = self.aligns.get(aid)
+        if got is None:
+            a = self.book._alignments[aid]
+            got = self.aligns[aid] = (a.horizontal, a.indent, a.wrap_text, a.vertical)
+        return got
+
+    def align(self, cell, horizontal, indent, wrap_text, vertical) -> None:
+        """``cell.alignment = Alignment(horizontal=…, indent=…, wrap_text=…, vertical=…)``."""
+        key = (horizontal, indent, wrap_text, vertical)
+        aid = self.ids.get(key)
+        if aid is None:
+            from openpyxl.styles import Alignment
+            aid = self.ids[key] = self.book._alignments.add(Alignment(
+                horizontal=horizontal, indent=indent, wrap_text=wrap_text, vertical=vertical))
+        if cell._style is None:
+            from openpyxl.styles.cell_style import StyleArray
+            cell._style = StyleArray()
+        cell._style.alignmentId = aid
 
 
 def fit_for_print(ws, last_col: int | None = None, landscape: bool | None = None,
@@ -274,10 +397,11 @@ def fit_for_print(ws, last_col: int | None = None, landscape: bool | None = None
     page; ``title_rows`` (e.g. '1:1') repeated on every page; a footer with the sheet name
     and the page number. The printed columns run to ``last_col`` (default: the last column
     a table uses, widened to hold ``min_chars`` characters). Returns ``last_col``."""
-    from openpyxl.styles import Alignment
+    looks = _Looks(ws.parent)
     rows: dict[int, list] = {}
     for (r, _c), cell in ws._cells.items():
-        if cell.value is not None and cell.value != "":
+        v = cell._value
+        if v is not None and v != "":
             rows.setdefault(r, []).append(cell)
     merged = {(r, c) for rng in ws.merged_cells.ranges
               for r in range(rng.min_row, rng.max_row + 1)
@@ -294,28 +418,36 @@ def fit_for_print(ws, last_col: int | None = None, landscape: bool | None = None
         return widths[c]
 
     def spills(cell) -> bool:
-        return isinstance(cell.value, str) and (cell.row, cell.column) not in merged \
-            and len(cell.value) * _font_scale(cell) > width(cell.column) * 0.9
+        return isinstance(cell._value, str) and (cell.row, cell.column) not in merged \
+            and len(cell._value) * looks.font(cell)[0] > width(cell.column) * 0.9
 
     def tail(cs) -> Any:
         """The row's last cell when it is text that may run on to the right: a note alone
         on its row, or the value of a label/value pair."""
+        if len(cs) > 2:
+            return None
         last = max(cs, key=lambda c: c.column)
-        return last if len(cs) <= 2 and spills(last) else None
+        return last if spills(last) else None
 
     if last_col is None:
-        used = [c.column + (0 if c is not tail(cs) else -1) for cs in rows.values()
-                for c in cs]
+        used = []
+        for cs in rows.values():
+            t = tail(cs)
+            used += [c.column + (0 if c is not t else -1) for c in cs]
         used += [rng.max_col for rng in ws.merged_cells.ranges]
         last_col = max(max(used, default=1), 1)
         while sum(width(k) for k in range(1, last_col + 1)) < min_chars:
             last_col += 1
     span = sum(width(k) for k in range(1, last_col + 1))
+    dims = ws.row_dimensions
     for r, cs in rows.items():
-        need = ws.row_dimensions[r].height or 0.0
+        dim = dims.get(r)        # (looking up ws.row_dimensions[r] would add a row entry)
+        height = dim.height if dim is not None else None
+        need = height or 0.0
         run_on = tail(cs)
         for cell in cs:
-            if not isinstance(cell.value, str):
+            text = cell._value
+            if not isinstance(text, str):
                 continue
             key = (cell.row, cell.column)
             if key in merged_width:
@@ -323,25 +455,23 @@ def fit_for_print(ws, last_col: int | None = None, landscape: bool | None = None
             elif key in merged:
                 continue
             elif cell is run_on and cell.column < last_col:
-                ws.merge_cells(start_row=r, start_column=cell.column, end_row=r,
-                               end_column=last_col)
+                merge(ws, r, cell.column, r, last_col)
                 w = span - sum(width(k) for k in range(1, cell.column))
             else:
                 w = width(cell.column)
-            w = w / _font_scale(cell)
-            lines = text_lines(cell.value, w)
-            if len(cell.value) > w * 0.9 or "\n" in cell.value:
-                a = cell.alignment
-                cell.alignment = Alignment(horizontal=a.horizontal, indent=a.indent,
-                                           wrap_text=True, vertical="top")
-            need = max(need, lines * _line_height(cell))
-        if need > (ws.row_dimensions[r].height or LINE_HEIGHT):
-            ws.row_dimensions[r].height = need
+            scale, line = looks.font(cell)
+            w = w / scale
+            lines = text_lines(text, w)
+            if len(text) > w * 0.9 or "\n" in text:
+                horizontal, indent, _, _ = looks.alignment(cell)
+                looks.align(cell, horizontal, indent, True, "top")
+            need = max(need, lines * line)
+        if need > (height or LINE_HEIGHT):
+            dims[r].height = need
             for cell in cs:       # a label beside wrapped text reads from the top with it
-                a = cell.alignment
-                if a.vertical != "top":
-                    cell.alignment = Alignment(horizontal=a.horizontal, indent=a.indent,
-                                               wrap_text=a.wrap_text, vertical="top")
+                horizontal, indent, wrap, vertical = looks.alignment(cell)
+                if vertical != "top":
+                    looks.align(cell, horizontal, indent, wrap, "top")
     from openpyxl.utils import get_column_letter
     if area:
         ws.print_area = f"A1:{get_column_letter(last_col)}{last_row or max(ws.max_row, 1)}"

@@ -21,7 +21,7 @@ from plumbrule.render.wording import (CAUTION, final_fit_text, gap_sentence, gap
                                       in_words, validation_text)
 from plumbrule.verdicts import FAILS, NA, OK, WATCH
 from plumbrule.workbook import cells
-from plumbrule.workbook.cells import MONEY, PERCENT, put, sig3
+from plumbrule.workbook.cells import MONEY, PERCENT, merge, put, sig3
 
 DASH = "—"   # a money figure that is absent
 CAUTIONS = (
@@ -441,7 +441,7 @@ def _checks(ws, ctx, r) -> int:
         put(ws, r, 4, c["p_value"], sig3(c["p_value"]))
         thr = put(ws, r, 5, in_words(c["threshold"]))
         thr.alignment = Alignment(horizontal="left", wrap_text=True, vertical="top", indent=2)
-        ws.merge_cells(start_row=r, start_column=5, end_row=r, end_column=6)
+        merge(ws, r, 5, r, 6)
         _wrapped(ws, r, 7, in_words(c["note"]), span=1,
                  lines_with=(in_words(c["threshold"]), 30))
         r += 1
@@ -684,7 +684,7 @@ def _wrapped(ws, r, col, text, span=1, style=None, lines_with=None):
     c.alignment = Alignment(horizontal="left", wrap_text=True, vertical="top",
                             indent=2 if col > 1 else 0)
     if span > 1:
-        ws.merge_cells(start_row=r, start_column=col, end_row=r, end_column=col + span - 1)
+        merge(ws, r, col, r, col + span - 1)
     width = sum(WIDTHS.get(_letter(k), 10) for k in range(col, col + span))
     lines = _lines(text, width)
     if lines_with:

@@ -20,6 +20,7 @@ import os
 import re
 import secrets
 import shutil
+from contextlib import contextmanager
 from stat import S_IMODE, S_IWGRP, S_IWOTH, S_IWUSR
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -62,6 +63,27 @@ def run_book(path: str | Path, backup: bool | None = None,
     ``backup`` overrides the workbook's ``backup`` setting; ``now`` fixes the stamp time.
     Raises :class:`WorkbookError` (or another PlumbError) with nothing written.
     """
+    with _no_cycle_collection():
+        return _run_book(path, backup, now)
+
+
+@contextmanager
+def _no_cycle_collection():
+    """The cyclic garbage collector paused for one run: reading the sheets and writing the
+    result sheets create hundreds of thousands of long-lived objects (cell values, cells),
+    and each collection walks every one of them again, a fifth or more of the writing time.
+    The run leaves little cyclic garbage; collection resumes as it was when it ends."""
+    import gc
+    was = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was:
+            gc.enable()
+
+
+def _run_book(path, backup, now) -> RunResult:
     from plumbrule.workbook.read import read_inputs
     from plumbrule.workbook.safety import check_is_file, check_not_open, inspect_book
     path = Path(path)
@@ -89,7 +111,8 @@ def run_book(path: str | Path, backup: bool | None = None,
     else:
         target = path.with_name(path.stem + ".results.xlsx")
         check_not_open(target)
-        bak = write_atomic(_real_file(target), book.save, keep_bak)
+        from plumbrule.workbook.save import save_book
+        bak = write_atomic(_real_file(target), lambda tmp: save_book(book, tmp), keep_bak)
     return RunResult(written=target, in_place=in_place, unsupported=parts.unsupported,
                      backup=bak, headline=jsonable(headline(analysis, valuation)),
                      analysis=analysis, valuation=valuation, comparison=comparison,
@@ -160,10 +183,10 @@ def _still_the_same(path: Path, seen: tuple[int, int]) -> None:
 
 
 def _to_bytes(book) -> bytes:
-    import io
-    buf = io.BytesIO()
-    book.save(buf)
-    return buf.getvalue()
+    """The result book as a package in memory, its parts stored (the graft reads them back
+    and deflates what it keeps once, into the user's file)."""
+    from plumbrule.workbook.save import to_bytes
+    return to_bytes(book, compress=False)
 
 
 def _check_names(parts) -> None:

@@ -21,6 +21,7 @@ from plumbrule.workbook.cells import (
     RATIO,
     define_name,
     fit_for_print,
+    merge,
     note,
     put,
     sig3,
@@ -240,14 +241,14 @@ def _effects(ws, r: int, analysis) -> int:
                     "an effect this large would be by chance if the feature had none.")
     for j, head in enumerate(("Term", "Effect on the price", "", "", "p-value"), start=1):
         put(ws, r, j, head, style="plumb_header")
-    ws.merge_cells(start_row=r, start_column=2, end_row=r, end_column=4)
+    merge(ws, r, 2, r, 4)
     r += 1
     for term, phrase, p in zip(coefs["term"], words, coefs["p_value"], strict=True):
         if not phrase:
             continue
         put(ws, r, 1, term, style="plumb_label")
         put(ws, r, 2, phrase)
-        ws.merge_cells(start_row=r, start_column=2, end_row=r, end_column=4)
+        merge(ws, r, 2, r, 4)
         put(ws, r, 5, p, sig3(p))
         r += 1
     return r + 1
@@ -341,7 +342,7 @@ def _checks_by_question(ws, r: int, analysis) -> int:
         v.font = Font(bold=True)
         v.alignment = Alignment(horizontal="center", vertical="top")
         put(ws, r, 3, q.sentence)
-        ws.merge_cells(start_row=r, start_column=3, end_row=r, end_column=LAST_MODEL_COL)
+        merge(ws, r, 3, r, LAST_MODEL_COL)
         r += 1
         for c in checks[checks["question"] == q.question].itertuples(index=False):
             put(ws, r, 1, c.check).alignment = Alignment(indent=1, wrap_text=True,
@@ -351,9 +352,9 @@ def _checks_by_question(ws, r: int, analysis) -> int:
             put(ws, r, 4, c.p_value, sig3(c.p_value))
             put(ws, r, 5, c.threshold).alignment = Alignment(indent=1, wrap_text=True,
                                                              vertical="top")
-            ws.merge_cells(start_row=r, start_column=5, end_row=r, end_column=6)
+            merge(ws, r, 5, r, 6)
             put(ws, r, 7, c.note)
-            ws.merge_cells(start_row=r, start_column=7, end_row=r, end_column=LAST_MODEL_COL)
+            merge(ws, r, 7, r, LAST_MODEL_COL)
             r += 1
     return r + 1
 
@@ -410,8 +411,11 @@ def _covariance(ws, r: int, analysis) -> int:
 
 def _printed_columns(ws, last_row: int) -> int:
     """The last column a table uses above ``last_row`` (notes are wrapped to it)."""
+    names = ws.parent._named_styles.names      # cell.style, read by the cell's style id
+    skip = {i for i, n in enumerate(names) if n in ("plumb_note", "plumb_title")}
     cols = [c for (r, c), cell in ws._cells.items() if r <= last_row
-            and cell.value is not None and cell.style not in ("plumb_note", "plumb_title")]
+            and cell._value is not None
+            and (cell._style.xfId if cell._style is not None else 0) not in skip]
     return max(cols, default=2)
 
 
@@ -611,7 +615,7 @@ def write_grid_table(ws, r: int, wide: pd.DataFrame, comps: list[int] | None = N
             elif not isinstance(v, str) or kind != "sale":
                 c.alignment = Alignment(horizontal="right", vertical="top")
         for col in notes:        # the note over the comparable's two columns
-            ws.merge_cells(start_row=r, start_column=col, end_row=r, end_column=col + 1)
+            merge(ws, r, col, r, col + 1)
         if kind == "notes":
             longest = max([len(str(v)) for v in values if isinstance(v, str)] + [0])
             ws.row_dimensions[r].height = 15 * max(1, -(-longest // 28))

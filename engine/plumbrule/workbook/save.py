@@ -1,0 +1,181 @@
+"""Saving plumbrule's result book: openpyxl's package, each sheet's cell rows written in one pass.
+
+openpyxl serialises every cell through an incremental XML tree (tens of microseconds a cell);
+the result sheets hold a row per sale, so at 100,000 sales that was the largest share of
+``plumbrule run``. :func:`save_book` lets openpyxl write everything but the rows of
+``<sheetData>``, and writes those itself as text: the same bytes openpyxl writes (same
+attributes in the same order, same escaping, the number text of ``safe_string``, style ids
+taken from the book in the same order), checked against openpyxl's own writer in
+tests/workbook/test_save.py. A sheet holding a cell this writer does not produce (a comment,
+a hyperlink, rich text, an array or data-table formula, ISO dates) is left to openpyxl whole.
+"""
+
+from __future__ import annotations
+
+from collections import defaultdict
+from typing import Any
+from xml.etree.ElementTree import _escape_attrib, _escape_cdata  # type: ignore[attr-defined]
+
+_PLACEHOLDER = b"<sheetData />"
+_UNSTYLED = (0,) * 9                 # a cell's style array with nothing set
+_INFINITE = (float("inf"), float("-inf"))
+
+
+def save_book(book, target, compress: bool = True) -> None:
+    """Write ``book`` (an openpyxl Workbook) to ``target`` (a path or a binary file object)
+    as openpyxl's ``save`` does; ``compress`` False stores the parts uncompressed (a package
+    only read back in this process, by the graft, need not be deflated twice)."""
+    import datetime as _dt
+    from zipfile import ZIP_DEFLATED, ZIP_STORED, ZipFile
+    archive = ZipFile(target, "w", ZIP_DEFLATED if compress else ZIP_STORED, allowZip64=True)
+    book.properties.modified = _dt.datetime.now(tz=_dt.timezone.utc).replace(tzinfo=None)
+    _writer_class()(book, archive).save()
+
+
+def to_bytes(book, compress: bool = True) -> bytes:
+    """``book`` saved (see :func:`save_book`) into memory."""
+    import io
+    buf = io.BytesIO()
+    save_book(book, buf, compress)
+    return buf.getvalue()
+
+
+_CLASS: Any = None
+
+
+def _writer_class():
+    """openpyxl's ExcelWriter whose worksheets' rows go through :func:`sheet_rows` (built on
+    first use: openpyxl is imported only when a book is written)."""
+    global _CLASS
+    if _CLASS is not None:
+        return _CLASS
+    from openpyxl.drawing.spreadsheet_drawing import SpreadsheetDrawing
+    from openpyxl.worksheet._writer import WorksheetWriter
+    from openpyxl.writer.excel import ExcelWriter
+    from openpyxl.xml.functions import Element
+
+    class _SheetWriter(WorksheetWriter):
+        fast_rows: str | None = None
+
+        def write_rows(self):
+            self.fast_rows = sheet_rows(self.ws)
+            if self.fast_rows is None:
+                super().write_rows()
+            else:                   # a placeholder, replaced by the rows once written
+                self.xf.send(Element("sheetData"))
+
+    class _BookWriter(ExcelWriter):
+        def write_worksheet(self, ws):   # ExcelWriter.write_worksheet with _SheetWriter
+            ws._drawing = SpreadsheetDrawing()
+            ws._drawing.charts = ws._charts
+            ws._drawing.images = ws._images
+            writer = _SheetWriter(ws)
+            writer.write()
+            if writer.fast_rows is not None:
+                with open(writer.out, "rb") as f:
+                    data = f.read()
+                at = data.index(_PLACEHOLDER)
+                with open(writer.out, "wb") as f:
+                    f.write(data[:at])
+                    f.write(writer.fast_rows.encode("utf-8"))
+                    f.write(data[at + len(_PLACEHOLDER):])
+            ws._rels = writer._rels
+            self._archive.write(writer.out, ws.path[1:])
+            self.manifest.append(ws)
+            writer.cleanup()
+
+    _CLASS = _BookWriter
+    return _CLASS
+
+
+def sheet_rows(ws) -> str | None:
+    """The ``<sheetData>`` element of worksheet ``ws`` as openpyxl writes it, or None when a
+    cell needs openpyxl's own writer (comments, hyperlinks, rich text, array formulas, ISO
+    dates)."""
+    from openpyxl.compat import safe_string
+    from openpyxl.utils import get_column_letter
+    book = ws.parent
+    if book.iso_dates:
+        return None
+    styles = book._cell_styles
+    ids: dict[tuple, int] = {}          # a style's id by its values (as the book's list keys it)
+    rows: dict[int, list] = defaultdict(list)
+    for key in sorted(ws._cells):
+        rows[key[0]].append(ws._cells[key])
+    dims = ws.row_dimensions
+    for r in dims.keys() - rows.keys():     # empty rows that carry a height or a style
+        rows[r] = []
+    letters: dict[int, str] = {}
+    out = ["<sheetData>"]
+    add = out.append
+    for r, cells in sorted(rows.items()):
+        attrs = {"r": f"{r}"}
+        attrs.update(dims.get(r, {}))
+        add("<row" + "".join(f' {k}="{_escape_attrib(v)}"' for k, v in attrs.items()) + ">")
+        rtext = str(r)
+        for cell in cells:
+            if cell._comment is not None or cell.hyperlink:
+                return None
+            value = cell._value
+            style = cell._style
+            key = _UNSTYLED if style is None else tuple(style)
+            styled = key != _UNSTYLED           # openpyxl: any(style)
+            if value is None and not styled:
+                continue
+            col = cell.column
+            letter = letters.get(col)
+            if letter is None:
+                letter = letters[col] = get_column_letter(col)
+            head = f'<c r="{letter}{rtext}"'
+            if styled:
+                sid = ids.get(key)
+                if sid is None:
+                    sid = ids[key] = styles.add(style)
+                head += f' s="{sid}"'
+            kind = cell.data_type
+            if kind == "n" and (type(value) is float or type(value) is int):
+                # safe_string's text for a number: %.16g, nothing for NaN and infinities
+                if value != value or value in _INFINITE:
+                    add(f'{head} t="n"><v /></c>')
+                else:
+                    add(f'{head} t="n"><v>{"%.16g" % value}</v></c>')
+                continue
+            if kind == "s":
+                if value is None or value == "":
+                    add(head + ' t="inlineStr" />')
+                elif type(value) is not str:
+                    return None         # rich text
+                else:
+                    stripped = value.strip()
+                    space = ' xml:space="preserve"' if stripped and value != stripped else ""
+                    add(f'{head} t="inlineStr"><is><t{space}>{_escape_cdata(value)}</t></is></c>')
+                continue
+            if kind == "f":
+                if value is None or value == "":
+                    add(head + " />")
+                elif type(value) is not str:
+                    return None         # an array or data-table formula
+                else:
+                    add(f"{head}><f>{_escape_cdata(value[1:])}</f><v /></c>")
+                continue
+            if kind == "d":
+                value = _excel_date(value, book.epoch)
+                kind = "n"
+            head += f' t="{_escape_attrib(kind)}"'
+            if value is None or value == "":
+                add(head + " />")
+                continue
+            text = safe_string(value)
+            add(f"{head}><v>{_escape_cdata(text)}</v></c>" if text else f"{head}><v /></c>")
+        add("</row>")
+    add("</sheetData>")
+    return "".join(out)
+
+
+def _excel_date(value, epoch):
+    """A date cell's serial number, as openpyxl's cell writer computes it."""
+    from openpyxl.utils.datetime import to_excel
+    if hasattr(value, "tzinfo") and value.tzinfo is not None:
+        raise TypeError("Excel does not support timezones in datetimes. "
+                        "The tzinfo in the datetime/time object must be set to None.")
+    return to_excel(value, epoch)
