@@ -282,12 +282,13 @@ class SheetCache:
         norm = as_rows(rows)
         if norm is not rows:                 # tuples or a flat list: key the normal form
             rows, fp = norm, fingerprint(norm, key)
-        # The signature is written before the copy below holds every cell a second time
-        # (marshal marks a cell held twice), as the next look-up will write it. A block
-        # with a cell other than PLAIN (a date) has none: its hits compare cells.
-        columns = columns_of(rows) if rows and set(map(type, rows)) == {list} else None
-        sig = (block_signature(rows) if columns is not None
-               and all(set(map(type, c)) <= PLAIN for c in columns) else None)
+        # The signature is written before the columns and the copy below hold every cell a
+        # second time (marshal marks a cell held twice), as the next look-up will write
+        # it. A block with a cell other than PLAIN (a date) has none: its hits compare cells.
+        sig = block_signature(rows) if rows and set(map(type, rows)) == {list} else None
+        columns = columns_of(rows) if rows else None
+        if columns is None or not all(set(map(type, c)) <= PLAIN for c in columns):
+            sig = None
         stored = list(map(list, rows))       # our own copy: the caller may change its list
         try:
             value, error = compute(stored), None
