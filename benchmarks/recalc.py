@@ -12,11 +12,11 @@ Two sheets are measured: the direct one, where every cell takes the sales range 
 incoming cells, or cell by cell with the stored copy when the block holds dates, which
 marshal cannot write), and the handle one, where one PLUMB_MODEL cell takes the range and
 the 30 cells take its handle. --no-dates drops the sale-date column (and the time trend)
-so that every hit of the direct sheet is confirmed by the signature. Each repeat times one full analysis and
-then the recalculations, so each ratio is a pair measured back to back; the verdicts use
-the median of the paired ratios (a minimum swings with the machine's load). Targets:
-first recalculation <= 1.5 x the analysis, unchanged data <= 0.25 x. Invented Quillford
-data (demo_data).
+so that every hit of the direct sheet is confirmed by the signature. Each repeat times one
+full analysis and then the recalculations, so each ratio is a pair measured back to back;
+the verdicts use the median of the paired ratios (a minimum swings with the machine's
+load). Targets: first recalculation <= 1.5 x the analysis, unchanged data <= 0.25 x.
+Invented Quillford data (demo_data).
 """
 
 from __future__ import annotations

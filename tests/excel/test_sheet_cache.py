@@ -246,3 +246,22 @@ def test_one_changed_price_in_an_undated_block_is_a_new_fit(own_cache):
     assert sf.CACHE.stats().misses == 2
     ref = analyze(fresh(changed), dict(DEMO_SETTINGS, date_column=None))
     assert out == expected_cells(ref.tables.coefficients)
+
+
+def test_a_valuation_is_rendered_once_and_handed_out_as_copies(own_cache):
+    """PLUMB_VALUE's cells are the engine's estimates (valuate on the same fit), each
+    call its own rows: a caller changing them changes no later call."""
+    from plumbrule.demo.town import demo_subjects
+    from plumbrule.valuation.estimates import valuate
+    frame = demo_subjects().drop(columns=["Sale date"])
+    subject = [list(frame.columns)] + [[float(v) if isinstance(v, (int, np.integer)) else v
+                                        for v in rec] for rec in frame.itertuples(index=False)]
+    cells = undated_cells()
+    first = sf.PLUMB_VALUE(fresh(cells), RESPONSE, PREDICTORS, fresh(subject), UNDATED)
+    first[1][1] = "scribbled"
+    second = sf.PLUMB_VALUE(fresh(cells), RESPONSE, PREDICTORS, fresh(subject), UNDATED)
+    assert second[1][1] != "scribbled"
+    ref = analyze(fresh(cells), dict(DEMO_SETTINGS, date_column=None))
+    expected = expected_cells(valuate(ref, fresh(subject)).estimates)
+    assert second == expected
+    assert sf.CACHE.stats().misses == 1

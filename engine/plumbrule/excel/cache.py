@@ -89,7 +89,7 @@ def columns_of(rows: list[list[Any]]) -> list[tuple] | None:
     """The block's columns (one transpose at C speed), None when it is ragged."""
     if len(set(map(len, rows))) != 1:
         return None
-    return list(zip(*rows))
+    return list(zip(*rows, strict=True))
 
 
 def type_guard(rows: list[list[Any]], loose: frozenset = frozenset(),
