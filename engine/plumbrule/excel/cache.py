@@ -41,8 +41,9 @@ import marshal
 import threading
 from collections import OrderedDict
 from dataclasses import dataclass
+from itertools import chain
 from operator import itemgetter
-from typing import Any, Callable, Hashable, Iterable, Sequence
+from typing import Any, Callable, Hashable, Iterable
 
 DEFAULT_MAX_ENTRIES = 16
 DEFAULT_MAX_BYTES = 512 * 2**20
@@ -91,45 +92,36 @@ def fingerprint(rows: list[list[Any]], extra: Hashable = ()) -> bytes:
     return h.digest()
 
 
-def columns_of(rows: list[list[Any]]) -> list[tuple] | None:
-    """The block's columns (one transpose at C speed), None when it is ragged."""
-    if len(set(map(len, rows))) != 1:
-        return None
-    return list(zip(*rows, strict=True))
-
-
-def type_guard(rows: list[list[Any]], loose: frozenset = frozenset(),
-               columns: list[tuple] | None = None) -> tuple:
+def type_guard(rows: list[list[Any]], loose: frozenset = frozenset()) -> tuple:
     """What :func:`same_cells` must check beyond ``==`` for this block.
 
     ``==`` treats TRUE, 1 and 1.0 alike; intake does not (a category 'TRUE' is
     not '1'). Only cells equal to 0 or 1 can hide such a swap, so the guard
     keeps their positions and types: whole columns when they are common. Columns in
     ``loose`` (indices the result reads as numbers, where TRUE is 1) are left out.
-    ``columns`` is :func:`columns_of` the block, when the caller has it already.
     """
-    if columns is None:
-        columns = columns_of(rows) if rows else []
-    if columns is None:                         # ragged block: keep every row's types
+    width = set(map(len, rows))
+    if len(width) != 1:                         # ragged block: keep every row's types
         return ("rows", [list(map(type, r)) for r in rows])
-    whole, cells = [], []
-    for j, col in enumerate(columns):
+    columns, cells = [], []
+    for j in range(width.pop()):
         if j in loose:
             continue
+        col = list(map(itemgetter(j), rows))
         if set(map(type, col)) <= _NEVER_ZERO_OR_ONE:
             continue                            # text, blanks and dates only
         hits = _zero_one_positions(col)
         if len(hits) * 4 > len(col):
-            whole.append((j, list(map(type, col))))
+            columns.append((j, list(map(type, col))))
         elif hits:
             cells.append((j, hits, [type(col[i]) for i in hits]))
-    return ("columns", (whole, cells))
+    return ("columns", (columns, cells))
 
 
 _NEVER_ZERO_OR_ONE = frozenset({str, type(None), _dt.datetime, _dt.date})
 
 
-def _zero_one_positions(col: Sequence[Any]) -> list[int]:
+def _zero_one_positions(col: list[Any]) -> list[int]:
     """Rows of ``col`` whose cell equals 0 or 1 (a superset is harmless). The first
     cell (the header) is looked at alone so a numeric body stays vectorised."""
     import numpy as np
@@ -228,10 +220,9 @@ def approx_size(obj: Any, _depth: int = 0) -> int:
 class _Entry:
     __slots__ = ("key", "rows", "guard", "value", "error", "nbytes", "sig")
 
-    def __init__(self, key, rows, value, error, nbytes, loose=frozenset(), sig=None,
-                 columns=None):
+    def __init__(self, key, rows, value, error, nbytes, loose=frozenset(), sig=None):
         self.key, self.rows, self.value, self.error = key, rows, value, error
-        self.guard = type_guard(rows, loose, columns)
+        self.guard = type_guard(rows, loose)
         self.sig = sig
         self.nbytes = nbytes + (len(sig) if sig is not None else 0)
 
@@ -288,12 +279,12 @@ class SheetCache:
         norm = as_rows(rows)
         if norm is not rows:                 # tuples or a flat list: key the normal form
             rows, fp = norm, fingerprint(norm, key)
-        # The signature is written before the columns and the copy below hold every cell a
-        # second time (marshal marks a cell held twice), as the next look-up will write
-        # it. A block with a cell other than PLAIN (a date) has none: its hits compare cells.
+        # The signature is written before the copy below holds every cell a second time
+        # (marshal marks a cell held twice), as the next look-up will write it. A block
+        # with a cell other than PLAIN has none (marshal stops at the first date): its
+        # hits compare cells.
         sig = block_signature(rows) if rows and set(map(type, rows)) == {list} else None
-        columns = columns_of(rows) if rows else None
-        if columns is None or not all(set(map(type, c)) <= PLAIN for c in columns):
+        if sig is not None and not set(map(type, chain.from_iterable(rows))) <= PLAIN:
             sig = None
         stored = list(map(list, rows))       # our own copy: the caller may change its list
         try:
@@ -303,7 +294,7 @@ class SheetCache:
         nbytes = approx_size(stored) + (approx_size(value) if value is not None else 256)
         loose = (loose_columns(value, stored) if loose_columns and error is None
                  else frozenset())
-        self._store(fp, _Entry(key, stored, value, error, nbytes, loose, sig, columns))
+        self._store(fp, _Entry(key, stored, value, error, nbytes, loose, sig))
         if error is not None:
             raise error.with_traceback(None)
         return value
