@@ -430,6 +430,24 @@ def analysis_for(sales, response, predictors, settings=None):
 
 def valuation_for(sales, response, predictors, subject, comps, settings):
     """The engine's :class:`~plumbrule.value.Valuation` (cached beside its fit)."""
+    return _valuation(sales, response, predictors, subject, comps, settings)[2]
+
+
+def valuation_cells(name: str, build: Callable, sales, response, predictors, subject,
+                    comps, settings) -> Cells:
+    """The cells of one valuation table (``build(valuation)``), rendered once per
+    valuation: a recalculation's further cells copy rows instead of rendering a frame."""
+    holder, key, valuation = _valuation(sales, response, predictors, subject, comps,
+                                        settings)
+    done = holder.rendered.get((name, key))
+    if done is None:
+        done = holder.rendered[(name, key)] = to_cells(build(valuation))
+    return Cells(list(r) for r in done) if isinstance(done, list) else done
+
+
+def _valuation(sales, response, predictors, subject, comps, settings):
+    """(holder, key, valuation): the valuation these arguments give and its key among
+    the holder's valuations."""
     from plumbrule.valuation.estimates import valuate
     holder, s = fitted(sales, response, predictors, settings)
     comp_rows = comps_arg(comps)
@@ -449,11 +467,14 @@ def valuation_for(sales, response, predictors, subject, comps, settings):
         except PlumbError as exc:
             hit = exc
         if len(holder.valuations) >= _Fitted.MAX_VALUATIONS:
-            holder.valuations.pop(next(iter(holder.valuations)))
+            gone = next(iter(holder.valuations))
+            holder.valuations.pop(gone)
+            for k in [k for k in holder.rendered if type(k) is tuple and k[1] == gone]:
+                holder.rendered.pop(k)
         holder.valuations[key] = hit
     if isinstance(hit, PlumbError):
         raise hit.with_traceback(None)
-    return hit
+    return holder, key, hit
 
 
 def _table(analysis, name: str):
@@ -558,7 +579,8 @@ def ratio_table(analysis):
 def PLUMB_VALUE(sales, response, predictors, subject, settings=None):
     ("Estimated value of each subject on the price scale, with confidence and prediction "
      "intervals and flags. A statistical estimate, not an appraisal.")
-    return valuation_for(sales, response, predictors, subject, None, settings).estimates
+    return valuation_cells("estimates", lambda v: v.estimates, sales, response, predictors,
+                           subject, None, settings)
 
 
 @sheet_function
