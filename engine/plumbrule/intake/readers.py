@@ -84,20 +84,27 @@ def read_csv(path: str | Path, header_row: int | None = None, typed: bool = True
     except OSError as exc:
         raise IntakeError(f"File '{path.name}' cannot be opened ({exc.strerror}). "
                           "Check that it exists and is readable.") from None
+    from plumbrule.intake.typed_csv import read_typed
+    utf8 = raw[3:] if raw[:3] == b"\xef\xbb\xbf" else raw
+    # UTF-8 (the usual case) is parsed from the bytes, which pandas decodes in C: the text
+    # is decoded here only when the careful reader reads the file (a stray NUL, which it
+    # keeps, or a doubled byte-order mark; UTF-16 has NULs)
+    tried = typed and b"\x00" not in raw and not utf8.startswith(b"\xef\xbb\xbf") \
+        and utf8[:4096].decode("utf-8", errors="ignore").strip() != "" \
+        and (utf8.isascii() or _is_utf8(utf8))
+    if tried:
+        end = utf8.find(b"\n")
+        fast = read_typed(utf8, _separator((utf8 if end < 0 else utf8[:end]).decode("utf-8")),
+                          header_row, text_columns)
+        if fast is not None:
+            return fast
     text = _decoded(raw, path.name)
     if not text.strip():
         raise IntakeError(f"File '{path.name}' is empty. Save the sales with a header row.")
     end = text.find("\n")
-    first = text if end < 0 else text[:end]
-    sep = ";" if first.count(";") > first.count(",") else ","
-    if typed and "\x00" not in text:      # a stray NUL: the careful reader keeps it
-        from plumbrule.intake.typed_csv import read_typed
-        # UTF-8 (the usual case) is parsed from the bytes: pandas decodes them in C
-        utf8 = raw[3:] if raw[:3] == b"\xef\xbb\xbf" else raw
-        # (the reader decoded UTF-8 when the bytes are UTF-8 with no NUL: UTF-16 has NULs)
-        data = (utf8 if b"\x00" not in raw and not utf8.startswith(b"\xef\xbb\xbf")
-                and _is_utf8(raw) else text)
-        fast = read_typed(data, sep, header_row, text_columns)
+    sep = _separator(text if end < 0 else text[:end])
+    if typed and not tried and "\x00" not in text:      # a stray NUL: the careful reader
+        fast = read_typed(text, sep, header_row, text_columns)
         if fast is not None:
             return fast
     import io
@@ -112,6 +119,11 @@ def read_csv(path: str | Path, header_row: int | None = None, typed: bool = True
         return _ragged_csv(text, sep, path.name, header_row)
     return table_from_values(frame.to_numpy(dtype=object), header_row=1, sheet=None,
                              header_at=header_row)
+
+
+def _separator(first: str) -> str:
+    """The separator of a CSV file from its first line: ';' when it has more of those."""
+    return ";" if first.count(";") > first.count(",") else ","
 
 
 def _is_utf8(raw: bytes) -> bool:
