@@ -115,6 +115,16 @@ def padded(values: Sequence[Sequence[Any]]) -> np.ndarray:
     if isinstance(values, np.ndarray):
         values = values.tolist()
     values = used_rows(values or [])
+    if values and isinstance(values, list) and isinstance(values[0], list) \
+            and len(values[0]) and set(map(len, values)) == {len(values[0])} \
+            and set(map(type, values)) == {list}:
+        # rows of one width (a sheet's block): numpy copies them in C, not row by row
+        block = np.empty((len(values), len(values[0])), dtype=object)
+        try:
+            block[:] = values
+            return block
+        except (ValueError, TypeError):    # a cell that is itself a list: row by row
+            pass
     rows = [list(r) if isinstance(r, (list, tuple)) else [r] for r in values]
     if not rows or not max(len(r) for r in rows):
         raise IntakeError("The sales block is empty. Select the table including its header row.")
