@@ -89,13 +89,14 @@ def read_csv(path: str | Path, header_row: int | None = None, typed: bool = True
     # UTF-8 (the usual case) is parsed from the bytes, which pandas decodes in C: the text
     # is decoded here only when the careful reader reads the file (a stray NUL, which it
     # keeps, or a doubled byte-order mark; UTF-16 has NULs)
+    ascii = utf8.isascii()
     tried = typed and b"\x00" not in raw and not utf8.startswith(b"\xef\xbb\xbf") \
         and utf8[:4096].decode("utf-8", errors="ignore").strip() != "" \
-        and (utf8.isascii() or _is_utf8(utf8))
+        and (ascii or _is_utf8(utf8))
     if tried:
         end = utf8.find(b"\n")
         fast = read_typed(utf8, _separator((utf8 if end < 0 else utf8[:end]).decode("utf-8")),
-                          header_row, text_columns)
+                          header_row, text_columns, ascii)
         if fast is not None:
             return fast
     text = _decoded(raw, path.name)
@@ -268,7 +269,7 @@ def _first_table_sheet(book, names: list[str]):
     passed over), the first sheet when none is; with (sheet, values) of it when it was
     read (None when it must be read again)."""
     from plumbrule.intake.table import find_header, padded
-    for k, name in enumerate(names):
+    for name in names:
         try:
             loaded = _loaded(book, name)
         except Exception:      # an unreadable sheet is not the sales; the first one says why

@@ -86,11 +86,13 @@ def _low_bytes(data: bytes) -> np.ndarray:
     return np.flatnonzero(np.frombuffer(data, dtype=np.uint8) <= 32)
 
 
-def _no_space_cells(data: bytes | str, sep: str, low: np.ndarray | None = None) -> bool:
+def _no_space_cells(data: bytes | str, sep: str, low: np.ndarray | None = None,
+                    ascii: bool = False) -> bool:
     """True when no field of a UTF-8 file (its bytes) begins with white space, so no
     cell is white space only: no control character but line ends, no space after a
     separator, line end or quote, none of the rarer white space; False when one may (or
-    for decoded text). ``low``: :func:`_low_bytes` of ``data``, when known."""
+    for decoded text). ``low``: :func:`_low_bytes` of ``data``, when known; ``ascii``: the
+    bytes are known to be ASCII."""
     if not isinstance(data, bytes):
         return False
     a = np.frombuffer(data, dtype=np.uint8)
@@ -101,7 +103,7 @@ def _no_space_cells(data: bytes | str, sep: str, low: np.ndarray | None = None) 
         return False           # a tab, a form feed, ...: the careful rule reads them
     if len(space) and (space[0] == 0 or _edges(a[space - 1], sep).any()):
         return False
-    if not data.isascii() and any(s in data for s in _WIDE_SPACE):
+    if not (ascii or data.isascii()) and any(s in data for s in _WIDE_SPACE):
         return False
     if b'"' in data:     # a quoted field of line ends only: '"\n"'
         at = np.flatnonzero(a == 34)
@@ -220,11 +222,11 @@ def _folded(name) -> str:
 
 
 def read_typed(data: bytes | str, sep: str, header_at: int | None,
-               text_columns: Iterable[str] = ()):
+               text_columns: Iterable[str] = (), ascii: bool = False):
     """The SheetTable of a CSV file (its UTF-8 bytes or its text) through the fast path, or
     None when the careful reader must read it (see the module's docstring).
     ``text_columns`` (headers, any case) are read as text at once: the caller reads them
-    as labels, which need the file's text."""
+    as labels, which need the file's text. ``ascii``: the bytes are known to be ASCII."""
     from plumbrule.intake.cells import _blank_mask
     from plumbrule.intake.table import _header_text, _with_header, find_header, padded
     try:
@@ -304,11 +306,11 @@ def read_typed(data: bytes | str, sep: str, header_at: int | None,
     blanks = None
     if len(body):
         text = [j for j in range(width) if cols[j].dtype == object]
-        quick = bool(text) and _no_space_cells(data, sep, low)
+        quick = bool(text) and _no_space_cells(data, sep, low, ascii)
         # a cell NaN in a text column is one a short line leaves out: the last column is
         # then NaN too (so only its NaN rows are looked at in the others)
         last = cols[width - 1]
-        short = np.flatnonzero(np.isnan(last) if last.dtype.kind == "f" else pd.isna(last))
+        short = np.flatnonzero(np.isnan(last) if last.dtype.kind == "f" else last != last)
         blanks = pd.DataFrame({j: _blank_cells(cols[j], quick, _blank_mask, short)
                                for j in range(width)}, copy=False)
     table = _with_header(header, body, h + 1, None, 1, suggest_setting=True,
