@@ -384,17 +384,18 @@ def _xlsx_facts(path, sheet: str, with_errors: bool = True) -> _SheetFacts:
             if target is None:
                 return _SheetFacts()
             part = target.lstrip("/") if target.startswith("/") else "xl/" + target
-            xml = z.read(part)
+            part_bytes = z.read(part)
     except WorkbookError:
         raise
     except Exception:   # the values are still read; only the reason text is less precise
         return _SheetFacts()
     # the marks are searched for in the bytes: the text is decoded only to be scanned
     kinds = [k for k, marks in _FACT_MARKS.items()
-             if (with_errors or k != "error") and any(m.encode() in xml for m in marks)]
+             if (with_errors or k != "error")
+             and any(m.encode() in part_bytes for m in marks)]
     if not kinds:
         return _SheetFacts()
-    xml = xml.decode("utf-8", errors="replace")
+    xml = part_bytes.decode("utf-8", errors="replace")
     pattern = "|".join(_FACT_PARTS[k][0] for k in kinds)
     hits = re.findall(pattern, xml, flags=re.S)         # one scan; a group left out is ''
     if not hits:

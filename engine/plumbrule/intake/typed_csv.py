@@ -322,10 +322,10 @@ def read_typed(data: bytes | str, sep: str, header_at: int | None,
     if not numbers:
         return table
     from dataclasses import replace
-    text = CsvText(data, sep, h + 1, numbers, width,
-                   {names[j]: v for j, v in ints.items() if names[j] in table.frame.columns
-                    and cols[j].dtype.kind == "f"})
-    return replace(table, file_text=text)
+    file_text = CsvText(data, sep, h + 1, numbers, width,
+                        {names[j]: v for j, v in ints.items()
+                         if names[j] in table.frame.columns and cols[j].dtype.kind == "f"})
+    return replace(table, file_text=file_text)
 
 
 def _blank_cells(cells: np.ndarray, no_space_cells: bool, careful,
