@@ -93,6 +93,8 @@ def _same_table(fast, careful):
         pd.testing.assert_series_equal(intake.text_cells(fast, c), careful.frame[c])
         if fast.frame[c].dtype == object:
             pd.testing.assert_series_equal(fast.frame[c], careful.frame[c])
+    # the blank cells the fast path finds from the bytes are the careful rule's
+    pd.testing.assert_frame_equal(intake.blank_cells(fast), intake.blank_cells(careful))
 
 
 def _same_clean(a, b):
@@ -164,3 +166,37 @@ def test_numbers_the_sheet_rules_read_otherwise_stay_text(tmp_path, cell):
     path = tmp_path / "s.csv"
     path.write_text(f"price,area\n250000,{cell}\n260000,130\n")
     assert intake.read_csv(path).frame["area"].dtype == object
+
+
+@pytest.mark.parametrize("odd", [None, "0012", " 12", "12 ", "+5", "-0", "007"])
+def test_a_text_column_of_integers_is_typed_only_when_written_plainly(tmp_path, odd):
+    # An ID column hinted as text whose cells are integers as Python writes them is parsed
+    # as numbers and its text made from them; one cell written otherwise ('0012' is an ID,
+    # not 12) anywhere below the head keeps the file's text, as the careful reader has it.
+    ids = [str(100001 + i) for i in range(120)]
+    if odd is not None:
+        ids[100] = odd
+    text = "id,price,hood\n" + "".join(f"{v},{250000 + i},Old Quay\n"
+                                        for i, v in enumerate(ids))
+    path = tmp_path / "s.csv"
+    path.write_text(text)
+    fast = intake.read_csv(path, text_columns=["id", "hood"])
+    careful = intake.read_csv(path, typed=False)
+    _same_table(fast, careful)
+    assert intake.text_cells(fast, "id").tolist() == ids
+    assert (fast.frame["id"].dtype == float) == (odd is None)
+
+
+@pytest.mark.parametrize("cell", ["   ", " Old Quay", "\u00a0", "\t"])
+def test_text_cells_of_white_space_are_blank_on_both_paths(tmp_path, cell):
+    # A cell of spaces only is blank (the careful rule: text of only spaces); a cell that
+    # begins with a space is not. The fast path reads both from the bytes or, when a field
+    # may begin with white space, by the careful rule.
+    path = tmp_path / "s.csv"
+    path.write_text(f"price,hood\n250000,Millbank\n260000,{cell}\n270000,\n",
+                    encoding="utf-8")
+    fast = intake.read_csv(path, text_columns=["hood"])
+    careful = intake.read_csv(path, typed=False)
+    _same_table(fast, careful)
+    blank = intake.blank_cells(fast)["hood"].tolist()
+    assert blank == [False, cell != " Old Quay", True]

@@ -84,20 +84,28 @@ def read_csv(path: str | Path, header_row: int | None = None, typed: bool = True
     except OSError as exc:
         raise IntakeError(f"File '{path.name}' cannot be opened ({exc.strerror}). "
                           "Check that it exists and is readable.") from None
+    from plumbrule.intake.typed_csv import read_typed
+    utf8 = raw[3:] if raw[:3] == b"\xef\xbb\xbf" else raw
+    # UTF-8 (the usual case) is parsed from the bytes, which pandas decodes in C: the text
+    # is decoded here only when the careful reader reads the file (a stray NUL, which it
+    # keeps, or a doubled byte-order mark; UTF-16 has NULs)
+    ascii = utf8.isascii()
+    tried = typed and b"\x00" not in raw and not utf8.startswith(b"\xef\xbb\xbf") \
+        and utf8[:4096].decode("utf-8", errors="ignore").strip() != "" \
+        and (ascii or _is_utf8(utf8))
+    if tried:
+        end = utf8.find(b"\n")
+        fast = read_typed(utf8, _separator((utf8 if end < 0 else utf8[:end]).decode("utf-8")),
+                          header_row, text_columns, ascii)
+        if fast is not None:
+            return fast
     text = _decoded(raw, path.name)
     if not text.strip():
         raise IntakeError(f"File '{path.name}' is empty. Save the sales with a header row.")
     end = text.find("\n")
-    first = text if end < 0 else text[:end]
-    sep = ";" if first.count(";") > first.count(",") else ","
-    if typed and "\x00" not in text:      # a stray NUL: the careful reader keeps it
-        from plumbrule.intake.typed_csv import read_typed
-        # UTF-8 (the usual case) is parsed from the bytes: pandas decodes them in C
-        utf8 = raw[3:] if raw[:3] == b"\xef\xbb\xbf" else raw
-        # (the reader decoded UTF-8 when the bytes are UTF-8 with no NUL: UTF-16 has NULs)
-        data = (utf8 if b"\x00" not in raw and not utf8.startswith(b"\xef\xbb\xbf")
-                and _is_utf8(raw) else text)
-        fast = read_typed(data, sep, header_row, text_columns)
+    sep = _separator(text if end < 0 else text[:end])
+    if typed and not tried and "\x00" not in text:      # a stray NUL: the careful reader
+        fast = read_typed(text, sep, header_row, text_columns)
         if fast is not None:
             return fast
     import io
@@ -112,6 +120,11 @@ def read_csv(path: str | Path, header_row: int | None = None, typed: bool = True
         return _ragged_csv(text, sep, path.name, header_row)
     return table_from_values(frame.to_numpy(dtype=object), header_row=1, sheet=None,
                              header_at=header_row)
+
+
+def _separator(first: str) -> str:
+    """The separator of a CSV file from its first line: ';' when it has more of those."""
+    return ";" if first.count(";") > first.count(",") else ","
 
 
 def _is_utf8(raw: bytes) -> bool:
@@ -213,8 +226,9 @@ def read_sheet(path: str | Path, sheet: str | None = None,
                           "Open it in the spreadsheet and save it again as .xlsx.") from None
     if not names:
         raise IntakeError(f"Workbook '{Path(path).name}' has no worksheets.")
+    loaded = None
     if sheet is None:
-        sheet = _first_table_sheet(book, names)
+        sheet, loaded = _first_table_sheet(book, names)
     elif sheet not in names:
         folded = [n for n in names if n.casefold() == str(sheet).strip().casefold()]
         if len(folded) != 1:
@@ -222,8 +236,8 @@ def read_sheet(path: str | Path, sheet: str | None = None,
                               f"{quote_list(names)}.", sheet=sheet)
         sheet = folded[0]
     try:
-        ws = book.get_sheet_by_name(sheet)
-        values = ws.to_python(skip_empty_area=True)
+        # the sheet read once: the search for the first table sheet hands it over
+        ws, values = loaded or _loaded(book, sheet)
         start = ws.start or (0, 0)
     except Exception as exc:
         detail = " ".join(str(exc).split())[:200]
@@ -235,32 +249,39 @@ def read_sheet(path: str | Path, sheet: str | None = None,
                           "there with a header row, or name another sheet.", sheet=sheet)
     facts = _SheetFacts()
     if Path(path).suffix.lower() in (".xlsx", ".xlsm"):
-        # calamine hands an error cell over as a blank: with no blank cell in the block there
-        # is no error text to put back, and the XML is searched for the rest only
-        blanks = any(None in row or "" in row for row in values)
-        facts = _xlsx_facts(path, sheet, with_errors=blanks)
+        # calamine hands an error cell over as a blank; the XML says where (a sheet with
+        # no error cell has no t="e" in it, and is not scanned for them)
+        facts = _xlsx_facts(path, sheet)
         _restore_error_cells(values, facts.errors, start)
     table = table_from_values(values, header_row=start[0] + 1, sheet=sheet,
                               first_column=start[1] + 1, header_at=header_row)
     return _with_facts(table, values, start, facts)
 
 
-def _first_table_sheet(book, names: list[str]) -> str:
+def _loaded(book, name: str):
+    """(sheet, its values) of one sheet of a calamine workbook."""
+    ws = book.get_sheet_by_name(name)
+    return ws, ws.to_python(skip_empty_area=True)
+
+
+def _first_table_sheet(book, names: list[str]):
     """The first sheet whose header row is words (a cover or notes sheet before the sales is
-    passed over); the first sheet when none is."""
+    passed over), the first sheet when none is; with (sheet, values) of it when it was
+    read (None when it must be read again)."""
     from plumbrule.intake.table import find_header, padded
     for name in names:
         try:
-            values = book.get_sheet_by_name(name).to_python(skip_empty_area=True)
+            loaded = _loaded(book, name)
         except Exception:      # an unreadable sheet is not the sales; the first one says why
             continue
+        values = loaded[1]
         if not values or len(values) < 2:
             continue
         block = padded(values[:60])
         row = [v for v in block[find_header(block)] if v is not None and v != ""]
         if len(row) >= 2 and all(isinstance(v, str) for v in row):
-            return name
-    return names[0]
+            return name, loaded
+    return names[0], None
 
 
 def hidden_rows_log(table: SheetTable) -> pd.DataFrame:
@@ -363,15 +384,18 @@ def _xlsx_facts(path, sheet: str, with_errors: bool = True) -> _SheetFacts:
             if target is None:
                 return _SheetFacts()
             part = target.lstrip("/") if target.startswith("/") else "xl/" + target
-            xml = z.read(part).decode("utf-8", errors="replace")
+            part_bytes = z.read(part)
     except WorkbookError:
         raise
     except Exception:   # the values are still read; only the reason text is less precise
         return _SheetFacts()
+    # the marks are searched for in the bytes: the text is decoded only to be scanned
     kinds = [k for k, marks in _FACT_MARKS.items()
-             if (with_errors or k != "error") and any(m in xml for m in marks)]
+             if (with_errors or k != "error")
+             and any(m.encode() in part_bytes for m in marks)]
     if not kinds:
         return _SheetFacts()
+    xml = part_bytes.decode("utf-8", errors="replace")
     pattern = "|".join(_FACT_PARTS[k][0] for k in kinds)
     hits = re.findall(pattern, xml, flags=re.S)         # one scan; a group left out is ''
     if not hits:

@@ -115,6 +115,16 @@ def padded(values: Sequence[Sequence[Any]]) -> np.ndarray:
     if isinstance(values, np.ndarray):
         values = values.tolist()
     values = used_rows(values or [])
+    if values and isinstance(values, list) and isinstance(values[0], list) \
+            and len(values[0]) and set(map(len, values)) == {len(values[0])} \
+            and set(map(type, values)) == {list}:
+        # rows of one width (a sheet's block): numpy copies them in C, not row by row
+        block = np.empty((len(values), len(values[0])), dtype=object)
+        try:
+            block[:] = values
+            return block
+        except (ValueError, TypeError):    # a cell that is itself a list: row by row
+            pass
     rows = [list(r) if isinstance(r, (list, tuple)) else [r] for r in values]
     if not rows or not max(len(r) for r in rows):
         raise IntakeError("The sales block is empty. Select the table including its header row.")
@@ -204,10 +214,15 @@ def _header_text(h: Any) -> str:
 
 def _with_header(headers: list[Any], body: pd.DataFrame, header_row: int,
                  sheet: str | None, first_column: int = 1,
-                 suggest_setting: bool = False) -> SheetTable:
+                 suggest_setting: bool = False,
+                 blanks: pd.DataFrame | None = None) -> SheetTable:
+    """``blanks``: the blank-cell mask of ``body`` (its columns), when the reader knows it
+    (else it is worked out here)."""
     body.index = pd.RangeIndex(header_row + 1, header_row + 1 + len(body), name="row")
     names = [_header_text(h) for h in headers]
-    blank_cells = _blank_frame(body) if len(body) else None
+    if blanks is not None:
+        blanks.index = body.index
+    blank_cells = (blanks if blanks is not None else _blank_frame(body)) if len(body) else None
     # Columns with no header and no values are just an over-wide selection.
     keep = [j for j, nm in enumerate(names)
             if nm or (blank_cells is not None and not blank_cells[j].all())]

@@ -11,7 +11,16 @@ Any other column — text, TRUE/FALSE, dates, a blank typed as spaces, '1,250', 
 is read again as text, the careful reader's own cells. A typed column keeps its text too,
 read on demand (:func:`plumbrule.intake.table.text_cells`), for the rules that read a column
 as labels (categories, IDs, dates): '0012' is an ID, not 12. A caller that knows which
-columns it reads as labels says so (``text_columns``), and those are kept as text at once.
+columns it reads as labels says so (``text_columns``), and those are kept as text at once —
+except a column of integers each written as Python writes them (no leading zero, sign '+'
+or white space; :func:`_plainly_written` checks the bytes): its text is made from the
+integers when asked for (an ID column of 200,000 numbers costs the C parser more as strings
+than all the other columns together).
+
+The file is parsed once (the head of 60 rows as text, to find the header, aside). The blank
+cells of the text columns are '' and the cells a short line leaves out, unless some field
+of the file may begin with white space (:func:`_no_space_cells`; then the careful blank
+rule reads them).
 
 The careful reader (readers.read_csv) stays the reference: anything this path is not sure of
 (a ragged file, a header beyond the first rows, a parser error) returns None and the careful
@@ -22,6 +31,8 @@ typed results and messages on generated hostile files.
 from __future__ import annotations
 
 import io
+import re
+import warnings
 from dataclasses import dataclass, field
 from typing import Iterable
 
@@ -31,31 +42,132 @@ import pandas as pd
 _HEAD_ROWS = 60       # rows read as text to find the header (find_header looks at 50)
 _EXACT_INT = 2 ** 53  # integers beyond this are not all exact as floats
 _LOWEST = -2e9        # COM error codes (about -2.15e9) are read as errors in number columns
+_INT_TEXT = re.compile(r"-?[1-9][0-9]{0,14}|0")   # an integer as Python writes it
 
 
-def _read(data: bytes | str, sep: str, **kw) -> pd.DataFrame:
-    """pandas' C parser on the file's UTF-8 bytes or its decoded text."""
+def _read(data: bytes | str, sep: str, header: int | None = None, width: int = 0,
+          **kw) -> pd.DataFrame:
+    """pandas' C parser on the file's UTF-8 bytes or its decoded text. ``header``: the record
+    of the header (the body is the records below it; the columns are numbered 0 .. width-1)
+    — a header, not ``skiprows``, which makes the C parser check every record."""
     src = io.BytesIO(data) if isinstance(data, bytes) else io.StringIO(data)
-    return pd.read_csv(src, header=None, sep=sep, keep_default_na=False,
-                       skip_blank_lines=False, encoding="utf-8", **kw)
+    if header is not None:
+        kw.update(header=header, names=range(width), index_col=False)
+    else:
+        kw.update(header=None)
+    with warnings.catch_warnings():
+        # a first body line longer than the header: the careful reader says so
+        warnings.simplefilter("error", pd.errors.ParserWarning)
+        return pd.read_csv(src, sep=sep, keep_default_na=False, skip_blank_lines=False,
+                           encoding="utf-8", **kw)
 
 
-def _cells(data: bytes | str, sep: str, **kw) -> pd.DataFrame:
+def _cells(data: bytes | str, sep: str, header: int | None = None, width: int = 0,
+           **kw) -> pd.DataFrame:
     """The careful reader's cells: every cell its text, '' for an empty cell and NaN for a
     cell a short line leaves out."""
-    return _read(data, sep, dtype=object, na_values=[], **kw)
+    return _read(data, sep, header, width, dtype=object, na_values=[], **kw)
+
+
+# the UTF-8 of the white space str.strip removes beyond ASCII's (a prefix of each): U+0085,
+# U+00A0, U+1680, U+2000-U+200A, U+2028, U+2029, U+202F, U+205F and U+3000
+_WIDE_SPACE = (b"\xc2\x85", b"\xc2\xa0", b"\xe1\x9a\x80", b"\xe2\x80", b"\xe2\x81\x9f",
+               b"\xe3\x80\x80")
+
+
+def _edges(a: np.ndarray, sep: str) -> np.ndarray:
+    """Which bytes end or open a field: the separator, line ends and quotes."""
+    return (a == ord(sep)) | (a == 10) | (a == 13) | (a == 34)
+
+
+def _low_bytes(data: bytes) -> np.ndarray:
+    """Where the bytes of white space and control characters are (one numpy pass): the
+    line ends and spaces, in a sales file."""
+    return np.flatnonzero(np.frombuffer(data, dtype=np.uint8) <= 32)
+
+
+def _no_space_cells(data: bytes | str, sep: str, low: np.ndarray | None = None,
+                    ascii: bool = False) -> bool:
+    """True when no field of a UTF-8 file (its bytes) begins with white space, so no
+    cell is white space only: no control character but line ends, no space after a
+    separator, line end or quote, none of the rarer white space; False when one may (or
+    for decoded text). ``low``: :func:`_low_bytes` of ``data``, when known; ``ascii``: the
+    bytes are known to be ASCII."""
+    if not isinstance(data, bytes):
+        return False
+    a = np.frombuffer(data, dtype=np.uint8)
+    low = _low_bytes(data) if low is None else low
+    kind = a[low]
+    space = low[kind == 32]
+    if ((kind != 10) & (kind != 13) & (kind != 32)).any():
+        return False           # a tab, a form feed, ...: the careful rule reads them
+    if len(space) and (space[0] == 0 or _edges(a[space - 1], sep).any()):
+        return False
+    if not (ascii or data.isascii()) and any(s in data for s in _WIDE_SPACE):
+        return False
+    if b'"' in data:     # a quoted field of line ends only: '"\n"'
+        at = np.flatnonzero(a == 34)
+        nxt = a.take(at + 1, mode="clip")
+        opens = (at == 0) | _edges(a[at - 1], sep)
+        if (opens & ((nxt == 10) | (nxt == 13))).any():
+            return False
+    return True
+
+
+_POWERS = 10 ** np.arange(19, dtype=np.uint64)
+
+
+def _plainly_written(data: bytes | str, sep: str, skip: int, j: int, width: int,
+                     v: np.ndarray, low: np.ndarray | None = None) -> bool:
+    """True when the cells of column ``j`` below the first ``skip`` records of a UTF-8
+    file, which the C parser read as the integers ``v``, are those integers as Python
+    writes them: each field exactly as long as its integer written so ('0012', '+5', '-0'
+    and ' 12' are longer). Found from the bytes (the line starts, the separators) without
+    making a string; False when unsure (quotes, lone carriage returns, decoded text).
+    ``low``: :func:`_low_bytes` of ``data``, when known."""
+    if not isinstance(data, bytes) or b'"' in data or not len(v):
+        return False
+    a = np.frombuffer(data, dtype=np.uint8)
+    low = _low_bytes(data) if low is None else low
+    kind = a[low]
+    cr = low[kind == 13]
+    if len(cr) and ((a.take(cr + 1, mode="clip") != 10).any() or cr[-1] == len(a) - 1):
+        return False            # lone carriage returns end lines too
+    starts = low[kind == 10] + 1
+    if len(starts) and starts[-1] == len(a):
+        starts = starts[:-1]
+    starts = np.concatenate(([0], starts))
+    if len(starts) != skip + len(v):      # a line per record
+        return False
+    starts = starts[skip:]
+    if j:
+        at = np.flatnonzero(a[starts[0]:] == ord(sep)) + starts[0]
+        if len(at) != (width - 1) * len(v):   # a line wider than the rest is refused
+            return False
+        starts = at.reshape(len(v), width - 1)[:, j - 1] + 1
+    size = np.abs(v)
+    if v.min() < -(10 ** 18) or size.max() >= 10 ** 18:
+        return False
+    length = np.maximum(np.searchsorted(_POWERS, size.astype(np.uint64), side="right"), 1)
+    end = starts + length + (v < 0)
+    past = end >= len(a)
+    return bool((past | _edges(a.take(end, mode="clip"), sep)).all())
 
 
 @dataclass(frozen=True)
 class CsvText:
     """The text of a CSV file's columns that the fast path typed as numbers, read on demand
     (``column``: the cells of one column as the careful reader has them, indexed by sheet
-    row)."""
+    row). ``ints``: the columns the C parser read as integers (name → (values, whether
+    they are written as Python writes them, None until asked)): their text is made from
+    the integers when they are."""
 
     data: bytes | str = field(repr=False)
     sep: str = ","
     skip: int = 0                   # records above the body (titles and the header)
     positions: tuple = ()           # (header name, column position in the file)
+    width: int = 0                  # columns of the file
+    ints: dict = field(default_factory=dict, repr=False, compare=False)
     _cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     def has(self, name: str) -> bool:
@@ -64,11 +176,23 @@ class CsvText:
     def column(self, name: str) -> pd.Series:
         if name not in self._cache:
             j = next(p for n, p in self.positions if n == name)
-            raw = _cells(self.data, self.sep, skiprows=self.skip, usecols=[j])
+            v, plain = self.ints.get(name, (None, False))
+            if plain is None:
+                plain = _plainly_written(self.data, self.sep, self.skip, j, self.width, v)
+            if plain:
+                cells = _int_text(v)
+            else:
+                raw = _cells(self.data, self.sep, self.skip - 1, self.width, usecols=[j])
+                cells = raw.iloc[:, 0].to_numpy(dtype=object)
             self._cache[name] = pd.Series(
-                raw.iloc[:, 0].to_numpy(dtype=object), dtype=object,
-                index=pd.RangeIndex(self.skip + 1, self.skip + 1 + len(raw), name="row"))
+                cells, dtype=object, copy=False,
+                index=pd.RangeIndex(self.skip + 1, self.skip + 1 + len(cells), name="row"))
         return self._cache[name]
+
+
+def _int_text(v: np.ndarray) -> np.ndarray:
+    """Integers → their text as Python writes them (an object array)."""
+    return np.fromiter(map(str, v.tolist()), dtype=object, count=len(v))
 
 
 def _plain_number_column(col: pd.Series) -> np.ndarray | None:
@@ -84,10 +208,11 @@ def _plain_number_column(col: pd.Series) -> np.ndarray | None:
         return None
     v = col.to_numpy(dtype=float)
     from plumbrule.intake.cells import MAX_MAGNITUDE, MIN_MAGNITUDE
-    size = np.abs(v[~np.isnan(v)])
-    if size.size and not (np.isfinite(size).all() and size.max() <= MAX_MAGNITUDE
-                          and not ((size < MIN_MAGNITUDE) & (size > 0)).any()
-                          and np.nanmin(v) >= _LOWEST):
+    if not len(v) or np.isnan(v).all():
+        return v
+    # finite, within the sheet's range, no nonzero nearer zero than the range allows
+    if not (np.nanmin(v) >= _LOWEST and np.nanmax(v) <= MAX_MAGNITUDE) or \
+            ((v > -MIN_MAGNITUDE) & (v < MIN_MAGNITUDE) & (v != 0)).any():
         return None
     return v
 
@@ -97,11 +222,12 @@ def _folded(name) -> str:
 
 
 def read_typed(data: bytes | str, sep: str, header_at: int | None,
-               text_columns: Iterable[str] = ()):
+               text_columns: Iterable[str] = (), ascii: bool = False):
     """The SheetTable of a CSV file (its UTF-8 bytes or its text) through the fast path, or
     None when the careful reader must read it (see the module's docstring).
     ``text_columns`` (headers, any case) are read as text at once: the caller reads them
-    as labels, which need the file's text."""
+    as labels, which need the file's text. ``ascii``: the bytes are known to be ASCII."""
+    from plumbrule.intake.cells import _blank_mask
     from plumbrule.intake.table import _header_text, _with_header, find_header, padded
     try:
         head = _cells(data, sep, nrows=_HEAD_ROWS)
@@ -117,40 +243,78 @@ def read_typed(data: bytes | str, sep: str, header_at: int | None,
         if all(v is None or (isinstance(v, str) and v == "") or v != v for v in header):
             return None
         wanted = {_folded(c) for c in text_columns}
-        as_text = [j for j, x in enumerate(header) if _folded(_header_text(x)) in wanted]
-        typed = _read(data, sep, skiprows=h + 1, dtype={j: object for j in as_text},
-                      na_values={j: ([] if j in as_text else [""]) for j in range(width)})
+        as_text = {j for j, x in enumerate(header) if _folded(_header_text(x)) in wanted}
+        # a text column whose first cells are integers as Python writes them is parsed as
+        # numbers, its text theirs when the whole column is written so (_plainly_written)
+        shown = block[h + 1:]
+        maybe_ints = {j for j in as_text if isinstance(data, bytes) and b'"' not in data
+                      and len(shown) and all(isinstance(v, str) and _INT_TEXT.fullmatch(v)
+                                             for v in shown[:, j])}
+        as_text -= maybe_ints
+        typed = _read(data, sep, h, width, dtype={j: object for j in as_text},
+                      na_values={j: ([] if j in as_text or j in maybe_ints else [""])
+                                 for j in range(width)})
     except Exception:      # the careful reader reads it, and says what is wrong
         return None
     if typed.shape[1] != width or len(head) <= h:
         return None
     cols: dict[int, np.ndarray] = {}
+    ints: dict[int, tuple] = {}      # integer columns: (values, written plainly or None)
+    low = None                       # _low_bytes(data), when needed
     again = []
     for j in range(width):
         c = typed.iloc[:, j]
-        v = None if j in as_text else _plain_number_column(c)
+        kind = c.dtype.kind if isinstance(c.dtype, np.dtype) else "O"
+        if j in as_text:
+            cols[j] = c.to_numpy(dtype=object)
+            continue
+        if j in maybe_ints:
+            if low is None and isinstance(data, bytes):
+                low = _low_bytes(data)
+            if kind == "i" and _plainly_written(data, sep, h + 1, j, width, c.to_numpy(), low):
+                v = _plain_number_column(c)
+                # integers the sheet rules read otherwise (error codes): their text
+                cols[j] = _int_text(c.to_numpy()) if v is None else v
+                ints[j] = (c.to_numpy(), True)
+            elif kind == "O":      # text further down: the cells as the file has them
+                cols[j] = c.to_numpy(dtype=object)
+            else:
+                again.append(j)
+            continue
+        v = _plain_number_column(c)
         if v is not None:
             cols[j] = v
+            if kind == "i":
+                ints[j] = (c.to_numpy(), None)
             continue
-        kind = c.dtype.kind if isinstance(c.dtype, np.dtype) else "O"
-        if kind != "b":
+        if kind == "O":
             obj = c.to_numpy(dtype=object)
             # text with no empty cell is the careful reader's cells as they are; an empty
             # cell ('' there, NaN here) or a TRUE/FALSE the parser typed is read again
-            if j in as_text or pd.api.types.infer_dtype(obj, skipna=False) == "string":
+            if pd.api.types.infer_dtype(obj, skipna=False) == "string":
                 cols[j] = obj
                 continue
         again.append(j)
     if again:
-        raw = _cells(data, sep, skiprows=h + 1, usecols=again)
+        raw = _cells(data, sep, h, width, usecols=again)
         if len(raw) != len(typed):
             return None
         for pos, j in enumerate(again):
             cols[j] = raw.iloc[:, pos].to_numpy(dtype=object)
-    # object columns stay object (pandas would make text columns its string dtype)
     body = pd.DataFrame({j: pd.Series(cols[j], dtype=cols[j].dtype, copy=False)
                          for j in range(width)}, copy=False)
-    table = _with_header(header, body, h + 1, None, 1, suggest_setting=True)
+    blanks = None
+    if len(body):
+        text = [j for j in range(width) if cols[j].dtype == object]
+        quick = bool(text) and _no_space_cells(data, sep, low, ascii)
+        # a cell NaN in a text column is one a short line leaves out: the last column is
+        # then NaN too (so only its NaN rows are looked at in the others)
+        last = cols[width - 1]
+        short = np.flatnonzero(np.isnan(last) if last.dtype.kind == "f" else last != last)
+        blanks = pd.DataFrame({j: _blank_cells(cols[j], quick, _blank_mask, short)
+                               for j in range(width)}, copy=False)
+    table = _with_header(header, body, h + 1, None, 1, suggest_setting=True,
+                         blanks=blanks)
     names = [_header_text(x) for x in header]
     numbers = tuple((names[j], j) for j in range(width)
                     if j not in again and cols[j].dtype.kind == "f"
@@ -158,4 +322,22 @@ def read_typed(data: bytes | str, sep: str, header_at: int | None,
     if not numbers:
         return table
     from dataclasses import replace
-    return replace(table, file_text=CsvText(data, sep, h + 1, numbers))
+    file_text = CsvText(data, sep, h + 1, numbers, width,
+                        {names[j]: v for j, v in ints.items()
+                         if names[j] in table.frame.columns and cols[j].dtype.kind == "f"})
+    return replace(table, file_text=file_text)
+
+
+def _blank_cells(cells: np.ndarray, no_space_cells: bool, careful,
+                 short: np.ndarray) -> np.ndarray:
+    """Which cells of a column are blank: NaN for a number column; for text, NaN (a short
+    line; ``short``: the rows where one may be) or '' — or white space only, which
+    ``careful`` (cells._blank_mask) finds when a field of the file may be."""
+    if cells.dtype.kind == "f":
+        return np.isnan(cells)
+    if not no_space_cells:
+        return careful(pd.Series(cells, dtype=object, copy=False)).to_numpy()
+    blank = cells == ""
+    if len(short):
+        blank[short] |= pd.isna(cells[short])
+    return blank
