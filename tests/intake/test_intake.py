@@ -468,3 +468,22 @@ def test_xlsx_error_cells_are_logged_as_error_values(tmp_path):
 
 def test_every_intake_error_is_a_plumb_error():
     assert issubclass(IntakeError, PlumbError) and issubclass(IntakeError, ValueError)
+
+
+def test_dates_centuries_apart_are_refused_naming_both_cells():
+    # Date arithmetic runs in int64 nanoseconds (292 years); a sale-date column spanning
+    # more than half of that holds a typo, and without this the trend terms would wrap
+    # round (found by test_analysis_of_any_block_raises_only_plumb_errors: 1768 and 2066).
+    from plumbrule.intake.dates import to_dates
+    col = pd.Series(["2024-05-01", "1768-02-03", "2066-10-17"], index=[2, 3, 4], dtype=object)
+    with pytest.raises(IntakeError, match=r"^Column 'Sale date': the dates 1768-02-03 \(row 3\) "
+                       r"and 2066-10-17 \(row 4\) are more than 146 years apart"):
+        to_dates(col, "Sale date")
+    # the careful path (a date cell among the texts) says the same
+    mixed = pd.Series([dt.datetime(2024, 5, 1), "1768-02-03", "2066-10-17"], index=[2, 3, 4],
+                      dtype=object)
+    with pytest.raises(IntakeError, match=r"more than 146 years apart"):
+        to_dates(mixed, "Sale date")
+    # a century of sales is read as it is
+    ok, _ = to_dates(pd.Series(["1925-01-01", "2024-12-31"], dtype=object), "Sale date")
+    assert ok.notna().all()

@@ -69,6 +69,7 @@ def to_dates(col: pd.Series, name: str, date_format: str = "auto"
     if plain_text(col):     # ISO or day/month text in every cell: read once, on the uniques
         got, _ = _text_dates(col, name, date_format)
         if got.notna().all():
+            _check_span(got, name)
             return got, pd.Series(np.nan, index=col.index, dtype=object)
     kinds = cell_kinds(col)
     reason, present = _missing_reasons(col, kinds)
@@ -99,7 +100,34 @@ def to_dates(col: pd.Series, name: str, date_format: str = "auto"
                 _refuse(shaped, col, f"is not a date read as {_ORDER_WORDS[order]}. Correct "
                              "the date, or enter it as YYYY-MM-DD.", name)
         _refuse(bad, col, _NOT_A_DATE, name)
+    _check_span(out, name)
     return out, reason
+
+
+# Date arithmetic runs in int64 nanoseconds, which span 292 years; half of that leaves room
+# for a valuation date beyond the sales. No sales file spans it: a wider one holds a typo.
+_SPAN = 2 ** 62
+_SPAN_YEARS = 146
+
+
+def _check_span(values: pd.Series, name: str) -> None:
+    """Refuse a date column whose dates lie more than :data:`_SPAN_YEARS` years apart,
+    naming the earliest and the latest cell."""
+    ns = values.to_numpy(dtype="datetime64[ns]")
+    ok = ~np.isnat(ns)
+    if ok.sum() < 2:
+        return
+    v = ns.view(np.int64)
+    lo = int(np.argmin(np.where(ok, v, np.iinfo(np.int64).max)))
+    hi = int(np.argmax(np.where(ok, v, np.iinfo(np.int64).min)))
+    if int(v[hi]) - int(v[lo]) <= _SPAN:
+        return
+    rows = values.index
+    raise IntakeError(f"Column '{name}': the dates {pd.Timestamp(ns[lo]).date()} (row "
+                      f"{rows[lo]}) and {pd.Timestamp(ns[hi]).date()} (row {rows[hi]}) are "
+                      f"more than {_SPAN_YEARS} years apart, which plumbrule cannot compute "
+                      "with: one of them is mistyped. Correct it, or leave the cell blank.",
+                      column=name, row=int(rows[lo]))
 
 
 def _stripped(cells: pd.Series) -> pd.Series:

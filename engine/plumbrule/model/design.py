@@ -196,9 +196,17 @@ class Encoding:
 def months_since(dates: pd.Series, origin: pd.Timestamp) -> np.ndarray:
     """Months (mean Gregorian month, 30.436875 days) from ``origin`` to each date;
     NaN where a date is missing."""
-    delta = (pd.to_datetime(dates) - origin).to_numpy(dtype="timedelta64[ns]")
-    months = delta.astype(np.int64) / (86400e9 * DAYS_PER_MONTH)
-    return np.where(np.isnat(delta), np.nan, months)
+    ns = pd.to_datetime(dates).to_numpy(dtype="datetime64[ns]")
+    nat = np.isnat(ns)
+    ns, o = ns.view(np.int64), int(pd.Timestamp(origin).value)
+    # exact in int64 nanoseconds while the gap fits (292 years); a wider gap (dates typed
+    # centuries apart) in floats rather than wrapping round
+    fits = (ns >= max(o - 2 ** 63 + 1, -(2 ** 63) + 1)) & (ns <= min(o + 2 ** 63 - 1,
+                                                                      2 ** 63 - 1))
+    with np.errstate(over="ignore"):
+        delta = np.where(fits, (ns - o).astype(float), ns.astype(float) - float(o))
+    months = delta / (86400e9 * DAYS_PER_MONTH)
+    return np.where(nat, np.nan, months)
 
 
 def _find(name: str, columns) -> str | None:
