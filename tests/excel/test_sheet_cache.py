@@ -17,7 +17,6 @@ import math
 import pickle
 
 import numpy as np
-import pandas as pd
 import pytest
 
 from plumbrule.analysis import analyze
@@ -25,6 +24,7 @@ from plumbrule.demo.town import DEMO_SETTINGS, demo_sales
 from plumbrule.excel import cache as cache_mod
 from plumbrule.excel import functions as sf
 from plumbrule.excel.cache import SheetCache, block_signature
+from sheet_cells import expected_cells
 
 
 def plain_block(n: int = 300) -> list[list]:
@@ -195,24 +195,6 @@ def undated_cells() -> list[list]:
                      float(v) if isinstance(v, (int, float, np.integer, np.floating))
                      and not isinstance(v, bool) else v for v in rec])
     return rows
-
-
-def expected_cells(frame: pd.DataFrame) -> list[list]:
-    """An engine table as cells, written out independently of the functions module."""
-    out = [list(frame.columns)]
-    for rec in frame.itertuples(index=False):
-        row = []
-        for v in rec:
-            if isinstance(v, (bool, np.bool_)):
-                row.append(bool(v))
-            elif isinstance(v, (int, float, np.integer, np.floating)):
-                row.append(float(v) if math.isfinite(float(v)) else None)
-            elif v is None or (not isinstance(v, str) and pd.isna(v)):
-                row.append(None)
-            else:
-                row.append(v)
-        out.append(row)
-    return out
 
 
 @pytest.fixture

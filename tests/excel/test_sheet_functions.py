@@ -24,6 +24,7 @@ from plumbrule.demo.town import DEMO_SETTINGS, demo_comps, demo_sales, demo_subj
 from plumbrule.intake import COM_ERROR_CODES
 from plumbrule.excel.cache import SheetCache
 from plumbrule.valuation.estimates import valuate
+from sheet_cells import expected_cells
 
 RESPONSE = DEMO_SETTINGS["response"]
 PREDICTORS = DEMO_SETTINGS["predictors"]
@@ -86,26 +87,6 @@ def fresh_cache(monkeypatch):
 
 def call(fn, cells, *args):
     return fn([list(r) for r in cells], *args)   # each call gets its own copy, as in Excel
-
-
-def expected_cells(frame: pd.DataFrame) -> list[list]:
-    """The engine table as cells, written out independently of sheet_functions."""
-    out = [list(frame.columns)]
-    for rec in frame.itertuples(index=False):
-        row = []
-        for v in rec:
-            if isinstance(v, (bool, np.bool_)):
-                row.append(bool(v))
-            elif isinstance(v, (int, float, np.integer, np.floating)):
-                row.append(float(v) if math.isfinite(float(v)) else None)
-            elif isinstance(v, pd.Timestamp):
-                row.append(None if pd.isna(v) else v.to_pydatetime())
-            elif v is None or (not isinstance(v, str) and pd.isna(v)):
-                row.append(None)
-            else:
-                row.append(v)
-        out.append(row)
-    return out
 
 
 def assert_excel_safe(cells):
