@@ -127,11 +127,6 @@ def curve_gains(model: FittedModel, columns: list[int]) -> list[tuple[float, int
     return out
 
 
-def curve_gain(model: FittedModel, column: int) -> tuple[float, int]:
-    """:func:`curve_gains` of one design column."""
-    return curve_gains(model, [column])[0]
-
-
 def linearity_by_predictor(model: FittedModel) -> list[Check]:
     """One check per straight numeric predictor: the partial F test of adding a 4-knot
     restricted cubic spline's two non-linear terms (Harrell 2015, §2.4.6 and §2.7.2), graded

@@ -54,15 +54,6 @@ def sale_seconds(data: pd.DataFrame, date_column: str, order: np.ndarray) -> np.
     return ns // 1_000_000_000
 
 
-def design_basis(fit, order: np.ndarray) -> np.ndarray:
-    """Orthonormal basis of the design with its constant, rows in ``order``: [1/√n, Q]
-    (Q's columns are centred when there is an intercept, so orthogonal to the constant)."""
-    q = fit.q[order]
-    if not fit.has_intercept:
-        return q
-    return np.column_stack([np.full(fit.n, 1.0 / np.sqrt(fit.n)), q])
-
-
 # --- the two matrices A ----------------------------------------------------------
 
 def difference_matrix(n: int):
@@ -77,7 +68,8 @@ def difference_matrix(n: int):
 
 def durbin_watson_test(e: np.ndarray, basis: np.ndarray) -> RatioTest:
     """Durbin–Watson d = Σ(eₜ − eₜ₋₁)²/Σeₜ² of residuals ``e`` (already in date order) and
-    its null distribution; ``basis`` as from :func:`design_basis` in the same order."""
+    its null distribution; ``basis`` the model's
+    :attr:`~plumbrule.model.fitted.FittedModel.date_order_basis` (the same order)."""
     d = float(np.sum(np.diff(e) ** 2) / np.dot(e, e))
     return ratio_test(d, basis, difference_matrix(len(e)))
 
