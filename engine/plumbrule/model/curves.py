@@ -135,16 +135,41 @@ def _num(v: float) -> str:
 def rcs_terms(x: np.ndarray, knots: np.ndarray) -> np.ndarray:
     """The N − 2 non-linear columns of a restricted cubic spline with ``knots`` (N ≥ 3) at
     ``x``, in Harrell's scaling (units of x); see the module docstring."""
+    x = np.asarray(x, dtype=float)
+    out = np.empty((len(x), len(knots) - 2))
+    rcs_into(x, knots, out)
+    return out
+
+
+def rcs_into(x: np.ndarray, knots: np.ndarray, out: np.ndarray) -> None:
+    """Write :func:`rcs_terms` ``(x, knots)`` into ``out`` (n × N − 2, any layout), bit for
+    bit the same numbers: one n-vector operation at a time, in place, so no n × N
+    temporaries are made (x float, 1-D)."""
     t = np.asarray(knots, dtype=float)
     k = len(t)
-    x = np.asarray(x, dtype=float)[:, None]
-    def cube(v):
-        d = np.maximum(x - v, 0.0)
-        return d * d * d          # products, not a float power: several times faster
-    tj = t[None, : k - 2]
     gap = t[-1] - t[-2]
-    out = (cube(tj) - cube(t[-2]) * (t[-1] - tj) / gap + cube(t[-1]) * (t[-2] - tj) / gap)
-    return out / (t[-1] - t[0]) ** 2
+    d = np.empty_like(x)
+
+    def cube(v, dst):
+        np.subtract(x, v, out=d)
+        np.maximum(d, 0.0, out=d)
+        np.multiply(d, d, out=dst)
+        dst *= d                    # products, not a float power: several times faster
+        return dst
+
+    last, outer = cube(t[-2], np.empty_like(x)), cube(t[-1], np.empty_like(x))
+    e = np.empty_like(x)
+    scale = (t[-1] - t[0]) ** 2
+    for j in range(k - 2):
+        o = out[:, j]
+        cube(t[j], o)
+        np.multiply(last, t[-1] - t[j], out=e)
+        e /= gap
+        o -= e
+        np.multiply(outer, t[-2] - t[j], out=e)
+        e /= gap
+        o += e
+        o /= scale
 
 
 def default_knots(values: np.ndarray, n_knots: int, column: str) -> tuple[float, ...]:
