@@ -144,7 +144,8 @@ def rcs_terms(x: np.ndarray, knots: np.ndarray) -> np.ndarray:
 def rcs_into(x: np.ndarray, knots: np.ndarray, out: np.ndarray) -> None:
     """Write :func:`rcs_terms` ``(x, knots)`` into ``out`` (n × N − 2, any layout), bit for
     bit the same numbers: one n-vector operation at a time, in place, so no n × N
-    temporaries are made (x float, 1-D)."""
+    temporaries are made (x 1-D)."""
+    x = np.asarray(x, dtype=float)
     t = np.asarray(knots, dtype=float)
     k = len(t)
     gap = t[-1] - t[-2]
