@@ -255,16 +255,17 @@ def test_every_linearity_check_matches_statsmodels_including_a_three_valued_pred
         assert k.p_value == pytest.approx(p, rel=1e-7), name
 
 
-def test_spline_terms_are_written_into_a_slice_of_a_wider_block():
+@pytest.mark.parametrize("n", [300, 2 * (1 << 14) + 77])    # one block of rows; three
+def test_spline_terms_are_written_into_a_slice_of_a_wider_block(n):
     from plumbrule.model.curves import rcs_into
     rng = np.random.default_rng(4)
-    x = rng.uniform(0, 100, 300)
-    t = np.quantile(x, KNOT_QUANTILES[5])
-    block = np.full((300, 6), 7.0, order="F")
-    rcs_into(x, t, block[:, 2:5])
+    x = rng.uniform(0, 100, n)
+    t = np.quantile(x, KNOT_QUANTILES[4])
+    block = np.full((n, 5), 7.0, order="F")
+    rcs_into(x, t, block[:, 2:4])
     want = _hand_rcs(x, t)
-    assert np.max(np.abs(block[:, 2:5] - want)) < 1e-12 * np.max(np.abs(want))
-    assert np.all(block[:, [0, 1, 5]] == 7.0)      # the neighbours are left alone
+    assert np.max(np.abs(block[:, 2:4] - want)) < 1e-12 * np.max(np.abs(want))
+    assert np.all(block[:, [0, 1, 4]] == 7.0)      # the neighbours are left alone
 
 
 def test_linearity_check_false_alarm_rate_on_a_straight_model():
