@@ -91,30 +91,29 @@ class BandMatrix:
         so each such family is summed once, times its size; a step on an all-zero
         diagonal (the neighbour matrix's main one) adds nothing."""
         n, w = self.n, self.width
-        pad = 2 * w
-        full = {}
-        for off in range(-w, w + 1):               # full[off][pad + i] = A[i, i + off]
-            vals = self.diagonal(off)
-            if not np.any(vals):
-                continue
-            d = np.zeros(n + 2 * pad)
-            start = pad + max(0, -off)
-            d[start:start + len(vals)] = vals
-            full[off] = d
+        used = {o for o in range(-w, w + 1) if np.any(self.upper[abs(o)])}
         families: dict[tuple[int, int, int], int] = {}
         for b in range(-w, w + 1):
             for c in range(-w, w + 1):
                 steps = (b, c, -(b + c))
-                if all(x in full for x in steps):
+                if all(x in used for x in steps):
                     rev = (-steps[2], -steps[1], -steps[0])
                     key = min(t[i:] + t[:i] for t in (steps, rev) for i in range(3))
                     families[key] = families.get(key, 0) + 1
         total = 0.0
         for (b, c, back), size in families.items():
-            walk = np.dot(full[b][pad:pad + n] * full[c][pad + b:pad + b + n],
-                          full[back][pad + b + c:pad + b + c + n])
+            lo, hi = max(0, -b, -(b + c)), n - max(0, b, b + c)   # rows i with a whole walk
+            if hi <= lo:
+                continue
+            walk = np.dot(self._rows(b, lo, hi) * self._rows(c, lo + b, hi + b),
+                          self._rows(back, lo + b + c, hi + b + c))
             total += size * float(walk)
         return total
+
+    def _rows(self, off: int, start: int, stop: int) -> np.ndarray:
+        """A[i, i + off] for rows start ≤ i < stop (a view of the stored diagonal)."""
+        shift = max(0, -off)
+        return self.upper[abs(off)][start - shift:stop - shift]
 
     def dense(self) -> np.ndarray:
         """A as an n × n array (the exact small-sample path; checks)."""
