@@ -92,7 +92,7 @@ class BandMatrix:
         diagonal (the neighbour matrix's main one) adds nothing."""
         n, w = self.n, self.width
         used = {o for o in range(-w, w + 1) if np.any(self.upper[abs(o)])}
-        families: dict[tuple[int, int, int], int] = {}
+        families: dict[tuple[int, ...], int] = {}
         for b in range(-w, w + 1):
             for c in range(-w, w + 1):
                 steps = (b, c, -(b + c))
@@ -233,7 +233,7 @@ def neighbour_matrix(before: np.ndarray, k: int = NEIGHBOURS) -> NeighbourMatrix
     from scipy.sparse import csr_matrix
     n = len(before)
     k = min(k, n - 1)
-    index = np.int32 if n * k < 2 ** 31 else np.int64     # scipy's own index type
+    index = np.dtype(np.int32 if n * k < 2 ** 31 else np.int64)   # scipy's own index type
     b = before.astype(index)
     pos = np.arange(n, dtype=index)
     cols = (pos - b)[:, None] + np.arange(k, dtype=index)
