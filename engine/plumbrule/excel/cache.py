@@ -78,11 +78,15 @@ def as_rows(values: Any, trust: bool = False) -> list[list[Any]]:
     return [[values]]
 
 
+def _picks(n: int) -> list[int]:
+    """The rows sampled: the header, the last row and rows spread between."""
+    return sorted({0, n - 1, *range(0, n, max(1, n // _SAMPLE_ROWS))}) if n else []
+
+
 def fingerprint(rows: list[list[Any]], extra: Hashable = ()) -> bytes:
     """blake2b of the block's shape, header, a sample of rows and ``extra``.
     Cheap (independent of the block's size); not a proof of equality."""
-    n = len(rows)
-    picks = sorted({0, n - 1, *range(0, n, max(1, n // _SAMPLE_ROWS))}) if n else []
+    picks = _picks(n := len(rows))
     h = hashlib.blake2b(digest_size=16)
     widths = [len(rows[i]) if type(rows[i]) is list else -1 for i in picks]
     h.update(repr((n, widths, extra)).encode("utf-8", "replace"))
@@ -175,6 +179,12 @@ def block_signature(rows: list[list[Any]]) -> bytes | None:
         return None
 
 
+def _sample_is_plain(rows: list[list[Any]]) -> bool:
+    """Every cell of the sampled rows is PLAIN (so the block may have a signature)."""
+    return all(type(rows[i]) is list and set(map(type, rows[i])) <= PLAIN
+               for i in _picks(len(rows)))
+
+
 def small_key(values: Any) -> Hashable:
     """A strict hashable key for a small block (subjects, comps, arguments)."""
     if isinstance(values, (list, tuple)):
@@ -218,13 +228,22 @@ def approx_size(obj: Any, _depth: int = 0) -> int:
 
 
 class _Entry:
-    __slots__ = ("key", "rows", "guard", "value", "error", "nbytes", "sig")
+    __slots__ = ("key", "rows", "_guard", "loose", "value", "error", "nbytes", "sig")
 
     def __init__(self, key, rows, value, error, nbytes, loose=frozenset(), sig=None):
         self.key, self.rows, self.value, self.error = key, rows, value, error
-        self.guard = type_guard(rows, loose)
+        self.loose, self._guard = loose, None
         self.sig = sig
         self.nbytes = nbytes + (len(sig) if sig is not None else 0)
+
+    @property
+    def guard(self) -> tuple:
+        """The type guard of the stored block, made at its first cell-by-cell comparison
+        (a block confirmed by its signature never needs it). The stored copy never
+        changes, so computing it twice from two threads gives the same guard."""
+        if self._guard is None:
+            self._guard = type_guard(self.rows, self.loose)
+        return self._guard
 
 
 class SheetCache:
@@ -283,7 +302,10 @@ class SheetCache:
         # (marshal marks a cell held twice), as the next look-up will write it. A block
         # with a cell other than PLAIN has none (marshal stops at the first date): its
         # hits compare cells.
-        sig = block_signature(rows) if rows and set(map(type, rows)) == {list} else None
+        # A sampled cell that is not PLAIN (a date) means no signature: marshal would
+        # read the whole block only to refuse it. Skipping it only leaves the comparison.
+        sig = (block_signature(rows) if rows and set(map(type, rows)) == {list}
+               and _sample_is_plain(rows) else None)
         if sig is not None and not set(map(type, chain.from_iterable(rows))) <= PLAIN:
             sig = None
         stored = list(map(list, rows))       # our own copy: the caller may change its list

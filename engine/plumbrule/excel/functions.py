@@ -96,6 +96,9 @@ def cell(v: Any) -> Any:
     return text_cell(str(v))
 
 
+_AS_IS = frozenset({str, type(None)})     # cells cell() returns unchanged when short
+
+
 def frame_cells(frame) -> list[list[Any]]:
     """A DataFrame → header row + one row of cells per record, cut to a sheet's size."""
     import numpy as np
@@ -117,8 +120,16 @@ def frame_cells(frame) -> list[list[Any]]:
             cols.append(s.to_numpy(dtype=float).tolist())
         elif s.dtype.kind == "b":
             cols.append([bool(v) for v in s.tolist()])
+        elif s.dtype == np.dtype("datetime64[ns]"):        # naive dates, years 1678-2261
+            # numpy gives datetime.datetime (None for NaT) in C: what cell() gives.
+            cols.append(s.to_numpy().astype("datetime64[us]").tolist())
         else:
-            cols.append([cell(v) for v in s.tolist()])
+            vals = s.tolist()
+            if set(map(type, vals)) <= _AS_IS and max(map(len, filter(None, vals)),
+                                                       default=0) <= MAX_TEXT:
+                cols.append(vals)                # short text and blanks: cell() keeps them
+            else:
+                cols.append([cell(v) for v in vals])
     out = [[text_cell(str(c)) for c in columns]]
     out.extend(map(list, zip(*cols, strict=False)) if cols else ([] for _ in range(body_rows)))
     if cut:
