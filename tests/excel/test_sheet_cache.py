@@ -247,3 +247,60 @@ def test_a_valuation_is_rendered_once_and_handed_out_as_copies(own_cache):
     expected = expected_cells(valuate(ref, fresh(subject)).estimates)
     assert second == expected
     assert sf.CACHE.stats().misses == 1
+
+
+# --- which confirmation a stored block gets ---------------------------------------
+
+def _only_entry(cache: SheetCache):
+    (entry,) = cache._entries.values()
+    return entry
+
+
+def test_a_dated_miss_does_not_write_a_signature_it_cannot_keep(monkeypatch):
+    """A date in the sampled rows means no signature: marshal is not run on the miss (it
+    would read the whole block and refuse it). A plain block still gets its signature."""
+    calls = []
+    real = cache_mod.block_signature
+    monkeypatch.setattr(cache_mod, "block_signature", lambda rows: calls.append(1) or real(rows))
+    cache = SheetCache()
+    cache.get_or_compute(fresh(dated_block()), "dated", Counting())
+    assert calls == [] and _only_entry(cache).sig is None
+    cache = SheetCache()
+    cache.get_or_compute(fresh(plain_block()), "plain", Counting())
+    assert calls == [1] and _only_entry(cache).sig is not None
+
+
+def test_a_cell_outside_the_sampled_rows_still_decides_the_signature():
+    """Only the sampled rows are sniffed; the whole block's types still decide whether its
+    signature is kept. A numpy number in an unsampled row (marshal writes it as raw bytes)
+    leaves the block without one, so a bytes cell with those very bytes is no hit."""
+    rows = plain_block()
+    assert 151 not in cache_mod._picks(len(rows))             # not a sampled row
+    rows[151][1] = np.float64(rows[151][1])
+    cache, compute = SheetCache(), Counting()
+    cache.get_or_compute(fresh(rows), "k", compute)
+    assert _only_entry(cache).sig is None
+    changed = fresh(rows)
+    changed[151][1] = rows[151][1].tobytes()
+    assert block_signature(changed) == block_signature(fresh(rows))   # marshal alike
+    assert cache.get_or_compute(changed, "k", compute) == ("result", 2)
+
+
+def test_a_block_confirmed_by_its_signature_never_builds_a_type_guard():
+    cache, compute = SheetCache(), Counting()
+    cache.get_or_compute(fresh(plain_block()), "k", compute)
+    cache.get_or_compute(fresh(plain_block()), "k", compute)
+    assert compute.calls == 1 and _only_entry(cache)._guard is None
+
+
+def test_the_type_guard_is_built_at_the_first_comparison_and_catches_true_for_one():
+    """A dated block is compared cell by cell: its first hit builds the guard, and a TRUE
+    turned into 1 after that hit is still a new block."""
+    cache, compute = SheetCache(), Counting()
+    cache.get_or_compute(fresh(dated_block()), "k", compute)
+    assert _only_entry(cache)._guard is None
+    assert cache.get_or_compute(fresh(dated_block()), "k", compute) == ("result", 1)
+    assert _only_entry(cache)._guard is not None
+    changed = fresh(dated_block())
+    changed[1][3] = 1                                          # Garage TRUE -> 1
+    assert cache.get_or_compute(changed, "k", compute) == ("result", 2)
