@@ -293,14 +293,53 @@ def test_a_block_confirmed_by_its_signature_never_builds_a_type_guard():
     assert compute.calls == 1 and _only_entry(cache)._guard is None
 
 
-def test_the_type_guard_is_built_at_the_first_comparison_and_catches_true_for_one():
-    """A dated block is compared cell by cell: its first hit builds the guard, and a TRUE
-    turned into 1 after that hit is still a new block."""
+def test_a_signed_block_builds_its_type_guard_at_its_first_comparison():
+    """A plain block whose hit is not confirmed by its signature (the same cell objects
+    passed again) builds the guard then, and a TRUE turned into 1 is still a new block."""
+    cache, compute = SheetCache(), Counting()
+    rows = fresh(plain_block())
+    cache.get_or_compute(rows, "k", compute)
+    assert _only_entry(cache)._guard is None
+    assert cache.get_or_compute([list(r) for r in rows], "k", compute) == ("result", 1)
+    assert _only_entry(cache)._guard is not None
+    changed = [list(r) for r in rows]
+    changed[1][3] = 1                                          # Garage TRUE -> 1
+    assert cache.get_or_compute(changed, "k", compute) == ("result", 2)
+
+
+def test_a_dated_block_has_its_type_guard_from_the_start():
     cache, compute = SheetCache(), Counting()
     cache.get_or_compute(fresh(dated_block()), "k", compute)
-    assert _only_entry(cache)._guard is None
-    assert cache.get_or_compute(fresh(dated_block()), "k", compute) == ("result", 1)
     assert _only_entry(cache)._guard is not None
     changed = fresh(dated_block())
     changed[1][3] = 1                                          # Garage TRUE -> 1
     assert cache.get_or_compute(changed, "k", compute) == ("result", 2)
+
+
+def test_keys_equal_by_eq_but_not_in_text_stay_apart():
+    """The key's text is part of the fingerprint: ("a", True) == ("a", 1), yet they are
+    two keys (a setting TRUE is not the number 1), given ready made or not."""
+    cache, compute = SheetCache(), Counting()
+    cache.get_or_compute(fresh(plain_block()), ("a", 1), compute)
+    assert cache.get_or_compute(fresh(plain_block()), ("a", True), compute) == ("result", 2)
+    assert cache.get_or_compute(fresh(plain_block()), ("a", 1.0), compute,
+                                key_text=repr(("a", 1.0))) == ("result", 3)
+    assert cache.get_or_compute(fresh(plain_block()), ("a", 1), compute,
+                                key_text=repr(("a", 1))) == ("result", 1)
+
+
+def test_the_worksheet_functions_key_text_is_the_keys_repr():
+    s, m, text = sf._parsed(RESPONSE, PREDICTORS, UNDATED)
+    assert text == repr(("analysis", m))
+
+
+def test_a_sampled_row_with_nan_still_fingerprints_alike():
+    """NaN is not equal to itself (and its hash is its identity); the fingerprint of a
+    fresh copy must not move with it, or an unchanged block would never be found."""
+    rows = plain_block()
+    i = cache_mod._picks(len(rows))[1]                        # a sampled row
+    rows[i][1] = math.nan
+    assert cache_mod.fingerprint(fresh(rows), "k") == cache_mod.fingerprint(fresh(rows), "k")
+    cache, compute = SheetCache(), Counting()
+    cache.get_or_compute(fresh(rows), "k", compute)
+    assert cache.get_or_compute(fresh(rows), "k", compute) == ("result", 1)

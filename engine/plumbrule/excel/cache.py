@@ -83,17 +83,34 @@ def _picks(n: int) -> list[int]:
     return sorted({0, n - 1, *range(0, n, max(1, n // _SAMPLE_ROWS))}) if n else []
 
 
-def fingerprint(rows: list[list[Any]], extra: Hashable = ()) -> bytes:
-    """blake2b of the block's shape, header, a sample of rows and ``extra``.
-    Cheap (independent of the block's size); not a proof of equality."""
+def fingerprint(rows: list[list[Any]], extra: Hashable = (),
+                extra_text: str | None = None) -> bytes:
+    """blake2b of the block's shape, header, a sample of rows and ``extra`` (by its repr,
+    which ``extra_text`` may give ready made). Cheap (independent of the block's size); not
+    a proof of equality."""
     picks = _picks(n := len(rows))
     h = hashlib.blake2b(digest_size=16)
     widths = [len(rows[i]) if type(rows[i]) is list else -1 for i in picks]
-    h.update(repr((n, widths, extra)).encode("utf-8", "replace"))
+    text = repr(extra) if extra_text is None else extra_text
+    h.update(repr((n, widths, text)).encode("utf-8", "replace"))
     for i in picks:
-        row = rows[i] if type(rows[i]) is list else [rows[i]]
-        h.update(repr([(type(v).__name__, v) for v in row]).encode("utf-8", "replace"))
+        h.update(_row_bytes(rows[i] if type(rows[i]) is list else [rows[i]]))
     return h.digest()
+
+
+def _row_bytes(row: list[Any]) -> bytes:
+    """One sampled row as bytes: marshal (version 2 keeps no references, so the bytes do not
+    depend on what else holds a cell; TRUE, 1 and 1.0 differ), a date by its type and hash,
+    or the row's text when neither works. Equal rows give equal bytes, at C speed."""
+    try:
+        return marshal.dumps(row, 2)
+    except ValueError:
+        pass
+    try:
+        return marshal.dumps([v if type(v) in PLAIN else (type(v).__name__, hash(v))
+                              for v in row], 2)
+    except (TypeError, ValueError):
+        return repr([(type(v).__name__, v) for v in row]).encode("utf-8", "replace")
 
 
 def type_guard(rows: list[list[Any]], loose: frozenset = frozenset()) -> tuple:
@@ -232,14 +249,16 @@ class _Entry:
 
     def __init__(self, key, rows, value, error, nbytes, loose=frozenset(), sig=None):
         self.key, self.rows, self.value, self.error = key, rows, value, error
-        self.loose, self._guard = loose, None
+        # Without a signature every hit compares cells: the guard is made now, with the
+        # fit, rather than in the first hit (for a model cell, the next recalculation).
+        self.loose, self._guard = loose, None if sig is not None else type_guard(rows, loose)
         self.sig = sig
         self.nbytes = nbytes + (len(sig) if sig is not None else 0)
 
     @property
     def guard(self) -> tuple:
-        """The type guard of the stored block, made at its first cell-by-cell comparison
-        (a block confirmed by its signature never needs it). The stored copy never
+        """The type guard of the stored block; for a block with a signature, made at its
+        first cell-by-cell comparison (its hits seldom need one). The stored copy never
         changes, so computing it twice from two threads gives the same guard."""
         if self._guard is None:
             self._guard = type_guard(self.rows, self.loose)
@@ -274,13 +293,17 @@ class SheetCache:
 
     def get_or_compute(self, values: Any, key: Hashable, compute: Callable[[list], Any],
                        cache_errors: tuple[type[BaseException], ...] = (),
-                       loose_columns: Callable[[Any, list], frozenset] | None = None) -> Any:
+                       loose_columns: Callable[[Any, list], frozenset] | None = None,
+                       key_text: str | None = None) -> Any:
         """``compute(rows)`` once per distinct (block, key); the cached result after.
 
         ``loose_columns(result, rows)`` may name the column indices whose cells the result
-        reads as numbers (TRUE and 1 alike), which the type check then skips."""
+        reads as numbers (TRUE and 1 alike), which the type check then skips. ``key_text``
+        is ``repr(key)`` when the caller keeps it (a Settings repr costs half a millisecond);
+        keys equal by ``==`` but of other text (TRUE and 1) stay apart."""
         rows = as_rows(values, trust=True)
-        fp = fingerprint(rows, key)
+        text = repr(key) if key_text is None else key_text
+        fp = fingerprint(rows, extra_text=text)
         with self._lock:
             candidates = [(slot, e) for slot in range(_CANDIDATES)
                           if (e := self._entries.get((fp, slot))) is not None and e.key == key]
@@ -297,7 +320,7 @@ class SheetCache:
             self._misses += 1
         norm = as_rows(rows)
         if norm is not rows:                 # tuples or a flat list: key the normal form
-            rows, fp = norm, fingerprint(norm, key)
+            rows, fp = norm, fingerprint(norm, extra_text=text)
         # The signature is written before the copy below holds every cell a second time
         # (marshal marks a cell held twice), as the next look-up will write it. A block
         # with a cell other than PLAIN has none (marshal stops at the first date): its

@@ -305,7 +305,7 @@ class _Fitted:
         done = self.rendered.get(name)
         if done is None:
             done = self.rendered[name] = to_cells(build(self.analysis))
-        return Cells(list(r) for r in done) if isinstance(done, list) else done
+        return Cells(map(list, done)) if isinstance(done, list) else done
 
 
 def _model_settings(s):
@@ -317,18 +317,21 @@ def _model_settings(s):
                         if f.name in REGISTRY and REGISTRY[f.name].group == "value"})
 
 
-_PARSED: dict = {}          # (response, predictors, settings cells) → (settings, model settings)
+_PARSED: dict = {}     # (response, predictors, settings cells) → (settings, model settings,
+#                        the text of the analysis key) — or, for a handle, the settings
 
 
 def _parsed(response: Any, predictors: Any, settings: Any):
-    """resolve_settings and _model_settings, remembered for the small argument blocks."""
+    """resolve_settings, _model_settings and the repr of the cache key ("analysis", model
+    settings), remembered for the small argument blocks."""
     key = small_key((response, predictors, settings))
     hit = _PARSED.get(key)
     if hit is None:
         s = resolve_settings(response, predictors, settings)
         if len(_PARSED) >= 64:
             _PARSED.pop(next(iter(_PARSED)))
-        hit = _PARSED[key] = (s, _model_settings(s))
+        m = _model_settings(s)
+        hit = _PARSED[key] = (s, m, repr(("analysis", m)))
     return hit
 
 
@@ -344,7 +347,7 @@ def fitted(sales: Any, response: Any, predictors: Any, settings: Any) -> tuple[_
         if first.startswith(PREFIX):          # the model cell shows an error: show it too
             from plumbrule.errors import IntakeError
             raise IntakeError(first[len(PREFIX):])
-    s, m = _parsed(response, predictors, settings)
+    s, m, key_text = _parsed(response, predictors, settings)
     if is_blank(sales) or not isinstance(sales, (list, tuple)):
         from plumbrule.errors import IntakeError
         raise IntakeError("Argument 'sales': select the sales table including its header row, "
@@ -353,7 +356,8 @@ def fitted(sales: Any, response: Any, predictors: Any, settings: Any) -> tuple[_
     sales = used_rows(sales)          # a whole-column reference: only the rows with sales
     holder = CACHE.get_or_compute(sales, ("analysis", m),
                                   lambda rows: _Fitted(analyze(rows, m)),
-                                  cache_errors=(PlumbError,), loose_columns=_numeric_columns)
+                                  cache_errors=(PlumbError,), loose_columns=_numeric_columns,
+                                  key_text=key_text)
     return holder, s
 
 
@@ -453,7 +457,7 @@ def valuation_cells(name: str, build: Callable, sales, response, predictors, sub
     done = holder.rendered.get((name, key))
     if done is None:
         done = holder.rendered[(name, key)] = to_cells(build(valuation))
-    return Cells(list(r) for r in done) if isinstance(done, list) else done
+    return Cells(map(list, done)) if isinstance(done, list) else done
 
 
 def _valuation(sales, response, predictors, subject, comps, settings):
@@ -685,7 +689,7 @@ def comparison_cells(sales, models, settings) -> Cells:
         return Cells(out)
     done = CACHE.get_or_compute(sales, ("compare", small_key(block), s), build,
                                 cache_errors=(PlumbError,))
-    return Cells(list(r) for r in done)
+    return Cells(map(list, done))
 
 
 def _sentences(text: str) -> list[str]:
