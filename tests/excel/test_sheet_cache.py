@@ -343,3 +343,23 @@ def test_a_sampled_row_with_nan_still_fingerprints_alike():
     cache, compute = SheetCache(), Counting()
     cache.get_or_compute(fresh(rows), "k", compute)
     assert cache.get_or_compute(fresh(rows), "k", compute) == ("result", 1)
+
+
+def test_a_change_in_any_chunk_of_the_signature_is_a_new_block():
+    """The signature is written 1024 rows a chunk: a change in the last chunk, in a chunk
+    boundary row, or a block one row longer than a whole number of chunks, is new."""
+    size = cache_mod._CHUNK_ROWS
+    rows = plain_block(2 * size + 5)
+    sig = block_signature(fresh(rows))
+    assert sig is not None and len(sig) == 3
+    assert cache_mod.same_signature(fresh(rows), sig)
+    for i in (size - 1, size, 2 * size + 5):
+        changed = fresh(rows)
+        changed[i][1] += 1.0
+        assert not cache_mod.same_signature(changed, sig), i
+    assert not cache_mod.same_signature(fresh(rows)[:-5], sig)     # two chunks, not three
+    assert not cache_mod.same_signature(fresh(rows)[:2 * size + 1] + fresh(rows)[2 * size + 1:-1],
+                                        sig)
+    dated = fresh(rows)
+    dated[size + 3][4] = dt.datetime(2024, 1, 1)               # marshal refuses a date
+    assert not cache_mod.same_signature(dated, sig)

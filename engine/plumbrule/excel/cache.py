@@ -10,11 +10,11 @@ never share a result (no hash collision can return a wrong fit).
 Two exact confirmations:
 
 * A block of plain cells (text, numbers, bools, blanks) has a signature,
-  :func:`block_signature`: the block written by :mod:`marshal` at C speed, a type
-  code and the exact value of every cell (TRUE, 1, 1.0, '1' and '' all differ).
-  ``marshal.loads`` rebuilds the block from those bytes, so equal bytes mean equal
-  cells, value and type. It reads the incoming cells once; comparing the lists reads
-  them and the stored copy.
+  :func:`block_signature`: the block written by :mod:`marshal` at C speed, 1024 rows
+  a chunk, a type code and the exact value of every cell (TRUE, 1, 1.0, '1' and ''
+  all differ). ``marshal.loads`` rebuilds the rows from those bytes, so equal bytes
+  mean equal cells, value and type. It reads the incoming cells once; comparing the
+  lists reads them and the stored copy.
 * Otherwise (dates, which marshal cannot write, or a signature that differs) every
   cell is compared with the stored copy: ``==`` in C, stopping at the first
   difference, plus a type guard where ``==`` calls TRUE and 1 equal. marshal marks a
@@ -22,11 +22,16 @@ Two exact confirmations:
   (held by the stored copy too) write other bytes and come here; so does a TRUE/1 swap
   in a column the analysis reads as numbers, which is the same analysis.
 
-Measured (benchmarks/recalc.py, 20,000 rows x 12 columns): either confirmation costs
-about as much as reading a freshly made block once (5-10 ms on a busy two-core
-machine); that read, not the comparison, is the floor of a hit. Hashing the bytes
-(blake2b) or building numpy arrays per call only adds to it; copying the block to set
-its dates aside for marshal costs more than the comparison it saves.
+Measured (benchmarks/recalc.py, 20,000 rows x 12 columns, every cell its own object as
+xlwings makes them): either confirmation costs about as much as reading a freshly made
+block once (its "floor" line: 5-10 ms on a busy two-core machine, about 0.3 x one
+analysis for 30 cells); that read, not the comparison, is the floor of a hit, and no
+exact confirmation can skip a cell of a new copy, so 30 cells sharing one range cannot
+cost less than 30 reads: a PLUMB_MODEL cell and its handle can. Hashing the bytes
+(blake2b) or building numpy arrays per call only adds to it; setting the dates aside
+in place for marshal (take the column, blank it, put it back) or marshalling the block
+without them costs more than the comparison it saves; a single buffer for the whole
+block's bytes costs page faults that 1024-row chunks do not.
 
 Entries are evicted least-recently-used, bounded by count and by an
 approximate memory size. Errors (a PlumbError raised for a block) are cached
@@ -184,16 +189,35 @@ PLAIN = frozenset({float, str, type(None), bool, int})
 _MARSHAL_VERSION = 4
 
 
-def block_signature(rows: list[list[Any]]) -> bytes | None:
-    """marshal bytes of the block (one pass at C speed), or None when marshal refuses a
-    cell (a date, a subclass). ``marshal.loads`` rebuilds the block from them, so two
-    blocks of plain cells (:data:`PLAIN`) with the same bytes hold the same cells, value
-    and type. A cell marshal writes as raw bytes (a numpy scalar) cannot match a stored
-    block of plain cells: bytes are no plain cell."""
+# Rows per marshal chunk: a chunk's bytes (~100 kB) reuse the heap; one buffer for the whole
+# block (MBs) is fresh mapped memory every call, page faults included (~5% of a pass).
+_CHUNK_ROWS = 1024
+
+
+def block_signature(rows: list[list[Any]]) -> tuple[bytes, ...] | None:
+    """marshal bytes of the block, 1024 rows a chunk (one pass at C speed), or None when
+    marshal refuses a cell (a date, a subclass). ``marshal.loads`` rebuilds each chunk of
+    rows from its bytes, so two blocks of plain cells (:data:`PLAIN`) with the same chunks
+    hold the same cells, value and type. A cell marshal writes as raw bytes (a numpy
+    scalar) cannot match a stored block of plain cells: bytes are no plain cell."""
     try:
-        return marshal.dumps(rows, _MARSHAL_VERSION)
+        return tuple(marshal.dumps(rows[i:i + _CHUNK_ROWS], _MARSHAL_VERSION)
+                     for i in range(0, len(rows), _CHUNK_ROWS))
     except ValueError:
         return None
+
+
+def same_signature(rows: list[list[Any]], sig: tuple[bytes, ...]) -> bool:
+    """``rows`` give the chunks ``sig`` (the same number of rows first), stopping at the first
+    chunk that differs."""
+    if not rows or -(-len(rows) // _CHUNK_ROWS) != len(sig):
+        return False
+    dumps = marshal.dumps
+    try:
+        return all(dumps(rows[i:i + _CHUNK_ROWS], _MARSHAL_VERSION) == sig[n]
+                   for n, i in enumerate(range(0, len(rows), _CHUNK_ROWS)))
+    except ValueError:          # a cell marshal refuses: no plain block, so not this one
+        return False
 
 
 def _sample_is_plain(rows: list[list[Any]]) -> bool:
@@ -253,7 +277,7 @@ class _Entry:
         # fit, rather than in the first hit (for a model cell, the next recalculation).
         self.loose, self._guard = loose, None if sig is not None else type_guard(rows, loose)
         self.sig = sig
-        self.nbytes = nbytes + (len(sig) if sig is not None else 0)
+        self.nbytes = nbytes + (sum(map(len, sig)) if sig is not None else 0)
 
     @property
     def guard(self) -> tuple:
@@ -350,7 +374,7 @@ class SheetCache:
         cells, exact), else the cell-by-cell comparison with the stored copy (two passes;
         it also accepts a TRUE/1 swap in a column the result reads as numbers)."""
         if (entry.sig is not None and len(rows) == len(entry.rows)
-                and block_signature(rows) == entry.sig):
+                and same_signature(rows, entry.sig)):
             return True
         return same_cells(rows, entry.rows, entry.guard)
 
