@@ -194,6 +194,10 @@ def main() -> None:
     print("PASS (model-cell sheet)" if all(ok[2:]) else "ABOVE TARGET (model-cell sheet)")
     print("direct sheet: " + ("within both targets" if all(ok[:2]) else
                              "above a target (the floor is one exact confirmation per cell)"))
+    if r > TARGET_UNCHANGED:
+        print(f"the floor itself ({r:.2f} x) is above the unchanged-data target "
+              f"({TARGET_UNCHANGED} x): {len(MIX)} cells given the range cannot meet it; "
+              "a PLUMB_MODEL cell and its handle can")
 
 
 if __name__ == "__main__":
