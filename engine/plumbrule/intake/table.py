@@ -59,6 +59,8 @@ def blank_cells(table: SheetTable, columns: Sequence[str] | None = None) -> pd.D
     cols = list(table.frame.columns) if columns is None else list(columns)
     if table.blanks is None:
         return _blank_frame(table.frame[cols])
+    if table.blanks.index.equals(table.frame.index):    # every row still there: no reindex
+        return table.blanks[cols]
     return table.blanks.loc[table.frame.index, cols]
 
 

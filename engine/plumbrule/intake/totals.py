@@ -56,7 +56,7 @@ def totals_rows(table: SheetTable, numeric_columns: Iterable[str]) -> pd.DataFra
     col_of = np.full(len(frame), -1)
     val = np.full(len(frame), np.nan)
     lim = np.full(len(frame), np.nan)
-    how = np.full(len(frame), "", dtype=object)
+    how = np.zeros(len(frame), dtype=object)     # 'sum' / 'mean' where found by numbers
     since = np.zeros(len(frame), dtype=np.int64)
     if len(numeric) >= 2 and len(frame) >= 3:
         x = np.column_stack([_floats(frame[c]) for c in numeric])
@@ -78,12 +78,16 @@ def totals_rows(table: SheetTable, numeric_columns: Iterable[str]) -> pd.DataFra
     column = np.where(by_label, label_col[rows], names[col_of[rows]])
     listed = "', '".join(numeric)      # the column names, once
     sheet_rows = frame.index.to_numpy(dtype=np.int64)
-    above = (pd.Series(how[rows], dtype=object) + " of the sales in rows "
+    how_found = how[rows]
+    how_found[by_label] = ""
+    text_found = label_text[rows]
+    text_found[~by_label] = ""
+    above = (pd.Series(how_found, dtype=object) + " of the sales in rows "
              + pd.Series(sheet_rows[since[rows]]).astype(str) + "-"
              + pd.Series(sheet_rows[np.maximum(rows - 1, 0)]).astype(str))
     reason = np.where(
         by_label,
-        pd.Series(label_text[rows], dtype=object).radd("'").add(
+        pd.Series(text_found, dtype=object).radd("'").add(
             "' marks a totals row, not a sale").to_numpy(dtype=object),
         above.radd(f"its '{listed}' equal the ").add(
             ": a totals row, not a sale").to_numpy(dtype=object))
@@ -106,12 +110,14 @@ def table_without(table: SheetTable, rows: Iterable[int]) -> SheetTable:
 
 def _labelled(frame: pd.DataFrame, blank: np.ndarray
               ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(row is labelled a totals row, the label's column, the label's text); ``blank``:
+    """(row is labelled a totals row, the label's column, the label's text: both set in
+    the rows labelled only); ``blank``:
     the frame's blank cells."""
     n = len(frame)
     hit = np.zeros(n, dtype=bool)
-    col = np.full(n, "", dtype=object)
-    text = np.full(n, "", dtype=object)
+    # set where ``hit`` only (zeros: an object array of n strings costs a fill of n)
+    col = np.zeros(n, dtype=object)
+    text = np.zeros(n, dtype=object)
     if not n or not frame.shape[1]:
         return hit, col, text
     first = np.where(blank.all(axis=1), -1, (~blank).argmax(axis=1))   # first filled cell
@@ -199,7 +205,7 @@ def _summing(x: np.ndarray, known: np.ndarray):
             cand |= np.abs(xf - mean) <= _RTOL * np.maximum(np.abs(xf), np.abs(mean))
     rows = np.flatnonzero(cand & (n_filled >= 2))
     full = (np.zeros(n, dtype=bool), np.zeros(n, dtype=np.int64), np.full(n, np.nan),
-            np.full(n, "", dtype=object), np.zeros(n, dtype=np.int64))
+            np.zeros(n, dtype=object), np.zeros(n, dtype=np.int64))
     if not len(rows):          # the usual sheet: no row matches in its first column
         return full
     v = np.where(filled & sale[:, None], x, 0.0)
