@@ -15,16 +15,19 @@ from plumbrule.intake.table import SheetTable, blank_cells, text_cells
 
 
 def sale_ids(table: SheetTable, column: str, used: Sequence[str],
-             labels: tuple[pd.Series, pd.Series] | None = None) -> pd.Series:
+             labels: tuple[pd.Series, pd.Series] | None = None,
+             unique: bool = False) -> pd.Series:
     """The ID of each sale (text; 104.0 → '104'), indexed by sheet row, for the rows that
     hold anything in the ``used`` columns. A blank or repeated ID among them is an error
     naming the rows. ``labels``: the column's ``to_labels`` (labels, reasons) over these
     rows or more, when the caller has it (each cell is typed on its own, so a subset of
-    it is the subset's)."""
+    it is the subset's). ``unique``: the caller knows the labels all differ."""
     frame = table.frame
     filled = ~blank_cells(table, list(dict.fromkeys([*used, column]))).all(axis=1)
     if labels is None:
         ids, why = to_labels(text_cells(table, column)[filled], column)
+    elif filled.all() and labels[0].index.equals(frame.index):
+        ids, why = labels
     else:
         rows = frame.index[filled.to_numpy()]
         ids, why = labels[0].reindex(rows), labels[1].reindex(rows)
@@ -34,7 +37,8 @@ def sale_ids(table: SheetTable, column: str, used: Sequence[str],
         raise IntakeError(f"Column '{column}' (the ID column) is blank in {_rows(rows)}. Give "
                           "every sale an ID, or clear the id_column setting.", column=column,
                           row=int(rows[0]))
-    if pd.Index(ids.to_numpy(dtype=object), dtype=object).is_unique:
+    if (unique and labels is not None) or pd.Index(ids.to_numpy(dtype=object),
+                                                   dtype=object).is_unique:
         return ids.astype(object)
     twice = ids.duplicated(keep=False)
     if twice.any():

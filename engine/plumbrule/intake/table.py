@@ -49,7 +49,10 @@ def text_cells(table: SheetTable, column: str) -> pd.Series:
     src = table.file_text
     if src is None or not src.has(column):
         return table.frame[column]
-    return src.column(column).reindex(table.frame.index).rename(column)
+    cells = src.column(column)
+    if not cells.index.equals(table.frame.index):
+        cells = cells.reindex(table.frame.index)
+    return cells.rename(column)
 
 
 def blank_cells(table: SheetTable, columns: Sequence[str] | None = None) -> pd.DataFrame:
