@@ -212,9 +212,15 @@ def _plain_bytes(raw: bytes, n: int) -> bool:
 
 
 def _no_reasons(col: pd.Series) -> tuple[pd.Series, pd.Series]:
-    """(reason per cell, all NaN; mask of cells that hold a value, all True)."""
-    return (pd.Series(np.nan, index=col.index, dtype=object),
-            pd.Series(True, index=col.index))
+    """(reason per cell, all NaN; mask of cells that hold a value, all True). The reasons
+    are a read-only view of one NaN (no n-long object array, which notna() walks)."""
+    return (_no_reason(col.index), pd.Series(True, index=col.index))
+
+
+def _no_reason(index: pd.Index) -> pd.Series:
+    """A reason per row of ``index``, all NaN: a read-only view of one float NaN."""
+    return pd.Series(np.broadcast_to(np.float64(np.nan), (len(index),)), index=index,
+                     copy=False)
 
 
 def _blank_mask(col: pd.Series, kinds: pd.Series | None = None,

@@ -34,6 +34,7 @@ from plumbrule.intake.cells import (
     _LATEST,
     _MAX_SERIAL,
     _missing_reasons,
+    _no_reason,
     _numbers_of,
     _refuse,
     _shown,
@@ -72,7 +73,7 @@ def to_dates(col: pd.Series, name: str, date_format: str = "auto"
         if iso is not None:     # every cell YYYY-MM-DD, a calendar date in range
             got = pd.Series(iso, index=col.index, copy=False)
             _check_span(got, name)
-            return got, pd.Series(np.nan, index=col.index, dtype=object)
+            return got, _no_reason(col.index)
         got, _ = _text_dates(col, name, date_format)
         if got.notna().all():
             _check_span(got, name)

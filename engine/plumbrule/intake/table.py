@@ -160,8 +160,15 @@ def find_header(block: np.ndarray) -> int:
     words = flat.map(type).eq(str).to_numpy() & filled.ravel()
     if words.any():   # '350000', '$1,250' and '3/14/2025' are values, not names
         txt = flat[words].astype(str).str.strip()
-        valued = (np.isfinite(parse_number_text(txt).to_numpy())
-                  | txt.str.match(r"\d{1,4}[-/.]\d{1,2}[-/.]\d{1,4}").to_numpy(dtype=bool))
+        valued = txt.str.match(r"\d{1,4}[-/.]\d{1,2}[-/.]\d{1,4}").to_numpy(dtype=bool,
+                                                                            copy=True)
+        # a text with no digit is a number only as TRUE/FALSE (the number rules need a
+        # digit): the rules run on the rest alone, mostly none (names, dates)
+        digit = txt.str.contains(r"\d", regex=True).to_numpy(dtype=bool)
+        valued |= ~digit & txt.str.upper().isin(("TRUE", "FALSE")).to_numpy()
+        rest = digit & ~valued
+        if rest.any():
+            valued[rest] = np.isfinite(parse_number_text(txt[rest]).to_numpy())
         words[np.flatnonzero(words)[valued]] = False
     words = words.reshape(top.shape)
     f, w = filled[nonblank], words[nonblank]

@@ -51,7 +51,7 @@ def totals_rows(table: SheetTable, numeric_columns: Iterable[str]) -> pd.DataFra
     from plumbrule.screening import LOG_COLUMNS   # here: screening imports the settings
     frame = table.frame
     numeric = [c for c in dict.fromkeys(numeric_columns) if c in frame.columns]
-    labelled, label_col, label_text = _labelled(frame, blank_cells(table).to_numpy())
+    labelled, label_col, label_text = _labelled(frame, blank_cells(table))
     found = labelled.copy()
     col_of = np.full(len(frame), -1)
     val = np.full(len(frame), np.nan)
@@ -110,11 +110,10 @@ def table_without(table: SheetTable, rows: Iterable[int]) -> SheetTable:
     return replace(table, frame=kept, hidden_rows=hidden)
 
 
-def _labelled(frame: pd.DataFrame, blank: np.ndarray
+def _labelled(frame: pd.DataFrame, blanks: pd.DataFrame
               ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(row is labelled a totals row, the label's column, the label's text: both set in
-    the rows labelled only); ``blank``:
-    the frame's blank cells."""
+    the rows labelled only); ``blanks``: the frame's blank cells (:func:`blank_cells`)."""
     n = len(frame)
     hit = np.zeros(n, dtype=bool)
     # set where ``hit`` only (zeros: an object array of n strings costs a fill of n)
@@ -122,7 +121,11 @@ def _labelled(frame: pd.DataFrame, blank: np.ndarray
     text = np.zeros(n, dtype=object)
     if not n or not frame.shape[1]:
         return hit, col, text
-    first = np.where(blank.all(axis=1), -1, (~blank).argmax(axis=1))   # first filled cell
+    if len(blanks.columns) and not blanks.iloc[:, 0].to_numpy().any():
+        first = np.zeros(n, dtype=np.int64)     # the usual sheet: no blank in its first column
+    else:
+        blank = blanks.to_numpy(dtype=bool)
+        first = np.where(blank.all(axis=1), -1, (~blank).argmax(axis=1))  # first filled cell
     for j, name in enumerate(frame.columns):   # columns, not rows
         at = first == j
         if not at.any():
