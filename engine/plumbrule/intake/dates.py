@@ -151,8 +151,9 @@ def _days_from_civil(year: np.ndarray, month: np.ndarray, day: np.ndarray) -> np
     return era * 146097 + doe - 719468
 
 
-_DAY_RANGE = (int((_EARLIEST - pd.Timestamp("1970-01-01")).days),
-              int((_LATEST - pd.Timestamp("1970-01-01")).days))
+# the days since 1970-01-01 of the earliest and latest dates datetime64[ns] holds
+# (1677-09-22 and 2262-04-11: cells._EARLIEST and cells._LATEST)
+_DAY_RANGE = (-106751, 106751)
 
 
 # Date arithmetic runs in int64 nanoseconds, which span 292 years; half of that leaves room

@@ -145,6 +145,9 @@ _HEADER_SCAN = 50    # block rows searched for the header (title rows, notes, bl
 _SPAN_ROWS = 3       # non-blank rows below a header that must fit within its columns
 
 
+_NUMBER_CHARS = r"[\d\s+\-\u2212$€£¥,.eE%()]+"     # what a number typed as text is made of
+
+
 def find_header(block: np.ndarray) -> int:
     """Block row (0-based) of the column headers: the first non-blank row whose filled cells
     are all words (text that is not a number or a date), at least two of them unless the
@@ -166,7 +169,9 @@ def find_header(block: np.ndarray) -> int:
         # digit): the rules run on the rest alone, mostly none (names, dates)
         digit = txt.str.contains(r"\d", regex=True).to_numpy(dtype=bool)
         valued |= ~digit & txt.str.upper().isin(("TRUE", "FALSE")).to_numpy()
-        rest = digit & ~valued
+        # a number needs only digits, signs, currency, separators, an exponent, % and
+        # parentheses ('x1', 'Lot 4' are names): the rules run on the rest alone
+        rest = digit & ~valued & txt.str.fullmatch(_NUMBER_CHARS).to_numpy(dtype=bool)
         if rest.any():
             valued[rest] = np.isfinite(parse_number_text(txt[rest]).to_numpy())
         words[np.flatnonzero(words)[valued]] = False

@@ -14,8 +14,8 @@ as labels (categories, IDs, dates): '0012' is an ID, not 12. A caller that knows
 columns it reads as labels says so (``text_columns``), and those are kept as text at once —
 except a column of integers each written as Python writes them (no leading zero, sign '+'
 or white space; :func:`_plain_fields` checks the bytes): its text is the file's bytes of
-those fields, taken when asked for (an ID column of 200,000 numbers costs the C parser more as strings
-than all the other columns together).
+those fields, taken when asked for (an ID column of 200,000 numbers costs the C parser
+more as strings than all the other columns together).
 
 The file is parsed once (the head of 60 rows as text, to find the header, aside). The blank
 cells of the text columns are '' and the cells a short line leaves out, unless some field
@@ -120,12 +120,13 @@ _POWERS = 10 ** np.arange(19, dtype=np.uint64)
 def _plain_fields(data: bytes | str, sep: str, skip: int, j: int, width: int,
                   v: np.ndarray, low: np.ndarray | None = None
                   ) -> tuple[np.ndarray, np.ndarray] | None:
-    """(where each field starts in ``data``, its length) when the cells of column ``j`` below the first ``skip`` records of a UTF-8
-    file, which the C parser read as the integers ``v``, are those integers as Python
-    writes them: each field exactly as long as its integer written so ('0012', '+5', '-0'
-    and ' 12' are longer). Found from the bytes (the line starts, the separators) without
-    making a string; None when they are not or when unsure (quotes, lone carriage
-    returns, decoded text). ``low``: :func:`_low_bytes` of ``data``, when known."""
+    """(where each field starts in ``data``, its length) when the cells of column ``j``
+    below the first ``skip`` records of a UTF-8 file, which the C parser read as the
+    integers ``v``, are those integers as Python writes them: each field exactly as long
+    as its integer written so ('0012', '+5', '-0' and ' 12' are longer). Found from the
+    bytes (the line starts, the separators) without making a string; None when they are
+    not or when unsure (quotes, lone carriage returns, decoded text). ``low``:
+    :func:`_low_bytes` of ``data``, when known."""
     if not isinstance(data, bytes) or b'"' in data or not len(v):
         return None
     a = np.frombuffer(data, dtype=np.uint8)
@@ -262,7 +263,8 @@ def read_typed(data: bytes | str, sep: str, header_at: int | None,
         # a text column whose first cells are integers as Python writes them is parsed as
         # numbers, its text theirs when the whole column is written so (_plain_fields)
         shown = block[h + 1:]
-        maybe_ints = {j for j in as_text if isinstance(data, bytes) and b'"' not in data
+        unquoted = isinstance(data, bytes) and b'"' not in data     # one scan of the file
+        maybe_ints = {j for j in as_text if unquoted
                       and len(shown) and all(isinstance(v, str) and _INT_TEXT.fullmatch(v)
                                              for v in shown[:, j])}
         as_text -= maybe_ints
