@@ -73,10 +73,27 @@ def sale_hashes(data: pd.DataFrame, ids: pd.Series | None = None) -> np.ndarray:
     ID when there is one, else from its typed values — so '$245,000' typed as text and
     245000 typed as a number give one key, and a copy of a sale has the same key."""
     if ids is not None:
-        values = pd.DataFrame({"id": ids.reindex(data.index).astype(str).to_numpy()})
+        text = ids if ids.index.equals(data.index) else ids.reindex(data.index)
+        v = text.to_numpy(dtype=object)
+        if pd.api.types.infer_dtype(v, skipna=False) == "string":    # texts, none missing
+            return _one_column_key(pd.util.hash_array(v, categorize=False))
+        values = pd.DataFrame({"id": text.astype(str).to_numpy()})
     else:
         values = data.reset_index(drop=True)
     return pd.util.hash_pandas_object(values, index=False).to_numpy(np.uint64)
+
+
+def _one_column_key(hashed: np.ndarray) -> np.ndarray:
+    """What ``pd.util.hash_pandas_object`` makes of a one-column frame (index=False) from
+    its column's ``pd.util.hash_array``: the column hash mixed as pandas combines columns.
+    The IDs are hashed without first factorising them (all different: nothing to share);
+    tests compare it with hash_pandas_object itself."""
+    with np.errstate(over="ignore"):
+        out = np.zeros_like(hashed) + np.uint64(0x345678)
+        out ^= hashed
+        out *= np.uint64(1000003)
+        out += np.uint64(97531)
+    return out
 
 
 def stable_uniform(keys: np.ndarray, seed: int, stream: int) -> np.ndarray:
