@@ -70,8 +70,7 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
     shown_ids = id_labels[0] if id_labels is not None else None
     # IDs all different over the whole sheet are so over any of its rows: hashed once here,
     # not again by the duplicates rule and the ID check
-    ids_unique = shown_ids is not None and pd.Index(shown_ids.to_numpy(dtype=object),
-                                                    dtype=object).is_unique
+    ids_unique = shown_ids is not None and _all_different(table, spec.id_column, shown_ids)
     logs, looked = [], []
     totals = intake.totals_rows(table, numeric)        # before typing: 'Total' is no price
     if len(totals):
@@ -195,6 +194,17 @@ def with_names(frame: pd.DataFrame, names: pd.DataFrame | None, column: str = "r
         if f"{prefix}{c}" not in out.columns and c not in out.columns:
             out[f"{prefix}{c}"] = names[c].reindex(at).to_numpy()
     return out
+
+
+def _all_different(table: intake.SheetTable, column: str, labels: pd.Series) -> bool:
+    """Whether the ID labels all differ: from the integers when the CSV column is integers
+    written plainly (different integers are different texts; hashing a million integers
+    is a fraction of hashing their texts), else from the labels."""
+    from plumbrule.intake.table import plain_integers
+    ints = plain_integers(table, column)
+    if ints is not None and pd.Index(ints).is_unique:
+        return True
+    return pd.Index(labels.to_numpy(dtype=object), dtype=object).is_unique
 
 
 def _on_rows(values: pd.Series, rows: pd.Index) -> pd.Series:

@@ -55,6 +55,16 @@ def text_cells(table: SheetTable, column: str) -> pd.Series:
     return cells.rename(column)
 
 
+def plain_integers(table: SheetTable, column: str) -> np.ndarray | None:
+    """For a CSV column the fast reader typed as integers each written as Python writes
+    them, those integers (every body row of the file, a superset of the table's rows):
+    equal cells are equal integers. None for any other column."""
+    src = table.file_text
+    if src is None or not hasattr(src, "integers"):
+        return None
+    return src.integers(column)
+
+
 def blank_cells(table: SheetTable, columns: Sequence[str] | None = None) -> pd.DataFrame:
     """Which cells of ``table.frame`` (of ``columns``, default all) are blank (None, NaN,
     '' or spaces), with the frame's index: the mask worked out when the table was made,

@@ -194,6 +194,19 @@ class CsvText:
     def has(self, name: str) -> bool:
         return any(n == name for n, _ in self.positions)
 
+    def integers(self, name: str) -> np.ndarray | None:
+        """The integers of column ``name`` when its cells are exactly those integers as
+        Python writes them (so two cells are the same text just when they are the same
+        integer), else None."""
+        if not self.has(name) or not isinstance(self.data, bytes):
+            return None
+        v, fields = self.ints.get(name, (None, False))
+        if fields is None:
+            j = next(p for n, p in self.positions if n == name)
+            fields = _plain_fields(self.data, self.sep, self.skip, j, self.width, v)
+            self.ints[name] = (v, False if fields is None else fields)
+        return None if fields is None or fields is False else v
+
     def column(self, name: str) -> pd.Series:
         if name not in self._cache:
             j = next(p for n, p in self.positions if n == name)
