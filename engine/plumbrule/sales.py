@@ -70,7 +70,8 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
     shown_ids = id_labels[0] if id_labels is not None else None
     # IDs all different over the whole sheet are so over any of its rows: hashed once here,
     # not again by the duplicates rule and the ID check
-    ids_unique = shown_ids is not None and _all_different(table, spec.id_column, shown_ids)
+    ids_unique = (shown_ids is not None and spec.id_column is not None
+                  and _all_different(table, spec.id_column, shown_ids))
     logs, looked = [], []
     totals = intake.totals_rows(table, numeric)        # before typing: 'Total' is no price
     if len(totals):
