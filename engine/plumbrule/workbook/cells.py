@@ -174,34 +174,57 @@ def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache
                   blanks: bool = False) -> None:
     """The cells of one column from ``top`` down; a blank is skipped, or with ``blanks``
     written as put writes it (an empty cell)."""
-    from copy import copy
     from openpyxl.cell.cell import Cell
+    from openpyxl.styles.cell_style import StyleArray
     cells = ws._cells
     fixed = None if callable(fmt) else fmt
+    new = Cell.__new__
+    isfinite = math.isfinite
     for i, v in enumerate(values):
-        v = plain(v)
+        t = type(v)
+        # the common plain types first (what plain() returns them as), without its checks
+        if t is float:
+            if not isfinite(v):
+                v = None
+            kind = "n"
+        elif t is str:
+            kind, v = "s", clean_text(v)[:32767]
+        elif t is int:
+            kind = "n"
+        else:
+            v = plain(v)
+            if v is None:
+                pass
+            elif isinstance(v, str):
+                kind, v = "s", clean_text(v)[:32767]
+            elif isinstance(v, bool):
+                kind = "b"
+            elif isinstance(v, (int, float)):
+                kind = "n"
+            elif isinstance(v, (_dt.datetime, _dt.date, _dt.time)):
+                put(ws, top + i, col, v, fixed if not callable(fmt) else None)
+                continue
+            else:
+                if isinstance(v, (list, tuple, set)):
+                    v = ", ".join(map(str, v))
+                kind, v = "s", clean_text(str(v))[:32767]
         if v is None:
             if blanks:
                 put(ws, top + i, col, None, fixed)
             continue
-        if isinstance(v, str):
-            kind, v = "s", clean_text(v)[:32767]
-        elif isinstance(v, bool):
-            kind = "b"
-        elif isinstance(v, (int, float)):
-            kind = "n"
-        elif isinstance(v, (_dt.datetime, _dt.date, _dt.time)):
-            put(ws, top + i, col, v, fixed if not callable(fmt) else None)
-            continue
-        else:
-            if isinstance(v, (list, tuple, set)):
-                v = ", ".join(map(str, v))
-            kind, v = "s", clean_text(str(v))[:32767]
         f = fmt(v) if callable(fmt) else fixed
-        cell = Cell(ws, row=top + i, column=col)
+        # Cell(ws, row=, column=) with its value, type and style array set: the slots
+        # filled directly (the constructor's descriptor calls cost more than the cell)
+        cell = new(Cell)
+        cell.parent = ws
+        cell.row = top + i
+        cell.column = col
         cell._value = v
+        cell._hyperlink = None
+        cell._comment = None
         cell.data_type = kind
-        cell._style = copy(styles.get(f if kind in "nb" or not callable(fmt) else None))
+        array = styles.get(f if kind in "nb" or not callable(fmt) else None)
+        cell._style = None if array is None else StyleArray(array)
         cells[(top + i, col)] = cell
 
 
