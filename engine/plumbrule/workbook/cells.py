@@ -150,6 +150,8 @@ def write_frame(ws, frame, top: int, left: int = 1, formats: Formats | None = No
 
 def write_values(ws, values: list, top: int, col: int, number_format: str | None = None) -> None:
     """``put(ws, top + i, col, v, number_format)`` for each value, the cells built directly."""
+    if isinstance(values, np.ndarray) and values.dtype.kind in "fiub":
+        values = values.tolist()        # plain floats, ints and bools, as plain() makes them
     _write_column(ws, values, top, col, number_format, _StyleCache(ws), blanks=True)
 
 
@@ -183,7 +185,8 @@ def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache
     for i, v in enumerate(values):
         t = type(v)
         # the common plain types first (what plain() returns them as), without its checks
-        if t is float:
+        if t is float or t is _F64:
+            v = float(v)
             if not isfinite(v):
                 v = None
             kind = "n"
@@ -228,6 +231,7 @@ def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache
         cells[(top + i, col)] = cell
 
 
+_F64 = np.float64
 _BORDERS: Any = None      # book → {(border id, first cell's border id, side): border id}
 
 

@@ -278,7 +278,8 @@ class _Blocks:
         for j, (h, values) in enumerate(zip(headers, columns, strict=False)):
             col = c0 + j
             put(self.ws, 2, col, h, style="plumb_header")
-            write_values(self.ws, list(values), 3, col)     # as put writes each
+            write_values(self.ws, values if isinstance(values, np.ndarray) else list(values),
+                         3, col)     # as put writes each
             self.rows[col] = 2 + len(values)
             out.append(col)
         self.next_col = c0 + len(headers) + 1

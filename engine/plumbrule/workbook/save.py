@@ -49,6 +49,7 @@ def _writer_class():
     global _CLASS
     if _CLASS is not None:
         return _CLASS
+    import io
     from openpyxl.drawing.spreadsheet_drawing import SpreadsheetDrawing
     from openpyxl.worksheet._writer import WorksheetWriter
     from openpyxl.writer.excel import ExcelWriter
@@ -69,23 +70,33 @@ def _writer_class():
             ws._drawing = SpreadsheetDrawing()
             ws._drawing.charts = ws._charts
             ws._drawing.images = ws._images
-            writer = _SheetWriter(ws)
+            # in memory, not through a named temporary file (four file system calls a
+            # sheet); the member's entry as ZipFile.write gives a file just written
+            writer = _SheetWriter(ws, out=io.BytesIO())
             writer.write()
+            data = writer.out.getvalue()
             if writer.fast_rows is not None:
-                with open(writer.out, "rb") as f:
-                    data = f.read()
                 at = data.index(_PLACEHOLDER)
-                with open(writer.out, "wb") as f:
-                    f.write(data[:at])
-                    f.write(writer.fast_rows.encode("utf-8"))
-                    f.write(data[at + len(_PLACEHOLDER):])
+                data = b"".join((data[:at], writer.fast_rows.encode("utf-8"),
+                                 data[at + len(_PLACEHOLDER):]))
             ws._rels = writer._rels
-            self._archive.write(writer.out, ws.path[1:])
+            self._archive.writestr(_member(ws.path[1:], self._archive), data)
             self.manifest.append(ws)
-            writer.cleanup()
 
     _CLASS = _BookWriter
     return _CLASS
+
+
+def _member(name: str, archive):
+    """The zip entry ``ZipFile.write`` makes for a private file written now (openpyxl
+    wrote each sheet to a named temporary file, mode 0600, and stored that)."""
+    import time
+    from zipfile import ZipInfo
+    info = ZipInfo(name, time.localtime(time.time())[:6])
+    info.external_attr = 0o100600 << 16
+    info.compress_type = archive.compression
+    info._compresslevel = archive.compresslevel
+    return info
 
 
 def sheet_rows(ws) -> str | None:
