@@ -111,6 +111,49 @@ def _named_style(cell, name: str) -> None:
         cell._style = copy(array)
 
 
+_LOOK_IDS: Any = None     # book → {(collection, look): id in that collection}
+
+
+def _set_look(cell, collection: str, field: str, key: tuple, make: Callable[[], Any]):
+    """``cell.<look> = make()``: openpyxl hashes the new style object against the book's
+    collection on every assignment (the largest cost of styling a cell); the id it ends
+    with depends only on ``key`` in one book, so it is looked up once per book."""
+    global _LOOK_IDS
+    if _LOOK_IDS is None:
+        import weakref
+        _LOOK_IDS = weakref.WeakKeyDictionary()
+    book = cell.parent.parent
+    known = _LOOK_IDS.setdefault(book, {})
+    sid = known.get((collection, key))
+    if sid is None:
+        sid = known[(collection, key)] = getattr(book, collection).add(make())
+    if cell._style is None:
+        from openpyxl.styles.cell_style import StyleArray
+        cell._style = StyleArray()
+    setattr(cell._style, field, sid)
+    return cell
+
+
+def set_font(cell, **kw):
+    """``cell.font = Font(**kw)``; returns the cell."""
+    from openpyxl.styles import Font
+    return _set_look(cell, "_fonts", "fontId", tuple(sorted(kw.items())), lambda: Font(**kw))
+
+
+def set_fill(cell, colour: str):
+    """``cell.fill = PatternFill("solid", fgColor=colour)``; returns the cell."""
+    from openpyxl.styles import PatternFill
+    return _set_look(cell, "_fills", "fillId", (colour,),
+                     lambda: PatternFill("solid", fgColor=colour))
+
+
+def set_alignment(cell, **kw):
+    """``cell.alignment = Alignment(**kw)``; returns the cell."""
+    from openpyxl.styles import Alignment
+    return _set_look(cell, "_alignments", "alignmentId", tuple(sorted(kw.items())),
+                     lambda: Alignment(**kw))
+
+
 def put_formula(ws, row: int, col: int, formula: str, number_format: str | None = None):
     """Write a formula of ours (starts with '=')."""
     cell = ws.cell(row=row, column=col, value=formula)
@@ -369,7 +412,7 @@ def text_lines(text: str, width: float) -> int:
     return sum(max(1, math.ceil(len(part) / per_line)) for part in str(text).split("\n"))
 
 
-class _Looks:
+class Looks:
     """A sheet's fonts and alignments read by style id, and alignments set by id: the cell
     properties (``cell.font``, ``cell.alignment = Alignment(...)``) build and hash a style
     object on every use; the ids they end with are the same."""
@@ -424,7 +467,7 @@ def fit_for_print(ws, last_col: int | None = None, landscape: bool | None = None
     page; ``title_rows`` (e.g. '1:1') repeated on every page; a footer with the sheet name
     and the page number. The printed columns run to ``last_col`` (default: the last column
     a table uses, widened to hold ``min_chars`` characters). Returns ``last_col``."""
-    looks = _Looks(ws.parent)
+    looks = Looks(ws.parent)
     rows: dict[int, list] = {}
     for (r, _c), cell in ws._cells.items():
         v = cell._value
