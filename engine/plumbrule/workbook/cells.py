@@ -75,13 +75,21 @@ def put(ws, row: int, col: int, value: Any, number_format: str | None = None,
     if v is not None and not isinstance(v, (bool, int, float, _dt.datetime, _dt.date, _dt.time)):
         v = str(v)
     cell = ws.cell(row=row, column=col)
-    if isinstance(v, str):
-        cell.value = clean_text(v)[:32767]
+    t = type(v)
+    if t is str:
+        # what cell.value = text does for text already clean (check_string passes it)
+        cell._value = clean_text(v)[:32767]
         cell.data_type = "s"     # '=HYPERLINK(...)' and '#N/A' stay text
+    elif t is float or t is int or v is None:
+        cell._value = v          # as cell.value = v types a number or a blank
+        cell.data_type = "n"
+    elif t is bool:
+        cell._value = v
+        cell.data_type = "b"
     else:
         cell.value = v
     if number_format:
-        cell.number_format = number_format
+        set_format(cell, number_format)
     elif isinstance(v, _dt.datetime):
         cell.number_format = DATETIME if (v.hour or v.minute or v.second) else DATE
     elif isinstance(v, _dt.date):
@@ -89,6 +97,28 @@ def put(ws, row: int, col: int, value: Any, number_format: str | None = None,
     if style is not None:
         _named_style(cell, style)
     return cell
+
+
+_FORMAT_IDS: Any = None   # book → {number format: its id}
+
+
+def set_format(cell, number_format: str) -> None:
+    """``cell.number_format = number_format``, the format's id looked up once per book
+    (openpyxl registers it in the book's list on every assignment)."""
+    global _FORMAT_IDS
+    if _FORMAT_IDS is None:
+        import weakref
+        _FORMAT_IDS = weakref.WeakKeyDictionary()
+    known = _FORMAT_IDS.setdefault(cell.parent.parent, {})
+    fid = known.get(number_format)
+    if fid is None:
+        cell.number_format = number_format
+        known[number_format] = cell._style.numFmtId
+        return
+    if cell._style is None:
+        from openpyxl.styles.cell_style import StyleArray
+        cell._style = StyleArray()
+    cell._style.numFmtId = fid
 
 
 _NAMED: Any = None       # book → {named style: the style array a cell takes from it}
