@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from typing import Any, Callable
 
+import numpy as np
 import pandas as pd
 
 from plumbrule.render.wording import CAUTION, final_fit_text, validation_text
@@ -121,8 +122,8 @@ def _widths(
         col = frame[c]
         if len(col) and (col.dtype == object or pd.api.types.is_string_dtype(col.dtype)):
             # text: wide enough for most of it
-            lengths = col.head(2000).map(lambda v: len(v) if isinstance(v, str) else 0)
-            longest = max(longest, int(lengths.quantile(0.9)))
+            lengths = [len(v) if isinstance(v, str) else 0 for v in col.head(2000).tolist()]
+            longest = max(longest, int(np.quantile(lengths, 0.9)))   # as Series.quantile
         width = max(minimum, min(maximum, longest + 2))
         if c in ("sale", "comp_sale"):        # an address with its ID: wide enough to read
             width = max(width, 30)
