@@ -109,42 +109,48 @@ def sheet_rows(ws) -> str | None:
     if book.iso_dates:
         return None
     styles = book._cell_styles
-    ids: dict[tuple, int] = {}          # a style's id by its values (as the book's list keys it)
+    sattrs: dict[tuple, str] = {}       # a style's ' s="id"' by its values (ids as the book's
+    cells = ws._cells                   # list keys them, in first-use order)
     rows: dict[int, list] = defaultdict(list)
-    for key in sorted(ws._cells):
-        rows[key[0]].append(ws._cells[key])
+    for key in sorted(cells):
+        rows[key[0]].append(cells[key])
     dims = ws.row_dimensions
     for r in dims.keys() - rows.keys():     # empty rows that carry a height or a style
         rows[r] = []
     letters: dict[int, str] = {}
     out = ["<sheetData>"]
     add = out.append
-    for r, cells in sorted(rows.items()):
+    for r, row in sorted(rows.items()):
         attrs = {"r": f"{r}"}
         attrs.update(dims.get(r, {}))
         add("<row" + "".join(f' {k}="{_escape_attrib(v)}"' for k, v in attrs.items()) + ">")
         rtext = str(r)
-        for cell in cells:
-            if cell._comment is not None or cell.hyperlink:
+        for cell in row:
+            if cell._comment is not None or getattr(cell, "_hyperlink", None):
                 return None
             value = cell._value
             style = cell._style
-            key = _UNSTYLED if style is None else tuple(style)
-            styled = key != _UNSTYLED           # openpyxl: any(style)
-            if value is None and not styled:
-                continue
+            if style is None:
+                if value is None:
+                    continue
+                sattr = ""
+            else:
+                key = tuple(style)
+                sattr = sattrs.get(key)
+                if sattr is None:
+                    # openpyxl: a style with every field 0 is no style (any(style))
+                    sattr = sattrs[key] = (f' s="{styles.add(style)}"' if key != _UNSTYLED
+                                           else "")
+                if value is None and not sattr:
+                    continue
             col = cell.column
             letter = letters.get(col)
             if letter is None:
                 letter = letters[col] = get_column_letter(col)
-            head = f'<c r="{letter}{rtext}"'
-            if styled:
-                sid = ids.get(key)
-                if sid is None:
-                    sid = ids[key] = styles.add(style)
-                head += f' s="{sid}"'
+            head = f'<c r="{letter}{rtext}"{sattr}'
             kind = cell.data_type
-            if kind == "n" and (type(value) is float or type(value) is int):
+            t = type(value)
+            if kind == "n" and (t is float or t is int):
                 # safe_string's text for a number: %.16g, nothing for NaN and infinities
                 if value != value or value in _INFINITE:
                     add(f'{head} t="n"><v /></c>')
@@ -154,7 +160,7 @@ def sheet_rows(ws) -> str | None:
             if kind == "s":
                 if value is None or value == "":
                     add(head + ' t="inlineStr" />')
-                elif type(value) is not str:
+                elif t is not str:
                     return None         # rich text
                 else:
                     stripped = value.strip()
@@ -164,7 +170,7 @@ def sheet_rows(ws) -> str | None:
             if kind == "f":
                 if value is None or value == "":
                     add(head + " />")
-                elif type(value) is not str:
+                elif t is not str:
                     return None         # an array or data-table formula
                 else:
                     add(f"{head}><f>{_escape_cdata(value[1:])}</f><v /></c>")
