@@ -58,9 +58,16 @@ def _writer_class():
     class _SheetWriter(WorksheetWriter):
         fast_rows: str | None = None
 
+        def write_dimensions(self):
+            if not getattr(self.ws, _NUMBERS, None):
+                return super().write_dimensions()
+            from openpyxl.worksheet.dimensions import SheetDimension
+            self.xf.send(SheetDimension(dimension(self.ws)).to_tree())
+
         def write_rows(self):
             self.fast_rows = sheet_rows(self.ws)
             if self.fast_rows is None:
+                materialize(self.ws)
                 super().write_rows()
             else:                   # a placeholder, replaced by the rows once written
                 self.xf.send(Element("sheetData"))
@@ -85,6 +92,43 @@ def _writer_class():
 
     _CLASS = _BookWriter
     return _CLASS
+
+
+_NUMBERS = "_plumb_numbers"      # a worksheet's number columns kept as text (number_column)
+
+
+def number_column(ws, values, top: int, col: int) -> None:
+    """Column ``col`` from row ``top`` down holding ``values`` (a float or integer numpy
+    array), unstyled, as ``cells.write_values`` writes them (a non-finite value is an
+    empty cell), but kept as the text of each value and written straight into the sheet's
+    XML: no cell object per value. For blocks nothing else reads (the chart data)."""
+    numbers = ws.__dict__.setdefault(_NUMBERS, {})
+    numbers[col] = (top, values.tolist())       # plain floats or ints
+
+
+def materialize(ws) -> None:
+    """The number columns of ``ws`` as cells (for openpyxl's own writer)."""
+    numbers = ws.__dict__.pop(_NUMBERS, None)
+    if not numbers:
+        return
+    from plumbrule.workbook.cells import write_values
+    for col, (top, values) in numbers.items():
+        write_values(ws, values, top, col)
+
+
+def dimension(ws) -> str:
+    """``ws.calculate_dimension()`` counting the number columns' cells too."""
+    from openpyxl.utils import get_column_letter
+    rows = {r for r, _ in ws._cells}
+    cols = {c for _, c in ws._cells}
+    for col, (top, values) in getattr(ws, _NUMBERS, {}).items():
+        if values:
+            cols.add(col)
+            rows.update((top, top + len(values) - 1))
+    if not rows:
+        return "A1:A1"
+    return (f"{get_column_letter(min(cols))}{min(rows)}:"
+            f"{get_column_letter(max(cols))}{max(rows)}")
 
 
 def _member(name: str, archive):
@@ -114,10 +158,19 @@ def sheet_rows(ws) -> str | None:
     rows: dict[int, list] = defaultdict(list)
     for key in sorted(cells):
         rows[key[0]].append(cells[key])
+    letters: dict[int, str] = {}
+    numbers: dict[int, list] = defaultdict(list)     # row → [(column, cell text or None)]
+    for col, (top, values) in sorted(getattr(ws, _NUMBERS, {}).items()):
+        letter = letters[col] = get_column_letter(col)
+        for r, v in enumerate(values, start=top):
+            # as a number cell is written (below); a non-finite value is an empty cell
+            numbers[r].append((col, None if v != v or v in _INFINITE else
+                               f'<c r="{letter}{r}" t="n"><v>{"%.16g" % v}</v></c>'))
+    for r in numbers.keys() - rows.keys():
+        rows[r] = []
     dims = ws.row_dimensions
     for r in dims.keys() - rows.keys():     # empty rows that carry a height or a style
         rows[r] = []
-    letters: dict[int, str] = {}
     out = ["<sheetData>"]
     add = out.append
     for r, row in sorted(rows.items()):
@@ -125,7 +178,16 @@ def sheet_rows(ws) -> str | None:
         attrs.update(dims.get(r, {}))
         add("<row" + "".join(f' {k}="{_escape_attrib(v)}"' for k, v in attrs.items()) + ">")
         rtext = str(r)
+        texts = numbers.get(r)
+        if texts:       # cells and number-column texts in column order
+            row = [c for _, c in sorted([(c.column, c) for c in row] + texts,
+                                        key=lambda item: item[0])]
         for cell in row:
+            if cell is None:
+                continue
+            if type(cell) is str:
+                add(cell)
+                continue
             if cell._comment is not None or getattr(cell, "_hyperlink", None):
                 return None
             value = cell._value
