@@ -329,7 +329,12 @@ def merge(ws, start_row: int, start_column: int, end_row: int, end_column: int) 
     coord = (f"{get_column_letter(start_column)}{start_row}:"
              f"{get_column_letter(end_column)}{end_row}")
     mcr = MergedCellRange(ws, coord)   # openpyxl's own: the last cell's border onto the first
-    ws.merged_cells.add(mcr)
+    ranges = ws.merged_cells.ranges
+    if any(r.title for r in ranges):
+        ws.merged_cells.add(mcr)
+    elif not any(r.min_row <= mcr.min_row <= mcr.max_row <= r.max_row
+                 and r.min_col <= mcr.min_col <= mcr.max_col <= r.max_col for r in ranges):
+        ranges.add(mcr)     # MultiCellRange.add: not when a range holds it (plain comparisons)
     start = mcr.start_cell
     for r in range(start_row, end_row + 1):
         for c in range(start_column, end_column + 1):
