@@ -144,7 +144,7 @@ def _named_style(cell, name: str) -> None:
 _LOOK_IDS: Any = None     # book → {(collection, look): id in that collection}
 
 
-def _set_look(cell, collection: str, field: str, key: tuple, make: Callable[[], Any]):
+def set_look(cell, collection: str, field: str, key: tuple, make: Callable[[], Any]):
     """``cell.<look> = make()``: openpyxl hashes the new style object against the book's
     collection on every assignment (the largest cost of styling a cell); the id it ends
     with depends only on ``key`` in one book, so it is looked up once per book."""
@@ -167,20 +167,20 @@ def _set_look(cell, collection: str, field: str, key: tuple, make: Callable[[], 
 def set_font(cell, **kw):
     """``cell.font = Font(**kw)``; returns the cell."""
     from openpyxl.styles import Font
-    return _set_look(cell, "_fonts", "fontId", tuple(sorted(kw.items())), lambda: Font(**kw))
+    return set_look(cell, "_fonts", "fontId", tuple(sorted(kw.items())), lambda: Font(**kw))
 
 
 def set_fill(cell, colour: str):
     """``cell.fill = PatternFill("solid", fgColor=colour)``; returns the cell."""
     from openpyxl.styles import PatternFill
-    return _set_look(cell, "_fills", "fillId", (colour,),
+    return set_look(cell, "_fills", "fillId", (colour,),
                      lambda: PatternFill("solid", fgColor=colour))
 
 
 def set_alignment(cell, **kw):
     """``cell.alignment = Alignment(**kw)``; returns the cell."""
     from openpyxl.styles import Alignment
-    return _set_look(cell, "_alignments", "alignmentId", tuple(sorted(kw.items())),
+    return set_look(cell, "_alignments", "alignmentId", tuple(sorted(kw.items())),
                      lambda: Alignment(**kw))
 
 
@@ -566,10 +566,12 @@ def fit_for_print(ws, last_col: int | None = None, landscape: bool | None = None
                 w = width(cell.column)
             scale, line = looks.font(cell)
             w = w / scale
-            lines = text_lines(text, w)
             if len(text) > w * 0.9 or "\n" in text:
+                lines = text_lines(text, w)
                 horizontal, indent, _, _ = looks.alignment(cell)
                 looks.align(cell, horizontal, indent, True, "top")
+            else:
+                lines = 1       # text_lines: one part, no longer than a line
             need = max(need, lines * line)
         if need > (height or LINE_HEIGHT):
             dims[r].height = need

@@ -664,8 +664,9 @@ def _section(ws, r, text) -> int:
     c = put(ws, r, 1, text)
     set_font(c, bold=True, size=12, color=cells.TITLE_COLOUR)
     line = Side(style="medium", color=cells.TITLE_COLOUR)
-    for col in range(1, LAST_COL + 1):
-        ws.cell(row=r, column=col).border = Border(bottom=line)
+    for col in range(1, LAST_COL + 1):     # cell.border = Border(bottom=line), by id
+        cells.set_look(ws.cell(row=r, column=col), "_borders", "borderId", ("section rule",),
+                       lambda: Border(bottom=line))
     return r + 1
 
 
