@@ -138,10 +138,11 @@ class GridRules:
 
 
 def adjustment_grid(model, subj, comps: CompSet | None, rules: GridRules, when: _dt.date,
-                    estimates: pd.DataFrame | None = None):
+                    estimates: pd.DataFrame | None = None, gap: bool = True):
     """(grid, reconciled) DataFrames; both empty (with their columns) without
     comparables. Money in the sale-price column's units; *_pct are shares of
-    the comparable's price (0.05 = 5 %)."""
+    the comparable's price (0.05 = 5 %). ``gap`` False leaves the reconciled record's gap
+    columns out (for a caller that adds them itself, :func:`with_gap`)."""
     if comps is None:
         return (pd.DataFrame(columns=GRID_COLUMNS),
                 pd.DataFrame(columns=RECONCILED_COLUMNS))
@@ -182,7 +183,8 @@ def adjustment_grid(model, subj, comps: CompSet | None, rules: GridRules, when: 
     grid["adjustment_rounded"] = _rounded_adjustments(grid, rules.rounding)
     reconciled = reconcile(label, comps.data.index.to_numpy(), adjusted, weights,
                            rules.weights, flags, estimates)
-    reconciled = with_gap(reconciled, grid, rules.gap)
+    if gap:
+        reconciled = with_gap(reconciled, grid, rules.gap)
     return grid, reconciled
 
 
