@@ -59,8 +59,6 @@ def _writer_class():
         fast_rows: str | None = None
 
         def write_dimensions(self):
-            if not getattr(self.ws, _NUMBERS, None):
-                return super().write_dimensions()
             from openpyxl.worksheet.dimensions import SheetDimension
             self.xf.send(SheetDimension(dimension(self.ws)).to_tree())
 
@@ -119,12 +117,12 @@ def materialize(ws) -> None:
 def dimension(ws) -> str:
     """``ws.calculate_dimension()`` counting the number columns' cells too."""
     from openpyxl.utils import get_column_letter
-    rows = {r for r, _ in ws._cells}
-    cols = {c for _, c in ws._cells}
+    rows = [r for r, _ in ws._cells]
+    cols = [c for _, c in ws._cells]
     for col, (top, values) in getattr(ws, _NUMBERS, {}).items():
         if values:
-            cols.add(col)
-            rows.update((top, top + len(values) - 1))
+            cols.append(col)
+            rows += (top, top + len(values) - 1)
     if not rows:
         return "A1:A1"
     return (f"{get_column_letter(min(cols))}{min(rows)}:"
