@@ -137,7 +137,6 @@ def _member(name: str, archive):
     info = ZipInfo(name, time.localtime(time.time())[:6])
     info.external_attr = 0o100600 << 16
     info.compress_type = archive.compression
-    info._compresslevel = archive.compresslevel
     return info
 
 
@@ -196,11 +195,12 @@ def sheet_rows(ws) -> str | None:
                 sattr = ""
             else:
                 key = tuple(style)
-                sattr = sattrs.get(key)
-                if sattr is None:
+                known = sattrs.get(key)
+                if known is None:
                     # openpyxl: a style with every field 0 is no style (any(style))
-                    sattr = sattrs[key] = (f' s="{styles.add(style)}"' if key != _UNSTYLED
+                    known = sattrs[key] = (f' s="{styles.add(style)}"' if key != _UNSTYLED
                                            else "")
+                sattr = known
                 if value is None and not sattr:
                     continue
             col = cell.column
