@@ -30,4 +30,6 @@ def chart_values(wb, ref) -> np.ndarray:
     """The numbers of a series reference such as 'Chart data'!$A$3:$A$40."""
     sheet, cells = ref.rsplit("!", 1)
     ws = wb[sheet.strip("'")]
+    from plumbrule.workbook.save import materialize
+    materialize(ws)         # a book not yet saved keeps its chart numbers as number columns
     return np.array([c.value for row in ws[cells.replace("$", "")] for c in row], dtype=float)

@@ -20,6 +20,9 @@ def _parts(data: bytes) -> dict[str, bytes]:
 
 
 def _openpyxl_bytes(book) -> bytes:
+    from plumbrule.workbook.save import materialize
+    for ws in book.worksheets:      # number columns (chart data) as the cells they stand for
+        materialize(ws)
     buf = io.BytesIO()
     book.save(buf)
     return buf.getvalue()
@@ -165,3 +168,31 @@ def _column(use_block: bool, number_format) -> bytes:
 def test_write_values_writes_what_put_writes(number_format):
     # the last value blank: the sheet's dimension still reaches its row, as with put
     assert _parts(_column(True, number_format)) == _parts(_column(False, number_format))
+
+
+def _numbers(direct: bool, writer) -> bytes:
+    import numpy as np
+    from openpyxl import Workbook
+    from plumbrule.workbook.cells import put, write_values
+    from plumbrule.workbook.save import number_column
+    columns = [np.array([1.5, np.nan, 0.1 + 0.2, -0.0, 1e-300, np.inf, 123456789.123456789]),
+               np.array([3, -7, 10 ** 17], dtype=np.int64), np.array([np.nan, 2.0])]
+    book = Workbook()
+    ws = book.active
+    put(ws, 1, 2, "title")                  # cells of their own beside the number columns
+    put(ws, 4, 4, "between")
+    put(ws, 2, 9, "header")
+    for j, values in enumerate(columns):
+        col = 2 + 3 * j
+        if direct:
+            number_column(ws, values, 3, col)
+        else:
+            write_values(ws, values, 3, col)
+    return writer(book)
+
+
+@pytest.mark.parametrize("writer", [to_bytes, _openpyxl_bytes])
+def test_number_columns_are_the_cells_write_values_writes(writer):
+    # the reference: the same values written as cells, saved by openpyxl's own writer
+    # (dimension, blank rows and a trailing non-finite value included)
+    assert _parts(_numbers(True, writer)) == _parts(_numbers(False, _openpyxl_bytes))

@@ -104,3 +104,23 @@ def test_grafting_again_replaces_and_does_not_grow(tmp_path):
         assert a.namelist() == b.namelist()
         for n in a.namelist():
             assert a.read(n) == b.read(n), n           # same bytes: styles reused, ids stable
+
+
+def test_restyle_maps_every_cell_row_and_column_style():
+    # the ids written by the result book's writer (r then s) and any other attribute order
+    # (openpyxl's writer, a hand-made part) both follow the merged styles; expected output
+    # written out by hand
+    from plumbrule.workbook.graft import _restyle_sheet
+    xf = {0: 0, 1: 5, 2: 9}
+    ours = (b'<cols><col min="1" max="1" style="2"/></cols><sheetData>'
+            b'<row r="1" s="1" customFormat="1"><c r="A1" s="2" t="n"><v>1</v></c>'
+            b'<c r="B1" t="inlineStr"><is><t>a s="1" b</t></is></c></row>'
+            b'<row r="2"><c r="A2" s="1"/><c t="n" s="2" r="B2"><v>2</v></c></row></sheetData>')
+    want = (b'<cols><col min="1" max="1" style="9"/></cols><sheetData>'
+            b'<row r="1" s="5" customFormat="1"><c r="A1" s="9" t="n"><v>1</v></c>'
+            b'<c r="B1" t="inlineStr"><is><t>a s="1" b</t></is></c></row>'
+            b'<row r="2"><c r="A2" s="5"/><c t="n" s="9" r="B2"><v>2</v></c></row></sheetData>')
+    assert _restyle_sheet(ours, xf, {}) == want
+    plain = ours.replace(b'<c t="n" s="2" r="B2">', b'<c r="B2" s="2" t="n">')
+    assert _restyle_sheet(plain, xf, {}) == want.replace(b'<c t="n" s="9" r="B2">',
+                                                         b'<c r="B2" s="9" t="n">')

@@ -138,10 +138,11 @@ class GridRules:
 
 
 def adjustment_grid(model, subj, comps: CompSet | None, rules: GridRules, when: _dt.date,
-                    estimates: pd.DataFrame | None = None):
+                    estimates: pd.DataFrame | None = None, gap: bool = True):
     """(grid, reconciled) DataFrames; both empty (with their columns) without
     comparables. Money in the sale-price column's units; *_pct are shares of
-    the comparable's price (0.05 = 5 %)."""
+    the comparable's price (0.05 = 5 %). ``gap`` False leaves the reconciled record's gap
+    columns out (for a caller that adds them itself, :func:`with_gap`)."""
     if comps is None:
         return (pd.DataFrame(columns=GRID_COLUMNS),
                 pd.DataFrame(columns=RECONCILED_COLUMNS))
@@ -182,7 +183,8 @@ def adjustment_grid(model, subj, comps: CompSet | None, rules: GridRules, when: 
     grid["adjustment_rounded"] = _rounded_adjustments(grid, rules.rounding)
     reconciled = reconcile(label, comps.data.index.to_numpy(), adjusted, weights,
                            rules.weights, flags, estimates)
-    reconciled = with_gap(reconciled, grid, rules.gap)
+    if gap:
+        reconciled = with_gap(reconciled, grid, rules.gap)
     return grid, reconciled
 
 
@@ -235,27 +237,40 @@ def grid_table(grid: pd.DataFrame, rounding: float, names=None, subject_row=None
         {"line": "sheet row", "kind": "row", "subject": subject_row},
         {"line": "sale price", "kind": "price", "subject": None},
     ]
+    subject_value: dict = {}             # each feature's first subject value
+    for f, v in zip(feats["feature"].to_numpy(), feats["subject_value"].to_numpy(),
+                    strict=True):
+        subject_value.setdefault(f, v)
     for f in order:
         kind = kinds[f]
         word = "market conditions (sale date)" if kind == "market" else f
         lines.append({"line": word, "kind": "market" if kind == "market" else "feature",
-                      "subject": feats.loc[feats["feature"] == f, "subject_value"].iloc[0]})
+                      "subject": subject_value[f]})
     lines += [{"line": w, "kind": k, "subject": None} for w, k in (
         ("net adjustment", "net"), ("gross adjustment", "gross"),
         ("adjusted price", "adjusted"), ("weight", "weight"), ("notes", "notes"))]
     out = pd.DataFrame(lines)
+    # each comparable's lines by position in the grid's arrays (one boolean filter, index
+    # and row lookup per comparable in pandas cost more than the whole table)
+    comp_row = grid["comp_row"].to_numpy()
+    is_feat = (grid["kind"] != "total").to_numpy()
+    feature = grid["feature"].to_numpy()
+    comp_value = grid["comp_value"].to_numpy()
+    sale_price, weight = grid["sale_price"].to_numpy(), grid["weight"].to_numpy()
+    flags = grid["flags"].to_numpy()
+    adj_at = (adj.to_numpy(dtype=float) if adj.index.equals(grid.index)
+              else adj[grid.index].to_numpy(dtype=float))
     for i, r in enumerate(rows, start=1):
-        block = grid[grid["comp_row"] == r]
-        f_rows = block[block["kind"] != "total"].set_index("feature")
-        tot = block[block["kind"] == "total"].iloc[0]
-        a = adj[block.index]
-        a_feat = a[(block["kind"] != "total").to_numpy()].to_numpy(dtype=float)
-        price = float(tot["sale_price"])
+        at = np.flatnonzero(comp_row == r)
+        f_at, t_at = at[is_feat[at]], at[~is_feat[at]][0]
+        value_of = {feature[k]: comp_value[k] for k in f_at[::-1]}   # the first one wins
+        a_feat = adj_at[f_at]
+        price = float(sale_price[t_at])
         net = float(a_feat.sum())
         gross = float(np.abs(a_feat).sum())
         name = names.get(r, f"row {r}") if names is not None else f"row {r}"
-        value = [name, r, price] + [f_rows.loc[f, "comp_value"] for f in order] + [
-            net / price, gross / price, None, float(tot["weight"]), tot["flags"] or ""]
+        value = [name, r, price] + [value_of[f] for f in order] + [
+            net / price, gross / price, None, float(weight[t_at]), flags[t_at] or ""]
         money = [None, None, None] + list(a_feat) + [net, gross, price + net, None, None]
         out[f"comp_{i}"] = pd.Series(value, dtype=object)
         out[f"comp_{i}_adjustment"] = pd.Series(money, dtype=object).astype(float)

@@ -96,8 +96,9 @@ def valuate(analysis, subjects: Any, comps=(), settings: Settings | Mapping | No
         raise SpecError(f"Comparables belong to one subject, but {len(subj.data)} subjects "
                         "were given. Value one subject with 'comps', or leave 'comps' empty.",
                         setting="comps")
+    # the gap to the model's estimate is added below, with the comparables' names
     grid, reconciled = adjustment_grid(model, subj, comp_set, GridRules.from_settings(settings),
-                                       when, estimates=estimates)
+                                       when, estimates=estimates, gap=False)
     from plumbrule.sales import with_ids, with_names
     from plumbrule.valuation.comparables import grid_table, with_gap
     grid = with_ids(grid, analysis.ids, column="comp_row", name="comp_id")

@@ -75,13 +75,21 @@ def put(ws, row: int, col: int, value: Any, number_format: str | None = None,
     if v is not None and not isinstance(v, (bool, int, float, _dt.datetime, _dt.date, _dt.time)):
         v = str(v)
     cell = ws.cell(row=row, column=col)
-    if isinstance(v, str):
-        cell.value = clean_text(v)[:32767]
+    t = type(v)
+    if t is str:
+        # what cell.value = text does for text already clean (check_string passes it)
+        cell._value = clean_text(v)[:32767]
         cell.data_type = "s"     # '=HYPERLINK(...)' and '#N/A' stay text
+    elif t is float or t is int or v is None:
+        cell._value = v          # as cell.value = v types a number or a blank
+        cell.data_type = "n"
+    elif t is bool:
+        cell._value = v
+        cell.data_type = "b"
     else:
         cell.value = v
     if number_format:
-        cell.number_format = number_format
+        set_format(cell, number_format)
     elif isinstance(v, _dt.datetime):
         cell.number_format = DATETIME if (v.hour or v.minute or v.second) else DATE
     elif isinstance(v, _dt.date):
@@ -89,6 +97,28 @@ def put(ws, row: int, col: int, value: Any, number_format: str | None = None,
     if style is not None:
         _named_style(cell, style)
     return cell
+
+
+_FORMAT_IDS: Any = None   # book → {number format: its id}
+
+
+def set_format(cell, number_format: str) -> None:
+    """``cell.number_format = number_format``, the format's id looked up once per book
+    (openpyxl registers it in the book's list on every assignment)."""
+    global _FORMAT_IDS
+    if _FORMAT_IDS is None:
+        import weakref
+        _FORMAT_IDS = weakref.WeakKeyDictionary()
+    known = _FORMAT_IDS.setdefault(cell.parent.parent, {})
+    fid = known.get(number_format)
+    if fid is None:
+        cell.number_format = number_format
+        known[number_format] = cell._style.numFmtId
+        return
+    if cell._style is None:
+        from openpyxl.styles.cell_style import StyleArray
+        cell._style = StyleArray()
+    cell._style.numFmtId = fid
 
 
 _NAMED: Any = None       # book → {named style: the style array a cell takes from it}
@@ -109,6 +139,49 @@ def _named_style(cell, name: str) -> None:
         known[name] = copy(cell._style)
     else:
         cell._style = copy(array)
+
+
+_LOOK_IDS: Any = None     # book → {(collection, look): id in that collection}
+
+
+def set_look(cell, collection: str, field: str, key: tuple, make: Callable[[], Any]):
+    """``cell.<look> = make()``: openpyxl hashes the new style object against the book's
+    collection on every assignment (the largest cost of styling a cell); the id it ends
+    with depends only on ``key`` in one book, so it is looked up once per book."""
+    global _LOOK_IDS
+    if _LOOK_IDS is None:
+        import weakref
+        _LOOK_IDS = weakref.WeakKeyDictionary()
+    book = cell.parent.parent
+    known = _LOOK_IDS.setdefault(book, {})
+    sid = known.get((collection, key))
+    if sid is None:
+        sid = known[(collection, key)] = getattr(book, collection).add(make())
+    if cell._style is None:
+        from openpyxl.styles.cell_style import StyleArray
+        cell._style = StyleArray()
+    setattr(cell._style, field, sid)
+    return cell
+
+
+def set_font(cell, **kw):
+    """``cell.font = Font(**kw)``; returns the cell."""
+    from openpyxl.styles import Font
+    return set_look(cell, "_fonts", "fontId", tuple(sorted(kw.items())), lambda: Font(**kw))
+
+
+def set_fill(cell, colour: str):
+    """``cell.fill = PatternFill("solid", fgColor=colour)``; returns the cell."""
+    from openpyxl.styles import PatternFill
+    return set_look(cell, "_fills", "fillId", (colour,),
+                     lambda: PatternFill("solid", fgColor=colour))
+
+
+def set_alignment(cell, **kw):
+    """``cell.alignment = Alignment(**kw)``; returns the cell."""
+    from openpyxl.styles import Alignment
+    return set_look(cell, "_alignments", "alignmentId", tuple(sorted(kw.items())),
+                     lambda: Alignment(**kw))
 
 
 def put_formula(ws, row: int, col: int, formula: str, number_format: str | None = None):
@@ -150,6 +223,8 @@ def write_frame(ws, frame, top: int, left: int = 1, formats: Formats | None = No
 
 def write_values(ws, values: list, top: int, col: int, number_format: str | None = None) -> None:
     """``put(ws, top + i, col, v, number_format)`` for each value, the cells built directly."""
+    if isinstance(values, np.ndarray) and values.dtype.kind in "fiub":
+        values = values.tolist()        # plain floats, ints and bools, as plain() makes them
     _write_column(ws, values, top, col, number_format, _StyleCache(ws), blanks=True)
 
 
@@ -174,37 +249,62 @@ def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache
                   blanks: bool = False) -> None:
     """The cells of one column from ``top`` down; a blank is skipped, or with ``blanks``
     written as put writes it (an empty cell)."""
-    from copy import copy
     from openpyxl.cell.cell import Cell
+    from openpyxl.styles.cell_style import StyleArray
     cells = ws._cells
     fixed = None if callable(fmt) else fmt
+    new = Cell.__new__
+    isfinite = math.isfinite
     for i, v in enumerate(values):
-        v = plain(v)
+        t = type(v)
+        # the common plain types first (what plain() returns them as), without its checks
+        if t is float or t is _F64:
+            v = float(v)
+            if not isfinite(v):
+                v = None
+            kind = "n"
+        elif t is str:
+            kind, v = "s", clean_text(v)[:32767]
+        elif t is int:
+            kind = "n"
+        else:
+            v = plain(v)
+            if v is None:
+                pass
+            elif isinstance(v, str):
+                kind, v = "s", clean_text(v)[:32767]
+            elif isinstance(v, bool):
+                kind = "b"
+            elif isinstance(v, (int, float)):
+                kind = "n"
+            elif isinstance(v, (_dt.datetime, _dt.date, _dt.time)):
+                put(ws, top + i, col, v, fixed if not callable(fmt) else None)
+                continue
+            else:
+                if isinstance(v, (list, tuple, set)):
+                    v = ", ".join(map(str, v))
+                kind, v = "s", clean_text(str(v))[:32767]
         if v is None:
             if blanks:
                 put(ws, top + i, col, None, fixed)
             continue
-        if isinstance(v, str):
-            kind, v = "s", clean_text(v)[:32767]
-        elif isinstance(v, bool):
-            kind = "b"
-        elif isinstance(v, (int, float)):
-            kind = "n"
-        elif isinstance(v, (_dt.datetime, _dt.date, _dt.time)):
-            put(ws, top + i, col, v, fixed if not callable(fmt) else None)
-            continue
-        else:
-            if isinstance(v, (list, tuple, set)):
-                v = ", ".join(map(str, v))
-            kind, v = "s", clean_text(str(v))[:32767]
         f = fmt(v) if callable(fmt) else fixed
-        cell = Cell(ws, row=top + i, column=col)
+        # Cell(ws, row=, column=) with its value, type and style array set: the slots
+        # filled directly (the constructor's descriptor calls cost more than the cell)
+        cell = new(Cell)
+        cell.parent = ws
+        cell.row = top + i
+        cell.column = col
         cell._value = v
+        cell._hyperlink = None
+        cell._comment = None
         cell.data_type = kind
-        cell._style = copy(styles.get(f if kind in "nb" or not callable(fmt) else None))
+        array = styles.get(f if kind in "nb" or not callable(fmt) else None)
+        cell._style = None if array is None else StyleArray(array)
         cells[(top + i, col)] = cell
 
 
+_F64 = np.float64
 _BORDERS: Any = None      # book → {(border id, first cell's border id, side): border id}
 
 
@@ -229,7 +329,12 @@ def merge(ws, start_row: int, start_column: int, end_row: int, end_column: int) 
     coord = (f"{get_column_letter(start_column)}{start_row}:"
              f"{get_column_letter(end_column)}{end_row}")
     mcr = MergedCellRange(ws, coord)   # openpyxl's own: the last cell's border onto the first
-    ws.merged_cells.add(mcr)
+    ranges = ws.merged_cells.ranges
+    if any(r.title for r in ranges):
+        ws.merged_cells.add(mcr)
+    elif not any(r.min_row <= mcr.min_row <= mcr.max_row <= r.max_row
+                 and r.min_col <= mcr.min_col <= mcr.max_col <= r.max_col for r in ranges):
+        ranges.add(mcr)     # MultiCellRange.add: not when a range holds it (plain comparisons)
     start = mcr.start_cell
     for r in range(start_row, end_row + 1):
         for c in range(start_column, end_column + 1):
@@ -342,7 +447,7 @@ def text_lines(text: str, width: float) -> int:
     return sum(max(1, math.ceil(len(part) / per_line)) for part in str(text).split("\n"))
 
 
-class _Looks:
+class Looks:
     """A sheet's fonts and alignments read by style id, and alignments set by id: the cell
     properties (``cell.font``, ``cell.alignment = Alignment(...)``) build and hash a style
     object on every use; the ids they end with are the same."""
@@ -397,7 +502,7 @@ def fit_for_print(ws, last_col: int | None = None, landscape: bool | None = None
     page; ``title_rows`` (e.g. '1:1') repeated on every page; a footer with the sheet name
     and the page number. The printed columns run to ``last_col`` (default: the last column
     a table uses, widened to hold ``min_chars`` characters). Returns ``last_col``."""
-    looks = _Looks(ws.parent)
+    looks = Looks(ws.parent)
     rows: dict[int, list] = {}
     for (r, _c), cell in ws._cells.items():
         v = cell._value
@@ -461,10 +566,12 @@ def fit_for_print(ws, last_col: int | None = None, landscape: bool | None = None
                 w = width(cell.column)
             scale, line = looks.font(cell)
             w = w / scale
-            lines = text_lines(text, w)
             if len(text) > w * 0.9 or "\n" in text:
+                lines = text_lines(text, w)
                 horizontal, indent, _, _ = looks.alignment(cell)
                 looks.align(cell, horizontal, indent, True, "top")
+            else:
+                lines = 1       # text_lines: one part, no longer than a line
             need = max(need, lines * line)
         if need > (height or LINE_HEIGHT):
             dims[r].height = need

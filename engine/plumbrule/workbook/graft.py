@@ -632,15 +632,31 @@ def _append(text: str, container: str, p: str, items: list[str], before=(),
     return text[:pos] + "".join(items) + text[pos:]
 
 
+_CELL_S = re.compile(rb'(<c r="[A-Z]{1,3}[0-9]{1,7}" s=")([0-9]+)"')    # as save.py writes
+_ANY_CELL_S = re.compile(rb'(<c\b[^>]*?\bs=")(\d+)"')
+_ROW_S = re.compile(rb'(<row\b[^>]*?\bs=")(\d+)"')
+_COL_STYLE = re.compile(rb'(<col\b[^>]*?\bstyle=")(\d+)"')
+
+
 def _restyle_sheet(data: bytes, xf_map: dict[int, int], dxf_map: dict[int, int]) -> bytes:
     """Point a result sheet's cells, rows, columns and conditional formats at the merged
     formats."""
+    known: dict[bytes, bytes] = {}
+
     def fix_s(m):
-        return m.group(1) + str(xf_map.get(int(m.group(2)), 0)).encode() + b'"'
-    data = re.sub(rb'(<c\b[^>]*?\bs=")(\d+)"', fix_s, data)
-    data = re.sub(rb'(<row\b[^>]*?\bs=")(\d+)"', fix_s, data)
-    data = re.sub(rb'(<col\b[^>]*?\bstyle=")(\d+)"', fix_s, data)
+        old = m.group(2)
+        new = known.get(old)
+        if new is None:
+            new = known[old] = str(xf_map.get(int(old), 0)).encode()
+        return m.group(1) + new + b'"'
+    out, n_rows = _ROW_S.subn(fix_s, data)
+    # the cells as the result book's writer writes them (r, then s): a literal start the
+    # search finds fast; when that does not account for every s attribute, any cell form
+    out, n_cells = _CELL_S.subn(fix_s, out)
+    if n_rows + n_cells != data.count(b' s="'):
+        out = _ROW_S.sub(fix_s, _ANY_CELL_S.sub(fix_s, data))
+    out = _COL_STYLE.sub(fix_s, out)
     if dxf_map:
-        data = re.sub(rb'(<cfRule\b[^>]*?\bdxfId=")(\d+)"', lambda m: m.group(1) + str(
-            dxf_map.get(int(m.group(2)), 0)).encode() + b'"', data)
-    return data
+        out = re.sub(rb'(<cfRule\b[^>]*?\bdxfId=")(\d+)"', lambda m: m.group(1) + str(
+            dxf_map.get(int(m.group(2)), 0)).encode() + b'"', out)
+    return out

@@ -32,7 +32,7 @@ import pandas as pd
 
 from plumbrule.intake.cells import is_blank
 from plumbrule.model.design import DAYS_PER_MONTH
-from plumbrule.workbook.cells import DATE as _DATE, MONEY as _MONEY
+from plumbrule.workbook.cells import DATE as _DATE, MONEY as _MONEY, set_fill, set_font
 
 NAMES = ("plumb_live_estimate", "plumb_live_pi_low", "plumb_live_pi_high")
 
@@ -298,8 +298,7 @@ def _results(w: _Writer, model, start: _Start, inputs, level_cells, consts, firs
         w.text(i, 1, label, bold=big)
         cell = w.formula(i, 2, formula, fmt)
         if big:
-            from openpyxl.styles import Font
-            cell.font = Font(bold=True)
+            set_font(cell, bold=True)
         w.text(i, 3, text.strip("; "))
     r += len(rows)
     levels = dict(model.encoding.levels)
@@ -394,13 +393,12 @@ class _Writer:
         self.ws = ws
 
     def text(self, row, col, value, bold=False, italic=False, size=None, fill=None):
-        from openpyxl.styles import Font, PatternFill
         from plumbrule.workbook.cells import put
         cell = put(self.ws, row, col, "" if value is None else str(value))   # text stays text
         if bold or italic or size:
-            cell.font = Font(bold=bold, italic=italic, size=size)
+            set_font(cell, bold=bold, italic=italic, size=size)
         if fill:
-            cell.fill = PatternFill("solid", fgColor=fill)
+            set_fill(cell, fill)
         return cell
 
     def formula(self, row, col, formula: str, fmt=None):
@@ -411,9 +409,8 @@ class _Writer:
         return cell
 
     def value(self, row, col, value, fmt=None, fill=None):
-        from openpyxl.styles import PatternFill
         from plumbrule.workbook.cells import put
         cell = put(self.ws, row, col, value, fmt)
         if fill:
-            cell.fill = PatternFill("solid", fgColor=fill)
+            set_fill(cell, fill)
         return cell

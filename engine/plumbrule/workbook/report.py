@@ -21,7 +21,8 @@ from plumbrule.render.wording import (CAUTION, final_fit_text, gap_sentence, gap
                                       in_words, validation_text)
 from plumbrule.verdicts import FAILS, NA, OK, WATCH
 from plumbrule.workbook import cells
-from plumbrule.workbook.cells import MONEY, PERCENT, merge, put, sig3
+from plumbrule.workbook.cells import (MONEY, PERCENT, merge, put, set_alignment, set_fill,
+                                      set_font, sig3)
 
 DASH = "—"   # a money figure that is absent
 CAUTIONS = (
@@ -142,9 +143,8 @@ def _header(ws, ctx) -> int:
         style="plumb_note")
     r = _assignment(ws, ctx, r + 1)
     c = _wrapped(ws, r, 1, CAUTION, span=LAST_COL)
-    from openpyxl.styles import Font, PatternFill
-    c.font = Font(bold=True, color="7A2E1F")
-    c.fill = PatternFill("solid", fgColor="FBEFE9")
+    set_font(c, bold=True, color="7A2E1F")
+    set_fill(c, "FBEFE9")
     r += 2
     r = _section(ws, r, "The model in one sentence")
     _wrapped(ws, r, 1, model_sentence(ctx), span=LAST_COL)
@@ -218,13 +218,12 @@ def _headline(ws, ctx, r) -> int:
             if key in rs.columns:
                 rows.append((f"{label} ({where})", first[key], None, fmt,
                              _verdict_of(rs, 0, key)))
-    from openpyxl.styles import Font
     for label, v1, v2, fmt, comment in rows:
         put(ws, r, 1, label, style="plumb_label")
         c = put(ws, r, 2, v1, fmt)
-        c.font = Font(bold=True)
+        set_font(c, bold=True)
         if v2 is not None:
-            put(ws, r, 3, v2, fmt).font = Font(bold=True)
+            set_font(put(ws, r, 3, v2, fmt), bold=True)
         _wrapped(ws, r, 4, comment, span=LAST_COL - 3, style="plumb_note")
         r += 1
     return r
@@ -369,8 +368,7 @@ def _valuation(ws, ctx, r) -> int:
         if gap_warning(rec):
             c = _wrapped(ws, r, 1, "The two values disagree: " + gap_sentence(rec) + ".",
                          span=LAST_COL)
-            from openpyxl.styles import Font
-            c.font = Font(bold=True, color="7A2E1F")
+            set_font(c, bold=True, color="7A2E1F")
             r += 1
         r = _grid(ws, ctx, _page_break(ws, r))     # the grid on a page of its own
     return r
@@ -411,9 +409,8 @@ def _checks(ws, ctx, r) -> int:
     r += 1
     r = _heads(ws, r, ["Check", "Verdict", "Statistic", "p-value", "Flagged when", "",
                        "What it means for the valuation"], numeric=(3, 4))
-    from openpyxl.styles import Alignment, Font, PatternFill
     from plumbrule.workbook.sheets import QUESTION_TITLES
-    ws.cell(row=r - 1, column=5).alignment = Alignment(horizontal="left", indent=2)
+    set_alignment(ws.cell(row=r - 1, column=5), horizontal="left", indent=2)
     questions = ctx.table("check_questions")
     question = None
     for _, c in checks.iterrows():
@@ -422,25 +419,24 @@ def _checks(ws, ctx, r) -> int:
             band = questions[questions["question"] == question]
             if len(band):      # the question: its verdict and sentence, its checks below
                 q = band.iloc[0]
-                put(ws, r, 1, QUESTION_TITLES.get(question, question)).font = Font(
+                set_font(put(ws, r, 1, QUESTION_TITLES.get(question, question)),
                     bold=True, color=cells.TITLE_COLOUR)
                 v = put(ws, r, 2, q["verdict"])
-                v.fill = PatternFill("solid", fgColor=VERDICT_FILL.get(str(q["verdict"]),
-                                                                       "FFFFFF"))
-                v.font = Font(bold=True)
-                v.alignment = Alignment(horizontal="center", vertical="top")
+                set_fill(v, VERDICT_FILL.get(str(q["verdict"]), "FFFFFF"))
+                set_font(v, bold=True)
+                set_alignment(v, horizontal="center", vertical="top")
                 _wrapped(ws, r, 3, q["sentence"], span=LAST_COL - 2)
                 r += 1
-        put(ws, r, 1, c["check"]).alignment = Alignment(wrap_text=True, vertical="top",
+        set_alignment(put(ws, r, 1, c["check"]), wrap_text=True, vertical="top",
                                                         indent=1 if question else 0)
         v = str(c["verdict"])
         vc = put(ws, r, 2, v)
-        vc.fill = PatternFill("solid", fgColor=VERDICT_FILL.get(v, "FFFFFF"))
-        vc.alignment = Alignment(horizontal="center", vertical="top")
+        set_fill(vc, VERDICT_FILL.get(v, "FFFFFF"))
+        set_alignment(vc, horizontal="center", vertical="top")
         put(ws, r, 3, c["statistic"], sig3(c["statistic"]))
         put(ws, r, 4, c["p_value"], sig3(c["p_value"]))
         thr = put(ws, r, 5, in_words(c["threshold"]))
-        thr.alignment = Alignment(horizontal="left", wrap_text=True, vertical="top", indent=2)
+        set_alignment(thr, horizontal="left", wrap_text=True, vertical="top", indent=2)
         merge(ws, r, 5, r, 6)
         _wrapped(ws, r, 7, in_words(c["note"]), span=1,
                  lines_with=(in_words(c["threshold"]), 30))
@@ -654,34 +650,33 @@ def _charts(ws, data_ws, ctx, r) -> int:
 
 def _heads(ws, r, heads, numeric=()) -> int:
     """A header band; headers over number columns are right-aligned like their numbers."""
-    from openpyxl.styles import Alignment
     for j, h in enumerate(heads, start=1):
         c = put(ws, r, j, h, style="plumb_header")
         if j == LAST_COL:
-            c.alignment = Alignment(horizontal="left", wrap_text=True, vertical="top", indent=2)
+            set_alignment(c, horizontal="left", wrap_text=True, vertical="top", indent=2)
         if j in numeric:
-            c.alignment = Alignment(horizontal="right", wrap_text=True, vertical="top")
+            set_alignment(c, horizontal="right", wrap_text=True, vertical="top")
     return r + 1
 
 
 def _section(ws, r, text) -> int:
-    from openpyxl.styles import Border, Font, Side
+    from openpyxl.styles import Border, Side
     c = put(ws, r, 1, text)
-    c.font = Font(bold=True, size=12, color=cells.TITLE_COLOUR)
+    set_font(c, bold=True, size=12, color=cells.TITLE_COLOUR)
     line = Side(style="medium", color=cells.TITLE_COLOUR)
-    for col in range(1, LAST_COL + 1):
-        ws.cell(row=r, column=col).border = Border(bottom=line)
+    for col in range(1, LAST_COL + 1):     # cell.border = Border(bottom=line), by id
+        cells.set_look(ws.cell(row=r, column=col), "_borders", "borderId", ("section rule",),
+                       lambda: Border(bottom=line))
     return r + 1
 
 
 def _wrapped(ws, r, col, text, span=1, style=None, lines_with=None):
     """Text wrapped across ``span`` columns; the row grows to fit (an estimate:
     spreadsheets do not refit merged rows on open)."""
-    from openpyxl.styles import Alignment
     text = "" if text is None else _plain_text(text)
     c = put(ws, r, col, text, style=style)
     # notes beside right-aligned numbers: indent them so the two do not touch
-    c.alignment = Alignment(horizontal="left", wrap_text=True, vertical="top",
+    set_alignment(c, horizontal="left", wrap_text=True, vertical="top",
                             indent=2 if col > 1 else 0)
     if span > 1:
         merge(ws, r, col, r, col + span - 1)
@@ -757,13 +752,13 @@ def _page_break(ws, r) -> int:
 
 def _top_align(ws) -> None:
     """Numbers beside wrapped text sit at the top of the row, like the text."""
-    from openpyxl.styles import Alignment
+    looks = cells.Looks(ws.parent)     # alignments read and set by id (see cells.Looks)
     for row in ws.iter_rows():
         for c in row:
-            if c.value is not None and c.alignment.vertical != "top":
-                a = c.alignment
-                c.alignment = Alignment(horizontal=a.horizontal, wrap_text=a.wrap_text,
-                                        indent=a.indent, vertical="top")
+            if c._value is not None:
+                horizontal, indent, wrap, vertical = looks.alignment(c)
+                if vertical != "top":
+                    looks.align(c, horizontal, indent, wrap, "top")
 
 
 def _sample_text(rec) -> str:

@@ -21,6 +21,7 @@ import math
 import numpy as np
 
 from plumbrule.workbook.cells import put, write_values
+from plumbrule.workbook.save import number_column
 
 MAX_POINTS = 2000
 MIN_BOX_VALUES = 10     # a box plot needs more distinct values than this (a rule of thumb)
@@ -278,7 +279,10 @@ class _Blocks:
         for j, (h, values) in enumerate(zip(headers, columns, strict=False)):
             col = c0 + j
             put(self.ws, 2, col, h, style="plumb_header")
-            write_values(self.ws, list(values), 3, col)     # as put writes each
+            if isinstance(values, np.ndarray) and values.dtype.kind in "fiu":
+                number_column(self.ws, values, 3, col)    # no cell object per point
+            else:
+                write_values(self.ws, list(values), 3, col)     # as put writes each
             self.rows[col] = 2 + len(values)
             out.append(col)
         self.next_col = c0 + len(headers) + 1

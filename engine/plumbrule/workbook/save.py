@@ -49,6 +49,7 @@ def _writer_class():
     global _CLASS
     if _CLASS is not None:
         return _CLASS
+    import io
     from openpyxl.drawing.spreadsheet_drawing import SpreadsheetDrawing
     from openpyxl.worksheet._writer import WorksheetWriter
     from openpyxl.writer.excel import ExcelWriter
@@ -57,9 +58,14 @@ def _writer_class():
     class _SheetWriter(WorksheetWriter):
         fast_rows: str | None = None
 
+        def write_dimensions(self):
+            from openpyxl.worksheet.dimensions import SheetDimension
+            self.xf.send(SheetDimension(dimension(self.ws)).to_tree())
+
         def write_rows(self):
             self.fast_rows = sheet_rows(self.ws)
             if self.fast_rows is None:
+                materialize(self.ws)
                 super().write_rows()
             else:                   # a placeholder, replaced by the rows once written
                 self.xf.send(Element("sheetData"))
@@ -69,23 +75,69 @@ def _writer_class():
             ws._drawing = SpreadsheetDrawing()
             ws._drawing.charts = ws._charts
             ws._drawing.images = ws._images
-            writer = _SheetWriter(ws)
+            # in memory, not through a named temporary file (four file system calls a
+            # sheet); the member's entry as ZipFile.write gives a file just written
+            writer = _SheetWriter(ws, out=io.BytesIO())
             writer.write()
+            data = writer.out.getvalue()
             if writer.fast_rows is not None:
-                with open(writer.out, "rb") as f:
-                    data = f.read()
                 at = data.index(_PLACEHOLDER)
-                with open(writer.out, "wb") as f:
-                    f.write(data[:at])
-                    f.write(writer.fast_rows.encode("utf-8"))
-                    f.write(data[at + len(_PLACEHOLDER):])
+                data = b"".join((data[:at], writer.fast_rows.encode("utf-8"),
+                                 data[at + len(_PLACEHOLDER):]))
             ws._rels = writer._rels
-            self._archive.write(writer.out, ws.path[1:])
+            self._archive.writestr(_member(ws.path[1:], self._archive), data)
             self.manifest.append(ws)
-            writer.cleanup()
 
     _CLASS = _BookWriter
     return _CLASS
+
+
+_NUMBERS = "_plumb_numbers"      # a worksheet's number columns kept as text (number_column)
+
+
+def number_column(ws, values, top: int, col: int) -> None:
+    """Column ``col`` from row ``top`` down holding ``values`` (a float or integer numpy
+    array), unstyled, as ``cells.write_values`` writes them (a non-finite value is an
+    empty cell), but kept as the text of each value and written straight into the sheet's
+    XML: no cell object per value. For blocks nothing else reads (the chart data)."""
+    numbers = ws.__dict__.setdefault(_NUMBERS, {})
+    numbers[col] = (top, values.tolist())       # plain floats or ints
+
+
+def materialize(ws) -> None:
+    """The number columns of ``ws`` as cells (for openpyxl's own writer)."""
+    numbers = ws.__dict__.pop(_NUMBERS, None)
+    if not numbers:
+        return
+    from plumbrule.workbook.cells import write_values
+    for col, (top, values) in numbers.items():
+        write_values(ws, values, top, col)
+
+
+def dimension(ws) -> str:
+    """``ws.calculate_dimension()`` counting the number columns' cells too."""
+    from openpyxl.utils import get_column_letter
+    rows = [r for r, _ in ws._cells]
+    cols = [c for _, c in ws._cells]
+    for col, (top, values) in getattr(ws, _NUMBERS, {}).items():
+        if values:
+            cols.append(col)
+            rows += (top, top + len(values) - 1)
+    if not rows:
+        return "A1:A1"
+    return (f"{get_column_letter(min(cols))}{min(rows)}:"
+            f"{get_column_letter(max(cols))}{max(rows)}")
+
+
+def _member(name: str, archive):
+    """The zip entry ``ZipFile.write`` makes for a private file written now (openpyxl
+    wrote each sheet to a named temporary file, mode 0600, and stored that)."""
+    import time
+    from zipfile import ZipInfo
+    info = ZipInfo(name, time.localtime(time.time())[:6])
+    info.external_attr = 0o100600 << 16
+    info.compress_type = archive.compression
+    return info
 
 
 def sheet_rows(ws) -> str | None:
@@ -98,42 +150,67 @@ def sheet_rows(ws) -> str | None:
     if book.iso_dates:
         return None
     styles = book._cell_styles
-    ids: dict[tuple, int] = {}          # a style's id by its values (as the book's list keys it)
+    sattrs: dict[tuple, str] = {}       # a style's ' s="id"' by its values (ids as the book's
+    cells = ws._cells                   # list keys them, in first-use order)
     rows: dict[int, list] = defaultdict(list)
-    for key in sorted(ws._cells):
-        rows[key[0]].append(ws._cells[key])
+    for key in sorted(cells):
+        rows[key[0]].append(cells[key])
+    letters: dict[int, str] = {}
+    numbers: dict[int, list] = defaultdict(list)     # row → [(column, cell text or None)]
+    for col, (top, values) in sorted(getattr(ws, _NUMBERS, {}).items()):
+        letter = letters[col] = get_column_letter(col)
+        for r, v in enumerate(values, start=top):
+            # as a number cell is written (below); a non-finite value is an empty cell
+            numbers[r].append((col, None if v != v or v in _INFINITE else
+                               f'<c r="{letter}{r}" t="n"><v>{"%.16g" % v}</v></c>'))
+    for r in numbers.keys() - rows.keys():
+        rows[r] = []
     dims = ws.row_dimensions
     for r in dims.keys() - rows.keys():     # empty rows that carry a height or a style
         rows[r] = []
-    letters: dict[int, str] = {}
     out = ["<sheetData>"]
     add = out.append
-    for r, cells in sorted(rows.items()):
+    for r, row in sorted(rows.items()):
         attrs = {"r": f"{r}"}
         attrs.update(dims.get(r, {}))
         add("<row" + "".join(f' {k}="{_escape_attrib(v)}"' for k, v in attrs.items()) + ">")
         rtext = str(r)
-        for cell in cells:
-            if cell._comment is not None or cell.hyperlink:
+        texts = numbers.get(r)
+        if texts:       # cells and number-column texts in column order
+            row = [c for _, c in sorted([(c.column, c) for c in row] + texts,
+                                        key=lambda item: item[0])]
+        for cell in row:
+            if cell is None:
+                continue
+            if type(cell) is str:
+                add(cell)
+                continue
+            if cell._comment is not None or getattr(cell, "_hyperlink", None):
                 return None
             value = cell._value
             style = cell._style
-            key = _UNSTYLED if style is None else tuple(style)
-            styled = key != _UNSTYLED           # openpyxl: any(style)
-            if value is None and not styled:
-                continue
+            if style is None:
+                if value is None:
+                    continue
+                sattr = ""
+            else:
+                key = tuple(style)
+                known = sattrs.get(key)
+                if known is None:
+                    # openpyxl: a style with every field 0 is no style (any(style))
+                    known = sattrs[key] = (f' s="{styles.add(style)}"' if key != _UNSTYLED
+                                           else "")
+                sattr = known
+                if value is None and not sattr:
+                    continue
             col = cell.column
             letter = letters.get(col)
             if letter is None:
                 letter = letters[col] = get_column_letter(col)
-            head = f'<c r="{letter}{rtext}"'
-            if styled:
-                sid = ids.get(key)
-                if sid is None:
-                    sid = ids[key] = styles.add(style)
-                head += f' s="{sid}"'
+            head = f'<c r="{letter}{rtext}"{sattr}'
             kind = cell.data_type
-            if kind == "n" and (type(value) is float or type(value) is int):
+            t = type(value)
+            if kind == "n" and (t is float or t is int):
                 # safe_string's text for a number: %.16g, nothing for NaN and infinities
                 if value != value or value in _INFINITE:
                     add(f'{head} t="n"><v /></c>')
@@ -143,7 +220,7 @@ def sheet_rows(ws) -> str | None:
             if kind == "s":
                 if value is None or value == "":
                     add(head + ' t="inlineStr" />')
-                elif type(value) is not str:
+                elif t is not str:
                     return None         # rich text
                 else:
                     stripped = value.strip()
@@ -153,7 +230,7 @@ def sheet_rows(ws) -> str | None:
             if kind == "f":
                 if value is None or value == "":
                     add(head + " />")
-                elif type(value) is not str:
+                elif t is not str:
                     return None         # an array or data-table formula
                 else:
                     add(f"{head}><f>{_escape_cdata(value[1:])}</f><v /></c>")

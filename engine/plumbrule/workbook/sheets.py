@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from typing import Any, Callable
 
+import numpy as np
 import pandas as pd
 
 from plumbrule.render.wording import CAUTION, final_fit_text, validation_text
@@ -24,6 +25,9 @@ from plumbrule.workbook.cells import (
     merge,
     note,
     put,
+    set_alignment,
+    set_fill,
+    set_font,
     sig3,
     title,
     write_frame,
@@ -118,8 +122,8 @@ def _widths(
         col = frame[c]
         if len(col) and (col.dtype == object or pd.api.types.is_string_dtype(col.dtype)):
             # text: wide enough for most of it
-            lengths = col.head(2000).map(lambda v: len(v) if isinstance(v, str) else 0)
-            longest = max(longest, int(lengths.quantile(0.9)))
+            lengths = [len(v) if isinstance(v, str) else 0 for v in col.head(2000).tolist()]
+            longest = max(longest, int(np.quantile(lengths, 0.9)))   # as Series.quantile
         width = max(minimum, min(maximum, longest + 2))
         if c in ("sale", "comp_sale"):        # an address with its ID: wide enough to read
             width = max(width, 30)
@@ -319,7 +323,6 @@ VERDICT_FILL = {"ok": "DCEFDC", "watch": "FCE9C4", "fails": "F6CFCB", "n/a": "E8
 
 def _checks_by_question(ws, r: int, analysis) -> int:
     """One band per question (its verdict and sentence), its checks below it."""
-    from openpyxl.styles import Alignment, Font, PatternFill
     checks = analysis.tables.checks
     questions = analysis.tables.check_questions
     r = title(ws, r, "Checks, question by question")
@@ -336,21 +339,21 @@ def _checks_by_question(ws, r: int, analysis) -> int:
     r += 1
     for q in questions.itertuples(index=False):
         head = put(ws, r, 1, QUESTION_TITLES.get(q.question, q.question))
-        head.font = Font(bold=True, color=TITLE_COLOUR)
+        set_font(head, bold=True, color=TITLE_COLOUR)
         v = put(ws, r, 2, q.verdict)
-        v.fill = PatternFill("solid", fgColor=VERDICT_FILL.get(str(q.verdict), "FFFFFF"))
-        v.font = Font(bold=True)
-        v.alignment = Alignment(horizontal="center", vertical="top")
+        set_fill(v, VERDICT_FILL.get(str(q.verdict), "FFFFFF"))
+        set_font(v, bold=True)
+        set_alignment(v, horizontal="center", vertical="top")
         put(ws, r, 3, q.sentence)
         merge(ws, r, 3, r, LAST_MODEL_COL)
         r += 1
         for c in checks[checks["question"] == q.question].itertuples(index=False):
-            put(ws, r, 1, c.check).alignment = Alignment(indent=1, wrap_text=True,
+            set_alignment(put(ws, r, 1, c.check), indent=1, wrap_text=True,
                                                          vertical="top")
-            put(ws, r, 2, c.verdict).alignment = Alignment(horizontal="center")
+            set_alignment(put(ws, r, 2, c.verdict), horizontal="center")
             put(ws, r, 3, c.statistic, sig3(c.statistic))
             put(ws, r, 4, c.p_value, sig3(c.p_value))
-            put(ws, r, 5, c.threshold).alignment = Alignment(indent=1, wrap_text=True,
+            set_alignment(put(ws, r, 5, c.threshold), indent=1, wrap_text=True,
                                                              vertical="top")
             merge(ws, r, 5, r, 6)
             put(ws, r, 7, c.note)
@@ -581,7 +584,6 @@ def write_grid_table(ws, r: int, wide: pd.DataFrame, comps: list[int] | None = N
     """The grid as appraisers read it (valuation.grid_table): lines down the side, the
     subject and comparables ``comps`` (default all) across, a value and an adjustment
     column each. Returns the next free row."""
-    from openpyxl.styles import Alignment
     from openpyxl.utils import get_column_letter
     comps = comps or grid_comparables(wide)
     heads = ["", "Subject"]
@@ -590,7 +592,7 @@ def write_grid_table(ws, r: int, wide: pd.DataFrame, comps: list[int] | None = N
     for j, h in enumerate(heads):
         c = put(ws, r, left + j, h, style="plumb_header")
         if j:
-            c.alignment = Alignment(horizontal="right")
+            set_alignment(c, horizontal="right")
     r += 1
     for rec in wide.to_dict("records"):
         kind = rec["kind"]
@@ -610,10 +612,10 @@ def write_grid_table(ws, r: int, wide: pd.DataFrame, comps: list[int] | None = N
                 fmt = "#,##0" if float(v).is_integer() else "#,##0.0##"
             c = put(ws, r, left + j, v, fmt)
             if kind == "notes" and isinstance(v, str) and v:
-                c.alignment = Alignment(wrap_text=True, vertical="top")
+                set_alignment(c, wrap_text=True, vertical="top")
                 notes.append(left + j)
             elif not isinstance(v, str) or kind != "sale":
-                c.alignment = Alignment(horizontal="right", vertical="top")
+                set_alignment(c, horizontal="right", vertical="top")
         for col in notes:        # the note over the comparable's two columns
             merge(ws, r, col, r, col + 1)
         if kind == "notes":
