@@ -210,13 +210,15 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing",
     # each fold a contiguous block (a stable sort of small integers: numpy's radix sort)
     order = np.argsort(labels.astype(np.int16 if folds < 2**15 else np.int64), kind="stable")
     bounds = np.searchsorted(labels[order], np.arange(folds + 1))
-    xo = np.take(model.x, order, axis=0)               # user units, rows by fold
-    zy = _working_design(model, order, xo)  # [1 | scaled x | y], rows by fold, column-major
+    # the design in user units, rows by fold, transposed: a contiguous row per column
+    xt = np.ascontiguousarray(np.take(model.x, order, axis=0).T)
+    informed = _informed_columns(xt, bounds, model.fit.has_intercept)
+    zy = _working_design(model, order, xt)  # [1 | scaled x | y], rows by fold, column-major
+    del xt                                  # centred in place: of no further use
     z, y = zy[:, :-1], zy[:, -1]
     # LAPACK works on columns: a block handed over column-major is factored faster
     blocks = [(np.linalg.qr(np.asfortranarray(zy[lo:hi]), mode="r"), hi - lo)
               for lo, hi in zip(bounds[:-1], bounds[1:], strict=False)]
-    informed = _informed_columns(xo, bounds, model.fit.has_intercept)
     price = model.data[model.spec.response].to_numpy(float)[order]
     log = model.spec.log_response
     pred, est = np.full(n, np.nan), np.full(n, np.nan)
@@ -242,7 +244,8 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing",
             p = zk[lo:hi] @ theta
             idx = np.arange(lo, hi)
         else:
-            usable = np.all(xo[lo:hi][:, ~keep_x] == constant[~keep_x], axis=1)
+            rows = model.x[order[lo:hi]]
+            usable = np.all(rows[:, ~keep_x] == constant[~keep_x], axis=1)
             p = np.asfortranarray(zk[lo:hi][usable]) @ theta
             idx = np.arange(lo, hi)[usable]
         skipped = hi - lo - len(idx)
@@ -258,8 +261,9 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing",
     return CrossValidation(folds=table, labels=labels, pred=pred[back], estimate=est[back])
 
 
-def _informed_columns(x: np.ndarray, bounds: np.ndarray, intercept: bool):
-    """For the rows of ``x`` (user units, rows by fold) cut into folds at ``bounds``:
+def _informed_columns(xt: np.ndarray, bounds: np.ndarray, intercept: bool):
+    """For the design ``xt`` (user units, transposed: a row per column, sales by fold) cut
+    into folds at ``bounds``:
     a function of fold f giving (keep, value). keep marks the columns that vary over the
     other folds' rows (with an intercept) or are non-zero somewhere on them (without one);
     for the other columns, ``value`` is the one value they take there (0 without an intercept).
@@ -267,8 +271,8 @@ def _informed_columns(x: np.ndarray, bounds: np.ndarray, intercept: bool):
     Judged on the raw columns, not the centred working ones: centred, an indicator that is
     0 on the other folds becomes the constant −mean there, which is non-zero yet carries
     nothing the intercept does not."""
-    ranges = [(part.min(axis=0), part.max(axis=0)) for part in
-              (x[a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=False))]
+    ranges = [(part.min(axis=1), part.max(axis=1)) for part in
+              (xt[:, a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=False))]
     lo, hi = (np.array(r) for r in zip(*ranges, strict=True))   # folds × columns
     folds = np.arange(len(lo))
 
@@ -277,13 +281,14 @@ def _informed_columns(x: np.ndarray, bounds: np.ndarray, intercept: bool):
         low, high = lo[rest].min(axis=0), hi[rest].max(axis=0)
         if intercept:
             return low < high, low
-        return (low != 0) | (high != 0), np.zeros(x.shape[1])
+        return (low != 0) | (high != 0), np.zeros(xt.shape[0])
     return informed
 
 
-def _working_design(model, order: np.ndarray, xo: np.ndarray | None = None) -> np.ndarray:
+def _working_design(model, order: np.ndarray, xt: np.ndarray | None = None) -> np.ndarray:
     """[1 | (x − mean)/norm | y] with rows in ``order``; no constant column without an intercept
-    (``xo``: ``model.x`` already taken in ``order``).
+    (``xt``: ``model.x`` already taken in ``order`` and transposed, contiguous; worked on in
+    place).
 
     Centring and unit-length columns keep the fold QR factors well conditioned. The
     columns are worked on as contiguous rows of the transposed design (one copy of it):
@@ -291,7 +296,8 @@ def _working_design(model, order: np.ndarray, xo: np.ndarray | None = None) -> n
     result is column-major (Fortran order), as LAPACK and the products with it want.
     """
     n = len(order)
-    xt = np.ascontiguousarray((np.take(model.x, order, axis=0) if xo is None else xo).T)
+    if xt is None:
+        xt = np.ascontiguousarray(np.take(model.x, order, axis=0).T)
     icpt = int(model.fit.has_intercept)
     k = xt.shape[0]
     for j in range(k):
