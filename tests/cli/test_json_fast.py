@@ -153,6 +153,7 @@ def test_column_text_pieces_are_each_cell_s_json():
         col = frame[name]
         want = [orjson.dumps(rj.jsonable(v), default=rj._fallback) for v in col.tolist()]
         assert rj.column_json(col).texts() == want, name
+        assert rj.column_json(col.iloc[:0]).texts() == [], name
 
 
 finite = st.floats(allow_nan=True, allow_infinity=True, width=64)

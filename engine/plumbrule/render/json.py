@@ -93,33 +93,10 @@ def column_json(col: pd.Series) -> ColumnText:
     """Each cell's JSON text, the same as ``orjson.dumps(jsonable(cell))``, found without a
     Python call per cell unless the column mixes kinds or its text needs escapes."""
     import numpy as np
-    import orjson
-    kind = _kind(col)
-    if kind in "fiub":
-        # one orjson call writes the whole array (NaN, ±inf → null; floats shortest
-        # round-trip); no number, true, false or null holds a comma
-        v = col.to_numpy(dtype=float) if kind == "f" else col.to_numpy()
-        v = np.ascontiguousarray(v, dtype=v.dtype.newbyteorder("="))  # orjson: native order
-        raw = orjson.dumps(v, option=orjson.OPT_SERIALIZE_NUMPY)
-        return _split(np.frombuffer(raw, np.uint8)[1:-1], len(v), quoted=False)
-    if kind == "M":
-        # each distinct date written once; the cells point at their date's text
-        text, at = _iso_dates(col)
-        dates = _split(np.frombuffer(orjson.dumps(text.tolist()), np.uint8)[1:-1], len(text),
-                       quoted=True)             # ISO text: no comma, nothing to escape
-        return ColumnText(dates.buf, dates.starts[at], dates.lens[at])
-    text = _text_or_missing(col)
-    if text is not None:
-        buf = np.frombuffer(orjson.dumps(text.tolist()), np.uint8)[1:-1]
-        # without a backslash nothing was escaped, so every '"' opens or closes a string
-        # and a comma outside the strings parts two cells
-        if not (buf == 92).any():
-            return _split(buf, len(text), quoted=True)
-        texts = list(map(orjson.dumps, text))
-    else:
-        texts = [orjson.dumps(jsonable(v), default=_fallback) for v in col.tolist()]
-    lens = np.fromiter(map(len, texts), dtype=np.intp, count=len(texts))
-    return ColumnText(np.frombuffer(b"".join(texts), np.uint8), np.cumsum(lens) - lens, lens)
+    if not len(col):
+        empty = np.zeros(0, dtype=np.intp)
+        return ColumnText(np.zeros(0, dtype=np.uint8), empty, empty)
+    return _Source(col).text(0, len(col))
 
 
 def _split(buf, n: int, *, quoted: bool) -> ColumnText:
