@@ -309,16 +309,14 @@ def _box_numbers(data: pd.DataFrame, columns: Sequence[str], k: float,
     if not len(data):
         return (pd.DataFrame(np.nan, index=cols, columns=list(SUMMARY_STATS)),
                 {c: 0 for c in cols})
-    rows, distinct, fenced = [], {}, []
+    rows, distinct, other = [], {}, []
     for c in cols:
         # One sort gives every order statistic and the distinct values: the quantiles by
         # numpy's linear interpolation (pandas' quantile), bit for bit (see quantiles.py)
         five, distinct[c] = _sorted_numbers(data[c])
         rows.append(five)
         if c in logged or np.isnan(five).any():
-            fenced.append(c)                # on another scale, or missing values left out
-        else:
-            fenced.append(None)
+            other.append(c)      # the rule's fence on another scale, or missing left out
     q = pd.DataFrame(rows, index=cols, columns=["min", "q1", "median", "q3", "max"])
     iqr = q["q3"] - q["q1"]
     q["fence_low_1_5"], q["fence_high_1_5"] = q["q1"] - 1.5 * iqr, q["q3"] + 1.5 * iqr
@@ -326,7 +324,6 @@ def _box_numbers(data: pd.DataFrame, columns: Sequence[str], k: float,
     # the fence the rule uses: the same quartiles where the rule reads the column as it is
     low, high = q["q1"] - k * iqr, q["q3"] + k * iqr
     q["fence_low_used"], q["fence_high_used"] = low.to_numpy(float), high.to_numpy(float)
-    other = [c for c in fenced if c is not None]
     if other:
         used = _in_own_units(fence_limits(_on_scale(data, other, logged), other, k),
                              logged).set_index("column")
