@@ -210,11 +210,9 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing",
     # each fold a contiguous block (a stable sort of small integers: numpy's radix sort)
     order = np.argsort(labels.astype(np.int16 if folds < 2**15 else np.int64), kind="stable")
     bounds = np.searchsorted(labels[order], np.arange(folds + 1))
-    # the design in user units, rows by fold, transposed: a contiguous row per column
-    xt = np.ascontiguousarray(np.take(model.x, order, axis=0).T)
-    informed = _informed_columns(xt, bounds, model.fit.has_intercept)
-    zy = _working_design(model, order, xt)  # [1 | scaled x | y], rows by fold, column-major
-    del xt                                  # centred in place: of no further use
+    # [1 | scaled x | y], rows by fold, column-major; each fold's range of every column
+    zy, lo_hi = _working_design(model, order, bounds)
+    informed = _informed_columns(*lo_hi, model.fit.has_intercept)
     z, y = zy[:, :-1], zy[:, -1]
     # LAPACK works on columns: a block handed over column-major is factored faster
     blocks = [(np.linalg.qr(np.asfortranarray(zy[lo:hi]), mode="r"), hi - lo)
@@ -261,19 +259,16 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing",
     return CrossValidation(folds=table, labels=labels, pred=pred[back], estimate=est[back])
 
 
-def _informed_columns(xt: np.ndarray, bounds: np.ndarray, intercept: bool):
-    """For the design ``xt`` (user units, transposed: a row per column, sales by fold) cut
-    into folds at ``bounds``:
-    a function of fold f giving (keep, value). keep marks the columns that vary over the
-    other folds' rows (with an intercept) or are non-zero somewhere on them (without one);
-    for the other columns, ``value`` is the one value they take there (0 without an intercept).
+def _informed_columns(lo: np.ndarray, hi: np.ndarray, intercept: bool):
+    """From each fold's least and greatest value of every column (folds × columns, user
+    units): a function of fold f giving (keep, value). keep marks the columns that vary over
+    the other folds' rows (with an intercept) or are non-zero somewhere on them (without
+    one); for the other columns, ``value`` is the one value they take there (0 without an
+    intercept).
 
     Judged on the raw columns, not the centred working ones: centred, an indicator that is
     0 on the other folds becomes the constant −mean there, which is non-zero yet carries
     nothing the intercept does not."""
-    ranges = [(part.min(axis=1), part.max(axis=1)) for part in
-              (xt[:, a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=False))]
-    lo, hi = (np.array(r) for r in zip(*ranges, strict=True))   # folds × columns
     folds = np.arange(len(lo))
 
     def informed(f: int) -> tuple[np.ndarray, np.ndarray]:
@@ -281,38 +276,41 @@ def _informed_columns(xt: np.ndarray, bounds: np.ndarray, intercept: bool):
         low, high = lo[rest].min(axis=0), hi[rest].max(axis=0)
         if intercept:
             return low < high, low
-        return (low != 0) | (high != 0), np.zeros(xt.shape[0])
+        return (low != 0) | (high != 0), np.zeros(lo.shape[1])
     return informed
 
 
-def _working_design(model, order: np.ndarray, xt: np.ndarray | None = None) -> np.ndarray:
-    """[1 | (x − mean)/norm | y] with rows in ``order``; no constant column without an intercept
-    (``xt``: ``model.x`` already taken in ``order`` and transposed, contiguous; worked on in
-    place).
+def _working_design(model, order: np.ndarray, bounds: np.ndarray | None = None
+                    ) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray]]:
+    """[1 | (x − mean)/norm | y] with rows in ``order``, column-major (Fortran order, as
+    LAPACK and the products with it want; no constant column without an intercept), and
+    each fold's least and greatest raw value of every column (two folds × columns arrays;
+    no rows without fold ``bounds`` into ``order``).
 
-    Centring and unit-length columns keep the fold QR factors well conditioned. The
-    columns are worked on as contiguous rows of the transposed design (one copy of it):
-    the same sums in the same order as column by column, a fraction of the time. The
-    result is column-major (Fortran order), as LAPACK and the products with it want.
+    Centring and unit-length columns keep the fold QR factors well conditioned. Each
+    column is gathered straight into its contiguous place and worked on there: the same
+    sums in the same order as on a copy, and no second copy of the design.
     """
-    n = len(order)
-    if xt is None:
-        xt = np.ascontiguousarray(np.take(model.x, order, axis=0).T)
+    x, n = model.x, len(order)
     icpt = int(model.fit.has_intercept)
-    k = xt.shape[0]
+    k = x.shape[1]
+    zy = np.empty((n, icpt + k + 1), order="F")
+    if icpt:
+        zy[:, 0] = 1.0
+    cuts = [] if bounds is None else list(zip(bounds[:-1], bounds[1:], strict=False))
+    lo, hi = np.empty((len(cuts), k)), np.empty((len(cuts), k))
     for j in range(k):
-        col = xt[j]
+        col = zy[:, icpt + j]
+        np.take(x[:, j], order, out=col)
+        for f, (a, b) in enumerate(cuts):
+            lo[f, j], hi[f, j] = col[a:b].min(), col[a:b].max()
         if icpt:
             col -= col.mean()
         norm = np.sqrt(dot(col, col))
         if norm > 0:
             col /= norm
-    zy = np.empty((n, icpt + k + 1), order="F")
-    if icpt:
-        zy[:, 0] = 1.0
-    zy[:, icpt:icpt + k] = xt.T
     zy[:, -1] = model.y[order]
-    return zy
+    return zy, (lo, hi)
 
 
 def _combine(blocks, keep: np.ndarray):
