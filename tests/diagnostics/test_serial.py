@@ -28,6 +28,11 @@ def fixed_design(n=30, seed=1):
     return np.linalg.qr(x)[0], rng
 
 
+def neighbours(seconds):
+    """The neighbour matrix S of sales at ``seconds`` (ascending)."""
+    return serial.neighbour_matrix(serial.neighbour_counts(seconds))
+
+
 def null_residuals(basis, rng, reps):
     """Residuals Mε of ``reps`` draws of iid normal errors (n × reps)."""
     z = rng.normal(size=(basis.shape[0], reps))
@@ -57,13 +62,13 @@ def test_neighbour_p_value_matches_monte_carlo():
     # (binomial SE at most 0.0025; tolerance 0.008 ≈ 3 SE).
     basis, rng = fixed_design(seed=4)
     seconds = np.sort(rng.integers(0, 700, 30)) * 86_400
-    w = serial.neighbour_matrix(seconds)
+    s = neighbours(seconds)
+    w = s.weights
     assert np.allclose(np.asarray(w.sum(axis=1)).ravel(), 1.0)     # row-standardised
     assert w.diagonal().sum() == 0 and (w.getnnz(axis=1) == serial.NEIGHBOURS).all()
     e = null_residuals(basis, rng, 40_000)
     i_sim = np.sum(e * (w @ e), axis=0) / np.sum(e * e, axis=0)
-    got = serial.neighbour_test(e[:, 0], basis, w)
-    s = ((w + w.T) * 0.5).tocsr()
+    got = serial.neighbour_test(e[:, 0], basis, s)
     for c in (-0.1, 0.0, 0.15, 0.3):
         at_c = serial.ratio_test(c, basis, s)
         assert at_c.p_upper == pytest.approx(np.mean(i_sim >= c), abs=0.008), c
@@ -82,8 +87,7 @@ def test_three_moment_approximation_agrees_with_exact_at_the_switch(which):
     if which == "durbin-watson":
         a, points = serial.difference_matrix(n), (1.55, 1.65, 2.35, 2.45)
     else:
-        w = serial.neighbour_matrix(np.sort(rng.integers(0, 700, n)) * 86_400)
-        a, points = ((w + w.T) * 0.5).tocsr(), (0.1, 0.15, 0.2)
+        a, points = neighbours(np.sort(rng.integers(0, 700, n)) * 86_400), (0.1, 0.15, 0.2)
     mean, sd, skew = serial.ratio_moments(basis, a)
     for c in points:
         exact = serial.ratio_test(c, basis, a)
@@ -99,10 +103,9 @@ def test_null_moments_match_monte_carlo():
     # about 0.01 for this right-skewed ratio).
     from scipy.stats import skew as sample_skew
     basis, rng = fixed_design(seed=3)
-    w = serial.neighbour_matrix(np.sort(rng.integers(0, 700, 30)) * 86_400)
-    a = ((w + w.T) * 0.5).tocsr()
+    a = neighbours(np.sort(rng.integers(0, 700, 30)) * 86_400)
     e = null_residuals(basis, rng, 100_000)
-    i_sim = np.sum(e * (a @ e), axis=0) / np.sum(e * e, axis=0)
+    i_sim = np.sum(e * (a.dense() @ e), axis=0) / np.sum(e * e, axis=0)
     mean, sd, skew = serial.ratio_moments(basis, a)
     assert mean == pytest.approx(i_sim.mean(), abs=0.002)
     assert sd == pytest.approx(i_sim.std(), rel=0.01)
@@ -110,27 +113,91 @@ def test_null_moments_match_monte_carlo():
     assert skew > 0.3
 
 
-def test_neighbours_are_the_nearest_in_time():
+@pytest.mark.parametrize("n, days, seed", [(60, 40, 6), (60, 10_000, 5), (40, 3, 4),
+                                            (5, 2, 3), (3, 1, 2), (2, 5, 1)])
+def test_neighbours_are_the_nearest_in_time(n, days, seed):
     # Reference: brute force over all pairs — for each sale, the k others with the smallest
-    # (time gap, place gap in date order, earlier first), by numpy.lexsort.
-    rng = np.random.default_rng(6)
-    n, k = 60, serial.NEIGHBOURS
-    seconds = np.sort(rng.integers(0, 40, n)) * 86_400          # many equal dates
-    w = serial.neighbour_matrix(seconds, k).toarray()
+    # (time gap, place gap in date order, earlier first), by numpy.lexsort. Many equal
+    # dates, nearly all distinct ones, and fewer than k + 1 sales.
+    rng = np.random.default_rng(seed)
+    k = min(serial.NEIGHBOURS, n - 1)
+    seconds = np.sort(rng.integers(0, days, n)) * 86_400
+    s = neighbours(seconds)
+    w = s.weights.toarray()
     for i in range(n):
         others = np.delete(np.arange(n), i)
         gap, place = np.abs(seconds[others] - seconds[i]), np.abs(others - i)
         want = others[np.lexsort((others > i, place, gap))[:k]]
         assert set(np.flatnonzero(w[i])) == set(want), i
+        assert np.allclose(w[i, want], 1 / k)
+    # the band S is (W + Wᵀ)/2 itself
+    np.testing.assert_array_equal(s.dense(), (w + w.T) / 2)
 
 
-def test_trace_of_the_cube_matches_dense():
-    # numpy: trace(A @ A @ A) of the dense matrix, for both matrices the checks use.
+def test_traces_and_basis_products_match_dense():
+    # numpy on the dense matrix, straight from the definitions: tr A, ‖A‖²_F, tr A³, A @ x,
+    # and the products UᵀAU, UᵀA²U, tr(UᵀA³U) that the fast paths form through DU
+    # (Durbin-Watson) and W (neighbours) without A — for both matrices the checks use.
     rng = np.random.default_rng(7)
-    w = serial.neighbour_matrix(np.sort(rng.integers(0, 90, 50)) * 86_400)
-    for a in (serial.difference_matrix(50), ((w + w.T) * 0.5).tocsr()):
-        d = a.toarray()
-        assert serial._trace_cube(a) == pytest.approx(np.trace(d @ d @ d), rel=1e-12)
+    basis, _ = fixed_design(50, seed=7)
+    dw = serial.difference_matrix(50)
+    d = dw.dense()
+    dif = np.diff(np.eye(50), axis=0)
+    np.testing.assert_array_equal(d, dif.T @ dif)                  # A = DᵀD
+    near = neighbours(np.sort(rng.integers(0, 90, 50)) * 86_400)
+    # as the model forms it: an exact constant column first (Durbin-Watson leaves it out)
+    x = rng.normal(size=(50, 3))
+    model_basis = np.column_stack([np.full(50, 50 ** -0.5),
+                                   np.linalg.qr(x - x.mean(axis=0))[0]])
+    for a, u in ((dw, basis), (dw, model_basis), (near, basis)):
+        d = a.dense()
+        assert a.trace() == pytest.approx(np.trace(d), rel=1e-12)
+        assert a.frobenius2() == pytest.approx(np.sum(d * d), rel=1e-12)
+        assert a.trace_cube() == pytest.approx(np.trace(d @ d @ d), rel=1e-12)
+        np.testing.assert_allclose(a.times(u), d @ u, rtol=0, atol=1e-14)
+        c, c2, cube = a.basis_terms(u)
+        np.testing.assert_allclose(c, u.T @ d @ u, rtol=0, atol=1e-13)
+        np.testing.assert_allclose(c2, u.T @ d @ d @ u, rtol=0, atol=1e-13)
+        assert cube == pytest.approx(np.trace(u.T @ d @ d @ d @ u), rel=1e-12)
+
+
+@pytest.mark.parametrize("which", ["durbin-watson", "neighbours"])
+def test_null_moments_match_the_eigenvalues(which):
+    # The exact null mean, sd and skewness of r from the trace expansion against the same
+    # moments from the n − p eigenvalues λ of NᵀAN (dense QR and eigvalsh): r = Σλz²/Σz²,
+    # so E r = Σλ/ν, and the central moments follow from tⱼ = Σλʲ (Pitman 1937; from memory).
+    n = 80
+    basis, rng = fixed_design(n, seed=11)
+    a = (serial.difference_matrix(n) if which == "durbin-watson"
+         else neighbours(np.sort(rng.integers(0, 60, n)) * 86_400))
+    lam = serial.residual_eigenvalues(basis, a)
+    nu = len(lam)
+    t1, t2, t3 = (float(np.sum(lam ** j)) for j in (1, 2, 3))
+    m1 = t1 / nu
+    m2 = (t1 ** 2 + 2 * t2) / (nu * (nu + 2))
+    m3 = (t1 ** 3 + 6 * t1 * t2 + 8 * t3) / (nu * (nu + 2) * (nu + 4))
+    sd = np.sqrt(m2 - m1 ** 2)
+    mean, got_sd, skew = serial.ratio_moments(basis, a)
+    assert mean == pytest.approx(m1, rel=1e-12)
+    assert got_sd == pytest.approx(sd, rel=1e-9)
+    assert skew == pytest.approx((m3 - 3 * m1 * m2 + 2 * m1 ** 3) / sd ** 3, rel=1e-6, abs=1e-9)
+
+
+def test_date_order_is_by_time_then_content():
+    # The radix sort of the order (16-bit digits of the time and of the content hash)
+    # against numpy.lexsort on the whole int64 time and the hash, its definition: times of
+    # day, whole days, a 140-year span, one date for all, and exact duplicate sales.
+    from plumbrule.model.order import date_order
+    rng = np.random.default_rng(13)
+    for n, unit, span in [(300, "D", 30), (300, "s", 10 ** 6), (300, "D", 51_000),
+                          (300, "ns", 2 ** 62), (50, "D", 1), (1, "D", 1)]:
+        when = pd.Timestamp("1880-01-01") + pd.to_timedelta(rng.integers(0, span, n), unit=unit)
+        data = pd.DataFrame({"Sold": when, "Area": rng.integers(0, 3, n).astype(float),
+                             "Hood": rng.choice(["North", "South"], n)})
+        content = pd.util.hash_pandas_object(data[sorted(data.columns)], index=False)
+        stamps = data["Sold"].to_numpy(dtype="datetime64[ns]").astype(np.int64)
+        want = np.lexsort((content.to_numpy(), stamps))
+        np.testing.assert_array_equal(date_order(data, "Sold"), want)
 
 
 def test_imhof_on_a_known_case():

@@ -247,3 +247,119 @@ def test_a_valuation_is_rendered_once_and_handed_out_as_copies(own_cache):
     expected = expected_cells(valuate(ref, fresh(subject)).estimates)
     assert second == expected
     assert sf.CACHE.stats().misses == 1
+
+
+# --- which confirmation a stored block gets ---------------------------------------
+
+def _only_entry(cache: SheetCache):
+    (entry,) = cache._entries.values()
+    return entry
+
+
+def test_a_dated_miss_does_not_write_a_signature_it_cannot_keep(monkeypatch):
+    """A date in the sampled rows means no signature: marshal is not run on the miss (it
+    would read the whole block and refuse it). A plain block still gets its signature."""
+    calls = []
+    real = cache_mod.block_signature
+    monkeypatch.setattr(cache_mod, "block_signature", lambda rows: calls.append(1) or real(rows))
+    cache = SheetCache()
+    cache.get_or_compute(fresh(dated_block()), "dated", Counting())
+    assert calls == [] and _only_entry(cache).sig is None
+    cache = SheetCache()
+    cache.get_or_compute(fresh(plain_block()), "plain", Counting())
+    assert calls == [1] and _only_entry(cache).sig is not None
+
+
+def test_a_cell_outside_the_sampled_rows_still_decides_the_signature():
+    """Only the sampled rows are sniffed; the whole block's types still decide whether its
+    signature is kept. A numpy number in an unsampled row (marshal writes it as raw bytes)
+    leaves the block without one, so a bytes cell with those very bytes is no hit."""
+    rows = plain_block()
+    assert 151 not in cache_mod._picks(len(rows))             # not a sampled row
+    rows[151][1] = np.float64(rows[151][1])
+    cache, compute = SheetCache(), Counting()
+    cache.get_or_compute(fresh(rows), "k", compute)
+    assert _only_entry(cache).sig is None
+    changed = fresh(rows)
+    changed[151][1] = rows[151][1].tobytes()
+    assert block_signature(changed) == block_signature(fresh(rows))   # marshal alike
+    assert cache.get_or_compute(changed, "k", compute) == ("result", 2)
+
+
+def test_a_block_confirmed_by_its_signature_never_builds_a_type_guard():
+    cache, compute = SheetCache(), Counting()
+    cache.get_or_compute(fresh(plain_block()), "k", compute)
+    cache.get_or_compute(fresh(plain_block()), "k", compute)
+    assert compute.calls == 1 and _only_entry(cache)._guard is None
+
+
+def test_a_signed_block_builds_its_type_guard_at_its_first_comparison():
+    """A plain block whose hit is not confirmed by its signature (the same cell objects
+    passed again) builds the guard then, and a TRUE turned into 1 is still a new block."""
+    cache, compute = SheetCache(), Counting()
+    rows = fresh(plain_block())
+    cache.get_or_compute(rows, "k", compute)
+    assert _only_entry(cache)._guard is None
+    assert cache.get_or_compute([list(r) for r in rows], "k", compute) == ("result", 1)
+    assert _only_entry(cache)._guard is not None
+    changed = [list(r) for r in rows]
+    changed[1][3] = 1                                          # Garage TRUE -> 1
+    assert cache.get_or_compute(changed, "k", compute) == ("result", 2)
+
+
+def test_a_dated_block_has_its_type_guard_from_the_start():
+    cache, compute = SheetCache(), Counting()
+    cache.get_or_compute(fresh(dated_block()), "k", compute)
+    assert _only_entry(cache)._guard is not None
+    changed = fresh(dated_block())
+    changed[1][3] = 1                                          # Garage TRUE -> 1
+    assert cache.get_or_compute(changed, "k", compute) == ("result", 2)
+
+
+def test_keys_equal_by_eq_but_not_in_text_stay_apart():
+    """The key's text is part of the fingerprint: ("a", True) == ("a", 1), yet they are
+    two keys (a setting TRUE is not the number 1), given ready made or not."""
+    cache, compute = SheetCache(), Counting()
+    cache.get_or_compute(fresh(plain_block()), ("a", 1), compute)
+    assert cache.get_or_compute(fresh(plain_block()), ("a", True), compute) == ("result", 2)
+    assert cache.get_or_compute(fresh(plain_block()), ("a", 1.0), compute,
+                                key_text=repr(("a", 1.0))) == ("result", 3)
+    assert cache.get_or_compute(fresh(plain_block()), ("a", 1), compute,
+                                key_text=repr(("a", 1))) == ("result", 1)
+
+
+def test_the_worksheet_functions_key_text_is_the_keys_repr():
+    s, m, text = sf._parsed(RESPONSE, PREDICTORS, UNDATED)
+    assert text == repr(("analysis", m))
+
+
+def test_a_sampled_row_with_nan_still_fingerprints_alike():
+    """NaN is not equal to itself (and its hash is its identity); the fingerprint of a
+    fresh copy must not move with it, or an unchanged block would never be found."""
+    rows = plain_block()
+    i = cache_mod._picks(len(rows))[1]                        # a sampled row
+    rows[i][1] = math.nan
+    assert cache_mod.fingerprint(fresh(rows), "k") == cache_mod.fingerprint(fresh(rows), "k")
+    cache, compute = SheetCache(), Counting()
+    cache.get_or_compute(fresh(rows), "k", compute)
+    assert cache.get_or_compute(fresh(rows), "k", compute) == ("result", 1)
+
+
+def test_a_change_in_any_chunk_of_the_signature_is_a_new_block():
+    """The signature is written 1024 rows a chunk: a change in the last chunk, in a chunk
+    boundary row, or a block one row longer than a whole number of chunks, is new."""
+    size = cache_mod._CHUNK_ROWS
+    rows = plain_block(2 * size + 5)
+    sig = block_signature(fresh(rows))
+    assert sig is not None and len(sig) == 3
+    assert cache_mod.same_signature(fresh(rows), sig)
+    for i in (size - 1, size, 2 * size + 5):
+        changed = fresh(rows)
+        changed[i][1] += 1.0
+        assert not cache_mod.same_signature(changed, sig), i
+    assert not cache_mod.same_signature(fresh(rows)[:2 * size], sig)   # two chunks, not three
+    assert not cache_mod.same_signature(fresh(rows)[:2 * size + 1] + fresh(rows)[2 * size + 1:-1],
+                                        sig)
+    dated = fresh(rows)
+    dated[size + 3][4] = dt.datetime(2024, 1, 1)               # marshal refuses a date
+    assert not cache_mod.same_signature(dated, sig)

@@ -457,3 +457,28 @@ def test_a_whole_column_reference_reads_only_the_rows_with_sales(sales_cells):
     assert got == call(sf.PLUMB_COEFS, rows, RESPONSE, PREDICTORS, None)
     screen = call(sf.PLUMB_SCREEN, whole, RESPONSE, PREDICTORS, None)
     assert not any("empty row" in str(c) for r in screen for c in r)
+
+
+def test_text_and_date_columns_render_as_cell_by_cell():
+    """frame_cells' column-wise paths (short text and blanks kept, naive dates through
+    numpy) give what the independent reference expects, and what cell() gives one by
+    one: text over 254 characters is cut, NaN and NaT are empty cells, a text column
+    holding a number falls back to the cell-by-cell path, a zoned date keeps its wall
+    time. Reference: tests/sheet_cells.py and Excel's 255-character limit for array text."""
+    frame = pd.DataFrame({
+        "text": pd.Series(["a", None, "x" * 300], dtype=object),
+        "long": ["p", "q", "z" * 255],                # the default text dtype, no blank
+        "mixed": ["b", np.nan, "c"],
+        "when": pd.to_datetime(["2024-01-02 03:04:05.123456", None, "1950-06-01 00:00:00.000000"]),
+        "zoned": pd.to_datetime(["2024-01-02 23:30"] * 3).tz_localize("America/Chicago"),
+    })
+    out = sf.frame_cells(frame)
+    assert out[1:] == [[sf.cell(v) for v in rec] for rec in frame.itertuples(index=False)]
+    assert out[3][0] == "x" * 253 + "\u2026" and out[2][0] is None
+    assert out[3][1] == "z" * 253 + "\u2026"
+    assert out[2][2] is None and out[2][3] is None
+    assert out[1][3] == dt.datetime(2024, 1, 2, 3, 4, 5, 123456)
+    assert type(out[1][3]) is dt.datetime and out[1][4] == dt.datetime(2024, 1, 2, 23, 30)
+    short = frame.drop(columns=["zoned"]).assign(
+        text=pd.Series(["a", None, "y"], dtype=object), long=["p", "q", "z"])
+    assert sf.frame_cells(short)[1:] == expected_cells(short)[1:]

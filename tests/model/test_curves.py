@@ -217,6 +217,57 @@ def test_linearity_check_names_the_bent_predictor_and_matches_statsmodels():
     assert "Linearity: 'Age' as a straight line" not in set(b.tables.checks["check"])
 
 
+def _harrell_knots(x):
+    """Harrell's 4 default knots (2015, Table 2.3) by numpy's quantile, over the distinct
+    values when ties make two equal."""
+    t = np.quantile(x, KNOT_QUANTILES[4])
+    return t if np.all(np.diff(t) > 0) else np.quantile(np.unique(x), KNOT_QUANTILES[4])
+
+
+@pytest.mark.filterwarnings("ignore:The design matrix is rank-deficient")   # 'Few', meant
+@pytest.mark.parametrize("intercept", [True, False])
+def test_every_linearity_check_matches_statsmodels_including_a_three_valued_predictor(
+        intercept):
+    """All predictors tested at once, each against statsmodels' compare_f_test of its own
+    nested pair. 'Few' takes three values: on three points 1, x and the two spline terms
+    span only three dimensions, so one spline column is redundant (statsmodels counts the
+    rank: df 1); 'Four' and 'Five' keep both."""
+    import statsmodels.api as sm
+    from plumbrule.diagnostics.curves import linearity_by_predictor
+    d = curved_market(n=400, seed=9)
+    names = ["Living area", "Age", "Few", "Four", "Five"]
+    for j, name in enumerate(names[2:]):
+        d[name] = np.random.default_rng(j + 1).integers(0, j + 3, len(d)).astype(float)
+    a = analyze(d, response="Price", predictors=",".join(names), log_response=True, folds=0,
+                no_intercept=not intercept)
+    m = a.model
+    x = sm.add_constant(m.x) if intercept else m.x
+    small = sm.OLS(m.y, x).fit()
+    got = {k.name: k for k in linearity_by_predictor(m)}
+    assert len(got) == len(names)
+    for name in names:
+        v = d[name].to_numpy()
+        full = sm.OLS(m.y, np.column_stack([x, rcs_terms(v, _harrell_knots(v))])).fit()
+        f, p, df = full.compare_f_test(small)
+        k = got[f"Linearity: '{name}' as a straight line"]
+        assert k.df == df == (1 if name == "Few" else 2), name
+        assert k.statistic == pytest.approx(f, rel=1e-9), name
+        assert k.p_value == pytest.approx(p, rel=1e-7), name
+
+
+@pytest.mark.parametrize("n", [300, 2 * (1 << 14) + 77])    # one block of rows; three
+def test_spline_terms_are_written_into_a_slice_of_a_wider_block(n):
+    from plumbrule.model.curves import rcs_into
+    rng = np.random.default_rng(4)
+    x = rng.uniform(0, 100, n)
+    t = np.quantile(x, KNOT_QUANTILES[4])
+    block = np.full((n, 5), 7.0, order="F")
+    rcs_into(x, t, block[:, 2:4])
+    want = _hand_rcs(x, t)
+    assert np.max(np.abs(block[:, 2:4] - want)) < 1e-12 * np.max(np.abs(want))
+    assert np.all(block[:, [0, 1, 4]] == 7.0)      # the neighbours are left alone
+
+
 def test_linearity_check_false_alarm_rate_on_a_straight_model():
     from plumbrule.diagnostics.curves import linearity_by_predictor
     from plumbrule.model.fitted import fit_model

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from contextlib import contextmanager
 from typing import Any, Sequence
 
 from plumbrule.errors import CellErrors, PlumbError
@@ -269,7 +270,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     except SystemExit as stop:   # --help, --version, or a bad command line
         return stop.code if isinstance(stop.code, int) else 2
     try:
-        return int(args.handler(args) or 0)
+        with _cycle_collection_paused():
+            return int(args.handler(args) or 0)
     except CellErrors as err:
         _report_cells(err, bool(getattr(args, "json", False)))
         return 2
@@ -292,8 +294,31 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 1
 
 
+@contextmanager
+def _cycle_collection_paused():
+    """The cyclic garbage collector paused for one command: reading, analysing and writing
+    create hundreds of thousands of long-lived objects (cells, labels, table columns) that
+    every collection walks again (about 5% of `fit` on 200k sales), and a command leaves
+    little cyclic garbage. Collection resumes as it was when the command ends."""
+    import gc
+    was = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was:
+            gc.enable()
+
+
 def run(argv: Any = None) -> None:  # console-script entry point
-    sys.exit(main(argv))
+    code = main(argv)
+    # The process ends here: the collection the interpreter runs at exit would walk every
+    # object still alive (0.15 s after `fit` on 200k sales) only to free memory the exit
+    # frees anyway. Frozen objects are still freed by reference counting as the
+    # interpreter clears its modules; only that last walk is skipped.
+    import gc
+    gc.freeze()
+    sys.exit(code)
 
 
 if __name__ == "__main__":

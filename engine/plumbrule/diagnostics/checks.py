@@ -241,7 +241,7 @@ def time_neighbours(model: FittedModel) -> Check:
     order, basis = setup
     seconds = serial.sale_seconds(model.data, str(model.spec.date_column), order)
     test = serial.neighbour_test(model.fit.resid[order], basis,
-                                 serial.neighbour_matrix(seconds, k))
+                                 serial.neighbour_matrix(serial.neighbour_counts(seconds, k), k))
     i_stat, p = test.statistic, test.p_upper
     how = "p from its exact null"
     if p >= 0.05:

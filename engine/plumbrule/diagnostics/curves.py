@@ -8,8 +8,9 @@ import numpy as np
 import pandas as pd
 
 from plumbrule.diagnostics.checks import Check, not_applicable
-from plumbrule.model.curves import KNOT_QUANTILES, CurveBasis, rcs_terms
+from plumbrule.model.curves import KNOT_QUANTILES, CurveBasis, rcs_into
 from plumbrule.model.fitted import FittedModel
+from plumbrule.numeric.quantiles import quantiles
 from plumbrule.verdicts import OK, WATCH
 
 CURVE_COLUMNS = ["predictor", "kind", "value", "band", "reference", "model_effect", "effect",
@@ -86,45 +87,78 @@ def straight_predictors(model: FittedModel) -> list[tuple[str, int]]:
 def curve_gains(model: FittedModel, columns: list[int]) -> list[tuple[float, int]]:
     """For each design column of ``columns``: (the drop in the residual sum of squares from
     adding the non-linear terms of a 4-knot restricted cubic spline of that column, their
-    df). From the fit's Q: the new columns, centred with an intercept, are made orthogonal
-    to the design (twice, for working precision; all columns' terms at once) and the
-    residuals projected on what is left; df 0 when the values are too few or too repetitive
-    for the knots."""
-    blocks, owner = [], []
+    df). From the fit's Q: the new columns of all predictors at once, centred with an
+    intercept, are made orthogonal to the design and the residuals projected on what is
+    left; df 0 when the values are too few or too repetitive for the knots."""
+    from scipy.linalg.blas import dgemm     # loaded already by the fit's QR
+
+    fit = model.fit
+    n = len(model.x)
+    knots = []
     for pos, column in enumerate(columns):
         x = model.x[:, column]
-        t = np.quantile(x, KNOT_QUANTILES[TEST_KNOTS])
+        t = quantiles(x, KNOT_QUANTILES[TEST_KNOTS])     # numpy's quantiles, bit for bit
         if not np.all(np.diff(t) > 0):
-            t = np.quantile(np.unique(x), KNOT_QUANTILES[TEST_KNOTS])
+            t = quantiles(np.unique(x), KNOT_QUANTILES[TEST_KNOTS])
             if not np.all(np.diff(t) > 0):
                 continue
-        blocks.append(rcs_terms(x, t))
-        owner += [pos] * (TEST_KNOTS - 2)
+        knots.append((pos, column, t))
     out = [(0.0, 0)] * len(columns)
-    if not blocks:
+    if not knots:
         return out
-    w = np.hstack(blocks)
-    if model.fit.has_intercept:
-        w -= w.mean(axis=0)
-    raw = np.einsum("ij,ij->j", w, w)
-    q = model.fit.q
-    for _ in range(2):
-        w -= np.dot(q, q.T @ w)
-    norms = np.sqrt(np.einsum("ij,ij->j", w, w))
-    keep = norms ** 2 > 1e-12 * np.maximum(raw, np.finfo(float).tiny)
-    owner_a = np.asarray(owner)
-    resid = model.fit.resid
-    for pos in np.unique(owner_a):
-        mine = (owner_a == pos) & keep
-        if not mine.any():
-            continue
-        z = w[:, mine] / norms[mine]
-        qz, rz = np.linalg.qr(z)
-        diag = np.abs(np.diag(rz))
-        ok = diag > 1e-8 * diag.max()
-        proj = qz[:, ok].T @ resid
-        out[pos] = (float(proj @ proj), int(ok.sum()))
+    per = TEST_KNOTS - 2
+    k = per * len(knots)
+    # one n × (k + 1) block: the new columns, then the residuals, so that a single
+    # product gives every column's Gram row and its cross product with the residuals
+    wr = np.empty((n, k + 1), order="F")
+    w = wr[:, :k]
+    for b, (_, column, t) in enumerate(knots):
+        rcs_into(model.x[:, column], t, w[:, per * b:per * (b + 1)])
+    if fit.has_intercept:
+        w -= w.sum(axis=0) / n
+    # One pass of Gram–Schmidt against Q: what it leaves inside span(Q) is of the order of
+    # rounding, and the residuals are orthogonal to span(Q), so a second pass would move
+    # neither the Gram of these columns nor their products with the residuals.
+    c = fit.q.T @ w
+    done = dgemm(-1.0, fit.q, c, 1.0, w, overwrite_c=True)  # w − Q·c, written into w (an
+    if done is not w:                                       # F-ordered float block)
+        w[...] = done
+    wr[:, k] = fit.resid
+    g = dgemm(1.0, w, wr, trans_a=True)                     # k × (k + 1)
+    sq = np.diag(g).copy()
+    raw = sq + np.einsum("ij,ij->j", c, c)       # ‖centred column‖², by Pythagoras
+    keep = sq > 1e-12 * np.maximum(raw, np.finfo(float).tiny)
+    norms = np.sqrt(sq)
+    for b, (pos, _, _) in enumerate(knots):
+        mine = np.flatnonzero(keep[per * b:per * (b + 1)]) + per * b
+        if len(mine):
+            out[pos] = _block_gain(g, norms, mine, w, fit.resid)
     return out
+
+
+# Below this 1 − ρ² the two unit columns of a block are factored by QR rather than
+# solved from their Gram matrix, which loses about log10(1/(1 − ρ²)) digits (2 at most here).
+_GRAM_SAFE = 1e-2
+
+
+def _block_gain(g: np.ndarray, norms: np.ndarray, mine: np.ndarray, w: np.ndarray,
+                resid: np.ndarray) -> tuple[float, int]:
+    """(‖projection of the residuals on the columns ``mine`` of ``w``‖², its rank) from the
+    Gram rows ``g`` (last column: the products with the residuals) and the column norms."""
+    cz = g[mine, -1] / norms[mine]               # unit columns' products with the residuals
+    if len(mine) == 1:
+        return float(cz[0] ** 2), 1
+    if len(mine) == 2:
+        rho = g[mine[0], mine[1]] / (norms[mine[0]] * norms[mine[1]])
+        s2 = (1.0 - rho) * (1.0 + rho)
+        if s2 >= _GRAM_SAFE:    # R = [[1, ρ], [0, √(1 − ρ²)]]: both columns kept
+            p2 = (cz[1] - rho * cz[0]) / np.sqrt(s2)
+            return float(cz[0] ** 2 + p2 ** 2), 2
+    qz, rz = np.linalg.qr(w[:, mine] / norms[mine])
+    diag = np.abs(np.diag(rz))
+    ok = diag > 1e-8 * diag.max()
+    proj = qz[:, ok].T @ resid
+    return float(proj @ proj), int(ok.sum())
 
 
 def linearity_by_predictor(model: FittedModel) -> list[Check]:

@@ -10,11 +10,11 @@ never share a result (no hash collision can return a wrong fit).
 Two exact confirmations:
 
 * A block of plain cells (text, numbers, bools, blanks) has a signature,
-  :func:`block_signature`: the block written by :mod:`marshal` at C speed, a type
-  code and the exact value of every cell (TRUE, 1, 1.0, '1' and '' all differ).
-  ``marshal.loads`` rebuilds the block from those bytes, so equal bytes mean equal
-  cells, value and type. It reads the incoming cells once; comparing the lists reads
-  them and the stored copy.
+  :func:`block_signature`: the block written by :mod:`marshal` at C speed, 1024 rows
+  a chunk, a type code and the exact value of every cell (TRUE, 1, 1.0, '1' and ''
+  all differ). ``marshal.loads`` rebuilds the rows from those bytes, so equal bytes
+  mean equal cells, value and type. It reads the incoming cells once; comparing the
+  lists reads them and the stored copy.
 * Otherwise (dates, which marshal cannot write, or a signature that differs) every
   cell is compared with the stored copy: ``==`` in C, stopping at the first
   difference, plus a type guard where ``==`` calls TRUE and 1 equal. marshal marks a
@@ -22,11 +22,16 @@ Two exact confirmations:
   (held by the stored copy too) write other bytes and come here; so does a TRUE/1 swap
   in a column the analysis reads as numbers, which is the same analysis.
 
-Measured (benchmarks/recalc.py, 20,000 rows x 12 columns): either confirmation costs
-about as much as reading a freshly made block once (5-10 ms on a busy two-core
-machine); that read, not the comparison, is the floor of a hit. Hashing the bytes
-(blake2b) or building numpy arrays per call only adds to it; copying the block to set
-its dates aside for marshal costs more than the comparison it saves.
+Measured (benchmarks/recalc.py, 20,000 rows x 12 columns, every cell its own object as
+xlwings makes them): either confirmation costs about as much as reading a freshly made
+block once (its "floor" line: 5-10 ms on a busy two-core machine, about 0.3 x one
+analysis for 30 cells); that read, not the comparison, is the floor of a hit, and no
+exact confirmation can skip a cell of a new copy, so 30 cells sharing one range cannot
+cost less than 30 reads: a PLUMB_MODEL cell and its handle can. Hashing the bytes
+(blake2b) or building numpy arrays per call only adds to it; setting the dates aside
+in place for marshal (take the column, blank it, put it back) or marshalling the block
+without them costs more than the comparison it saves; a single buffer for the whole
+block's bytes costs page faults that 1024-row chunks do not.
 
 Entries are evicted least-recently-used, bounded by count and by an
 approximate memory size. Errors (a PlumbError raised for a block) are cached
@@ -78,18 +83,39 @@ def as_rows(values: Any, trust: bool = False) -> list[list[Any]]:
     return [[values]]
 
 
-def fingerprint(rows: list[list[Any]], extra: Hashable = ()) -> bytes:
-    """blake2b of the block's shape, header, a sample of rows and ``extra``.
-    Cheap (independent of the block's size); not a proof of equality."""
-    n = len(rows)
-    picks = sorted({0, n - 1, *range(0, n, max(1, n // _SAMPLE_ROWS))}) if n else []
+def _picks(n: int) -> list[int]:
+    """The rows sampled: the header, the last row and rows spread between."""
+    return sorted({0, n - 1, *range(0, n, max(1, n // _SAMPLE_ROWS))}) if n else []
+
+
+def fingerprint(rows: list[list[Any]], extra: Hashable = (),
+                extra_text: str | None = None) -> bytes:
+    """blake2b of the block's shape, header, a sample of rows and ``extra`` (by its repr,
+    which ``extra_text`` may give ready made). Cheap (independent of the block's size); not
+    a proof of equality."""
+    picks = _picks(n := len(rows))
     h = hashlib.blake2b(digest_size=16)
     widths = [len(rows[i]) if type(rows[i]) is list else -1 for i in picks]
-    h.update(repr((n, widths, extra)).encode("utf-8", "replace"))
+    text = repr(extra) if extra_text is None else extra_text
+    h.update(repr((n, widths, text)).encode("utf-8", "replace"))
     for i in picks:
-        row = rows[i] if type(rows[i]) is list else [rows[i]]
-        h.update(repr([(type(v).__name__, v) for v in row]).encode("utf-8", "replace"))
+        h.update(_row_bytes(rows[i] if type(rows[i]) is list else [rows[i]]))
     return h.digest()
+
+
+def _row_bytes(row: list[Any]) -> bytes:
+    """One sampled row as bytes: marshal (version 2 keeps no references, so the bytes do not
+    depend on what else holds a cell; TRUE, 1 and 1.0 differ), a date by its type and hash,
+    or the row's text when neither works. Equal rows give equal bytes, at C speed."""
+    try:
+        return marshal.dumps(row, 2)
+    except ValueError:
+        pass
+    try:
+        return marshal.dumps([v if type(v) in PLAIN else (type(v).__name__, hash(v))
+                              for v in row], 2)
+    except (TypeError, ValueError):
+        return repr([(type(v).__name__, v) for v in row]).encode("utf-8", "replace")
 
 
 def type_guard(rows: list[list[Any]], loose: frozenset = frozenset()) -> tuple:
@@ -163,16 +189,41 @@ PLAIN = frozenset({float, str, type(None), bool, int})
 _MARSHAL_VERSION = 4
 
 
-def block_signature(rows: list[list[Any]]) -> bytes | None:
-    """marshal bytes of the block (one pass at C speed), or None when marshal refuses a
-    cell (a date, a subclass). ``marshal.loads`` rebuilds the block from them, so two
-    blocks of plain cells (:data:`PLAIN`) with the same bytes hold the same cells, value
-    and type. A cell marshal writes as raw bytes (a numpy scalar) cannot match a stored
-    block of plain cells: bytes are no plain cell."""
+# Rows per marshal chunk: a chunk's bytes (~100 kB) reuse the heap; one buffer for the whole
+# block (MBs) is fresh mapped memory every call, page faults included (~5% of a pass).
+_CHUNK_ROWS = 1024
+
+
+def block_signature(rows: list[list[Any]]) -> tuple[bytes, ...] | None:
+    """marshal bytes of the block, 1024 rows a chunk (one pass at C speed), or None when
+    marshal refuses a cell (a date, a subclass). ``marshal.loads`` rebuilds each chunk of
+    rows from its bytes, so two blocks of plain cells (:data:`PLAIN`) with the same chunks
+    hold the same cells, value and type. A cell marshal writes as raw bytes (a numpy
+    scalar) cannot match a stored block of plain cells: bytes are no plain cell."""
     try:
-        return marshal.dumps(rows, _MARSHAL_VERSION)
+        return tuple(marshal.dumps(rows[i:i + _CHUNK_ROWS], _MARSHAL_VERSION)
+                     for i in range(0, len(rows), _CHUNK_ROWS))
     except ValueError:
         return None
+
+
+def same_signature(rows: list[list[Any]], sig: tuple[bytes, ...]) -> bool:
+    """``rows`` give the chunks ``sig`` (the same number of rows first), stopping at the first
+    chunk that differs."""
+    if not rows or -(-len(rows) // _CHUNK_ROWS) != len(sig):
+        return False
+    dumps = marshal.dumps
+    try:
+        return all(dumps(rows[i:i + _CHUNK_ROWS], _MARSHAL_VERSION) == sig[n]
+                   for n, i in enumerate(range(0, len(rows), _CHUNK_ROWS)))
+    except ValueError:          # a cell marshal refuses: no plain block, so not this one
+        return False
+
+
+def _sample_is_plain(rows: list[list[Any]]) -> bool:
+    """Every cell of the sampled rows is PLAIN (so the block may have a signature)."""
+    return all(type(rows[i]) is list and set(map(type, rows[i])) <= PLAIN
+               for i in _picks(len(rows)))
 
 
 def small_key(values: Any) -> Hashable:
@@ -218,13 +269,24 @@ def approx_size(obj: Any, _depth: int = 0) -> int:
 
 
 class _Entry:
-    __slots__ = ("key", "rows", "guard", "value", "error", "nbytes", "sig")
+    __slots__ = ("key", "rows", "_guard", "loose", "value", "error", "nbytes", "sig")
 
     def __init__(self, key, rows, value, error, nbytes, loose=frozenset(), sig=None):
         self.key, self.rows, self.value, self.error = key, rows, value, error
-        self.guard = type_guard(rows, loose)
+        # Without a signature every hit compares cells: the guard is made now, with the
+        # fit, rather than in the first hit (for a model cell, the next recalculation).
+        self.loose, self._guard = loose, None if sig is not None else type_guard(rows, loose)
         self.sig = sig
-        self.nbytes = nbytes + (len(sig) if sig is not None else 0)
+        self.nbytes = nbytes + (sum(map(len, sig)) if sig is not None else 0)
+
+    @property
+    def guard(self) -> tuple:
+        """The type guard of the stored block; for a block with a signature, made at its
+        first cell-by-cell comparison (its hits seldom need one). The stored copy never
+        changes, so computing it twice from two threads gives the same guard."""
+        if self._guard is None:
+            self._guard = type_guard(self.rows, self.loose)
+        return self._guard
 
 
 class SheetCache:
@@ -255,13 +317,17 @@ class SheetCache:
 
     def get_or_compute(self, values: Any, key: Hashable, compute: Callable[[list], Any],
                        cache_errors: tuple[type[BaseException], ...] = (),
-                       loose_columns: Callable[[Any, list], frozenset] | None = None) -> Any:
+                       loose_columns: Callable[[Any, list], frozenset] | None = None,
+                       key_text: str | None = None) -> Any:
         """``compute(rows)`` once per distinct (block, key); the cached result after.
 
         ``loose_columns(result, rows)`` may name the column indices whose cells the result
-        reads as numbers (TRUE and 1 alike), which the type check then skips."""
+        reads as numbers (TRUE and 1 alike), which the type check then skips. ``key_text``
+        is ``repr(key)`` when the caller keeps it (a Settings repr costs half a millisecond);
+        keys equal by ``==`` but of other text (TRUE and 1) stay apart."""
         rows = as_rows(values, trust=True)
-        fp = fingerprint(rows, key)
+        text = repr(key) if key_text is None else key_text
+        fp = fingerprint(rows, extra_text=text)
         with self._lock:
             candidates = [(slot, e) for slot in range(_CANDIDATES)
                           if (e := self._entries.get((fp, slot))) is not None and e.key == key]
@@ -278,12 +344,15 @@ class SheetCache:
             self._misses += 1
         norm = as_rows(rows)
         if norm is not rows:                 # tuples or a flat list: key the normal form
-            rows, fp = norm, fingerprint(norm, key)
+            rows, fp = norm, fingerprint(norm, extra_text=text)
         # The signature is written before the copy below holds every cell a second time
         # (marshal marks a cell held twice), as the next look-up will write it. A block
         # with a cell other than PLAIN has none (marshal stops at the first date): its
         # hits compare cells.
-        sig = block_signature(rows) if rows and set(map(type, rows)) == {list} else None
+        # A sampled cell that is not PLAIN (a date) means no signature: marshal would
+        # read the whole block only to refuse it. Skipping it only leaves the comparison.
+        sig = (block_signature(rows) if rows and set(map(type, rows)) == {list}
+               and _sample_is_plain(rows) else None)
         if sig is not None and not set(map(type, chain.from_iterable(rows))) <= PLAIN:
             sig = None
         stored = list(map(list, rows))       # our own copy: the caller may change its list
@@ -305,7 +374,7 @@ class SheetCache:
         cells, exact), else the cell-by-cell comparison with the stored copy (two passes;
         it also accepts a TRUE/1 swap in a column the result reads as numbers)."""
         if (entry.sig is not None and len(rows) == len(entry.rows)
-                and block_signature(rows) == entry.sig):
+                and same_signature(rows, entry.sig)):
             return True
         return same_cells(rows, entry.rows, entry.guard)
 

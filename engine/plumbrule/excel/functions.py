@@ -96,6 +96,9 @@ def cell(v: Any) -> Any:
     return text_cell(str(v))
 
 
+_AS_IS = frozenset({str, type(None)})     # cells cell() returns unchanged when short
+
+
 def frame_cells(frame) -> list[list[Any]]:
     """A DataFrame → header row + one row of cells per record, cut to a sheet's size."""
     import numpy as np
@@ -117,8 +120,16 @@ def frame_cells(frame) -> list[list[Any]]:
             cols.append(s.to_numpy(dtype=float).tolist())
         elif s.dtype.kind == "b":
             cols.append([bool(v) for v in s.tolist()])
+        elif s.dtype == np.dtype("datetime64[ns]"):        # naive dates, years 1678-2261
+            # numpy gives datetime.datetime (None for NaT) in C: what cell() gives.
+            cols.append(s.to_numpy().astype("datetime64[us]").tolist())
         else:
-            cols.append([cell(v) for v in s.tolist()])
+            vals = s.tolist()
+            if set(map(type, vals)) <= _AS_IS and max(map(len, filter(None, vals)),
+                                                       default=0) <= MAX_TEXT:
+                cols.append(vals)                # short text and blanks: cell() keeps them
+            else:
+                cols.append([cell(v) for v in vals])
     out = [[text_cell(str(c)) for c in columns]]
     out.extend(map(list, zip(*cols, strict=False)) if cols else ([] for _ in range(body_rows)))
     if cut:
@@ -294,7 +305,7 @@ class _Fitted:
         done = self.rendered.get(name)
         if done is None:
             done = self.rendered[name] = to_cells(build(self.analysis))
-        return Cells(list(r) for r in done) if isinstance(done, list) else done
+        return Cells(map(list, done)) if isinstance(done, list) else done
 
 
 def _model_settings(s):
@@ -306,18 +317,21 @@ def _model_settings(s):
                         if f.name in REGISTRY and REGISTRY[f.name].group == "value"})
 
 
-_PARSED: dict = {}          # (response, predictors, settings cells) → (settings, model settings)
+_PARSED: dict = {}     # (response, predictors, settings cells) → (settings, model settings,
+#                        the text of the analysis key) — or, for a handle, the settings
 
 
 def _parsed(response: Any, predictors: Any, settings: Any):
-    """resolve_settings and _model_settings, remembered for the small argument blocks."""
+    """resolve_settings, _model_settings and the repr of the cache key ("analysis", model
+    settings), remembered for the small argument blocks."""
     key = small_key((response, predictors, settings))
     hit = _PARSED.get(key)
     if hit is None:
         s = resolve_settings(response, predictors, settings)
         if len(_PARSED) >= 64:
             _PARSED.pop(next(iter(_PARSED)))
-        hit = _PARSED[key] = (s, _model_settings(s))
+        m = _model_settings(s)
+        hit = _PARSED[key] = (s, m, repr(("analysis", m)))
     return hit
 
 
@@ -333,7 +347,7 @@ def fitted(sales: Any, response: Any, predictors: Any, settings: Any) -> tuple[_
         if first.startswith(PREFIX):          # the model cell shows an error: show it too
             from plumbrule.errors import IntakeError
             raise IntakeError(first[len(PREFIX):])
-    s, m = _parsed(response, predictors, settings)
+    s, m, key_text = _parsed(response, predictors, settings)
     if is_blank(sales) or not isinstance(sales, (list, tuple)):
         from plumbrule.errors import IntakeError
         raise IntakeError("Argument 'sales': select the sales table including its header row, "
@@ -342,7 +356,8 @@ def fitted(sales: Any, response: Any, predictors: Any, settings: Any) -> tuple[_
     sales = used_rows(sales)          # a whole-column reference: only the rows with sales
     holder = CACHE.get_or_compute(sales, ("analysis", m),
                                   lambda rows: _Fitted(analyze(rows, m)),
-                                  cache_errors=(PlumbError,), loose_columns=_numeric_columns)
+                                  cache_errors=(PlumbError,), loose_columns=_numeric_columns,
+                                  key_text=key_text)
     return holder, s
 
 
@@ -442,7 +457,7 @@ def valuation_cells(name: str, build: Callable, sales, response, predictors, sub
     done = holder.rendered.get((name, key))
     if done is None:
         done = holder.rendered[(name, key)] = to_cells(build(valuation))
-    return Cells(list(r) for r in done) if isinstance(done, list) else done
+    return Cells(map(list, done)) if isinstance(done, list) else done
 
 
 def _valuation(sales, response, predictors, subject, comps, settings):
@@ -674,7 +689,7 @@ def comparison_cells(sales, models, settings) -> Cells:
         return Cells(out)
     done = CACHE.get_or_compute(sales, ("compare", small_key(block), s), build,
                                 cache_errors=(PlumbError,))
-    return Cells(list(r) for r in done)
+    return Cells(map(list, done))
 
 
 def _sentences(text: str) -> list[str]:

@@ -66,14 +66,18 @@ class FittedModel:
     @cached_property
     def date_order_basis(self) -> np.ndarray | None:
         """An orthonormal basis of the design with its constant, rows in sale-date order
-        ([1/√n, Q]: Q's columns are centred with an intercept); formed once for the
-        serial checks that read it. None without a date column."""
+        ([1/√n, Q]: Q's columns are centred with an intercept; n × p, C order); formed
+        once for the serial checks that read it. None without a date column."""
         if self.sale_order is None:
             return None
-        q = self.fit.q[self.sale_order]
-        if not self.fit.has_intercept:
-            return q
-        return np.column_stack([np.full(self.fit.n, 1.0 / np.sqrt(self.fit.n)), q])
+        q = self.fit.q
+        if self.fit.has_intercept:
+            # the constant joins Q's columns first (a plain column copy) and every row is
+            # gathered once with np.take: far cheaper than fancy-indexing Q, then stacking
+            q = np.empty((self.fit.n, q.shape[1] + 1), order="F")
+            q[:, 0] = 1.0 / np.sqrt(self.fit.n)
+            q[:, 1:] = self.fit.q
+        return np.take(q, self.sale_order, axis=0)
 
     @cached_property
     def cov(self) -> np.ndarray:
