@@ -68,6 +68,10 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
     id_labels = (intake.to_labels(intake.text_cells(table, spec.id_column), spec.id_column)
                  if spec.id_column else None)
     shown_ids = id_labels[0] if id_labels is not None else None
+    # IDs all different over the whole sheet are so over any of its rows: hashed once here,
+    # not again by the duplicates rule and the ID check
+    ids_unique = (shown_ids is not None and spec.id_column is not None
+                  and _all_different(table, spec.id_column, shown_ids))
     logs, looked = [], []
     totals = intake.totals_rows(table, numeric)        # before typing: 'Total' is no price
     if len(totals):
@@ -95,16 +99,16 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
     merged, merges = merge_levels(clean.data, spec.categorical, spec.level_map)
     clean = intake.CleanData(merged, clean.dropped)
     data = clean.data
-    raw_ids = None if shown_ids is None else shown_ids.reindex(table.frame.index)
-    data, dup_log = duplicate_rows(data, raw_ids, settings.duplicates)
+    raw_ids = None if shown_ids is None else _on_rows(shown_ids, table.frame.index)
+    data, dup_log = duplicate_rows(data, raw_ids, settings.duplicates, ids_unique)
     if len(dup_log):      # a rule that found nothing adds no line to the checks
         looked.append((DUPLICATE, len(clean.data)))
     logs.append(dup_log)
     ids = None
     if spec.id_column:
-        kept_rows = table.frame.index.difference(pd.Index(dup_log["row"]))
-        ids = sale_ids(_rows_of(table, kept_rows), spec.id_column, spec.used_columns,
-                       id_labels)
+        kept = table if not len(dup_log) else _rows_of(
+            table, table.frame.index.difference(pd.Index(dup_log["row"])))
+        ids = sale_ids(kept, spec.id_column, spec.used_columns, id_labels, ids_unique)
     if spec.filters:
         n = len(data)
         data, filter_log = sale_filter(data, spec.filters)
@@ -191,6 +195,22 @@ def with_names(frame: pd.DataFrame, names: pd.DataFrame | None, column: str = "r
         if f"{prefix}{c}" not in out.columns and c not in out.columns:
             out[f"{prefix}{c}"] = names[c].reindex(at).to_numpy()
     return out
+
+
+def _all_different(table: intake.SheetTable, column: str, labels: pd.Series) -> bool:
+    """Whether the ID labels all differ: from the integers when the CSV column is integers
+    written plainly (different integers are different texts; hashing a million integers
+    is a fraction of hashing their texts), else from the labels."""
+    from plumbrule.intake.table import plain_integers
+    ints = plain_integers(table, column)
+    if ints is not None and pd.Index(ints).is_unique:
+        return True
+    return pd.Index(labels.to_numpy(dtype=object), dtype=object).is_unique
+
+
+def _on_rows(values: pd.Series, rows: pd.Index) -> pd.Series:
+    """``values`` reindexed to ``rows`` (itself when it has those rows already)."""
+    return values if values.index.equals(rows) else values.reindex(rows)
 
 
 def _rows_of(table: intake.SheetTable, rows: pd.Index) -> intake.SheetTable:

@@ -31,7 +31,7 @@ def _both(fn, col, *args, monkeypatch):
     fast = run()
     with monkeypatch.context() as m:
         m.setattr(cells, "plain_text", lambda c: False)
-        m.setattr(dates, "plain_text", lambda c: False)
+        m.setattr(dates, "plain_bytes", lambda c: None)
         slow = run()
     return fast, slow
 
@@ -60,10 +60,17 @@ def test_labels_and_reasons_match_the_careful_rules(values):
 
 
 DATE_PIECES = ["2025-03-14", "2024-12-01", "14/03/2025", "3/4/2025", "2025/03/14",
-               "2025-02-30", "45000", "soon", " 2025-03-14", "", "#N/A", "2025-03-14 10:30"]
+               "2025-02-30", "45000", "soon", " 2025-03-14", "", "#N/A", "2025-03-14 10:30",
+               # the byte-level ISO reading (dates._plain_iso_dates) must refuse these as the
+               # careful rules do: no such day or month, beyond datetime64[ns], year 0,
+               # one-digit parts, other separators, a letter among the digits
+               "2024-02-29", "2023-02-29", "2100-02-29", "2000-02-29", "2025-04-31",
+               "2025-13-01", "2025-00-10", "2025-01-00", "1677-09-22", "1677-09-21",
+               "2262-04-11", "2262-04-12", "0000-01-01", "9999-12-31", "2025-3-14",
+               "2025.03.14", "2025-03-1a", "2025/03-14", "1899-12-31"]
 
 
-@settings(max_examples=300, deadline=None)
+@settings(max_examples=600, deadline=None)
 @given(st.lists(st.sampled_from(DATE_PIECES), min_size=1, max_size=10),
        st.sampled_from(["auto", "DMY", "MDY", "YMD"]))
 def test_dates_match_the_careful_rules(values, order):
@@ -79,3 +86,46 @@ def test_the_fast_path_takes_plain_columns_and_refuses_the_rest():
         assert not cells.plain_text(pd.Series(["ok", odd], dtype=object)), repr(odd)
     assert not cells.plain_text(pd.Series(["ok", None], dtype=object))
     assert not cells.plain_text(pd.Series([1.0, 2.0]))
+
+
+def _plain_text_as_written(col: pd.Series) -> bool:
+    """plain_text's rules as one scan of the texts joined (what cells.plain_text decided
+    before it read the bytes with numpy): the reference for the byte-level reading."""
+    v = col.tolist()
+    if not v or col.dtype != object or not all(type(x) is str for x in v):
+        return False
+    joined = "\x00".join(v)
+    if not joined.isascii() or joined.count("\x00") != len(v) - 1:
+        return False
+    if not joined or joined[0] in " \x00" or joined[-1] in " \x00":
+        return False
+    marks = ("\t", "\n", "\r", "\x0b", "\x0c", "\x1c", "\x1d", "\x1e", "\x1f", "  ",
+             "\x00 ", " \x00", "\x00\x00", "#")
+    return not any(m in joined for m in marks) and "ERR:" not in joined.upper()
+
+
+CHARS = st.sampled_from(list("aZ09 -:#\t\n\r\x0b\x0c\x1c\x1f\x01\x1b\x00eErR") + ["é"])
+
+
+@settings(max_examples=1500, deadline=None)
+@given(st.lists(st.text(CHARS, max_size=6), min_size=1, max_size=8))
+def test_plain_text_reads_the_bytes_as_the_rules_say(values):
+    # hostile texts: NUL, control characters that are and are not white space, spaces at
+    # the ends and doubled, 'err:' split over characters, '#', empty texts, non-ASCII
+    col = pd.Series(values, dtype=object)
+    assert cells.plain_text(col) == _plain_text_as_written(col), values
+
+
+def test_plain_iso_dates_are_the_careful_dates_over_the_whole_range():
+    # every day datetime64[ns] holds, written YYYY-MM-DD (pandas' calendar as the reference)
+    days = pd.date_range("1677-09-22", "2262-04-11", freq="D")
+    col = pd.Series(days.strftime("%Y-%m-%d"), dtype=object)
+    raw = cells.plain_bytes(col)
+    assert raw is not None
+    got = dates._plain_iso_dates(raw, len(col))
+    assert got is not None and (got == days.to_numpy()).all()
+    # the same through to_dates, which refuses columns spanning more than 146 years
+    for part in (col[:40000], col[-40000:]):
+        fast, slow = _both(dates.to_dates, part, "Sale date", "auto",
+                           monkeypatch=pytest.MonkeyPatch())
+        _same(fast, slow)

@@ -152,3 +152,59 @@ def test_a_run_of_identical_sales_is_not_a_row_of_means():
                ["W-2", "Millrace", "Good", 300000, 1400],
                ["W-3", "Millrace", "Good", 300000, 1400])
     assert totals_rows(t, NUMERIC).empty
+
+
+# --- the shortcut for a sheet with no totals row (totals._no_candidate) ---------------------
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+from plumbrule.intake import totals  # noqa: E402
+
+_CELL = st.one_of(st.sampled_from([None, "", 0, 0.0, 1, 2, 3, 5, 6, 10, -3, 1e300]),
+                  st.integers(-5, 12))
+
+
+@st.composite
+def _sales_with_sums(draw):
+    """Small sheets of two or three numeric columns with blanks, zeros and repeats, where
+    some rows are made the sum or the mean of the rows above them in some columns."""
+    k = draw(st.integers(2, 3))
+    rows = draw(st.lists(st.lists(_CELL, min_size=k, max_size=k), min_size=3, max_size=9))
+    for i in draw(st.lists(st.integers(2, len(rows) - 1), max_size=2)):
+        how = draw(st.sampled_from(["sum", "mean"]))
+        for j in range(k):
+            vals = [r[j] for r in rows[:i] if isinstance(r[j], (int, float))]
+            if vals and draw(st.booleans()):
+                rows[i][j] = sum(vals) if how == "sum" else sum(vals) / len(vals)
+    label = draw(st.sampled_from([None, "Total", "W-9"]))
+    at = draw(st.integers(0, len(rows) - 1))
+    return [[f"W-{i}" if (i != at or label is None) else label] + r
+            for i, r in enumerate(rows)], k
+
+
+@settings(max_examples=400, deadline=None)
+@given(_sales_with_sums())
+def test_the_no_totals_shortcut_finds_what_the_full_passes_find(sheet):
+    # reference: the full passes over the n × k table (the shortcut turned off); the
+    # sheets hold blanks in the first column, which the shortcut must not skip past
+    rows, k = sheet
+    names = ["Sale ID"] + [f"n{j}" for j in range(k)]
+    table = table_from_values([names] + rows)
+    quick = totals_rows(table, names[1:])
+    try:
+        totals.QUICK = False
+        full = totals_rows(table, names[1:])
+    finally:
+        totals.QUICK = True
+    pd.testing.assert_frame_equal(quick, full)
+
+
+def test_the_shortcut_does_not_skip_a_total_behind_a_blank_first_column():
+    # the row of sums (sheet row 5) has no first number: its first filled column is the
+    # second (3 + 4 + 8 = 15, 10 + 20 + 30 = 60); the shortcut reads only the first column,
+    # so it must not be taken
+    table = table_from_values([["Sale ID", "a", "b", "c"], ["W-1", 1, 3, 10],
+                               ["W-2", 2, 4, 20], ["W-3", 9, 8, 30], ["", None, 15, 60]])
+    log = totals_rows(table, ["a", "b", "c"])
+    assert log["row"].tolist() == [5] and log["limit"].tolist() == [15.0]

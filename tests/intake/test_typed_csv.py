@@ -200,3 +200,29 @@ def test_text_cells_of_white_space_are_blank_on_both_paths(tmp_path, cell):
     _same_table(fast, careful)
     blank = intake.blank_cells(fast)["hood"].tolist()
     assert blank == [False, cell != " Old Quay", True]
+
+
+@pytest.mark.parametrize("repeat", [False, True])
+def test_integer_ids_are_checked_by_their_integers_as_by_their_text(tmp_path, repeat):
+    # IDs written as plain integers are told apart by their integers (intake.plain_integers)
+    # rather than by hashing their texts: a repeated ID is still found and named, exactly
+    # as the careful reader's text finds it (ID rule: intake.keys.sale_ids)
+    ids = [1001, 1002, 1003, 1004, 1005]
+    if repeat:
+        ids[3] = 1002
+    lines = ["id,price,area"] + [f"{i},{200000 + 1000 * k},{90 + 7 * k % 5}"
+                                 for k, i in enumerate(ids)]
+    path = tmp_path / "sales.csv"
+    path.write_text("\n".join(lines) + "\n")
+    fast = intake.read_csv(path, text_columns=["id"])
+    careful = intake.read_csv(path, typed=False)
+    from plumbrule.intake.table import plain_integers
+    assert plain_integers(fast, "id") is not None and plain_integers(careful, "id") is None
+    s = parse_settings({"response": "price", "predictors": "area", "id_column": "id"})
+    a = _outcome(lambda: prepare_sales(fast, s))
+    b = _outcome(lambda: prepare_sales(careful, s))
+    assert a[0] == b[0] == ("error" if repeat else "ok")
+    if repeat:
+        assert a[1] == b[1] and "ID '1002' is on sheet rows 3, 5" in a[1]
+    else:
+        pd.testing.assert_series_equal(a[1].ids, b[1].ids)

@@ -154,28 +154,73 @@ _NOT_PLAIN = ("\t", "\n", "\r", "\x0b", "\x0c", "\x1c", "\x1d", "\x1e", "\x1f", 
 def plain_text(col: pd.Series) -> bool:
     """True when every cell of ``col`` is a non-empty ASCII text, trimmed, single-spaced and
     no error value: the careful rules would read each as itself with no reason (no blank,
-    no error, nothing to respace). One C-level scan of the texts joined decides it, so an
-    ID or neighbourhood column of a large file skips the per-value rules altogether."""
+    no error, nothing to respace). One numpy scan of the texts' bytes joined decides it, so
+    an ID or neighbourhood column of a large file skips the per-value rules altogether."""
+    return plain_bytes(col) is not None
+
+
+def plain_bytes(col: pd.Series) -> bytes | None:
+    """The ASCII bytes of the cells of ``col`` joined by NUL when :func:`plain_text` holds
+    for it, else None."""
     n = len(col)
     if not n or col.dtype != object:
-        return False
+        return None
     v = col.to_numpy(dtype=object)
     if pd.api.types.infer_dtype(v, skipna=False) != "string":
-        return False
+        return None
     joined = "\x00".join(v.tolist())
-    if not joined.isascii() or joined.count("\x00") != n - 1:
+    if not joined.isascii():      # O(1): CPython knows whether a str is ASCII
+        return None
+    raw = joined.encode("ascii")
+    return raw if _plain_bytes(raw, n) else None
+
+
+_SPACE, _NUL, _HASH, _COLON = 32, 0, 35, 58
+# the ASCII white space str.split() splits at, but for the space: tab ... \x1f
+_SPLITS = np.zeros(256, dtype=bool)
+_SPLITS[[9, 10, 11, 12, 13, 28, 29, 30, 31]] = True
+
+
+def _plain_bytes(raw: bytes, n: int) -> bool:
+    """:func:`plain_text` on the ASCII bytes ``raw`` of ``n`` texts joined by NUL: n - 1 NULs
+    (no NUL inside a text), no empty text, no space at a text's ends or beside another
+    space, none of :data:`_NOT_PLAIN`'s marks ('#', 'ERR:' in any case, white space but
+    the space). The bytes up to the space are few: they are looked at by position."""
+    a = np.frombuffer(raw, dtype=np.uint8)
+    if not len(a) or a[0] <= _SPACE and a[0] in (_SPACE, _NUL) or \
+            a[-1] <= _SPACE and a[-1] in (_SPACE, _NUL):
         return False
-    if not joined or joined[0] in " \x00" or joined[-1] in " \x00":
+    at = np.flatnonzero(a <= _SPACE)
+    kind = a[at]
+    gap = (kind == _NUL) | (kind == _SPACE)
+    if int(np.count_nonzero(kind == _NUL)) != n - 1:
         return False
-    if any(bad in joined for bad in _NOT_PLAIN):
+    if not gap.all() and _SPLITS[kind].any():
         return False
-    return "ERR:" not in joined.upper()
+    # a space or a NUL right beside a space or a NUL: '  ', an empty text, a text's end
+    if (gap[1:] & gap[:-1] & (np.diff(at) == 1)).any():
+        return False
+    if b"#" in raw:
+        return False
+    if b":" in raw:
+        colon = np.flatnonzero(a[3:] == _COLON) + 3
+        low = a[np.concatenate((colon - 3, colon - 2, colon - 1))] | np.uint8(0x20)
+        low = low.reshape(3, len(colon))     # ASCII letters in lower case ('E' → 'e')
+        if ((low[0] == ord("e")) & (low[1] == ord("r")) & (low[2] == ord("r"))).any():
+            return False
+    return True
 
 
 def _no_reasons(col: pd.Series) -> tuple[pd.Series, pd.Series]:
-    """(reason per cell, all NaN; mask of cells that hold a value, all True)."""
-    return (pd.Series(np.nan, index=col.index, dtype=object),
-            pd.Series(True, index=col.index))
+    """(reason per cell, all NaN; mask of cells that hold a value, all True). The reasons
+    are a read-only view of one NaN (no n-long object array, which notna() walks)."""
+    return (_no_reason(col.index), pd.Series(True, index=col.index))
+
+
+def _no_reason(index: pd.Index) -> pd.Series:
+    """A reason per row of ``index``, all NaN: a read-only view of one float NaN."""
+    return pd.Series(np.broadcast_to(np.float64(np.nan), (len(index),)), index=index,
+                     copy=False)
 
 
 def _blank_mask(col: pd.Series, kinds: pd.Series | None = None,

@@ -72,7 +72,7 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     order = list(typed)
     if not order:
         return CleanData(pd.DataFrame(index=frame.index), _empty_log())
-    data = pd.DataFrame(typed, index=frame.index, copy=False)[order]
+    data = pd.DataFrame(typed, index=frame.index, copy=False)    # columns in ``order``
     masks = {c: r.notna().to_numpy() for c, r in reasons.items()}
     if not any(m.any() for m in masks.values()):      # the usual case: nothing to log
         return CleanData(data, _empty_log())

@@ -34,11 +34,12 @@ from plumbrule.intake.cells import (
     _LATEST,
     _MAX_SERIAL,
     _missing_reasons,
+    _no_reason,
     _numbers_of,
     _refuse,
     _shown,
     cell_kinds,
-    plain_text,
+    plain_bytes,
 )
 
 DATE_FORMATS = ("auto", "MDY", "DMY", "YMD")
@@ -66,7 +67,13 @@ def to_dates(col: pd.Series, name: str, date_format: str = "auto"
     if isinstance(col.dtype, np.dtype) and col.dtype.kind == "M":   # already dates
         values = col.astype("datetime64[ns]")
         return values, pd.Series("blank", index=col.index, dtype=object).where(values.isna())
-    if plain_text(col):     # ISO or day/month text in every cell: read once, on the uniques
+    raw = plain_bytes(col)
+    if raw is not None:     # ISO or day/month text in every cell: read once, on the uniques
+        iso = _plain_iso_dates(raw, len(col))
+        if iso is not None:     # every cell YYYY-MM-DD, a calendar date in range
+            got = pd.Series(iso, index=col.index, copy=False)
+            _check_span(got, name)
+            return got, _no_reason(col.index)
         got, _ = _text_dates(col, name, date_format)
         if got.notna().all():
             _check_span(got, name)
@@ -102,6 +109,51 @@ def to_dates(col: pd.Series, name: str, date_format: str = "auto"
         _refuse(bad, col, _NOT_A_DATE, name)
     _check_span(out, name)
     return out, reason
+
+
+def _plain_iso_dates(raw: bytes, n: int) -> np.ndarray | None:
+    """datetime64[ns] of ``n`` texts joined by NUL (``raw``, ASCII) when every one is
+    YYYY-MM-DD naming a calendar date that datetime64[ns] holds, else None. The digits are
+    read from the bytes: the careful rules (:func:`_text_dates`) give the same midnight for
+    such a text under any ``date_format`` (a four-digit first part is the year)."""
+    if len(raw) != 11 * n - 1:
+        return None
+    a = np.frombuffer(raw + b"\x00", dtype=np.uint8).reshape(n, 11)
+    if (a[:, 10] != 0).any() or (a[:, 4] != 45).any() or (a[:, 7] != 45).any():
+        return None
+    digit = {k: a[:, k].astype(np.int64) - 48 for k in (0, 1, 2, 3, 5, 6, 8, 9)}
+    if any(((v < 0) | (v > 9)).any() for v in digit.values()):
+        return None
+    year = digit[0] * 1000 + digit[1] * 100 + digit[2] * 10 + digit[3]
+    month, day = digit[5] * 10 + digit[6], digit[8] * 10 + digit[9]
+    if ((month < 1) | (month > 12) | (day < 1)).any():
+        return None
+    leap = (year % 4 == 0) & ((year % 100 != 0) | (year % 400 == 0))
+    if (day > _MONTH_DAYS[month] + ((month == 2) & leap)).any():
+        return None
+    days = _days_from_civil(year, month, day)
+    if (days < _DAY_RANGE[0]).any() or (days > _DAY_RANGE[1]).any():
+        return None
+    return (days * 86_400_000_000_000).view("datetime64[ns]")
+
+
+_MONTH_DAYS = np.array([0, 31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31], dtype=np.int64)
+
+
+def _days_from_civil(year: np.ndarray, month: np.ndarray, day: np.ndarray) -> np.ndarray:
+    """Days since 1970-01-01 of proleptic Gregorian dates (integer arrays): the era
+    arithmetic of H. Hinnant, "chrono-Compatible Low-Level Date Algorithms" (2013)."""
+    y = year - (month <= 2)
+    era = np.floor_divide(y, 400)
+    yoe = y - era * 400
+    doy = (153 * (month + np.where(month > 2, -3, 9)) + 2) // 5 + day - 1
+    doe = yoe * 365 + yoe // 4 - yoe // 100 + doy
+    return era * 146097 + doe - 719468
+
+
+# the days since 1970-01-01 of the earliest and latest dates datetime64[ns] holds
+# (1677-09-22 and 2262-04-11: cells._EARLIEST and cells._LATEST)
+_DAY_RANGE = (-106751, 106751)
 
 
 # Date arithmetic runs in int64 nanoseconds, which span 292 years; half of that leaves room

@@ -15,16 +15,19 @@ from plumbrule.intake.table import SheetTable, blank_cells, text_cells
 
 
 def sale_ids(table: SheetTable, column: str, used: Sequence[str],
-             labels: tuple[pd.Series, pd.Series] | None = None) -> pd.Series:
+             labels: tuple[pd.Series, pd.Series] | None = None,
+             unique: bool = False) -> pd.Series:
     """The ID of each sale (text; 104.0 → '104'), indexed by sheet row, for the rows that
     hold anything in the ``used`` columns. A blank or repeated ID among them is an error
     naming the rows. ``labels``: the column's ``to_labels`` (labels, reasons) over these
     rows or more, when the caller has it (each cell is typed on its own, so a subset of
-    it is the subset's)."""
+    it is the subset's). ``unique``: the caller knows the labels all differ."""
     frame = table.frame
     filled = ~blank_cells(table, list(dict.fromkeys([*used, column]))).all(axis=1)
     if labels is None:
         ids, why = to_labels(text_cells(table, column)[filled], column)
+    elif filled.all() and labels[0].index.equals(frame.index):
+        ids, why = labels
     else:
         rows = frame.index[filled.to_numpy()]
         ids, why = labels[0].reindex(rows), labels[1].reindex(rows)
@@ -34,7 +37,8 @@ def sale_ids(table: SheetTable, column: str, used: Sequence[str],
         raise IntakeError(f"Column '{column}' (the ID column) is blank in {_rows(rows)}. Give "
                           "every sale an ID, or clear the id_column setting.", column=column,
                           row=int(rows[0]))
-    if pd.Index(ids.to_numpy(dtype=object), dtype=object).is_unique:
+    if (unique and labels is not None) or pd.Index(ids.to_numpy(dtype=object),
+                                                   dtype=object).is_unique:
         return ids.astype(object)
     twice = ids.duplicated(keep=False)
     if twice.any():
@@ -69,10 +73,27 @@ def sale_hashes(data: pd.DataFrame, ids: pd.Series | None = None) -> np.ndarray:
     ID when there is one, else from its typed values — so '$245,000' typed as text and
     245000 typed as a number give one key, and a copy of a sale has the same key."""
     if ids is not None:
-        values = pd.DataFrame({"id": ids.reindex(data.index).astype(str).to_numpy()})
+        text = ids if ids.index.equals(data.index) else ids.reindex(data.index)
+        v = text.to_numpy(dtype=object)
+        if pd.api.types.infer_dtype(v, skipna=False) == "string":    # texts, none missing
+            return _one_column_key(pd.util.hash_array(v, categorize=False))
+        values = pd.DataFrame({"id": text.astype(str).to_numpy()})
     else:
         values = data.reset_index(drop=True)
     return pd.util.hash_pandas_object(values, index=False).to_numpy(np.uint64)
+
+
+def _one_column_key(hashed: np.ndarray) -> np.ndarray:
+    """What ``pd.util.hash_pandas_object`` makes of a one-column frame (index=False) from
+    its column's ``pd.util.hash_array``: the column hash mixed as pandas combines columns.
+    The IDs are hashed without first factorising them (all different: nothing to share);
+    tests compare it with hash_pandas_object itself."""
+    with np.errstate(over="ignore"):
+        out = np.zeros_like(hashed) + np.uint64(0x345678)
+        out ^= hashed
+        out *= np.uint64(1000003)
+        out += np.uint64(97531)
+    return out
 
 
 def stable_uniform(keys: np.ndarray, seed: int, stream: int) -> np.ndarray:

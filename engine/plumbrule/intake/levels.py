@@ -30,7 +30,7 @@ def merge_levels(data: pd.DataFrame, columns: Sequence[str],
     recs = []
     for col in columns:
         cells = data[col]
-        counts = cells.value_counts(sort=False)
+        counts = _counts(cells)
         if not len(counts):
             continue
         spell = pd.Series(counts.index.astype(str), index=counts.index)
@@ -62,6 +62,14 @@ def merge_levels(data: pd.DataFrame, columns: Sequence[str],
                             "merged_into": pd.Series(dtype=object),
                             "sales": pd.Series(dtype=np.int64)}))
     return out, merges[MERGE_COLUMNS]
+
+
+def _counts(cells: pd.Series) -> pd.Series:
+    """How many cells hold each value (blanks left out), by value: a factorisation and a
+    bincount (value_counts of text costs about twice as much)."""
+    codes, uniq = pd.factorize(cells.to_numpy(dtype=object))
+    n = np.bincount(codes[codes >= 0], minlength=len(uniq)).astype(np.int64)
+    return pd.Series(n, index=pd.Index(uniq, dtype=object, name=cells.name), name="count")
 
 
 def canonical_levels(values: pd.Series, known: Sequence[str],

@@ -16,13 +16,16 @@ DUPLICATE, SALE_FILTER = "duplicate", "sale filter"
 _LOG = ["row", "column", "value", "rule", "limit", "reason"]
 
 
-def duplicate_rows(data: pd.DataFrame, ids: pd.Series | None, mode: str
-                   ) -> tuple[pd.DataFrame, pd.DataFrame]:
+def duplicate_rows(data: pd.DataFrame, ids: pd.Series | None, mode: str,
+                   ids_unique: bool = False) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Rows identical in every used column (and in the ID when there is one): all but the
     first are set aside (``mode`` 'set_aside'), kept ('keep') or refused ('refuse').
+    ``ids_unique``: the caller knows every ID differs (over these rows or more).
     Returns (kept rows, log)."""
     if mode == "keep" or len(data) < 2:
         return data, _empty()
+    if ids is not None and ids_unique:
+        return data, _empty()          # rows with different IDs are never the same sale
     if ids is not None and pd.Index(ids.reindex(data.index).to_numpy(dtype=object),
                                     dtype=object).is_unique:
         return data, _empty()          # rows with different IDs are never the same sale

@@ -49,7 +49,20 @@ def text_cells(table: SheetTable, column: str) -> pd.Series:
     src = table.file_text
     if src is None or not src.has(column):
         return table.frame[column]
-    return src.column(column).reindex(table.frame.index).rename(column)
+    cells = src.column(column)
+    if not cells.index.equals(table.frame.index):
+        cells = cells.reindex(table.frame.index)
+    return cells.rename(column)
+
+
+def plain_integers(table: SheetTable, column: str) -> np.ndarray | None:
+    """For a CSV column the fast reader typed as integers each written as Python writes
+    them, those integers (every body row of the file, a superset of the table's rows):
+    equal cells are equal integers. None for any other column."""
+    src = table.file_text
+    if src is None or not hasattr(src, "integers"):
+        return None
+    return src.integers(column)
 
 
 def blank_cells(table: SheetTable, columns: Sequence[str] | None = None) -> pd.DataFrame:
@@ -59,6 +72,8 @@ def blank_cells(table: SheetTable, columns: Sequence[str] | None = None) -> pd.D
     cols = list(table.frame.columns) if columns is None else list(columns)
     if table.blanks is None:
         return _blank_frame(table.frame[cols])
+    if table.blanks.index.equals(table.frame.index):    # every row still there: no reindex
+        return table.blanks[cols]
     return table.blanks.loc[table.frame.index, cols]
 
 
@@ -140,6 +155,9 @@ _HEADER_SCAN = 50    # block rows searched for the header (title rows, notes, bl
 _SPAN_ROWS = 3       # non-blank rows below a header that must fit within its columns
 
 
+_NUMBER_CHARS = r"[\d\s+\-\u2212$€£¥,.eE%()]+"     # what a number typed as text is made of
+
+
 def find_header(block: np.ndarray) -> int:
     """Block row (0-based) of the column headers: the first non-blank row whose filled cells
     are all words (text that is not a number or a date), at least two of them unless the
@@ -155,8 +173,17 @@ def find_header(block: np.ndarray) -> int:
     words = flat.map(type).eq(str).to_numpy() & filled.ravel()
     if words.any():   # '350000', '$1,250' and '3/14/2025' are values, not names
         txt = flat[words].astype(str).str.strip()
-        valued = (np.isfinite(parse_number_text(txt).to_numpy())
-                  | txt.str.match(r"\d{1,4}[-/.]\d{1,2}[-/.]\d{1,4}").to_numpy(dtype=bool))
+        valued = txt.str.match(r"\d{1,4}[-/.]\d{1,2}[-/.]\d{1,4}").to_numpy(dtype=bool,
+                                                                            copy=True)
+        # a text with no digit is a number only as TRUE/FALSE (the number rules need a
+        # digit): the rules run on the rest alone, mostly none (names, dates)
+        digit = txt.str.contains(r"\d", regex=True).to_numpy(dtype=bool)
+        valued |= ~digit & txt.str.upper().isin(("TRUE", "FALSE")).to_numpy()
+        # a number needs only digits, signs, currency, separators, an exponent, % and
+        # parentheses ('x1', 'Lot 4' are names): the rules run on the rest alone
+        rest = digit & ~valued & txt.str.fullmatch(_NUMBER_CHARS).to_numpy(dtype=bool)
+        if rest.any():
+            valued[rest] = np.isfinite(parse_number_text(txt[rest]).to_numpy())
         words[np.flatnonzero(words)[valued]] = False
     words = words.reshape(top.shape)
     f, w = filled[nonblank], words[nonblank]

@@ -51,15 +51,17 @@ def totals_rows(table: SheetTable, numeric_columns: Iterable[str]) -> pd.DataFra
     from plumbrule.screening import LOG_COLUMNS   # here: screening imports the settings
     frame = table.frame
     numeric = [c for c in dict.fromkeys(numeric_columns) if c in frame.columns]
-    labelled, label_col, label_text = _labelled(frame, blank_cells(table).to_numpy())
+    labelled, label_col, label_text = _labelled(frame, blank_cells(table))
     found = labelled.copy()
     col_of = np.full(len(frame), -1)
     val = np.full(len(frame), np.nan)
     lim = np.full(len(frame), np.nan)
-    how = np.full(len(frame), "", dtype=object)
+    how = np.zeros(len(frame), dtype=object)     # 'sum' / 'mean' where found by numbers
     since = np.zeros(len(frame), dtype=np.int64)
-    if len(numeric) >= 2 and len(frame) >= 3:
-        x = np.column_stack([_floats(frame[c]) for c in numeric])
+    cols = [_floats(frame[c]) for c in numeric] if len(numeric) >= 2 and len(frame) >= 3 \
+        else []
+    if cols and not (QUICK and not found.any() and _no_candidate(cols)):
+        x = np.column_stack(cols)
         for _ in range(_PASSES):
             with np.errstate(over="ignore", invalid="ignore"):   # huge values: no total
                 hit, first, limit, kind, begin = _summing(x, found)
@@ -78,12 +80,16 @@ def totals_rows(table: SheetTable, numeric_columns: Iterable[str]) -> pd.DataFra
     column = np.where(by_label, label_col[rows], names[col_of[rows]])
     listed = "', '".join(numeric)      # the column names, once
     sheet_rows = frame.index.to_numpy(dtype=np.int64)
-    above = (pd.Series(how[rows], dtype=object) + " of the sales in rows "
+    how_found = how[rows]
+    how_found[by_label] = ""
+    text_found = label_text[rows]
+    text_found[~by_label] = ""
+    above = (pd.Series(how_found, dtype=object) + " of the sales in rows "
              + pd.Series(sheet_rows[since[rows]]).astype(str) + "-"
              + pd.Series(sheet_rows[np.maximum(rows - 1, 0)]).astype(str))
     reason = np.where(
         by_label,
-        pd.Series(label_text[rows], dtype=object).radd("'").add(
+        pd.Series(text_found, dtype=object).radd("'").add(
             "' marks a totals row, not a sale").to_numpy(dtype=object),
         above.radd(f"its '{listed}' equal the ").add(
             ": a totals row, not a sale").to_numpy(dtype=object))
@@ -104,17 +110,22 @@ def table_without(table: SheetTable, rows: Iterable[int]) -> SheetTable:
     return replace(table, frame=kept, hidden_rows=hidden)
 
 
-def _labelled(frame: pd.DataFrame, blank: np.ndarray
+def _labelled(frame: pd.DataFrame, blanks: pd.DataFrame
               ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(row is labelled a totals row, the label's column, the label's text); ``blank``:
-    the frame's blank cells."""
+    """(row is labelled a totals row, the label's column, the label's text: both set in
+    the rows labelled only); ``blanks``: the frame's blank cells (:func:`blank_cells`)."""
     n = len(frame)
     hit = np.zeros(n, dtype=bool)
-    col = np.full(n, "", dtype=object)
-    text = np.full(n, "", dtype=object)
+    # set where ``hit`` only (zeros: an object array of n strings costs a fill of n)
+    col = np.zeros(n, dtype=object)
+    text = np.zeros(n, dtype=object)
     if not n or not frame.shape[1]:
         return hit, col, text
-    first = np.where(blank.all(axis=1), -1, (~blank).argmax(axis=1))   # first filled cell
+    if len(blanks.columns) and not blanks.iloc[:, 0].to_numpy().any():
+        first = np.zeros(n, dtype=np.int64)     # the usual sheet: no blank in its first column
+    else:
+        blank = blanks.to_numpy(dtype=bool)
+        first = np.where(blank.all(axis=1), -1, (~blank).argmax(axis=1))  # first filled cell
     for j, name in enumerate(frame.columns):   # columns, not rows
         at = first == j
         if not at.any():
@@ -164,6 +175,27 @@ def _floats(col: pd.Series) -> np.ndarray:
     return out
 
 
+QUICK = True       # tests turn the shortcut below off to compare it with the full passes
+
+
+def _no_candidate(cols: list[np.ndarray]) -> bool:
+    """True when the first pass of :func:`_summing` over the columns ``cols`` (no row known
+    yet) can find no totals row: every cell filled, so each row's first filled column is
+    the first, and no row's first number equals the sum or the mean of those above it.
+    Decided on that one column, without the n × k table."""
+    if not all(np.isfinite(c).all() for c in cols):
+        return False
+    xf = cols[0]
+    n = len(xf)
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        tot = np.concatenate([[0.0], np.cumsum(xf)])[:n]
+        cnt = np.arange(n, dtype=float)
+        mean = tot / cnt
+        cand = np.abs(xf - tot) <= _RTOL * np.maximum(np.abs(xf), np.abs(tot))
+        cand |= np.abs(xf - mean) <= _RTOL * np.maximum(np.abs(xf), np.abs(mean))
+    return not cand.any()
+
+
 def _summing(x: np.ndarray, known: np.ndarray):
     """Rows whose filled numbers all equal the sum or the mean of the sales rows above them
     (all of them, or those since the last known totals row). Returns (hit, first filled
@@ -199,7 +231,7 @@ def _summing(x: np.ndarray, known: np.ndarray):
             cand |= np.abs(xf - mean) <= _RTOL * np.maximum(np.abs(xf), np.abs(mean))
     rows = np.flatnonzero(cand & (n_filled >= 2))
     full = (np.zeros(n, dtype=bool), np.zeros(n, dtype=np.int64), np.full(n, np.nan),
-            np.full(n, "", dtype=object), np.zeros(n, dtype=np.int64))
+            np.zeros(n, dtype=object), np.zeros(n, dtype=np.int64))
     if not len(rows):          # the usual sheet: no row matches in its first column
         return full
     v = np.where(filled & sale[:, None], x, 0.0)

@@ -13,9 +13,9 @@ read on demand (:func:`plumbrule.intake.table.text_cells`), for the rules that r
 as labels (categories, IDs, dates): '0012' is an ID, not 12. A caller that knows which
 columns it reads as labels says so (``text_columns``), and those are kept as text at once —
 except a column of integers each written as Python writes them (no leading zero, sign '+'
-or white space; :func:`_plainly_written` checks the bytes): its text is made from the
-integers when asked for (an ID column of 200,000 numbers costs the C parser more as strings
-than all the other columns together).
+or white space; :func:`_plain_fields` checks the bytes): its text is the file's bytes of
+those fields, taken when asked for (an ID column of 200,000 numbers costs the C parser
+more as strings than all the other columns together).
 
 The file is parsed once (the head of 60 rows as text, to find the header, aside). The blank
 cells of the text columns are '' and the cells a short line leaves out, unless some field
@@ -117,50 +117,71 @@ def _no_space_cells(data: bytes | str, sep: str, low: np.ndarray | None = None,
 _POWERS = 10 ** np.arange(19, dtype=np.uint64)
 
 
-def _plainly_written(data: bytes | str, sep: str, skip: int, j: int, width: int,
-                     v: np.ndarray, low: np.ndarray | None = None) -> bool:
-    """True when the cells of column ``j`` below the first ``skip`` records of a UTF-8
-    file, which the C parser read as the integers ``v``, are those integers as Python
-    writes them: each field exactly as long as its integer written so ('0012', '+5', '-0'
-    and ' 12' are longer). Found from the bytes (the line starts, the separators) without
-    making a string; False when unsure (quotes, lone carriage returns, decoded text).
-    ``low``: :func:`_low_bytes` of ``data``, when known."""
+def _plain_fields(data: bytes | str, sep: str, skip: int, j: int, width: int,
+                  v: np.ndarray, low: np.ndarray | None = None
+                  ) -> tuple[np.ndarray, np.ndarray] | None:
+    """(where each field starts in ``data``, its length) when the cells of column ``j``
+    below the first ``skip`` records of a UTF-8 file, which the C parser read as the
+    integers ``v``, are those integers as Python writes them: each field exactly as long
+    as its integer written so ('0012', '+5', '-0' and ' 12' are longer). Found from the
+    bytes (the line starts, the separators) without making a string; None when they are
+    not or when unsure (quotes, lone carriage returns, decoded text). ``low``:
+    :func:`_low_bytes` of ``data``, when known."""
     if not isinstance(data, bytes) or b'"' in data or not len(v):
-        return False
+        return None
     a = np.frombuffer(data, dtype=np.uint8)
     low = _low_bytes(data) if low is None else low
     kind = a[low]
     cr = low[kind == 13]
     if len(cr) and ((a.take(cr + 1, mode="clip") != 10).any() or cr[-1] == len(a) - 1):
-        return False            # lone carriage returns end lines too
+        return None             # lone carriage returns end lines too
     starts = low[kind == 10] + 1
     if len(starts) and starts[-1] == len(a):
         starts = starts[:-1]
     starts = np.concatenate(([0], starts))
     if len(starts) != skip + len(v):      # a line per record
-        return False
+        return None
     starts = starts[skip:]
     if j:
         at = np.flatnonzero(a[starts[0]:] == ord(sep)) + starts[0]
         if len(at) != (width - 1) * len(v):   # a line wider than the rest is refused
-            return False
+            return None
         starts = at.reshape(len(v), width - 1)[:, j - 1] + 1
     size = np.abs(v)
     if v.min() < -(10 ** 18) or size.max() >= 10 ** 18:
-        return False
+        return None
     length = np.maximum(np.searchsorted(_POWERS, size.astype(np.uint64), side="right"), 1)
-    end = starts + length + (v < 0)
+    length = length + (v < 0)
+    end = starts + length
     past = end >= len(a)
-    return bool((past | _edges(a.take(end, mode="clip"), sep)).all())
+    if not (past | _edges(a.take(end, mode="clip"), sep)).all():
+        return None
+    return starts, length
+
+
+def _field_text(data: bytes, fields: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
+    """The text of ASCII fields of ``data`` (their starts and lengths) as an object array:
+    the fields' bytes gathered with a NUL after each, split once (str.split makes the
+    strings in C: no str() per integer)."""
+    starts, length = fields
+    a = np.frombuffer(data, dtype=np.uint8)
+    total = int(length.sum()) + len(length)
+    # byte k gathered comes from starts[field] + (k - offset[field])
+    offset = np.concatenate(([0], np.cumsum(length + 1)[:-1]))
+    src = np.repeat(starts - offset, length + 1) + np.arange(total)
+    out = a.take(src, mode="clip")
+    out[offset + length] = 0
+    text = out[:-1].tobytes().decode("ascii").split("\x00")
+    return np.fromiter(text, dtype=object, count=len(text))
 
 
 @dataclass(frozen=True)
 class CsvText:
     """The text of a CSV file's columns that the fast path typed as numbers, read on demand
     (``column``: the cells of one column as the careful reader has them, indexed by sheet
-    row). ``ints``: the columns the C parser read as integers (name → (values, whether
-    they are written as Python writes them, None until asked)): their text is made from
-    the integers when they are."""
+    row). ``ints``: the columns the C parser read as integers (name → (values, where
+    their fields lie when they are written as Python writes them — False when not, None
+    until asked)): their text is then the file's bytes of those fields."""
 
     data: bytes | str = field(repr=False)
     sep: str = ","
@@ -173,14 +194,27 @@ class CsvText:
     def has(self, name: str) -> bool:
         return any(n == name for n, _ in self.positions)
 
+    def integers(self, name: str) -> np.ndarray | None:
+        """The integers of column ``name`` when its cells are exactly those integers as
+        Python writes them (so two cells are the same text just when they are the same
+        integer), else None."""
+        if not self.has(name) or not isinstance(self.data, bytes):
+            return None
+        v, fields = self.ints.get(name, (None, False))
+        if fields is None:
+            j = next(p for n, p in self.positions if n == name)
+            fields = _plain_fields(self.data, self.sep, self.skip, j, self.width, v)
+            self.ints[name] = (v, False if fields is None else fields)
+        return None if fields is None or fields is False else v
+
     def column(self, name: str) -> pd.Series:
         if name not in self._cache:
             j = next(p for n, p in self.positions if n == name)
-            v, plain = self.ints.get(name, (None, False))
-            if plain is None:
-                plain = _plainly_written(self.data, self.sep, self.skip, j, self.width, v)
-            if plain:
-                cells = _int_text(v)
+            v, fields = self.ints.get(name, (None, False))
+            if fields is None:
+                fields = _plain_fields(self.data, self.sep, self.skip, j, self.width, v)
+            if fields is not None and fields is not False and isinstance(self.data, bytes):
+                cells = _field_text(self.data, fields)
             else:
                 raw = _cells(self.data, self.sep, self.skip - 1, self.width, usecols=[j])
                 cells = raw.iloc[:, 0].to_numpy(dtype=object)
@@ -188,11 +222,6 @@ class CsvText:
                 cells, dtype=object, copy=False,
                 index=pd.RangeIndex(self.skip + 1, self.skip + 1 + len(cells), name="row"))
         return self._cache[name]
-
-
-def _int_text(v: np.ndarray) -> np.ndarray:
-    """Integers → their text as Python writes them (an object array)."""
-    return np.fromiter(map(str, v.tolist()), dtype=object, count=len(v))
 
 
 def _plain_number_column(col: pd.Series) -> np.ndarray | None:
@@ -245,9 +274,10 @@ def read_typed(data: bytes | str, sep: str, header_at: int | None,
         wanted = {_folded(c) for c in text_columns}
         as_text = {j for j, x in enumerate(header) if _folded(_header_text(x)) in wanted}
         # a text column whose first cells are integers as Python writes them is parsed as
-        # numbers, its text theirs when the whole column is written so (_plainly_written)
+        # numbers, its text theirs when the whole column is written so (_plain_fields)
         shown = block[h + 1:]
-        maybe_ints = {j for j in as_text if isinstance(data, bytes) and b'"' not in data
+        unquoted = isinstance(data, bytes) and b'"' not in data     # one scan of the file
+        maybe_ints = {j for j in as_text if unquoted
                       and len(shown) and all(isinstance(v, str) and _INT_TEXT.fullmatch(v)
                                              for v in shown[:, j])}
         as_text -= maybe_ints
@@ -271,11 +301,13 @@ def read_typed(data: bytes | str, sep: str, header_at: int | None,
         if j in maybe_ints:
             if low is None and isinstance(data, bytes):
                 low = _low_bytes(data)
-            if kind == "i" and _plainly_written(data, sep, h + 1, j, width, c.to_numpy(), low):
+            fields = (_plain_fields(data, sep, h + 1, j, width, c.to_numpy(), low)
+                      if kind == "i" else None)
+            if fields is not None:
                 v = _plain_number_column(c)
                 # integers the sheet rules read otherwise (error codes): their text
-                cols[j] = _int_text(c.to_numpy()) if v is None else v
-                ints[j] = (c.to_numpy(), True)
+                cols[j] = _field_text(data, fields) if v is None else v  # type: ignore[arg-type]
+                ints[j] = (c.to_numpy(), fields)
             elif kind == "O":      # text further down: the cells as the file has them
                 cols[j] = c.to_numpy(dtype=object)
             else:
