@@ -243,3 +243,43 @@ def test_only_logged_columns_say_they_were_judged_on_the_logarithm(demo_frame):
     log = res.tables.screen_log
     for _, rec in log.iterrows():
         assert ("judged on the logarithm" in rec["reason"]) == (rec["column"] in LOGGED)
+
+
+@pytest.mark.parametrize("logged", [(), ("size",)])
+def test_summary_box_numbers_and_distinct_counts_match_pandas(logged):
+    # Reference: pandas' quantile (linear) for the five numbers and the fences (Q1 − k·IQR,
+    # Q3 + k·IQR; a logged column's fence on its logarithm, back through exp), pandas'
+    # nunique for the distinct values (missing left out, 0.0 and −0.0 one value). Exact:
+    # the same order statistics and interpolation.
+    rng = np.random.default_rng(4)
+    n = 3001
+    frame = pd.DataFrame({
+        "size": np.exp(rng.normal(7, 0.4, n)),
+        "count": rng.integers(-3, 40, n),
+        "big": rng.integers(0, 2**62, n),
+        "zeros": rng.choice([0.0, -0.0, 2.5], n),
+        "gaps": np.where(rng.random(n) < 0.1, np.nan, rng.normal(size=n)),
+    })
+    cols = list(frame.columns)
+    after = frame.iloc[::2]
+    table = screen.summary_table(frame, after, screen.empty_log(), cols, [], 3.0, logged)
+    rows = table[table["kind"] == "column"].set_index("item")
+    for c in cols:
+        assert rows.at[c, "distinct_before"] == frame[c].nunique(), c
+        for part, data in (("before", frame), ("after", after)):
+            v = data[c].astype(float)
+            if v.isna().any():       # a column with missing values has no box numbers
+                assert np.isnan(rows.at[c, f"median_{part}"]), c
+                continue
+            q = v.quantile([0.0, 0.25, 0.5, 0.75, 1.0]).to_numpy()
+            got = rows.loc[c, [f"{s}_{part}" for s in ("min", "q1", "median", "q3", "max")]]
+            assert got.to_numpy(float).tolist() == q.tolist(), (c, part)
+            iqr = q[3] - q[1]
+            assert rows.at[c, f"fence_low_1_5_{part}"] == q[1] - 1.5 * iqr
+            w = np.log(v) if c in logged else v
+            lq1, lq3 = w.quantile([0.25, 0.75]).to_numpy()
+            low, high = lq1 - 3.0 * (lq3 - lq1), lq3 + 3.0 * (lq3 - lq1)
+            if c in logged:
+                low, high = np.exp(low), np.exp(high)
+            assert (rows.at[c, f"fence_low_used_{part}"],
+                    rows.at[c, f"fence_high_used_{part}"]) == (low, high), (c, part)

@@ -29,7 +29,7 @@ import pandas as pd
 from plumbrule.numbers import written
 from plumbrule.diagnostics.checks import OK, WATCH, Check
 from plumbrule.errors import SettingError
-from plumbrule.numeric.quantiles import quantiles
+from plumbrule.numeric.quantiles import _lerp, _positions, quantiles
 
 MANUAL, TRIM, FENCE, INFLUENCE, RATIO_TRIM = (
     "manual", "percentile trim", "IQR fence", "influence", "ratio trim")
@@ -298,20 +298,54 @@ def five_numbers(data: pd.DataFrame, columns: Sequence[str], k: float = 1.5,
     units, and the fence the rule uses (``k``·IQR, on the logarithm for a ``logged``
     column, given back in the column's units) as fence_low_used / fence_high_used
     (index: column)."""
+    return _box_numbers(data, columns, k, logged)[0]
+
+
+def _box_numbers(data: pd.DataFrame, columns: Sequence[str], k: float,
+                 logged: Sequence[str]) -> tuple[pd.DataFrame, dict[str, int]]:
+    """:func:`five_numbers` and each column's number of distinct values (as pandas'
+    ``nunique``: missing left out), both from one sort of the column."""
     cols = list(columns)
     if not len(data):
-        return pd.DataFrame(np.nan, index=cols, columns=list(SUMMARY_STATS))
-    # By selection, not np.percentile's slower multi-pivot partition; the same linear
-    # interpolation as pandas' quantile, bit for bit (see quantiles.py)
-    q = pd.DataFrame([quantiles(data[c].to_numpy(float), FIVE) for c in cols],
-                     index=cols, columns=["min", "q1", "median", "q3", "max"])
+        return (pd.DataFrame(np.nan, index=cols, columns=list(SUMMARY_STATS)),
+                {c: 0 for c in cols})
+    rows, distinct, other = [], {}, []
+    for c in cols:
+        # One sort gives every order statistic and the distinct values: the quantiles by
+        # numpy's linear interpolation (pandas' quantile), bit for bit (see quantiles.py)
+        five, distinct[c] = _sorted_numbers(data[c])
+        rows.append(five)
+        if c in logged or np.isnan(five).any():
+            other.append(c)      # the rule's fence on another scale, or missing left out
+    q = pd.DataFrame(rows, index=cols, columns=["min", "q1", "median", "q3", "max"])
     iqr = q["q3"] - q["q1"]
     q["fence_low_1_5"], q["fence_high_1_5"] = q["q1"] - 1.5 * iqr, q["q3"] + 1.5 * iqr
     q["fence_low_3"], q["fence_high_3"] = q["q1"] - 3.0 * iqr, q["q3"] + 3.0 * iqr
-    used = _in_own_units(fence_limits(_on_scale(data, cols, logged), cols, k), logged)
-    q["fence_low_used"] = used["low"].to_numpy(float)
-    q["fence_high_used"] = used["high"].to_numpy(float)
-    return q[list(SUMMARY_STATS)]
+    # the fence the rule uses: the same quartiles where the rule reads the column as it is
+    low, high = q["q1"] - k * iqr, q["q3"] + k * iqr
+    q["fence_low_used"], q["fence_high_used"] = low.to_numpy(float), high.to_numpy(float)
+    if other:
+        used = _in_own_units(fence_limits(_on_scale(data, other, logged), other, k),
+                             logged).set_index("column")
+        q.loc[other, "fence_low_used"] = used["low"].to_numpy(float)
+        q.loc[other, "fence_high_used"] = used["high"].to_numpy(float)
+    return q[list(SUMMARY_STATS)], distinct
+
+
+def _sorted_numbers(col: pd.Series) -> tuple[np.ndarray, int]:
+    """(min, Q1, median, Q3, max — NaN throughout when a value is missing, as
+    :func:`quantiles` answers; the number of distinct values, missing left out)."""
+    v = col.to_numpy()
+    if not (isinstance(v.dtype, np.dtype) and v.dtype.kind in "fiu"):
+        return quantiles(col.to_numpy(float), FIVE), int(col.nunique())
+    s = np.sort(v)                          # NaN last, as numpy orders it
+    present = len(s) - (int(np.count_nonzero(np.isnan(s))) if s.dtype.kind == "f" else 0)
+    distinct = 1 + int(np.count_nonzero(s[1:present] != s[:present - 1])) if present else 0
+    if present < len(s):
+        return np.full(len(FIVE), np.nan), distinct
+    f = s.astype(float, copy=False)         # a monotone map: still sorted
+    prev, nxt, gamma = _positions(len(f), np.asarray(FIVE))
+    return _lerp(f[prev], f[nxt], gamma), distinct
 
 
 def summary_table(before: pd.DataFrame, after: pd.DataFrame, log: pd.DataFrame,
@@ -337,7 +371,7 @@ def summary_table(before: pd.DataFrame, after: pd.DataFrame, log: pd.DataFrame,
         k = int(counts.get(rule, 0))
         recs.append({"kind": "rule", "item": rule, "rows_before": n, "rows_after": n - k,
                      "excluded": k, "share_excluded": k / n if n else np.nan})
-    b = five_numbers(before, columns, fence_k, logged)
+    b, distinct = _box_numbers(before, columns, fence_k, logged)
     a = b if len(after) == len(before) else five_numbers(after, columns, fence_k, logged)
     per_col = fit_log["column"].value_counts()
     for c in columns:
@@ -347,7 +381,7 @@ def summary_table(before: pd.DataFrame, after: pd.DataFrame, log: pd.DataFrame,
         rec.update({f"{s}_before": float(b.at[c, s]) for s in SUMMARY_STATS})
         rec.update({f"{s}_after": float(a.at[c, s]) for s in SUMMARY_STATS})
         rec.update(fence_k=fence_k, fence_scale="log" if c in logged else "raw")
-        rec.update(distinct_before=int(before[c].nunique()) if c in before else 0,
+        rec.update(distinct_before=distinct.get(c, 0) if c in before else 0,
                    fence_set=fence is not None)
         recs.append(rec)
     cols = (["kind", "item", "rows_before", "rows_after", "excluded", "share_excluded",

@@ -207,13 +207,16 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing",
         keys = pd.util.hash_pandas_object(model.data.reset_index(drop=True), index=False
                                           ).to_numpy(np.uint64)
     labels = fold_labels(keys, folds, seed)
-    order = np.argsort(labels, kind="stable")          # each fold a contiguous block
+    # each fold a contiguous block (a stable sort of small integers: numpy's radix sort)
+    order = np.argsort(labels.astype(np.int16 if folds < 2**15 else np.int64), kind="stable")
     bounds = np.searchsorted(labels[order], np.arange(folds + 1))
-    zy = _working_design(model, order)                 # [1 | scaled x | y], rows by fold
+    # [1 | scaled x | y], rows by fold, column-major; each fold's range of every column
+    zy, lo_hi = _working_design(model, order, bounds)
+    informed = _informed_columns(*lo_hi, model.fit.has_intercept)
     z, y = zy[:, :-1], zy[:, -1]
-    blocks = [(np.linalg.qr(zy[lo:hi], mode="r"), hi - lo)
+    # LAPACK works on columns: a block handed over column-major is factored faster
+    blocks = [(np.linalg.qr(np.asfortranarray(zy[lo:hi]), mode="r"), hi - lo)
               for lo, hi in zip(bounds[:-1], bounds[1:], strict=False)]
-    informed = _informed_columns(model.x, order, bounds, model.fit.has_intercept)
     price = model.data[model.spec.response].to_numpy(float)[order]
     log = model.spec.log_response
     pred, est = np.full(n, np.nan), np.full(n, np.nan)
@@ -228,18 +231,24 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing",
                          "note": "the other folds cannot determine every effect"})
             continue
         factor = 1.0
+        every = bool(keep.all())
+        zk = z if every else np.asfortranarray(z[:, keep])
         if log:   # the retransformation factor of the fit on the other folds
-            e = y - z[:, keep] @ theta
+            e = y - zk @ theta
             factor = retransform_factor(np.concatenate([e[:lo], e[hi:]]), retransform, df)
-        zf = z[lo:hi]
         # A dropped column is constant on the other folds (an indicator that is 0 there):
         # the fit absorbs it into the intercept, which is right only for rows at that value.
-        usable = np.all(model.x[order[lo:hi]][:, ~keep_x] == constant[~keep_x], axis=1)
-        p = zf[usable][:, keep] @ theta
-        idx = np.arange(lo, hi)[usable]
+        if keep_x.all():
+            p = zk[lo:hi] @ theta
+            idx = np.arange(lo, hi)
+        else:
+            rows = model.x[order[lo:hi]]
+            usable = np.all(rows[:, ~keep_x] == constant[~keep_x], axis=1)
+            p = np.asfortranarray(zk[lo:hi][usable]) @ theta
+            idx = np.arange(lo, hi)[usable]
+        skipped = hi - lo - len(idx)
         pred[idx] = p
         est[idx] = price_estimates(p, log, factor)
-        skipped = int((~usable).sum())
         note = (f"{skipped} sales not estimated: their category level is only in this fold"
                 if skipped else "")
         recs.append({"set": f"fold {f + 1}",
@@ -250,18 +259,16 @@ def cross_validate(model, folds: int, seed: int, retransform: str = "smearing",
     return CrossValidation(folds=table, labels=labels, pred=pred[back], estimate=est[back])
 
 
-def _informed_columns(x: np.ndarray, order: np.ndarray, bounds: np.ndarray, intercept: bool):
-    """For the rows of ``x`` (user units) taken in ``order`` and cut into folds at ``bounds``:
-    a function of fold f giving (keep, value). keep marks the columns that vary over the
-    other folds' rows (with an intercept) or are non-zero somewhere on them (without one);
-    for the other columns, ``value`` is the one value they take there (0 without an intercept).
+def _informed_columns(lo: np.ndarray, hi: np.ndarray, intercept: bool):
+    """From each fold's least and greatest value of every column (folds × columns, user
+    units): a function of fold f giving (keep, value). keep marks the columns that vary over
+    the other folds' rows (with an intercept) or are non-zero somewhere on them (without
+    one); for the other columns, ``value`` is the one value they take there (0 without an
+    intercept).
 
     Judged on the raw columns, not the centred working ones: centred, an indicator that is
     0 on the other folds becomes the constant −mean there, which is non-zero yet carries
     nothing the intercept does not."""
-    ranges = [(part.min(axis=0), part.max(axis=0)) for part in
-              (x[order[a:b]] for a, b in zip(bounds[:-1], bounds[1:], strict=False))]
-    lo, hi = (np.array(r) for r in zip(*ranges, strict=True))   # folds × columns
     folds = np.arange(len(lo))
 
     def informed(f: int) -> tuple[np.ndarray, np.ndarray]:
@@ -269,30 +276,41 @@ def _informed_columns(x: np.ndarray, order: np.ndarray, bounds: np.ndarray, inte
         low, high = lo[rest].min(axis=0), hi[rest].max(axis=0)
         if intercept:
             return low < high, low
-        return (low != 0) | (high != 0), np.zeros(x.shape[1])
+        return (low != 0) | (high != 0), np.zeros(lo.shape[1])
     return informed
 
 
-def _working_design(model, order: np.ndarray) -> np.ndarray:
-    """[1 | (x − mean)/norm | y] with rows in ``order``; no constant column without an intercept.
+def _working_design(model, order: np.ndarray, bounds: np.ndarray | None = None
+                    ) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray]]:
+    """[1 | (x − mean)/norm | y] with rows in ``order``, column-major (Fortran order, as
+    LAPACK and the products with it want; no constant column without an intercept), and
+    each fold's least and greatest raw value of every column (two folds × columns arrays;
+    no rows without fold ``bounds`` into ``order``).
 
-    Centring and unit-length columns keep the fold QR factors well conditioned.
-    Built column by column so the peak memory stays near one copy of the design.
+    Centring and unit-length columns keep the fold QR factors well conditioned. Each
+    column is gathered straight into its contiguous place and worked on there: the same
+    sums in the same order as on a copy, and no second copy of the design.
     """
     x, n = model.x, len(order)
     icpt = int(model.fit.has_intercept)
     k = x.shape[1]
-    zy = np.empty((n, icpt + k + 1))
+    zy = np.empty((n, icpt + k + 1), order="F")
     if icpt:
         zy[:, 0] = 1.0
+    cuts = [] if bounds is None else list(zip(bounds[:-1], bounds[1:], strict=False))
+    lo, hi = np.empty((len(cuts), k)), np.empty((len(cuts), k))
     for j in range(k):
-        col = x[order, j]
+        col = zy[:, icpt + j]
+        np.take(x[:, j], order, out=col)
+        for f, (a, b) in enumerate(cuts):
+            lo[f, j], hi[f, j] = col[a:b].min(), col[a:b].max()
         if icpt:
             col -= col.mean()
         norm = np.sqrt(dot(col, col))
-        zy[:, icpt + j] = col / norm if norm > 0 else col
+        if norm > 0:
+            col /= norm
     zy[:, -1] = model.y[order]
-    return zy
+    return zy, (lo, hi)
 
 
 def _combine(blocks, keep: np.ndarray):

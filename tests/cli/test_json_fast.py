@@ -153,6 +153,7 @@ def test_column_text_pieces_are_each_cell_s_json():
         col = frame[name]
         want = [orjson.dumps(rj.jsonable(v), default=rj._fallback) for v in col.tolist()]
         assert rj.column_json(col).texts() == want, name
+        assert rj.column_json(col.iloc[:0]).texts() == [], name
 
 
 finite = st.floats(allow_nan=True, allow_infinity=True, width=64)
@@ -229,3 +230,24 @@ def test_fit_json_on_stdout_is_the_analysis_json(tmp_path, capsysbinary):
     assert list(printed) == list(want.tables.names())
     assert printed["fit"]["n_used"] == want.tables.fit["n_used"].iloc[0] == len(sales)
     assert printed["coefficients"] == json.loads(rj.analysis_json(want))["coefficients"]
+
+
+@pytest.mark.parametrize("spread_days", [0, 40, 10**5])
+def test_dates_close_together_and_far_apart(spread_days, small_blocks):
+    # sale dates within a short span are written a day at a time, others date by date: the
+    # same ISO text as datetime.isoformat (Python's documented format) either way, with
+    # times of day, fractions of a second, NaT and days before 1970
+    rng = np.random.default_rng(spread_days)
+    n = 400
+    start = pd.Timestamp("1969-12-20")
+    micros = rng.integers(0, max(spread_days, 1) * 86_400 * 10**6, n)
+    micros[rng.random(n) < 0.5] //= 86_400 * 10**6          # some at midnight
+    micros[rng.random(n) < 0.5] //= 10**6
+    when = pd.Series(start + pd.to_timedelta(micros, unit="us"))
+    when[rng.random(n) < 0.1] = pd.NaT
+    midnight = pd.Series(start + pd.to_timedelta(rng.integers(0, spread_days + 1, n), unit="D"))
+    frame = pd.DataFrame({"when": when, "day": midnight, "x": rng.normal(size=n)})
+    got = json.loads(_same({"t": frame}))["t"]
+    assert [r["when"] for r in got] == [None if pd.isna(t) else t.to_pydatetime().isoformat()
+                                        for t in when]
+    assert [r["day"] for r in got] == [t.to_pydatetime().isoformat() for t in midnight]
