@@ -170,8 +170,8 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     percentile trim, IQR fence; limits from the training sales) → influence screening on
     the training rows (one first fit, one refit) → fit on training rows → checks →
     validation (holdout, k-fold) → ratio study → tables.
-    ``for_valuation``: the analysis a valuation needs (the model, its checks and set-aside
-    log); the validation, ratio study and estimate tables are left empty.
+    ``for_valuation``: the analysis a valuation needs (the model and its set-aside log); the
+    checks, validation, ratio study and estimate tables are left empty.
     """
     settings = coerce_settings(settings, **kw)
     table = as_table(source, settings.header_row, settings.text_columns)
@@ -198,19 +198,12 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     screen_log = pd.concat([lg for lg in (fit_log, ratio_log) if len(lg)]
                            or [screen.empty_log()], ignore_index=True)
     after = pd.concat([train, hold]).sort_index() if len(hold) else train
-    checks = fit_checks(final) + screen.screening_checks(fit_log, looked,
-                                                         settings.max_excluded_share)
-    checks += level_and_trend_checks(final, sales, settings)
-    if sales.table.hidden_rows and not settings.skip_hidden_rows:
-        checks.append(_hidden_check(len(sales.table.hidden_rows)))
-    if spec.screens_price and (settings.trim_percentiles is not None
-                               or settings.iqr_fence is not None):
-        checks.append(screen.price_screen_check(spec.response, fit_log))
-    if len(moved):
-        checks.append(_moved_check(moved))
+    # `plumbrule value` shows none of the model's checks: they are not run for it
+    checks = [] if for_valuation else _all_checks(final, sales, settings, fit_log, looked,
+                                                  moved)
     study, assessed_est, chasing = _assessed_tables(sales, after, study, study_est, settings)
     residual_map = pd.DataFrame()
-    if spec.x_column:
+    if spec.x_column and not for_valuation:
         check, residual_map = location_tables(
             model.rows, model.fit.resid, side_numbers(sales.table, spec.x_column, model.rows),
             side_numbers(sales.table, spec.y_column, model.rows), settings.coordinates,
@@ -251,6 +244,23 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     )
     return Analysis(settings=settings, spec=spec, table=table, clean=clean, model=model,
                     tables=tables, holdout=hold, ids=ids, final_model=final, names=names)
+
+
+def _all_checks(final: FittedModel, sales: Sales, settings: Settings, fit_log: pd.DataFrame,
+                looked: list, moved: pd.DataFrame) -> list[Check]:
+    """The checks of the analysis but the location check, in the checks table's order."""
+    spec = sales.spec
+    checks = fit_checks(final) + screen.screening_checks(fit_log, looked,
+                                                         settings.max_excluded_share)
+    checks += level_and_trend_checks(final, sales, settings)
+    if sales.table.hidden_rows and not settings.skip_hidden_rows:
+        checks.append(_hidden_check(len(sales.table.hidden_rows)))
+    if spec.screens_price and (settings.trim_percentiles is not None
+                               or settings.iqr_fence is not None):
+        checks.append(screen.price_screen_check(spec.response, fit_log))
+    if len(moved):
+        checks.append(_moved_check(moved))
+    return checks
 
 
 def final_model(model: FittedModel, hold: pd.DataFrame, settings: Settings) -> FittedModel:
