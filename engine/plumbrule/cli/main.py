@@ -9,9 +9,9 @@ from __future__ import annotations
 
 import argparse
 import sys
-from contextlib import contextmanager
 from typing import Any, Sequence
 
+from plumbrule.collection import cycle_collection_paused
 from plumbrule.errors import CellErrors, PlumbError
 from plumbrule.render.terminal import visible
 from plumbrule.settings import REGISTRY
@@ -270,7 +270,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     except SystemExit as stop:   # --help, --version, or a bad command line
         return stop.code if isinstance(stop.code, int) else 2
     try:
-        with _cycle_collection_paused():
+        with cycle_collection_paused():
             return int(args.handler(args) or 0)
     except CellErrors as err:
         _report_cells(err, bool(getattr(args, "json", False)))
@@ -292,22 +292,6 @@ def main(argv: Sequence[str] | None = None) -> int:
               "plumbrule, not in your data; please report it with the command you ran "
               "(set PLUMBRULE_DEBUG=1 for details).", file=sys.stderr)
         return 1
-
-
-@contextmanager
-def _cycle_collection_paused():
-    """The cyclic garbage collector paused for one command: reading, analysing and writing
-    create hundreds of thousands of long-lived objects (cells, labels, table columns) that
-    every collection walks again (about 5% of `fit` on 200k sales), and a command leaves
-    little cyclic garbage. Collection resumes as it was when the command ends."""
-    import gc
-    was = gc.isenabled()
-    gc.disable()
-    try:
-        yield
-    finally:
-        if was:
-            gc.enable()
 
 
 def run(argv: Any = None) -> None:  # console-script entry point

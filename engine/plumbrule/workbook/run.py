@@ -20,12 +20,12 @@ import os
 import re
 import secrets
 import shutil
-from contextlib import contextmanager
 from stat import S_IMODE, S_IWGRP, S_IWOTH, S_IWUSR
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from plumbrule.collection import cycle_collection_paused
 from plumbrule.errors import WorkbookError
 from plumbrule.headline import headline
 from plumbrule.render.json import jsonable
@@ -63,24 +63,8 @@ def run_book(path: str | Path, backup: bool | None = None,
     ``backup`` overrides the workbook's ``backup`` setting; ``now`` fixes the stamp time.
     Raises :class:`WorkbookError` (or another PlumbError) with nothing written.
     """
-    with _no_cycle_collection():
+    with cycle_collection_paused():
         return _run_book(path, backup, now)
-
-
-@contextmanager
-def _no_cycle_collection():
-    """The cyclic garbage collector paused for one run: reading the sheets and writing the
-    result sheets create hundreds of thousands of long-lived objects (cell values, cells),
-    and each collection walks every one of them again, a fifth or more of the writing time.
-    The run leaves little cyclic garbage; collection resumes as it was when it ends."""
-    import gc
-    was = gc.isenabled()
-    gc.disable()
-    try:
-        yield
-    finally:
-        if was:
-            gc.enable()
 
 
 def _run_book(path, backup, now) -> RunResult:
