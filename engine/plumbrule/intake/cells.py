@@ -246,6 +246,11 @@ def _blank_frame(frame: pd.DataFrame) -> pd.DataFrame:
 
 def _numbers_of(cells: pd.Series) -> pd.Series:
     """Number cells (int, float, numpy, Decimal) → floats; huge ints become ±inf."""
+    if cells.dtype == object and pd.api.types.infer_dtype(cells, skipna=False) == "floating":
+        # floats only (what calamine hands over for a sheet's numbers): a C-level copy is
+        # what to_numeric gives them (with ints mixed in, to_numeric may type the column as
+        # integers and turn -0.0 into 0: those take its path)
+        return pd.Series(cells.to_numpy().astype(float), index=cells.index, name=cells.name)
     try:
         return pd.to_numeric(cells, errors="coerce").astype(float)
     except (OverflowError, TypeError, ValueError):
