@@ -99,17 +99,23 @@ def put(ws, row: int, col: int, value: Any, number_format: str | None = None,
     return cell
 
 
-_FORMAT_IDS: Any = None   # book → {number format: its id}
+_PER_BOOK: Any = None     # book → {memo name: {key: value}}, forgotten with the book
+
+
+def book_memo(book, name: str) -> dict:
+    """The memo ``name`` of one workbook (empty at first): what openpyxl would look up or hash
+    again on every cell, kept once per book and dropped when the book is."""
+    global _PER_BOOK
+    if _PER_BOOK is None:
+        import weakref
+        _PER_BOOK = weakref.WeakKeyDictionary()
+    return _PER_BOOK.setdefault(book, {}).setdefault(name, {})
 
 
 def set_format(cell, number_format: str) -> None:
     """``cell.number_format = number_format``, the format's id looked up once per book
     (openpyxl registers it in the book's list on every assignment)."""
-    global _FORMAT_IDS
-    if _FORMAT_IDS is None:
-        import weakref
-        _FORMAT_IDS = weakref.WeakKeyDictionary()
-    known = _FORMAT_IDS.setdefault(cell.parent.parent, {})
+    known = book_memo(cell.parent.parent, "formats")      # number format → its id
     fid = known.get(number_format)
     if fid is None:
         cell.number_format = number_format
@@ -121,18 +127,11 @@ def set_format(cell, number_format: str) -> None:
     cell._style.numFmtId = fid
 
 
-_NAMED: Any = None       # book → {named style: the style array a cell takes from it}
-
-
 def _named_style(cell, name: str) -> None:
     """``cell.style = name``: openpyxl looks the name up and copies the named style's array
     on every call; the array is the same each time in one book, so it is kept."""
-    global _NAMED
     from copy import copy
-    if _NAMED is None:
-        import weakref
-        _NAMED = weakref.WeakKeyDictionary()
-    known = _NAMED.setdefault(cell.parent.parent, {})
+    known = book_memo(cell.parent.parent, "named")   # named style → the array a cell takes
     array = known.get(name)
     if array is None:
         cell.style = name
@@ -141,19 +140,12 @@ def _named_style(cell, name: str) -> None:
         cell._style = copy(array)
 
 
-_LOOK_IDS: Any = None     # book → {(collection, look): id in that collection}
-
-
 def set_look(cell, collection: str, field: str, key: tuple, make: Callable[[], Any]):
     """``cell.<look> = make()``: openpyxl hashes the new style object against the book's
     collection on every assignment (the largest cost of styling a cell); the id it ends
     with depends only on ``key`` in one book, so it is looked up once per book."""
-    global _LOOK_IDS
-    if _LOOK_IDS is None:
-        import weakref
-        _LOOK_IDS = weakref.WeakKeyDictionary()
     book = cell.parent.parent
-    known = _LOOK_IDS.setdefault(book, {})
+    known = book_memo(book, "looks")           # (collection, look) → id in that collection
     sid = known.get((collection, key))
     if sid is None:
         sid = known[(collection, key)] = getattr(book, collection).add(make())
@@ -305,7 +297,6 @@ def _write_column(ws, values: list, top: int, col: int, fmt, styles: _StyleCache
 
 
 _F64 = np.float64
-_BORDERS: Any = None      # book → {(border id, first cell's border id, side): border id}
 
 
 def merge(ws, start_row: int, start_column: int, end_row: int, end_column: int) -> None:
@@ -313,17 +304,14 @@ def merge(ws, start_row: int, start_column: int, end_row: int, end_column: int) 
     cell the first cell's protection and each edge cell the first cell's border sides by
     building and hashing a style object per cell (milliseconds a merge); the ids those end
     with depend only on the ids the cells had, so they are looked up once per book."""
-    global _BORDERS
-    import weakref
     from openpyxl.cell.cell import MergedCell
     from openpyxl.styles.borders import Border
     from openpyxl.styles.cell_style import StyleArray
     from openpyxl.utils import get_column_letter
     from openpyxl.worksheet.merge import MergedCellRange
-    if _BORDERS is None:
-        _BORDERS = weakref.WeakKeyDictionary()
     book = ws.parent
-    known = _BORDERS.setdefault(book, {})
+    # (border id, first cell's border id, side) → border id
+    known = book_memo(book, "merge borders")
     borders = book._borders
     cells = ws._cells
     coord = (f"{get_column_letter(start_column)}{start_row}:"
