@@ -411,3 +411,33 @@ def test_worksheet_functions_take_the_setting():
                          [["log_response", True], ["curves", "Age=square"]])
     terms = [row[0] for row in got[1:]]
     assert terms == ["intercept", "Living area", "Age", "Age²"]
+
+
+def test_a_spline_that_takes_up_every_residual_is_not_applicable_not_a_crash():
+    """Eight sales, two of them the same sale entered twice (duplicates kept): the straight
+    model leaves two residual degrees of freedom and the spline's one usable term fits what
+    is left exactly, so the F ratio would be 0/0 in rounding. The check says so instead of
+    raising (found by the intake property test). The nested F of a plain case still equals
+    scipy's F tail (scipy.stats.f.sf)."""
+    from scipy import stats
+
+    from plumbrule.diagnostics.checks import LEFT_NOTHING, nested_f
+    from plumbrule.intake import table_from_values
+    block = [["a", "eh", "dagah", "fd"],
+             [0.0, 0.0, 772691.4968121423, "Millbank"],
+             [322564.2583855592, 0.0, "7.9%", 3],
+             [0.0, 311067.93604738655, 468719.01096341526, True],
+             [314546.39705280086, 424599, "(8,631)", "Old Quay"],
+             [1.0, 0.0, 1.0, "Millbank"],
+             [229318.33146693543, "2,299,653", "(15,667)", True],
+             [314546.39705280086, 424599, "(8,631)", "Old Quay"],
+             [877103.5750399325, 1.0, 252815.04188639575, "Millbank"]]
+    a = analyze(table_from_values(block), response="a", predictors="eh,dagah,fd",
+                categorical="fd", duplicates="keep", folds=0)
+    c = a.tables.checks.set_index("check")
+    assert LEFT_NOTHING in set(c["note"])
+    assert c.loc[c["note"] == LEFT_NOTHING, "verdict"].eq("n/a").all()
+    assert nested_f(5.0, 2, 5.0, 3) is None and nested_f(0.0, 1, 0.0, 4) is None
+    f, p = nested_f(3.0, 2, 10.0, 17)
+    assert f == pytest.approx((3.0 / 2) / (7.0 / 17), rel=1e-15)
+    assert p == pytest.approx(stats.f.sf(f, 2, 17), rel=1e-10)

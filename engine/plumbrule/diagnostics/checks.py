@@ -40,6 +40,27 @@ def not_applicable(name: str, why: str, threshold: str = "") -> Check:
     return Check(name, float("nan"), float("nan"), threshold, NA, why)
 
 
+# The larger fit counts as exact when what it leaves is within rounding of what the
+# smaller one left: ssr − gain then carries no digits, and its F ratio would be noise
+# over noise (or 0/0).
+_EXACT_SHARE = 1e-10
+
+LEFT_NOTHING = ("The added terms take up every residual the model leaves (the sales are "
+                "too few, or repeat each other): nothing is left to test them against.")
+
+
+def nested_f(gain: float, df1: int, ssr: float, df2: int) -> tuple[float, float] | None:
+    """(F statistic, its upper-tail p) for adding df1 terms that cut the residual sum of
+    squares ssr by gain, with df2 residual degrees of freedom left in the larger fit; or
+    None when the larger fit leaves nothing (within rounding) to test against."""
+    from plumbrule.numeric.distributions import f_sf
+    left = ssr - gain
+    if not left > _EXACT_SHARE * ssr:
+        return None
+    fstat = (gain / df1) / (left / df2)
+    return float(fstat), float(f_sf(fstat, df1, df2))
+
+
 def _verdict_p(p: float, alpha: float = 0.05) -> str:
     return OK if p >= alpha else WATCH
 
@@ -572,7 +593,6 @@ def correlated_pairs(model: FittedModel, limit: float = 0.8) -> Check:
 
 def ramsey_reset(model: FittedModel) -> Check:
     """F test that ŷ² and ŷ³ add nothing to the model (Ramsey 1969)."""
-    from plumbrule.numeric.distributions import f_sf
     name = "Linearity: Ramsey RESET"
     fit = model.fit
     df2 = fit.df_resid - 2
@@ -591,9 +611,10 @@ def ramsey_reset(model: FittedModel) -> Check:
         return not_applicable(name, "The fitted values take too few distinct values for "
                               "their powers to test anything.", "p < 0.05")
     df2 = fit.df_resid - df1
-    ssr_u = fit.ssr - gain
-    fstat = (gain / df1) / (ssr_u / df2)
-    p = float(f_sf(fstat, df1, df2))
+    tested = nested_f(gain, df1, fit.ssr, df2)
+    if tested is None:
+        return not_applicable(name, LEFT_NOTHING, "p < 0.05")
+    fstat, p = tested
     note = ("No sign of a curve the model misses." if p >= 0.05 else
             "The model misses a curve: price may rise less than in proportion to size or age; "
             "try a log of price or of the size column.")

@@ -7,7 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from plumbrule.diagnostics.checks import Check, not_applicable
+from plumbrule.diagnostics.checks import LEFT_NOTHING, Check, nested_f, not_applicable
 from plumbrule.model.curves import KNOT_QUANTILES, CurveBasis, rcs_into
 from plumbrule.model.fitted import FittedModel
 from plumbrule.numeric.quantiles import quantiles
@@ -166,7 +166,6 @@ def linearity_by_predictor(model: FittedModel) -> list[Check]:
     restricted cubic spline's two non-linear terms (Harrell 2015, §2.4.6 and §2.7.2), graded
     with a Bonferroni split of 0.05 over the predictors tested, so a correct straight model
     raises a false alarm on any of them at most about one time in twenty."""
-    from plumbrule.numeric.distributions import f_sf
     cols = straight_predictors(model)
     if not cols:
         return []
@@ -188,8 +187,11 @@ def linearity_by_predictor(model: FittedModel) -> list[Check]:
             out.append(not_applicable(title, f"'{name}' takes too few distinct values (or the "
                                       "sales are too few) to test a curve.", threshold))
             continue
-        fstat = (gain / df1) / ((fit.ssr - gain) / df2)
-        p = float(f_sf(fstat, df1, df2))
+        tested = nested_f(gain, df1, fit.ssr, df2)
+        if tested is None:
+            out.append(not_applicable(title, LEFT_NOTHING, threshold))
+            continue
+        fstat, p = tested
         if p < alpha:
             verdict = WATCH
             note = (f"'{name}' needs a curve: a spline of {what} fits its effect better than "

@@ -15,7 +15,7 @@ import datetime as _dt
 import numpy as np
 import pandas as pd
 
-from plumbrule.diagnostics.checks import Check, not_applicable
+from plumbrule.diagnostics.checks import LEFT_NOTHING, Check, nested_f, not_applicable
 from plumbrule.model.fitted import FittedModel
 from plumbrule.verdicts import FAILS, OK, WATCH
 
@@ -155,7 +155,6 @@ def trend_fit_check(model: FittedModel, unit: str | None = None) -> Check:
     """F test that indicators of the sale months (sparse months merged), added to the model,
     explain none of the residuals: the partial F of [X, D] against X, computed from the
     residuals and D made orthogonal to the design with the fit's own Q (no refit)."""
-    from plumbrule.numeric.distributions import f_sf
     threshold = f"p < {ALPHA} (F test of sale-period groups on the residuals)"
     spec, fit = model.spec, model.fit
     if not spec.date_column:
@@ -173,8 +172,10 @@ def trend_fit_check(model: FittedModel, unit: str | None = None) -> Check:
     if df2 < 1:
         return not_applicable(CHECK_NAME, "Too few sales beyond the parameters and months.",
                               threshold)
-    fstat = (gain / df1) / max((fit.ssr - gain) / df2, np.finfo(float).tiny)
-    p = float(f_sf(fstat, df1, df2))
+    tested = nested_f(gain, df1, fit.ssr, df2)
+    if tested is None:
+        return not_applicable(CHECK_NAME, LEFT_NOTHING, threshold)
+    fstat, p = tested
     means = pd.Series(fit.resid).groupby(group).mean().to_numpy()
     worst = int(np.argmax(np.abs(means) * np.sqrt(np.bincount(group))))   # largest |t|
     size = float(means[worst])
