@@ -744,4 +744,7 @@ ALL_CHECKS = (ramsey_reset, breusch_pagan, white_special, durbin_watson_date, ti
 
 def run_checks(model: FittedModel) -> list[Check]:
     """Every check, in a fixed order."""
-    return [check(model) for check in ALL_CHECKS]
+    out = [check(model) for check in ALL_CHECKS]
+    # the date-order basis (n × p) serves the two serial checks only: not held after them
+    model.forget("date_order_basis")
+    return out
