@@ -134,6 +134,45 @@ class Analysis:
         return self.final_model is not self.model
 
 
+class HandedOver:
+    """A sales table its caller gives up to :func:`analyze` (``plumbrule fit``, which only
+    renders the tables): once intake has typed it, the analysis keeps of it only what later
+    steps read (its rows, hidden rows and side columns: coordinates, assessed values), not
+    the file's text, its blank mask or the raw cells of the model's columns, so they are not
+    held to the end. ``Analysis.table`` is then that trimmed table."""
+
+    def __init__(self, table: intake.SheetTable) -> None:
+        self._table: intake.SheetTable | None = table
+
+    def take(self) -> intake.SheetTable:
+        """The table (once: the holder lets it go)."""
+        table, self._table = self._table, None
+        if table is None:
+            raise ValueError("this sales table was handed over already")
+        return table
+
+
+def _trimmed(table: intake.SheetTable, spec: ModelSpec) -> intake.SheetTable:
+    """``table`` with the rows, hidden rows and the side columns the later steps read
+    (:func:`side_numbers`), without the file's text and blank mask."""
+    from dataclasses import replace
+    side = [c for c in (spec.x_column, spec.y_column, spec.assessed_column,
+                        spec.prior_assessed_column) if c and c in table.frame.columns]
+    return replace(table, frame=table.frame[list(dict.fromkeys(side))], file_text=None,
+                   blanks=None)
+
+
+def _with_trimmed_table(sales: Sales, table: intake.SheetTable
+                        ) -> tuple[Sales, intake.SheetTable]:
+    """(sales, table) holding trimmed tables (:func:`_trimmed`; one when they are one)."""
+    from dataclasses import replace
+    light = _trimmed(table, sales.spec)
+    own = light if sales.table is table else _trimmed(sales.table, sales.spec)
+    out = replace(sales, table=own)
+    out.__dict__.update({k: v for k, v in sales.__dict__.items() if k == "_id_keys"})
+    return out, light
+
+
 def as_table(source: Any, header_row: int | None = None,
              text_columns: tuple[str, ...] = ()) -> intake.SheetTable:
     """Accept a SheetTable, a DataFrame, a file path, or a 2-D block of values (its header
@@ -170,15 +209,21 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     percentile trim, IQR fence; limits from the training sales) → influence screening on
     the training rows (one first fit, one refit) → fit on training rows → checks →
     validation (holdout, k-fold) → ratio study → tables.
+    ``source`` may be a :class:`HandedOver` table (its raw cells are let go after intake).
     ``for_valuation``: the analysis a valuation needs (the model and its set-aside log); the
     checks, validation, ratio study and estimate tables are left empty.
     """
     settings = coerce_settings(settings, **kw)
-    table = as_table(source, settings.header_row, settings.text_columns)
+    handed = isinstance(source, HandedOver)
+    table = (source.take() if handed
+             else as_table(source, settings.header_row, settings.text_columns))
+    del source
     sales = prepare_sales(table, settings)
     spec, clean = sales.spec, sales.clean
     # how a reader names each sale; label_column is matched here, at the edge, before the fit
     names = sale_names(table, clean.data, spec, sales.shown_ids, settings.label_column)
+    if handed:      # the raw cells and the file's text are read: let them go
+        sales, table = _with_trimmed_table(sales, table)
     columns = spec.screened
     train, hold, fit_log, looked, moved = _screen_and_split(sales, settings)
     model = fit_model(spec, train, robust_se=settings.robust_se,
