@@ -30,7 +30,7 @@ from plumbrule.errors import FitError, SettingError
 from plumbrule.model.fitted import FittedModel, fit_model
 from plumbrule.model.retransform import price_estimates
 from plumbrule.settings import Settings, parse_settings
-from plumbrule.model.spec import ModelSpec
+from plumbrule.model.spec import ModelSpec, match_column
 from plumbrule.sales import (Sales, prepare_sales, sale_names, side_numbers, with_ids,
                             with_names)
 from plumbrule.diagnostics.tables import (
@@ -152,22 +152,24 @@ class HandedOver:
         return table
 
 
-def _trimmed(table: intake.SheetTable, spec: ModelSpec) -> intake.SheetTable:
-    """``table`` with the rows, hidden rows and the side columns the later steps read
-    (:func:`side_numbers`), without the file's text and blank mask."""
+def _trimmed(table: intake.SheetTable, spec: ModelSpec, label: str | None
+             ) -> intake.SheetTable:
+    """``table`` with the rows, hidden rows and the columns the later steps read (the side
+    columns of :func:`side_numbers`, the ``label`` column of :func:`sale_names`), without
+    the file's text and blank mask."""
     from dataclasses import replace
     side = [c for c in (spec.x_column, spec.y_column, spec.assessed_column,
-                        spec.prior_assessed_column) if c and c in table.frame.columns]
+                        spec.prior_assessed_column, label) if c and c in table.frame.columns]
     return replace(table, frame=table.frame[list(dict.fromkeys(side))], file_text=None,
                    blanks=None)
 
 
-def _with_trimmed_table(sales: Sales, table: intake.SheetTable
+def _with_trimmed_table(sales: Sales, table: intake.SheetTable, label: str | None
                         ) -> tuple[Sales, intake.SheetTable]:
     """(sales, table) holding trimmed tables (:func:`_trimmed`; one when they are one)."""
     from dataclasses import replace
-    light = _trimmed(table, sales.spec)
-    own = light if sales.table is table else _trimmed(sales.table, sales.spec)
+    light = _trimmed(table, sales.spec, label)
+    own = light if sales.table is table else _trimmed(sales.table, sales.spec, label)
     out = replace(sales, table=own)
     out.__dict__.update({k: v for k, v in sales.__dict__.items() if k == "_id_keys"})
     return out, light
@@ -220,10 +222,13 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     del source
     sales = prepare_sales(table, settings)
     spec, clean = sales.spec, sales.clean
-    # how a reader names each sale; label_column is matched here, at the edge, before the fit
-    names = sale_names(table, clean.data, spec, sales.shown_ids, settings.label_column)
+    # label_column is matched here, at the edge, before the fit; the sales' names are made
+    # once the model and its checks are done (a million 'row N' texts need not be held
+    # through them)
+    label = (match_column(settings.label_column, table.columns, "label_column")
+             if settings.label_column else None)
     if handed:      # the raw cells and the file's text are read: let them go
-        sales, table = _with_trimmed_table(sales, table)
+        sales, table = _with_trimmed_table(sales, table, label)
     columns = spec.screened
     train, hold, fit_log, looked, moved = _screen_and_split(sales, settings)
     model = fit_model(spec, train, robust_se=settings.robust_se,
@@ -256,6 +261,8 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         checks.append(check)
     ids = sales.ids
     day = valuation_day(settings)
+    # how a reader names each sale (sheet row → sale, sale_price, sale_date)
+    names = sale_names(table, clean.data, spec, sales.shown_ids, settings.label_column)
 
     def named(frame, ident):
         return with_names(with_ids(frame, ident), names)
