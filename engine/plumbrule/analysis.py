@@ -233,6 +233,11 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     train, hold, fit_log, looked, moved = _screen_and_split(sales, settings)
     model = fit_model(spec, train, robust_se=settings.robust_se,
                       confidence=settings.confidence)
+    final = final_model(model, hold, settings)
+    # `plumbrule value` shows none of the model's checks: they are not run for it. They run
+    # before the validation, whose per-sale estimates need not be held through them.
+    checks = [] if for_valuation else _all_checks(final, sales, settings, fit_log, looked,
+                                                  moved)
     if for_valuation and not settings.ratio_trim and not spec.assessed_column:
         # `plumbrule value` shows the model's estimates, never the validation or the ratio
         # study: they are left empty (a ratio trim sets sales aside, and the assessments'
@@ -243,14 +248,10 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         validation, h_est, cv = _validate(model, hold, settings, sales)
         study, holdout_estimates, cv_estimates, ratio_log, study_est = _ratio_tables(
             model, hold, h_est, cv, settings, spec.ratio_by)
-    final = final_model(model, hold, settings)
 
     screen_log = pd.concat([lg for lg in (fit_log, ratio_log) if len(lg)]
                            or [screen.empty_log()], ignore_index=True)
     after = pd.concat([train, hold]).sort_index() if len(hold) else train
-    # `plumbrule value` shows none of the model's checks: they are not run for it
-    checks = [] if for_valuation else _all_checks(final, sales, settings, fit_log, looked,
-                                                  moved)
     study, assessed_est, chasing = _assessed_tables(sales, after, study, study_est, settings)
     residual_map = pd.DataFrame()
     if spec.x_column and not for_valuation:
@@ -331,10 +332,13 @@ def fit_checks(model: FittedModel) -> list[Check]:
     """The checks of the fitted model itself, in the checks table's order. A check of the fit
     is added here (not in :func:`analyze` alone), so the comparison of candidate models
     (compare.py) counts it too."""
+    # the per-predictor linearity checks run first (their n × 2k block then meets no
+    # cached influence arrays), and are shown beside RESET: the same question
+    linearity = linearity_by_predictor(model)
     checks = run_checks(model)
     at = next((i + 1 for i, c in enumerate(checks) if c.name.startswith("Linearity")),
               len(checks))
-    checks[at:at] = linearity_by_predictor(model)     # beside RESET: the same question
+    checks[at:at] = linearity
     return checks
 
 

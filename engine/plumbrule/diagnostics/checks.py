@@ -228,8 +228,9 @@ def durbin_watson_date(model: FittedModel) -> Check:
     na, setup = _serial_setup(model, name, threshold, "Durbin-Watson")
     if na:
         return na
-    order = setup
-    test = serial.durbin_watson_test(model.fit.resid[order], model.date_order_basis)
+    order, basis = setup, model.date_order_basis
+    assert basis is not None            # a date column gives a basis
+    test = serial.durbin_watson_test(model.fit.resid[order], basis)
     d, p = test.statistic, test.p_two_sided
     rho = 1.0 - d / 2.0
     how = "same-date sales ordered by their own values: sorting the sheet changes nothing"
