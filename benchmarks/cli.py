@@ -286,16 +286,27 @@ def measure(path: Path, repeat: int, whole: bool, text: bool = False, stages: bo
     if not stages:
         rows["memory"] = []
         return rows
-    # peak memory of the in-process whole (numpy reports its buffers to tracemalloc)
-    del table
+    # peak memory of the in-process whole, stage by stage (numpy reports its buffers to
+    # tracemalloc); the read table is handed over to the analysis, as `plumbrule fit` does
+    from plumbrule.analysis import HandedOver
+    n, p = result.model.x.shape
+    del table, result
     gc.collect()
     tracemalloc.start()
-    analysis_json(analyze(ours_read(), settings))
-    peak = tracemalloc.get_traced_memory()[1]
+    holder = HandedOver(ours_read())
+    read_held, read_peak = tracemalloc.get_traced_memory()
+    tracemalloc.reset_peak()
+    result = analyze(holder, settings)
+    held, analysis_peak = tracemalloc.get_traced_memory()
+    tracemalloc.reset_peak()
+    analysis_json(result)
+    json_peak = tracemalloc.get_traced_memory()[1]
     tracemalloc.stop()
-    n, p = result.model.x.shape
-    rows["design_bytes"] = [n * (p + 1) * 8.0]      # the design with its constant column
-    rows["memory"] = [peak / rows["design_bytes"][0]]
+    design = n * (p + 1) * 8.0                      # the design with its constant column
+    rows["design_bytes"] = [design]
+    rows["memory"] = [max(read_peak, analysis_peak, json_peak) / design]
+    rows["memory_stages"] = [(read_held / design, read_peak / design, held / design,
+                              analysis_peak / design, json_peak / design)]
     return rows
 
 
@@ -343,6 +354,10 @@ def report(n: int, fmt: str, m: dict, path: Path) -> None:
     if m["memory"]:
         print(f"  traced peak     {m['memory'][0]:.1f}× the design matrix (read + analysis + "
               "streamed JSON, in process)")
+        r_held, r_peak, held, a_peak, j_peak = m["memory_stages"][0]
+        print(f"    by stage      read holds {r_held:.2f}× (peak {r_peak:.2f}×); analysis "
+              f"peak {a_peak:.2f}×, its result holds {held:.2f}×; JSON peak {j_peak:.2f}× "
+              f"(+{j_peak - held:.2f}× over the result)")
 
 
 def compile_engine() -> None:

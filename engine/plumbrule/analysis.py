@@ -30,7 +30,7 @@ from plumbrule.errors import FitError, SettingError
 from plumbrule.model.fitted import FittedModel, fit_model
 from plumbrule.model.retransform import price_estimates
 from plumbrule.settings import Settings, parse_settings
-from plumbrule.model.spec import ModelSpec
+from plumbrule.model.spec import ModelSpec, match_column
 from plumbrule.sales import (Sales, prepare_sales, sale_names, side_numbers, with_ids,
                             with_names)
 from plumbrule.diagnostics.tables import (
@@ -134,6 +134,47 @@ class Analysis:
         return self.final_model is not self.model
 
 
+class HandedOver:
+    """A sales table its caller gives up to :func:`analyze` (``plumbrule fit``, which only
+    renders the tables): once intake has typed it, the analysis keeps of it only what later
+    steps read (its rows, hidden rows and side columns: coordinates, assessed values), not
+    the file's text, its blank mask or the raw cells of the model's columns, so they are not
+    held to the end. ``Analysis.table`` is then that trimmed table."""
+
+    def __init__(self, table: intake.SheetTable) -> None:
+        self._table: intake.SheetTable | None = table
+
+    def take(self) -> intake.SheetTable:
+        """The table (once: the holder lets it go)."""
+        table, self._table = self._table, None
+        if table is None:
+            raise ValueError("this sales table was handed over already")
+        return table
+
+
+def _trimmed(table: intake.SheetTable, spec: ModelSpec, label: str | None
+             ) -> intake.SheetTable:
+    """``table`` with the rows, hidden rows and the columns the later steps read (the side
+    columns of :func:`side_numbers`, the ``label`` column of :func:`sale_names`), without
+    the file's text and blank mask."""
+    from dataclasses import replace
+    side = [c for c in (spec.x_column, spec.y_column, spec.assessed_column,
+                        spec.prior_assessed_column, label) if c and c in table.frame.columns]
+    return replace(table, frame=table.frame[list(dict.fromkeys(side))], file_text=None,
+                   blanks=None)
+
+
+def _with_trimmed_table(sales: Sales, table: intake.SheetTable, label: str | None
+                        ) -> tuple[Sales, intake.SheetTable]:
+    """(sales, table) holding trimmed tables (:func:`_trimmed`; one when they are one)."""
+    from dataclasses import replace
+    light = _trimmed(table, sales.spec, label)
+    own = light if sales.table is table else _trimmed(sales.table, sales.spec, label)
+    out = replace(sales, table=own)
+    out.__dict__.update({k: v for k, v in sales.__dict__.items() if k == "_id_keys"})
+    return out, light
+
+
 def as_table(source: Any, header_row: int | None = None,
              text_columns: tuple[str, ...] = ()) -> intake.SheetTable:
     """Accept a SheetTable, a DataFrame, a file path, or a 2-D block of values (its header
@@ -170,19 +211,33 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
     percentile trim, IQR fence; limits from the training sales) → influence screening on
     the training rows (one first fit, one refit) → fit on training rows → checks →
     validation (holdout, k-fold) → ratio study → tables.
+    ``source`` may be a :class:`HandedOver` table (its raw cells are let go after intake).
     ``for_valuation``: the analysis a valuation needs (the model and its set-aside log); the
     checks, validation, ratio study and estimate tables are left empty.
     """
     settings = coerce_settings(settings, **kw)
-    table = as_table(source, settings.header_row, settings.text_columns)
+    handed = isinstance(source, HandedOver)
+    table = (source.take() if handed
+             else as_table(source, settings.header_row, settings.text_columns))
+    del source
     sales = prepare_sales(table, settings)
     spec, clean = sales.spec, sales.clean
-    # how a reader names each sale; label_column is matched here, at the edge, before the fit
-    names = sale_names(table, clean.data, spec, sales.shown_ids, settings.label_column)
+    # label_column is matched here, at the edge, before the fit; the sales' names are made
+    # once the model and its checks are done (a million 'row N' texts need not be held
+    # through them)
+    label = (match_column(settings.label_column, table.columns, "label_column")
+             if settings.label_column else None)
+    if handed:      # the raw cells and the file's text are read: let them go
+        sales, table = _with_trimmed_table(sales, table, label)
     columns = spec.screened
     train, hold, fit_log, looked, moved = _screen_and_split(sales, settings)
     model = fit_model(spec, train, robust_se=settings.robust_se,
                       confidence=settings.confidence)
+    final = final_model(model, hold, settings)
+    # `plumbrule value` shows none of the model's checks: they are not run for it. They run
+    # before the validation, whose per-sale estimates need not be held through them.
+    checks = [] if for_valuation else _all_checks(final, sales, settings, fit_log, looked,
+                                                  moved)
     if for_valuation and not settings.ratio_trim and not spec.assessed_column:
         # `plumbrule value` shows the model's estimates, never the validation or the ratio
         # study: they are left empty (a ratio trim sets sales aside, and the assessments'
@@ -193,14 +248,10 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         validation, h_est, cv = _validate(model, hold, settings, sales)
         study, holdout_estimates, cv_estimates, ratio_log, study_est = _ratio_tables(
             model, hold, h_est, cv, settings, spec.ratio_by)
-    final = final_model(model, hold, settings)
 
     screen_log = pd.concat([lg for lg in (fit_log, ratio_log) if len(lg)]
                            or [screen.empty_log()], ignore_index=True)
     after = pd.concat([train, hold]).sort_index() if len(hold) else train
-    # `plumbrule value` shows none of the model's checks: they are not run for it
-    checks = [] if for_valuation else _all_checks(final, sales, settings, fit_log, looked,
-                                                  moved)
     study, assessed_est, chasing = _assessed_tables(sales, after, study, study_est, settings)
     residual_map = pd.DataFrame()
     if spec.x_column and not for_valuation:
@@ -211,6 +262,8 @@ def analyze(source: Any, settings: Settings | Mapping[str, Any] | None = None,
         checks.append(check)
     ids = sales.ids
     day = valuation_day(settings)
+    # how a reader names each sale (sheet row → sale, sale_price, sale_date)
+    names = sale_names(table, clean.data, spec, sales.shown_ids, settings.label_column)
 
     def named(frame, ident):
         return with_names(with_ids(frame, ident), names)
@@ -279,10 +332,13 @@ def fit_checks(model: FittedModel) -> list[Check]:
     """The checks of the fitted model itself, in the checks table's order. A check of the fit
     is added here (not in :func:`analyze` alone), so the comparison of candidate models
     (compare.py) counts it too."""
+    # the per-predictor linearity checks run first (their n × 2k block then meets no
+    # cached influence arrays), and are shown beside RESET: the same question
+    linearity = linearity_by_predictor(model)
     checks = run_checks(model)
     at = next((i + 1 for i, c in enumerate(checks) if c.name.startswith("Linearity")),
               len(checks))
-    checks[at:at] = linearity_by_predictor(model)     # beside RESET: the same question
+    checks[at:at] = linearity
     return checks
 
 

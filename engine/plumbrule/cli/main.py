@@ -123,11 +123,15 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def cmd_fit(args: argparse.Namespace) -> int:
-    from plumbrule.analysis import analyze
+    from plumbrule.analysis import HandedOver, analyze
     from plumbrule.cli.inputs import read_inputs
     from plumbrule.render.text import render_analysis
     inputs = read_inputs(args)
-    result = analyze(inputs.sales, inputs.settings)
+    # only the tables are rendered: the read table is handed over, so the analysis can let
+    # the file's text and raw cells go once intake has typed them
+    settings, sales = inputs.settings, HandedOver(inputs.sales)
+    del inputs
+    result = analyze(sales, settings)
     if args.json:
         from plumbrule.render.json import write_analysis_json
         write_json(lambda stream: write_analysis_json(result, stream))

@@ -204,7 +204,7 @@ def durbin_watson_stat(e: np.ndarray) -> float:
 
 
 def _serial_setup(model: FittedModel, name: str, threshold: str, what: str):
-    """(Check n/a, None) when the test cannot run, else (None, (order, basis))."""
+    """(Check n/a, None) when the test cannot run, else (None, sale-date order)."""
     date = model.spec.date_column
     if not date:
         return not_applicable(name, f"{what} is not meaningful for sales in sheet order (any "
@@ -215,7 +215,7 @@ def _serial_setup(model: FittedModel, name: str, threshold: str, what: str):
                               threshold), None
     order = model.sale_order
     assert order is not None            # a date column gives an order
-    return None, (order, model.date_order_basis)
+    return None, order
 
 
 def durbin_watson_date(model: FittedModel) -> Check:
@@ -228,7 +228,8 @@ def durbin_watson_date(model: FittedModel) -> Check:
     na, setup = _serial_setup(model, name, threshold, "Durbin-Watson")
     if na:
         return na
-    order, basis = setup
+    order, basis = setup, model.date_order_basis
+    assert basis is not None            # a date column gives a basis
     test = serial.durbin_watson_test(model.fit.resid[order], basis)
     d, p = test.statistic, test.p_two_sided
     rho = 1.0 - d / 2.0
@@ -259,10 +260,13 @@ def time_neighbours(model: FittedModel) -> Check:
     na, setup = _serial_setup(model, name, threshold, "Closeness")
     if na:
         return na
-    order, basis = setup
+    order = setup
     seconds = serial.sale_seconds(model.data, str(model.spec.date_column), order)
-    test = serial.neighbour_test(model.fit.resid[order], basis,
-                                 serial.neighbour_matrix(serial.neighbour_counts(seconds, k), k))
+    near = serial.neighbour_matrix(serial.neighbour_counts(seconds, k), k)
+    # the last check to read the date-order basis: handed off, so the test lets it go
+    # before its own n × p products
+    test = serial.neighbour_test(model.fit.resid[order],
+                                 serial.Handoff(model.taken("date_order_basis")), near)
     i_stat, p = test.statistic, test.p_upper
     how = "p from its exact null"
     if p >= 0.05:
@@ -744,4 +748,7 @@ ALL_CHECKS = (ramsey_reset, breusch_pagan, white_special, durbin_watson_date, ti
 
 def run_checks(model: FittedModel) -> list[Check]:
     """Every check, in a fixed order."""
-    return [check(model) for check in ALL_CHECKS]
+    out = [check(model) for check in ALL_CHECKS]
+    # the date-order basis (n × p) serves the two serial checks only: not held after them
+    model.forget("date_order_basis")
+    return out

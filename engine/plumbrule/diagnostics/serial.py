@@ -47,6 +47,27 @@ class RatioTest:
         return float(min(1.0, 2.0 * min(self.p_lower, self.p_upper)))
 
 
+class Handoff:
+    """An n × p basis its holder gives up to one test (:func:`neighbour_test`): the test
+    takes it (:meth:`take`) and lets it go as soon as its products with the basis are
+    formed, before the larger work that follows (``shape`` stays readable)."""
+
+    def __init__(self, basis: np.ndarray) -> None:
+        self._basis: np.ndarray | None = basis
+        self.shape: tuple[int, ...] = basis.shape
+
+    def take(self) -> np.ndarray:
+        """The basis (once: the holder lets it go)."""
+        basis, self._basis = self._basis, None
+        if basis is None:
+            raise ValueError("this basis was taken already")
+        return basis
+
+
+def _taken(basis: np.ndarray | Handoff) -> np.ndarray:
+    return basis.take() if isinstance(basis, Handoff) else basis
+
+
 # --- sale-date order ----------------------------------------------------------
 
 def sale_seconds(data: pd.DataFrame, date_column: str, order: np.ndarray) -> np.ndarray:
@@ -140,8 +161,9 @@ class BandMatrix:
                 out[-off:] += d * x[:n + off]
         return out
 
-    def basis_terms(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
+    def basis_terms(self, u: np.ndarray | Handoff) -> tuple[np.ndarray, np.ndarray, float]:
         """(UᵀAU, UᵀA²U, tr(UᵀA³U)) for an n × p block U."""
+        u = _taken(u)
         au = self.times(u)
         return u.T @ au, au.T @ au, float(np.vdot(au, self.times(au)))
 
@@ -151,12 +173,12 @@ class DifferenceMatrix(BandMatrix):
     """A = DᵀD for the first difference D ((n − 1) × n): the Durbin–Watson numerator is
     eᵀAe = Σ(eₜ − eₜ₋₁)². Diagonal 1, 2, …, 2, 1; off-diagonal −1."""
 
-    def basis_terms(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
+    def basis_terms(self, u: np.ndarray | Handoff) -> tuple[np.ndarray, np.ndarray, float]:
         """Through G = DU ((n − 1) × p, numpy diff): UᵀAU = GᵀG, UᵀA²U = GᵀTG and
         tr(UᵀA³U) = tr(GᵀT²G) with T = DDᵀ (diagonal 2, off-diagonal −1), so T G is never
         formed: GᵀTG = 2GᵀG − (Y + Yᵀ) with Y = Σ Gᵢᵀ Gᵢ₊₁, and T² has diagonal 6 (5 at
         both ends), first off-diagonal −4, second 1."""
-        g = np.diff(u, axis=0)
+        g = np.diff(_taken(u), axis=0)
         # a constant first column differences to exact zeros: left out of the products (its
         # rows and columns of UᵀAU and UᵀA²U are zero), a seventh of their cost at p = 15
         skip = int(len(g) > 0 and not g[:, 0].any())
@@ -195,11 +217,15 @@ class NeighbourMatrix(BandMatrix):
 
     weights: Any = None
 
-    def basis_terms(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
-        """UᵀSU, UᵀS²U = VᵀV and tr(UᵀS³U) = tr(VᵀSV) = tr(VᵀWV), V = SU."""
+    def basis_terms(self, u: np.ndarray | Handoff) -> tuple[np.ndarray, np.ndarray, float]:
+        """UᵀSU, UᵀS²U = VᵀV and tr(UᵀS³U) = tr(VᵀSV) = tr(VᵀWV), V = SU. A handed-off
+        basis is let go once UᵀSU is formed: V and WV (n × p each) need not meet it."""
         w = self.weights
+        u = _taken(u)
         v = ((w + w.T) * 0.5) @ u        # S in CSR once: cheaper than WU and WᵀU apart
-        return u.T @ v, v.T @ v, float(np.vdot(v, w @ v))
+        usu = u.T @ v
+        del u
+        return usu, v.T @ v, float(np.vdot(v, w @ v))
 
 
 def neighbour_counts(seconds: np.ndarray, k: int = NEIGHBOURS) -> np.ndarray:
@@ -249,24 +275,29 @@ def neighbour_matrix(before: np.ndarray, k: int = NEIGHBOURS) -> NeighbourMatrix
     return NeighbourMatrix(tuple(upper), weights=w)
 
 
-def neighbour_test(e: np.ndarray, basis: np.ndarray, s: NeighbourMatrix) -> RatioTest:
+def neighbour_test(e: np.ndarray, basis: np.ndarray | Handoff, s: NeighbourMatrix
+                   ) -> RatioTest:
     """I = eᵀWe/eᵀe (Moran's I with S₀ = n: each residual against the mean residual of its
-    time neighbours) and its null distribution; eᵀWe = eᵀSe with S = (W + Wᵀ)/2."""
+    time neighbours) and its null distribution; eᵀWe = eᵀSe with S = (W + Wᵀ)/2. A
+    :class:`Handoff` basis is let go as soon as the test is done with it."""
     stat = float(e @ (s.weights @ e) / np.dot(e, e))
     return ratio_test(stat, basis, s)
 
 
 # --- the null distribution of eᵀAe/eᵀe ----------------------------------------------------------
 
-def ratio_test(stat: float, basis: np.ndarray, a: BandMatrix) -> RatioTest:
+def ratio_test(stat: float, basis: np.ndarray | Handoff, a: BandMatrix) -> RatioTest:
     """Null distribution of r = eᵀAe/eᵀe at ``stat`` for a symmetric banded A.
 
     Exact (Imhof) up to ``EXACT_MAX_N`` sales; above, a Pearson type III curve with the
     exact null mean, variance and skewness of r (normal when the skewness is 0)."""
     from plumbrule.numeric.distributions import pearson3_cdf, pearson3_sf
     n, p = basis.shape
+    if n <= EXACT_MAX_N:        # the eigenvalues read the basis again: no handing off
+        basis = _taken(basis)
     mean, sd, skew = ratio_moments(basis, a)
     if n <= EXACT_MAX_N:
+        assert isinstance(basis, np.ndarray)
         lam = residual_eigenvalues(basis, a)
         below = imhof_below(lam - stat)
         return RatioTest(stat, mean, sd, below, 1.0 - below, "exact (Imhof)")
@@ -275,7 +306,7 @@ def ratio_test(stat: float, basis: np.ndarray, a: BandMatrix) -> RatioTest:
                      "three-moment (Pearson III)")
 
 
-def ratio_moments(basis: np.ndarray, a: BandMatrix) -> tuple[float, float, float]:
+def ratio_moments(basis: np.ndarray | Handoff, a: BandMatrix) -> tuple[float, float, float]:
     """(mean, sd, skewness) of r = eᵀAe/eᵀe under the null, exactly.
 
     With B = MAM and ν = n − p, the numerator has cumulants 2^(j−1)(j − 1)!·tr(Bʲ) and,

@@ -79,6 +79,19 @@ class FittedModel:
             q[:, 1:] = self.fit.q
         return np.take(q, self.sale_order, axis=0)
 
+    def forget(self, *names: str) -> None:
+        """Drop the cached properties ``names`` (work arrays a stage is done with); read
+        again, each is formed afresh, the same."""
+        for name in names:
+            self.__dict__.pop(name, None)
+
+    def taken(self, name: str):
+        """The cached property ``name``, dropped from the cache: the caller holds the only
+        reference (the last step to read a large work array)."""
+        value = getattr(self, name)
+        self.forget(name)
+        return value
+
     @cached_property
     def cov(self) -> np.ndarray:
         """The covariance used for inference: classical, or HC1/HC3 when asked."""
