@@ -134,7 +134,7 @@ def with_ids(frame: pd.DataFrame, ids: pd.Series | None, column: str = "row",
     if ids is None or column not in frame.columns or name in frame.columns:
         return frame
     pos = list(frame.columns).index(column) + 1
-    out = frame.copy(deep=False)    # copy-on-write: the columns stay shared, not copied
+    out = frame.copy(deep=False)    # the columns stay shared (nothing writes into them)
     out.insert(pos, name, ids.reindex(frame[column].to_numpy()).to_numpy(dtype=object))
     return out
 
@@ -181,7 +181,7 @@ def with_names(frame: pd.DataFrame, names: pd.DataFrame | None, column: str = "r
     ``column``."""
     if names is None or column not in frame.columns:
         return frame
-    out = frame.copy(deep=False)    # copy-on-write: the columns stay shared, not copied
+    out = frame.copy(deep=False)    # the columns stay shared (nothing writes into them)
     at = out[column].to_numpy()
     prefix = "comp_" if column.startswith("comp") else ""
     name = f"{prefix}sale"
