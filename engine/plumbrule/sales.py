@@ -96,7 +96,8 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
             raise err.with_ids(shown_ids) from None
         raise
     # one spelling per level first, so 'Good' and 'good ' rows are the same sale below
-    merged, merges = merge_levels(clean.data, spec.categorical, spec.level_map)
+    merged, merges = merge_levels(clean.data, spec.categorical, spec.level_map,
+                                  clean.factors)
     clean = intake.CleanData(merged, clean.dropped)
     data = clean.data
     raw_ids = None if shown_ids is None else _on_rows(shown_ids, table.frame.index)

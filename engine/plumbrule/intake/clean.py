@@ -4,16 +4,16 @@ drops (and logs by sheet row) the rows a model cannot use.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, Iterable
 
 import numpy as np
 import pandas as pd
 
 from plumbrule.errors import CellErrors, CellProblem, IntakeError, quote_list
-from plumbrule.intake.cells import _blank_mask, to_labels, to_numbers
+from plumbrule.intake.cells import _blank_mask, _no_reason, to_labels, to_numbers
 from plumbrule.intake.dates import to_dates
-from plumbrule.intake.table import SheetTable, blank_cells, text_cells
+from plumbrule.intake.table import SheetTable, blank_cells, text_cells, text_factors
 
 
 @dataclass(frozen=True)
@@ -23,6 +23,9 @@ class CleanData:
 
     data: pd.DataFrame
     dropped: pd.DataFrame
+    # label columns read once per distinct text: column → (a code per row of ``data``,
+    # the distinct labels); :func:`plumbrule.intake.levels.merge_levels` counts by them
+    factors: dict = field(default_factory=dict, repr=False, compare=False)
 
 
 def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[str] = (),
@@ -58,12 +61,20 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     typed: dict[str, pd.Series] = {}
     reasons: dict[str, pd.Series] = {}
     problems: list[CellProblem] = []
+    factors: dict[str, tuple[np.ndarray, np.ndarray]] = {}
     jobs: list[tuple[str, Any, dict]] = [
         (c, to_numbers, {"hint_categorical": c in hints, "booleans": c not in amounts})
         for c in numeric]
     jobs += [(c, to_labels, {}) for c in categorical]
     jobs += [(date, to_dates, {"date_format": date_format})] if date is not None else []
     for col, fn, kw in jobs:
+        if fn is not to_numbers:
+            quick = _on_distinct(table, col, fn, kw)
+            if quick is not None:
+                typed[col], reasons[col], codes = quick
+                if fn is to_labels:
+                    factors[col] = codes
+                continue
         cells = frame[col] if fn is to_numbers else text_cells(table, col)   # labels: the text
         typed[col], reasons[col], found = _typed(fn, cells, col, kw)
         problems += found
@@ -75,7 +86,7 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     data = pd.DataFrame(typed, index=frame.index, copy=False)    # columns in ``order``
     masks = {c: r.notna().to_numpy() for c, r in reasons.items()}
     if not any(m.any() for m in masks.values()):      # the usual case: nothing to log
-        return CleanData(data, _empty_log())
+        return CleanData(data, _empty_log(), factors)
     why = pd.DataFrame(reasons, index=frame.index, copy=False)[order]
     bad = np.column_stack([masks[c] for c in order])
     any_bad = bad.any(axis=1)
@@ -92,7 +103,42 @@ def clean(table: SheetTable, numeric: Iterable[str] = (), categorical: Iterable[
     dropped = pd.DataFrame({"row": sub.index.to_numpy(dtype=np.int64),
                             "column": pd.Series(cols, dtype=object).to_numpy(),
                             "reason": pd.Series(text, dtype=object).to_numpy()})
-    return CleanData(data[~any_bad], dropped)
+    return CleanData(data[~any_bad], dropped,
+                     {c: (k[~any_bad], u) for c, (k, u) in factors.items()})
+
+
+def _on_distinct(table: SheetTable, name: str, fn, kw: dict
+                 ) -> tuple[pd.Series, pd.Series, tuple[np.ndarray, np.ndarray]] | None:
+    """(values, reasons, (codes, distinct values)) of a label or date column the reader
+    holds as distinct texts with a code per row (:func:`text_factors`), typed once per
+    distinct text; None when the careful pass must type it cell by cell: a cell left out,
+    any cell with a reason or a problem (their messages name the rows), or an error.
+    ``fn`` types each cell on its own (a date column's day/month order is settled by the
+    set of its texts), so spreading the distinct results over the codes is the careful
+    result."""
+    got = text_factors(table, name)
+    if got is None:
+        return None
+    codes, uniq = got
+    if not len(codes) or codes.min() < 0:
+        return None
+    held = np.bincount(codes, minlength=len(uniq)) > 0
+    if not held.all():     # texts of rows left out (a totals row's): not in the set read
+        uniq = uniq[held]
+        codes = (np.cumsum(held) - 1).take(codes)
+    try:
+        values, reasons = fn(pd.Series(uniq, dtype=object), name, **kw)
+    except (CellErrors, IntakeError):
+        return None
+    if reasons.notna().any():
+        return None
+    index = table.frame.index
+    out = pd.Series(values.to_numpy().take(codes), index=index, dtype=values.dtype,
+                    copy=False)
+    if fn is to_labels:       # distinct texts may share a label ('Mill' and 'Mill ')
+        label_codes, labels = pd.factorize(values.to_numpy(dtype=object))
+        return out, _no_reason(index), (label_codes.take(codes), labels)
+    return out, _no_reason(index), (codes, uniq)
 
 
 def _typed(fn, cells: pd.Series, name: str, kw: dict

@@ -67,13 +67,13 @@ def to_dates(col: pd.Series, name: str, date_format: str = "auto"
     if isinstance(col.dtype, np.dtype) and col.dtype.kind == "M":   # already dates
         values = col.astype("datetime64[ns]")
         return values, pd.Series("blank", index=col.index, dtype=object).where(values.isna())
+    iso = _plain_iso_column(col)
+    if iso is not None:     # every cell YYYY-MM-DD, a calendar date in range
+        got = pd.Series(iso, index=col.index, copy=False)
+        _check_span(got, name)
+        return got, _no_reason(col.index)
     raw = plain_bytes(col)
-    if raw is not None:     # ISO or day/month text in every cell: read once, on the uniques
-        iso = _plain_iso_dates(raw, len(col))
-        if iso is not None:     # every cell YYYY-MM-DD, a calendar date in range
-            got = pd.Series(iso, index=col.index, copy=False)
-            _check_span(got, name)
-            return got, _no_reason(col.index)
+    if raw is not None:     # day/month text in every cell: read once, on the uniques
         got, _ = _text_dates(col, name, date_format)
         if got.notna().all():
             _check_span(got, name)
@@ -109,6 +109,25 @@ def to_dates(col: pd.Series, name: str, date_format: str = "auto"
         _refuse(bad, col, _NOT_A_DATE, name)
     _check_span(out, name)
     return out, reason
+
+
+def _plain_iso_column(col: pd.Series) -> np.ndarray | None:
+    """datetime64[ns] of a column of text cells when every cell is YYYY-MM-DD naming a
+    calendar date datetime64[ns] holds (:func:`_plain_iso_dates`), else None. A sales
+    file repeats its dates (a few thousand days under a million sales): the distinct
+    texts are read and spread back by their codes. Each cell is read on its own, so this
+    is the cell-by-cell result."""
+    if not len(col) or col.dtype != object:
+        return None
+    codes, uniq = pd.factorize(col.to_numpy(dtype=object))
+    if len(uniq) == len(col):       # all different: no sharing to gain
+        raw = plain_bytes(col)
+        return None if raw is None else _plain_iso_dates(raw, len(col))
+    if codes.min() < 0:             # a missing cell (NaN, None): the careful rules
+        return None
+    raw = plain_bytes(pd.Series(uniq, dtype=object))
+    iso = None if raw is None else _plain_iso_dates(raw, len(uniq))
+    return None if iso is None else iso.take(codes)
 
 
 def _plain_iso_dates(raw: bytes, n: int) -> np.ndarray | None:

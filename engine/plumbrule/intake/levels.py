@@ -21,16 +21,20 @@ def fold(text: pd.Series) -> pd.Series:
 
 
 def merge_levels(data: pd.DataFrame, columns: Sequence[str],
-                 level_map: Sequence[tuple[str, str, str]] = ()
+                 level_map: Sequence[tuple[str, str, str]] = (),
+                 factors: dict[str, tuple[np.ndarray, np.ndarray]] | None = None
                  ) -> tuple[pd.DataFrame, pd.DataFrame]:
     """(data with one spelling per level in each categorical column, level_merges table:
     column, spelling, merged_into, sales). ``level_map`` holds (column, spelling, level)
-    with the column already matched to a header."""
+    with the column already matched to a header. ``factors``: column → (a code per row of
+    ``data``, the distinct labels), where intake has them (CleanData.factors)."""
     out = data
     recs = []
     for col in columns:
         cells = data[col]
-        counts = _counts(cells)
+        known = (factors or {}).get(col)
+        counts = _counts(cells) if known is None or len(known[0]) != len(cells) \
+            else _counted(known[0], known[1], name=cells.name)
         if not len(counts):
             continue
         spell = pd.Series(counts.index.astype(str), index=counts.index)
@@ -70,6 +74,14 @@ def _counts(cells: pd.Series) -> pd.Series:
     codes, uniq = pd.factorize(cells.to_numpy(dtype=object))
     n = np.bincount(codes[codes >= 0], minlength=len(uniq)).astype(np.int64)
     return pd.Series(n, index=pd.Index(uniq, dtype=object, name=cells.name), name="count")
+
+
+def _counted(codes: np.ndarray, labels: np.ndarray, name=None) -> pd.Series:
+    """:func:`_counts` from a code per cell and the distinct labels (no missing cell)."""
+    n = np.bincount(codes, minlength=len(labels)).astype(np.int64)
+    held = n > 0
+    return pd.Series(n[held], index=pd.Index(labels[held], dtype=object, name=name),
+                     name="count")
 
 
 def canonical_levels(values: pd.Series, known: Sequence[str],

@@ -55,6 +55,22 @@ def text_cells(table: SheetTable, column: str) -> pd.Series:
     return cells.rename(column)
 
 
+def text_factors(table: SheetTable, column: str) -> tuple[np.ndarray, np.ndarray] | None:
+    """For a CSV text column the fast reader read as categories: (a code per row of
+    ``table.frame``, -1 where a short line leaves the cell out; the distinct texts, an
+    object array), so that ``text_factors[1][codes]`` is the column's cells. None for any
+    other column."""
+    src = table.file_text
+    got = getattr(src, "factors", {}).get(column) if src is not None else None
+    if got is None:
+        return None
+    codes, uniq = got
+    rows = table.frame.index.to_numpy(dtype=np.int64) - src.skip - 1
+    if len(rows) != len(codes) or (len(rows) and (rows[0] != 0 or rows[-1] != len(codes) - 1)):
+        codes = codes.take(rows)      # rows left out (totals rows, trailing blanks)
+    return codes, uniq
+
+
 def plain_integers(table: SheetTable, column: str) -> np.ndarray | None:
     """For a CSV column the fast reader typed as integers each written as Python writes
     them, those integers (every body row of the file, a superset of the table's rows):

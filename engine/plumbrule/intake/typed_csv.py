@@ -189,6 +189,9 @@ class CsvText:
     positions: tuple = ()           # (header name, column position in the file)
     width: int = 0                  # columns of the file
     ints: dict = field(default_factory=dict, repr=False, compare=False)
+    # text columns the C parser read as categories: name → (code per body row, -1 for a
+    # cell a short line leaves out; the distinct texts, an object array)
+    factors: dict = field(default_factory=dict, repr=False, compare=False)
     _cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     def has(self, name: str) -> bool:
@@ -281,7 +284,10 @@ def read_typed(data: bytes | str, sep: str, header_at: int | None,
                       and len(shown) and all(isinstance(v, str) and _INT_TEXT.fullmatch(v)
                                              for v in shown[:, j])}
         as_text -= maybe_ints
-        typed = _read(data, sep, h, width, dtype={j: object for j in as_text},
+        # the text columns as categories: the same cells (tests/intake/test_typed_csv.py),
+        # and their distinct texts with a code per row at no extra cost, so the rules
+        # reading them as labels or dates read each distinct text once
+        typed = _read(data, sep, h, width, dtype={j: "category" for j in as_text},
                       na_values={j: ([] if j in as_text or j in maybe_ints else [""])
                                  for j in range(width)})
     except Exception:      # the careful reader reads it, and says what is wrong
@@ -290,13 +296,21 @@ def read_typed(data: bytes | str, sep: str, header_at: int | None,
         return None
     cols: dict[int, np.ndarray] = {}
     ints: dict[int, tuple] = {}      # integer columns: (values, written plainly or None)
+    factors: dict[int, tuple] = {}   # text columns: (codes, distinct texts)
     low = None                       # _low_bytes(data), when needed
     again = []
     for j in range(width):
         c = typed.iloc[:, j]
         kind = c.dtype.kind if isinstance(c.dtype, np.dtype) else "O"
         if j in as_text:
+            cats = c.cat.categories if isinstance(c.dtype, pd.CategoricalDtype) else None
+            if cats is not None and not (cats.dtype == object or
+                                         isinstance(cats.dtype, pd.StringDtype)):
+                again.append(j)      # categories the parser typed (12 for '0012'): the text
+                continue
             cols[j] = c.to_numpy(dtype=object)
+            if cats is not None:
+                factors[j] = (c.cat.codes.to_numpy(), cats.to_numpy(dtype=object))
             continue
         if j in maybe_ints:
             if low is None and isinstance(data, bytes):
@@ -351,12 +365,14 @@ def read_typed(data: bytes | str, sep: str, header_at: int | None,
     numbers = tuple((names[j], j) for j in range(width)
                     if j not in again and cols[j].dtype.kind == "f"
                     and names[j] in table.frame.columns)
-    if not numbers:
+    kept = {names[j]: f for j, f in factors.items() if names[j] in table.frame.columns}
+    if not numbers and not kept:
         return table
     from dataclasses import replace
     file_text = CsvText(data, sep, h + 1, numbers, width,
                         {names[j]: v for j, v in ints.items()
-                         if names[j] in table.frame.columns and cols[j].dtype.kind == "f"})
+                         if names[j] in table.frame.columns and cols[j].dtype.kind == "f"},
+                        kept)
     return replace(table, file_text=file_text)
 
 
