@@ -14,6 +14,7 @@ import pandas as pd
 
 from plumbrule import intake
 from plumbrule.errors import CellErrors, IntakeError
+from plumbrule.intake.keys import id_labels as _id_labels
 from plumbrule.intake.keys import rows_of_ids, sale_hashes, sale_ids
 from plumbrule.intake.levels import merge_levels
 from plumbrule.intake.rules import DUPLICATE, SALE_FILTER, duplicate_rows, sale_filter
@@ -65,8 +66,7 @@ def prepare_sales(table: intake.SheetTable, settings: Settings) -> Sales:
     extra_numeric = [c for c in spec.screened if c not in spec.used_columns]
     numeric = list(dict.fromkeys([*spec.numeric_columns, *extra_numeric]))
     # each row's ID cell as text, totals rows included: the logs show it beside the row
-    id_labels = (intake.to_labels(intake.text_cells(table, spec.id_column), spec.id_column)
-                 if spec.id_column else None)
+    id_labels = _id_labels(table, spec.id_column) if spec.id_column else None
     shown_ids = id_labels[0] if id_labels is not None else None
     # IDs all different over the whole sheet are so over any of its rows: hashed once here,
     # not again by the duplicates rule and the ID check

@@ -10,8 +10,20 @@ import numpy as np
 import pandas as pd
 
 from plumbrule.errors import IntakeError
-from plumbrule.intake.cells import to_labels
-from plumbrule.intake.table import SheetTable, blank_cells, text_cells
+from plumbrule.intake.cells import _no_reason, to_labels
+from plumbrule.intake.table import SheetTable, blank_cells, plain_integers, text_cells
+
+
+def id_labels(table: SheetTable, column: str) -> tuple[pd.Series, pd.Series]:
+    """``to_labels`` of the ID column's cells (labels, reasons), indexed like
+    ``table.frame``. A CSV column of integers each written as Python writes them is its own
+    labels: digits and a sign are plain text (:func:`cells.plain_text`), so the per-cell
+    scan that finds so is skipped (a million IDs: about 0.05 s)."""
+    cells = text_cells(table, column)
+    if plain_integers(table, column) is not None:
+        return (pd.Series(cells.to_numpy(dtype=object), index=cells.index, dtype=object),
+                _no_reason(cells.index))
+    return to_labels(cells, column)
 
 
 def sale_ids(table: SheetTable, column: str, used: Sequence[str],
@@ -25,7 +37,8 @@ def sale_ids(table: SheetTable, column: str, used: Sequence[str],
     frame = table.frame
     filled = ~blank_cells(table, list(dict.fromkeys([*used, column]))).all(axis=1)
     if labels is None:
-        ids, why = to_labels(text_cells(table, column)[filled], column)
+        ids, why = id_labels(table, column)
+        ids, why = ids[filled], why[filled]
     elif filled.all() and labels[0].index.equals(frame.index):
         ids, why = labels
     else:
