@@ -278,3 +278,16 @@ def test_category_labels_are_stable_text(labels):
     cd = intake.clean(t, categorical=["h", "g"])
     assert cd.data["h"].tolist() == cd.data["g"].tolist()
     assert all(isinstance(v, str) and v == " ".join(v.split()) for v in cd.data["h"])
+
+
+@SETTINGS
+@given(st.lists(st.one_of(st.text(max_size=12), st.sampled_from(
+    ["Kestrel  Park", " MILLBANK", "Old\u00a0Quay", "stra\u00dfe", "\u2003Hill\ttop "])),
+    min_size=1, max_size=8))
+def test_one_spelling_folds_as_the_column_does(spellings):
+    # a level's key is the same whether folded alone (the few known levels of a model) or
+    # within the column (the sales' cells): otherwise a subject's 'kestrel park' would miss
+    # the sales' 'Kestrel Park'
+    from plumbrule.intake.levels import _fold_one, fold
+    column = fold(pd.Series(spellings, dtype=object)).tolist()
+    assert [_fold_one(s) for s in spellings] == column

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
 from plumbrule.intake.cells import _numbers_of
@@ -34,3 +34,47 @@ def test_floats_and_ints_convert_as_to_numeric_does(values):
 def test_an_int_past_float_range_is_infinite():
     got = _numbers_of(pd.Series([2.5, 2**1100, -2**1100], dtype=object))
     assert got.tolist() == [2.5, float("inf"), float("-inf")]
+
+
+# float cells with every case the number rules look at: blanks (NaN), ±inf, COM error codes
+# (0x800A0000 + XlCVError, from memory; #N/A is 2042), beyond ±1e60, nearer zero than 1e-60
+FLOAT_CELLS = st.one_of(st.floats(allow_nan=True, allow_infinity=True),
+                        st.floats(-1e7, 1e7), st.sampled_from(
+                            [float(0x800A0000 + c - 2 ** 32) for c in (2007, 2042, 2015)]
+                            + [1e61, -1e61, 1e-61, 0.0, -0.0]))
+
+
+def _outcome(fn):
+    from plumbrule.errors import PlumbError
+    try:
+        return "ok", fn()
+    except PlumbError as err:
+        return "error", str(err)
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(FLOAT_CELLS, min_size=1, max_size=30))
+@example([1.0, float("nan"), 3.5])               # a blank
+@example([250.0, float(0x800A0000 + 2042 - 2 ** 32)])    # #N/A as its code
+@example([1.0, float("inf"), 1e61])              # refused: the same cells named
+def test_a_column_of_float_cells_types_as_the_cell_by_cell_rules_do(values):
+    # the reference: the same cells with one text cell below them, which sends the column
+    # through the per-cell rules (cell kinds, blank and error reasons, parse_number_text)
+    from plumbrule.intake.cells import to_numbers
+    index = np.arange(2, 2 + len(values))
+    fast = _outcome(lambda: to_numbers(pd.Series(values, dtype=object, index=index,
+                                                 name="Lot size"), "Lot size"))
+    careful = _outcome(lambda: to_numbers(pd.Series([*values, "12"], dtype=object,
+                                                    index=np.arange(2, 3 + len(values)),
+                                                    name="Lot size"), "Lot size"))
+    assert fast[0] == careful[0]
+    if fast[0] == "error":
+        assert fast[1] == careful[1]       # the same cells named, the same message
+        return
+    (v, why), (cv, cwhy) = fast[1], careful[1]
+    assert np.array_equal(v.to_numpy(), cv.to_numpy()[:-1], equal_nan=True)
+    real = ~np.isnan(v.to_numpy())       # -0.0 stays -0.0 (a blank is NaN of either sign)
+    assert np.array_equal(np.signbit(v.to_numpy()[real]), np.signbit(cv.to_numpy()[:-1][real]))
+    assert v.index.equals(pd.Index(index))
+    assert why.astype(object).where(why.notna(), None).tolist() == \
+        cwhy.astype(object).where(cwhy.notna(), None).tolist()[:-1]

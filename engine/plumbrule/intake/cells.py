@@ -358,6 +358,12 @@ def to_numbers(col: pd.Series, name: str, hint_categorical: bool = False,
     are refused (see :data:`MAX_MAGNITUDE`)."""
     if isinstance(col.dtype, np.dtype) and col.dtype.kind in "fiu":
         return _plain_numbers(col, name)
+    if col.dtype == object and len(col) and \
+            pd.api.types.infer_dtype(col, skipna=False) == "floating":
+        # float cells only (a sheet's numbers as calamine hands them over, NaN for a blank):
+        # the same rules on the array, without typing each cell (a subject row's columns)
+        return _plain_numbers(pd.Series(col.to_numpy(dtype=float), index=col.index,
+                                        name=col.name, copy=False), name)
     kinds = cell_kinds(col)
     reason, present = _missing_reasons(col, kinds)
     values = pd.Series(np.nan, index=col.index, dtype=float)

@@ -20,6 +20,12 @@ def fold(text: pd.Series) -> pd.Series:
     return text.astype(str).str.split().str.join(" ").str.casefold()
 
 
+def _fold_one(text) -> str:
+    """:func:`fold` of one spelling (the same key; a column's few levels are folded one by
+    one without a pandas call each)."""
+    return " ".join(str(text).split()).casefold()
+
+
 def merge_levels(data: pd.DataFrame, columns: Sequence[str],
                  level_map: Sequence[tuple[str, str, str]] = (),
                  factors: dict[str, tuple[np.ndarray, np.ndarray]] | None = None
@@ -38,7 +44,7 @@ def merge_levels(data: pd.DataFrame, columns: Sequence[str],
         if not len(counts):
             continue
         spell = pd.Series(counts.index.astype(str), index=counts.index)
-        explicit = {fold(pd.Series([a])).iloc[0]: b for c, a, b in level_map if c == col}
+        explicit = {_fold_one(a): b for c, a, b in level_map if c == col}
         keys = fold(spell)
         target_of = keys.map(explicit).where(keys.isin(list(explicit)), keys)
         # within each key the most frequent spelling wins (ties: first in sorted order);
@@ -49,7 +55,7 @@ def merge_levels(data: pd.DataFrame, columns: Sequence[str],
                                   kind="stable")
         winner = frame.groupby("key", sort=False)["spelling"].first()
         mapped = {e_key: e_val for e_key, e_val in
-                  ((fold(pd.Series([b])).iloc[0], b) for c, _, b in level_map if c == col)}
+                  ((_fold_one(b), b) for c, _, b in level_map if c == col)}
         winner = winner.where(~winner.index.isin(list(mapped)),
                               pd.Series(mapped).reindex(winner.index))
         into = frame["key"].map(winner)
@@ -90,10 +96,10 @@ def canonical_levels(values: pd.Series, known: Sequence[str],
     explicit (spelling, level) pairs first, then case and spacing ignored. A label that
     matches no known level is left as typed (the caller reports it)."""
     keys = fold(values)
-    explicit = {fold(pd.Series([a])).iloc[0]: fold(pd.Series([b])).iloc[0] for a, b in level_map}
+    explicit = {_fold_one(a): _fold_one(b) for a, b in level_map}
     if explicit:
         keys = keys.map(explicit).where(keys.isin(list(explicit)), keys)
-    spelled = {fold(pd.Series([k])).iloc[0]: k for k in known}
+    spelled = {_fold_one(k): k for k in known}
     out = keys.map(spelled)
     return out.where(out.notna(), values)
 
