@@ -127,6 +127,19 @@ def test_entity_expansion_bomb_is_refused(filled, tmp_path, capsys):
     refused_run(book, capsys, "entit", "refuses")
 
 
+def test_a_dtd_behind_a_long_comment_is_refused(filled, tmp_path, capsys):
+    # the prolog is read a little at a time up to the root element: a DOCTYPE 3 KB in,
+    # past the first reads, is still found before the root
+    dtd = b'<!DOCTYPE worksheet [<!ENTITY a "lol">]>'
+    part = sheet_part(filled, "Read me")
+
+    def behind_comment(d: bytes) -> bytes:
+        end = d.index(b"?>") + 2 if d.startswith(b"<?xml") else 0
+        return d[:end] + b"<!--" + b" long note " * 300 + b"-->" + dtd + d[end:]
+    book = rezip(filled, tmp_path / "book.xlsx", replace={part: behind_comment})
+    refused_run(book, capsys, "entit", "refuses")
+
+
 def test_not_a_workbook(tmp_path, capsys):
     book = tmp_path / "book.xlsx"
     book.write_text("Sale price,Living area\n100,10\n")
