@@ -202,8 +202,11 @@ def _all_different(table: intake.SheetTable, column: str, labels: pd.Series) -> 
     """Whether the ID labels all differ: from the integers when the CSV column is integers
     written plainly (different integers are different texts; hashing a million integers
     is a fraction of hashing their texts), else from the labels."""
+    from plumbrule.intake.cells import _plain_int_array
     from plumbrule.intake.table import plain_integers
     ints = plain_integers(table, column)
+    if ints is None:          # an integer column of a DataFrame or Parquet file: str(n) each
+        ints = _plain_int_array(table.frame[column])
     if ints is not None and pd.Index(ints).is_unique:
         return True
     return pd.Index(labels.to_numpy(dtype=object), dtype=object).is_unique

@@ -78,3 +78,34 @@ def test_a_column_of_float_cells_types_as_the_cell_by_cell_rules_do(values):
     assert v.index.equals(pd.Index(index))
     assert why.astype(object).where(why.notna(), None).tolist() == \
         cwhy.astype(object).where(cwhy.notna(), None).tolist()[:-1]
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.one_of(st.integers(-10 ** 6, 10 ** 9), st.sampled_from(
+    [0, -1, 2 ** 53 - 1, 2 ** 53, -(2 ** 53), 2 ** 62, 0x800A0000 + 2042 - 2 ** 32])),
+    min_size=1, max_size=30))
+@example([104, 2 ** 53])                       # past exact floats: the careful text
+@example([7, 0x800A0000 + 2042 - 2 ** 32])     # #N/A as its code: an error value
+def test_integer_labels_are_the_cell_by_cell_labels(values):
+    # an int64 column (a DataFrame's or a Parquet file's IDs) labelled on the array; the
+    # reference: the same integers as object cells, which take the per-cell rules
+    from plumbrule.intake.cells import to_labels
+    index = np.arange(2, 2 + len(values))
+    fast = to_labels(pd.Series(values, dtype=np.int64, index=index), "ID")
+    careful = to_labels(pd.Series(values, dtype=object, index=index), "ID")
+    assert fast[0].tolist() == careful[0].tolist() or \
+        fast[0].fillna("").tolist() == careful[0].fillna("").tolist()
+    assert fast[1].notna().tolist() == careful[1].notna().tolist()
+    assert fast[1].dropna().tolist() == careful[1].dropna().tolist()
+
+
+def test_a_dataframes_text_columns_are_read_as_cells():
+    # pandas 3 infers its string dtype for a column of texts; the table keeps the texts as
+    # cells (object), so the one-scan plain-text path reads an ID or neighbourhood column
+    from plumbrule.intake.cells import plain_text
+    from plumbrule.intake.table import table_from_frame
+    frame = pd.DataFrame({"id": ["Q001", "Q002"], "hood": ["Millbank", "Old Quay"],
+                          "price": [1.0, 2.0]})
+    table = table_from_frame(frame)
+    assert plain_text(table.frame["id"]) and plain_text(table.frame["hood"])
+    assert table.frame["hood"].tolist() == ["Millbank", "Old Quay"]

@@ -474,12 +474,26 @@ def _parse_formatted(text: pd.Series) -> pd.Series:
     return num.fillna(booleans).astype(float)
 
 
+def _plain_int_array(col: pd.Series) -> np.ndarray | None:
+    """The integers of an integer-typed column when the rules read each as the label
+    ``str(n)``: all exact as floats (|n| < 2**53) and none of them a COM error code (all
+    below -2e9); else None."""
+    if not (isinstance(col.dtype, np.dtype) and col.dtype.kind in "iu" and len(col)):
+        return None
+    v = col.to_numpy()
+    return v if v.max() < 2 ** 53 and v.min() >= -2e9 else None
+
+
 def to_labels(col: pd.Series, name: str) -> tuple[pd.Series, pd.Series]:
     """Cells → category labels (text); 3.0 becomes '3', TRUE becomes 'TRUE',
     a date becomes YYYY-MM-DD. Text is trimmed; case is kept."""
     if plain_text(col):            # each cell its own label (an ID or category column)
         return pd.Series(col.to_numpy(dtype=object), index=col.index, dtype=object), \
             _no_reasons(col)[0]
+    ints = _plain_int_array(col)
+    if ints is not None:           # integer IDs of a DataFrame or Parquet file: 104 → '104'
+        return pd.Series(np.array(list(map(str, ints.tolist())), dtype=object),
+                         index=col.index, dtype=object), _no_reasons(col)[0]
     kinds = cell_kinds(col)
     is_text = kinds.eq(TEXT)
     uniques = Uniques(col[is_text]) if is_text.any() else None   # hashed once, used thrice

@@ -229,8 +229,11 @@ def table_from_frame(frame: pd.DataFrame, header_row: int = 1,
         # Plain numpy numbers, booleans and dates keep their fast dtype; anything
         # else (nullable, categorical, string dtypes) becomes plain cells.
         keep = isinstance(c.dtype, np.dtype) and c.dtype.kind in "fiubM"
-        cols[j] = c.to_numpy() if keep else c.astype(object).to_numpy()
-    body = pd.DataFrame(cols, index=pd.RangeIndex(len(frame)), copy=False)  # views, no copy
+        cols[j] = c.to_numpy() if keep else c.to_numpy(dtype=object)
+    # each column its own dtype, text as object cells: pandas 3 would infer its string
+    # dtype for a column of texts again, which the intake rules do not read as cells
+    body = pd.DataFrame({j: pd.Series(v, dtype=v.dtype, copy=False) for j, v in cols.items()},
+                        index=pd.RangeIndex(len(frame)), copy=False)  # views, no copy
     return _with_header(headers, body, header_row, sheet, first_column)
 
 
